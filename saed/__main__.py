@@ -1,0 +1,3 @@
+from saed.cli import main
+
+raise SystemExit(main())

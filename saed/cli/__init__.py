@@ -1,0 +1,79 @@
+"""The ``saed`` command: parsing, one-line messages, exit codes.
+
+Subcommands live in ``saed/cli/cmd_<name>.py``; each module defines ``NAME``,
+``HELP``, ``add_arguments(parser)`` and ``run(args) -> int``, and is found
+automatically. Library errors (:class:`saed.errors.SaedError`) become one line
+on stderr and exit status 2; ``--debug`` re-raises them with the traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import pkgutil
+import sys
+
+from saed import __version__
+from saed.errors import SaedError
+
+__all__ = ["main"]
+
+logger = logging.getLogger("saed")
+
+
+class _Parser(argparse.ArgumentParser):
+    """An ArgumentParser whose errors are one line and exit status 2."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
+def _commands():
+    import saed.cli as pkg
+
+    mods = []
+    for info in pkgutil.iter_modules(pkg.__path__):
+        if info.name.startswith("cmd_"):
+            mods.append(importlib.import_module(f"saed.cli.{info.name}"))
+    return sorted(mods, key=lambda m: getattr(m, "ORDER", 50))
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="saed", description="Index selected-area electron diffraction patterns: phase, zone axis, orientation.")
+    parser.add_argument("--version", action="version", version=f"saed {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="more log messages on stderr")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for mod in _commands():
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
+        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show the full traceback on errors")
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    logging.basicConfig(level=logging.WARNING - 10 * min(args.verbose, 2), format="saed: %(message)s", stream=sys.stderr)
+    if not getattr(args, "command", None):
+        parser.print_help(sys.stderr)
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except SaedError as exc:
+        if args.debug:
+            raise
+        print(f"saed {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print(f"saed {args.command}: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except MemoryError:
+        if args.debug:
+            raise
+        print(f"saed {args.command}: error: out of memory (try a smaller image, --max-g or fewer phases)", file=sys.stderr)
+        return 2

@@ -1,0 +1,265 @@
+"""A crystal phase: lattice + space group + atom sites, from the built-in table or a CIF.
+
+The built-in table (``saed/data/phases.json``) has a source for every lattice
+parameter. CIFs are read with gemmi. Atom sites are expanded to the full
+conventional cell with the space group's operations (including centring).
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from saed.crystal.lattice import Lattice
+from saed.crystal.scattering import element_symbol
+from saed.crystal.symmetry import space_group
+from saed.errors import PhaseError
+
+__all__ = ["Site", "Phase", "CellAtoms", "builtin_phase", "builtin_names", "load_phase", "cell_atoms"]
+
+#: Isotropic Debye-Waller B used when a source gives none: 0.5 A^2 = 0.005 nm^2,
+#: a typical room-temperature value for metals (common practice).
+DEFAULT_B_ISO_NM2 = 0.005
+
+
+@dataclass(frozen=True)
+class Site:
+    """One asymmetric-unit atom site: element, fractional position, occupancy, isotropic B (nm^2)."""
+
+    element: str
+    x: float
+    y: float
+    z: float
+    occupancy: float = 1.0
+    b_iso_nm2: float = DEFAULT_B_ISO_NM2
+    label: str = ""
+
+    def __post_init__(self):
+        object.__setattr__(self, "element", element_symbol(self.element))
+        for name in ("x", "y", "z", "occupancy", "b_iso_nm2"):
+            v = float(getattr(self, name))
+            if not math.isfinite(v):
+                raise PhaseError(f"site {self.label or self.element}: {name} = {v!r} is not a finite number")
+            object.__setattr__(self, name, v)
+        if not 0.0 <= self.occupancy <= 1.0 + 1e-6:
+            raise PhaseError(f"site {self.label or self.element}: occupancy {self.occupancy} must lie in 0..1")
+        if self.b_iso_nm2 < 0:
+            raise PhaseError(f"site {self.label or self.element}: negative Debye-Waller B {self.b_iso_nm2} nm^2")
+
+
+@dataclass(frozen=True)
+class Phase:
+    """A crystal phase. Hashable (and so usable as a cache key): every field is immutable.
+
+    ``space_group`` is a Hermann-Mauguin symbol gemmi understands (e.g. ``'F m -3 m'``,
+    ``'R -3 c:H'``). ``source`` says where the numbers come from.
+    """
+
+    name: str
+    lattice: Lattice
+    space_group: str
+    sites: tuple[Site, ...]
+    structure_type: str = ""
+    source: str = ""
+    note: str = field(default="", compare=False)
+
+    def __post_init__(self):
+        sg = space_group(self.space_group)
+        object.__setattr__(self, "space_group", sg.xhm())
+        object.__setattr__(self, "sites", tuple(self.sites))
+        if not self.sites:
+            raise PhaseError(f"phase {self.name!r} has no atom sites")
+        if all(s.occupancy <= 0 for s in self.sites):
+            raise PhaseError(f"phase {self.name!r}: every site has zero occupancy, nothing would scatter")
+        system = _system_of(sg)
+        got = self.lattice.crystal_system
+        compatible = {
+            "cubic": {"cubic"},
+            "hexagonal": {"hexagonal"},
+            "trigonal": {"hexagonal", "trigonal"},
+            "tetragonal": {"tetragonal", "cubic"},
+            "orthorhombic": {"orthorhombic", "tetragonal", "cubic"},
+            "monoclinic": {"monoclinic", "orthorhombic", "tetragonal", "cubic", "hexagonal"},
+            "triclinic": {"triclinic", "monoclinic", "orthorhombic", "tetragonal", "cubic", "hexagonal", "trigonal"},
+        }[system]
+        if got not in compatible:
+            raise PhaseError(
+                f"phase {self.name!r}: cell ({self.lattice.a_nm:g}, {self.lattice.b_nm:g}, {self.lattice.c_nm:g} nm; "
+                f"{self.lattice.alpha_deg:g}, {self.lattice.beta_deg:g}, {self.lattice.gamma_deg:g} deg) is {got}, "
+                f"but space group {self.space_group} is {system}"
+            )
+
+    @property
+    def space_group_number(self) -> int:
+        return space_group(self.space_group).number
+
+    @property
+    def space_group_short(self) -> str:
+        """Short Hermann-Mauguin symbol without spaces, e.g. 'Fm-3m', 'P63/mmc'."""
+        return "".join(space_group(self.space_group).hm.split())
+
+    @property
+    def is_hexagonal(self) -> bool:
+        """True when the phase uses hexagonal axes (hexagonal, or trigonal on hexagonal axes)."""
+        return self.lattice.is_hexagonal_axes
+
+
+def _system_of(sg) -> str:
+    s = sg.crystal_system_str()
+    if s == "trigonal" and sg.hm.startswith("R") and not sg.xhm().endswith(":H"):
+        return "trigonal"
+    return "hexagonal" if s == "trigonal" else s
+
+
+@dataclass(frozen=True)
+class CellAtoms:
+    """All atoms of the conventional cell: fractional positions (n, 3), elements, occupancies, B (nm^2)."""
+
+    frac: np.ndarray
+    elements: tuple[str, ...]
+    occupancy: np.ndarray
+    b_iso_nm2: np.ndarray
+
+
+@lru_cache(maxsize=256)
+def cell_atoms(phase: Phase) -> CellAtoms:
+    """Expand the asymmetric-unit sites of `phase` to the full conventional cell (symmetry + centring)."""
+    sg = space_group(phase.space_group)
+    ops = list(sg.operations())
+    frac, els, occ, bs = [], [], [], []
+    for site in phase.sites:
+        p = np.array([site.x, site.y, site.z])
+        images = []
+        for op in ops:
+            q = np.array(op.apply_to_xyz(p.tolist())) % 1.0
+            if not any(_same_frac(q, r) for r in images):
+                images.append(q)
+        for q in images:
+            frac.append(q)
+            els.append(site.element)
+            occ.append(site.occupancy)
+            bs.append(site.b_iso_nm2)
+    out = CellAtoms(np.array(frac), tuple(els), np.array(occ), np.array(bs))
+    for a in (out.frac, out.occupancy, out.b_iso_nm2):
+        a.flags.writeable = False
+    return out
+
+
+def _same_frac(p: np.ndarray, q: np.ndarray, tol: float = 1e-4) -> bool:
+    d = (p - q + 0.5) % 1.0 - 0.5
+    return bool(np.all(np.abs(d) < tol))
+
+
+# ---------------------------------------------------------------------- built-in table
+@lru_cache(maxsize=1)
+def _table() -> dict[str, dict]:
+    text = resources.files("saed").joinpath("data/phases.json").read_text(encoding="utf-8")
+    rows = json.loads(text)["phases"]
+    return {row["name"]: row for row in rows}
+
+
+def builtin_names() -> list[str]:
+    """Names of the built-in phases, in table order."""
+    return list(_table())
+
+
+@lru_cache(maxsize=None)
+def builtin_phase(name: str) -> Phase:
+    """The built-in phase called `name` (case-insensitive), or PhaseError with a 'did you mean'."""
+    table = _table()
+    key = {k.lower(): k for k in table}.get(str(name).lower())
+    if key is None:
+        close = difflib.get_close_matches(str(name), list(table), n=3, cutoff=0.5)
+        hint = f"; did you mean {' or '.join(close)}?" if close else "; 'saed phases' lists them"
+        raise PhaseError(f"unknown phase {name!r}{hint}")
+    row = table[key]
+    lat = Lattice(row["a_nm"], row.get("b_nm", row["a_nm"]), row.get("c_nm", row["a_nm"]),
+                  row.get("alpha_deg", 90.0), row.get("beta_deg", 90.0), row.get("gamma_deg", 90.0))
+    sites = tuple(
+        Site(s["element"], *s["xyz"], occupancy=s.get("occupancy", 1.0),
+             b_iso_nm2=s.get("b_iso_nm2", DEFAULT_B_ISO_NM2), label=s.get("label", s["element"]))
+        for s in row["sites"]
+    )
+    return Phase(row["name"], lat, row["space_group"], sites, row.get("structure_type", ""),
+                 row.get("source", ""), row.get("note", ""))
+
+
+# ---------------------------------------------------------------------- CIF
+def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
+    """Load a phase from a CIF file with gemmi; every failure becomes a one-line PhaseError."""
+    import gemmi
+
+    p = Path(path)
+    if not p.is_file():
+        raise PhaseError(f"{path}: no such CIF file")
+    try:
+        doc = gemmi.cif.read(str(p))
+    except (RuntimeError, ValueError, UnicodeError) as exc:
+        raise PhaseError(f"{path}: not a readable CIF ({_one_line(exc)})") from None
+    blocks = [b for b in doc if b.find_value("_cell_length_a") is not None] or list(doc)
+    if not blocks:
+        raise PhaseError(f"{path}: the CIF has no data block")
+    block = blocks[0]
+    for tag in ("_cell_length_a", "_cell_length_b", "_cell_length_c",
+                "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma"):
+        if block.find_value(tag) in (None, "?", "."):
+            raise PhaseError(f"{path}: the CIF has no {tag}")
+    try:
+        small = gemmi.make_small_structure_from_block(block)
+    except (RuntimeError, ValueError, IndexError) as exc:
+        raise PhaseError(f"{path}: cannot read the structure ({_one_line(exc)})") from None
+    cell = small.cell
+    lat = Lattice(cell.a / 10.0, cell.b / 10.0, cell.c / 10.0, cell.alpha, cell.beta, cell.gamma)  # A -> nm
+    sg_name = _cif_space_group(block, small)
+    if sg_name is None:
+        raise PhaseError(f"{path}: the CIF names no space group (_space_group_name_H-M_alt or _symmetry_space_group_name_H-M)")
+    sg = space_group(sg_name)
+    if sg.hm.startswith("R") and lat.crystal_system == "hexagonal" and not sg.xhm().endswith(":H"):
+        sg_name = sg.hm + ":H"
+    sites = []
+    for s in small.sites:
+        b_nm2 = DEFAULT_B_ISO_NM2
+        if s.u_iso and s.u_iso > 0:
+            b_nm2 = 8.0 * math.pi**2 * s.u_iso / 100.0  # U in A^2 -> B in nm^2
+        el = s.type_symbol or s.element.name or s.label
+        sites.append(Site(el, s.fract.x, s.fract.y, s.fract.z, occupancy=s.occ, b_iso_nm2=b_nm2, label=s.label))
+    if not sites:
+        raise PhaseError(f"{path}: the CIF lists no atom sites (_atom_site_fract_x ...)")
+    title = name or block.name or p.stem
+    return Phase(title, lat, sg_name, tuple(sites), structure_type="", source=f"CIF {p.name}")
+
+
+def _cif_space_group(block, small) -> str | None:
+    for tag in ("_space_group_name_H-M_alt", "_symmetry_space_group_name_H-M", "_space_group_name_Hall",
+                "_symmetry_space_group_name_Hall", "_space_group_IT_number", "_symmetry_Int_Tables_number"):
+        v = block.find_value(tag)
+        if v not in (None, "?", "."):
+            v = v.strip().strip("'\"")
+            if "Hall" in tag:
+                import gemmi
+
+                try:
+                    return gemmi.find_spacegroup_by_ops(gemmi.symops_from_hall(v)).xhm()
+                except (RuntimeError, ValueError, AttributeError):
+                    continue
+            return v
+    return None
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split())[:200]
+
+
+def load_phase(spec: str) -> Phase:
+    """A built-in phase name or a path to a CIF file."""
+    s = str(spec)
+    if s.lower().endswith(".cif") or Path(s).is_file():
+        return phase_from_cif(s)
+    return builtin_phase(s)
