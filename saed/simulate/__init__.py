@@ -1,0 +1,1 @@
+"""Kinematic simulation: zone-axis patterns, double diffraction, HOLZ, rendering, zone maps, tilts."""
