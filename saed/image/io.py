@@ -1,0 +1,443 @@
+"""Reading recorded patterns: TIFF, PNG, JPEG and ``.npy``, as 2-D float32 arrays, never rescaled.
+
+Every problem with a file (missing, truncated, not an image, colour, NaN, empty, all zero, one pixel
+wide, a frame that does not exist) is raised as one :class:`saed.errors.ImageError` whose message
+names the file and the problem.
+
+Formats
+-------
+* TIFF (tifffile): 8/16/32-bit unsigned and signed integers, 16/32/64-bit floats, one page or many
+  (each page is a frame; ``frame`` picks one). A page whose data would reach beyond the end of the
+  file is reported as truncated rather than read as zeros.
+* PNG and JPEG (Pillow, which matplotlib already depends on): 8-bit grey, 16-bit grey, 32-bit
+  integer and float grey. Colour images are accepted only when every channel is equal (a grey image
+  saved as RGB); an alpha channel is ignored.
+* ``.npy`` (numpy, no pickles): a 2-D array, or a stack whose last two axes are the detector
+  (``frame`` is the flat index over the leading axes). Read through a memory map, so a large stack
+  costs only the frame asked for.
+
+Pixel convention (CONTRACT.md): the array is indexed ``[row, column]``, i.e. ``[y, x]``.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import re
+import struct
+import warnings
+import zlib
+from pathlib import Path
+
+import numpy as np
+
+from saed.calibration import PLAUSIBLE_SCALE_INV_NM_PER_PX
+from saed.errors import ImageError
+
+__all__ = ["read_image", "read_image_calibration", "count_frames", "MIN_SIDE_PX", "MAX_PIXELS",
+           "RECIPROCAL_UNITS_INV_NM"]
+
+logger = logging.getLogger(__name__)
+
+#: The smallest image side that can hold a diffraction pattern (pixels).
+MIN_SIDE_PX = 16
+#: The largest frame read (pixels): 16384 x 16384. Larger is almost surely a corrupt header.
+MAX_PIXELS = 16384 * 16384
+
+#: Reciprocal-length units accepted in a TIFF's ImageJ ``unit=`` entry, with their size in 1/nm.
+RECIPROCAL_UNITS_INV_NM = {
+    "1/nm": 1.0, "nm^-1": 1.0, "nm-1": 1.0, "1/nanometer": 1.0, "nm⁻¹": 1.0,
+    "1/a": 10.0, "a^-1": 10.0, "a-1": 10.0, "1/å": 10.0, "å^-1": 10.0, "å-1": 10.0, "å⁻¹": 10.0,
+    "1/angstrom": 10.0, "1/um": 1e-3, "um^-1": 1e-3, "1/µm": 1e-3, "µm^-1": 1e-3, "1/pm": 1e3,
+}
+
+_TIFF_SUFFIXES = (".tif", ".tiff")
+_PIL_SUFFIXES = (".png", ".jpg", ".jpeg")
+_NPY_SUFFIXES = (".npy",)
+# What third-party decoders raise on corrupt bytes (Pillow raises SyntaxError for broken PNG chunks).
+_DECODE_ERRORS = (ValueError, OSError, EOFError, KeyError, IndexError, TypeError, AttributeError,
+                  struct.error, zlib.error, SyntaxError, OverflowError, RuntimeError, ZeroDivisionError,
+                  NotImplementedError, UnicodeDecodeError)
+
+
+def _kind(path: Path) -> str:
+    suffix = path.suffix.lower()
+    if suffix in _TIFF_SUFFIXES:
+        return "tiff"
+    if suffix in _PIL_SUFFIXES:
+        return "pil"
+    if suffix in _NPY_SUFFIXES:
+        return "npy"
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(8)
+    except OSError as exc:
+        raise ImageError(f"{path}: cannot read the file ({exc.strerror or exc.__class__.__name__})") from None
+    if head[:4] in (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+"):
+        return "tiff"
+    if head.startswith(b"\x89PNG") or head.startswith(b"\xff\xd8"):
+        return "pil"
+    if head.startswith(b"\x93NUMPY"):
+        return "npy"
+    raise ImageError(f"{path}: not a TIFF, PNG, JPEG or .npy image (unknown suffix {suffix or 'none'!r})")
+
+
+def _check_file(path) -> Path:
+    p = Path(path)
+    if not p.exists():
+        raise ImageError(f"{path}: no such file")
+    if p.is_dir():
+        raise ImageError(f"{path}: is a folder, not an image file")
+    if p.stat().st_size == 0:
+        raise ImageError(f"{path}: the file is empty (0 bytes)")
+    return p
+
+
+def _check_frame(path, frame, n: int) -> int:
+    if frame is None:
+        if n > 1:
+            logger.info("%s holds %d frames; reading frame 0 (choose with --frame)", path, n)
+        return 0
+    f = int(frame)
+    if not 0 <= f < n:
+        what = "1 frame" if n == 1 else f"{n} frames (0-{n - 1})"
+        raise ImageError(f"{path}: frame {f} does not exist; the file holds {what}")
+    return f
+
+
+def _check_shape(path, shape) -> None:
+    shape = tuple(int(s) for s in shape)
+    if any(s == 0 for s in shape):
+        raise ImageError(f"{path}: the image is empty (shape {shape})")
+    if math.prod(shape) > MAX_PIXELS:
+        raise ImageError(f"{path}: the image is too large ({'x'.join(map(str, shape))} pixels; at most 16384x16384)")
+
+
+# --------------------------------------------------------------------------- TIFF
+
+def _open_tiff(path: Path):
+    import tifffile
+
+    try:
+        return tifffile.TiffFile(path)
+    except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
+        raise ImageError(f"{path}: not a readable TIFF ({_short(exc)})") from None
+
+
+def _tiff_frame(path: Path, frame) -> np.ndarray:
+    import tifffile
+
+    size = path.stat().st_size
+    with _open_tiff(path) as tif:
+        try:
+            n = len(tif.pages)
+            if n == 0:
+                raise ImageError(f"{path}: the TIFF holds no image")
+            k = _check_frame(path, frame, n)
+            page = tif.pages[k]
+            if not hasattr(page, "asarray"):
+                raise ImageError(f"{path}: frame {k} of the TIFF is not an image")
+            _check_shape(path, page.shape)
+            offsets, counts = page.dataoffsets, page.databytecounts
+            if not offsets or not counts:
+                raise ImageError(f"{path}: the TIFF page has no image data")
+            end = max(int(o) + int(c) for o, c in zip(offsets, counts))
+            if end > size:
+                raise ImageError(f"{path}: the TIFF is truncated (image data runs to byte {end}, the file has {size})")
+            data = page.asarray()
+            photometric = int(page.photometric) if page.photometric is not None else 1
+            planar_first = page.planarconfig == 2
+        except ImageError:
+            raise
+        except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
+            raise ImageError(f"{path}: the TIFF cannot be decoded ({_short(exc)})") from None
+        except MemoryError:
+            raise ImageError(f"{path}: the TIFF is too large to read into memory") from None
+    if data.ndim == 3:
+        if planar_first:
+            data = np.moveaxis(data, 0, -1)
+        data = _grey_from_channels(path, data, photometric_rgb=photometric in (2, 6))
+    return data
+
+
+# --------------------------------------------------------------------------- PNG / JPEG
+
+def _pil_frame(path: Path, frame) -> np.ndarray:
+    from PIL import Image
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            with Image.open(path) as im:
+                n = int(getattr(im, "n_frames", 1))
+                k = _check_frame(path, frame, n)
+                if k:
+                    im.seek(k)
+                _check_shape(path, (im.height, im.width))
+                mode = im.mode
+                if mode == "P":
+                    im = im.convert("RGBA")
+                    mode = "RGBA"
+                elif mode == "1":
+                    im = im.convert("L")
+                    mode = "L"
+                elif mode in ("CMYK", "YCbCr", "LAB", "HSV"):
+                    raise ImageError(f"{path}: a colour image ({mode}); save the pattern as a greyscale image")
+                data = np.asarray(im)
+    except ImageError:
+        raise
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning):
+        raise ImageError(f"{path}: the image header claims an implausibly large size") from None
+    except _DECODE_ERRORS as exc:
+        raise ImageError(f"{path}: not a readable PNG or JPEG ({_short(exc)})") from None
+    except MemoryError:
+        raise ImageError(f"{path}: the image is too large to read into memory") from None
+    if data.ndim == 3:
+        data = _grey_from_channels(path, data, photometric_rgb=True)
+    return data
+
+
+# --------------------------------------------------------------------------- .npy
+
+def _open_npy(path: Path) -> np.ndarray:
+    try:
+        arr = np.load(path, mmap_mode="r", allow_pickle=False)
+    except ValueError as exc:
+        text = str(exc)
+        if "pickle" in text.lower():
+            raise ImageError(f"{path}: the .npy holds Python objects, not a numeric image") from None
+        raise ImageError(f"{path}: not a readable .npy (truncated or corrupt: {_short(exc)})") from None
+    except (*_DECODE_ERRORS, MemoryError) as exc:
+        raise ImageError(f"{path}: not a readable .npy ({_short(exc)})") from None
+    if not isinstance(arr, np.ndarray):
+        raise ImageError(f"{path}: the .npy file holds no array")
+    return arr
+
+
+def _npy_frames(path: Path, arr: np.ndarray) -> int:
+    if arr.ndim < 2:
+        raise ImageError(f"{path}: the .npy array has shape {arr.shape}; an image needs two axes (rows, columns)")
+    return int(math.prod(arr.shape[:-2]))
+
+
+def _npy_frame(path: Path, frame) -> np.ndarray:
+    arr = _open_npy(path)
+    n = _npy_frames(path, arr)
+    if n == 0:
+        raise ImageError(f"{path}: the .npy stack is empty (shape {arr.shape})")
+    k = _check_frame(path, frame, n)
+    _check_shape(path, arr.shape[-2:])
+    try:
+        data = np.array(arr.reshape((-1,) + arr.shape[-2:])[k])
+    except (*_DECODE_ERRORS, MemoryError) as exc:
+        raise ImageError(f"{path}: the .npy data cannot be read ({_short(exc)})") from None
+    return data
+
+
+# --------------------------------------------------------------------------- shared checks
+
+def _grey_from_channels(path, data: np.ndarray, *, photometric_rgb: bool) -> np.ndarray:
+    """(rows, cols, channels) -> (rows, cols): accepted only when the colour channels are equal."""
+    c = data.shape[-1]
+    if c == 1:
+        return data[..., 0]
+    if c == 2:  # grey + alpha
+        return data[..., 0]
+    colour = data[..., :3] if c in (3, 4) and photometric_rgb else data
+    first = colour[..., 0]
+    for i in range(1, colour.shape[-1]):
+        if not np.array_equal(first, colour[..., i]):
+            raise ImageError(f"{path}: a colour image ({c} channels that differ); save the pattern as a greyscale image")
+    return first
+
+
+def _finish(path, data: np.ndarray) -> np.ndarray:
+    """Dtype and content checks shared by every format; returns a C-contiguous 2-D float32 copy."""
+    if data.dtype.kind == "c":
+        raise ImageError(f"{path}: complex-valued data ({data.dtype}) is not an intensity image")
+    if data.dtype.kind not in "biuf":
+        raise ImageError(f"{path}: data of type {data.dtype} is not an intensity image")
+    if data.ndim != 2:
+        raise ImageError(f"{path}: expected a 2-D image, got shape {data.shape}")
+    rows, cols = data.shape
+    if rows == 0 or cols == 0:
+        raise ImageError(f"{path}: the image is empty (shape {data.shape})")
+    if min(rows, cols) < MIN_SIDE_PX:
+        raise ImageError(f"{path}: the image is {rows}x{cols} pixels; a pattern needs at least "
+                         f"{MIN_SIDE_PX} pixels in each direction")
+    img = np.ascontiguousarray(data, dtype=np.float32)
+    if data.dtype.kind == "f":
+        finite = np.isfinite(img)
+        if not finite.all():
+            bad = img.size - int(np.count_nonzero(finite))
+            raise ImageError(f"{path}: {bad} pixels are NaN or infinite; replace them (e.g. by 0) or mask them")
+    lo, hi = float(img.min()), float(img.max())
+    if hi == 0.0 and lo == 0.0:
+        raise ImageError(f"{path}: every pixel is zero (an empty exposure?)")
+    if hi == lo:
+        raise ImageError(f"{path}: every pixel has the same value {hi:g} (saturated or blank exposure)")
+    return img
+
+
+def _short(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    if len(text) > 90:
+        text = text[:87] + "..."
+    return f"{exc.__class__.__name__}: {text}" if text else exc.__class__.__name__
+
+
+# --------------------------------------------------------------------------- public
+
+def count_frames(path) -> int:
+    """Number of frames in an image file: TIFF pages, animated PNG frames, or the product of the leading axes of a ``.npy``.
+
+    Raises
+    ------
+    ImageError
+        The file is missing, empty, not an image, or corrupt.
+    """
+    p = _check_file(path)
+    kind = _kind(p)
+    if kind == "tiff":
+        import tifffile
+
+        with _open_tiff(p) as tif:
+            try:
+                return len(tif.pages)
+            except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
+                raise ImageError(f"{path}: the TIFF cannot be decoded ({_short(exc)})") from None
+    if kind == "npy":
+        return _npy_frames(p, _open_npy(p))
+    from PIL import Image
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            with Image.open(p) as im:
+                return int(getattr(im, "n_frames", 1))
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning):
+        raise ImageError(f"{path}: the image header claims an implausibly large size") from None
+    except _DECODE_ERRORS as exc:
+        raise ImageError(f"{path}: not a readable PNG or JPEG ({_short(exc)})") from None
+
+
+def read_image(path, *, frame: int | None = None) -> np.ndarray:
+    """Read one frame of a recorded pattern as a 2-D float32 array of the stored values.
+
+    Parameters
+    ----------
+    path : str or Path
+        TIFF, PNG, JPEG or ``.npy`` file (the format is taken from the suffix, else from the first bytes).
+    frame : int, optional
+        Which frame of a multi-page TIFF, animated PNG or ``.npy`` stack (flat index over the leading
+        axes); default the first. Asking for a frame that does not exist is an error.
+
+    Returns
+    -------
+    ndarray of shape (rows, cols), float32
+        The stored values, not rescaled (a 16-bit count of 4000 stays 4000.0). Indexed ``[y, x]``.
+
+    Raises
+    ------
+    ImageError
+        One line naming the file and the problem: missing, empty, truncated, not an image, colour,
+        complex, smaller than 16 pixels in a direction, NaN or infinite pixels, every pixel zero or
+        equal, or a frame out of range.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> d = tempfile.mkdtemp(); p = os.path.join(d, "p.npy")
+    >>> np.save(p, np.arange(400, dtype=np.uint16).reshape(20, 20))
+    >>> img = read_image(p); img.dtype, img.shape, float(img[19, 19])
+    (dtype('float32'), (20, 20), 399.0)
+    """
+    p = _check_file(path)
+    kind = _kind(p)
+    if kind == "tiff":
+        data = _tiff_frame(p, frame)
+    elif kind == "npy":
+        data = _npy_frame(p, frame)
+    else:
+        data = _pil_frame(p, frame)
+    return _finish(path, data)
+
+
+_UNIT_RE = re.compile(r"^\s*unit\s*=\s*(.+?)\s*$", re.MULTILINE)
+
+
+def _normalise_unit(text: str) -> str:
+    t = text.strip().lower().replace(" ", "").replace("\\u00c5", "å").replace("\\u00b5", "µ")
+    t = t.replace("angstroms", "a").replace("angstrom", "a").replace("micron", "um").replace("μ", "µ")
+    return t.replace("^(-1)", "^-1").replace("**-1", "^-1")
+
+
+def read_image_calibration(path) -> float | None:
+    """The detector scale (1/nm per pixel) stored in a TIFF's resolution tags, or None.
+
+    Accepted: a TIFF whose ImageJ description gives a reciprocal-length ``unit`` (``1/nm``, ``nm^-1``,
+    ``1/A``, ``1/Å``, ``A^-1``, ``1/um``, ...; see :data:`RECIPROCAL_UNITS_INV_NM`) together with
+    XResolution = YResolution = pixels per that unit, which is how ImageJ/Fiji and tifffile store a
+    calibrated diffraction pattern. The scale is then ``unit_in_inv_nm / XResolution``.
+
+    Not accepted (returns None): real-space units or inch/centimetre ResolutionUnit (a printing
+    resolution, or an image-mode calibration in nm, says nothing about reciprocal space), unequal X and
+    Y resolutions (non-square pixels), and scales outside the plausible range of
+    :data:`saed.calibration.PLAUSIBLE_SCALE_INV_NM_PER_PX` (each logged as a warning). PNG, JPEG and
+    ``.npy`` files carry no calibration: None.
+
+    Raises
+    ------
+    ImageError
+        The file is missing or not a readable image.
+    """
+    p = _check_file(path)
+    if _kind(p) != "tiff":
+        return None
+    import tifffile
+
+    with _open_tiff(p) as tif:
+        try:
+            page = tif.pages[0]
+            meta = tif.imagej_metadata or {}
+            desc = page.description or ""
+            xres = page.tags.get("XResolution")
+            yres = page.tags.get("YResolution")
+            xres = None if xres is None else xres.value
+            yres = None if yres is None else yres.value
+        except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
+            raise ImageError(f"{path}: the TIFF cannot be decoded ({_short(exc)})") from None
+    unit = meta.get("unit")
+    if unit is None:
+        m = _UNIT_RE.search(desc)
+        unit = m.group(1) if m else None
+    if unit is None or xres is None:
+        return None
+    factor = RECIPROCAL_UNITS_INV_NM.get(_normalise_unit(str(unit)))
+    if factor is None:
+        logger.debug("%s: resolution unit %r is not a reciprocal length; no calibration taken", path, unit)
+        return None
+
+    def _rational(v):
+        try:
+            num, den = v
+            return float(num) / float(den) if float(den) else float("nan")
+        except (TypeError, ValueError):
+            return float("nan")
+
+    px_per_unit_x = _rational(xres)
+    px_per_unit_y = _rational(yres) if yres is not None else px_per_unit_x
+    if not (math.isfinite(px_per_unit_x) and px_per_unit_x > 0 and math.isfinite(px_per_unit_y) and px_per_unit_y > 0):
+        logger.warning("%s: unusable resolution tags (%r, %r); no calibration taken", path, xres, yres)
+        return None
+    if abs(px_per_unit_x - px_per_unit_y) > 1e-3 * max(px_per_unit_x, px_per_unit_y):
+        logger.warning("%s: X and Y resolutions differ (%g, %g px per %s); no calibration taken",
+                       path, px_per_unit_x, px_per_unit_y, unit)
+        return None
+    scale = factor / px_per_unit_x
+    lo, hi = PLAUSIBLE_SCALE_INV_NM_PER_PX
+    if not lo <= scale <= hi:
+        logger.warning("%s: resolution tags give %g 1/nm per px, outside the plausible %g-%g; no calibration taken",
+                       path, scale, lo, hi)
+        return None
+    return scale
