@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import difflib
 import json
+import logging
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -21,6 +22,8 @@ from saed.crystal.lattice import Lattice
 from saed.crystal.scattering import element_symbol
 from saed.crystal.symmetry import space_group
 from saed.errors import PhaseError
+
+logger = logging.getLogger(__name__)
 
 __all__ = ["Site", "Phase", "CellAtoms", "builtin_phase", "builtin_names", "load_phase", "cell_atoms"]
 
@@ -237,6 +240,20 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
 
 
 def _cif_space_group(block, small) -> str | None:
+    """The space group of a CIF block, as a gemmi extended H-M symbol.
+
+    gemmi's own determination comes first: the symmetry operations listed in the CIF
+    (``_space_group_symop_operation_xyz``), then the Hall symbol, then the H-M symbol with
+    the CIF default setting (origin choice 2, hexagonal axes), then the number. Taking the
+    bare H-M string instead would read 'F d -3 m' as origin choice 1 and put the atoms of an
+    origin-2 CIF (Si at 1/8,1/8,1/8) on the wrong sites.
+    """
+    sg = small.spacegroup
+    if sg is not None:
+        problem = small.check_spacegroup()
+        if problem:
+            logger.warning("CIF block %s: %s; using %s", block.name, _one_line(problem), sg.xhm())
+        return sg.xhm()
     for tag in ("_space_group_name_H-M_alt", "_symmetry_space_group_name_H-M", "_space_group_name_Hall",
                 "_symmetry_space_group_name_Hall", "_space_group_IT_number", "_symmetry_Int_Tables_number"):
         v = block.find_value(tag)
