@@ -40,6 +40,27 @@ class Ellipse:
         object.__setattr__(self, "axis_ratio", r)
         object.__setattr__(self, "major_axis_angle_deg", float(self.major_axis_angle_deg) % 180.0)
 
+    def corrected_px(self, dx_px, dy_px):
+        """Undo the distortion of offsets (dx, dy) from the pattern centre; returns (dx', dy') in px.
+
+        Convention (area-preserving): a ring whose undistorted radius is R appears as an ellipse
+        with semi-axes R*sqrt(q) along the major axis and R/sqrt(q) across it (q = axis_ratio),
+        so the scale refers to the geometric-mean radius of a ring. Works on arrays.
+
+        >>> e = Ellipse(1.02, 0.0)
+        >>> [round(float(v), 6) for v in e.corrected_px(100 * 1.02 ** 0.5, 0.0)]
+        [100.0, 0.0]
+        """
+        import numpy as np
+
+        q = math.sqrt(self.axis_ratio)
+        t = math.radians(self.major_axis_angle_deg)
+        c, s = math.cos(t), math.sin(t)
+        dx, dy = np.asarray(dx_px, dtype=float), np.asarray(dy_px, dtype=float)
+        u = (c * dx + s * dy) / q
+        v = (-s * dx + c * dy) * q
+        return c * u - s * v, s * u + c * v
+
 
 @dataclass(frozen=True)
 class Calibration:
