@@ -136,13 +136,14 @@ def cell_atoms(phase: Phase) -> CellAtoms:
     """Expand the asymmetric-unit sites of `phase` to the full conventional cell (symmetry + centring)."""
     sg = space_group(phase.space_group)
     ops = list(sg.operations())
+    to_cart = phase.lattice.direct_matrix_nm
     frac, els, occ, bs = [], [], [], []
     for site in phase.sites:
         p = np.array([site.x, site.y, site.z])
         images = []
         for op in ops:
             q = np.array(op.apply_to_xyz(p.tolist())) % 1.0
-            if not any(_same_frac(q, r) for r in images):
+            if not any(_same_site(q, r, to_cart) for r in images):
                 images.append(q)
         for q in images:
             frac.append(q)
@@ -155,9 +156,15 @@ def cell_atoms(phase: Phase) -> CellAtoms:
     return out
 
 
-def _same_frac(p: np.ndarray, q: np.ndarray, tol: float = 1e-4) -> bool:
+#: Symmetry images of one site closer than this (nm) are one atom on a special position.
+#: 0.01 nm = 0.1 A absorbs coordinates rounded to 3 decimals (0.333 for 1/3) in cells up to
+#: about 3 nm, and stays below the 0.2-0.5 A spacing of split (disordered) sites.
+SPECIAL_POSITION_TOL_NM = 0.01
+
+
+def _same_site(p: np.ndarray, q: np.ndarray, to_cart: np.ndarray) -> bool:
     d = (p - q + 0.5) % 1.0 - 0.5
-    return bool(np.all(np.abs(d) < tol))
+    return bool(np.linalg.norm(to_cart @ d) < SPECIAL_POSITION_TOL_NM)
 
 
 # ---------------------------------------------------------------------- built-in table
