@@ -11,6 +11,7 @@ import difflib
 import json
 import logging
 import math
+import re
 from dataclasses import dataclass, field
 from functools import lru_cache
 from importlib import resources
@@ -25,7 +26,8 @@ from saed.errors import PhaseError
 
 logger = logging.getLogger(__name__)
 
-__all__ = ["Site", "Phase", "CellAtoms", "builtin_phase", "builtin_names", "load_phase", "cell_atoms"]
+__all__ = ["Site", "Phase", "CellAtoms", "builtin_phase", "builtin_names", "load_phase", "cell_atoms",
+           "suggest_builtin"]
 
 #: Isotropic Debye-Waller B used when a source gives none: 0.5 A^2 = 0.005 nm^2,
 #: a typical room-temperature value for metals (common practice).
@@ -184,11 +186,11 @@ def builtin_names() -> list[str]:
 def builtin_phase(name: str) -> Phase:
     """The built-in phase called `name` (case-insensitive), or PhaseError with a 'did you mean'."""
     table = _table()
-    key = {k.lower(): k for k in table}.get(str(name).lower())
+    key = {k.lower(): k for k in table}.get(str(name).strip().lower())
     if key is None:
-        close = difflib.get_close_matches(str(name), list(table), n=3, cutoff=0.5)
-        hint = f"; did you mean {' or '.join(close)}?" if close else "; 'saed phases' lists them"
-        raise PhaseError(f"unknown phase {name!r}{hint}")
+        close = suggest_builtin(str(name))
+        hint = f"; did you mean {' or '.join(close)}?" if close else ""
+        raise PhaseError(f"unknown phase {name!r}{hint} (see 'saed phases', or give a CIF path)")
     row = table[key]
     lat = Lattice(row["a_nm"], row.get("b_nm", row["a_nm"]), row.get("c_nm", row["a_nm"]),
                   row.get("alpha_deg", 90.0), row.get("beta_deg", 90.0), row.get("gamma_deg", 90.0))
@@ -199,6 +201,68 @@ def builtin_phase(name: str) -> Phase:
     )
     return Phase(row["name"], lat, row["space_group"], sites, row.get("structure_type", ""),
                  row.get("source", ""), row.get("note", ""))
+
+
+#: Element names that people type for symbols (only elements of the built-in table).
+_ELEMENT_WORDS = {
+    "aluminium": "al", "aluminum": "al", "copper": "cu", "nickel": "ni", "silver": "ag", "gold": "au",
+    "platinum": "pt", "palladium": "pd", "lead": "pb", "iron": "fe", "cobalt": "co", "chromium": "cr",
+    "molybdenum": "mo", "tungsten": "w", "niobium": "nb", "tantalum": "ta", "vanadium": "v",
+    "magnesium": "mg", "titanium": "ti", "zirconium": "zr", "zinc": "zn", "beryllium": "be",
+    "cadmium": "cd", "silicon": "si", "germanium": "ge", "carbon": "c", "polonium": "po",
+    "α": "alpha", "β": "beta", "γ": "gamma",
+}
+
+#: Other words that name a built-in phase: minerals, metallurgical names, Greek-letter polymorphs.
+_PHASE_WORDS = {
+    "Fe-fcc": ("austenite", "gamma"), "Fe-bcc": ("ferrite", "alpha"), "Co-fcc": ("beta",),
+    "Co-hcp": ("alpha", "epsilon"), "Ti-hcp": ("alpha",), "Zr-hcp": ("alpha",),
+    "NaCl": ("halite", "rocksalt"), "MgO": ("periclase",), "TiN": ("osbornite",), "NiO": ("bunsenite",),
+    "CaF2": ("fluorite",), "CeO2": ("ceria",), "ZnS": ("sphalerite", "zincblende"),
+    "Ni3Al": ("gamma'", "gamma-prime"), "TiAl": ("gamma",),
+    "Al2O3": ("corundum", "alumina", "sapphire", "alpha"), "TiO2-rutile": ("titania",),
+}
+
+
+def _words(text: str) -> tuple[str, ...]:
+    """Lower-case words of a phase name, element names turned into symbols: 'Cobalt_FCC' -> ('co', 'fcc')."""
+    parts = [w for w in re.split(r"[\s_\-/,;:()]+", text.strip().lower()) if w]
+    out = []
+    for w in parts:
+        if w not in _ELEMENT_WORDS and len(w) > 4:  # a misspelt name: 'nickle', 'cobolt', 'austenit'
+            vocabulary = list(_ELEMENT_WORDS) + [v for vs in _PHASE_WORDS.values() for v in vs]
+            w = next(iter(difflib.get_close_matches(w, vocabulary, n=1, cutoff=0.8)), w)
+        out.append(_ELEMENT_WORDS.get(w, w))
+    return tuple(sorted(out))
+
+
+def suggest_builtin(name: str, *, n: int = 3) -> list[str]:
+    """Built-in phase names that `name` probably meant, best first (at most `n`).
+
+    Case, '-', '_', spaces, word order and element names do not matter ('co_fcc', 'fcc Co',
+    'Cobalt-fcc' -> Co-fcc); a name that is part of several ('Co') gives all of them; typos
+    ('Ni3AI', 'SrTi03') are caught by difflib's ratio on the normalised words.
+
+    >>> suggest_builtin("cobalt")
+    ['Co-fcc', 'Co-hcp']
+    >>> suggest_builtin("fcc_co")
+    ['Co-fcc']
+    """
+    query = _words(name)
+    if not query:
+        return []
+    names = list(_table())
+    own = {k: _words(k) for k in names}
+    every = {k: set(own[k]) | set(_PHASE_WORDS.get(k, ())) for k in names}
+    exact = [k for k in names if own[k] == query]
+    inside = [k for k in names if set(query) <= every[k]]
+    flat = {"".join(v): k for k, v in own.items()}
+    close = [flat[m] for m in difflib.get_close_matches("".join(query), list(flat), n=n, cutoff=0.75)]
+    out: list[str] = []
+    for k in exact + inside + close:
+        if k not in out:
+            out.append(k)
+    return out[:n]
 
 
 # ---------------------------------------------------------------------- CIF
