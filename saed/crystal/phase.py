@@ -346,8 +346,15 @@ def _one_line(exc: BaseException) -> str:
 
 
 def load_phase(spec: str) -> Phase:
-    """A built-in phase name or a path to a CIF file."""
+    """A built-in phase name or a path to a CIF file.
+
+    A built-in name wins over a file of the same name in the working directory (a stray
+    file called 'Si' must not turn ``--phase Si`` into a CIF error); anything ending in
+    '.cif' or containing a '/' is always a path.
+    """
     s = str(spec)
-    if s.lower().endswith(".cif") or Path(s).is_file():
+    if s.lower().endswith(".cif") or "/" in s or "\\" in s:
         return phase_from_cif(s)
-    return builtin_phase(s)
+    if s.strip().lower() in {k.lower() for k in _table()} or not Path(s).is_file():
+        return builtin_phase(s)
+    return phase_from_cif(s)
