@@ -1,0 +1,1 @@
+"""Synthetic diffraction patterns for tests, benchmarks and the demo."""
