@@ -21,10 +21,12 @@ def space_group(name: str):
     """The gemmi SpaceGroup for a Hermann-Mauguin symbol or number, or PhaseError."""
     import gemmi
 
+    text = str(name).strip()
     try:
-        sg = gemmi.find_spacegroup_by_name(str(name))
-        if sg is None and str(name).strip().isdigit():
-            sg = gemmi.find_spacegroup_by_number(int(name))
+        if text.isdigit():  # gemmi reads '0' as P 1, so numbers are checked here
+            sg = gemmi.find_spacegroup_by_number(int(text)) if 1 <= int(text) <= 230 else None
+        else:
+            sg = gemmi.find_spacegroup_by_name(text) if text else None
     except (RuntimeError, ValueError):
         sg = None
     if sg is None:
