@@ -175,19 +175,15 @@ class Lattice:
 
     def plane_angle_deg(self, hkl1, hkl2) -> np.ndarray:
         """Angle between the normals of planes (hkl1) and (hkl2), degrees, 0..180."""
-        return _angle(np.asarray(hkl1, float), np.asarray(hkl2, float), self.reciprocal_metric_tensor_inv_nm2)
+        return _angle(self.g_cartesian_inv_nm(hkl1), self.g_cartesian_inv_nm(hkl2))
 
     def direction_angle_deg(self, uvw1, uvw2) -> np.ndarray:
         """Angle between directions [uvw1] and [uvw2], degrees, 0..180."""
-        return _angle(np.asarray(uvw1, float), np.asarray(uvw2, float), self.metric_tensor_nm2)
+        return _angle(self.r_cartesian_nm(uvw1), self.r_cartesian_nm(uvw2))
 
     def plane_direction_angle_deg(self, hkl, uvw) -> np.ndarray:
         """Angle between the normal of plane (hkl) and direction [uvw], degrees (h.u needs no metric)."""
-        h = np.asarray(hkl, float)
-        u = np.asarray(uvw, float)
-        dot = np.sum(h * u, axis=-1)
-        cos = dot * self.d_nm(h) / self.length_nm(u)
-        return np.degrees(np.arccos(np.clip(cos, -1.0, 1.0)))
+        return _angle(self.g_cartesian_inv_nm(hkl), self.r_cartesian_nm(uvw))
 
     @staticmethod
     def zone_of_planes(hkl1, hkl2) -> np.ndarray:
@@ -206,13 +202,16 @@ class Lattice:
         return reduce_indices(np.cross(np.asarray(uvw1, dtype=np.int64), np.asarray(uvw2, dtype=np.int64)))
 
 
-def _angle(x: np.ndarray, y: np.ndarray, metric: np.ndarray) -> np.ndarray:
-    dot = np.einsum("...i,ij,...j->...", x, metric, y)
-    nx = np.sqrt(np.einsum("...i,ij,...j->...", x, metric, x))
-    ny = np.sqrt(np.einsum("...i,ij,...j->...", y, metric, y))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        cos = dot / (nx * ny)
-    return np.degrees(np.arccos(np.clip(cos, -1.0, 1.0)))
+def _angle(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Angle between Cartesian vectors in degrees, atan2(|x cross y|, x . y).
+
+    atan2 keeps full precision near 0 and 180 deg, where arccos of the cosine loses half the
+    digits (parallel planes came out 1e-6 deg apart). A zero vector gives nan.
+    """
+    dot = np.sum(x * y, axis=-1)
+    cross = np.linalg.norm(np.cross(x, y), axis=-1)
+    zero = (np.linalg.norm(x, axis=-1) == 0) | (np.linalg.norm(y, axis=-1) == 0)
+    return np.where(zero, np.nan, np.degrees(np.arctan2(cross, dot)))[()]  # 0-d -> numpy scalar, as before
 
 
 def reduce_indices(idx) -> np.ndarray:
