@@ -236,7 +236,9 @@ def find_profile_rings(profile: RadialProfile, *, r_min_px: float, r_max_px: flo
             e_mu = err[3 * k + 1]
             j = int(np.clip(np.searchsorted(x, mu), 0, len(x) - 1))
             snr = amp / noise[j]
-            if not (xs[0] <= mu <= xs[-1]) or sig > MAX_RING_SIGMA_PX or snr < 0.6 * snr_min:
+            edge = mu - 2.5 * sig < x[0] or mu + 2.5 * sig > x[-1]  # cut by the search range: SNIP edge effect
+            too_narrow = sig < 0.6 * bin_px  # narrower than a bin: a step or a hot pixel, not a ring
+            if not (xs[0] <= mu <= xs[-1]) or edge or too_narrow or sig > MAX_RING_SIGMA_PX or snr < 0.6 * snr_min:
                 continue
             out.append((mu, e_mu if np.isfinite(e_mu) else sig, sig, amp, amp * sig * np.sqrt(2 * np.pi), snr))
     out.sort()
