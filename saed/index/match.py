@@ -1,0 +1,195 @@
+"""Index a measured pattern: candidates, scoring with every spot, ranking, look-alikes, mistilt.
+
+The public entry points are :func:`index_pattern` (a :class:`MeasuredPattern` in, an
+:class:`IndexResult` out) and :func:`index_image` (measure the image first). Tables come from
+:func:`saed.index.prepare_phases`, built once per set of candidate phases.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import numpy as np
+
+from saed.errors import InputError
+from saed.image.values import MeasuredPattern
+from saed.index.candidates import find_candidates, spot_set
+from saed.index.score import score_candidate
+from saed.index.tables import IndexTables
+from saed.index.values import IndexResult, Solution
+
+__all__ = ["index_pattern", "index_image", "MIN_SCORE", "DEFAULT_LENGTH_TOL_PCT", "DEFAULT_ANGLE_TOL_DEG"]
+
+logger = logging.getLogger(__name__)
+
+#: Solutions below this figure of merit are not listed (the best of them becomes the near miss).
+MIN_SCORE = 0.45
+
+#: Default tolerance of the calibrated scale, percent: SAED camera lengths drift by 1-2 % without
+#: an internal standard (Williams & Carter, *Transmission Electron Microscopy*, 2009, ch. 18; common practice).
+DEFAULT_LENGTH_TOL_PCT = 3.0
+
+#: Default tolerance of the angle between two seed spots, degrees (common practice: 1-2 deg).
+DEFAULT_ANGLE_TOL_DEG = 2.0
+
+#: Relative tolerance of spacing ratios (measurement only: the scale cancels).
+RATIO_TOL = 0.025
+
+#: Position allowance proportional to |g| (residual distortion, sub-pixel centring), fraction.
+REL_POS_TOL = 0.008
+
+
+def _check_measured(measured) -> None:
+    if not isinstance(measured, MeasuredPattern):
+        raise InputError(f"index_pattern needs a MeasuredPattern, got {type(measured).__name__}")
+
+
+def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
+                  length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
+                  lookalikes: bool = True) -> IndexResult:
+    """Rank (phase, zone axis, orientation) solutions for a measured pattern.
+
+    Parameters
+    ----------
+    measured : MeasuredPattern
+        Centre, spots and calibration from the image stage (or built directly).
+    tables : IndexTables
+        From :func:`saed.index.prepare_phases`.
+    top : int
+        Number of solutions to return (best first).
+    angle_tol_deg : float, optional
+        Tolerance on the angle between two seed spots (default 2 deg, or 3 sigma of the measured angle).
+    length_tol_pct : float, optional
+        Tolerance of the calibrated scale, percent (default 3 %). Ignored when uncalibrated.
+    holder_alpha_axis_deg : float, optional
+        Direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), to
+        express the mistilt correction as alpha/beta tilts.
+    lookalikes : bool
+        Analyse look-alikes and suggest separating tilts (a few ms per solution).
+
+    Returns
+    -------
+    IndexResult
+        ``solutions`` empty (with ``message`` and ``near_miss``) when nothing fits.
+
+    References
+    ----------
+    The ratio method: Edington, *Practical Electron Microscopy in Materials Science* vol. 2 (1975);
+    Williams & Carter, *Transmission Electron Microscopy* (2009), ch. 18.
+    """
+    _check_measured(measured)
+    if not isinstance(tables, IndexTables):
+        raise InputError(f"index_pattern needs IndexTables from prepare_phases, got {type(tables).__name__}")
+    top = int(top)
+    if top < 1:
+        raise InputError(f"top must be at least 1, got {top}")
+    names = tables.names
+    n = len(measured.spots)
+    if n == 0:
+        return IndexResult(measured, (), "no diffraction spots found: nothing to index "
+                           "(check exposure, the beam stop mask and the centre)", phases=names)
+    if n == 1:
+        return IndexResult(measured, (), "only one diffraction spot found: a zone axis needs at least two "
+                           "non-parallel spots", phases=names)
+    spots = spot_set(measured)
+    cal = measured.calibration
+    scale = cal.scale_inv_nm_per_px if cal is not None else None
+    length_tol = (DEFAULT_LENGTH_TOL_PCT if length_tol_pct is None else float(length_tol_pct)) / 100.0
+    if not 0 < length_tol < 0.5:
+        raise InputError(f"length tolerance {length_tol * 100:g} % must lie between 0 and 50 %")
+    angle_tol = DEFAULT_ANGLE_TOL_DEG if angle_tol_deg is None else float(angle_tol_deg)
+    if measured.basis is not None and angle_tol_deg is None:
+        angle_tol = max(angle_tol, 3.0 * float(measured.basis.sigma_angle_deg))
+    if not 0 < angle_tol < 30:
+        raise InputError(f"angle tolerance {angle_tol:g} deg must lie between 0 and 30 deg")
+    if not _non_collinear(spots.v_px):
+        return IndexResult(measured, (), f"the {n} spots lie on one line: a single systematic row cannot fix a "
+                           "zone axis (tilt to a zone where a second row is excited)", phases=names)
+    pitch = cal.pixel_pitch_um if cal is not None else None
+    solutions, n_cand = _solve(measured, tables, spots, scale=scale, length_tol=length_tol, angle_tol=angle_tol,
+                               pitch=pitch)
+    notes: list[str] = []
+    message = ""
+    good = [s for s in solutions if s.score >= MIN_SCORE]
+    near = solutions[0] if solutions and not good else None
+    if scale is not None and (not good or good[0].score < 0.6):
+        # Is the calibration wildly off? Index by ratios alone and compare the implied scale.
+        free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch)
+        if free and free[0].score >= MIN_SCORE:
+            f = free[0].scale_inv_nm_per_px / scale
+            if f > 1.5 or f < 1 / 1.5:
+                message = (f"the pattern fits {free[0].phase_name} [{_zone_text(free[0])}] only at an implied scale of "
+                           f"{free[0].scale_inv_nm_per_px:.5g} 1/nm per px, {f:.2f} x the given {scale:.5g}: check the "
+                           "calibration (camera length, binning, units)")
+                if not good:
+                    near = free[0]
+    if not good:
+        if not message:
+            if near is not None:
+                message = (f"no solution within tolerance; closest: {near.phase_name} [{_zone_text(near)}] with score "
+                           f"{near.score:.2f}, {near.n_indexed} of {n} spots indexed"
+                           + (f", scale {near.scale_error_pct:+.1f} % off the calibration"
+                              if near.scale_error_pct is not None else ""))
+            else:
+                message = ("no solution: no pair of measured spots matches a reflection pair of "
+                           f"{', '.join(names[:6])}{' ...' if len(names) > 6 else ''} within tolerance")
+        return IndexResult(measured, (), message, near_miss=near, notes=tuple(notes), n_candidates=n_cand, phases=names)
+    good = good[:max(top, 1) + 4]
+    if lookalikes:
+        from saed.index.lookalike import annotate
+
+        good = annotate(good, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg)
+    else:
+        from saed.index.mistilt import with_mistilt
+
+        good = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good]
+    return IndexResult(measured, tuple(good[:top]), message, notes=tuple(notes), n_candidates=n_cand, phases=names)
+
+
+def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch) -> tuple[list[Solution], int]:
+    cands, n_hits = find_candidates(tables, spots, scale_inv_nm_per_px=scale, length_tol=length_tol,
+                                    ratio_tol=RATIO_TOL, angle_tol_deg=angle_tol, rel_pos_tol=REL_POS_TOL)
+    best: dict[tuple, Solution] = {}
+    for c in cands:
+        sol, _fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
+                                    rel_pos_tol=REL_POS_TOL, pixel_pitch_um=pitch)
+        key = (c.phase_index, c.canonical_zone)
+        if key not in best or sol.score > best[key].score:
+            best[key] = sol
+    ranked = sorted(best.values(), key=lambda s: (-s.score, s.phase_name, s.zone_axis))
+    return ranked, n_hits
+
+
+def _non_collinear(v: np.ndarray) -> bool:
+    r = np.linalg.norm(v, axis=1)
+    keep = r > 1e-9
+    v, r = v[keep], r[keep]
+    if len(v) < 2:
+        return False
+    u = v / r[:, None]
+    cross = np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0])
+    return bool(np.any(cross > math.sin(math.radians(8.0))))
+
+
+def _zone_text(sol: Solution) -> str:
+    from saed.crystal.miller import format_indices
+
+    return format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)
+
+
+def index_image(image: np.ndarray, tables: IndexTables, calibration, *, top: int = 5, mask=None, source: str = "",
+                **options) -> IndexResult:
+    """Measure the pattern in `image` (centre, spots, lattice) and index it.
+
+    Parameters
+    ----------
+    image : (H, W) array
+    tables : IndexTables
+    calibration : saed.calibration.Calibration (``scale_inv_nm_per_px`` None when uncalibrated)
+    top, mask, source : as in :func:`index_pattern` and :func:`saed.image.measure.measure_pattern`
+    **options : passed on to :func:`index_pattern`
+    """
+    from saed.image.measure import measure_pattern
+
+    measured = measure_pattern(image, calibration, mask=mask, source=source)
+    return index_pattern(measured, tables, top=top, **options)

@@ -1,0 +1,283 @@
+"""The figure of merit of one candidate against every measured spot (docs/indexing.md).
+
+For a candidate (phase, zone [uvw], U, scale) the zero-order Laue-zone pattern comes from
+:func:`saed.simulate.zone.zone_pattern` (cached per zone). Every measured spot is assigned to the
+nearest predicted reflection; the in-plane rotation and the scale are refined by weighted
+least squares over all assigned spots (a 2-D similarity: the complex ratio of measured to
+predicted positions), and the assignment is repeated. The figure of merit is
+
+    score = M * (1 - 0.5 A) * (0.85 + 0.15 T) * S * Z
+
+with M the weighted agreement of the measured spots (position likelihood times a kind factor:
+allowed 1, forbidden but reachable by double diffraction 0.85, projection of a higher-order
+Laue-zone reflection 0.6 when weak and 0.15 when strong, forbidden with no route or
+unexplained 0), A the share of predicted kinematic intensity that is missing inside the
+observed region (Friedel pairs count as seen when either member is), T the rank correlation of
+measured and kinematic intensities (robust to dynamical scattering, used lightly), S the
+agreement of the refined scale with the calibration (1 when uncalibrated) and Z a faint
+preference for low-index zones, which only breaks exact ties.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from saed.crystal.miller import direction_to_4, plane_to_4
+from saed.index.candidates import Candidate, SpotSet
+from saed.index.tables import IndexTables, PhaseIndexTable
+from saed.index.values import IndexedSpot, Solution
+from saed.simulate.geometry import orientation_matrix
+from saed.simulate.zone import zone_pattern
+
+__all__ = ["Fit", "score_candidate", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_NM"]
+
+logger = logging.getLogger(__name__)
+
+#: Kind factor of a measured spot in the agreement term M.
+KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.85, "holz-weak": 0.6, "holz-strong": 0.15,
+               "forbidden": 0.0, "unindexed": 0.0}
+
+#: Projections of higher-order Laue-zone reflections are considered only when the reciprocal
+#: layers are this close (1/nm): the stacking-direction zones (fcc <111>: 1.6 1/nm for Co) where
+#: thin foils, surface steps and faults put weak spots at those positions (common practice).
+HOLZ_LAYER_SPACING_MAX_INV_NM = 2.0
+
+#: A HOLZ-projection spot counts as weak below this fraction of the median indexed intensity.
+HOLZ_WEAK_FRACTION = 0.3
+
+
+@dataclass(frozen=True, eq=False)
+class Fit:
+    """Internal detail of a scored candidate that mistilt and look-alike analysis reuse."""
+
+    table: PhaseIndexTable
+    zone: object  # ZonePattern
+    uvw: tuple[int, int, int]
+    phi_deg: float
+    scale: float
+    assigned: np.ndarray  # (n_spots,) row into zone pattern, -1 none
+    kinds: tuple[str, ...]
+    predicted_px: np.ndarray  # (n_zone, 2) vectors from the centre, px
+    seen: np.ndarray  # (n_zone,) bool, predicted row has a measured spot (or its Friedel mate does)
+    in_region: np.ndarray  # (n_zone,) bool
+    holz_hkl: np.ndarray  # (n_spots, 3) for holz-projection spots
+
+
+def _rot2(phi_rad: float) -> np.ndarray:
+    c, s = math.cos(phi_rad), math.sin(phi_rad)
+    return np.array([[c, -s], [s, c]])
+
+
+def _assign(spots: SpotSet, pred_px: np.ndarray, scale: float, rel_tol: float):
+    """Nearest predicted row for every spot and the position likelihood."""
+    if len(pred_px) == 0:
+        n = len(spots.r_px)
+        return np.full(n, -1), np.full(n, np.inf), np.ones(n)
+    d = np.linalg.norm(spots.v_px[:, None, :] - pred_px[None, :, :], axis=2)
+    j = np.argmin(d, axis=1)
+    dmin = d[np.arange(len(j)), j]
+    sigma = np.sqrt(spots.sigma_px ** 2 + (rel_tol * spots.r_px) ** 2 + 0.5 ** 2)
+    return j, dmin, sigma
+
+
+def _observed_region(measured, spots: SpotSet, pred_px: np.ndarray) -> np.ndarray:
+    """Predicted positions a detector could have recorded: inside the image and the spot radius range."""
+    if len(spots.r_px) == 0:
+        return np.zeros(len(pred_px), bool)
+    r = np.linalg.norm(pred_px, axis=1)
+    r_lo, r_hi = 0.35 * spots.r_px.min(), 1.02 * spots.r_px.max()
+    cx, cy = measured.center_px
+    h, w = measured.image_shape[:2]
+    x, y = cx + pred_px[:, 0], cy + pred_px[:, 1]
+    inside = (x >= 3) & (x <= w - 4) & (y >= 3) & (y <= h - 4)
+    xm, ym = cx - pred_px[:, 0], cy - pred_px[:, 1]
+    inside_mate = (xm >= 3) & (xm <= w - 4) & (ym >= 3) & (ym <= h - 4)
+    return (r >= r_lo) & (r <= r_hi) & (inside | inside_mate)
+
+
+def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None) -> tuple[Solution, Fit]:
+    """Refine and score one candidate against all spots; returns the Solution and its Fit."""
+    pt = tables.phases[cand.phase_index]
+    phase = pt.phase
+    lat = phase.lattice
+    uvw = cand.zone_axis
+    zp = zone_pattern(phase, uvw, voltage_kv=tables.voltage_kv, max_g_inv_nm=tables.max_g_inv_nm,
+                      include_holz=False, thickness_nm=50.0)
+    u0 = orientation_matrix(lat, uvw, 0.0)
+    m = cand.u_matrix @ u0.T
+    phi = math.atan2(m[1, 0], m[0, 0])
+    scale = cand.scale_inv_nm_per_px
+    allowed = ~zp.kinematically_forbidden
+    dd = zp.double_diffraction
+    f_rel = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
+    xy = np.asarray(zp.xy_inv_nm, float)
+
+    # HOLZ projections (stacking-direction zones only)
+    holz_xy = np.zeros((0, 2))
+    holz_hkl = np.zeros((0, 3), np.int64)
+    if zp.layer_spacing_inv_nm <= HOLZ_LAYER_SPACING_MAX_INV_NM:
+        n_layer = pt.hkl @ np.asarray(uvw)
+        sel = pt.allowed & (np.abs(n_layer) >= 1) & (np.abs(n_layer) <= 2 * zp.layer_multiplicity)
+        if np.any(sel):
+            q = pt.g_cart_inv_nm[sel] @ u0.T
+            holz_xy = q[:, :2]
+            holz_hkl = pt.hkl[sel]
+
+    n = len(spots.r_px)
+    for _ in range(3):
+        pred_px = (xy @ _rot2(phi).T) / scale
+        j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
+        ok = (j >= 0) & (dmin <= 3.0 * sigma)
+        use = ok & (allowed[np.maximum(j, 0)] | dd[np.maximum(j, 0)]) if len(xy) else ok
+        if np.count_nonzero(use) < 2:
+            break
+        p = xy[j[use], 0] + 1j * xy[j[use], 1]
+        v = spots.v_px[use, 0] + 1j * spots.v_px[use, 1]
+        wt = spots.weight[use] / sigma[use] ** 2
+        c = np.sum(wt * v * np.conj(p)) / np.sum(wt * np.abs(p) ** 2)
+        new_scale = 1.0 / abs(c)
+        if calibrated_scale is not None:
+            lo, hi = calibrated_scale * (1 - length_tol), calibrated_scale * (1 + length_tol)
+            new_scale = min(max(new_scale, lo), hi)
+        new_phi = math.atan2(c.imag, c.real)
+        if abs(new_phi - phi) < 1e-7 and abs(new_scale / scale - 1) < 1e-9:
+            phi, scale = new_phi, new_scale
+            break
+        phi, scale = new_phi, new_scale
+    pred_px = (xy @ _rot2(phi).T) / scale
+    j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
+    ok = (j >= 0) & (dmin <= 3.0 * sigma)
+    like = np.exp(-0.5 * (dmin / sigma) ** 2)
+
+    # HOLZ projections for spots not on a ZOLZ position
+    holz_j = np.full(n, -1)
+    if len(holz_xy) and n:
+        hp = (holz_xy @ _rot2(phi).T) / scale
+        dh = np.linalg.norm(spots.v_px[:, None, :] - hp[None, :, :], axis=2)
+        jh = np.argmin(dh, axis=1)
+        hit = dh[np.arange(n), jh] <= 3.0 * sigma
+        holz_j = np.where(hit & ~ok, jh, -1)
+
+    kinds = []
+    kind_w = np.zeros(n)
+    indexed_int = [spots.intensity[i] for i in range(n) if ok[i] and allowed[j[i]]]
+    med_int = float(np.median(indexed_int)) if indexed_int else float(np.median(spots.intensity)) if n else 1.0
+    for i in range(n):
+        if ok[i]:
+            if allowed[j[i]]:
+                k = "allowed"
+            elif dd[j[i]]:
+                k = "double-diffraction"
+            else:
+                k = "forbidden"
+            kinds.append(k)
+            kind_w[i] = KIND_WEIGHT[k] * like[i]
+        elif holz_j[i] >= 0:
+            kinds.append("holz-projection")
+            weak = spots.intensity[i] < HOLZ_WEAK_FRACTION * med_int
+            kind_w[i] = KIND_WEIGHT["holz-weak" if weak else "holz-strong"] * math.exp(
+                -0.5 * (float(np.linalg.norm(spots.v_px[i] - (holz_xy[holz_j[i]] @ _rot2(phi).T) / scale)) / sigma[i]) ** 2)
+        else:
+            kinds.append("unindexed")
+    agreement = float(np.sum(spots.weight * kind_w))
+
+    # predicted intensity that is missing inside the observed region
+    region = _observed_region(measured, spots, pred_px)
+    seen = np.zeros(len(xy), bool)
+    seen[j[ok]] = True
+    mate = _friedel_rows(zp.hkl)
+    seen_pair = seen | np.where(mate >= 0, seen[np.maximum(mate, 0)], False)
+    strength = np.where(allowed, f_rel ** 2, 0.0) * region
+    total = float(strength.sum())
+    absent = float(strength[~seen_pair].sum() / total) if total > 0 else 0.0
+
+    # intensity agreement (rank correlation; dynamical intensities differ, so it weighs little)
+    idx_allowed = np.flatnonzero(ok & np.array([k == "allowed" for k in kinds], bool))
+    rank = 0.5  # neutral when the kinematic intensities do not discriminate
+    if len(idx_allowed) >= 5:
+        pi_ = np.round(np.log10(np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)), 2)
+        mi = spots.intensity[idx_allowed]
+        if len(np.unique(pi_)) >= 2 and np.ptp(mi) > 0:
+            rho = stats.spearmanr(mi, pi_).statistic
+            rank = float(max(0.0, rho)) if np.isfinite(rho) else 0.5
+    scale_term = 1.0
+    scale_err = None
+    if calibrated_scale is not None:
+        scale_err = scale / calibrated_scale - 1.0
+        scale_term = math.exp(-0.5 * (scale_err / max(length_tol, 1e-6)) ** 2)
+    zone_term = 1.0 - 0.002 * (max(abs(v) for v in uvw) - 1)
+    score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * scale_term * zone_term
+
+    # per-spot records
+    use_scale = calibrated_scale if calibrated_scale is not None else scale
+    hex_axes = phase.is_hexagonal
+    recs = []
+    d_err, a_err = [], []
+    for i in range(n):
+        k = kinds[i]
+        x_px = float(measured.spots.x_px[i])
+        y_px = float(measured.spots.y_px[i])
+        r = float(spots.r_px[i])
+        d_meas = 1.0 / (use_scale * r) if r > 0 else float("inf")
+        if k in ("allowed", "double-diffraction", "forbidden"):
+            h = tuple(int(v) for v in zp.hkl[j[i]])
+            d_calc = float(1.0 / zp.g_inv_nm[j[i]])
+            res = float(dmin[i])
+            ic = float(f_rel[j[i]] ** 2) if allowed[j[i]] else 0.0
+            if k == "allowed":
+                d_err.append(abs(d_meas - d_calc) / d_calc * 100.0)
+                pv = pred_px[j[i]]
+                cosang = float(spots.v_px[i] @ pv) / (r * float(np.linalg.norm(pv)))
+                a_err.append(math.degrees(math.acos(max(-1.0, min(1.0, cosang)))))
+        elif k == "holz-projection":
+            h = tuple(int(v) for v in holz_hkl[holz_j[i]])
+            g = float(lat.g_inv_nm(np.array(h)))
+            gp = float(np.linalg.norm(holz_xy[holz_j[i]]))
+            d_calc = 1.0 / gp if gp > 0 else None
+            res = float(np.linalg.norm(spots.v_px[i] - (holz_xy[holz_j[i]] @ _rot2(phi).T) / scale))
+            ic = None
+            del g
+        else:
+            h, d_calc, res, ic = None, None, None, None
+        hkil = tuple(int(v) for v in plane_to_4(np.array(h))) if (h is not None and hex_axes) else None
+        recs.append(IndexedSpot(i, x_px, y_px, float(spots.intensity[i]), h, hkil, k, d_meas, d_calc, res, ic))
+
+    u = orientation_matrix(lat, uvw, math.degrees(phi))
+    cam = None
+    if pixel_pitch_um is not None:
+        from saed.physics import camera_length_from_scale_mm
+
+        cam = camera_length_from_scale_mm(scale, pixel_pitch_um, tables.voltage_kv)
+    show = (allowed | dd) & (zp.g_inv_nm <= tables.max_g_inv_nm)
+    cx, cy = measured.center_px
+    pred_abs = pred_px[show] + np.array([cx, cy])[None, :]
+    sol = Solution(
+        phase_name=phase.name, zone_axis=uvw,
+        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if hex_axes else None,
+        orientation_matrix=u, in_plane_rotation_deg=float(math.degrees(phi) % 360.0), scale_inv_nm_per_px=float(scale),
+        score=float(score), indexed=tuple(recs),
+        mean_d_error_pct=float(np.mean(d_err)) if d_err else float("nan"),
+        mean_angle_error_deg=float(np.mean(a_err)) if a_err else float("nan"),
+        structure_type=phase.structure_type, implied_camera_length_mm=cam,
+        scale_error_pct=None if scale_err is None else 100.0 * scale_err,
+        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("scale", scale_term),
+               ("zone_prior", zone_term)),
+        predicted_xy_px=pred_abs, predicted_hkl=zp.hkl[show], predicted_intensity=np.where(allowed, f_rel ** 2, 0.0)[show],
+        predicted_kind=tuple("allowed" if a else "double-diffraction" for a in allowed[show]),
+    )
+    fit = Fit(table=pt, zone=zp, uvw=uvw, phi_deg=math.degrees(phi), scale=float(scale), assigned=np.where(ok, j, -1),
+              kinds=tuple(kinds), predicted_px=pred_px, seen=seen_pair, in_region=region,
+              holz_hkl=np.array([holz_hkl[x] if x >= 0 else [0, 0, 0] for x in holz_j], np.int64).reshape(-1, 3))
+    return sol, fit
+
+
+def _friedel_rows(hkl: np.ndarray) -> np.ndarray:
+    """Row of -hkl for every row (-1 where absent)."""
+    lookup = {tuple(r): i for i, r in enumerate(np.asarray(hkl).tolist())}
+    return np.array([lookup.get(tuple(-v for v in r), -1) for r in np.asarray(hkl).tolist()], dtype=np.int64)
