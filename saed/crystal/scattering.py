@@ -14,6 +14,7 @@ The Angstrom coefficients are converted here, once.
 
 from __future__ import annotations
 
+import re
 from functools import lru_cache
 
 import numpy as np
@@ -28,9 +29,12 @@ def element_symbol(name: str) -> str:
     """Normalise an element or ion label ('fe', 'Fe2+', 'O2-') to its element symbol, or raise PhaseError."""
     import gemmi
 
-    raw = "".join(ch for ch in str(name) if ch.isalpha())
-    if not raw:
-        raise PhaseError(f"{name!r} is not a chemical element")
+    # The leading letters only ('Fe2+' -> 'Fe', 'Ca1' -> 'Ca', 'OW1' -> 'O'); a longer word is refused
+    # rather than cut to two letters: 'Copper' would become Co, 'Iron' Ir, 'Silver' Si.
+    m = re.match(r"\s*([A-Za-z]+)", str(name))
+    raw = m.group(1) if m else ""
+    if not raw or len(raw) > 2:
+        raise PhaseError(f"{name!r} is not a chemical element symbol (e.g. 'Co', 'Fe', 'O')")
     for cand in (raw[:2].capitalize(), raw[:1].upper()):
         el = gemmi.Element(cand)
         if el.atomic_number > 0 and el.name.lower() == cand.lower():
