@@ -135,13 +135,19 @@ class CellAtoms:
 
 @lru_cache(maxsize=256)
 def cell_atoms(phase: Phase) -> CellAtoms:
-    """Expand the asymmetric-unit sites of `phase` to the full conventional cell (symmetry + centring)."""
+    """Expand the asymmetric-unit sites of `phase` to the full conventional cell (symmetry + centring).
+
+    A site within SPECIAL_POSITION_TOL_NM of a special position is first moved onto it (the mean of
+    its images that fall on it, which the site-symmetry group leaves fixed): CIF coordinates such as
+    0.3333 for 1/3 would otherwise leave the site-specific extinctions (hcp 30-31, diamond 222) at
+    |F| ~ 1e-4 of sum |f| instead of zero, and mark them allowed.
+    """
     sg = space_group(phase.space_group)
     ops = list(sg.operations())
     to_cart = phase.lattice.direct_matrix_nm
     frac, els, occ, bs = [], [], [], []
     for site in phase.sites:
-        p = np.array([site.x, site.y, site.z])
+        p = _onto_special_position(np.array([site.x, site.y, site.z]), ops, to_cart)
         images = []
         for op in ops:
             q = np.array(op.apply_to_xyz(p.tolist())) % 1.0
@@ -162,6 +168,15 @@ def cell_atoms(phase: Phase) -> CellAtoms:
 #: 0.01 nm = 0.1 A absorbs coordinates rounded to 3 decimals (0.333 for 1/3) in cells up to
 #: about 3 nm, and stays below the 0.2-0.5 A spacing of split (disordered) sites.
 SPECIAL_POSITION_TOL_NM = 0.01
+
+
+def _onto_special_position(p: np.ndarray, ops, to_cart: np.ndarray) -> np.ndarray:
+    shifts = []
+    for op in ops:
+        d = (np.array(op.apply_to_xyz(p.tolist())) - p + 0.5) % 1.0 - 0.5  # nearest lattice image
+        if np.linalg.norm(to_cart @ d) < SPECIAL_POSITION_TOL_NM:
+            shifts.append(d)
+    return p + np.mean(shifts, axis=0)  # the identity is always among them
 
 
 def _same_site(p: np.ndarray, q: np.ndarray, to_cart: np.ndarray) -> bool:
