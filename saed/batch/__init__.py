@@ -1,0 +1,87 @@
+"""Many patterns: index files, folders and stacks on this machine or a Dask cluster, resumably.
+
+The pieces, each in its own module:
+
+* :mod:`saed.batch.inputs` -- find the frames (files, folders, ``.npy`` and TIFF stacks);
+* :mod:`saed.batch.results` -- the CSV, appended row by row and resumed;
+* :mod:`saed.batch.cluster` -- a local Dask cluster or an existing scheduler;
+* :mod:`saed.batch.runner` -- tasks of consecutive frames, rows back as they finish;
+* :mod:`saed.batch.indexing` -- the per-frame function that calls the indexer;
+* :mod:`saed.batch.scan` -- scan grids, zone families and the summary.
+
+:func:`run_batch` ties them together for any per-frame function.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass
+
+from saed.batch.inputs import FrameSource, Inputs, Skipped, discover_inputs
+from saed.batch.results import COLUMNS, CONTRACT_COLUMNS, ResultsFile, Row, read_rows
+from saed.batch.runner import chunk_size_for, count_todo, plan_chunks, run_frames, share, unshare
+
+__all__ = ["run_batch", "BatchOutcome", "discover_inputs", "Inputs", "FrameSource", "Skipped", "ResultsFile",
+           "Row", "read_rows", "COLUMNS", "CONTRACT_COLUMNS"]
+
+logger = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class BatchOutcome:
+    """What a run did: frames in the inputs, already in the CSV before, written now, and the time taken."""
+
+    n_frames: int
+    n_before: int
+    n_written: int
+    elapsed_s: float
+
+
+def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client, progress=None,
+              context_of=None, chunk_frames: int | None = None) -> BatchOutcome:
+    """Run `frame_fn` over every frame of `inputs` not yet in `results`, appending rows as tasks end.
+
+    Parameters
+    ----------
+    inputs : Inputs
+        From :func:`discover_inputs`.
+    results : ResultsFile
+        The open CSV; frames already in it are skipped.
+    frame_fn : callable
+        ``frame_fn(image, shared, *, name, frame, context) -> Row`` (module-level, so workers
+        can import it).
+    shared : object
+        Sent once to every worker (:func:`saed.batch.runner.share`) and passed to each call.
+    client : distributed.Client
+    progress : callable, optional
+        ``progress(done, total, text)`` after each task.
+    context_of : callable, optional
+        ``context_of(source) -> value`` passed as ``context`` for that source's frames.
+    chunk_frames : int, optional
+        Frames per task (default: :func:`saed.batch.runner.chunk_size_for`).
+    """
+    t0 = time.monotonic()
+    done_before = {k for k in results.done}
+    n_todo = count_todo(inputs.sources, done_before)
+    n_before = inputs.n_frames - n_todo
+    threads = sum(client.nthreads().values()) or 1
+    size = chunk_frames or chunk_size_for(n_todo, threads)
+    written = 0
+    if progress:
+        progress(0, n_todo, "")
+    if n_todo:
+        shared_ref = share(client, shared)
+
+        def on_rows(rows):
+            nonlocal written
+            written += results.append(rows)
+            if progress:
+                progress(written, n_todo, rows[-1].image)
+
+        try:
+            run_frames(client, plan_chunks(inputs.sources, done_before, chunk_frames=size, context_of=context_of),
+                       frame_fn, shared_ref, on_rows=on_rows)
+        finally:
+            unshare(client, shared_ref)
+    return BatchOutcome(inputs.n_frames, n_before, written, time.monotonic() - t0)

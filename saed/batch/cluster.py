@@ -1,0 +1,91 @@
+"""Getting a Dask client: a local cluster of worker processes, or an existing scheduler.
+
+Dask (dask.distributed) is the engine: it places tasks on workers, moves data, balances
+load and survives a worker that dies. saed only starts or joins a cluster here and
+submits tasks in :mod:`saed.batch.runner`.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+
+from saed.errors import InputError
+
+__all__ = ["default_workers", "dask_client", "DEFAULT_CONNECT_TIMEOUT_S"]
+
+logger = logging.getLogger(__name__)
+
+#: How long to wait for an existing scheduler before giving up (seconds).
+DEFAULT_CONNECT_TIMEOUT_S = 5.0
+
+
+def default_workers() -> int:
+    """The number of CPU cores this process may use (at least 1)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+@contextlib.contextmanager
+def dask_client(*, workers: int | None = None, scheduler: str | None = None,
+                connect_timeout_s: float = DEFAULT_CONNECT_TIMEOUT_S, memory_limit="auto"):
+    """A ``distributed.Client``: to `scheduler` if given, else to a new local cluster.
+
+    The local cluster has `workers` processes (default: :func:`default_workers`) with one
+    thread each, listening on the loopback interface only, with no dashboard. It is shut
+    down when the block ends, also on an interrupt.
+
+    Raises
+    ------
+    InputError
+        `workers` is below 1, both options are given, or the scheduler cannot be reached
+        within `connect_timeout_s` (the message names the address).
+    """
+    from distributed import Client, LocalCluster
+
+    if scheduler is not None and workers is not None:
+        raise InputError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
+    if scheduler is not None:
+        client = _connect(scheduler, connect_timeout_s)
+        try:
+            yield client
+        finally:
+            client.close()
+        return
+    n = default_workers() if workers is None else int(workers)
+    if n < 1:
+        raise InputError(f"--workers {n}: need at least 1 worker")
+    with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address=None, silence_logs=logging.ERROR, memory_limit=memory_limit) as cluster, \
+            Client(cluster) as client:
+        logger.info("local Dask cluster with %d worker processes at %s", n, cluster.scheduler_address)
+        yield client
+
+
+def _connect(address: str, timeout_s: float):
+    from distributed import Client
+
+    text = str(address).strip()
+    if not text:
+        raise InputError("--scheduler: empty address (give e.g. tcp://head-node:8786)")
+    try:
+        client = Client(text, timeout=f"{float(timeout_s)}s", set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise InputError(f"cannot reach the Dask scheduler at {text} within {timeout_s:g} s ({_short(exc)}); "
+                         "is it running, and are the address and port right?") from None
+    except ValueError as exc:
+        raise InputError(f"--scheduler {text!r} is not a scheduler address ({_short(exc)}); "
+                         "give e.g. tcp://head-node:8786") from None
+    except Exception as exc:  # noqa: BLE001 - whatever answered is not a Dask scheduler; never a traceback
+        raise InputError(f"the Dask scheduler at {text} did not answer like a Dask scheduler "
+                         f"({exc.__class__.__name__}); check the address and port") from None
+    logger.info("connected to the Dask scheduler at %s", text)
+    return client
+
+
+def _short(exc: BaseException) -> str:
+    t = " ".join(str(exc).split())
+    return t[:100] if t else exc.__class__.__name__

@@ -1,0 +1,69 @@
+"""The per-frame function of ``saed batch``: index one frame with the real indexer, return its CSV row.
+
+The per-phase tables (:func:`saed.index.prepare_phases`: reflections, structure factors,
+reflection-pair tables) are built once in the client, bundled with the calibration into
+an :class:`IndexJob`, and sent to each worker once; :func:`index_frame` then only runs
+:func:`saed.index.index_image` on a frame.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from saed.batch.results import Row
+from saed.calibration import Calibration
+
+__all__ = ["IndexJob", "make_index_job", "index_frame"]
+
+
+@dataclass(frozen=True)
+class IndexJob:
+    """What every frame of a batch shares: the prepared phases, the calibration and ``top``."""
+
+    tables: object
+    calibration: Calibration
+    top: int = 5
+
+
+def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None) -> IndexJob:
+    """Prepare `phases` once (at the calibration's voltage) for a batch."""
+    from saed.index import prepare_phases
+
+    tables = prepare_phases(phases, voltage_kv=calibration.voltage_kv, max_g_inv_nm=max_g_inv_nm)
+    return IndexJob(tables, calibration, int(top))
+
+
+def _one_line(parts) -> str:
+    return " | ".join(" ".join(str(p).split()) for p in parts if p)
+
+
+def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, context=None) -> Row:
+    """Index one frame; the row carries the best solution, the runner-up and the indexer's message.
+
+    `context` may be a :class:`~saed.calibration.Calibration` for this file (e.g. read from its
+    TIFF tags), used instead of the job's. No solution is status ``no-solution`` (not an
+    error); errors raised by the indexer propagate to the runner, which records them.
+    """
+    from saed.index import index_image
+
+    cal = context if isinstance(context, Calibration) else job.calibration
+    result = index_image(image, job.tables, cal, top=job.top, source=f"{name} frame {frame}")
+    measured = result.measured
+    n_spots = len(measured.spots) if measured is not None else None
+    if not result.solutions:
+        return Row(name, frame, status="no-solution", n_spots=n_spots, note=_one_line([result.message]))
+    best = result.solutions[0]
+    second = result.solutions[1] if len(result.solutions) > 1 else None
+    close = [lk for lk in best.lookalikes if lk.relation in ("ambiguous", "close")]
+    note = _one_line([result.message] + [f"{lk.relation}: {lk.phase_name} [{' '.join(map(str, lk.zone_axis))}]"
+                                         for lk in close[:2]])
+    return Row(
+        name, frame, status="ok", phase=best.phase_name, zone_axis=best.zone_axis, score=best.score,
+        in_plane_rotation_deg=best.in_plane_rotation_deg, scale_inv_nm_per_px=best.scale_inv_nm_per_px,
+        n_spots=n_spots, zone_axis_4=best.zone_axis_4,
+        runner_up_phase=second.phase_name if second else "",
+        runner_up_zone_axis=second.zone_axis if second else None,
+        runner_up_score=second.score if second else None, note=note,
+    )

@@ -1,0 +1,287 @@
+"""The batch CSV: one row per frame, appended as frames finish, safe to resume.
+
+Columns (CONTRACT.md), then saed's additions::
+
+    image,frame,phase,zone_axis,score,in_plane_rotation_deg,scale_inv_nm_per_px,n_spots,status,
+    zone_axis_4,runner_up_phase,runner_up_zone_axis,runner_up_score,note
+
+``zone_axis`` is "u v w" (3-index, the phase's conventional cell), ``zone_axis_4`` the
+Miller-Bravais "U V T W" for hexagonal axes (else empty); ``status`` is ``ok``,
+``no-solution`` or ``error: <one line>``; ``runner_up_*`` describe the second-ranked
+solution; ``note`` carries the indexer's message (a look-alike caution, the closest
+near-miss).
+
+Durability: rows are appended with one write per group, then flushed and fsync'ed, so a
+row that is in the file is complete and stays there. Reopening an existing file reads the
+(image, frame) pairs already done; a last line cut short by a crash is removed (that frame
+is simply done again). A file that is not a saed batch CSV is never appended to. While a
+run holds the file, a second run on the same file is refused (an advisory ``flock`` where
+the platform has one).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import logging
+import math
+import os
+from dataclasses import dataclass, fields
+from pathlib import Path
+
+from saed.errors import InputError
+
+__all__ = ["CONTRACT_COLUMNS", "COLUMNS", "Row", "ResultsFile", "read_rows", "frame_key", "error_status"]
+
+logger = logging.getLogger(__name__)
+
+#: The columns CONTRACT.md fixes, in order.
+CONTRACT_COLUMNS = ("image", "frame", "phase", "zone_axis", "score", "in_plane_rotation_deg",
+                    "scale_inv_nm_per_px", "n_spots", "status")
+#: Every column saed writes: the contract's, then additions.
+COLUMNS = CONTRACT_COLUMNS + ("zone_axis_4", "runner_up_phase", "runner_up_zone_axis", "runner_up_score", "note")
+
+
+def frame_key(image: str, frame: int) -> tuple[str, int]:
+    """The identity of a frame for resuming: (absolute path, flat frame index)."""
+    return os.path.abspath(image), int(frame)
+
+
+def error_status(message: str) -> str:
+    """``'error: <message>'`` on one line (newlines and runs of spaces collapsed)."""
+    return "error: " + " ".join(str(message).split())
+
+
+@dataclass(frozen=True)
+class Row:
+    """One frame's outcome. Indices are tuples of ints; absent values are None or ''."""
+
+    image: str
+    frame: int
+    status: str = "ok"
+    phase: str = ""
+    zone_axis: tuple[int, ...] | None = None
+    score: float | None = None
+    in_plane_rotation_deg: float | None = None
+    scale_inv_nm_per_px: float | None = None
+    n_spots: int | None = None
+    zone_axis_4: tuple[int, ...] | None = None
+    runner_up_phase: str = ""
+    runner_up_zone_axis: tuple[int, ...] | None = None
+    runner_up_score: float | None = None
+    note: str = ""
+
+    def __post_init__(self):
+        object.__setattr__(self, "frame", int(self.frame))
+        for name in ("zone_axis", "zone_axis_4", "runner_up_zone_axis"):
+            v = getattr(self, name)
+            if v is not None:
+                object.__setattr__(self, name, tuple(int(x) for x in v))
+        object.__setattr__(self, "status", " ".join(str(self.status).split()))
+        object.__setattr__(self, "note", " ".join(str(self.note).split()))
+
+    @property
+    def key(self) -> tuple[str, int]:
+        return frame_key(self.image, self.frame)
+
+    @property
+    def is_error(self) -> bool:
+        return self.status.startswith("error")
+
+    def cells(self) -> list[str]:
+        """The row as CSV cells, in :data:`COLUMNS` order."""
+        return [_fmt(name, getattr(self, name)) for name in COLUMNS]
+
+    @classmethod
+    def from_cells(cls, cells: list[str]) -> "Row":
+        d = dict(zip(COLUMNS, cells))
+        kw = {}
+        for f in fields(cls):
+            text = d.get(f.name, "")
+            kw[f.name] = _parse(f.name, text)
+        return cls(**kw)
+
+
+_FLOAT_FORMATS = {"score": "{:.4f}", "in_plane_rotation_deg": "{:.2f}", "scale_inv_nm_per_px": "{:.6g}",
+                  "runner_up_score": "{:.4f}"}
+_INDEX_COLUMNS = ("zone_axis", "zone_axis_4", "runner_up_zone_axis")
+
+
+def _fmt(name: str, v) -> str:
+    if v is None:
+        return ""
+    if name in _INDEX_COLUMNS:
+        return " ".join(str(int(x)) for x in v)
+    if name in _FLOAT_FORMATS:
+        v = float(v)
+        return _FLOAT_FORMATS[name].format(v) if math.isfinite(v) else ""
+    return str(v)
+
+
+def _parse(name: str, text: str):
+    if name in ("image", "status", "phase", "runner_up_phase", "note"):
+        return text
+    if text == "":
+        return None
+    if name in _INDEX_COLUMNS:
+        return tuple(int(t) for t in text.split())
+    if name in ("frame", "n_spots"):
+        return int(text)
+    return float(text)
+
+
+def _csv_line(cells: list[str]) -> str:
+    buf = io.StringIO()
+    csv.writer(buf, lineterminator="\n").writerow(cells)
+    return buf.getvalue()
+
+
+_HEADER_LINE = _csv_line(list(COLUMNS))
+
+
+def _check_header(path, first_line: str) -> None:
+    got = next(csv.reader([first_line]), [])
+    if tuple(got) == COLUMNS:
+        return
+    if tuple(got[:len(CONTRACT_COLUMNS)]) == CONTRACT_COLUMNS:
+        raise InputError(f"{path}: a saed batch CSV with other extra columns ({','.join(got[len(CONTRACT_COLUMNS):])}); "
+                         "it was written by another saed version: give a new --out")
+    shown = first_line.strip()[:60]
+    raise InputError(f"{path}: not a saed batch CSV (first line {shown!r}); refusing to append to it: "
+                     "give another --out or move the file away")
+
+
+def _parse_existing(path, text: str) -> tuple[list[Row], int]:
+    """Rows of an existing file and the byte length of its complete lines."""
+    cut = text.rfind("\n") + 1       # the text after the last newline was cut short (or is empty)
+    if cut == 0:
+        if text and not _HEADER_LINE.startswith(text):
+            _check_header(path, text)   # one line, no newline: only a header cut short is ours
+        return [], 0
+    try:
+        return _parse_lines(path, text[:cut]), len(text[:cut].encode("utf-8"))
+    except csv.Error as exc:
+        raise InputError(f"{path}: not a saed batch CSV ({exc}); refusing to append to it: give another --out") from None
+
+
+def _parse_lines(path, text: str) -> list[Row]:
+    reader = csv.reader(io.StringIO(text, newline=""))
+    _check_header(path, _csv_line(next(reader, [])))
+    rows = []
+    for cells in reader:
+        if not cells:
+            continue
+        if len(cells) != len(COLUMNS):
+            raise InputError(f"{path}: line {reader.line_num} has {len(cells)} cells, expected {len(COLUMNS)}; the "
+                             "file was changed by something else: refusing to append (give another --out)")
+        try:
+            rows.append(Row.from_cells(cells))
+        except ValueError:
+            raise InputError(f"{path}: line {reader.line_num} is not a saed batch row ({','.join(cells)[:60]!r}); "
+                             "refusing to append (give another --out)") from None
+    return rows
+
+
+def read_rows(path) -> list[Row]:
+    """Every complete row of a saed batch CSV (InputError if the file is not one)."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a saed batch CSV (not text)") from None
+    return _parse_existing(path, text)[0]
+
+
+class ResultsFile:
+    """The batch CSV opened for appending: ``with ResultsFile(path) as out: out.append(rows)``.
+
+    On opening, an existing file is locked, checked and its rows read (``done``: the keys
+    already there, ``rows``: the rows); a new or empty file gets the header. ``retry_errors=True``
+    drops the error rows first (rewriting the file atomically), so those frames are done again.
+    """
+
+    def __init__(self, path, *, retry_errors: bool = False):
+        from saed.report.files import check_writable
+
+        self.path = check_writable(path)
+        self._fh = None
+        try:
+            self._open(retry_errors)
+        except BaseException:
+            self.close()
+            raise
+
+    def _open(self, retry_errors: bool) -> None:
+        try:
+            self._fh = open(self.path, "r+" if self.path.exists() else "w+", encoding="utf-8", newline="")
+        except OSError as exc:
+            raise InputError(f"{self.path}: cannot open the file for writing ({exc.strerror})") from None
+        _lock(self._fh, self.path)
+        try:
+            text = self._fh.read()
+        except UnicodeDecodeError:
+            raise InputError(f"{self.path}: not a saed batch CSV (not text); refusing to append to it: "
+                             "give another --out or move the file away") from None
+        rows, good_bytes = _parse_existing(self.path, text)
+        n_err = sum(r.is_error for r in rows) if retry_errors else 0
+        if n_err:
+            from saed.report.files import atomic_write_text
+
+            rows = [r for r in rows if not r.is_error]
+            atomic_write_text(self.path, _HEADER_LINE + "".join(_csv_line(r.cells()) for r in rows))
+            self._fh.close()
+            self._fh = open(self.path, "r+", encoding="utf-8", newline="")
+            _lock(self._fh, self.path)
+            logger.info("%s: %d error rows removed; those frames will be done again", self.path, n_err)
+        elif good_bytes < len(text.encode("utf-8")):
+            logger.warning("%s: removed a last line cut short by an interruption (that frame is done again)", self.path)
+            self._fh.truncate(good_bytes)
+        self._fh.seek(0, os.SEEK_END)
+        if self._fh.tell() == 0:
+            self._fh.write(_HEADER_LINE)
+            self._sync(self._fh)
+        self.rows = rows
+        self.done = {r.key for r in rows}
+
+    @staticmethod
+    def _sync(fh) -> None:
+        fh.flush()
+        os.fsync(fh.fileno())
+
+    def append(self, rows) -> int:
+        """Write `rows` not yet in the file in one write, then flush and fsync; returns how many."""
+        new, keys = [], set()
+        for r in rows:
+            if r.key not in self.done and r.key not in keys:
+                keys.add(r.key)
+                new.append(r)
+        if new:
+            self._fh.write("".join(_csv_line(r.cells()) for r in new))
+            self._sync(self._fh)
+            self.done |= keys
+            self.rows.extend(new)
+        return len(new)
+
+    def close(self) -> None:
+        if self._fh is not None:
+            self._fh.close()
+            self._fh = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def _lock(fh, path) -> None:
+    try:
+        import fcntl
+    except ImportError:  # not on this platform: no advisory lock
+        return
+    try:
+        fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        raise InputError(f"{path}: another saed batch run is writing this file; wait for it or give another --out") from None

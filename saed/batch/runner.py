@@ -1,0 +1,238 @@
+"""Running a per-frame function over many frames on a Dask cluster, rows back as they finish.
+
+The client side (:func:`run_frames`) keeps a bounded window of tasks in flight
+(``distributed.as_completed``), so a stack of a million frames costs the client no more
+memory than one of a thousand, and hands each finished task's rows to a callback (the
+CSV writer) at once. The worker side (:func:`process_chunk`) reads each frame of its
+chunk from disk itself (``saed.image.io.read_image``: a ``.npy`` stack through a memory
+map, a TIFF page by page) and turns every failure of one frame into an error row, so
+one bad frame never stops the run.
+
+The data every frame needs (per-phase tables, calibration) is sent to the workers once
+(:func:`share`: a worker plugin, which workers that restart or join later receive too) and
+passed to tasks by reference.
+
+On a cluster, workers open the files by absolute path: the inputs must be on a
+filesystem the workers see (as on any shared-filesystem cluster).
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from typing import Callable, Iterable, Iterator
+
+from saed.batch.inputs import FrameSource
+from saed.batch.results import Row, error_status
+from saed.errors import SaedError
+
+__all__ = ["Chunk", "plan_chunks", "count_todo", "chunk_size_for", "process_chunk", "run_frames", "share", "unshare", "SharedRef"]
+
+logger = logging.getLogger(__name__)
+
+#: The most frames one task holds (a task's rows are written together when it ends).
+MAX_CHUNK_FRAMES = 16
+#: How often a single frame whose worker died is run alone before it gets an error row.
+_SINGLE_FRAME_ATTEMPTS = 1
+
+
+@dataclass(frozen=True)
+class Chunk:
+    """Consecutive frames of one source for one task.
+
+    ``context`` is an optional per-source value handed to the frame function (e.g. a
+    calibration read from that file's tags); it must be picklable.
+    """
+
+    name: str
+    path: str
+    frames: tuple[int, ...]
+    context: object = None
+
+
+def count_todo(sources: Iterable[FrameSource], done) -> int:
+    """Frames of `sources` whose (path, frame) key is not in `done`."""
+    if not done:
+        return sum(s.n_frames for s in sources)
+    return sum(1 for s in sources for k in range(s.n_frames) if (s.path, k) not in done)
+
+
+def chunk_size_for(n_todo: int, n_threads: int) -> int:
+    """Frames per task: about four tasks per worker thread, 1 to :data:`MAX_CHUNK_FRAMES`.
+
+    >>> chunk_size_for(4096, 2), chunk_size_for(40, 2), chunk_size_for(3, 8)
+    (16, 5, 1)
+    """
+    return max(1, min(MAX_CHUNK_FRAMES, n_todo // max(1, 4 * n_threads)))
+
+
+def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
+                context_of: Callable[[FrameSource], object] | None = None) -> Iterator[Chunk]:
+    """Chunks of up to `chunk_frames` consecutive frames not in `done`, source by source (lazy)."""
+    for src in sources:
+        ctx = context_of(src) if context_of else None
+        run: list[int] = []
+        for k in range(src.n_frames):
+            if (src.path, k) in done:
+                if run:
+                    yield Chunk(src.name, src.path, tuple(run), ctx)
+                    run = []
+                continue
+            run.append(k)
+            if len(run) == chunk_frames:
+                yield Chunk(src.name, src.path, tuple(run), ctx)
+                run = []
+        if run:
+            yield Chunk(src.name, src.path, tuple(run), ctx)
+
+
+def _frame_error(name: str, path: str, exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    for prefix in (f"{path}: ", f"{name}: "):
+        if text.startswith(prefix):
+            text = text[len(prefix):]
+    return text or exc.__class__.__name__
+
+
+def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
+    """Worker side: read and process each frame of `chunk`; one Row per frame, never raises for a frame.
+
+    `frame_fn(image, shared, *, name, frame, context) -> Row` does the work for one frame.
+    A :class:`~saed.errors.SaedError` (unreadable frame, NaN pixels, ...) becomes
+    ``error: <message>``; any other exception from one frame becomes ``error: internal
+    error (<class>: <message>)`` and is logged with its traceback on the worker, so that a
+    fault on one frame in ten thousand does not end the run.
+    """
+    from saed.image.io import read_image
+
+    shared = _resolve(shared)
+    rows = []
+    for k in chunk.frames:
+        try:
+            image = read_image(chunk.path, frame=k)
+            row = frame_fn(image, shared, name=chunk.name, frame=k, context=chunk.context)
+        except SaedError as exc:
+            row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, exc)))
+        except Exception as exc:  # noqa: BLE001 - the frame boundary of a long run: record, log, go on
+            logger.debug("%s frame %d: internal error", chunk.name, k, exc_info=True)
+            row = Row(chunk.name, k, status=error_status(f"internal error ({exc.__class__.__name__}: "
+                                                         f"{_frame_error(chunk.name, chunk.path, exc)})"))
+        rows.append(row)
+    return rows
+
+
+@dataclass(frozen=True)
+class SharedRef:
+    """Stands in a task for the value :func:`share` installed on every worker under `name`."""
+
+    name: str
+
+
+def _shared_plugin(value, name: str):
+    from distributed.diagnostics.plugin import WorkerPlugin
+
+    class SharedValue(WorkerPlugin):
+        """Holds one batch's shared value on a worker (also on workers that join or restart later)."""
+
+        def __init__(self):
+            self.value = value
+            self.name = name
+
+    return SharedValue()
+
+
+def share(client, value) -> SharedRef:
+    """Install `value` on every worker once, as a worker plugin; returns the reference tasks take.
+
+    A worker plugin (rather than ``scatter``) is kept by the scheduler and given to every worker
+    that joins or is restarted later, so a worker that dies takes nothing with it. The value is
+    pickled once here. Remove it with :func:`unshare` when the run ends.
+    """
+    import uuid
+
+    name = f"saed-batch-shared-{uuid.uuid4().hex[:12]}"
+    client.register_plugin(_shared_plugin(value, name), name=name)
+    return SharedRef(name)
+
+
+def unshare(client, ref: SharedRef) -> None:
+    """Remove a value installed by :func:`share` from the cluster."""
+    client.unregister_worker_plugin(ref.name)
+
+
+def _resolve(shared):
+    if isinstance(shared, SharedRef):
+        from distributed import get_worker
+
+        return get_worker().plugins[shared.name].value
+    return shared
+
+
+def _window(client) -> int:
+    threads = sum(client.nthreads().values()) or 1
+    return 2 * threads + 2
+
+
+def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Callable[[list[Row]], None],
+               window: int | None = None) -> None:
+    """Run `frame_fn` over every frame of `chunks` on `client`'s cluster; `on_rows(rows)` as each task ends.
+
+    Parameters
+    ----------
+    client : distributed.Client
+    chunks : iterable of Chunk
+        Consumed lazily: at most `window` tasks are in flight (default twice the worker
+        threads plus two).
+    frame_fn : callable
+        ``frame_fn(image, shared, *, name, frame, context) -> Row``; must be importable by
+        the workers (a module-level function).
+    shared : object or SharedRef
+        Passed to every call of `frame_fn`; install large values once with :func:`share`.
+    on_rows : callable
+        Called in the client with each finished task's rows (in completion order).
+
+    Notes
+    -----
+    A task whose worker process dies (Dask retries it elsewhere first, then gives up with
+    ``KilledWorker``) is split into single frames, each tried alone twice, so only the frame
+    that kills workers gets an error row.
+    """
+    from distributed import as_completed
+    from distributed.scheduler import KilledWorker
+
+    it = iter(chunks)
+    n = window or _window(client)
+    pending: dict = {}                      # future key -> (chunk, attempt)
+    retry: list[tuple[Chunk, int]] = []
+    ac = as_completed()
+
+    def top_up() -> None:
+        while len(pending) < n:
+            item = retry.pop() if retry else next(((c, 0) for c in it), None)
+            if item is None:
+                return
+            fut = client.submit(process_chunk, item[0], frame_fn, shared, pure=False)
+            pending[fut.key] = item
+            ac.add(fut)
+
+    top_up()
+    for fut in ac:
+        chunk, attempt = pending.pop(fut.key)
+        try:
+            rows = fut.result()
+        except KilledWorker:
+            rows = []
+            if len(chunk.frames) > 1 or attempt < _SINGLE_FRAME_ATTEMPTS:
+                # Dask also blames tasks that were merely queued on a dying worker: try the frames
+                # one by one (and each alone once more) before blaming one.
+                logger.warning("%s frames %d-%d: a worker died; trying them one by one", chunk.name,
+                               chunk.frames[0], chunk.frames[-1])
+                retry.extend((Chunk(chunk.name, chunk.path, (k,), chunk.context), attempt + (len(chunk.frames) == 1))
+                             for k in reversed(chunk.frames))
+            else:
+                rows = [Row(chunk.name, chunk.frames[0],
+                            status=error_status("the worker process died on this frame (out of memory?)"))]
+        fut.release()
+        if rows:
+            on_rows(rows)
+        top_up()

@@ -1,0 +1,214 @@
+"""Scans: frames on an (ny, nx) grid, zone families, and the summary of what was found.
+
+A zone axis is reduced to its family under the phase's Laue group (point group plus
+inversion: Friedel's law makes every kinematic pattern centrosymmetric), using
+:func:`saed.crystal.symmetry.direction_family`. The family is shown by one member: the
+lexicographically largest, in 4-index Miller-Bravais form for hexagonal axes -- so
+<110>, <211>, <111> for a cubic phase and <2-1-10>, <10-10>, <0001> for a hexagonal one.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from saed.batch.inputs import FrameSource
+from saed.batch.results import Row
+from saed.errors import InputError
+
+__all__ = ["zone_family", "family_label", "FamilyCount", "Summary", "summarize", "ScanMap", "build_scan_map",
+           "check_scan_shape", "rows_for_sources", "NOT_DONE", "NO_SOLUTION", "ERROR"]
+
+#: Codes in ScanMap.phase_index for frames without a phase.
+NOT_DONE, NO_SOLUTION, ERROR = -1, -2, -3
+
+
+@lru_cache(maxsize=4096)
+def _family(uvw: tuple[int, ...], space_group: str, hexagonal: bool) -> tuple[int, ...]:
+    from saed.crystal.lattice import reduce_indices
+    from saed.crystal.miller import direction_to_4
+    from saed.crystal.symmetry import direction_family
+
+    members = reduce_indices(direction_family(uvw, space_group))
+    if hexagonal:
+        members = direction_to_4(members)
+    best = max(tuple(int(v) for v in m) for m in np.atleast_2d(members))
+    return best
+
+
+def zone_family(uvw, phase) -> tuple[int, ...]:
+    """The representative of the family of zone axis `uvw` (3-index) of `phase`.
+
+    Returns 3 indices, or 4 (Miller-Bravais) for a phase on hexagonal axes.
+
+    Examples
+    --------
+    >>> from saed.crystal import builtin_phase
+    >>> zone_family((0, -1, 1), builtin_phase("Al")), zone_family((1, -2, 1), builtin_phase("Al"))
+    ((1, 1, 0), (2, 1, 1))
+    >>> zone_family((0, 0, -1), builtin_phase("Co-hcp")), zone_family((0, 1, 0), builtin_phase("Co-hcp"))
+    ((0, 0, 0, 1), (2, -1, -1, 0))
+    """
+    u = tuple(int(v) for v in uvw)
+    if not any(u):
+        raise InputError(f"zone axis {list(u)} is all zeros")
+    return _family(u, phase.space_group, bool(phase.is_hexagonal))
+
+
+def family_label(family) -> str:
+    """``<2-1-10>``-style text (ASCII, minus signs before negative indices).
+
+    >>> family_label((2, -1, -1, 0)), family_label((1, 1, 0)), family_label((10, 0, 1))
+    ('<2-1-10>', '<110>', '<10 0 1>')
+    """
+    from saed.crystal.miller import format_indices
+
+    return f"<{format_indices(family)}>"
+
+
+@dataclass(frozen=True)
+class FamilyCount:
+    """How many frames were indexed as `phase` on a zone of `family` (None: phase unknown here)."""
+
+    phase: str
+    family: tuple[int, ...] | None
+    count: int
+
+    @property
+    def label(self) -> str:
+        return family_label(self.family) if self.family is not None else "?"
+
+
+@dataclass(frozen=True)
+class Summary:
+    """What a batch found: frame counts by status, by phase, and by (phase, zone family)."""
+
+    n_frames: int
+    n_ok: int
+    n_no_solution: int
+    n_error: int
+    phases: tuple[tuple[str, int], ...]
+    families: tuple[FamilyCount, ...]
+
+
+def _phase_family(row: Row, phases: dict) -> tuple[str, tuple[int, ...] | None]:
+    ph = phases.get(row.phase)
+    if ph is None or row.zone_axis is None:
+        return row.phase, None
+    return row.phase, zone_family(row.zone_axis, ph)
+
+
+def summarize(rows, *, phases: dict) -> Summary:
+    """Count `rows` by status, phase and zone family; `phases` maps phase names to Phase objects.
+
+    Phases are listed by frame count (most first), families within a phase likewise.
+    A row whose phase is not in `phases` is counted under its phase with family None.
+    """
+    status = Counter("ok" if r.status == "ok" else "error" if r.is_error else r.status for r in rows)
+    by_phase: Counter = Counter()
+    by_family: Counter = Counter()
+    for r in rows:
+        if r.status != "ok" or not r.phase:
+            continue
+        name, fam = _phase_family(r, phases)
+        by_phase[name] += 1
+        by_family[(name, fam)] += 1
+    order = {name: i for i, (name, _) in enumerate(by_phase.most_common())}
+    fams = sorted(by_family.items(), key=lambda kv: (order[kv[0][0]], -kv[1], str(kv[0][1])))
+    return Summary(len(rows), status["ok"], status["no-solution"], status["error"], tuple(by_phase.most_common()),
+                   tuple(FamilyCount(p, f, c) for (p, f), c in fams))
+
+
+@dataclass(frozen=True)
+class ScanMap:
+    """A scan as a grid: which phase and zone family each position was indexed as.
+
+    ``phase_index[iy, ix]`` indexes ``phases`` or is NOT_DONE / NO_SOLUTION / ERROR;
+    ``family_index[iy, ix]`` indexes ``families`` (a FamilyCount each) or is -1.
+    Position (iy, ix) holds the frame with sequence number ``iy * nx + ix`` over the inputs
+    in order.
+    """
+
+    shape: tuple[int, int]
+    phase_index: np.ndarray
+    family_index: np.ndarray
+    phases: tuple[str, ...]
+    families: tuple[FamilyCount, ...]
+    summary: Summary
+
+    def __post_init__(self):
+        for name in ("phase_index", "family_index"):
+            a = np.array(getattr(self, name), dtype=np.int32)
+            a.flags.writeable = False
+            object.__setattr__(self, name, a)
+
+
+def check_scan_shape(scan_shape, sources) -> tuple[int, int]:
+    """The scan shape to use: `scan_shape` if given (must match the frame count), else that of a lone 4-axis stack.
+
+    Raises InputError when the shape does not match the inputs or none is known.
+    """
+    n = sum(s.n_frames for s in sources)
+    if scan_shape is None:
+        own = [s.scan_shape for s in sources]
+        if len(sources) == 1 and own[0] is not None:
+            return own[0]
+        raise InputError("a scan map needs --scan-shape NY NX (or a single 4-axis .npy stack, which carries its own)")
+    ny, nx = (int(v) for v in scan_shape)
+    if ny < 1 or nx < 1:
+        raise InputError(f"--scan-shape {ny} {nx}: both must be at least 1")
+    if ny * nx != n:
+        raise InputError(f"--scan-shape {ny} {nx} has {ny * nx} positions, but the inputs hold {n} frames")
+    return ny, nx
+
+
+def _sequenced(rows, sources) -> list[tuple[int, Row]]:
+    """(sequence number over all frames of `sources`, row) for the rows that belong to `sources`."""
+    offset, start = {}, 0
+    for s in sources:
+        offset.setdefault(s.path, (start, s.n_frames))
+        start += s.n_frames
+    out = []
+    for r in rows:
+        path, k = r.key
+        if path in offset and 0 <= k < offset[path][1]:
+            out.append((offset[path][0] + k, r))
+    return out
+
+
+def rows_for_sources(rows, sources) -> list[Row]:
+    """The rows that belong to frames of `sources` (a CSV may hold rows of earlier, other inputs)."""
+    return [r for _, r in _sequenced(rows, sources)]
+
+
+def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases: dict,
+                   phase_order=()) -> ScanMap:
+    """Place `rows` on the scan grid of `sources` (frames in input order, row-major).
+
+    Rows of frames not in `sources` are ignored; positions with no row are NOT_DONE.
+    `phase_order` fixes the order (and so the colours) of the phases; phases found but not
+    listed follow, by name.
+    """
+    ny, nx = check_scan_shape(scan_shape, sources)
+    mine = _sequenced(rows, sources)
+    summary = summarize([r for _, r in mine], phases=phases)
+    names = [p for p in phase_order if any(p == q for q, _ in summary.phases)]
+    names += sorted(q for q, _ in summary.phases if q not in names)
+    pidx = {p: i for i, p in enumerate(names)}
+    fidx = {(f.phase, f.family): i for i, f in enumerate(summary.families)}
+    phase_grid = np.full(ny * nx, NOT_DONE, np.int32)
+    fam_grid = np.full(ny * nx, -1, np.int32)
+    for seq, r in mine:
+        if seq >= ny * nx:
+            continue
+        if r.status == "ok" and r.phase:
+            name, fam = _phase_family(r, phases)
+            phase_grid[seq] = pidx[name]
+            fam_grid[seq] = fidx[(name, fam)]
+        else:
+            phase_grid[seq] = ERROR if r.is_error else NO_SOLUTION
+    return ScanMap((ny, nx), phase_grid.reshape(ny, nx), fam_grid.reshape(ny, nx), tuple(names),
+                   summary.families, summary)

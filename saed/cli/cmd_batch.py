@@ -1,0 +1,214 @@
+"""``saed batch``: index many patterns (files, folders, stacks) locally or on a Dask cluster, resumably."""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import os
+import signal
+import sys
+from collections import Counter
+from pathlib import Path
+
+from saed.cli.common import (add_calibration_options, add_phase_option, calibration_from_args, phases_from_args,
+                             positive_float)
+from saed.cli.progress import Progress, _fmt_s
+from saed.errors import InputError
+
+NAME = "batch"
+HELP = "index many patterns (files, folders, stacks) on this machine or a Dask cluster; resumable CSV"
+DESCRIPTION = (
+    "Index every frame of the inputs -- image files, folders of them, multi-page TIFF stacks and 3-D/4-D .npy "
+    "stacks (read frame by frame, never whole) -- and write one CSV row per frame as soon as it is done. "
+    "Run the same command again to resume: frames already in --out are skipped. "
+    "For a scan, --scan-shape NY NX (or a 4-D .npy) also draws a phase and zone-family map."
+)
+ORDER = 30
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"{text!r} must be at least 1")
+    return v
+
+
+def add_arguments(p):
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="image files, stacks (.npy, multi-page TIFF) or folders")
+    p.add_argument("--out", required=True, metavar="PATH.csv", help="the results CSV (appended to, and resumed from)")
+    add_phase_option(p)
+    add_calibration_options(p)
+    g = p.add_argument_group("indexing")
+    g.add_argument("--top", type=_positive_int, default=5, metavar="N", help="solutions ranked per frame (default 5)")
+    g.add_argument("--max-g", type=positive_float, metavar="INV_NM", help="largest |g| considered, 1/nm")
+    r = p.add_argument_group("where to run")
+    r.add_argument("--workers", type=_positive_int, metavar="N",
+                   help="local worker processes (default: one per CPU core)")
+    r.add_argument("--scheduler", metavar="ADDRESS",
+                   help="address of a running Dask scheduler, e.g. tcp://head-node:8786 (inputs must be on a "
+                        "filesystem the workers see)")
+    r.add_argument("--connect-timeout", type=positive_float, default=5.0, metavar="S",
+                   help="give up on --scheduler after S seconds (default 5)")
+    i = p.add_argument_group("inputs and outputs")
+    i.add_argument("--recursive", action="store_true", help="also search subfolders of input folders")
+    i.add_argument("--retry-errors", action="store_true", help="redo the frames whose row in --out is an error")
+    i.add_argument("--scan-shape", type=_positive_int, nargs=2, metavar=("NY", "NX"),
+                   help="the frames (in input order) form a scan of NY rows by NX columns: draw a map")
+    i.add_argument("--map", metavar="PNG", help="where to draw the scan map (default: next to --out, *_map.png)")
+    i.add_argument("--summary", metavar="CSV", help="also write the phase / zone-family summary as CSV")
+
+
+def _say(text: str) -> None:
+    print(f"saed batch: {text}", file=sys.stderr)
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """SIGTERM (a cluster's time limit, a plain `kill`) ends the run like Ctrl-C: cleanly, rows kept."""
+    def handler(signum, frame):
+        raise KeyboardInterrupt
+
+    try:
+        old = signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
+
+
+def _file_calibration(base):
+    """Per-file calibration from TIFF resolution tags, for runs given no scale."""
+    from saed.calibration import Calibration
+    from saed.image.io import read_image_calibration
+
+    def context_of(source):
+        scale = read_image_calibration(source.path)
+        if scale is None:
+            return None
+        return Calibration(scale, base.voltage_kv, center_px=base.center_px, ellipse=base.ellipse,
+                           pixel_pitch_um=base.pixel_pitch_um, source=f"{source.name} (TIFF tags)")
+
+    return context_of
+
+
+def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
+    from saed.report.files import check_writable
+
+    out = check_writable(args.out)
+    map_path = Path(args.map) if args.map else None
+    summary = Path(args.summary) if args.summary else None
+    given = {os.path.abspath(p) for p in inputs_raw}
+    for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary)):
+        if p is None:
+            continue
+        check_writable(p)
+        if os.path.abspath(p) in given:
+            raise InputError(f"{flag} {p} is also an input; give another file name")
+    names = [os.path.abspath(p) for p in (out, map_path, summary) if p is not None]
+    if len(set(names)) < len(names):
+        raise InputError("--out, --map and --summary must be different files")
+    return out, map_path, summary
+
+
+def run(args) -> int:
+    from saed.batch import discover_inputs, run_batch
+    from saed.batch.cluster import dask_client, default_workers
+    from saed.batch.indexing import index_frame, make_index_job
+    from saed.batch.results import ResultsFile
+    from saed.batch.runner import count_todo
+    from saed.batch.scan import check_scan_shape
+
+    if args.workers is not None and args.scheduler is not None:
+        raise InputError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
+    out, map_path, summary_path = _check_outputs(args, args.inputs)
+    calibration = calibration_from_args(args)
+    phases = phases_from_args(args)
+
+    default_map = out.with_name(out.stem + "_map.png")
+    inputs = discover_inputs(args.inputs, recursive=args.recursive,
+                             exclude=[p for p in (out, map_path, summary_path, default_map) if p is not None])
+    for s in inputs.skipped:
+        _say(str(s))
+    if not inputs.sources:
+        raise InputError(f"nothing to index: every input was skipped ({len(inputs.skipped)} listed above)")
+    scan_shape = None
+    lone_scan = len(inputs.sources) == 1 and inputs.sources[0].scan_shape is not None
+    if args.scan_shape is not None or map_path is not None or lone_scan:
+        scan_shape = check_scan_shape(args.scan_shape, inputs.sources)
+        map_path = map_path or default_map
+
+    with ResultsFile(out, retry_errors=args.retry_errors) as results:
+        n_todo = count_todo(inputs.sources, results.done)
+        n_files = len(inputs.sources)
+        n_local = args.workers or default_workers()
+        where = (f"the Dask scheduler at {args.scheduler}" if args.scheduler
+                 else f"{n_local} local worker{'s' * (n_local != 1)}")
+        _say(f"{inputs.n_frames} frames in {n_files} file{'s' * (n_files != 1)}; "
+             f"{inputs.n_frames - n_todo} already in {out}; {n_todo} to index"
+             + (f" on {where}" if n_todo else ""))
+        outcome = None
+        if n_todo:
+            context_of = None if calibration.is_calibrated else _file_calibration(calibration)
+            try:
+                with _terminate_as_interrupt(), \
+                        dask_client(workers=args.workers, scheduler=args.scheduler,
+                                    connect_timeout_s=args.connect_timeout) as client:
+                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=args.max_g)
+                    with Progress(n_todo, "batch") as bar:
+                        outcome = run_batch(inputs, results, index_frame, job, client=client, progress=bar,
+                                            context_of=context_of)
+            except KeyboardInterrupt:
+                _say(f"interrupted; {len(results.rows)} rows are safe in {out}: run the same command again to go on")
+                return 130
+        rows = list(results.rows)
+
+    _report(rows, inputs, out, outcome, phases)
+    if scan_shape is not None or summary_path is not None:
+        _scan_outputs(rows, inputs, scan_shape, map_path, summary_path, phases)
+    return 0
+
+
+def _report(rows, inputs, out, outcome, phases) -> None:
+    from saed.batch.scan import rows_for_sources, summarize
+    from saed.report.scan_map import format_summary
+
+    mine = rows_for_sources(rows, inputs.sources)
+    summary = summarize(mine, phases={p.name: p for p in phases})
+    line = (f"{out}: {len(mine)} rows for these inputs; {summary.n_ok} ok, {summary.n_no_solution} no solution, "
+            f"{summary.n_error} errors")
+    if outcome is not None and outcome.n_written:
+        rate = outcome.n_written / outcome.elapsed_s if outcome.elapsed_s > 0 else float("nan")
+        line += f"; {outcome.n_written} new in {_fmt_s(outcome.elapsed_s)} ({rate:.1f} frames/s)"
+    print(line)
+    if summary.n_ok or summary.n_no_solution:
+        print(format_summary(summary))
+    errors = Counter(r.status for r in mine if r.is_error)
+    for status, n in errors.most_common(3):
+        print(f"  {n} x {status}")
+    if len(errors) > 3:
+        print(f"  ... and {len(errors) - 3} other error messages (see the status column of {out})")
+
+
+def _scan_outputs(rows, inputs, scan_shape, map_path, summary_path, phases) -> None:
+    from saed.batch.scan import build_scan_map, rows_for_sources, summarize
+    from saed.report.files import atomic_write_text
+    from saed.report.scan_map import render_scan_map, summary_csv
+
+    lookup = {p.name: p for p in phases}
+    if scan_shape is not None:
+        scan = build_scan_map(rows, inputs.sources, scan_shape, phases=lookup, phase_order=[p.name for p in phases])
+        title = inputs.sources[0].name if len(inputs.sources) == 1 else f"{len(inputs.sources)} files"
+        render_scan_map(scan, map_path, title=title)
+        print(f"map: {map_path}")
+        summary = scan.summary
+    else:
+        summary = summarize(rows_for_sources(rows, inputs.sources), phases=lookup)
+    if summary_path is not None:
+        atomic_write_text(summary_path, summary_csv(summary))
+        print(f"summary: {summary_path}")

@@ -1,0 +1,162 @@
+"""saed.batch on a real Dask LocalCluster (2 worker processes on loopback, started here).
+
+The per-frame function in these tests is a small real one (frame mean and maximum), so the
+plumbing is checked against numpy directly: every frame gets exactly one row, failures of one
+frame become error rows, the shared value is sent to the workers once, and an interrupted run
+resumes to the same rows as an uninterrupted one.
+"""
+
+import logging
+import os
+import socket
+
+import numpy as np
+import pytest
+import tifffile
+
+from saed.batch import discover_inputs, read_rows, run_batch
+from saed.batch.cluster import dask_client
+from saed.batch.results import ResultsFile, Row
+from saed.errors import InputError
+
+logging.getLogger("distributed").setLevel(logging.ERROR)
+
+
+class Divisor:
+    """The shared value of the tests; counts how often the client pickles it."""
+
+    pickled = 0
+
+    def __init__(self, value):
+        self.value = value
+
+    def __reduce__(self):
+        Divisor.pickled += 1
+        return (Divisor, (self.value,))
+
+
+def frame_stats(image, shared, *, name, frame, context=None):
+    if frame == 13 and name.endswith("die.npy"):
+        os._exit(3)                      # a frame that kills its worker process
+    return Row(name, frame, score=float(image.mean(dtype=np.float64)) / shared.value, n_spots=int(image.max()),
+               note=str(context or ""))
+
+
+@pytest.fixture(scope="module")
+def client():
+    import dask
+
+    with dask.config.set({"distributed.scheduler.allowed-failures": 1}):
+        with dask_client(workers=2) as c:
+            yield c
+
+
+def _stack(n, seed=0, shape=(24, 24)):
+    return np.random.default_rng(seed).poisson(30, (n,) + shape).astype(np.float32)
+
+
+def _rows_by_key(path):
+    rows = read_rows(path)
+    keys = [r.key for r in rows]
+    assert len(keys) == len(set(keys)), "duplicate rows"
+    return {r.key: r for r in rows}
+
+
+def test_every_frame_of_files_and_stacks_gets_one_row(client, tmp_path):
+    npy = _stack(12)
+    npy[5] = np.nan                                        # a frame of NaNs
+    np.save(tmp_path / "tilt.npy", npy)
+    tif = _stack(4, seed=1).astype(np.uint16)
+    tifffile.imwrite(tmp_path / "series.tif", tif, photometric="minisblack")
+    scan = _stack(6, seed=2).reshape(2, 3, 24, 24)
+    np.save(tmp_path / "scan.npy", scan)
+    (tmp_path / "readme.txt").write_text("not an image")
+    inputs = discover_inputs([str(tmp_path)])
+    assert [s.reason for s in inputs.skipped] == ["not an image file (.txt)"]
+    out = tmp_path / "out.csv"
+    with ResultsFile(out) as res:
+        outcome = run_batch(inputs, res, frame_stats, Divisor(2.0), client=client, chunk_frames=3)
+    assert (outcome.n_frames, outcome.n_written, outcome.n_before) == (22, 22, 0)
+    rows = _rows_by_key(out)
+    assert len(rows) == 22
+    truth = {"tilt.npy": npy, "series.tif": tif.astype(np.float32), "scan.npy": scan.reshape(6, 24, 24)}
+    for fname, frames in truth.items():
+        for k, img in enumerate(frames):
+            r = rows[(str(tmp_path / fname), k)]
+            if fname == "tilt.npy" and k == 5:
+                assert r.status.startswith("error:") and "NaN" in r.status
+                continue
+            assert r.status == "ok"
+            assert r.score == pytest.approx(img.mean(dtype=np.float64) / 2.0, abs=1e-4)
+            assert r.n_spots == int(img.max())
+
+
+def test_shared_value_is_sent_once_not_per_frame(client, tmp_path):
+    np.save(tmp_path / "s.npy", _stack(24, seed=3))
+    Divisor.pickled = 0
+    with ResultsFile(tmp_path / "out.csv") as res:
+        run_batch(discover_inputs([str(tmp_path / "s.npy")]), res, frame_stats, Divisor(1.0), client=client,
+                  chunk_frames=1)                           # 24 tasks
+    assert len(read_rows(tmp_path / "out.csv")) == 24
+    assert 1 <= Divisor.pickled <= 2                        # scattered to the 2 workers, never per task
+
+
+def test_interrupted_run_resumes_to_the_same_rows(client, tmp_path):
+    np.save(tmp_path / "s.npy", _stack(40, seed=4))
+    inputs = discover_inputs([str(tmp_path / "s.npy")])
+    with ResultsFile(tmp_path / "ref.csv") as res:
+        run_batch(inputs, res, frame_stats, Divisor(1.0), client=client, chunk_frames=2)
+
+    def stop_early(done, total, text):
+        if done >= 9:
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        with ResultsFile(tmp_path / "out.csv") as res:
+            run_batch(inputs, res, frame_stats, Divisor(1.0), client=client, chunk_frames=2, progress=stop_early)
+    partial = _rows_by_key(tmp_path / "out.csv")
+    assert 9 <= len(partial) < 40
+    with ResultsFile(tmp_path / "out.csv") as res:
+        outcome = run_batch(inputs, res, frame_stats, Divisor(1.0), client=client, chunk_frames=2)
+    assert outcome.n_before == len(partial) and outcome.n_written == 40 - len(partial)
+    done, ref = _rows_by_key(tmp_path / "out.csv"), _rows_by_key(tmp_path / "ref.csv")
+    assert {k: r.cells() for k, r in done.items()} == {k: r.cells() for k, r in ref.items()}
+
+
+def test_a_frame_that_kills_its_worker_gets_an_error_row(client, tmp_path):
+    np.save(tmp_path / "die.npy", _stack(16, seed=5))
+    with ResultsFile(tmp_path / "out.csv") as res:
+        run_batch(discover_inputs([str(tmp_path / "die.npy")]), res, frame_stats, Divisor(1.0), client=client,
+                  chunk_frames=4)
+    rows = _rows_by_key(tmp_path / "out.csv")
+    assert len(rows) == 16
+    bad = [r for r in rows.values() if r.status != "ok"]
+    assert [r.frame for r in bad] == [13]
+    assert "worker process died" in bad[0].status
+
+
+def test_existing_scheduler_by_address(client, tmp_path):
+    np.save(tmp_path / "s.npy", _stack(5, seed=6))
+    with dask_client(scheduler=client.scheduler.address) as other, ResultsFile(tmp_path / "out.csv") as res:
+        run_batch(discover_inputs([str(tmp_path / "s.npy")]), res, frame_stats, Divisor(1.0), client=other)
+    assert len(read_rows(tmp_path / "out.csv")) == 5
+
+
+def _closed_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_unreachable_scheduler_is_a_one_line_error_naming_it():
+    address = f"tcp://127.0.0.1:{_closed_port()}"
+    with pytest.raises(InputError, match=address.replace(".", r"\.")) as info:
+        with dask_client(scheduler=address, connect_timeout_s=0.5):
+            pass
+    assert "\n" not in str(info.value)
+    with pytest.raises(InputError, match="not a scheduler address"):
+        with dask_client(scheduler="head-node-without-port", connect_timeout_s=0.5):
+            pass
+    with pytest.raises(InputError, match="not both"):
+        with dask_client(scheduler=address, workers=2):
+            pass
