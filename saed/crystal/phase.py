@@ -289,7 +289,18 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
     if not p.is_file():
         raise PhaseError(f"{path}: no such CIF file")
     try:
-        doc = gemmi.cif.read(str(p))
+        raw = p.read_bytes()
+    except OSError as exc:
+        raise PhaseError(f"{path}: cannot read the file ({_one_line(exc)})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        # CIF 1.1 is ASCII and CIF 2 UTF-8, but older programs write Latin-1 (A-ring, degree sign) in
+        # comments and names; gemmi would then raise UnicodeDecodeError from deep inside its accessors.
+        logger.warning("%s: not UTF-8 text, read as Latin-1", path)
+        text = raw.decode("latin-1")
+    try:
+        doc = gemmi.cif.read_string(text)
     except (RuntimeError, ValueError, UnicodeError) as exc:
         raise PhaseError(f"{path}: not a readable CIF ({_one_line(exc)})") from None
     blocks = [b for b in doc if b.find_value("_cell_length_a") is not None] or list(doc)
@@ -302,7 +313,7 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
             raise PhaseError(f"{path}: the CIF has no {tag}")
     try:
         small = gemmi.make_small_structure_from_block(block)
-    except (RuntimeError, ValueError, IndexError) as exc:
+    except (RuntimeError, ValueError, IndexError, UnicodeError) as exc:
         raise PhaseError(f"{path}: cannot read the structure ({_one_line(exc)})") from None
     cell = small.cell
     lat = Lattice(cell.a / 10.0, cell.b / 10.0, cell.c / 10.0, cell.alpha, cell.beta, cell.gamma)  # A -> nm
@@ -336,7 +347,10 @@ def _cif_space_group(block, small) -> str | None:
     """
     sg = small.spacegroup
     if sg is not None:
-        problem = small.check_spacegroup()
+        try:
+            problem = small.check_spacegroup()
+        except UnicodeError:  # gemmi can cut a multi-byte character in its own message
+            problem = "the symmetry operations are unreadable"
         if problem:
             logger.warning("CIF block %s: %s; using %s", block.name, _one_line(problem), sg.xhm())
         return sg.xhm()
@@ -350,7 +364,7 @@ def _cif_space_group(block, small) -> str | None:
 
                 try:
                     return gemmi.find_spacegroup_by_ops(gemmi.symops_from_hall(v)).xhm()
-                except (RuntimeError, ValueError, AttributeError):
+                except (RuntimeError, ValueError, AttributeError, UnicodeError):
                     continue
             return v
     return None
