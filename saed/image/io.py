@@ -34,7 +34,7 @@ import numpy as np
 from saed.calibration import PLAUSIBLE_SCALE_INV_NM_PER_PX
 from saed.errors import ImageError
 
-__all__ = ["read_image", "read_image_calibration", "count_frames", "MIN_SIDE_PX", "MAX_PIXELS",
+__all__ = ["read_image", "read_image_calibration", "count_frames", "read_mask_image", "check_image", "MIN_SIDE_PX", "MAX_PIXELS",
            "RECIPROCAL_UNITS_INV_NM"]
 
 logger = logging.getLogger(__name__)
@@ -124,7 +124,7 @@ def _open_tiff(path: Path):
         raise ImageError(f"{path}: not a readable TIFF ({_short(exc)})") from None
 
 
-def _tiff_frame(path: Path, frame) -> np.ndarray:
+def _tiff_frame(path: Path, frame, *, colour_ok: bool = False) -> np.ndarray:
     import tifffile
 
     size = path.stat().st_size
@@ -156,13 +156,14 @@ def _tiff_frame(path: Path, frame) -> np.ndarray:
     if data.ndim == 3:
         if planar_first:
             data = np.moveaxis(data, 0, -1)
-        data = _grey_from_channels(path, data, photometric_rgb=photometric in (2, 6))
+        if not colour_ok:
+            data = _grey_from_channels(path, data, photometric_rgb=photometric in (2, 6))
     return data
 
 
 # --------------------------------------------------------------------------- PNG / JPEG
 
-def _pil_frame(path: Path, frame) -> np.ndarray:
+def _pil_frame(path: Path, frame, *, colour_ok: bool = False) -> np.ndarray:
     from PIL import Image
 
     try:
@@ -181,7 +182,7 @@ def _pil_frame(path: Path, frame) -> np.ndarray:
                 elif mode == "1":
                     im = im.convert("L")
                     mode = "L"
-                elif mode in ("CMYK", "YCbCr", "LAB", "HSV"):
+                elif mode in ("CMYK", "YCbCr", "LAB", "HSV") and not colour_ok:
                     raise ImageError(f"{path}: a colour image ({mode}); save the pattern as a greyscale image")
                 data = np.asarray(im)
     except ImageError:
@@ -192,7 +193,7 @@ def _pil_frame(path: Path, frame) -> np.ndarray:
         raise ImageError(f"{path}: not a readable PNG or JPEG ({_short(exc)})") from None
     except MemoryError:
         raise ImageError(f"{path}: the image is too large to read into memory") from None
-    if data.ndim == 3:
+    if data.ndim == 3 and not colour_ok:
         data = _grey_from_channels(path, data, photometric_rgb=True)
     return data
 
@@ -249,6 +250,15 @@ def _grey_from_channels(path, data: np.ndarray, *, photometric_rgb: bool) -> np.
         if not np.array_equal(first, colour[..., i]):
             raise ImageError(f"{path}: a colour image ({c} channels that differ); save the pattern as a greyscale image")
     return first
+
+
+def check_image(data, *, name: str = "image") -> np.ndarray:
+    """The checks :func:`read_image` applies, for an array from elsewhere; returns 2-D float32.
+
+    Raises ImageError (message starting with `name`) for a non-numeric, non-2-D, empty, too small,
+    NaN/infinite, all-zero or constant array.
+    """
+    return _finish(name, np.asarray(data))
 
 
 def _finish(path, data: np.ndarray) -> np.ndarray:
@@ -352,15 +362,39 @@ def read_image(path, *, frame: int | None = None) -> np.ndarray:
     >>> img = read_image(p); img.dtype, img.shape, float(img[19, 19])
     (dtype('float32'), (20, 20), 399.0)
     """
+    return _finish(path, _read_raw(path, frame))
+
+
+def _read_raw(path, frame, *, colour_ok: bool = False) -> np.ndarray:
     p = _check_file(path)
     kind = _kind(p)
     if kind == "tiff":
-        data = _tiff_frame(p, frame)
-    elif kind == "npy":
-        data = _npy_frame(p, frame)
-    else:
-        data = _pil_frame(p, frame)
-    return _finish(path, data)
+        return _tiff_frame(p, frame, colour_ok=colour_ok)
+    if kind == "npy":
+        return _npy_frame(p, frame)
+    return _pil_frame(p, frame, colour_ok=colour_ok)
+
+
+def read_mask_image(path, *, shape: tuple[int, int]) -> np.ndarray:
+    """Read a mask image: True where a pixel is to be ignored (any non-zero value, in any channel).
+
+    Any format :func:`read_image` reads; colour is allowed (a region painted in any colour is
+    masked). The mask must have exactly `shape` (rows, cols) of the pattern.
+
+    Raises
+    ------
+    ImageError
+        Unreadable file, or a shape different from the pattern's.
+    """
+    data = _read_raw(path, None, colour_ok=True)
+    if data.ndim == 3:
+        data = data.max(axis=-1) if data.shape[-1] != 4 else data[..., :3].max(axis=-1)
+    if data.dtype.kind == "f" and not np.isfinite(data).all():
+        raise ImageError(f"{path}: the mask has NaN or infinite pixels")
+    if data.ndim != 2 or tuple(data.shape) != tuple(shape):
+        raise ImageError(f"{path}: the mask is {'x'.join(map(str, data.shape))} pixels but the pattern is "
+                         f"{shape[0]}x{shape[1]}; draw the mask on the same image")
+    return np.asarray(data != 0)
 
 
 _UNIT_RE = re.compile(r"^\s*unit\s*=\s*(.+?)\s*$", re.MULTILINE)

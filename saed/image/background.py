@@ -1,0 +1,208 @@
+"""The diffuse background (inelastic haze) and the noise model of a recorded pattern.
+
+Background
+----------
+The haze falls off with distance from the centre and varies slowly around it (an elliptical
+projector, a thickness gradient), while the spots are small. So the background is built in two
+layers on the block-averaged image (:mod:`saed.image.binning`):
+
+1. a radial median profile about the centre: the median of each one-block-wide ring, which the
+   spots (a minority of every ring) cannot pull up;
+2. a smooth residual: the block image minus that profile, with blocks that stand out (spots,
+   more than 3 robust sigmas above the ring's residual) given zero weight, smoothed by a normalised
+   Gaussian of 6 blocks.
+
+The full-resolution background is their sum, interpolated bilinearly. Spot intensities do not use it:
+each spot gets its own local background plane from its fit (:mod:`saed.image.spotfit`).
+
+Noise
+-----
+Counting detectors follow variance = gain x level + offset (Poisson electrons times a gain plus read
+noise; the offset also absorbs the dark level). The robust standard deviation (1.4826 x the median
+absolute deviation) of pixel residuals is measured in 16 bins of background level and the line is
+fitted by weighted least squares, so the noise is known everywhere from the background alone.
+
+References
+----------
+.. [1] P. J. Rousseeuw and C. Croux, "Alternatives to the median absolute deviation",
+   J. Am. Stat. Assoc. 88, 1273-1283 (1993), :doi:`10.1080/01621459.1993.10476408`.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage as ndi
+
+from saed.image.binning import Binned, radial_quantile_profile, upsample_bilinear
+
+__all__ = ["Background", "estimate_background", "robust_sigma", "MAD_TO_SIGMA"]
+
+logger = logging.getLogger(__name__)
+
+#: Median absolute deviation -> standard deviation for Gaussian noise [1]_.
+MAD_TO_SIGMA = 1.4826
+
+
+def robust_sigma(values) -> float:
+    """1.4826 x median absolute deviation of the finite `values` (0 for none)."""
+    v = np.asarray(values, np.float64)
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return 0.0
+    return MAD_TO_SIGMA * float(np.median(np.abs(v - np.median(v))))
+
+
+@dataclass(frozen=True, eq=False)
+class Background:
+    """Background per block, the radial profile it started from, and the noise model var = gain*level + offset.
+
+    level_binned : (nr, nc) background counts per pixel, per block; factor, full_shape : of the binning;
+    radius_px, radial_level : the radial median profile (full-resolution pixels, counts per pixel);
+    gain : variance per count of level; offset_var : variance at level 0 (counts^2).
+    """
+
+    level_binned: np.ndarray
+    factor: int
+    full_shape: tuple[int, int]
+    radius_px: np.ndarray
+    radial_level: np.ndarray
+    gain: float
+    offset_var: float
+    center_px: tuple[float, float]
+    var_floor: float = 1e-6
+
+    def full(self) -> np.ndarray:
+        """(rows, cols) float32 background at full resolution."""
+        return upsample_bilinear(self.level_binned, self.factor, self.full_shape)
+
+    def sigma(self, level) -> np.ndarray:
+        """Pixel noise (1 sigma, counts) where the expected value is `level`."""
+        lv = np.asarray(level, np.float64)
+        return np.sqrt(np.maximum(self.gain * lv + self.offset_var, self.var_floor))
+
+    def at(self, x_px, y_px) -> np.ndarray:
+        """Background at points (nearest block)."""
+        f = self.factor
+        nr, nc = self.level_binned.shape
+        j = np.clip(np.floor(np.asarray(x_px) / f).astype(np.int64), 0, nc - 1)
+        i = np.clip(np.floor(np.asarray(y_px) / f).astype(np.int64), 0, nr - 1)
+        return self.level_binned[i, j]
+
+
+def _fill_nan(a: np.ndarray) -> np.ndarray:
+    bad = ~np.isfinite(a)
+    if not bad.any():
+        return a
+    if bad.all():
+        return np.zeros_like(a)
+    idx = ndi.distance_transform_edt(bad, return_distances=False, return_indices=True)
+    return a[tuple(idx)]
+
+
+def estimate_background(image: np.ndarray, binned: Binned, center_px, *, valid: np.ndarray | None = None,
+                        smooth_blocks: float = 6.0) -> Background:
+    """Background of `image` about `center_px` from its block means `binned` (see the module notes).
+
+    Parameters
+    ----------
+    image : (rows, cols) float32, the full-resolution pattern (for the noise model)
+    binned : Binned, block means of the valid pixels
+    center_px : (2,) rough centre, pixels
+    valid : (rows, cols) bool, pixels to use (None: all)
+    smooth_blocks : float, Gaussian width of the residual smoothing, in blocks
+    """
+    img_b = binned.image
+    f = binned.factor
+    nr, nc = img_b.shape
+    cxb, cyb = binned.to_binned_px(center_px[0], center_px[1])
+    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
+    rb = np.hypot(xx - cxb, yy - cyb)
+    ok = np.isfinite(img_b) & (binned.valid_fraction >= 0.5)
+    rc, prof = radial_quantile_profile(img_b[ok], rb[ok], q=0.5, bin_width=1.0, min_count=3)
+    if len(rc) == 0:
+        rc, prof = np.array([0.0]), np.array([float(np.nanmedian(img_b))])
+    radial = np.interp(rb, rc, prof).astype(np.float32)
+    resid = img_b - radial
+    # Robust spread of the residual per ring, to tell spot blocks from haze blocks.
+    rr2, spread = radial_quantile_profile(np.abs(resid[ok]), rb[ok], q=0.5, bin_width=4.0, min_count=8)
+    if len(rr2):
+        ring_sigma = MAD_TO_SIGMA * np.interp(rb, rr2, spread)
+    else:
+        ring_sigma = np.full(rb.shape, robust_sigma(resid[ok]))
+    ring_sigma = np.maximum(ring_sigma, 1e-6)
+    calm = ok & (np.abs(resid) < 3.0 * ring_sigma)
+    w = calm.astype(np.float32)
+    num = ndi.gaussian_filter(np.where(calm, resid, 0.0).astype(np.float32), smooth_blocks, mode="nearest")
+    den = ndi.gaussian_filter(w, smooth_blocks, mode="nearest")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        smooth = np.where(den > 0.05, num / np.maximum(den, 1e-6), np.nan)
+    smooth = _fill_nan(smooth.astype(np.float32))
+    level = radial + smooth
+
+    gain, offset, floor = _noise_model(image, level, calm, f, valid)
+    return Background(level_binned=level.astype(np.float32), factor=f, full_shape=tuple(image.shape),
+                      radius_px=np.asarray(rc) * f, radial_level=np.asarray(prof, float), gain=gain, offset_var=offset,
+                      center_px=(float(center_px[0]), float(center_px[1])), var_floor=floor)
+
+
+def _noise_model(image, level_b, calm_b, f: int, valid) -> tuple[float, float, float]:
+    """Fit variance = gain * level + offset to the robust pixel scatter in bins of background level.
+
+    Returns (gain, offset, floor): floor is a quarter of the smallest binned variance, the least
+    variance any pixel is given (the dark level makes the offset negative for counting detectors).
+    """
+    nr, nc = level_b.shape
+    rows, cols = image.shape
+    # Two pixels per calm block (diagonal neighbours inside the block, or a stride grid when f = 1).
+    if f >= 2:
+        ii, jj = np.nonzero(calm_b)
+        r1, c1 = ii * f, jj * f
+        r2, c2 = np.minimum(r1 + 1, rows - 1), np.minimum(c1 + 1, cols - 1)
+        lv = level_b[ii, jj]
+        px = np.concatenate([image[r1, c1], image[r2, c2]])
+        lv = np.concatenate([lv, lv])
+        if valid is not None:
+            good = np.concatenate([valid[r1, c1], valid[r2, c2]])
+            px, lv = px[good], lv[good]
+    else:
+        sel = calm_b if valid is None else calm_b & valid
+        px, lv = image[sel], level_b[sel]
+    res = px.astype(np.float64) - lv
+    if res.size < 50:
+        s = robust_sigma(res) if res.size else 1.0
+        return 0.0, max(s * s, 1e-6), max(s * s, 1e-6)
+    nb = 16
+    edges = np.unique(np.quantile(lv, np.linspace(0, 1, nb + 1)))
+    if len(edges) < 3:
+        s = robust_sigma(res)
+        return 0.0, max(s * s, 1e-6), max(s * s, 1e-6)
+    which = np.clip(np.searchsorted(edges, lv, side="right") - 1, 0, len(edges) - 2)
+    xs, vs, ns = [], [], []
+    for b in range(len(edges) - 1):
+        sel = which == b
+        if sel.sum() < 20:
+            continue
+        s = robust_sigma(res[sel])
+        xs.append(float(np.median(lv[sel])))
+        vs.append(s * s)
+        ns.append(int(sel.sum()))
+    xs, vs, ns = np.array(xs), np.array(vs), np.array(ns, float)
+    if len(xs) < 2 or np.ptp(xs) <= 1e-6 * max(abs(xs).max(), 1.0):
+        v = float(max(np.median(vs), 1e-6)) if len(vs) else 1.0
+        return 0.0, v, v
+    # Weighted least squares: the variance of a sample variance ~ 2 v^2 / n.
+    wts = ns / np.maximum(vs, 1e-12) ** 2
+    a = np.stack([xs, np.ones_like(xs)], axis=1)
+    aw = a * wts[:, None]
+    gain, offset = np.linalg.lstsq(aw.T @ a, aw.T @ vs, rcond=None)[0]
+    if gain < 0:
+        gain, offset = 0.0, float(np.average(vs, weights=ns))
+    if gain * xs.min() + offset <= 0:
+        # keep the variance positive over the observed range
+        offset = max(offset, 0.25 * float(vs.min()) - gain * float(xs.min()))
+    logger.debug("noise model: variance = %.4g * level + %.4g", gain, offset)
+    return float(gain), float(offset), max(0.25 * float(vs.min()), 1e-6)

@@ -1,0 +1,121 @@
+"""A block-averaged copy of the image and robust radial statistics: the cheap view the slow-varying stages use.
+
+The haze, the noise level, the beam-stop shadow and the rough centre vary over tens of pixels, so
+they are found on the image averaged over f x f blocks (f chosen so the copy is about 512 pixels
+on its short side) and evaluated back at full resolution by bilinear interpolation. A binned pixel
+(i, j) covers full-resolution rows f i ... f i + f - 1, so its centre is at full-resolution
+coordinate f i + (f - 1) / 2.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Binned", "bin_image", "radial_quantile_profile", "upsample_bilinear"]
+
+
+@dataclass(frozen=True, eq=False)
+class Binned:
+    """Block means ``image`` (valid pixels only, NaN where a block has none) and the block's valid fraction."""
+
+    image: np.ndarray
+    valid_fraction: np.ndarray
+    factor: int
+    full_shape: tuple[int, int]
+
+    def to_full_px(self, xb, yb):
+        """Binned coordinates -> full-resolution (x, y) in pixels."""
+        f = self.factor
+        return np.asarray(xb) * f + (f - 1) / 2.0, np.asarray(yb) * f + (f - 1) / 2.0
+
+    def to_binned_px(self, x, y):
+        f = self.factor
+        return (np.asarray(x) - (f - 1) / 2.0) / f, (np.asarray(y) - (f - 1) / 2.0) / f
+
+
+def bin_factor(shape, *, target_px: int = 512) -> int:
+    return max(1, int(min(shape) // target_px))
+
+
+def bin_image(image: np.ndarray, valid: np.ndarray | None = None, *, factor: int | None = None) -> Binned:
+    """Mean over f x f blocks of the valid pixels (the ragged last row/column of blocks is averaged too)."""
+    rows, cols = image.shape
+    f = bin_factor(image.shape) if factor is None else int(factor)
+    nr, nc = -(-rows // f), -(-cols // f)
+    if f == 1:
+        img = image.astype(np.float32, copy=True)
+        vf = np.ones(image.shape, np.float32) if valid is None else valid.astype(np.float32)
+        if valid is not None:
+            img[~valid] = np.nan
+        return Binned(img, vf, 1, (rows, cols))
+    pr, pc = nr * f - rows, nc * f - cols
+    w = np.ones((rows, cols), np.float32) if valid is None else valid.astype(np.float32)
+    img = image * w if valid is not None else image
+    if pr or pc:
+        img = np.pad(img, ((0, pr), (0, pc)))
+        w = np.pad(w, ((0, pr), (0, pc)))
+    s = img.reshape(nr, f, nc, f).sum(axis=(1, 3), dtype=np.float64)
+    n = w.reshape(nr, f, nc, f).sum(axis=(1, 3), dtype=np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(n > 0, s / np.maximum(n, 1), np.nan).astype(np.float32)
+    # Each block's valid fraction relative to the pixels that exist in it (ragged edge blocks).
+    exist = np.ones((rows, cols), np.float32)
+    if pr or pc:
+        exist = np.pad(exist, ((0, pr), (0, pc)))
+    e = exist.reshape(nr, f, nc, f).sum(axis=(1, 3))
+    return Binned(mean, (n / e).astype(np.float32), f, (rows, cols))
+
+
+def radial_quantile_profile(values: np.ndarray, radius: np.ndarray, *, q: float = 0.5, bin_width: float = 1.0,
+                            min_count: int = 5) -> tuple[np.ndarray, np.ndarray]:
+    """The `q` quantile of `values` in radius bins of `bin_width`; returns (bin centres, quantiles), NaN-free.
+
+    Bins with fewer than `min_count` values are dropped. One sort of (bin, value) keys, so it costs
+    O(n log n) for n values.
+    """
+    v = np.asarray(values, np.float64).ravel()
+    r = np.asarray(radius, np.float64).ravel()
+    ok = np.isfinite(v) & np.isfinite(r)
+    v, r = v[ok], r[ok]
+    if v.size == 0:
+        return np.zeros(0), np.zeros(0)
+    b = np.floor(r / bin_width).astype(np.int64)
+    lo, hi = float(v.min()), float(v.max())
+    span = hi - lo if hi > lo else 1.0
+    key = b + 0.999 * (v - lo) / span
+    order = np.argsort(key, kind="stable")
+    vs = v[order]
+    counts = np.bincount(b)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    good = counts >= min_count
+    pick = starts[good] + np.minimum((q * counts[good]).astype(np.int64), counts[good] - 1)
+    centres = (np.flatnonzero(good) + 0.5) * bin_width
+    return centres, vs[pick]
+
+
+def upsample_bilinear(small: np.ndarray, factor: int, full_shape: tuple[int, int]) -> np.ndarray:
+    """Bilinear interpolation of a binned map back to full resolution (float32), edges held constant.
+
+    Separable: interpolate along rows, then along columns, so it costs a few passes over the output.
+    """
+    rows, cols = full_shape
+    f = factor
+    if f == 1:
+        return np.ascontiguousarray(small[:rows, :cols], dtype=np.float32)
+    nr, nc = small.shape
+
+    def _weights(n_full, n_small):
+        pos = (np.arange(n_full, dtype=np.float64) - (f - 1) / 2.0) / f
+        pos = np.clip(pos, 0.0, n_small - 1.0)
+        i0 = np.minimum(np.floor(pos).astype(np.int64), max(n_small - 2, 0))
+        t = (pos - i0).astype(np.float32)
+        i1 = np.minimum(i0 + 1, n_small - 1)
+        return i0, i1, t
+
+    r0, r1, tr = _weights(rows, nr)
+    c0, c1, tc = _weights(cols, nc)
+    s = small.astype(np.float32)
+    tmp = s[:, c0] * (1 - tc)[None, :] + s[:, c1] * tc[None, :]
+    return tmp[r0, :] * (1 - tr)[:, None] + tmp[r1, :] * tr[:, None]

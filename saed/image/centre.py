@@ -1,0 +1,148 @@
+"""The pattern centre: a rough one from point symmetry, then Friedel pairs refined by least squares.
+
+Rough centre
+------------
+A diffraction pattern is point-symmetric about its centre (Friedel's law for the spot positions; the
+haze is radially symmetric), so the self-convolution ``(I * I)(s) = sum_x I(x) I(s - x)`` of the image
+peaks at ``s = 2 c``. It is computed with FFTs on the block-averaged image, on the logarithm of the
+counts above the median (the haze and the direct beam dominate, the dark beam-stop shadow counts for
+nothing), zero-padded to avoid wrap-around; the peak is located to a fraction of a block with a
+parabola through its neighbours. It does not need the direct beam, so it works behind a beam stop.
+
+Friedel pairs
+-------------
+Spots g and -g sit symmetrically about the centre: ``p_i + p_j = 2 c``. Every spot's mirror
+``2 c - p_i`` is matched to the nearest spot (mutual matches only, of intensities within a factor
+`max_ratio`); the centre is the weighted mean of the pair midpoints, iterated with a shrinking
+tolerance, and its uncertainty is the weighted scatter of the midpoints over sqrt(pairs).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from saed.image.binning import Binned
+
+__all__ = ["symmetric_center", "FriedelCentre", "friedel_center"]
+
+logger = logging.getLogger(__name__)
+
+
+def _parabolic_peak(c: np.ndarray, i: int, j: int) -> tuple[float, float]:
+    """Sub-pixel peak of array `c` at (row i, col j) from a parabola through the neighbours on each axis."""
+    rows, cols = c.shape
+
+    def one(vm, v0, vp):
+        den = vm - 2.0 * v0 + vp
+        return 0.0 if den >= 0 else float(np.clip(0.5 * (vm - vp) / den, -0.5, 0.5))
+
+    di = one(c[i - 1, j], c[i, j], c[i + 1, j]) if 0 < i < rows - 1 else 0.0
+    dj = one(c[i, j - 1], c[i, j], c[i, j + 1]) if 0 < j < cols - 1 else 0.0
+    return i + di, j + dj
+
+
+def symmetric_center(binned: Binned) -> tuple[float, float]:
+    """Rough centre (x, y) in full-resolution pixels from the point symmetry of the block image."""
+    img = binned.image
+    ok = np.isfinite(img)
+    if not ok.any():
+        rows, cols = binned.full_shape
+        return (cols - 1) / 2.0, (rows - 1) / 2.0
+    med = float(np.median(img[ok]))
+    lo = float(np.percentile(img[ok], 1.0))
+    span = max(med - lo, 1e-6)
+    a = np.where(ok, np.log1p(np.clip(img - med, 0.0, None) / span), 0.0).astype(np.float64)
+    nr, nc = a.shape
+    shape = (2 * nr, 2 * nc)
+    fa = np.fft.rfft2(a, s=shape)
+    conv = np.fft.irfft2(fa * fa, s=shape)
+    # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
+    search = conv[: 2 * nr - 1, : 2 * nc - 1]
+    i, j = np.unravel_index(int(np.argmax(search)), search.shape)
+    si, sj = _parabolic_peak(conv, i, j)
+    x, y = binned.to_full_px(sj / 2.0, si / 2.0)
+    return float(x), float(y)
+
+
+@dataclass(frozen=True)
+class FriedelCentre:
+    """Centre from Friedel pairs: (x, y) px, its 1-sigma uncertainty, and the pairs (i, j) used."""
+
+    center_px: tuple[float, float]
+    sigma_px: float
+    pairs: np.ndarray
+
+    @property
+    def n_pairs(self) -> int:
+        return len(self.pairs)
+
+
+def _pairs(xy: np.ndarray, c: np.ndarray, tol: float, intensity: np.ndarray | None, max_ratio: float,
+           min_radius: float) -> np.ndarray:
+    tree = cKDTree(xy)
+    mirror = 2.0 * c[None, :] - xy
+    d, j = tree.query(mirror, k=1, distance_upper_bound=tol)
+    i = np.arange(len(xy))
+    hit = np.isfinite(d) & (j < len(xy)) & (j != i)
+    jj = np.where(hit, j, -1)
+    mutual = hit & (jj[np.clip(jj, 0, None)] == i) & (i < jj)
+    r = np.hypot(*(xy - c[None, :]).T)
+    mutual &= r > min_radius
+    if intensity is not None:
+        ii = np.flatnonzero(mutual)
+        a, b = intensity[ii], intensity[jj[ii]]
+        good = (a > 0) & (b > 0) & (np.maximum(a, b) <= max_ratio * np.minimum(a, b))
+        mutual[ii[~good]] = False
+    ii = np.flatnonzero(mutual)
+    return np.stack([ii, jj[ii]], axis=1) if len(ii) else np.zeros((0, 2), int)
+
+
+def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: float = 6.0,
+                   max_ratio: float = 6.0, min_radius_px: float = 3.0) -> FriedelCentre | None:
+    """Refine the centre from Friedel pairs of spots; None when fewer than two pairs are found.
+
+    Parameters
+    ----------
+    xy_px : (n, 2) spot positions, pixels
+    start_px : (2,) starting centre; must be within about `tol_px` / 2 of the truth
+    sigma_px : (n,) position uncertainties (weights); default equal
+    intensity : (n,) spot intensities; pairs differing by more than `max_ratio` are refused (mistilt
+        can make Friedel mates differ, so the limit is loose); None: not used
+    tol_px : first matching tolerance for |p_i + p_j - 2 c|, pixels; halved twice
+    min_radius_px : spots this close to the centre (the direct beam) are not paired
+    """
+    xy = np.asarray(xy_px, np.float64).reshape(-1, 2)
+    if len(xy) < 4:
+        return None
+    sig = np.full(len(xy), 0.3) if sigma_px is None else np.maximum(np.asarray(sigma_px, float), 0.02)
+    inten = None if intensity is None else np.asarray(intensity, float)
+    c = np.asarray(start_px, np.float64).copy()
+    pairs = np.zeros((0, 2), int)
+    sigma = float("nan")
+    for tol in (tol_px, tol_px / 2.0, max(tol_px / 4.0, 1.0), max(tol_px / 4.0, 1.0)):
+        pr = _pairs(xy, c, tol, inten, max_ratio, min_radius_px)
+        if len(pr) < 2:
+            if len(pairs) >= 2:
+                break
+            return None
+        mid = 0.5 * (xy[pr[:, 0]] + xy[pr[:, 1]])
+        w = 1.0 / (sig[pr[:, 0]] ** 2 + sig[pr[:, 1]] ** 2)
+        # One robust pass: drop midpoints far from the weighted median.
+        med = np.median(mid, axis=0)
+        dev = np.hypot(*(mid - med).T)
+        keep = dev <= max(3.0 * 1.4826 * float(np.median(dev)), 0.5)
+        if keep.sum() >= 2:
+            pr, mid, w = pr[keep], mid[keep], w[keep]
+        c = (w[:, None] * mid).sum(axis=0) / w.sum()
+        pairs = pr
+        # Uncertainty: each midpoint has variance (s_i^2 + s_j^2)/4 per axis, or the observed scatter if larger.
+        scatter = float(np.sqrt(np.sum(w * np.sum((mid - c) ** 2, axis=1)) / (2.0 * w.sum()) * len(mid) / max(len(mid) - 1, 1)))
+        formal = float(np.sqrt(1.0 / (4.0 * w.sum())) * 1.0)
+        sigma = max(scatter / math.sqrt(len(mid)), formal)
+    logger.debug("Friedel centre (%.2f, %.2f) +- %.2f px from %d pairs", c[0], c[1], sigma, len(pairs))
+    return FriedelCentre(center_px=(float(c[0]), float(c[1])), sigma_px=sigma, pairs=pairs)

@@ -1,0 +1,253 @@
+"""From a recorded pattern to a :class:`~saed.image.values.MeasuredPattern`: the image stage in one call.
+
+Order of work (each step in its own module):
+
+1. checks and masks (:mod:`saed.image.masks`): detector border, saturated pixels, a mask image;
+2. block-averaged copy (:mod:`saed.image.binning`) and a rough centre from point symmetry
+   (:func:`saed.image.centre.symmetric_center`), or from the saturated direct beam, or the hint
+   in the calibration;
+3. the beam-stop shadow (:func:`saed.image.masks.find_beam_stop`), masked;
+4. background and noise model (:mod:`saed.image.background`);
+5. spot width, detection and sub-pixel fits (:mod:`saed.image.spots`, :mod:`saed.image.spotfit`);
+6. the direct beam: the bright spot at the rough centre, used as the centre when it is not saturated;
+7. Friedel pairs refine the centre (:func:`saed.image.centre.friedel_center`);
+8. the 2-D lattice, refined together with the centre over all spots (:mod:`saed.image.lattice2d`).
+
+Nothing here rescales intensities; every threshold is a signal-to-noise ratio.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+
+import numpy as np
+from scipy import ndimage as ndi
+
+from saed.calibration import Calibration
+from saed.errors import ImageError, InputError
+from saed.image.background import estimate_background
+from saed.image.binning import bin_image
+from saed.image.centre import friedel_center, symmetric_center
+from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
+from saed.image.lattice2d import find_basis, refine_lattice
+from saed.image.masks import border_mask, find_beam_stop, saturation_mask
+from saed.image.spots import estimate_spot_sigma, find_spots
+from saed.image.values import LatticeBasis, MeasuredPattern, Spots
+
+__all__ = ["measure_pattern", "measure_file", "DEFAULT_SNR_MIN", "DEFAULT_DETECT_SNR"]
+
+logger = logging.getLogger(__name__)
+
+#: Smallest peak signal-to-noise ratio of a reported spot.
+DEFAULT_SNR_MIN = 3.0
+#: Detection threshold, in noise sigmas of the matched-filtered image.
+DEFAULT_DETECT_SNR = 5.0
+#: Above this fraction of saturated pixels the exposure is unusable.
+MAX_SATURATED_FRACTION = 0.5
+
+
+def _direct_beam_region(sat_mask: np.ndarray, near_px, max_dist_px: float):
+    """Centroid (x, y) and area of the largest saturated region within `max_dist_px` of `near_px`, or None."""
+    if not sat_mask.any():
+        return None
+    lab, n = ndi.label(sat_mask)
+    if n == 0:
+        return None
+    idx = np.arange(1, n + 1)
+    area = ndi.sum_labels(np.ones(sat_mask.shape, np.float32), lab, idx)
+    cy_cx = np.array(ndi.center_of_mass(sat_mask, lab, idx)).reshape(-1, 2)
+    d = np.hypot(cy_cx[:, 1] - near_px[0], cy_cx[:, 0] - near_px[1])
+    ok = d <= max_dist_px
+    if not ok.any():
+        return None
+    k = int(np.argmax(np.where(ok, area, -1)))
+    return (float(cy_cx[k, 1]), float(cy_cx[k, 0])), float(area[k])
+
+
+def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, source: str = "",
+                    spot_sigma_px: float | None = None, snr_min: float = DEFAULT_SNR_MIN,
+                    detect_snr: float = DEFAULT_DETECT_SNR, find_stop: bool = True,
+                    saturation_level: float | None = None) -> MeasuredPattern:
+    """Measure the centre, the spots and the 2-D lattice of one recorded pattern.
+
+    Parameters
+    ----------
+    image : (rows, cols) array
+        The pattern as recorded (counts; not rescaled). x = column, y = row.
+    calibration : Calibration
+        Detector scale (may be uncalibrated), voltage, an optional centre hint (``center_px``) and
+        an optional elliptical distortion (applied by the MeasuredPattern's corrected views).
+    mask : (rows, cols) bool, optional
+        True where pixels are to be ignored (e.g. from ``--mask``); combined with the masks found.
+    source : str
+        The file name, carried into the result.
+    spot_sigma_px : float, optional
+        Gaussian-equivalent spot width; default measured from the strongest spots.
+    snr_min, detect_snr : float
+        Peak signal-to-noise ratio a spot must reach, and the detection threshold of the matched
+        filter (both in noise sigmas).
+    find_stop : bool
+        Look for a beam-stop shadow and mask it.
+    saturation_level : float, optional
+        The clipping level in counts; default: found from a flat top at the image maximum.
+
+    Returns
+    -------
+    MeasuredPattern
+        With an empty ``spots`` and a reason in ``notes`` when no spot is found (not an error).
+
+    Raises
+    ------
+    ImageError
+        A NaN, constant, too small or mostly saturated image, or a mask of the wrong shape.
+    """
+    name = source or "image"
+    img = check_image(image, name=name)
+    rows, cols = img.shape
+    notes: list[str] = []
+    user_mask = None
+    if mask is not None:
+        user_mask = np.asarray(mask, bool)
+        if user_mask.shape != img.shape:
+            raise ImageError(f"{name}: the mask is {user_mask.shape[0]}x{user_mask.shape[1]} pixels but the pattern is "
+                             f"{rows}x{cols}")
+    masked = border_mask(img)
+    if user_mask is not None:
+        masked |= user_mask
+    sat_mask, sat_level = saturation_mask(img, level=saturation_level)
+    sat_frac = float(sat_mask.mean())
+    if sat_frac > MAX_SATURATED_FRACTION:
+        raise ImageError(f"{name}: {100 * sat_frac:.0f}% of the pixels are saturated at {sat_level:g}; "
+                         "record a shorter exposure")
+    if masked.all():
+        raise ImageError(f"{name}: every pixel is masked")
+    fit_valid = ~masked & ~sat_mask
+    binned = bin_image(img, fit_valid)
+
+    # Rough centre: the hint, or the saturated direct beam, or point symmetry.
+    c_sym = symmetric_center(binned)
+    db_region = _direct_beam_region(sat_mask & ~masked, c_sym, 0.15 * min(rows, cols))
+    if calibration.center_px is not None:
+        c0 = tuple(calibration.center_px)
+        how = "the given centre"
+    elif db_region is not None:
+        c0 = db_region[0]
+        how = "the saturated direct beam"
+    else:
+        c0 = c_sym
+        how = "point symmetry"
+    logger.debug("rough centre (%.1f, %.1f) from %s", c0[0], c0[1], how)
+    if not (-0.25 * cols <= c0[0] <= 1.25 * cols and -0.25 * rows <= c0[1] <= 1.25 * rows):
+        raise InputError(f"{name}: the centre ({c0[0]:.0f}, {c0[1]:.0f}) is far outside the image")
+
+    stop = find_beam_stop(binned, c0) if find_stop else None
+    if stop is not None:
+        masked |= stop.mask
+        fit_valid &= ~stop.mask
+        binned = bin_image(img, fit_valid)
+        notes.append(f"beam stop masked (towards {stop.angle_deg:.0f} deg, {stop.width_px:.0f} px wide)")
+    if sat_mask.any():
+        notes.append(f"{int(sat_mask.sum())} saturated pixels (at {sat_level:g}) ignored in the fits")
+
+    bg = estimate_background(img, binned, c0, valid=fit_valid)
+    sigma = spot_sigma_px if spot_sigma_px is not None else estimate_spot_sigma(img, fit_valid, bg, binned, c0)
+    if sigma is None:
+        sigma = 1.5
+    sigma = float(np.clip(sigma, 0.7, 12.0))
+    bg_full = bg.full()
+    search = find_spots(img, fit_valid, bg, sigma_px=sigma, snr_min=snr_min, detect_snr=detect_snr,
+                        saturated_mask=sat_mask & ~masked, bg_full=bg_full)
+    fits = search.fits
+    xy = np.stack([fits.x_px, fits.y_px], axis=1) if len(fits) else np.zeros((0, 2))
+    if search.n_hot:
+        notes.append(f"{search.n_hot} single-pixel peaks (hot pixels, X-ray hits) ignored")
+
+    # The direct beam: brightest spot close to the rough centre.
+    db_index = None
+    if len(fits):
+        d = np.hypot(xy[:, 0] - c0[0], xy[:, 1] - c0[1])
+        near_r = max(8.0, 3.0 * sigma, 0.01 * min(rows, cols)) if db_region is None else max(8.0, math.sqrt(db_region[1]))
+        near = np.flatnonzero(d <= near_r)
+        if len(near):
+            k = int(near[np.argmax(fits.intensity[near])])
+            others = np.delete(fits.intensity, k)
+            if search.saturated[k] or len(others) == 0 or fits.intensity[k] >= 0.5 * float(np.max(others)):
+                db_index = k
+    db_xy = None if db_index is None else xy[db_index]
+    db_saturated = bool(db_index is not None and search.saturated[db_index])
+    keep = np.ones(len(fits), bool)
+    if db_index is not None:
+        keep[db_index] = False
+
+    spots = Spots(fits.x_px[keep], fits.y_px[keep], fits.intensity[keep], fits.intensity_sigma[keep],
+                  fits.sigma_xy_px[keep], search.snr[keep], np.sqrt(2.0) * fits.width_px[keep], search.saturated[keep])
+    if len(spots) == 0:
+        reason = "no spots above the noise" + (f" (peak signal-to-noise >= {snr_min:g})" if search.n_candidates else "")
+        notes.append(reason)
+        return MeasuredPattern(image_shape=(rows, cols), center_px=(float(c0[0]), float(c0[1])), spots=spots,
+                               basis=None, calibration=calibration, center_sigma_px=float("nan"), source=source,
+                               notes=tuple(notes))
+
+    # Centre: unsaturated direct beam, else Friedel pairs; then the lattice fit over all spots.
+    sxy = spots.xy_px
+    start = db_xy if db_xy is not None else np.asarray(c0, float)
+    center = np.asarray(start, float)
+    center_sigma = float("nan")
+    center_how = how
+    center_obs, center_obs_sigma = None, 1.0
+    if db_xy is not None and not db_saturated:
+        center, center_sigma = db_xy.copy(), float(max(fits.sigma_xy_px[db_index], 0.02))
+        center_obs, center_obs_sigma = center.copy(), center_sigma
+        center_how = "the direct beam"
+    strong = spots.snr >= max(5.0, snr_min)
+    fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
+                        tol_px=4.0 if db_xy is not None else 8.0, min_radius_px=2.0 * sigma + 2.0)
+    if fr is not None and center_obs is None:
+        center, center_sigma = np.asarray(fr.center_px), fr.sigma_px
+        center_how = f"{fr.n_pairs} Friedel pairs"
+
+    basis = None
+    order = np.argsort(-spots.snr)
+    tol = float(max(1.5, 3.0 * np.median(spots.sigma_xy_px), 0.6 * sigma))
+    found = find_basis(sxy[order] - center, tol_px=tol + (0.0 if center_how != how else 2.0))
+    if found is not None:
+        g1, g2, _ = found
+        fit = refine_lattice(sxy, spots.sigma_xy_px, center, g1, g2, tol_px=max(tol, 0.02 * float(np.hypot(*g1))),
+                             center_obs=center_obs, center_sigma_px=center_obs_sigma)
+        if fit is not None:
+            sc, s1, s2, sa = fit.sigmas()
+            basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
+                                 sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
+            center, center_sigma = fit.center_px, sc
+            center_how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
+                " and the direct beam" if center_obs is not None else "")
+            off = int((~fit.on_lattice).sum())
+            if off:
+                notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
+    if basis is None:
+        notes.append("no 2-D lattice found (needs three or more spots not all on one line)")
+    notes.insert(0, f"centre from {center_how}")
+    if db_index is None and stop is None and not sat_mask.any():
+        notes.append("no direct beam seen at the centre")
+    return MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
+                           basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
+                           notes=tuple(notes))
+
+
+def measure_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
+                 **options) -> MeasuredPattern:
+    """Read `path` (frame `frame`) and measure it; the calibration falls back to the TIFF's reciprocal-scale tags.
+
+    `mask_path`: an image of the same size whose non-zero pixels are ignored. Other keyword options
+    go to :func:`measure_pattern`.
+    """
+    img = read_image(path, frame=frame)
+    cal = calibration if calibration is not None else Calibration()
+    if not cal.is_calibrated:
+        scale = read_image_calibration(path)
+        if scale is not None:
+            cal = Calibration(scale, cal.voltage_kv, cal.center_px, cal.ellipse, cal.camera_length_mm,
+                              cal.pixel_pitch_um, cal.standard, cal.date, source=f"{path} (TIFF resolution tags)")
+    mask = read_mask_image(mask_path, shape=img.shape) if mask_path is not None else None
+    return measure_pattern(img, cal, mask=mask, source=str(path), **options)
