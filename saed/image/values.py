@@ -115,3 +115,29 @@ class MeasuredPattern:
     def spot_vectors_px(self) -> np.ndarray:
         """(n, 2) spot positions relative to the centre, pixels (ellipse correction not applied)."""
         return self.spots.xy_px - np.asarray(self.center_px)[None, :]
+
+    def _undistort(self, v: np.ndarray) -> np.ndarray:
+        v = np.asarray(v, dtype=np.float64).reshape(-1, 2)
+        ell = self.calibration.ellipse
+        if ell is None:
+            return v.copy()
+        x, y = ell.corrected_px(v[:, 0], v[:, 1])
+        return np.stack([x, y], axis=-1)
+
+    def corrected_spot_vectors_px(self) -> np.ndarray:
+        """(n, 2) spot vectors from the centre with the calibration's ellipse undone (pixels).
+
+        Equal to :meth:`spot_vectors_px` when the calibration has no ellipse.
+        """
+        return self._undistort(self.spot_vectors_px())
+
+    def corrected_basis_px(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """(g1, g2) with the calibration's ellipse undone (pixels), or None without a basis.
+
+        The ellipse is linear about the centre, so the corrected spots still lie on the lattice
+        spanned by these two vectors with the same integer indices.
+        """
+        if self.basis is None:
+            return None
+        g = self._undistort(np.stack([self.basis.g1_px, self.basis.g2_px]))
+        return g[0], g[1]
