@@ -302,7 +302,9 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
     try:
         doc = gemmi.cif.read_string(text)
     except (RuntimeError, ValueError, UnicodeError) as exc:
-        raise PhaseError(f"{path}: not a readable CIF ({_one_line(exc)})") from None
+        # gemmi names the parsed text 'string:LINE:COL(OFFSET)'; say 'line LINE' instead
+        where = re.sub(r"^string:(\d+):\S*\s*", r"line \1: ", _one_line(exc))
+        raise PhaseError(f"{path}: not a readable CIF ({where})") from None
     blocks = [b for b in doc if b.find_value("_cell_length_a") is not None] or list(doc)
     if not blocks:
         raise PhaseError(f"{path}: the CIF has no data block")
