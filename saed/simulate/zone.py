@@ -52,7 +52,7 @@ from saed.physics import check_voltage_kv, electron_wavelength_nm
 from saed.simulate.geometry import check_zone_axis, orientation_matrix, unit
 
 __all__ = ["ZonePattern", "zone_pattern", "zone_axis_3", "plane_3", "centring_translations",
-           "layer_multiplicity", "folz_ring_radius_inv_nm", "tilted_beam"]
+           "layer_multiplicity", "folz_ring_radius_inv_nm", "tilted_beam", "rotate_xy"]
 
 logger = logging.getLogger(__name__)
 
@@ -113,6 +113,13 @@ def _check_integers(a: np.ndarray, what: str) -> None:
 
 def _fmt(a) -> str:
     return " ".join(f"{v:g}" for v in np.asarray(a, float).ravel())
+
+
+def rotate_xy(xy, in_plane_rotation_deg: float) -> np.ndarray:
+    """Detector-plane points (..., 2) turned by `in_plane_rotation_deg` from +x toward +y."""
+    p = math.radians(float(in_plane_rotation_deg))
+    c, s = math.cos(p), math.sin(p)
+    return np.asarray(xy, float) @ np.array([[c, s], [-s, c]])
 
 
 # ---------------------------------------------------------------------- lattice-centring facts
@@ -301,9 +308,7 @@ class ZonePattern:
 
     def xy_rotated_inv_nm(self, in_plane_rotation_deg: float) -> np.ndarray:
         """(N, 2) positions after turning the pattern by `in_plane_rotation_deg` (from +x toward +y)."""
-        p = math.radians(float(in_plane_rotation_deg))
-        c, s = math.cos(p), math.sin(p)
-        return self.xy_inv_nm @ np.array([[c, s], [-s, c]])
+        return rotate_xy(self.xy_inv_nm, in_plane_rotation_deg)
 
     def laue_circle_xy_inv_nm(self, n: int = 361) -> np.ndarray:
         """(n, 2) detector-plane points of the circle where the Ewald sphere cuts the ZOLZ plane.

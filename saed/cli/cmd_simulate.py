@@ -1,0 +1,222 @@
+"""``saed simulate``: the kinematic pattern of one zone axis, as a table, JSON, a detector image and a diagram."""
+
+from __future__ import annotations
+
+import math
+import re
+
+import numpy as np
+
+from saed.cli.common import add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.errors import InputError
+
+NAME = "simulate"
+HELP = "simulate the kinematic diffraction pattern of a zone axis (table, JSON, detector image, labelled diagram)"
+DESCRIPTION = (
+    "Kinematic zone-axis pattern of a phase: zero-order Laue-zone reflections and higher-order ones near the "
+    "Ewald sphere, exact excitation errors, |F|^2 times the sinc^2 shape factor of the foil, forbidden "
+    "reflections that double diffraction can excite. Hexagonal phases take 3- or 4-index zones "
+    "(--zone 2 -1 -1 0, or written together: --zone 2-1-10)."
+)
+ORDER = 20
+
+#: Rows printed in the terminal table before pointing at --json.
+TABLE_ROWS = 40
+
+
+def parse_indices(tokens, what: str) -> list[float]:
+    """Indices from the command line: separate numbers ('0 1 -1') or one compact token ('01-1', '2-1-10')."""
+    if tokens is None:
+        return None
+    toks = [str(t) for t in tokens]
+    if len(toks) == 1 and re.fullmatch(r"(-?\d)+", toks[0]) and len(re.findall(r"-?\d", toks[0])) in (3, 4):
+        return [float(v) for v in re.findall(r"-?\d", toks[0])]
+    vals = []
+    for t in toks:
+        try:
+            vals.append(float(t))
+        except ValueError:
+            raise InputError(f"{what}: {t!r} is not an index (give e.g. 0 1 1, or 2 -1 -1 0 for hexagonal phases)") from None
+    if len(vals) not in (3, 4):
+        raise InputError(f"{what} needs 3 indices (or 4 for hexagonal phases), got {len(vals)}: {' '.join(toks)}")
+    return vals
+
+
+def add_arguments(p):
+    p.add_argument("phase", metavar="PHASE", help="built-in phase name (see 'saed phases') or CIF path")
+    p.add_argument("--zone", nargs="+", required=True, metavar="U",
+                   help="zone axis [uvw] (3 indices, or 4 [UVTW] for hexagonal phases)")
+    p.add_argument("--max-g", type=positive_float, default=10.0, metavar="INV_NM",
+                   help="largest reciprocal length listed, 1/nm (default 10)")
+    p.add_argument("--thickness", type=positive_float, default=50.0, metavar="NM",
+                   help="foil thickness for the sinc^2 shape factor, nm (default 50)")
+    p.add_argument("--tilt", type=float, default=0.0, metavar="DEG",
+                   help="tilt the beam off the zone axis by DEG degrees (needs --tilt-toward)")
+    p.add_argument("--tilt-toward", nargs="+", metavar="H",
+                   help="reflection hkl (or hkil) toward which the Laue-circle centre moves under --tilt")
+    p.add_argument("--zolz-only", action="store_true", help="leave out higher-order Laue-zone reflections")
+    p.add_argument("--rotation", type=float, default=0.0, metavar="DEG",
+                   help="in-plane rotation of the pattern on the detector, from +x toward +y (default 0)")
+    p.add_argument("--json", metavar="PATH", help="write the pattern as JSON ('-' for stdout)")
+    img = p.add_argument_group("pictures")
+    img.add_argument("--image", metavar="PATH", help="detector-like image: .png (8-bit log display) or .tif (16-bit counts)")
+    img.add_argument("--diagram", metavar="PATH", help="labelled diagram: .png, .pdf or .svg")
+    img.add_argument("--image-size", type=int, default=1024, metavar="PX", help="image width and height, pixels (default 1024)")
+    img.add_argument("--spot-size", type=positive_float, default=2.0, metavar="PX",
+                     help="spot width (Gaussian sigma) in the image, pixels (default 2)")
+    img.add_argument("--show-double-diffraction", type=float, default=0.0, metavar="F",
+                     help="draw double-diffraction spots in the image at F x sqrt(I1 I2) of their route (0-1, default 0)")
+    img.add_argument("--noise", action="store_true", help="add Poisson counting noise to the image")
+    img.add_argument("--seed", type=int, default=None, help="seed for --noise")
+    add_calibration_options(p, center=True)
+
+
+def build_pattern(args):
+    """The ZonePattern asked for by `args` (shared with the atlas and tilt commands' checks)."""
+    from saed.crystal.phase import load_phase
+    from saed.simulate.zone import zone_pattern
+
+    phase = load_phase(args.phase)
+    zone = parse_indices(args.zone, "--zone")
+    toward = parse_indices(args.tilt_toward, "--tilt-toward")
+    if toward is None and args.tilt:
+        raise InputError(f"--tilt {args.tilt:g} needs --tilt-toward H K L (the side of the pattern to excite)")
+    if toward is not None and not args.tilt:
+        raise InputError("--tilt-toward needs --tilt DEG (the beam tilt in degrees)")
+    voltage = args.voltage if args.voltage is not None else 200.0
+    return phase, zone_pattern(phase, zone, voltage_kv=voltage, max_g_inv_nm=args.max_g, tilt_deg=args.tilt,
+                               tilt_toward_hkl=toward, thickness_nm=args.thickness, include_holz=not args.zolz_only)
+
+
+def pattern_json(zp, *, in_plane_rotation_deg: float = 0.0) -> dict:
+    """The contract's simulate JSON for `zp`, with the additions documented in docs/simulation.md."""
+    from saed.crystal.miller import plane_to_4
+    from saed.simulate.families import pattern_summary
+    from saed.simulate.geometry import in_plane_rotation
+    from saed.simulate.zone import rotate_xy
+
+    hexa = zp.is_hexagonal
+    xy = zp.xy_rotated_inv_nm(in_plane_rotation_deg)
+    hkil = zp.hkil
+    refl = []
+    for i in range(len(zp)):
+        r = zp.dd_route[i]
+        route = None if r[0] < 0 else [zp.hkl[r[0]].tolist(), zp.hkl[r[1]].tolist()]
+        refl.append({
+            "hkl": zp.hkl[i].tolist(),
+            "hkil": hkil[i].tolist() if hexa else None,
+            "g_inv_nm": round(float(zp.g_inv_nm[i]), 6),
+            "d_nm": round(float(zp.d_nm[i]), 6),
+            "x_inv_nm": round(float(xy[i, 0]), 6),
+            "y_inv_nm": round(float(xy[i, 1]), 6),
+            "intensity": float(f"{float(zp.intensity[i]):.6g}"),
+            "kinematically_forbidden": bool(zp.kinematically_forbidden[i]),
+            "double_diffraction": bool(zp.double_diffraction[i]),
+            "double_diffraction_route": route,
+            "laue_zone": int(zp.laue_zone[i]),
+            "excitation_error_inv_nm": float(f"{float(zp.excitation_error_inv_nm[i]):.6g}"),
+            "structure_factor_abs_nm": float(f"{float(zp.f_abs[i]):.6g}"),
+        })
+    try:
+        s = pattern_summary(zp)
+        summary = {"g1_hkl": list(s.g1_hkl), "g2_hkl": list(s.g2_hkl),
+                   "g1_hkil": plane_to_4(s.g1_hkl).tolist() if hexa else None,
+                   "g2_hkil": plane_to_4(s.g2_hkl).tolist() if hexa else None,
+                   "d1_nm": round(s.d1_nm, 6), "d2_nm": round(s.d2_nm, 6),
+                   "ratio": round(s.ratio, 5), "angle_deg": round(s.angle_deg, 3)}
+    except InputError:
+        summary = None
+    u = in_plane_rotation(in_plane_rotation_deg) @ zp.orientation_matrix
+    centre = rotate_xy(zp.laue_circle_center_xy_inv_nm, in_plane_rotation_deg)
+    return {
+        "phase": zp.phase.name,
+        "zone_axis": zp.zone_axis.tolist(),
+        "zone_axis_4": zp.zone_axis_4.tolist() if hexa else None,
+        "voltage_kv": zp.voltage_kv,
+        "wavelength_nm": round(zp.wavelength_nm, 9),
+        "max_g_inv_nm": zp.max_g_inv_nm,
+        "thickness_nm": zp.thickness_nm,
+        "tilt_deg": zp.tilt_deg,
+        "tilt_toward_hkl": None if zp.tilt_toward_hkl is None else zp.tilt_toward_hkl.tolist(),
+        "in_plane_rotation_deg": in_plane_rotation_deg,
+        "beam_direction_cart": [round(float(v), 9) for v in zp.beam_direction_cart],
+        "orientation_matrix": [[round(float(v), 9) for v in row] for row in u],
+        "layer_spacing_inv_nm": round(zp.layer_spacing_inv_nm, 6),
+        "folz_ring_radius_inv_nm": round(zp.folz_ring_radius_inv_nm, 4),
+        "laue_circle": {"center_x_inv_nm": round(float(centre[0]), 6), "center_y_inv_nm": round(float(centre[1]), 6),
+                        "radius_inv_nm": round(zp.laue_circle_radius_inv_nm, 6)},
+        "pattern": summary,
+        "reflections": refl,
+    }
+
+
+def _print_table(zp, doc: dict) -> None:
+    from saed.simulate.families import reflection_label, zone_label
+
+    ph = zp.phase
+    print(f"{ph.name} {zone_label(ph, zp.zone_axis)}  {zp.voltage_kv:g} kV (lambda {zp.wavelength_nm * 1e3:.4f} pm)"
+          f"  thickness {zp.thickness_nm:g} nm" + (f"  beam tilted {zp.tilt_deg:g} deg" if zp.tilted else ""))
+    s = doc["pattern"]
+    if s:
+        g1 = reflection_label(ph, s["g1_hkl"])
+        g2 = reflection_label(ph, s["g2_hkl"])
+        print(f"g1 {g1} d {s['d1_nm']:.4f} nm, g2 {g2} d {s['d2_nm']:.4f} nm, R2/R1 {s['ratio']:.4f}, "
+              f"angle {s['angle_deg']:.2f} deg")
+    print(f"FOLZ ring radius {zp.folz_ring_radius_inv_nm:.2f} 1/nm (layer spacing {zp.layer_spacing_inv_nm:.4f} 1/nm)")
+    rows = [i for i in range(len(zp)) if zp.zolz[i] and (zp.allowed[i] or zp.double_diffraction[i])]
+    print(f"{'hkl':>10} {'d nm':>8} {'g 1/nm':>8} {'x 1/nm':>8} {'y 1/nm':>8} {'s 1/nm':>9} {'I':>8}  note")
+    for i in rows[:TABLE_ROWS]:
+        note = ""
+        if zp.double_diffraction[i]:
+            a, b = zp.dd_route[i]
+            note = f"forbidden; double diffraction {reflection_label(ph, zp.hkl[a])} + {reflection_label(ph, zp.hkl[b])}"
+        r = doc["reflections"][i]
+        print(f"{reflection_label(ph, zp.hkl[i]):>10} {zp.d_nm[i]:8.4f} {zp.g_inv_nm[i]:8.3f} {r['x_inv_nm']:8.3f} "
+              f"{r['y_inv_nm']:8.3f} {zp.excitation_error_inv_nm[i]:9.4f} {zp.intensity[i]:8.4f}  {note}")
+    if len(rows) > TABLE_ROWS:
+        print(f"... {len(rows) - TABLE_ROWS} more zero-order reflections (all are in --json)")
+    n_holz = int(np.sum(~zp.zolz))
+    n_forb = int(np.sum(zp.zolz & zp.kinematically_forbidden & ~zp.double_diffraction))
+    print(f"{len(rows)} zero-order reflections, {n_holz} higher-order near the Ewald sphere, "
+          f"{n_forb} forbidden with no double-diffraction route (in --json)")
+
+
+def run(args) -> int:
+    from saed.report.files import check_writable
+
+    for path in (args.json if args.json not in (None, "-") else None, args.image, args.diagram):
+        if path:
+            check_writable(path)
+    if args.image and not args.image.lower().endswith((".png", ".tif", ".tiff")):
+        raise InputError(f"--image {args.image}: must end in .png, .tif or .tiff")
+    if args.diagram and not args.diagram.lower().endswith((".png", ".pdf", ".svg")):
+        raise InputError(f"--diagram {args.diagram}: must end in .png, .pdf or .svg")
+    if not 0.0 <= args.show_double_diffraction <= 1.0:
+        raise InputError(f"--show-double-diffraction {args.show_double_diffraction:g} must lie between 0 and 1")
+    if not math.isfinite(args.rotation):
+        raise InputError("--rotation must be a finite number of degrees")
+    cal = calibration_from_args(args)
+    args.voltage = cal.voltage_kv
+    _, zp = build_pattern(args)
+    doc = pattern_json(zp, in_plane_rotation_deg=args.rotation)
+    if args.json:
+        write_json(args.json, doc)
+    if args.image:
+        from saed.report.render_pattern import write_detector_image
+        from saed.simulate.detector import detector_image
+
+        det = detector_image(zp, shape_px=(args.image_size, args.image_size),
+                             scale_inv_nm_per_px=cal.scale_inv_nm_per_px, center_px=cal.center_px,
+                             in_plane_rotation_deg=args.rotation, spot_sigma_px=args.spot_size,
+                             double_diffraction_strength=args.show_double_diffraction, noise=args.noise, rng=args.seed)
+        write_detector_image(det, args.image)
+    if args.diagram:
+        from saed.report.render_pattern import render_diagram
+
+        render_diagram(zp, args.diagram, in_plane_rotation_deg=args.rotation)
+    if args.json != "-":
+        _print_table(zp, doc)
+        for label, path in (("JSON", args.json), ("image", args.image), ("diagram", args.diagram)):
+            if path:
+                print(f"{label} written to {path}")
+    return 0

@@ -1,0 +1,218 @@
+"""``saed tilt``: double-tilt holder readings to reach a zone axis, and the zones within the holder's range."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+
+from saed.cli.common import finite_float, write_json
+from saed.errors import InputError
+
+NAME = "tilt"
+HELP = "holder tilts (alpha, beta) that bring a zone axis onto the beam, and the zones within reach"
+DESCRIPTION = (
+    "From the present orientation (a zone axis and in-plane rotation, an orientation matrix, or a result of "
+    "'saed index') and a double-tilt holder whose alpha axis runs at a given angle on the detector, work out the "
+    "alpha and beta readings that put a target zone axis on the beam, and list every zone axis within the "
+    "holder's range, nearest first. Positive alpha and beta turn the specimen right-handedly about their axes "
+    "(alpha axis drawn from the pattern centre at --alpha-axis degrees from +x toward +y, beta axis 90 degrees "
+    "further on); check the signs once on your holder and use --flip-alpha / --flip-beta if they differ."
+)
+ORDER = 40
+
+
+def add_arguments(p):
+    p.add_argument("phase", nargs="?", metavar="PHASE",
+                   help="built-in phase name or CIF path (taken from --from-index when omitted)")
+    o = p.add_argument_group("present orientation (one of)")
+    o.add_argument("--zone", nargs="+", metavar="U", help="zone axis on the beam now (3 or 4 indices)")
+    o.add_argument("--rotation", type=finite_float, default=0.0, metavar="DEG",
+                   help="in-plane rotation of that pattern, as 'saed index' reports it (default 0)")
+    o.add_argument("--orientation-matrix", nargs=9, type=finite_float, metavar="M",
+                   help="orientation matrix U, 9 numbers row by row (crystal Cartesian -> detector)")
+    o.add_argument("--from-index", metavar="RESULT.json", help="take phase and orientation from a 'saed index' JSON")
+    o.add_argument("--solution", type=int, default=1, metavar="RANK", help="which solution of --from-index (default 1)")
+    h = p.add_argument_group("holder")
+    h.add_argument("--recorded-at", nargs=2, type=finite_float, default=(0.0, 0.0), metavar=("ALPHA", "BETA"),
+                   help="holder readings when the pattern was recorded, deg (default 0 0)")
+    h.add_argument("--alpha-axis", type=finite_float, default=0.0, metavar="DEG",
+                   help="direction of the alpha tilt axis on the detector, deg from +x toward +y (default 0)")
+    h.add_argument("--alpha-range", nargs="+", type=finite_float, default=[30.0], metavar="DEG",
+                   help="alpha limits: one number for +/-, or MIN MAX (default 30)")
+    h.add_argument("--beta-range", nargs="+", type=finite_float, default=[25.0], metavar="DEG",
+                   help="beta limits: one number for +/-, or MIN MAX (default 25)")
+    h.add_argument("--flip-alpha", action="store_true", help="positive alpha turns the specimen left-handedly")
+    h.add_argument("--flip-beta", action="store_true", help="positive beta turns the specimen left-handedly")
+    p.add_argument("--target", nargs="+", metavar="U", help="zone axis to reach (3 or 4 indices)")
+    p.add_argument("--max-index", type=int, default=3, metavar="N",
+                   help="list reachable zones up to this index (4-index for hexagonal phases; default 3)")
+    p.add_argument("--rows", type=int, default=30, metavar="N", help="rows of the reachable-zone table (default 30)")
+    p.add_argument("--json", metavar="PATH", help="write the plan as JSON ('-' for stdout)")
+
+
+def _from_index(path: str, rank: int):
+    try:
+        with open(path, encoding="utf-8") as fh:
+            doc = json.load(fh)
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except (OSError, UnicodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"{path}: not a readable 'saed index' JSON ({exc.__class__.__name__})") from None
+    sols = doc.get("solutions") if isinstance(doc, dict) else None
+    if not sols:
+        raise InputError(f"{path}: no solutions in the file (nothing to tilt from)")
+    if not 1 <= rank <= len(sols):
+        raise InputError(f"--solution {rank}: the file has solutions 1 to {len(sols)}")
+    s = sols[rank - 1]
+    if "orientation_matrix" not in s or "phase" not in s:
+        raise InputError(f"{path}: solution {rank} has no phase or orientation_matrix")
+    return s["phase"], s["orientation_matrix"]
+
+
+def _setup(args):
+    from saed.cli.cmd_simulate import parse_indices
+    from saed.crystal.phase import load_phase
+    from saed.simulate.geometry import orientation_matrix
+    from saed.simulate.tilt import Holder, check_orientation_matrix
+    from saed.simulate.zone import zone_axis_3
+
+    given = [x is not None for x in (args.zone, args.orientation_matrix, args.from_index)]
+    if sum(given) != 1:
+        raise InputError("give the present orientation once: --zone U V W [--rotation DEG], "
+                         "--orientation-matrix (9 numbers) or --from-index RESULT.json")
+    phase_spec = args.phase
+    if args.from_index:
+        name, m = _from_index(args.from_index, args.solution)
+        if phase_spec is None:
+            phase_spec = name
+        u = check_orientation_matrix(m)
+    if phase_spec is None:
+        raise InputError("name the phase (e.g. saed tilt Co-fcc --zone 0 1 1)")
+    phase = load_phase(phase_spec)
+    if args.zone is not None:
+        u = orientation_matrix(phase.lattice, zone_axis_3(phase, parse_indices(args.zone, "--zone")), args.rotation)
+    elif args.orientation_matrix is not None:
+        u = check_orientation_matrix(args.orientation_matrix)
+    holder = Holder(alpha_axis_deg=args.alpha_axis, alpha_range_deg=tuple(args.alpha_range),
+                    beta_range_deg=tuple(args.beta_range), alpha_sign=-1 if args.flip_alpha else 1,
+                    beta_sign=-1 if args.flip_beta else 1)
+    if not holder.reachable(*args.recorded_at, tol_deg=1e-6):
+        raise InputError(f"--recorded-at {args.recorded_at[0]:g} {args.recorded_at[1]:g} lies outside the holder "
+                         f"range ({holder.range_text()})")
+    return phase, u, holder
+
+
+def _setting_json(phase, s) -> dict:
+    from saed.crystal.miller import direction_to_4
+    from saed.simulate.tilt import family_text
+
+    return {"zone_axis": list(s.zone_axis),
+            "zone_axis_4": direction_to_4(s.zone_axis).tolist() if phase.is_hexagonal else None,
+            "family": family_text(phase, s.zone_axis), "alpha_deg": round(s.alpha_deg, 3),
+            "beta_deg": round(s.beta_deg, 3), "reachable": s.reachable,
+            "angle_from_beam_deg": round(s.angle_from_beam_deg, 3),
+            "in_plane_rotation_deg": round(s.in_plane_rotation_deg, 3)}
+
+
+def closest_setting(phase, u, holder, uvw, recorded_at) -> tuple[float, float, float]:
+    """(alpha, beta, angle left) of the holder setting within range that brings the beam closest to `uvw`."""
+    from scipy.optimize import minimize
+
+    from saed.simulate.geometry import unit
+    from saed.simulate.tilt import beam_direction_crystal, orientation_at
+
+    d = unit(phase.lattice.r_cartesian_nm(uvw))
+
+    def off(x):
+        b = beam_direction_crystal(orientation_at(u, holder, x[0], x[1], recorded_at_deg=recorded_at))
+        return -abs(float(b @ d))
+
+    (a0, a1), (b0, b1) = holder.alpha_range_deg, holder.beta_range_deg
+    grid = [(a, b) for a in np.linspace(a0, a1, 13) for b in np.linspace(b0, b1, 11)]
+    start = min(grid, key=off)
+    res = minimize(off, start, bounds=[(a0, a1), (b0, b1)], method="L-BFGS-B")
+    ang = math.degrees(math.acos(min(1.0, -float(res.fun))))
+    return float(res.x[0]), float(res.x[1]), ang
+
+
+def run(args) -> int:
+    from saed.cli.cmd_simulate import parse_indices
+    from saed.simulate.families import zone_label
+    from saed.simulate.tilt import beam_direction_crystal, family_text, reachable_zones, tilt_to_zone
+    from saed.simulate.zone import zone_axis_3
+
+    if args.json and args.json != "-":
+        from saed.report.files import check_writable
+
+        check_writable(args.json)
+    if args.rows < 1:
+        raise InputError("--rows must be at least 1")
+    phase, u, holder = _setup(args)
+    rec = tuple(args.recorded_at)
+    reach = reachable_zones(phase, u, holder, max_index=args.max_index, recorded_at_deg=rec)
+    doc = {"phase": phase.name, "orientation_matrix": [[round(float(v), 9) for v in r] for r in u],
+           "beam_direction_cart": [round(float(v), 9) for v in beam_direction_crystal(u)],
+           "holder": {"alpha_axis_deg": holder.alpha_axis_deg, "alpha_range_deg": list(holder.alpha_range_deg),
+                      "beta_range_deg": list(holder.beta_range_deg), "recorded_at_deg": list(rec),
+                      "alpha_sign": holder.alpha_sign, "beta_sign": holder.beta_sign},
+           "target": None, "reachable_zones": [_setting_json(phase, s) for s in reach]}
+    problem = None
+    if args.target is not None:
+        uvw = zone_axis_3(phase, parse_indices(args.target, "--target"))
+        t = tilt_to_zone(phase, u, uvw, holder, recorded_at_deg=rec)
+        doc["target"] = _setting_json(phase, t)
+        if not t.reachable:
+            fam = family_text(phase, uvw)
+            same = [s for s in reach if family_text(phase, s.zone_axis) == fam]
+            a, b, left = closest_setting(phase, u, holder, uvw, rec)
+            doc["target"]["closest_setting"] = {"alpha_deg": round(a, 3), "beta_deg": round(b, 3),
+                                                "angle_left_deg": round(left, 3)}
+            if same:
+                s = same[0]
+                doc["target"]["nearest_reachable"] = _setting_json(phase, s)
+                hint = (f"nearest reachable of the same family: {zone_label(phase, s.zone_axis)} at alpha "
+                        f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
+            elif reach:
+                from saed.simulate.families import interzone_angle_deg
+
+                s = min(reach, key=lambda r: interzone_angle_deg(phase.lattice, r.zone_axis, uvw))
+                doc["target"]["nearest_reachable"] = _setting_json(phase, s)
+                hint = (f"nearest reachable zone: {zone_label(phase, s.zone_axis)} "
+                        f"({interzone_angle_deg(phase.lattice, s.zone_axis, uvw):.1f} deg from it) at alpha "
+                        f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
+            else:
+                hint = "no zone up to the index bound is within reach"
+            problem = (f"target {zone_label(phase, t.zone_axis)} needs alpha {t.alpha_deg:+.1f}, beta {t.beta_deg:+.1f} "
+                       f"deg, outside the holder range ({holder.range_text()}); the holder gets within {left:.1f} deg "
+                       f"at alpha {a:+.1f}, beta {b:+.1f}; {hint}")
+    if args.json:
+        write_json(args.json, doc)
+    if args.json != "-":
+        _print(phase, holder, rec, doc, reach, args.rows)
+    if problem:
+        raise InputError(problem)
+    return 0
+
+
+def _print(phase, holder, rec, doc, reach, rows) -> None:
+    from saed.simulate.families import zone_label
+
+    print(f"{phase.name}: holder alpha axis at {holder.alpha_axis_deg:g} deg on the detector, {holder.range_text()}; "
+          f"pattern recorded at alpha {rec[0]:+g}, beta {rec[1]:+g}")
+    t = doc["target"]
+    if t is not None:
+        z = zone_label(phase, t["zone_axis"])
+        state = "within range" if t["reachable"] else "OUT OF RANGE"
+        print(f"target {z}: alpha {t['alpha_deg']:+.2f} deg, beta {t['beta_deg']:+.2f} deg  ({state}; "
+              f"{t['angle_from_beam_deg']:.1f} deg from the present beam; the pattern then lies at in-plane rotation "
+              f"{t['in_plane_rotation_deg']:.1f} deg)")
+    print(f"{len(reach)} zone axes within reach, nearest first:")
+    print(f"{'zone':>12} {'family':>12} {'from beam':>10} {'alpha':>8} {'beta':>8}")
+    for s, js in zip(reach[:rows], doc["reachable_zones"]):
+        fam = js["family"]
+        print(f"{zone_label(phase, s.zone_axis):>12} {fam:>12} {s.angle_from_beam_deg:9.1f}\N{DEGREE SIGN} "
+              f"{round(s.alpha_deg, 2) + 0.0:+8.2f} {round(s.beta_deg, 2) + 0.0:+8.2f}")
+    if len(reach) > rows:
+        print(f"... {len(reach) - rows} more (--rows N, or --json)")

@@ -1,0 +1,226 @@
+"""Pictures of simulated zone patterns: a detector-like frame (PNG / 16-bit TIFF) and a labelled diagram.
+
+Both are drawn in the detector frame (x = column to the right, y = row downward), so a diagram and
+a recorded pattern with the same in-plane rotation look the same on screen.
+
+Diagram marks (shape and fill, not only colour, tell the kinds apart):
+
+* filled disc: allowed reflection of the zero-order Laue zone, area growing with intensity;
+* open square: kinematically forbidden, present only by double diffraction;
+* filled triangle: higher-order Laue-zone (HOLZ) reflection near the Ewald sphere;
+* large black disc: the central beam 000.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+
+from saed.errors import InputError
+from saed.report.files import atomic_write_bytes, check_writable
+from saed.simulate.detector import FULL_WELL_COUNTS, DetectorImage
+from saed.simulate.zone import ZonePattern, rotate_xy
+
+__all__ = ["write_detector_image", "display_8bit", "render_diagram", "draw_pattern", "index_text",
+           "nice_scale_bar_inv_nm", "pattern_title"]
+
+_IMAGE_SUFFIXES = {".png": "png", ".tif": "tiff", ".tiff": "tiff"}
+_FIGURE_SUFFIXES = {".png", ".pdf", ".svg"}
+
+
+# ---------------------------------------------------------------------- detector frame to file
+def display_8bit(image: np.ndarray, *, dark_counts: float | None = None, soft_counts: float = 1.5) -> np.ndarray:
+    """8-bit grey for a screen: a logarithmic stretch from the dark level to the brightest pixel.
+
+    v = log(1 + (I - dark) / soft) / log(1 + (max - dark) / soft); a diffraction pattern spans four
+    or more decades, and a log display (as on the microscope's camera viewer) shows the weak spots
+    next to a saturated central beam.
+    """
+    img = np.asarray(image, dtype=np.float32)
+    dark = float(np.percentile(img, 5)) if dark_counts is None else float(dark_counts)
+    top = float(img.max())
+    if top <= dark:
+        return np.zeros(img.shape, np.uint8)
+    v = np.log1p(np.maximum(img - dark, 0) / soft_counts) / math.log1p((top - dark) / soft_counts)
+    return np.clip(np.rint(255.0 * v), 0, 255).astype(np.uint8)
+
+
+def write_detector_image(det: DetectorImage, path) -> None:
+    """Write the frame: PNG as an 8-bit log display, TIFF as 16-bit counts with the scale stored.
+
+    The TIFF carries ImageJ resolution tags (unit 1/nm, pixels per 1/nm) so that reading it back with
+    :func:`saed.image.io.read_image_calibration` gives ``det.scale_inv_nm_per_px``.
+    """
+    p = Path(path)
+    kind = _IMAGE_SUFFIXES.get(p.suffix.lower())
+    if kind is None:
+        raise InputError(f"{path}: the pattern image must end in .png, .tif or .tiff")
+    check_writable(p)
+    buf = io.BytesIO()
+    if kind == "png":
+        from PIL import Image
+
+        Image.fromarray(display_8bit(det.image), mode="L").save(buf, format="PNG")
+    else:
+        import tifffile
+
+        counts = np.clip(np.rint(det.image), 0, FULL_WELL_COUNTS).astype(np.uint16)
+        px_per_inv_nm = 1.0 / det.scale_inv_nm_per_px
+        tifffile.imwrite(buf, counts, imagej=True, resolution=(px_per_inv_nm, px_per_inv_nm),
+                         metadata={"unit": "1/nm"})
+    atomic_write_bytes(p, buf.getvalue())
+
+
+# ---------------------------------------------------------------------- labels
+def index_text(idx, *, math_text: bool = True) -> str:
+    """Indices with overbars for negatives (mathtext), e.g. 1-1 1 -> 1 bar-1 1; plain '1-11' if not math."""
+    vals = [int(v) for v in np.asarray(idx).ravel()]
+    if not math_text:
+        sep = " " if any(abs(v) >= 10 for v in vals) else ""
+        return sep.join(str(v) for v in vals)
+    parts = [(r"\bar{%d}" % -v) if v < 0 else str(v) for v in vals]
+    sep = r"\,"
+    return "$" + sep.join(parts) + "$"
+
+
+def pattern_title(zp: ZonePattern) -> str:
+    z = zp.zone_axis_4 if zp.is_hexagonal else zp.zone_axis
+    t = f"{zp.phase.name}  [{index_text(z)}]"
+    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm:g} nm"
+    if zp.tilted:
+        lab = index_text(_plane_shown(zp, zp.tilt_toward_hkl))
+        t += f", beam tilted {zp.tilt_deg:g}\N{DEGREE SIGN} toward {lab}"
+    return t
+
+
+def _plane_shown(zp: ZonePattern, hkl) -> np.ndarray:
+    from saed.crystal.miller import plane_to_4
+
+    return plane_to_4(hkl) if zp.is_hexagonal else np.asarray(hkl)
+
+
+def nice_scale_bar_inv_nm(span_inv_nm: float) -> float:
+    """A round length (1, 2 or 5 x 10^n 1/nm) of about a fifth of `span_inv_nm`.
+
+    >>> nice_scale_bar_inv_nm(20.0)
+    5.0
+    """
+    target = max(span_inv_nm, 1e-9) / 5.0
+    e = math.floor(math.log10(target))
+    for m in (5.0, 2.0, 1.0):
+        if m * 10**e <= target * 1.3:
+            return m * 10**e
+    return 10**e
+
+
+# ---------------------------------------------------------------------- the diagram
+def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, extent_inv_nm: float | None = None,
+                 label_max_g_inv_nm: float | None = None, font_size: float = 7.0, legend: bool = True,
+                 scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True) -> None:
+    """Draw the labelled diagram of `zp` on a matplotlib axes (detector frame, y downward).
+
+    Parameters
+    ----------
+    extent_inv_nm : half-width of the view (default max_g); several panels share a scale when it is equal
+    label_max_g_inv_nm : label spots with |g| up to this (default: 2.3 |g1| or the view, the smaller)
+    """
+    from matplotlib.lines import Line2D
+
+    ext = float(extent_inv_nm or zp.max_g_inv_nm)
+    xy = zp.xy_rotated_inv_nm(in_plane_rotation_deg)
+    inside = (np.abs(xy) <= ext * 1.02).all(axis=1)
+    zolz = zp.zolz
+    allowed = zp.allowed
+    kind_allowed = zolz & allowed & inside
+    kind_dd = zolz & zp.double_diffraction & inside
+    kind_holz = (~zolz) & allowed & inside
+
+    base = 120.0 * marker_scale * (10.0 / max(ext, 1e-6)) ** 0.5
+    size = base * (0.08 + 0.92 * np.sqrt(np.clip(zp.intensity, 0, 1)))
+    ax.scatter(xy[kind_allowed, 0], xy[kind_allowed, 1], s=size[kind_allowed], marker="o", c="#1f3b73",
+               edgecolors="black", linewidths=0.4, zorder=3)
+    ax.scatter(xy[kind_dd, 0], xy[kind_dd, 1], s=0.5 * base, marker="s", facecolors="none",
+               edgecolors="#b2182b", linewidths=1.0, zorder=3)
+    ax.scatter(xy[kind_holz, 0], xy[kind_holz, 1], s=0.4 * base + size[kind_holz] * 0.5, marker="^",
+               c="#1b7837", edgecolors="black", linewidths=0.3, zorder=3)
+    ax.scatter([0.0], [0.0], s=2.2 * base, marker="o", c="black", zorder=4)
+
+    # Laue circle of a tilted beam, and the FOLZ ring when it is in view.
+    if zp.laue_circle_radius_inv_nm > 0:
+        pts = zp.laue_circle_xy_inv_nm()
+        pts = rotate_xy(pts, in_plane_rotation_deg)
+        ax.plot(pts[:, 0], pts[:, 1], ls="--", lw=0.8, color="#7a7a7a", zorder=1)
+    r = zp.folz_ring_radius_inv_nm
+    if 0 < r < ext * 1.4:
+        t = np.linspace(0, 2 * math.pi, 361)
+        ax.plot(r * np.cos(t), r * np.sin(t), ls=":", lw=0.8, color="#1b7837", zorder=1)
+
+    # Labels beside spots, pushed radially outward.
+    i1 = None
+    try:
+        i1, _ = zp.shortest_allowed_pair()
+    except InputError:
+        pass
+    g1 = float(zp.g_inv_nm[i1]) if i1 is not None else ext
+    lab_max = label_max_g_inv_nm if label_max_g_inv_nm is not None else min(2.3 * g1, ext)
+    hkls = zp.hkil if zp.is_hexagonal else zp.hkl
+    in_frame = (np.abs(xy) <= 0.86 * ext).all(axis=1)
+    for i in np.flatnonzero((kind_allowed | kind_dd) & in_frame & (zp.g_inv_nm <= lab_max * (1 + 1e-9))):
+        x, y = xy[i]
+        rr = math.hypot(x, y)
+        ux, uy = (x / rr, y / rr) if rr > 0 else (0.0, 1.0)
+        off = 0.045 * ext
+        ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
+        va = "top" if uy > 0.35 else "bottom" if uy < -0.35 else "center"  # y grows downward on screen
+        color = "#b2182b" if kind_dd[i] else "black"
+        ax.text(x + ux * off, y + uy * off, index_text(hkls[i]), fontsize=font_size, ha=ha, va=va, color=color,
+                zorder=5)
+    if label_centre:
+        ax.text(0.0, 0.1 * ext, "000", fontsize=font_size, ha="center", va="top", zorder=5)
+
+    ax.set_xlim(-ext, ext)
+    ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
+    ax.set_aspect("equal")
+    ax.set_xticks([])
+    ax.set_yticks([])
+    if scale_bar:
+        bar = nice_scale_bar_inv_nm(2 * ext)
+        x0, y0 = -0.92 * ext, 0.9 * ext
+        ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
+        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
+                fontsize=font_size, zorder=6)
+    if legend:
+        handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)"),
+                   Line2D([], [], ls="", marker="s", markerfacecolor="none", markeredgecolor="#b2182b",
+                          label="double diffraction only")]
+        if kind_holz.any():
+            handles.append(Line2D([], [], ls="", marker="^", color="#1b7837", markeredgecolor="black",
+                                  label="HOLZ"))
+        if zp.laue_circle_radius_inv_nm > 0:
+            handles.append(Line2D([], [], ls="--", color="#7a7a7a", label="Laue circle"))
+        if 0 < r < ext * 1.4:
+            handles.append(Line2D([], [], ls=":", color="#1b7837", label="FOLZ ring"))
+        ax.legend(handles=handles, loc="upper right", fontsize=font_size, framealpha=0.9)
+
+
+def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
+                   extent_inv_nm: float | None = None, label_max_g_inv_nm: float | None = None,
+                   size_in: float = 7.0, dpi: int = 150) -> None:
+    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically)."""
+    p = Path(path)
+    if p.suffix.lower() not in _FIGURE_SUFFIXES:
+        raise InputError(f"{path}: the diagram must end in .png, .pdf or .svg")
+    check_writable(p)
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(size_in, size_in))
+    ax = fig.add_axes([0.03, 0.03, 0.94, 0.9])
+    draw_pattern(ax, zp, in_plane_rotation_deg=in_plane_rotation_deg, extent_inv_nm=extent_inv_nm,
+                 label_max_g_inv_nm=label_max_g_inv_nm, font_size=8.0)
+    fig.suptitle(pattern_title(zp), fontsize=11, y=0.975)
+    buf = io.BytesIO()
+    fig.savefig(buf, format=p.suffix.lower()[1:], dpi=dpi)
+    atomic_write_bytes(p, buf.getvalue())
