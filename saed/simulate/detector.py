@@ -122,7 +122,7 @@ def detector_image(zp: ZonePattern, *, shape_px: tuple[int, int] = (1024, 1024),
 
 def _add_spot(img: np.ndarray, x: float, y: float, sigma: float, peak: float) -> None:
     rows, cols = img.shape
-    half = int(math.ceil(4.5 * sigma))
+    half = int(math.ceil(6.0 * sigma))  # exp(-18): no visible truncation edge
     x0, x1 = max(int(math.floor(x)) - half, 0), min(int(math.floor(x)) + half + 2, cols)
     y0, y1 = max(int(math.floor(y)) - half, 0), min(int(math.floor(y)) + half + 2, rows)
     if x0 >= x1 or y0 >= y1:
