@@ -2,15 +2,25 @@
 
 from __future__ import annotations
 
+import shutil
+import sys
+import textwrap
+
 from saed.cli.common import write_json
-from saed.crystal.phase import builtin_names, builtin_phase
+from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, suggest_builtin
+from saed.errors import InputError
 
 NAME = "phases"
 HELP = "list the built-in phases (name, structure type, space group, lattice parameters, source)"
+DESCRIPTION = ("List the built-in phases: name, structure type, space group, lattice parameters (nm, room "
+               "temperature) and where the numbers come from. Any name here, or a CIF path, works with --phase.")
 ORDER = 90
 
 
 def add_arguments(p):
+    p.add_argument("match", nargs="*", metavar="TEXT",
+                   help="show only phases whose name, structure type or space group contains TEXT "
+                        "(e.g. 'Co', 'hcp', 'rock salt', '225')")
     p.add_argument("--json", metavar="PATH", help="write the list as JSON ('-' for stdout)")
 
 
@@ -21,32 +31,116 @@ def _row(ph):
         "structure_type": ph.structure_type,
         "space_group": ph.space_group_short,
         "space_group_number": ph.space_group_number,
+        "space_group_setting": ph.space_group,
         "a_nm": lat.a_nm, "b_nm": lat.b_nm, "c_nm": lat.c_nm,
         "alpha_deg": lat.alpha_deg, "beta_deg": lat.beta_deg, "gamma_deg": lat.gamma_deg,
         "crystal_system": lat.crystal_system,
-        "n_atoms_cell": None,
+        "n_atoms_cell": len(cell_atoms(ph).elements),
+        "elements": sorted({s.element for s in ph.sites}),
         "source": ph.source,
         "note": ph.note,
     }
 
 
-def run(args) -> int:
-    from saed.crystal.phase import cell_atoms
+def _words(row) -> set[str]:
+    """What a phase can be looked up by: name parts, structure-type words, space group, system, elements."""
+    text = " ".join([row["name"], row["structure_type"], row["space_group"],
+                     str(row["space_group_number"]), row["crystal_system"], " ".join(row["elements"])])
+    text += " " + text.replace("-", " ")  # 'Co-fcc' answers to 'Co', 'fcc' and 'Co-fcc'
+    return {w.strip("(),").lower() for w in text.split() if w.strip("(),")}
 
-    rows = []
-    for name in builtin_names():
-        ph = builtin_phase(name)
-        r = _row(ph)
-        r["n_atoms_cell"] = len(cell_atoms(ph).elements)
-        rows.append(r)
+
+def _matches(row, query) -> bool:
+    """Every query word names the phase: equal to one of its words ('Co' is the element, not 'corundum'),
+    or, from three letters on, the start of one ('cub', 'rut')."""
+    words = _words(row)
+    return all(any(q == w or (len(q) >= 3 and w.startswith(q)) for w in words)
+               for q in (t.lower() for t in " ".join(query).split()))
+
+
+def _nm(x: float) -> str:
+    """A length in nm with the digits the source gives: at least 5 decimals, at most 7 (Si: 0.5431021)."""
+    text = f"{x:.7f}".rstrip("0")
+    decimals = len(text.split(".")[1])
+    return text + "0" * max(0, 5 - decimals)
+
+
+def _cell_text(r) -> tuple[str, str]:
+    """(a, other parameters) for the table; cubic shows a only, uniaxial shows c, others everything."""
+    a = _nm(r["a_nm"])
+    system = r["crystal_system"]
+    if system == "cubic":
+        return a, ""
+    if system in ("hexagonal", "tetragonal"):
+        return a, _nm(r["c_nm"])
+    extra = f"b {_nm(r['b_nm'])} c {_nm(r['c_nm'])}"
+    angles = [(k, r[k + "_deg"]) for k in ("alpha", "beta", "gamma") if abs(r[k + "_deg"] - 90.0) > 1e-9]
+    return a, extra + "".join(f" {k} {v:g}" for k, v in angles)
+
+
+def run(args) -> int:
+    rows = [_row(builtin_phase(name)) for name in builtin_names()]
+    if args.match:
+        rows = [r for r in rows if _matches(r, args.match)]
+        if not rows:
+            text = " ".join(args.match)
+            close = suggest_builtin(text)
+            hint = f"; did you mean {' or '.join(close)}?" if close else ""
+            raise InputError(f"no built-in phase matches {text!r}{hint} ('saed phases' lists all)")
     if args.json:
         write_json(args.json, rows)
         if args.json == "-":
             return 0
-    print(f"{'name':<12} {'structure':<26} {'space group':<12} {'a nm':>9} {'c nm':>9}  source")
-    for r in rows:
-        c = f"{r['c_nm']:.5f}" if abs(r["c_nm"] - r["a_nm"]) > 1e-9 else ""
-        print(f"{r['name']:<12} {r['structure_type']:<26} {r['space_group'] + ' (' + str(r['space_group_number']) + ')':<12} "
-              f"{r['a_nm']:>9.5f} {c:>9}  {r['source']}")
-    print(f"{len(rows)} phases. A CIF file path works wherever a phase name does.")
+    _print_table(rows, sys.stdout)
     return 0
+
+
+def _print_table(rows, out) -> None:
+    """The table, one phase per line.
+
+    On a terminal nothing runs past the window edge: the whole list cuts the source to fit (or leaves it
+    out below 24 free columns); a short list (a few matches) wraps it instead. Piped output is never cut,
+    so grep sees whole lines.
+    """
+    cells = [_cell_text(r) for r in rows]
+    sg = [f"{r['space_group']} ({r['space_group_number']})" for r in rows]
+    w_name = max(4, *(len(r["name"]) for r in rows))
+    w_type = max(9, *(len(r["structure_type"]) for r in rows))
+    w_sg = max(11, *(len(s) for s in sg))
+    w_a = max(4, *(len(c[0]) for c in cells))
+    w_other = max(7, *(len(c[1]) for c in cells))
+    head = f"{'name':<{w_name}}  {'structure':<{w_type}}  {'space group':<{w_sg}}  {'a nm':<{w_a}}  {'c nm':<{w_other}}"
+    width = shutil.get_terminal_size((200, 24)).columns if out.isatty() else 0
+    room = width - len(head) - 3 if width else 10**6
+    wrap = len(rows) <= 5
+    cut = False
+    out.write((head + "  source" if room >= 24 else head.rstrip()) + "\n")
+    previous = None
+    for r, (a, other), s in zip(rows, cells, sg):
+        if previous is not None and r["structure_type"] != previous:
+            out.write("\n")  # a blank line between structure types
+        previous = r["structure_type"]
+        line = f"{r['name']:<{w_name}}  {r['structure_type']:<{w_type}}  {s:<{w_sg}}  {a:<{w_a}}  {other:<{w_other}}"
+        source = r["source"]
+        if room >= 24:
+            if len(source) <= room:
+                out.write(f"{line}  {source}\n")
+            elif wrap:
+                first, *more = textwrap.wrap(source, room)
+                out.write(f"{line}  {first}\n" + "".join(" " * (len(head) + 2) + m + "\n" for m in more))
+            else:
+                out.write(f"{line}  {source[: room - 1].rstrip()}…\n")
+                cut = True
+        else:
+            out.write(line.rstrip() + "\n")
+            if wrap:
+                out.write("".join("    " + m + "\n" for m in textwrap.wrap("source: " + source, max(width - 5, 20))))
+            else:
+                cut = True
+    n = len(rows)
+    notes = [f"{n} phase{'s' if n != 1 else ''} (room temperature, nm). Use a name or a CIF path with --phase."]
+    if cut:
+        how = "shortened" if room >= 24 else "left out"
+        notes.append(f"Sources {how} to fit: 'saed phases NAME' shows one whole, --json - all.")
+    fill = (lambda t: textwrap.fill(t, width, break_on_hyphens=False)) if width else (lambda t: t)
+    out.write("\n" + "".join(fill(t) + "\n" for t in notes))
