@@ -172,14 +172,10 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         x, y = xy[i]
         rr = math.hypot(x, y)
         ux, uy = (x / rr, y / rr) if rr > 0 else (0.0, 1.0)
-        off = 0.045 * ext
-        ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
-        va = "top" if uy > 0.35 else "bottom" if uy < -0.35 else "center"  # y grows downward on screen
-        color = "#b2182b" if kind_dd[i] else "black"
-        ax.text(x + ux * off, y + uy * off, index_text(hkls[i]), fontsize=font_size, ha=ha, va=va, color=color,
-                zorder=5)
+        r_pts = 0.5 * math.sqrt(0.5 * base if kind_dd[i] else size[i])  # marker radius, points
+        _label(ax, x, y, ux, uy, r_pts + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
-        ax.text(0.0, 0.1 * ext, "000", fontsize=font_size, ha="center", va="top", zorder=5)
+        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
 
     ax.set_xlim(-ext, ext)
     ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
@@ -193,9 +189,10 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
                 fontsize=font_size, zorder=6)
     if legend:
-        handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)"),
-                   Line2D([], [], ls="", marker="s", markerfacecolor="none", markeredgecolor="#b2182b",
-                          label="double diffraction only")]
+        handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)")]
+        if kind_dd.any():
+            handles.append(Line2D([], [], ls="", marker="s", markerfacecolor="none", markeredgecolor="#b2182b",
+                                  label="double diffraction only"))
         if kind_holz.any():
             handles.append(Line2D([], [], ls="", marker="^", color="#1b7837", markeredgecolor="black",
                                   label="HOLZ"))
@@ -204,6 +201,14 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         if 0 < r < ext * 1.4:
             handles.append(Line2D([], [], ls=":", color="#1b7837", label="FOLZ ring"))
         ax.legend(handles=handles, loc="upper right", fontsize=font_size, framealpha=0.9)
+
+
+def _label(ax, x, y, ux, uy, off_pts, text, font_size, color) -> None:
+    """Text beside a marker at (x, y), pushed `off_pts` points outward along (ux, uy) (data y grows downward)."""
+    ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
+    va = "top" if uy > 0.35 else "bottom" if uy < -0.35 else "center"
+    ax.annotate(text, (x, y), xytext=(ux * off_pts, -uy * off_pts), textcoords="offset points", ha=ha, va=va,
+                fontsize=font_size, color=color, zorder=5, annotation_clip=True)
 
 
 def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
