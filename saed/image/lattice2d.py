@@ -10,7 +10,7 @@
    spot lattice is the coarsest lattice that holds the spots).
 3. Gauss (Lagrange-Gauss) lattice reduction (:func:`gauss_reduce`) [1]_ [2]_ turns it into the
    shortest basis: |g1| <= |g2| and |g1 . g2| <= |g1|^2 / 2; the sign of g2 is then chosen so the
-   angle lies in [60, 90] deg.
+   angle lies in [60, 90] deg, and both signs are flipped if needed so that g1 points toward +x.
 4. Refinement (:func:`refine_lattice`): with integer indices (m, n) per spot,
    ``p = c + m g1 + n g2`` is linear in (c, g1, g2), solved by weighted least squares over all
    indexed spots (weights 1/sigma_xy^2), re-indexed and re-solved; spots off the lattice by more
@@ -248,6 +248,9 @@ def refine_lattice(xy_px, sigma_px, center_px, g1_px, g2_px, *, tol_px: float, c
     # Keep the basis reduced (the refinement can move a near-tie such as a hexagonal net across the
     # boundary); the covariance follows the integer change of basis.
     g1, g2, t = gauss_reduce(g1, g2)
+    if g1[0] < 0 or (g1[0] == 0 and g1[1] < 0):
+        # one sign convention for reports: g1 points to +x (the pair (-g1, -g2) is the same basis)
+        g1, g2, t = -g1, -g2, -t
     if not np.array_equal(t, np.eye(2, dtype=np.int64)):
         m = np.eye(6)
         m[2:6, 2:6] = np.kron(t.astype(float), np.eye(2))

@@ -35,12 +35,11 @@ def saturation_mask(image: np.ndarray, *, level: float | None = None, min_platea
     is a nominal full scale (:data:`NOMINAL_FULL_SCALES`) reached by any pixel.
     """
     hi = float(image.max()) if level is None else float(level)
-    at = image >= hi
-    n = int(np.count_nonzero(at))
+    rr, cc = np.nonzero(image >= hi)
+    n = len(rr)
     if n == 0:
         return np.zeros(image.shape, bool), None
     if level is None and hi not in NOMINAL_FULL_SCALES:
-        rr, cc = np.nonzero(at)
         if n < min_plateau_px:
             return np.zeros(image.shape, bool), None
         # Largest 8-connected group of the maximum pixels (few pixels: label a small bounding box).
@@ -52,7 +51,6 @@ def saturation_mask(image: np.ndarray, *, level: float | None = None, min_platea
         lab, nlab = ndi.label(box, structure=np.ones((3, 3)))
         if np.bincount(lab.ravel())[1:].max() < min_plateau_px:
             return np.zeros(image.shape, bool), None
-    rr, cc = np.nonzero(at)
     mask = np.zeros(image.shape, bool)
     rows, cols = image.shape
     for dr in (-1, 0, 1):
@@ -69,24 +67,28 @@ def border_mask(image: np.ndarray, *, border_px: int = 2) -> np.ndarray:
     if b > 0:
         mask[:b, :] = mask[-b:, :] = True
         mask[:, :b] = mask[:, -b:] = True
-    row_const = image.max(axis=1) == image.min(axis=1)
-    col_const = image.max(axis=0) == image.min(axis=0)
-    for flags, axis in ((row_const, 0), (col_const, 1)):
-        n = len(flags)
+    # Blank frame: edge rows/columns holding one value, examined from each edge inward.
+    def _count(get, n):
         k = 0
-        while k < n and flags[k]:
+        while k < n // 2:
+            line = get(k)
+            if line.max() != line.min():
+                break
             k += 1
-        m = 0
-        while m < n - k and flags[n - 1 - m]:
-            m += 1
-        if axis == 0:
-            mask[:k, :] = True
-            if m:
-                mask[n - m:, :] = True
-        else:
-            mask[:, :k] = True
-            if m:
-                mask[:, n - m:] = True
+        return k
+
+    top = _count(lambda k: image[k, :], rows)
+    bottom = _count(lambda k: image[rows - 1 - k, :], rows)
+    left = _count(lambda k: image[:, k], cols)
+    right = _count(lambda k: image[:, cols - 1 - k], cols)
+    if top:
+        mask[:top, :] = True
+    if bottom:
+        mask[rows - bottom:, :] = True
+    if left:
+        mask[:, :left] = True
+    if right:
+        mask[:, cols - right:] = True
     return mask
 
 

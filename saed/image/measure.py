@@ -20,22 +20,24 @@ from __future__ import annotations
 
 import logging
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import ndimage as ndi
 
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
-from saed.image.background import estimate_background
+from saed.image.background import Background, estimate_background
 from saed.image.binning import bin_image
 from saed.image.centre import friedel_center, symmetric_center
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import find_basis, refine_lattice
-from saed.image.masks import border_mask, find_beam_stop, saturation_mask
+from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
 from saed.image.spots import estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
 
-__all__ = ["measure_pattern", "measure_file", "DEFAULT_SNR_MIN", "DEFAULT_DETECT_SNR"]
+__all__ = ["measure_pattern", "measure_file", "inspect_pattern", "inspect_file", "Inspection", "DEFAULT_SNR_MIN",
+           "DEFAULT_DETECT_SNR"]
 
 logger = logging.getLogger(__name__)
 
@@ -49,27 +51,73 @@ MAX_SATURATED_FRACTION = 0.5
 
 def _direct_beam_region(sat_mask: np.ndarray, near_px, max_dist_px: float):
     """Centroid (x, y) and area of the largest saturated region within `max_dist_px` of `near_px`, or None."""
-    if not sat_mask.any():
+    rows, cols = sat_mask.shape
+    r0, r1 = max(int(near_px[1] - max_dist_px), 0), min(int(near_px[1] + max_dist_px) + 1, rows)
+    c0, c1 = max(int(near_px[0] - max_dist_px), 0), min(int(near_px[0] + max_dist_px) + 1, cols)
+    if r0 >= r1 or c0 >= c1:
         return None
-    lab, n = ndi.label(sat_mask)
-    if n == 0:
+    box = sat_mask[r0:r1, c0:c1]
+    if not box.any():
         return None
-    idx = np.arange(1, n + 1)
-    area = ndi.sum_labels(np.ones(sat_mask.shape, np.float32), lab, idx)
-    cy_cx = np.array(ndi.center_of_mass(sat_mask, lab, idx)).reshape(-1, 2)
-    d = np.hypot(cy_cx[:, 1] - near_px[0], cy_cx[:, 0] - near_px[1])
+    lab, n = ndi.label(box)
+    rr, cc = np.nonzero(lab)
+    labs = lab[rr, cc]
+    area = np.bincount(labs, minlength=n + 1)[1:].astype(float)
+    cx = np.bincount(labs, weights=cc, minlength=n + 1)[1:] / np.maximum(area, 1) + c0
+    cy = np.bincount(labs, weights=rr, minlength=n + 1)[1:] / np.maximum(area, 1) + r0
+    d = np.hypot(cx - near_px[0], cy - near_px[1])
     ok = d <= max_dist_px
     if not ok.any():
         return None
     k = int(np.argmax(np.where(ok, area, -1)))
-    return (float(cy_cx[k, 1]), float(cy_cx[k, 0])), float(area[k])
+    return (float(cx[k]), float(cy[k])), float(area[k])
+
+
+@dataclass(frozen=True, eq=False)
+class Inspection:
+    """A measured pattern with what went into it, for overlays and diagnostics (not for the matcher).
+
+    ignored : (rows, cols) bool, every pixel left out (border, mask image, beam stop, saturation);
+    saturated : (rows, cols) bool; beam_stop : the shadow found, or None; background : the haze and
+    noise model; spot_sigma_px : the Gaussian-equivalent spot width used; direct_beam_px : the
+    direct beam's fitted position (None when not seen); direct_beam_saturated : bool; image : the
+    float32 pattern as measured.
+    """
+
+    measured: MeasuredPattern
+    ignored: np.ndarray
+    saturated: np.ndarray
+    beam_stop: BeamStopShadow | None
+    background: Background | None
+    spot_sigma_px: float
+    direct_beam_px: tuple[float, float] | None = None
+    direct_beam_saturated: bool = False
+    image: np.ndarray | None = None
 
 
 def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, source: str = "",
+                    **options) -> MeasuredPattern:
+    """Measure the centre, the spots and the 2-D lattice of one recorded pattern.
+
+    See :func:`inspect_pattern` for the parameters; this returns only its ``measured`` value.
+
+    Examples
+    --------
+    >>> from saed.synth import Detector, Scene, render_lattice
+    >>> pat, _ = render_lattice([40.0, 5.0], [-12.0, 50.0], center_px=(255.3, 250.8),
+    ...                         detector=Detector(shape=(512, 512)), scene=Scene(), rng=3)
+    >>> mp = measure_pattern(pat.image, Calibration())
+    >>> [round(v, 1) for v in mp.center_px], len(mp.spots) > 60, round(mp.basis.angle_deg, 1)
+    ([255.3, 250.8], True, 83.6)
+    """
+    return inspect_pattern(image, calibration, mask=mask, source=source, **options).measured
+
+
+def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, source: str = "",
                     spot_sigma_px: float | None = None, snr_min: float = DEFAULT_SNR_MIN,
                     detect_snr: float = DEFAULT_DETECT_SNR, find_stop: bool = True,
-                    saturation_level: float | None = None) -> MeasuredPattern:
-    """Measure the centre, the spots and the 2-D lattice of one recorded pattern.
+                    saturation_level: float | None = None) -> Inspection:
+    """Measure the centre, the spots and the 2-D lattice of one recorded pattern, keeping the masks.
 
     Parameters
     ----------
@@ -94,8 +142,9 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
 
     Returns
     -------
-    MeasuredPattern
-        With an empty ``spots`` and a reason in ``notes`` when no spot is found (not an error).
+    Inspection
+        ``measured`` is the MeasuredPattern: with an empty ``spots`` and a reason in ``notes`` when no
+        spot is found (not an error).
 
     Raises
     ------
@@ -126,7 +175,9 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     binned = bin_image(img, fit_valid)
 
     # Rough centre: the hint, or the saturated direct beam, or point symmetry.
-    c_sym = symmetric_center(binned)
+    # Coarse work (rough centre, beam stop) on blocks of about 256 per side.
+    coarse = binned.coarsened(2) if min(binned.image.shape) >= 400 else binned
+    c_sym = symmetric_center(coarse)
     db_region = _direct_beam_region(sat_mask & ~masked, c_sym, 0.15 * min(rows, cols))
     if calibration.center_px is not None:
         c0 = tuple(calibration.center_px)
@@ -141,7 +192,7 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if not (-0.25 * cols <= c0[0] <= 1.25 * cols and -0.25 * rows <= c0[1] <= 1.25 * rows):
         raise InputError(f"{name}: the centre ({c0[0]:.0f}, {c0[1]:.0f}) is far outside the image")
 
-    stop = find_beam_stop(binned, c0) if find_stop else None
+    stop = find_beam_stop(coarse, c0) if find_stop else None
     if stop is not None:
         masked |= stop.mask
         fit_valid &= ~stop.mask
@@ -155,9 +206,8 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if sigma is None:
         sigma = 1.5
     sigma = float(np.clip(sigma, 0.7, 12.0))
-    bg_full = bg.full()
     search = find_spots(img, fit_valid, bg, sigma_px=sigma, snr_min=snr_min, detect_snr=detect_snr,
-                        saturated_mask=sat_mask & ~masked, bg_full=bg_full)
+                        saturated_mask=sat_mask & ~masked)
     fits = search.fits
     xy = np.stack([fits.x_px, fits.y_px], axis=1) if len(fits) else np.zeros((0, 2))
     if search.n_hot:
@@ -185,9 +235,10 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if len(spots) == 0:
         reason = "no spots above the noise" + (f" (peak signal-to-noise >= {snr_min:g})" if search.n_candidates else "")
         notes.append(reason)
-        return MeasuredPattern(image_shape=(rows, cols), center_px=(float(c0[0]), float(c0[1])), spots=spots,
-                               basis=None, calibration=calibration, center_sigma_px=float("nan"), source=source,
-                               notes=tuple(notes))
+        mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(c0[0]), float(c0[1])), spots=spots,
+                             basis=None, calibration=calibration, center_sigma_px=float("nan"), source=source,
+                             notes=tuple(notes))
+        return Inspection(mp, masked | sat_mask, sat_mask, stop, bg, sigma, None, False, img)
 
     # Centre: unsaturated direct beam, else Friedel pairs; then the lattice fit over all spots.
     sxy = spots.xy_px
@@ -230,17 +281,19 @@ def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     notes.insert(0, f"centre from {center_how}")
     if db_index is None and stop is None and not sat_mask.any():
         notes.append("no direct beam seen at the centre")
-    return MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
-                           basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
-                           notes=tuple(notes))
+    mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
+                         basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
+                         notes=tuple(notes))
+    return Inspection(mp, masked | sat_mask, sat_mask, stop, bg, sigma,
+                      None if db_xy is None else (float(db_xy[0]), float(db_xy[1])), db_saturated, img)
 
 
-def measure_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
-                 **options) -> MeasuredPattern:
-    """Read `path` (frame `frame`) and measure it; the calibration falls back to the TIFF's reciprocal-scale tags.
+def inspect_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
+                 **options) -> Inspection:
+    """Read `path` (frame `frame`) and inspect it; the calibration falls back to the TIFF's reciprocal-scale tags.
 
     `mask_path`: an image of the same size whose non-zero pixels are ignored. Other keyword options
-    go to :func:`measure_pattern`.
+    go to :func:`inspect_pattern`.
     """
     img = read_image(path, frame=frame)
     cal = calibration if calibration is not None else Calibration()
@@ -250,4 +303,10 @@ def measure_file(path, calibration: Calibration | None = None, *, frame: int | N
             cal = Calibration(scale, cal.voltage_kv, cal.center_px, cal.ellipse, cal.camera_length_mm,
                               cal.pixel_pitch_um, cal.standard, cal.date, source=f"{path} (TIFF resolution tags)")
     mask = read_mask_image(mask_path, shape=img.shape) if mask_path is not None else None
-    return measure_pattern(img, cal, mask=mask, source=str(path), **options)
+    return inspect_pattern(img, cal, mask=mask, source=str(path), **options)
+
+
+def measure_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
+                 **options) -> MeasuredPattern:
+    """Read `path` (frame `frame`) and measure it: :func:`inspect_file` without the masks."""
+    return inspect_file(path, calibration, frame=frame, mask_path=mask_path, **options).measured

@@ -39,7 +39,7 @@ from scipy import ndimage as ndi
 from scipy.spatial import cKDTree
 
 from saed.image.background import Background, robust_sigma
-from saed.image.binning import Binned
+from saed.image.binning import Binned, upsample_bilinear
 from saed.image.spotfit import SpotFits, fit_spots, window_stack
 
 __all__ = ["SpotSearch", "estimate_spot_sigma", "detect_candidates", "find_spots"]
@@ -135,22 +135,32 @@ def estimate_spot_sigma(image, valid, background: Background, binned: Binned, ce
 
 
 def detect_candidates(image, valid, background: Background, *, sigma_px: float, detect_snr: float = 5.0,
-                      max_candidates: int = 6000, bg_full: np.ndarray | None = None):
-    """Local maxima of the matched-filtered image above `detect_snr` noise sigmas: (x, y, detection snr)."""
-    bgf = background.full() if bg_full is None else bg_full
-    filled = np.where(valid, image, bgf)
+                      max_candidates: int = 6000):
+    """Local maxima of the matched-filtered image above `detect_snr` noise sigmas: (x, y, detection snr, rho).
+
+    `rho` is the measured noise of the smoothed image relative to the pixel noise.
+    """
+    f = background.factor
+    lev_b = background.level_binned
+    rows, cols = image.shape
+    filled = np.array(image, dtype=np.float32, copy=True)
+    bad_r, bad_c = np.nonzero(~valid)
+    if len(bad_r):
+        # masked pixels take the background of their block, so mask edges make no spots
+        filled[bad_r, bad_c] = lev_b[np.minimum(bad_r // f, lev_b.shape[0] - 1), np.minimum(bad_c // f, lev_b.shape[1] - 1)]
     g = ndi.gaussian_filter(filled, float(sigma_px), truncate=3.0, mode="nearest")
-    g -= bgf
-    pix_sigma = background.sigma(bgf).astype(np.float32)
-    # Noise of the smoothed image relative to the pixel noise, measured on a sparse grid.
+    # Noise of the smoothed image relative to the pixel noise, measured on a sparse grid of calm pixels.
     step = 7
-    zs = (g[::step, ::step] / pix_sigma[::step, ::step])[valid[::step, ::step]]
+    gr, gc = np.mgrid[step // 2:rows:step, step // 2:cols:step]
+    lv = lev_b[np.minimum(gr // f, lev_b.shape[0] - 1), np.minimum(gc // f, lev_b.shape[1] - 1)]
+    zs = ((g[gr, gc] - lv) / background.sigma(lv))[valid[gr, gc]]
     rho_white = 1.0 / (2.0 * math.sqrt(math.pi) * max(float(sigma_px), 0.5))
     rho = robust_sigma(zs) if zs.size > 100 else rho_white
     rho = max(rho, 0.5 * rho_white)
-    z = g / (rho * pix_sigma)
-    cand = (z > detect_snr) & valid
-    rows, cols = image.shape
+    # Threshold map on the blocks, interpolated: background + detect_snr * rho * pixel noise.
+    thr_b = (lev_b + detect_snr * rho * background.sigma(lev_b)).astype(np.float32)
+    thr = upsample_bilinear(thr_b, f, (rows, cols))
+    cand = (g > thr) & valid
     cand[0, :] = cand[-1, :] = cand[:, 0] = cand[:, -1] = False
     flat = np.flatnonzero(cand)
     if flat.size == 0:
@@ -162,7 +172,9 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
         nb = gf[flat + d]
         is_max &= (v > nb) | ((v == nb) & (d > 0))
     flat = flat[is_max]
-    zz = z.ravel()[flat]
+    yy, xx = np.divmod(flat, cols)
+    lv = background.at(xx, yy)
+    zz = (gf[flat] - lv) / (rho * background.sigma(lv))
     order = np.argsort(-zz)[:max_candidates]
     flat, zz = flat[order], zz[order]
     y, x = np.divmod(flat, cols)
@@ -180,16 +192,14 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
 
 
 def find_spots(image, valid, background: Background, *, sigma_px: float, snr_min: float = 3.0,
-               detect_snr: float = 5.0, saturated_mask: np.ndarray | None = None,
-               bg_full: np.ndarray | None = None) -> SpotSearch:
+               detect_snr: float = 5.0, saturated_mask: np.ndarray | None = None) -> SpotSearch:
     """Detect and measure spots (see the module notes).
 
     `valid` excludes masked and saturated pixels from the fits; saturated pixels still take part in
     the detection (a clipped spot is a bright blob, not a hole).
     """
     detect_valid = valid if saturated_mask is None else valid | saturated_mask
-    x, y, zdet, rho = detect_candidates(image, detect_valid, background, sigma_px=sigma_px, detect_snr=detect_snr,
-                                        bg_full=bg_full)
+    x, y, zdet, rho = detect_candidates(image, detect_valid, background, sigma_px=sigma_px, detect_snr=detect_snr)
     half = int(np.clip(math.ceil(3.0 * sigma_px + 1.0), 3, 24))
     fits = fit_spots(image, valid, x, y, sigma0_px=sigma_px, half_px=half, gain=background.gain,
                      offset_var=background.offset_var, var_floor=background.var_floor)
