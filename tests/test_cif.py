@@ -176,7 +176,7 @@ def mangled_cifs(draw):
     return bytes(data)
 
 
-@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=600, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(data=mangled_cifs())
 def test_fuzzed_cif_raises_only_saed_errors(data):
     with tempfile.TemporaryDirectory() as tmp:
