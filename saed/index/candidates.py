@@ -136,9 +136,10 @@ def seed_pairs(spots: SpotSet, *, max_seeds: int = 5, max_pairs: int = 8) -> lis
             s = abs(a[0] * b[1] - a[1] * b[0]) / (np.linalg.norm(a) * np.linalg.norm(b))
             if s < math.sin(math.radians(12.0)):
                 continue
-            pairs.append((np.linalg.norm(a) + np.linalg.norm(b), ai, bi, a.copy(), b.copy()))
-    pairs.sort(key=lambda t: (t[0], t[1], t[2]))
-    return [(a, b) for _, _, _, a, b in pairs[:max_pairs]]
+            n_weak = int(not spots.strong[seeds[ai]]) + int(not spots.strong[seeds[bi]])
+            pairs.append((n_weak, np.linalg.norm(a) + np.linalg.norm(b), ai, bi, a.copy(), b.copy()))
+    pairs.sort(key=lambda t: (t[0], t[1], t[2], t[3]))  # strong pairs first, then the shortest
+    return [(a, b) for _, _, _, _, a, b in pairs[:max_pairs]]
 
 
 def _spans_plane(v: np.ndarray) -> bool:
@@ -174,35 +175,36 @@ def _lookup(pt: PhaseIndexTable, a: np.ndarray, b: np.ndarray, *, scale: float |
 
 
 def _orientations(pt: PhaseIndexTable, rows: np.ndarray, a: np.ndarray, b: np.ndarray):
-    """U (k, 3, 3), scale (k,), zone (k, 3) for pair rows mapping h1 -> a and h2 -> b."""
+    """U (k, 3, 3), scale (k,), zone (k, 3) for pair rows mapping h1 -> a and h2 -> b.
+
+    `a`, `b` are (k, 2) measured vectors (pixels), one per row.
+    """
     i1 = pt.pair_i1[rows].astype(np.int64)
     i2 = pt.pair_i2[rows].astype(np.int64)
     g1c, g2c = pt.g_cart_inv_nm[i1], pt.g_cart_inv_nm[i2]
-    sign = 1.0 if (a[0] * b[1] - a[1] * b[0]) > 0 else -1.0
-    zc = sign * np.cross(g1c, g2c)
+    sign = np.where(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0] > 0, 1.0, -1.0)
+    zc = sign[:, None] * np.cross(g1c, g2c)
     zc /= np.linalg.norm(zc, axis=1, keepdims=True)
     e1 = g1c / np.linalg.norm(g1c, axis=1, keepdims=True)
     e2 = np.cross(zc, e1)
     crys = np.stack([e1, e2, zc], axis=1)  # rows: crystal vectors that go to detector x', y', z
-    # in-plane: choose the rotation that best maps both g1 -> a and g2 -> b
+    # in-plane: the rotation that best maps both g1 -> a and g2 -> b
     p2 = np.stack([np.einsum("ij,ij->i", g2c, e1), np.einsum("ij,ij->i", g2c, e2)], axis=1)
-    th_a = math.atan2(a[1], a[0])
-    dth_b = math.atan2(b[1], b[0]) - th_a - np.arctan2(p2[:, 1], p2[:, 0])
+    th_a = np.arctan2(a[:, 1], a[:, 0])
+    dth_b = np.arctan2(b[:, 1], b[:, 0]) - th_a - np.arctan2(p2[:, 1], p2[:, 0])
     dth_b = (dth_b + np.pi) % (2 * np.pi) - np.pi
     g1n, g2n = pt.g_inv_nm[i1], pt.g_inv_nm[i2]
-    ra, rb = np.linalg.norm(a), np.linalg.norm(b)
-    wa, wb = ra * ra, rb * rb
-    th = th_a + dth_b * wb / (wa + wb)
+    ra, rb = np.linalg.norm(a, axis=1), np.linalg.norm(b, axis=1)
+    th = th_a + dth_b * rb * rb / (ra * ra + rb * rb)
     c, s = np.cos(th), np.sin(th)
     rz = np.zeros((len(rows), 3, 3))
     rz[:, 0, 0], rz[:, 0, 1], rz[:, 1, 0], rz[:, 1, 1], rz[:, 2, 2] = c, -s, s, c, 1.0
     u = np.einsum("nij,njk->nik", rz, crys)
     scale = (g1n * ra + g2n * rb) / (ra * ra + rb * rb)
-    h1, h2 = pt.hkl[i1], pt.hkl[i2]
-    uvw = np.cross(h1, h2) * int(sign)
+    uvw = np.cross(pt.hkl[i1], pt.hkl[i2]) * sign[:, None].astype(np.int64)
     g = np.gcd.reduce(np.abs(uvw), axis=1)
     uvw = uvw // np.maximum(g, 1)[:, None]
-    return u, scale, uvw, i1, i2
+    return u, scale, uvw
 
 
 def quick_scores(pt: PhaseIndexTable, u: np.ndarray, scale: np.ndarray, spots: SpotSet, *,
@@ -212,7 +214,7 @@ def quick_scores(pt: PhaseIndexTable, u: np.ndarray, scale: np.ndarray, spots: S
         return np.zeros(0)
     q = np.zeros((len(u), len(spots.r_px), 3))
     q[:, :, :2] = scale[:, None, None] * spots.v_px[None, :, :]
-    gc = np.einsum("nji,nsj->nsi", u, q)  # U^T q
+    gc = q @ u  # U^T q for every spot: (q U)_i = sum_j q_j U_ji
     a_mat = pt.phase.lattice.direct_matrix_nm
     h = gc @ a_mat  # h_j = g . a_j
     hr = np.rint(h)
@@ -228,59 +230,93 @@ def quick_scores(pt: PhaseIndexTable, u: np.ndarray, scale: np.ndarray, spots: S
 
 def find_candidates(tables: IndexTables, spots: SpotSet, *, scale_inv_nm_per_px: float | None,
                     length_tol: float, ratio_tol: float, angle_tol_deg: float, rel_pos_tol: float,
-                    phase_indices=None, per_zone: int = 2, max_candidates: int = 60) -> tuple[list[Candidate], int]:
-    """All table hits of all seed pairs, quick-scored and merged by (phase, Laue-equivalent zone).
+                    phase_indices=None, per_zone: int = 2, max_candidates: int = 24,
+                    good_enough: float = 0.85) -> tuple[list[Candidate], int]:
+    """All table hits of the seed pairs, quick-scored and merged by (phase, Laue-equivalent zone).
 
-    Returns the surviving candidates (best quick score first) and the number of raw hits.
+    Seed pairs are tried in two batches (the three best pairs first); the second batch runs for
+    the phases whose candidates explain less than `good_enough` of the spot weight so far. Returns the
+    surviving candidates (best quick score first; at most `max_candidates`, plus the best of
+    every phase that comes within 70 % of the best) and the number of raw table hits.
     """
     pairs = seed_pairs(spots)
-    out: list[Candidate] = []
+    qspots = _quick_subset(spots)
+    idxs = list(range(len(tables.phases)) if phase_indices is None else phase_indices)
+    found: list[Candidate] = []
     n_hits = 0
-    idxs = range(len(tables.phases)) if phase_indices is None else phase_indices
-    for pi in idxs:
-        pt = tables.phases[pi]
-        us, ks, zs, i1s, i2s = [], [], [], [], []
-        for a, b in pairs:
-            for x, y in ((a, b), (b, a)):
-                rows = _lookup(pt, x, y, scale=scale_inv_nm_per_px, length_tol=length_tol, ratio_tol=ratio_tol,
-                               angle_tol_deg=angle_tol_deg)
-                if len(rows) == 0:
-                    continue
-                u, k, uvw, i1, i2 = _orientations(pt, rows, x, y)
-                us.append(u), ks.append(k), zs.append(uvw), i1s.append(i1), i2s.append(i2)
-        if not us:
+    best_quick: dict[int, float] = {}
+    for batch in (pairs[:3], pairs[3:]):
+        if not batch:
             continue
-        u = np.concatenate(us)
-        k = np.concatenate(ks)
-        uvw = np.concatenate(zs)
-        i1 = np.concatenate(i1s)
-        i2 = np.concatenate(i2s)
-        n_hits += len(u)
-        qs = quick_scores(pt, u, k, spots, rel_tol=rel_pos_tol)
-        canon = _canonical(pt, uvw)
-        order = np.lexsort((-qs,))
-        taken: dict[tuple, int] = {}
-        for j in order:
-            key = canon[j]
-            if taken.get(key, 0) >= per_zone:
+        for pi in idxs:
+            if best_quick.get(pi, 0.0) >= good_enough:
+                continue  # this phase is explained already; later pairs would only find it again
+            pt = tables.phases[pi]
+            rows_l, a_l, b_l = [], [], []
+            for a, b in batch:
+                for x, y in ((a, b), (b, a)):
+                    rows = _lookup(pt, x, y, scale=scale_inv_nm_per_px, length_tol=length_tol, ratio_tol=ratio_tol,
+                                   angle_tol_deg=angle_tol_deg)
+                    if len(rows):
+                        rows_l.append(rows)
+                        a_l.append(np.broadcast_to(x, (len(rows), 2)))
+                        b_l.append(np.broadcast_to(y, (len(rows), 2)))
+            if not rows_l:
                 continue
-            taken[key] = taken.get(key, 0) + 1
-            out.append(Candidate(pi, int(i1[j]), int(i2[j]), tuple(int(v) for v in uvw[j]), key, u[j], float(k[j]),
-                                 float(qs[j])))
-    out.sort(key=lambda c: -c.quick)
-    if out:
-        best = out[0].quick
-        floor = max(0.25, 0.45 * best)
-        keep = [c for c in out if c.quick >= floor]
-        # keep the best of every phase too, for look-alike analysis and near-miss messages
-        have = {c.phase_index for c in keep}
-        for c in out:
-            if c.phase_index not in have:
-                keep.append(c)
-                have.add(c.phase_index)
-        out = keep[:max_candidates] + [c for c in keep[max_candidates:] if c.phase_index not in
-                                       {d.phase_index for d in keep[:max_candidates]}]
-    return out, n_hits
+            rows = np.concatenate(rows_l)
+            u, k, uvw = _orientations(pt, rows, np.concatenate(a_l), np.concatenate(b_l))
+            n_hits += len(rows)
+            qs = quick_scores(pt, u, k, qspots, rel_tol=rel_pos_tol)
+            best_quick[pi] = max(best_quick.get(pi, 0.0), float(qs.max()))
+            # only the promising hits need their Laue-equivalent zone worked out
+            order = np.argsort(-qs, kind="stable")
+            order = order[qs[order] >= max(0.2, 0.5 * float(qs[order[0]]))][:400]
+            canon = dict(zip(order.tolist(), _canonical(pt, uvw[order])))
+            taken: dict[tuple, int] = {}
+            for j in order:
+                key = canon[int(j)]
+                if taken.get(key, 0) >= per_zone:
+                    continue
+                taken[key] = taken.get(key, 0) + 1
+                found.append(Candidate(pi, int(pt.pair_i1[rows[j]]), int(pt.pair_i2[rows[j]]),
+                                       tuple(int(v) for v in uvw[j]), key, u[j], float(k[j]), float(qs[j])))
+    return _select(found, max_candidates), n_hits
+
+
+def _quick_subset(spots: SpotSet, n_max: int = 30) -> SpotSet:
+    """The `n_max` spots with the largest weights (renormalised), for the quick check."""
+    if len(spots.r_px) <= n_max:
+        return spots
+    keep = np.sort(np.argsort(-spots.weight, kind="stable")[:n_max])
+    w = spots.weight[keep] / spots.weight[keep].sum()
+    return SpotSet(spots.v_px[keep], spots.r_px[keep], spots.intensity[keep], w, spots.sigma_px[keep],
+                   spots.strong[keep], spots.v_seed_px[keep], spots.on_lattice[keep])
+
+
+def _select(found: list[Candidate], max_candidates: int) -> list[Candidate]:
+    """Best quick scores first; merge duplicates of one (phase, zone) found by several seed pairs."""
+    found.sort(key=lambda c: -c.quick)
+    merged: list[Candidate] = []
+    count: dict[tuple, int] = {}
+    for c in found:
+        key = (c.phase_index, c.canonical_zone)
+        if count.get(key, 0) >= 2:
+            continue
+        count[key] = count.get(key, 0) + 1
+        merged.append(c)
+    if not merged:
+        return merged
+    best = merged[0].quick
+    floor = max(0.25, 0.45 * best)
+    keep = [c for c in merged if c.quick >= floor][:max_candidates]
+    have = {c.phase_index for c in keep}
+    for c in merged:  # the best of every phase that comes close, for look-alikes and near misses
+        if c.phase_index not in have and c.quick >= 0.7 * best:
+            keep.append(c)
+            have.add(c.phase_index)
+    if not keep:
+        keep = merged[:1]
+    return keep
 
 
 def _canonical(pt: PhaseIndexTable, uvw: np.ndarray) -> list[tuple[int, int, int]]:

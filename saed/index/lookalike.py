@@ -1,26 +1,599 @@
-"""Look-alikes: which solutions cannot be told apart, what separates them, and which tilt decides."""
+"""Look-alikes: which solutions cannot be told apart, what separates them, and which tilt decides.
+
+Two solutions are compared spot by spot in the detector frame, each with its own refined
+orientation and scale: a predicted reflection of one that the other does not predict (allowed or
+reachable by double diffraction) is a *separating* spot; it is *decisive* when it is strong
+enough to be seen and the pattern says whether it is there. When nothing here decides, the
+tilt search looks for a tilt about a reflection row common to both (the row stays excited while
+tilting, so the operator can follow it) that brings one phase to a low-index zone where the two
+patterns differ: the beam sweeps the great circle of zones containing that row, and for each zone
+of the best solution within reach the other solution is carried along by the same rotation and
+its pattern at the new beam direction is compared. Tilts are right-handed rotations of the
+specimen about the row as it lies on the detector (azimuth from +x toward +y).
+
+Cases this is written for (check values in docs/indexing.md): fcc [112] vs hcp [01-10] cobalt
+(a 0.6 % ratio, undecidable; tilt 19.5 deg about 2-20 to fcc [111], where hcp reaches no zone),
+fcc [111] vs hcp [0001] (the hcp 10-10 spots coincide with the fcc 1/3{422} positions that
+thin foils and faults light up), ordered vs disordered alloys (superlattice spots), diamond vs
+fcc and zinc blende vs diamond (200 allowed, or only by double diffraction).
+"""
 
 from __future__ import annotations
 
-from dataclasses import replace
+import math
+from dataclasses import dataclass, replace
+from functools import lru_cache
 
+import numpy as np
+
+from saed.crystal.miller import format_indices, plane_to_4, direction_to_4
 from saed.index.mistilt import with_mistilt
-from saed.index.values import Lookalike, Solution
+from saed.index.values import Lookalike, Solution, TiltAdvice
+from saed.simulate.geometry import rotation_about_axis
+from saed.simulate.zone import zone_pattern
 
-__all__ = ["annotate"]
+__all__ = ["annotate", "compare", "separating_tilt", "SAED_RATIO_ACCURACY_PCT"]
+
+#: Relative accuracy of spacing ratios from one SAED pattern, percent (Williams & Carter 2009, ch. 18;
+#: common practice: 1-2 %). Differences below this cannot separate two solutions.
+SAED_RATIO_ACCURACY_PCT = 1.0
+
+#: Kinematic |F|^2 (strongest = 1) below which a predicted spot is "weak".
+WEAK_I = 0.02
+
+#: Largest tilt suggested, degrees (typical double-tilt holders reach +-25..30 deg per axis).
+MAX_SUGGESTED_TILT_DEG = 45.0
+
+#: Zone axes considered for tilts: indices up to this bound.
+TILT_ZONE_INDEX = 4
 
 
-def annotate(solutions: list[Solution], measured, tables, spots, *, holder_alpha_axis_deg=None) -> list[Solution]:
-    """Add mistilt and look-alike notes to ranked solutions (best first)."""
-    out = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in solutions]
-    if len(out) < 2:
-        return out
-    best = out[0]
-    looks = []
-    for other in out[1:]:
-        if other.score >= best.score - 0.1:
-            rel = "ambiguous" if other.score >= best.score - 0.03 else "close"
-            looks.append(Lookalike(other.phase_name, other.zone_axis, other.zone_axis_4, other.score, rel, "",
-                                   scale_inv_nm_per_px=other.scale_inv_nm_per_px))
-    out[0] = replace(best, lookalikes=tuple(looks))
+@dataclass(frozen=True)
+class _Pattern:
+    """A predicted pattern in the detector frame: vectors (1/nm), |F|^2 relative, flags, indices."""
+
+    xy: np.ndarray
+    inten: np.ndarray
+    allowed: np.ndarray
+    dd: np.ndarray
+    hkl: np.ndarray
+    holz_xy: np.ndarray
+    hexagonal: bool
+
+
+def _pattern_of(fit, g_max: float) -> _Pattern:
+    zp = fit.zone
+    allowed = ~zp.kinematically_forbidden
+    f = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
+    xy = fit.predicted_px * fit.scale
+    keep = (zp.g_inv_nm <= g_max) & (allowed | zp.double_diffraction)
+    holz = np.zeros((0, 2))
+    if getattr(fit, "holz_xy_inv_nm", None) is not None and len(fit.holz_xy_inv_nm):
+        holz = fit.holz_xy_inv_nm
+    return _Pattern(xy[keep], np.where(allowed, f * f, 0.0)[keep], allowed[keep], zp.double_diffraction[keep],
+                    zp.hkl[keep], holz, fit.table.phase.is_hexagonal)
+
+
+def _hkl_text(hkl, hexagonal: bool) -> str:
+    h = np.asarray(hkl, dtype=np.int64)
+    return format_indices(plane_to_4(h) if hexagonal else h)
+
+
+def _zone_text(uvw, hexagonal: bool) -> str:
+    u = np.asarray(uvw, dtype=np.int64)
+    return format_indices(direction_to_4(u) if hexagonal else u)
+
+
+def _sol_zone(sol: Solution) -> str:
+    return format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)
+
+
+def _near(a_xy: np.ndarray, b_xy: np.ndarray, *, rel: float, floor: float) -> tuple[np.ndarray, np.ndarray]:
+    """For each row of a: index of the nearest row of b and whether it lies within tolerance."""
+    if len(b_xy) == 0 or len(a_xy) == 0:
+        return np.full(len(a_xy), -1), np.zeros(len(a_xy), bool)
+    d = np.linalg.norm(a_xy[:, None, :] - b_xy[None, :, :], axis=2)
+    j = np.argmin(d, axis=1)
+    tol = np.maximum(rel * np.linalg.norm(a_xy, axis=1), floor)
+    return j, d[np.arange(len(a_xy)), j] <= tol
+
+
+@dataclass(frozen=True)
+class _Extra:
+    """Spots one solution predicts and the other does not, grouped by |g|."""
+
+    g_inv_nm: float
+    hkl: tuple
+    count: int
+    intensity: float  # kinematic, relative
+    observed: int  # how many have a measured spot
+    observed_strength: float  # median measured intensity / median indexed intensity
+    other_kind: str  # what the other solution has there: 'nothing', 'holz-projection'
+
+
+def _extras(p: _Pattern, q: _Pattern, meas_xy: np.ndarray, meas_i: np.ndarray, ref_i: float, *,
+            region_r: tuple[float, float], tol_rel: float, floor: float) -> list[_Extra]:
+    """Allowed spots of p (inside the observed radius range) with no counterpart in q."""
+    r = np.linalg.norm(p.xy, axis=1)
+    sel = p.allowed & (r >= region_r[0]) & (r <= region_r[1])
+    if not np.any(sel):
+        return []
+    idx = np.flatnonzero(sel)
+    _, hit = _near(p.xy[idx], q.xy, rel=tol_rel, floor=floor)
+    _, holz = _near(p.xy[idx], q.holz_xy, rel=tol_rel, floor=floor)
+    miss = idx[~hit]
+    holz_kind = dict(zip(idx.tolist(), holz.tolist()))
+    _, seen = _near(p.xy[miss], meas_xy, rel=tol_rel, floor=floor)
+    jm, _ = _near(p.xy[miss], meas_xy, rel=tol_rel, floor=floor)
+    groups: dict[float, list[int]] = {}
+    for k, row in enumerate(miss):
+        groups.setdefault(round(float(r[row]), 2), []).append(k)
+    out = []
+    for g, ks in sorted(groups.items()):
+        rows = miss[ks]
+        obs = [k for k in ks if seen[k]]
+        strength = float(np.median(meas_i[jm[obs]]) / ref_i) if obs and ref_i > 0 else 0.0
+        other = "holz-projection" if all(holz_kind[int(x)] for x in rows) else "nothing"
+        best = rows[np.argmax(p.inten[rows])]
+        out.append(_Extra(g, tuple(int(v) for v in p.hkl[best]), len(rows), float(np.max(p.inten[rows])), len(obs),
+                          strength, other))
     return out
+
+
+def _ratio_difference_pct(p: _Pattern, q: _Pattern, *, floor: float) -> float:
+    """Largest relative length difference of the spots the two patterns share (percent)."""
+    sel = p.allowed & (p.inten >= WEAK_I)
+    if not np.any(sel):
+        return 0.0
+    j, hit = _near(p.xy[sel], q.xy, rel=0.03, floor=floor)
+    if not np.any(hit):
+        return 0.0
+    a = np.linalg.norm(p.xy[sel][hit], axis=1)
+    b = np.linalg.norm(q.xy[j[hit]], axis=1)
+    ra = a / a.min()
+    rb = b / b[np.argmin(a)]
+    return float(100.0 * np.max(np.abs(ra / rb - 1.0)))
+
+
+def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g_max: float, calibrated: bool):
+    """Relation, separating text and whether a tilt is needed, for two solutions of one pattern."""
+    pb, po = _pattern_of(fit_b, g_max), _pattern_of(fit_o, g_max)
+    scale = best.scale_inv_nm_per_px
+    meas_xy = spots.v_px * scale
+    floor = 2.0 * scale
+    r_meas = np.linalg.norm(meas_xy, axis=1)
+    region = (0.35 * float(r_meas.min()), 1.02 * float(r_meas.max())) if len(r_meas) else (0.0, 0.0)
+    idx_int = [s.intensity for s in best.indexed if s.kind == "allowed"]
+    ref_i = float(np.median(idx_int)) if idx_int else 1.0
+    ex_o = _extras(po, pb, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
+    ex_b = _extras(pb, po, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
+    ratio_pct = _ratio_difference_pct(pb, po, floor=floor)
+    hexb, hexo = pb.hexagonal, po.hexagonal
+    name_b = f"{best.phase_name} [{_sol_zone(best)}]"
+    name_o = f"{other.phase_name} [{_sol_zone(other)}]"
+    parts = []
+    strong_evidence = weak_evidence = False
+    caution = ""
+
+    def listing(ex, hx):
+        items = [f"{_hkl_text(e.hkl, hx)} at {e.g_inv_nm:.2f}" + (" (weak)" if e.intensity < WEAK_I else "")
+                 for e in ex[:3]]
+        return ", ".join(items) + " 1/nm" + (" and more" if len(ex) > 3 else "")
+
+    for ex, who, whom, hx, mine in ((ex_o, name_o, name_b, hexo, False), (ex_b, name_b, name_o, hexb, True)):
+        plain = []
+        for e in ex:
+            holz_weak = e.other_kind == "holz-projection" and e.observed and e.observed_strength < 0.1
+            if holz_weak:
+                caution = (f"the {_hkl_text(e.hkl, hx)} spots of {who} are weak here, and weak spots at those "
+                           f"positions also arise in thin or faulted foils of {whom.split(' [')[0]} (projected "
+                           f"higher-order Laue-zone reflections), so they do not decide; strong ones would favour "
+                           f"{who.split(' [')[0]}")
+                continue
+            plain.append(e)
+            weak = e.intensity < WEAK_I
+            if weak and not e.observed:
+                weak_evidence = True
+            else:
+                strong_evidence = True
+        unseen = [e for e in plain if not e.observed]
+        seen = [e for e in plain if e.observed]
+        if mine:
+            if seen:
+                parts.append(f"{listing(seen, hx)} seen here have no place in {whom}")
+            if unseen:
+                parts.append(f"{who} also predicts {listing(unseen, hx)}: not seen")
+        else:
+            if unseen:
+                parts.append(f"{who} would add {listing(unseen, hx)}: not seen")
+            if seen:
+                strong = [e for e in seen if e.observed_strength >= 0.1]
+                parts.append(f"{who} explains {listing(seen, hx)} seen here ({'strong' if strong else 'weak'}), "
+                             f"which {whom} lacks")
+    relation = "close"
+    need_tilt = False
+    if not ex_o and not ex_b:
+        if ratio_pct < 0.3:
+            relation = "identical geometry" if not calibrated else "ambiguous"
+            if best.structure_type == other.structure_type and best.phase_name != other.phase_name:
+                d_pct = 100.0 * abs(best.scale_inv_nm_per_px / other.scale_inv_nm_per_px - 1.0)
+                parts.append(f"same structure and spot pattern; the cells differ by {d_pct:.2f} % in scale"
+                             + (" (below the calibration accuracy: an internal standard or another technique "
+                                "such as EDS decides)" if calibrated else
+                                f" (uncalibrated: the implied scale is {other.scale_inv_nm_per_px:.5g} 1/nm per px for "
+                                f"{other.phase_name})"))
+            else:
+                parts.append("the same spots at the same positions in this zone")
+                need_tilt = True
+        else:
+            relation = "ambiguous" if ratio_pct < SAED_RATIO_ACCURACY_PCT else "close"
+            parts.append(f"no spot differs; spacing ratios differ by {ratio_pct:.1f} %"
+                         + (" (below SAED accuracy, about 1-2 %)" if ratio_pct < SAED_RATIO_ACCURACY_PCT else ""))
+            need_tilt = relation == "ambiguous"
+    elif caution:
+        relation = "ambiguous"
+        parts.append(caution)
+        need_tilt = True
+    elif not strong_evidence and weak_evidence:
+        parts.append(f"only weak spots decide: {best.phase_name} is favoured (a longer exposure, or a dark-field "
+                     "image from one of those positions, makes sure)")
+    return relation, "; ".join(parts), need_tilt
+
+
+# ---------------------------------------------------------------------- tilt search
+@lru_cache(maxsize=8)
+def _index_directions(n: int) -> np.ndarray:
+    r = np.arange(-n, n + 1)
+    uvw = np.array(np.meshgrid(r, r, r, indexing="ij")).reshape(3, -1).T
+    uvw = uvw[np.any(uvw != 0, axis=1)]
+    g = np.gcd.reduce(np.abs(uvw), axis=1)
+    uvw = uvw[g == 1]
+    # one of +-uvw
+    key = np.sign(uvw[:, 0]) * 9 + np.sign(uvw[:, 1]) * 3 + np.sign(uvw[:, 2])
+    uvw = uvw[key > 0]
+    uvw.flags.writeable = False
+    return uvw
+
+
+def _nearest_zone(phase, beam_crystal: np.ndarray, *, max_index: int, tol_deg: float):
+    """Lowest-index zone of `phase` within `tol_deg` of a beam direction (crystal Cartesian), or None."""
+    uvw = _index_directions(max_index)
+    r = phase.lattice.r_cartesian_nm(uvw)
+    r /= np.linalg.norm(r, axis=1, keepdims=True)
+    b = beam_crystal / np.linalg.norm(beam_crystal)
+    cos = r @ b
+    ang = np.degrees(np.arccos(np.clip(np.abs(cos), -1, 1)))
+    ok = np.flatnonzero(ang <= tol_deg)
+    if len(ok) == 0:
+        j = int(np.argmin(ang))
+        return None, float(ang[j]), uvw[j] * int(np.sign(cos[j]) or 1)
+    j = ok[np.argmin(np.abs(uvw[ok]).sum(axis=1) * 10 + ang[ok])]
+    return uvw[j] * int(np.sign(cos[j]) or 1), float(ang[j]), None
+
+
+def _lab_pattern(phase, uvw, u_lab: np.ndarray, *, voltage_kv: float, g_max: float):
+    zp = zone_pattern(phase, uvw, voltage_kv=voltage_kv, max_g_inv_nm=g_max, include_holz=False)
+    allowed = ~zp.kinematically_forbidden
+    f = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
+    xy = (phase.lattice.g_cartesian_inv_nm(zp.hkl) @ u_lab.T)[:, :2]
+    return xy, np.where(allowed, f * f, 0.0), allowed, zp.double_diffraction, zp.hkl
+
+
+def _two_rows(pat) -> bool:
+    """True when a lab pattern has visible spots in two independent directions (a real zone pattern)."""
+    xy, inten, allowed = pat[0], pat[1], pat[2]
+    v = xy[allowed & (inten >= 1e-3)]
+    if len(v) < 2:
+        return False
+    u = v / np.linalg.norm(v, axis=1, keepdims=True)
+    return bool(np.any(np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0]) > 0.2))
+
+
+def _dissimilarity(a, b, *, floor: float, g_max: float) -> tuple[float, list, list]:
+    """Fraction of visible spots of either pattern without a counterpart, and the separating rows.
+
+    Spots are counted, not weighted by intensity, so weak superlattice spots count fully; a spot
+    the other pattern has only by double diffraction counts half.
+    """
+    def side(p, q):
+        xy, inten, allowed, dd, hkl = p
+        sel = allowed & (inten >= 2e-4) & (np.linalg.norm(xy, axis=1) <= g_max)
+        if not np.any(sel):
+            return 0, 0, []
+        qxy, _, qa, qdd, _ = q
+        present = qa | qdd
+        _, hit = _near(xy[sel], qxy[present], rel=0.012, floor=floor)
+        _, hit_dd = _near(xy[sel], qxy[qdd & ~qa], rel=0.012, floor=floor)
+        miss = np.flatnonzero(sel)[~hit]
+        miss = miss[np.argsort(-inten[miss], kind="stable")]
+        part = np.count_nonzero(~hit) + 0.5 * np.count_nonzero(hit & hit_dd)
+        return part, np.count_nonzero(sel), miss
+
+    ma, na, miss_a = side(a, b)
+    mb, nb, miss_b = side(b, a)
+    tot = na + nb
+    return (0.0 if tot == 0 else (ma + mb) / tot), list(miss_a), list(miss_b)
+
+
+def _zone_index(uvw, hexagonal: bool) -> int:
+    """Largest index of a zone axis in the notation people read (4-index for hexagonal axes)."""
+    u = np.asarray(uvw, dtype=np.int64)
+    return int(np.abs(direction_to_4(u) if hexagonal else u).max())
+
+
+def _zones_with_row(phase, hkl, max_index: int) -> np.ndarray:
+    """Zone axes [uvw] (one of each +-pair) containing reflection `hkl`, readable index <= max_index."""
+    cand = _index_directions(max_index + 1)
+    cand = cand[(cand @ np.asarray(hkl, dtype=np.int64)) == 0]
+    keep = [i for i, u in enumerate(cand) if _zone_index(u, phase.is_hexagonal) <= max_index]
+    return cand[keep]
+
+
+def _tilt_to(z_lab: np.ndarray, axis: np.ndarray) -> float:
+    """Signed right-handed rotation (deg) about `axis` that brings the unit vector z_lab onto +z."""
+    return math.degrees(math.atan2(float(np.cross(z_lab, [0.0, 0.0, 1.0]) @ axis), float(z_lab[2])))
+
+
+def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv: float,
+                    g_max: float = 10.0) -> TiltAdvice | None:
+    """The smallest tilt about a common row that reaches a zone where the two solutions differ.
+
+    Candidate tilts are those that bring either phase to a low-index zone containing the row;
+    at each, the other phase's beam direction follows from the same rotation, and the two
+    kinematic patterns are compared (:func:`_dissimilarity`). The merit prefers decisive
+    differences, small tilts and low-index target zones.
+    """
+    pa, pb = fit_b.table.phase, fit_o.table.phase
+    ua = np.asarray(best.orientation_matrix)
+    ub = np.asarray(other.orientation_matrix)
+    za, zb = fit_b.zone, fit_o.zone
+    ga = (pa.lattice.g_cartesian_inv_nm(za.hkl) @ ua.T)[:, :2]
+    gb = (pb.lattice.g_cartesian_inv_nm(zb.hkl) @ ub.T)[:, :2]
+    sel_a = np.flatnonzero((~za.kinematically_forbidden | za.double_diffraction) & (za.g_inv_nm <= g_max))
+    sel_b = np.flatnonzero(~zb.kinematically_forbidden | zb.double_diffraction)
+    rows = []
+    if len(sel_a) and len(sel_b):
+        j, hit = _near(ga[sel_a], gb[sel_b], rel=0.02, floor=0.05)
+        for k in np.flatnonzero(hit):
+            ia, ib = sel_a[k], sel_b[j[k]]
+            d = ga[ia] / np.linalg.norm(ga[ia])
+            if any(abs(float(d @ e)) > math.cos(math.radians(3.0)) for _, _, e in rows):
+                continue
+            rows.append((ia, ib, d))
+    rows.sort(key=lambda t: za.g_inv_nm[t[0]])
+    best_choice = None
+    zmax = 3
+    for ia, ib, d in rows[:4]:
+        axis = np.array([d[0], d[1], 0.0])
+        omegas = set()
+        for phase, u_m, h in ((pa, ua, za.hkl[ia]), (pb, ub, zb.hkl[ib])):
+            zs = _zones_with_row(phase, h, zmax)
+            if len(zs) == 0:
+                continue
+            zl = phase.lattice.r_cartesian_nm(zs) @ u_m.T
+            zl /= np.linalg.norm(zl, axis=1, keepdims=True)
+            for z in np.concatenate([zl, -zl]):
+                w = _tilt_to(z, axis)
+                if 3.0 <= abs(w) <= MAX_SUGGESTED_TILT_DEG:
+                    omegas.add(round(w, 2))
+        for omega in sorted(omegas, key=abs):
+            rot = rotation_about_axis(axis, omega)
+            ua2, ub2 = rot @ ua, rot @ ub
+            beam = np.array([0.0, 0.0, 1.0])
+            uvw_a, _, _ = _nearest_zone(pa, ua2.T @ beam, max_index=zmax + 1, tol_deg=0.5)
+            uvw_b, _, _ = _nearest_zone(pb, ub2.T @ beam, max_index=zmax + 1, tol_deg=1.0)
+            if uvw_a is not None and _zone_index(uvw_a, pa.is_hexagonal) > zmax:
+                uvw_a = None
+            if uvw_b is not None and _zone_index(uvw_b, pb.is_hexagonal) > zmax:
+                uvw_b = None
+            if uvw_a is None and uvw_b is None:
+                continue
+            pat_a = _lab_pattern(pa, uvw_a, ua2, voltage_kv=voltage_kv, g_max=g_max) if uvw_a is not None else None
+            pat_b = _lab_pattern(pb, uvw_b, ub2, voltage_kv=voltage_kv, g_max=g_max) if uvw_b is not None else None
+            if pat_a is not None and not _two_rows(pat_a):
+                uvw_a, pat_a = None, None
+            if pat_b is not None and not _two_rows(pat_b):
+                uvw_b, pat_b = None, None
+            if uvw_a is None and uvw_b is None:
+                continue
+            if pat_a is not None and pat_b is not None:
+                dis, miss_a, miss_b = _dissimilarity(pat_a, pat_b, floor=0.05, g_max=0.95 * g_max)
+            else:
+                dis, miss_a, miss_b = 1.0, [], []
+            index = min(_zone_index(u, p.is_hexagonal) for u, p in ((uvw_a, pa), (uvw_b, pb)) if u is not None)
+            merit = dis - abs(omega) / 120.0 - 0.06 * (index - 1)
+            if dis >= 0.2 and (best_choice is None or merit > best_choice[0]):
+                best_choice = (merit, omega, ia, ib, d, uvw_a, uvw_b, miss_a, miss_b, pat_a, pat_b, ua2, ub2)
+    if best_choice is None:
+        return None
+    _, omega, ia, ib, d, uvw_a, uvw_b, miss_a, miss_b, pat_a, pat_b, ua2, ub2 = best_choice
+    hexa, hexb = pa.is_hexagonal, pb.is_hexagonal
+    row_a = _hkl_text(za.hkl[ia], hexa)
+    row_b = _hkl_text(zb.hkl[ib], hexb)
+    az = math.degrees(math.atan2(d[1], d[0])) % 360.0
+    beam = np.array([0.0, 0.0, 1.0])
+
+    def reach(name, phase, uvw, u2, hexagonal):
+        if uvw is not None:
+            return f"{name} reaches [{_zone_text(uvw, hexagonal)}]"
+        near, off, far = _nearest_zone(phase, u2.T @ beam, max_index=zmax, tol_deg=90.0)
+        z = near if near is not None else far
+        return f"{name} reaches no low-index zone (nearest [{_zone_text(z, hexagonal)}], {off:.1f} deg away)"
+
+    text = (f"tilt {abs(omega):.1f} deg about the {row_a} row ({row_b} in {other.phase_name}; detector azimuth "
+            f"{az:.0f} deg, {'+' if omega > 0 else '-'} sense): {reach(best.phase_name, pa, uvw_a, ua2, hexa)}, "
+            f"{reach(other.phase_name, pb, uvw_b, ub2, hexb)}")
+    diffs = []
+    if miss_a:
+        diffs.append(f"{best.phase_name} shows {_hkl_text(pat_a[4][miss_a[0]], hexa)}")
+    if miss_b:
+        diffs.append(f"{other.phase_name} shows {_hkl_text(pat_b[4][miss_b[0]], hexb)}")
+    if diffs:
+        text += " (" + " and ".join(diffs) + " where the other has no spot)"
+    return TiltAdvice(angle_deg=float(omega), about_hkl=tuple(int(v) for v in za.hkl[ia]),
+                      about_hkl_other=tuple(int(v) for v in zb.hkl[ib]), about_azimuth_deg=float(az),
+                      target_zone=None if uvw_a is None else tuple(int(v) for v in uvw_a),
+                      other_target_zone=None if uvw_b is None else tuple(int(v) for v in uvw_b), text=text)
+
+
+# ---------------------------------------------------------------------- annotate ranked solutions
+def _atomic_volume_nm3(phase) -> float:
+    from saed.crystal.phase import cell_atoms
+
+    return phase.lattice.volume_nm3 / max(len(cell_atoms(phase).elements), 1)
+
+
+def _related(pa, pb) -> bool:
+    """Phases worth a 'ruled out' note: polymorphs and ordered variants (a shared element, atomic volume within 15 %)."""
+    ea = {s.element for s in pa.sites}
+    eb = {s.element for s in pb.sites}
+    if not ea & eb:
+        return False
+    va, vb = _atomic_volume_nm3(pa), _atomic_volume_nm3(pb)
+    return abs(va / vb - 1.0) <= 0.15
+
+
+def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, holder_alpha_axis_deg=None,
+             calibrated: bool, min_score: float, top: int) -> list[Solution]:
+    """Mistilt, merged identical-geometry twins and look-alike notes for ranked solutions.
+
+    `scored` holds (Solution, Fit) for every scored candidate, best first (including those below
+    `min_score`, which only serve as 'ruled out' look-alikes).
+    """
+    good = [(s, f) for s, f in scored if s.score >= min_score]
+    if not good:
+        return []
+    g_max = tables.max_g_inv_nm
+    # merge twins of identical geometry (uncalibrated isostructural phases) into the first one
+    kept: list[tuple[Solution, object, list[Lookalike]]] = []
+    for s, f in good:
+        twin_of = None
+        for k, (s0, f0, _) in enumerate(kept):
+            if s0.structure_type == s.structure_type and abs(s0.score - s.score) < 0.02 and not calibrated:
+                rel, text, _ = compare(s0, f0, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
+                if rel == "identical geometry":
+                    twin_of = k
+                    kept[k][2].append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
+                                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+                    break
+        if twin_of is None:
+            kept.append((s, f, []))
+    out: list[Solution] = []
+    for rank, (s, f, twins) in enumerate(kept[: top + 2]):
+        if rank < 3:
+            s = with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg)
+        looks = list(twins)
+        notes = list(s.notes)
+        if twins:
+            names = ", ".join(t.phase_name for t in twins[:6]) + (" ..." if len(twins) > 6 else "")
+            notes.append(f"uncalibrated: {names} index this pattern identically; the implied scale "
+                         "(camera length) tells them apart")
+        if rank == 0:
+            looks += _lookalikes_of_best(s, f, kept[1:], scored, measured, tables, spots, g_max=g_max,
+                                         calibrated=calibrated, min_score=min_score)
+            for lk in looks:
+                if lk.relation == "ambiguous":
+                    notes.append(f"ambiguous with {lk.phase_name} [{_lk_zone(lk)}]: {lk.separating}"
+                                 + (f"; {lk.tilt.text}" if lk.tilt else ""))
+        out.append(replace(s, lookalikes=tuple(looks), notes=tuple(notes)))
+    return out
+
+
+def _lk_zone(lk: Lookalike) -> str:
+    return format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
+
+
+def row_near_miss(phase_index: int, best: Solution, measured, tables, spots, *, calibrated: bool, length_tol: float,
+                  rel_pos_tol: float, max_zone_index: int = 2):
+    """The pattern of another phase that best matches the measured spots while sharing one of their rows.
+
+    For a related phase that found no candidate of its own (e.g. hcp cobalt for an fcc cobalt
+    pattern), the short strong measured spots are matched by length to reflections of that phase,
+    each zone containing such a reflection (index <= `max_zone_index`) is turned so that the
+    reflection lies along the spot, and the best of these is scored like any candidate.
+    """
+    from saed.index.candidates import Candidate, quick_scores
+    from saed.index.score import score_candidate
+    from saed.simulate.geometry import in_plane_rotation, orientation_matrix
+
+    pt = tables.phases[phase_index]
+    lat = pt.phase.lattice
+    scale = best.scale_inv_nm_per_px
+    order = np.argsort(spots.r_px)
+    seeds = [int(i) for i in order if spots.strong[i]][:3]
+    us, zones, rows = [], [], []
+    for i in seeds:
+        g_meas = float(spots.r_px[i] * scale)
+        near = np.flatnonzero(pt.allowed & (pt.f_rel >= 0.05) & (np.abs(pt.g_inv_nm / g_meas - 1) <= 0.03))
+        fams = {}
+        for r in near:
+            fams.setdefault(pt.canonical_zone(pt.hkl[r]), r)  # one reflection per family (same Laue action)
+        th = math.atan2(spots.v_px[i, 1], spots.v_px[i, 0])
+        for r in fams.values():
+            for uvw in _zones_with_row(pt.phase, pt.hkl[r], max_zone_index):
+                for sgn in (1, -1):
+                    z = (sgn * uvw).astype(np.int64)
+                    u0 = orientation_matrix(lat, z, 0.0)
+                    p = u0 @ pt.g_cart_inv_nm[r]
+                    phi = math.degrees(th - math.atan2(p[1], p[0]))
+                    us.append(in_plane_rotation(phi) @ u0)
+                    zones.append(tuple(int(v) for v in z))
+                    rows.append(r)
+    if not us:
+        return None
+    u = np.array(us)
+    qs = quick_scores(pt, u, np.full(len(u), scale), spots, rel_tol=rel_pos_tol)
+    simple = np.array([np.abs(z).sum() for z in zones])
+    best_fit = None
+    for j in np.lexsort((simple, -np.round(qs, 3)))[:3]:
+        c = Candidate(phase_index, int(rows[j]), int(rows[j]), zones[j], pt.canonical_zone(zones[j]), u[j], scale,
+                      float(qs[j]))
+        sol, fit = score_candidate(c, tables, spots, measured,
+                                   calibrated_scale=measured.calibration.scale_inv_nm_per_px if calibrated else None,
+                                   length_tol=length_tol, rel_pos_tol=rel_pos_tol,
+                                   pixel_pitch_um=measured.calibration.pixel_pitch_um)
+        if best_fit is None or sol.score > best_fit[0].score + 1e-3:
+            best_fit = (sol, fit)
+    return best_fit
+
+
+def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *, g_max, calibrated, min_score):
+    looks = []
+    seen_phases = {best.phase_name}
+    for s, f, _ in others[:6]:
+        if s.score < best.score - 0.15 or len(looks) >= 3:
+            continue
+        rel, text, need_tilt = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
+        tilt = separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv) if need_tilt else None
+        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text, tilt,
+                               scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+        seen_phases.add(s.phase_name)
+    # related phases further down (polymorphs, ordered variants): say why they lost
+    pa = fit_b.table.phase
+    for s, f in scored:
+        if s.phase_name in seen_phases or not _related(pa, f.table.phase) or len(looks) >= 5:
+            continue
+        seen_phases.add(s.phase_name)
+        rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
+        if rel == "close" and s.score < best.score - 0.1:
+            rel = "ruled out"
+        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
+                               scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+    # related phases with no candidate at all: the closest pattern that shares a row
+    from saed.index.match import DEFAULT_LENGTH_TOL_PCT, REL_POS_TOL
+
+    for pi, pt in enumerate(tables.phases):
+        if pt.name in seen_phases or not _related(pa, pt.phase) or len(looks) >= 5:
+            continue
+        seen_phases.add(pt.name)
+        nm = row_near_miss(pi, best, measured, tables, spots, calibrated=calibrated,
+                           length_tol=DEFAULT_LENGTH_TOL_PCT / 100.0, rel_pos_tol=REL_POS_TOL)
+        if nm is None:
+            continue
+        s, f = nm
+        rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
+        if rel == "close":
+            rel = "ruled out"
+        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel,
+                               "closest pattern sharing a spot row: " + text, scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+    return looks

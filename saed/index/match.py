@@ -110,19 +110,20 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
                                pitch=pitch)
     notes: list[str] = []
     message = ""
-    good = [s for s in solutions if s.score >= MIN_SCORE]
-    near = solutions[0] if solutions and not good else None
+    good = [s for s, _ in solutions if s.score >= MIN_SCORE]
+    near = solutions[0][0] if solutions and not good else None
     if scale is not None and (not good or good[0].score < 0.6):
         # Is the calibration wildly off? Index by ratios alone and compare the implied scale.
         free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch)
-        if free and free[0].score >= MIN_SCORE:
-            f = free[0].scale_inv_nm_per_px / scale
+        if free and free[0][0].score >= MIN_SCORE:
+            fs = free[0][0]
+            f = fs.scale_inv_nm_per_px / scale
             if f > 1.5 or f < 1 / 1.5:
-                message = (f"the pattern fits {free[0].phase_name} [{_zone_text(free[0])}] only at an implied scale of "
-                           f"{free[0].scale_inv_nm_per_px:.5g} 1/nm per px, {f:.2f} x the given {scale:.5g}: check the "
+                message = (f"the pattern fits {fs.phase_name} [{_zone_text(fs)}] only at an implied scale of "
+                           f"{fs.scale_inv_nm_per_px:.5g} 1/nm per px, {f:.2f} x the given {scale:.5g}: check the "
                            "calibration (camera length, binning, units)")
                 if not good:
-                    near = free[0]
+                    near = fs
     if not good:
         if not message:
             if near is not None:
@@ -134,29 +135,30 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
                 message = ("no solution: no pair of measured spots matches a reflection pair of "
                            f"{', '.join(names[:6])}{' ...' if len(names) > 6 else ''} within tolerance")
         return IndexResult(measured, (), message, near_miss=near, notes=tuple(notes), n_candidates=n_cand, phases=names)
-    good = good[:max(top, 1) + 4]
     if lookalikes:
         from saed.index.lookalike import annotate
 
-        good = annotate(good, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg)
+        ranked = annotate(solutions, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg,
+                          calibrated=scale is not None, min_score=MIN_SCORE, top=top)
     else:
         from saed.index.mistilt import with_mistilt
 
-        good = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good]
-    return IndexResult(measured, tuple(good[:top]), message, notes=tuple(notes), n_candidates=n_cand, phases=names)
+        ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good[:top]]
+    return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes), n_candidates=n_cand, phases=names)
 
 
-def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch) -> tuple[list[Solution], int]:
+def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch) -> tuple[list, int]:
+    """Score every candidate; (Solution, Fit) pairs, best first, one per (phase, Laue-equivalent zone)."""
     cands, n_hits = find_candidates(tables, spots, scale_inv_nm_per_px=scale, length_tol=length_tol,
                                     ratio_tol=RATIO_TOL, angle_tol_deg=angle_tol, rel_pos_tol=REL_POS_TOL)
-    best: dict[tuple, Solution] = {}
+    best: dict[tuple, tuple] = {}
     for c in cands:
-        sol, _fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
-                                    rel_pos_tol=REL_POS_TOL, pixel_pitch_um=pitch)
+        sol, fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
+                                   rel_pos_tol=REL_POS_TOL, pixel_pitch_um=pitch)
         key = (c.phase_index, c.canonical_zone)
-        if key not in best or sol.score > best[key].score:
-            best[key] = sol
-    ranked = sorted(best.values(), key=lambda s: (-s.score, s.phase_name, s.zone_axis))
+        if key not in best or sol.score > best[key][0].score:
+            best[key] = (sol, fit)
+    ranked = sorted(best.values(), key=lambda t: (-t[0].score, t[0].phase_name, t[0].zone_axis))
     return ranked, n_hits
 
 

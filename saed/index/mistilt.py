@@ -60,18 +60,17 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
     y = np.log(np.asarray(intensity, float)) - np.log(np.asarray(kinematic, float))
     k = 1.0 / electron_wavelength_nm(voltage_kv)
     g2 = np.sum(g * g, axis=1)
-    widths = np.geomspace(0.004, 0.3, 12)
-    th = np.radians(np.linspace(0.0, MAX_FIT_TILT_DEG, 61))
-    az = np.radians(np.arange(0.0, 360.0, 3.0))
+    widths = np.geomspace(0.004, 0.3, 9)
+    th = np.radians(np.linspace(0.0, MAX_FIT_TILT_DEG, 31))
+    az = np.radians(np.arange(0.0, 360.0, 6.0))
     cr = (k * np.sin(th))[:, None] * np.ones_like(az)[None, :]
     cx = (cr * np.cos(az)[None, :]).ravel()
     cy = (cr * np.sin(az)[None, :]).ravel()
     s = (2.0 * (cx[:, None] * g[None, :, 0] + cy[:, None] * g[None, :, 1]) - g2[None, :]) / (2.0 * k)  # (m, n)
 
-    def cost_grid(w):
-        pred = -(s / w) ** 2
-        off = np.median(y[None, :] - pred, axis=1)
-        return np.sum(np.abs(y[None, :] - pred - off[:, None]), axis=1)
+    def cost_grid(w):  # least squares with a free offset (the robust fit follows)
+        r = y[None, :] + (s / w) ** 2
+        return np.sum((r - r.mean(axis=1, keepdims=True)) ** 2, axis=1)
 
     best = (np.inf, 0, widths[0])
     for w in widths:
@@ -79,7 +78,6 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
         i = int(np.argmin(c))
         if c[i] < best[0]:
             best = (float(c[i]), i, w)
-    cost0 = min(float(cost_grid(w)[0]) for w in widths)  # index 0 is theta = 0
 
     def resid(p):
         c_vec, lw = p[:2], p[2]
@@ -100,6 +98,7 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
         c_vec = p0[:2]
         tilt = math.degrees(math.asin(min(1.0, float(np.linalg.norm(c_vec)) / k)))
     cost_fit = float(np.sum(np.abs(resid(np.array([c_vec[0], c_vec[1], p[2]])))))
+    cost0 = min(float(np.sum(np.abs(resid(np.array([0.0, 0.0, math.log(w)]))))) for w in widths)
     gain = 0.0 if cost0 <= 0 else max(0.0, 1.0 - cost_fit / cost0)
     return c_vec, tilt, gain
 

@@ -9,8 +9,8 @@ predicted positions), and the assignment is repeated. The figure of merit is
     score = M * (1 - 0.5 A) * (0.85 + 0.15 T) * S * Z
 
 with M the weighted agreement of the measured spots (position likelihood times a kind factor:
-allowed 1, forbidden but reachable by double diffraction 0.85, projection of a higher-order
-Laue-zone reflection 0.6 when weak and 0.15 when strong, forbidden with no route or
+allowed 1, forbidden but reachable by double diffraction 0.95, projection of a higher-order
+Laue-zone reflection 0.9 when weak and 0.15 when strong, forbidden with no route or
 unexplained 0), A the share of predicted kinematic intensity that is missing inside the
 observed region (Friedel pairs count as seen when either member is), T the rank correlation of
 measured and kinematic intensities (robust to dynamical scattering, used lightly), S the
@@ -23,6 +23,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy import stats
@@ -39,7 +40,7 @@ __all__ = ["Fit", "score_candidate", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_
 logger = logging.getLogger(__name__)
 
 #: Kind factor of a measured spot in the agreement term M.
-KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.85, "holz-weak": 0.6, "holz-strong": 0.15,
+KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.95, "holz-weak": 0.9, "holz-strong": 0.15,
                "forbidden": 0.0, "unindexed": 0.0}
 
 #: Projections of higher-order Laue-zone reflections are considered only when the reciprocal
@@ -48,7 +49,7 @@ KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.85, "holz-weak": 0.6, "ho
 HOLZ_LAYER_SPACING_MAX_INV_NM = 2.0
 
 #: A HOLZ-projection spot counts as weak below this fraction of the median indexed intensity.
-HOLZ_WEAK_FRACTION = 0.3
+HOLZ_WEAK_FRACTION = 0.1
 
 
 @dataclass(frozen=True, eq=False)
@@ -66,6 +67,7 @@ class Fit:
     seen: np.ndarray  # (n_zone,) bool, predicted row has a measured spot (or its Friedel mate does)
     in_region: np.ndarray  # (n_zone,) bool
     holz_hkl: np.ndarray  # (n_spots, 3) for holz-projection spots
+    holz_xy_inv_nm: np.ndarray  # (m, 2) projected HOLZ positions in the detector frame, 1/nm
 
 
 def _rot2(phi_rad: float) -> np.ndarray:
@@ -107,8 +109,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     phase = pt.phase
     lat = phase.lattice
     uvw = cand.zone_axis
-    zp = zone_pattern(phase, uvw, voltage_kv=tables.voltage_kv, max_g_inv_nm=tables.max_g_inv_nm,
-                      include_holz=False, thickness_nm=50.0)
+    zp, mate, holz_xy, holz_hkl = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
     u0 = orientation_matrix(lat, uvw, 0.0)
     m = cand.u_matrix @ u0.T
     phi = math.atan2(m[1, 0], m[0, 0])
@@ -119,15 +120,6 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     xy = np.asarray(zp.xy_inv_nm, float)
 
     # HOLZ projections (stacking-direction zones only)
-    holz_xy = np.zeros((0, 2))
-    holz_hkl = np.zeros((0, 3), np.int64)
-    if zp.layer_spacing_inv_nm <= HOLZ_LAYER_SPACING_MAX_INV_NM:
-        n_layer = pt.hkl @ np.asarray(uvw)
-        sel = pt.allowed & (np.abs(n_layer) >= 1) & (np.abs(n_layer) <= 2 * zp.layer_multiplicity)
-        if np.any(sel):
-            q = pt.g_cart_inv_nm[sel] @ u0.T
-            holz_xy = q[:, :2]
-            holz_hkl = pt.hkl[sel]
 
     n = len(spots.r_px)
     for _ in range(3):
@@ -191,7 +183,6 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     region = _observed_region(measured, spots, pred_px)
     seen = np.zeros(len(xy), bool)
     seen[j[ok]] = True
-    mate = _friedel_rows(zp.hkl)
     seen_pair = seen | np.where(mate >= 0, seen[np.maximum(mate, 0)], False)
     strength = np.where(allowed, f_rel ** 2, 0.0) * region
     total = float(strength.sum())
@@ -210,7 +201,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     scale_err = None
     if calibrated_scale is not None:
         scale_err = scale / calibrated_scale - 1.0
-        scale_term = math.exp(-0.5 * (scale_err / max(length_tol, 1e-6)) ** 2)
+        scale_term = math.exp(-0.5 * (scale_err / max(length_tol / 1.5, 1e-6)) ** 2)
     zone_term = 1.0 - 0.002 * (max(abs(v) for v in uvw) - 1)
     score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * scale_term * zone_term
 
@@ -273,8 +264,62 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     )
     fit = Fit(table=pt, zone=zp, uvw=uvw, phi_deg=math.degrees(phi), scale=float(scale), assigned=np.where(ok, j, -1),
               kinds=tuple(kinds), predicted_px=pred_px, seen=seen_pair, in_region=region,
-              holz_hkl=np.array([holz_hkl[x] if x >= 0 else [0, 0, 0] for x in holz_j], np.int64).reshape(-1, 3))
+              holz_hkl=np.array([holz_hkl[x] if x >= 0 else [0, 0, 0] for x in holz_j], np.int64).reshape(-1, 3),
+              holz_xy_inv_nm=holz_xy @ _rot2(phi).T)
     return sol, fit
+
+
+@lru_cache(maxsize=4096)
+def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: float):
+    pt = pt_ref()
+    zp = zone_pattern(pt.phase, uvw, voltage_kv=voltage_kv, max_g_inv_nm=max_g_inv_nm, include_holz=False,
+                      thickness_nm=50.0)
+    u0 = orientation_matrix(pt.phase.lattice, uvw, 0.0)
+    holz_xy, holz_hkl = _holz_projections(pt, zp, uvw, u0)
+    return zp, _friedel_rows(zp.hkl), holz_xy, holz_hkl
+
+
+def _zone_facts(pt: PhaseIndexTable, uvw: tuple, voltage_kv: float, max_g_inv_nm: float):
+    """The zone pattern of a candidate zone plus what scoring derives from it (cached per zone)."""
+    import weakref
+
+    return _zone_facts_cached(weakref.ref(pt), uvw, voltage_kv, max_g_inv_nm)  # a weak key: tables are not pinned
+
+
+def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):
+    """Projected positions (zone frame, 1/nm) of the first higher-order layers, where thin foils show spots.
+
+    Only for stacking-direction zones: the reciprocal layers lie closer than
+    HOLZ_LAYER_SPACING_MAX_INV_NM and the projection of a first-layer point is a 1/2 or 1/3
+    fraction of a zero-layer lattice vector (fcc <111>: the 1/3{422} positions). Elsewhere the
+    projections would be a dense, meaningless net.
+    """
+    empty = (np.zeros((0, 2)), np.zeros((0, 3), np.int64))
+    if zp.layer_spacing_inv_nm > HOLZ_LAYER_SPACING_MAX_INV_NM:
+        return empty
+    n_layer = pt.hkl @ np.asarray(uvw)
+    p = zp.layer_multiplicity
+    sel = pt.allowed & (np.abs(n_layer) >= p) & (np.abs(n_layer) <= 2 * p)
+    if not np.any(sel):
+        return empty
+    q = (pt.g_cart_inv_nm[sel] @ u0.T)[:, :2]
+    zolz = np.asarray(zp.xy_inv_nm)[zp.laue_zone == 0]
+    first = np.flatnonzero(np.abs(n_layer[sel]) == p)
+    if len(first) == 0 or len(zolz) == 0:
+        return empty
+    shift = q[first[np.argmin(np.linalg.norm(q[first], axis=1))]]
+    lattice_like = False
+    for m in (2, 3):
+        d = np.min(np.linalg.norm(zolz - m * shift[None, :], axis=1))
+        if d < 1e-3 * max(1.0, float(np.linalg.norm(m * shift))) or np.linalg.norm(m * shift) < 1e-9:
+            lattice_like = True
+            break
+    if not lattice_like:
+        return empty
+    # drop projections that coincide with zero-layer reflections
+    dz = np.min(np.linalg.norm(q[:, None, :] - zolz[None, :, :], axis=2), axis=1)
+    keep = dz > 1e-3
+    return q[keep], pt.hkl[sel][keep]
 
 
 def _friedel_rows(hkl: np.ndarray) -> np.ndarray:

@@ -3,7 +3,9 @@
 For tests and the accuracy benchmark at the matcher's own level (no image): spot positions from
 :func:`saed.simulate.zone.zone_pattern` on the detector, with position noise, log-normal
 "dynamical-like" intensity noise, optional double-diffraction spots, a beam-stop half-plane,
-an elliptical projector distortion and a mistilt. The full image route (render, detect, index)
+an elliptical projector distortion and a mistilt. Intensities are |F|^2 exp(-(s/w)^2), s the
+exact excitation error and w = ``excitation_width_inv_nm`` (a stand-in for a thin bent foil and a
+convergent beam). The full image route (render, detect, index)
 is exercised by the demo and the benchmark through :mod:`saed.synth`.
 """
 
@@ -37,7 +39,7 @@ class SyntheticTruth:
 
 def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
                        in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
-                       thickness_nm: float = 8.0, image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 12.0,
+                       thickness_nm: float = 8.0, excitation_width_inv_nm: float = 0.1, image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 12.0,
                        position_noise_px: float = 0.15, intensity_noise: float = 0.3, min_intensity: float = 2e-3,
                        double_diffraction: float = 0.0, ellipse: Ellipse | None = None, calibrated: bool = True,
                        beam_stop_azimuth_deg: float | None = None, extra_spots_xy_px=None, pixel_pitch_um=None,
@@ -55,7 +57,11 @@ def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv
                       tilt_toward_hkl=tilt_toward_hkl, thickness_nm=thickness_nm, include_holz=False)
     h, w = image_shape
     cx, cy = ((w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2) if center_px is None else center_px
-    inten = np.array(zp.intensity, float)
+    # |F|^2 times a broad excitation envelope: a thin, slightly bent foil and a convergent beam
+    # keep reflections visible well off the Bragg condition, as in recorded SAED patterns
+    f2 = np.where(zp.kinematically_forbidden, 0.0, np.asarray(zp.f_abs, float) ** 2)
+    inten = f2 * np.exp(-(np.asarray(zp.excitation_error_inv_nm) / excitation_width_inv_nm) ** 2)
+    inten = inten / max(float(inten.max()), 1e-30)
     if double_diffraction > 0:
         inten = np.where(zp.double_diffraction, double_diffraction, inten)
     keep = (zp.laue_zone == 0) & (inten >= min_intensity)

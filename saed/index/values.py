@@ -86,14 +86,15 @@ class TiltAdvice:
     Tilt the specimen by ``angle_deg`` about the reflection row ``about_hkl`` of the best solution
     (``about_hkl_other`` the same row indexed in the other phase), which lies at
     ``about_azimuth_deg`` on the detector; the best solution then reaches ``target_zone``, the other
-    ``other_target_zone`` (None when it reaches no low-index zone).
+    ``other_target_zone`` (either None when that phase reaches no low-index zone there).
+    ``angle_deg`` is signed: right-handed about the row direction as drawn on the detector.
     """
 
     angle_deg: float
     about_hkl: tuple[int, ...]
     about_hkl_other: tuple[int, ...] | None
     about_azimuth_deg: float
-    target_zone: tuple[int, ...]
+    target_zone: tuple[int, ...] | None
     other_target_zone: tuple[int, ...] | None
     text: str
 
