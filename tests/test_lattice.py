@@ -35,6 +35,13 @@ def _gemmi_cell(a, b, c, alpha, beta, gamma):
     return gemmi.UnitCell(10 * a, 10 * b, 10 * c, alpha, beta, gamma)  # nm -> Angstrom
 
 
+def _angle_deg(v1, v2):
+    """Angle between two Cartesian vectors (reference side): arccos of the normalised dot product."""
+    v1, v2 = np.asarray(v1, float), np.asarray(v2, float)
+    cos = v1 @ v2 / (np.linalg.norm(v1) * np.linalg.norm(v2))
+    return math.degrees(math.acos(max(-1.0, min(1.0, cos))))
+
+
 # --- against gemmi.UnitCell ----------------------------------------------------------------------
 @given(cell=cells(), hkl=HKL)
 def test_d_spacing_and_volume_match_gemmi(cell, hkl):
@@ -58,10 +65,7 @@ def test_cartesian_frame_matches_gemmi_orthogonalisation(cell):
 def test_plane_angle_matches_gemmi_reciprocal_cell(cell, h1, h2):
     # Independent route: plane normals as Cartesian vectors of gemmi's reciprocal cell.
     rec = _gemmi_cell(*cell).reciprocal()
-    g1 = np.array(rec.orthogonalize(gemmi.Fractional(*h1)).tolist())
-    g2 = np.array(rec.orthogonalize(gemmi.Fractional(*h2)).tolist())
-    cos = g1 @ g2 / (np.linalg.norm(g1) * np.linalg.norm(g2))
-    ref = math.degrees(math.acos(max(-1.0, min(1.0, cos))))
+    ref = _angle_deg(rec.orthogonalize(gemmi.Fractional(*h1)).tolist(), rec.orthogonalize(gemmi.Fractional(*h2)).tolist())
     lat = Lattice(*cell)
     assert float(lat.plane_angle_deg(h1, h2)) == pytest.approx(ref, abs=1e-5)
     assert float(lat.plane_angle_deg(h1, h2)) == pytest.approx(float(lat.plane_angle_deg(h2, h1)), abs=1e-9)
@@ -71,9 +75,7 @@ def test_plane_angle_matches_gemmi_reciprocal_cell(cell, h1, h2):
 def test_direction_angle_matches_gemmi_orthogonalisation(cell, u1, u2):
     ref_cell = _gemmi_cell(*cell)
     r1 = np.array(ref_cell.orthogonalize(gemmi.Fractional(*u1)).tolist())
-    r2 = np.array(ref_cell.orthogonalize(gemmi.Fractional(*u2)).tolist())
-    cos = r1 @ r2 / (np.linalg.norm(r1) * np.linalg.norm(r2))
-    ref = math.degrees(math.acos(max(-1.0, min(1.0, cos))))
+    ref = _angle_deg(r1, ref_cell.orthogonalize(gemmi.Fractional(*u2)).tolist())
     lat = Lattice(*cell)
     assert float(lat.direction_angle_deg(u1, u2)) == pytest.approx(ref, abs=1e-5)
     assert float(lat.direction_angle_deg(u1, u2)) == pytest.approx(float(lat.direction_angle_deg(u2, u1)), abs=1e-9)
@@ -86,8 +88,7 @@ def test_plane_direction_angle(cell, hkl, uvw):
     # F = O^-1 gemmi's fractionalisation matrix (g . r = h . u).
     ref_cell = _gemmi_cell(*cell)
     g = np.array(ref_cell.frac.mat.tolist()).T @ np.array(hkl, float)
-    r = np.array(ref_cell.orthogonalize(gemmi.Fractional(*uvw)).tolist())
-    ref = math.degrees(math.acos(max(-1.0, min(1.0, g @ r / (np.linalg.norm(g) * np.linalg.norm(r))))))
+    ref = _angle_deg(g, ref_cell.orthogonalize(gemmi.Fractional(*uvw)).tolist())
     assert float(Lattice(*cell).plane_direction_angle_deg(hkl, uvw)) == pytest.approx(ref, abs=1e-5)
 
 
