@@ -126,10 +126,55 @@ def inversion_centre(image, *, mask=None, hint_px=None, search_px: float | None 
     return (cx * step + (step - 1) / 2.0, cy * step + (step - 1) / 2.0)
 
 
+def _grid_fit(x, y, w, grid, sigma_px):
+    """Weighted least-squares A*gauss(x; mu, sigma) + c0 + c1 (x - mean x) for every mu of `grid`.
+
+    x (B,), y and w (S, B), grid (S, M) positions per sector. Returns (chi2 (S, M), amplitude (S, M)).
+    """
+    xc = x - x.mean()
+    g = np.exp(-0.5 * ((x[None, None, :] - grid[:, :, None]) / sigma_px) ** 2)  # (S, M, B)
+    ones = np.ones_like(x)
+    # Normal equations of the three basis functions (g, 1, xc), written out.
+    wg = w[:, None, :] * g
+    s_gg = (wg * g).sum(-1)
+    s_g1 = wg.sum(-1)
+    s_gx = (wg * xc).sum(-1)
+    s_11 = np.broadcast_to((w * ones).sum(-1)[:, None], s_gg.shape)
+    s_1x = np.broadcast_to((w * xc).sum(-1)[:, None], s_gg.shape)
+    s_xx = np.broadcast_to((w * xc * xc).sum(-1)[:, None], s_gg.shape)
+    ata = np.stack([np.stack([s_gg, s_g1, s_gx], -1), np.stack([s_g1, s_11, s_1x], -1),
+                    np.stack([s_gx, s_1x, s_xx], -1)], -2) + 1e-9 * np.eye(3)
+    wy = w * y
+    aty = np.stack([(wy[:, None, :] * g).sum(-1), np.broadcast_to(wy.sum(-1)[:, None], s_gg.shape),
+                    np.broadcast_to((wy * xc).sum(-1)[:, None], s_gg.shape)], -1)
+    coef = np.linalg.solve(ata, aty[..., None])[..., 0]
+    yy = (wy * y).sum(-1)[:, None]
+    chi = yy - np.einsum("smi,smi->sm", coef, aty)  # at the optimum, c^T A^T W A c = c^T A^T W y
+    return chi, coef[..., 0]
+
+
+def _best_on_grid(chi, grid):
+    """Grid minimum per sector refined by a parabola through its neighbours; (mu, index, inner)."""
+    n_s, m = chi.shape
+    best = np.argmin(chi, axis=1)
+    i = np.arange(n_s)
+    inner = (best > 0) & (best < m - 1)
+    lo = chi[i, np.clip(best - 1, 0, None)]
+    hi = chi[i, np.clip(best + 1, None, m - 1)]
+    mid = chi[i, best]
+    den = lo - 2 * mid + hi
+    step = grid[:, 1] - grid[:, 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(inner & (den > 0), 0.5 * (lo - hi) / den, 0.0)
+    return grid[i, best] + np.clip(shift, -1, 1) * step, best, inner
+
+
 def _sector_peaks(mean, count, radii, r0, half_px, sigma_px):
     """Radius of a Gaussian ring (fixed sigma) in every sector row of mean/count within r0 +- half_px.
 
-    Returns (mu, amplitude, snr) per sector (NaN where no fit).
+    A coarse grid of positions (sigma/3 apart) shared by all sectors, then a fine one (sigma/24 apart)
+    around each sector's best, each refined by a parabola. Returns (mu, amplitude, snr) per sector
+    (NaN where no fit).
     """
     sel = np.abs(radii - r0) <= half_px
     x = radii[sel]
@@ -140,37 +185,20 @@ def _sector_peaks(mean, count, radii, r0, half_px, sigma_px):
     nan = np.full(n_s, np.nan)
     if len(x) < 6:
         return nan, nan, nan
-    step = min(0.1, sigma_px / 8)
-    grid = np.arange(r0 - half_px + sigma_px, r0 + half_px - sigma_px + 1e-9, step)
-    if len(grid) < 3:
-        grid = np.linspace(r0 - 0.5 * half_px, r0 + 0.5 * half_px, 11)
-    xc = x - x.mean()
-    g = np.exp(-0.5 * ((x[None, :] - grid[:, None]) / sigma_px) ** 2)  # (M, B)
-    # Weighted normal equations for (A, c0, c1) per (sector, grid position).
-    basis = np.stack([g, np.broadcast_to(np.ones_like(x), g.shape), np.broadcast_to(xc, g.shape)], axis=-1)  # (M,B,3)
-    m_grid, n_b = g.shape
-    outer = (basis[..., :, None] * basis[..., None, :]).reshape(m_grid, n_b, 9)
-    ata = np.tensordot(w, outer, axes=([1], [1])).reshape(n_s, m_grid, 3, 3)  # (S, M, 3, 3)
-    aty = np.tensordot(w * y, basis, axes=([1], [1]))  # (S, M, 3)
-    ata = ata + 1e-9 * np.eye(3)
-    coef = np.linalg.solve(ata, aty[..., None])[..., 0]  # (S, M, 3)
-    # Weighted residual sum of squares: sum w y^2 - 2 c.(A^T W y) + c^T (A^T W A) c.
-    yy = (w * y * y).sum(axis=1)[:, None]
-    chi = yy - 2 * np.einsum("smi,smi->sm", coef, aty) + np.einsum("smi,smij,smj->sm", coef, ata, coef)
-    best = np.argmin(chi, axis=1)
-    mu = grid[best].astype(np.float64)
-    inner = (best > 0) & (best < len(grid) - 1)
+    coarse = np.arange(r0 - half_px + sigma_px, r0 + half_px - sigma_px + 1e-9, sigma_px / 3)
+    if len(coarse) < 3:
+        coarse = np.linspace(r0 - 0.5 * half_px, r0 + 0.5 * half_px, 7)
+    chi1, _ = _grid_fit(x, y, w, np.broadcast_to(coarse, (n_s, len(coarse))), sigma_px)
+    mu1, _, inner = _best_on_grid(chi1, np.broadcast_to(coarse, (n_s, len(coarse))))
+    fine_step = sigma_px / 24
+    fine = mu1[:, None] + fine_step * np.arange(-6, 7)[None, :]
+    chi2, amp2 = _grid_fit(x, y, w, fine, sigma_px)
+    mu, best, _ = _best_on_grid(chi2, fine)
     i = np.arange(n_s)
-    lo = chi[i, np.clip(best - 1, 0, None)]
-    hi = chi[i, np.clip(best + 1, None, len(grid) - 1)]
-    mid = chi[i, best]
-    den = lo - 2 * mid + hi
-    with np.errstate(invalid="ignore", divide="ignore"):
-        shift = np.where(inner & (den > 0), 0.5 * (lo - hi) / den, 0.0)
-    mu = mu + np.clip(shift, -1, 1) * step
-    amp = coef[i, best, 0]
+    amp = amp2[i, best]
+    mid = chi2[i, best]
     n_eff = np.maximum((w > 0).sum(axis=1) - 4, 1)
-    resid_sd = np.sqrt(mid / np.maximum(w.sum(axis=1), 1e-12) * (w > 0).sum(axis=1) / n_eff)
+    resid_sd = np.sqrt(np.clip(mid, 0, None) / np.maximum(w.sum(axis=1), 1e-12) * (w > 0).sum(axis=1) / n_eff)
     # Noise of the amplitude ~ residual sd / sqrt(bins under the peak).
     snr = amp / np.maximum(resid_sd / np.sqrt(max(2.5 * sigma_px / (x[1] - x[0]), 1.0)), 1e-12)
     ok = inner & (amp > 0) & ((w > 0).sum(axis=1) >= 0.6 * len(x))

@@ -38,8 +38,10 @@ __all__ = ["ObservedRings", "RingMatch", "evaluate", "match_scale", "POSITION_FL
 
 #: Systematic floor of the relative ring-position uncertainty (residual distortion, calibration).
 POSITION_FLOOR_REL = 0.001
-#: Largest |g| of the ring lists used (1/nm).
+#: Largest |g| of the ring lists used while searching the scale (1/nm).
 MAX_LINE_G_INV_NM = 20.0
+#: Largest |g| of the ring lists once a scale is proposed (rings out to the edge of the detector).
+MAX_EXTENDED_G_INV_NM = 30.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -129,31 +131,31 @@ def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: floa
 
     Returns (rho (n,), spread (n,), design (n, n_phases), members: list of [(p, j), ...]).
     """
-    rows = []
+    rho_l, ph_l, j_l, w_l = [], [], [], []
     for p, ln in enumerate(lines):
         rho = ln.g_inv_nm / scale
         keep = np.nonzero((rho >= r_lo) & (rho <= r_hi))[0]
-        rows.extend((float(rho[j]), p, int(j), float(ln.intensity[j])) for j in keep)
-    rows.sort()
-    rho_b, spread_b, design, members = [], [], [], []
-    i = 0
+        rho_l.append(rho[keep])
+        ph_l.append(np.full(len(keep), p))
+        j_l.append(keep)
+        w_l.append(np.maximum(ln.intensity[keep], 1e-9))
+    rho = np.concatenate(rho_l)
     n_ph = len(lines)
-    while i < len(rows):
-        k = i + 1
-        while k < len(rows) and rows[k][0] - rows[k - 1][0] < blend_px:
-            k += 1
-        grp = rows[i:k]
-        w = np.array([max(g[3], 1e-9) for g in grp])
-        r = np.array([g[0] for g in grp])
-        rho_b.append(float((w * r).sum() / w.sum()))
-        spread_b.append(float(r.max() - r.min()))
-        d = np.zeros(n_ph)
-        for g in grp:
-            d[g[1]] += g[3]
-        design.append(d)
-        members.append([(g[1], g[2]) for g in grp])
-        i = k
-    return (np.array(rho_b), np.array(spread_b), np.array(design).reshape(-1, n_ph), members)
+    if len(rho) == 0:
+        return np.zeros(0), np.zeros(0), np.zeros((0, n_ph)), []
+    order = np.argsort(rho, kind="stable")
+    rho, ph, jj, w = rho[order], np.concatenate(ph_l)[order], np.concatenate(j_l)[order], np.concatenate(w_l)[order]
+    starts = np.concatenate([[0], np.nonzero(np.diff(rho) >= blend_px)[0] + 1])
+    ends = np.concatenate([starts[1:], [len(rho)]])
+    wsum = np.add.reduceat(w, starts)
+    rho_b = np.add.reduceat(w * rho, starts) / wsum
+    spread_b = rho[ends - 1] - rho[starts]
+    group = np.repeat(np.arange(len(starts)), ends - starts)
+    design = np.zeros((len(starts), n_ph))
+    np.add.at(design, (group, ph), w)
+    pairs = list(zip(ph.tolist(), jj.tolist()))
+    members = [pairs[a:b] for a, b in zip(starts.tolist(), ends.tolist())]
+    return rho_b, spread_b, design, members
 
 
 def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px: float, *, tol_rel: float = 0.01,
@@ -311,16 +313,22 @@ def match_scale(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm_per
         s = cands[c]
         if all(abs(s / t - 1) > 0.003 for t in picked):
             picked.append(s)
-        if len(picked) >= 12:
+        if len(picked) >= 8:
             break
     results = []
     for s in picked:
-        m = evaluate(obs, lines, s, tol_rel=tol_rel, prior=prior)
+        g_out = obs.r_max_px * s * 1.05
+        if g_out > min(ln.max_g_inv_nm for ln in lines):  # rings beyond the lists: extend them for this scale
+            lines_s = [ring_lines(ln.phase, float(min(max(g_out, ln.max_g_inv_nm), MAX_EXTENDED_G_INV_NM)))
+                       for ln in lines]
+        else:
+            lines_s = lines
+        m = evaluate(obs, lines_s, s, tol_rel=tol_rel, prior=prior)
         for _ in range(4):
             s_new, sig = _refine_scale(obs, m, prior)
             if not lo <= s_new <= hi:
                 break
-            m_new = evaluate(obs, lines, s_new, tol_rel=tol_rel, prior=prior, scale_sigma_rel=sig)
+            m_new = evaluate(obs, lines_s, s_new, tol_rel=tol_rel, prior=prior, scale_sigma_rel=sig)
             converged = abs(s_new / m.scale_inv_nm_per_px - 1) < 1e-7
             m = m_new
             if converged:

@@ -136,13 +136,15 @@ def _search_range(shape, center, mask, coords, img_for_range=None) -> tuple[floa
         lp = np.log(np.clip(ndimage.gaussian_filter1d(prof[:third], 1.0), 1e-3, None))
         # A beam-stop edge is a step up of the profile (by more than 1.5x over 6 px).
         rise = lp[6:] - lp[:-6]
+        start = 0
         if len(rise) and rise.max() > math.log(1.5):
-            r_min = max(r_min, float(np.argmax(rise) + 6) + max(6.0, 0.01 * min(nx, ny)))
-        # The direct-beam tail: where the profile still falls faster than 5 % per pixel.
-        fall = -(lp[1:] - lp[:-1])
-        steep = np.nonzero(fall[: third // 2] > 0.05)[0]
-        if len(steep):
-            r_min = max(r_min, float(steep[-1]) + 4.0)
+            start = int(np.argmax(rise)) + 6
+            r_min = max(r_min, start + max(6.0, 0.01 * min(nx, ny)))
+        # The direct-beam tail: from there on, out to where the profile first falls slower than 5 % per px.
+        fall = -(ndimage.gaussian_filter1d(lp, 2.0)[1:] - ndimage.gaussian_filter1d(lp, 2.0)[:-1])
+        gentle = np.nonzero(fall[start:] < 0.05)[0]
+        if len(gentle):
+            r_min = max(r_min, float(start + gentle[0]) + 4.0)
     outer = np.nonzero(usable)[0]
     r_max = float(outer[-1]) if len(outer) else float(n)
     return r_min, r_max

@@ -1,0 +1,217 @@
+"""``saed calibrate``: the detector scale, centre and ellipse from a pattern of a known standard; the history."""
+
+from __future__ import annotations
+
+import math
+
+from saed.cli.common import finite_float, positive_float, write_json
+from saed.errors import InputError
+
+NAME = "calibrate"
+HELP = "calibrate the detector from a standard (Au/Al ring pattern, or a single crystal with --zone); --list the history"
+DESCRIPTION = (
+    "Find the detector scale (1/nm per pixel), the pattern centre and the projector's elliptical distortion from a "
+    "recorded pattern of a known standard: the ring pattern of a polycrystalline film (Au, Al, or any built-in or "
+    "CIF phase), or a single-crystal zone-axis pattern with --zone (e.g. Si --zone 0 1 1). With --pixel-pitch the "
+    "camera length and camera constant are given too. Every calibration is also filed in the calibration history "
+    "(see --history); 'saed calibrate --list' shows it per camera length."
+)
+ORDER = 30
+
+
+def add_arguments(p):
+    p.add_argument("image", nargs="?", metavar="IMAGE", help="pattern of the standard (TIFF, PNG, JPEG or .npy)")
+    p.add_argument("--standard", metavar="PHASE", help="the standard: built-in phase name (Au, Al, Si, ...) or CIF path")
+    p.add_argument("--zone", nargs="+", metavar="U",
+                   help="the pattern is a single crystal on this zone axis [uvw] (default: a ring pattern)")
+    p.add_argument("--voltage", type=positive_float, metavar="KV", help="accelerating voltage in kV (default 200)")
+    p.add_argument("--pixel-pitch", type=positive_float, metavar="UM",
+                   help="detector pixel pitch in um: then the camera length and camera constant are reported")
+    p.add_argument("--camera-length", type=positive_float, metavar="MM",
+                   help="the microscope's nominal camera-length setting, mm: files the calibration under it and "
+                        "reports the measured value beside it")
+    p.add_argument("--center", type=finite_float, nargs=2, metavar=("X", "Y"), help="pattern centre hint, pixels")
+    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame image (default the first)")
+    p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
+    p.add_argument("--no-ellipse", action="store_true", help="assume circular rings (do not fit the ellipse)")
+    p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
+    p.add_argument("--tolerance", type=positive_float, default=1.0, metavar="PCT",
+                   help="largest misfit of a ring to a line of the standard, %% (default 1)")
+    out = p.add_argument_group("output")
+    out.add_argument("--json", metavar="PATH", help="write the result as JSON ('-' for stdout)")
+    out.add_argument("--out", metavar="CAL.json", help="write the calibration file (for --calibration of index, rings, batch)")
+    out.add_argument("--plot", metavar="PNG", help="draw the radial profile with the standard's lines and the fitted rings")
+    hist = p.add_argument_group("history")
+    hist.add_argument("--history", metavar="FOLDER",
+                      help="calibration-history folder (default $SAED_CALIBRATION_DIR, else ~/.local/share/saed/calibrations)")
+    hist.add_argument("--no-history", action="store_true", help="do not file this calibration in the history")
+    hist.add_argument("--list", nargs="?", const="", default=None, metavar="FOLDER",
+                      help="list the stored calibrations per camera length (of FOLDER, default the history folder)")
+
+
+def _check_args(args):
+    from saed.report.files import check_writable
+
+    if args.list is not None:
+        if args.image or args.standard:
+            raise InputError("--list shows the history: give it without IMAGE and --standard")
+        return
+    if not args.image:
+        raise InputError("give the IMAGE of a standard with --standard PHASE (or --list to see the history)")
+    if not args.standard:
+        raise InputError("--standard PHASE is needed: the phase of the calibration specimen (e.g. Au, Al, Si)")
+    if args.history and args.no_history:
+        raise InputError("give either --history FOLDER or --no-history, not both")
+    if args.zone is not None and args.no_ellipse:
+        raise InputError("--no-ellipse applies to ring patterns; a --zone calibration fits no ellipse")
+    for path in (args.json if args.json not in (None, "-") else None, args.out, args.plot):
+        if path:
+            check_writable(path)
+    if args.plot and not args.plot.lower().endswith(".png"):
+        raise InputError(f"--plot {args.plot}: must end in .png")
+    if args.frame is not None and args.frame < 0:
+        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
+
+
+def _fmt(v, spec):
+    return "-" if v is None or (isinstance(v, float) and not math.isfinite(v)) else format(v, spec)
+
+
+def run_list(args) -> int:
+    from saed.calibrate.history import history_folder, list_calibrations
+
+    folder = history_folder(args.list or args.history)
+    entries, problems = list_calibrations(folder)
+    if args.json:
+        write_json(args.json, {"folder": str(folder), "calibrations": [
+            {"file": str(e.path), "camera_length_label_mm": e.label_mm, **e.calibration.to_json(),
+             "residual_pct": e.residual_pct} for e in entries], "skipped": problems})
+        if args.json == "-":
+            return 0
+    if not entries:
+        print(f"no calibrations stored in {folder}" + ("" if folder.exists() else " (folder does not exist yet)"))
+    else:
+        print(f"calibrations in {folder}, newest first per camera length:")
+        print(f"{'L mm':>7} {'date':<20} {'standard':<10} {'scale 1/nm/px':>13} {'L meas mm':>9} {'lambda L':>9} "
+              f"{'ellipse':>14} {'resid %':>7}  file")
+        last = object()
+        for e in entries:
+            c = e.calibration
+            lab = None if e.label_mm is None else round(e.label_mm)
+            head = _fmt(e.label_mm, ".0f") if lab != last else ""
+            mark = "*" if lab != last else " "
+            last = lab
+            ell = f"{c.ellipse.axis_ratio:.4f}@{c.ellipse.major_axis_angle_deg:.0f}" if c.ellipse else "-"
+            print(f"{head:>7}{mark}{(c.date or '-')[:19]:<20} {(c.standard or '-'):<10} {c.scale_inv_nm_per_px:>13.6f} "
+                  f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '9.5f'):>9} "
+                  f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
+        print("* = the newest calibration of that camera length")
+    for msg in problems:
+        print(f"skipped: {msg}")
+    return 0
+
+
+def result_json(res, *, image: str, zone=None) -> dict:
+    """The contract's calibrate JSON (plus rings, voltage, date, ...)."""
+    cal = res.calibration
+    doc = {
+        "standard": cal.standard,
+        "scale_inv_nm_per_px": cal.scale_inv_nm_per_px,
+        "center_px": [round(v, 3) for v in cal.center_px] if cal.center_px else None,
+        "ellipse": ({"axis_ratio": round(cal.ellipse.axis_ratio, 6),
+                     "major_axis_angle_deg": round(cal.ellipse.major_axis_angle_deg, 2)} if cal.ellipse else None),
+        "camera_constant_nm_mm": cal.camera_constant_nm_mm,
+        "camera_length_mm": cal.implied_camera_length_mm,
+        "residual_pct": round(res.residual_pct, 5),
+        "image": image,
+        "kind": "zone" if zone is not None else "rings",
+        "zone_axis": list(zone) if zone is not None else None,
+        "voltage_kv": cal.voltage_kv,
+        "wavelength_nm": cal.wavelength_nm,
+        "pixel_pitch_um": cal.pixel_pitch_um,
+        "scale_sigma_pct": round(100 * res.scale_sigma_rel, 5),
+        "date": cal.date,
+        "notes": list(res.notes),
+    }
+    doc["rings"] = [{"radius_px": round(r[0], 3), "hkl": r[1], "d_nm_standard": r[2], "d_nm_measured": round(r[3], 6),
+                     "misfit_pct": None if r[4] is None else round(r[4], 4)} for r in res.ring_rows]
+    return doc
+
+
+def run(args) -> int:
+    _check_args(args)
+    if args.list is not None:
+        return run_list(args)
+    from saed.calibrate.history import history_folder, store_calibration
+    from saed.crystal.phase import load_phase
+    from saed.image.io import read_image, read_mask_image
+
+    standard = load_phase(args.standard)
+    voltage = 200.0 if args.voltage is None else args.voltage
+    image = read_image(args.image, frame=args.frame)
+    mask = read_mask_image(args.mask, shape=image.shape) if args.mask else None
+    zone = None
+    if args.zone is not None:
+        from saed.calibrate.zone import calibrate_from_zone
+        from saed.cli.cmd_simulate import parse_indices
+
+        zone = parse_indices(args.zone, "--zone")
+        res = calibrate_from_zone(image, standard, zone, voltage_kv=voltage, pixel_pitch_um=args.pixel_pitch,
+                                  mask=mask, center_px=args.center, tol_rel=args.tolerance / 100)
+    else:
+        from saed.calibrate.rings import calibrate_from_rings
+
+        res = calibrate_from_rings(image, standard, voltage_kv=voltage, pixel_pitch_um=args.pixel_pitch, mask=mask,
+                                   center_px=args.center, fit_ellipse=not args.no_ellipse,
+                                   tol_rel=args.tolerance / 100, allow_spots=args.spotty)
+    doc = result_json(res, image=args.image, zone=zone)
+    cal = res.calibration
+    extra = {"residual_pct": doc["residual_pct"], "scale_sigma_pct": doc["scale_sigma_pct"], "image": args.image,
+             "kind": doc["kind"], "zone_axis": doc["zone_axis"], "n_rings_used": sum(r[1] is not None for r in res.ring_rows)}
+    written = []
+    if args.plot:
+        from saed.report.rings_plot import plot_calibration
+
+        plot_calibration(res, image, args.plot, title=f"{args.image}: {standard.name} standard")
+        written.append(("plot", args.plot))
+    if args.out:
+        from saed.calibration import write_calibration_file
+
+        write_calibration_file(cal, args.out, nominal_camera_length_mm=args.camera_length, **extra)
+        written.append(("calibration file", args.out))
+    if not args.no_history:
+        path = store_calibration(cal, history_folder(args.history), nominal_camera_length_mm=args.camera_length, **extra)
+        doc["history_file"] = str(path)
+        written.append(("history", str(path)))
+    if args.json:
+        write_json(args.json, doc)
+        if args.json == "-":
+            return 0
+        written.append(("JSON", args.json))
+    _print(res, doc, args)
+    for label, path in written:
+        print(f"{label}: {path}")
+    return 0
+
+
+def _print(res, doc, args):
+    cal = res.calibration
+    kind = f"[{' '.join(f'{v:g}' for v in doc['zone_axis'])}] zone pattern" if doc["zone_axis"] else "ring pattern"
+    print(f"{cal.standard} {kind}, {cal.voltage_kv:g} kV (lambda = {cal.wavelength_nm:.6f} nm)")
+    print(f"  scale          {cal.scale_inv_nm_per_px:.6f} 1/nm per px  (+-{doc['scale_sigma_pct']:.4f} %)")
+    if cal.center_px:
+        print(f"  centre         ({cal.center_px[0]:.2f}, {cal.center_px[1]:.2f}) px")
+    if cal.ellipse:
+        print(f"  ellipse        axis ratio {cal.ellipse.axis_ratio:.4f}, long axis at {cal.ellipse.major_axis_angle_deg:.1f} deg")
+    length = cal.implied_camera_length_mm
+    if length is not None:
+        nominal = f" (nominal {args.camera_length:g} mm: {100 * (length / args.camera_length - 1):+.2f} %)" if args.camera_length else ""
+        print(f"  camera length  {length:.2f} mm{nominal}, camera constant lambda L = {cal.camera_constant_nm_mm:.5f} nm mm")
+    else:
+        print("  camera length  - (give --pixel-pitch UM for camera length and camera constant)")
+    print(f"  residual       {res.residual_pct:.3f} % (RMS misfit of the {'spots' if doc['zone_axis'] else 'rings'} used)")
+    print(f"  {'r px':>9} {'hkl':>9} {'d std nm':>9} {'d meas nm':>10} {'misfit %':>9}")
+    for r in res.ring_rows:
+        print(f"  {r[0]:>9.2f} {r[1] or '(none)':>9} {_fmt(r[2], '9.5f'):>9} {r[3]:>10.5f} {_fmt(r[4], '+9.3f'):>9}")
+    for note in res.notes:
+        print(f"note: {note}")

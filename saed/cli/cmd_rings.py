@@ -1,0 +1,194 @@
+"""``saed rings``: ring radii, d-spacings and phase identification of a polycrystalline ring pattern."""
+
+from __future__ import annotations
+
+import math
+
+from saed.cli.common import add_calibration_options, add_phase_option, calibration_from_args, phases_from_args, \
+    positive_float, write_json
+from saed.errors import InputError
+
+NAME = "rings"
+HELP = "ring pattern: centre, ellipse, ring radii and d-spacings, phase identification (mixtures of two included)"
+DESCRIPTION = (
+    "Azimuthal integration of a polycrystalline ring pattern about its refined centre with the elliptical distortion "
+    "undone; ring radii to a fraction of a pixel over a SNIP background; d-spacings once calibrated; candidate "
+    "phases (and mixtures of two) ranked by ring positions and relative intensities (multiplicity x |F|^2 x d^2). "
+    "Without a calibration, phases are matched by radius ratios alone."
+)
+ORDER = 35
+
+
+def add_arguments(p):
+    p.add_argument("image", metavar="IMAGE", help="ring pattern (TIFF, PNG, JPEG or .npy)")
+    add_phase_option(p)
+    add_calibration_options(p, center=True)
+    p.add_argument("--scale-tolerance", type=positive_float, default=0.5, metavar="PCT",
+                   help="how far the true scale may lie from the calibration, %% (default 0.5)")
+    p.add_argument("--tolerance", type=positive_float, default=1.0, metavar="PCT",
+                   help="largest misfit of a ring to a phase's line, %% (default 1)")
+    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame image (default the first)")
+    p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
+    p.add_argument("--top", type=int, default=5, metavar="N", help="solutions listed (default 5)")
+    p.add_argument("--no-mixtures", action="store_true", help="do not try mixtures of two phases")
+    p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
+    p.add_argument("--json", metavar="PATH", help="write the result as JSON ('-' for stdout)")
+    p.add_argument("--plot", metavar="PNG", help="radial profile with each candidate's lines indexed, and the fitted rings")
+
+
+def _check_args(args):
+    from saed.report.files import check_writable
+
+    for path in (args.json if args.json not in (None, "-") else None, args.plot):
+        if path:
+            check_writable(path)
+    if args.plot and not args.plot.lower().endswith(".png"):
+        raise InputError(f"--plot {args.plot}: must end in .png")
+    if args.top < 1:
+        raise InputError(f"--top {args.top}: must be at least 1")
+    if args.frame is not None and args.frame < 0:
+        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
+
+
+def _hkl_json(phase, hkl):
+    from saed.crystal.miller import plane_to_4
+
+    h = [int(v) for v in hkl]
+    return h, ([int(v) for v in plane_to_4(h)] if phase.is_hexagonal else None)
+
+
+def solution_json(rank: int, m, obs, scale) -> dict:
+    """One ranked solution: phase(s), score, every matched ring with its hkl, rings unexplained, lines missing."""
+    s = m.scale_inv_nm_per_px
+    matched, unexplained = [], []
+    for i, a in enumerate(m.ring_lines):
+        r = float(obs.radius_px[i])
+        if not a:
+            unexplained.append({"ring": i + 1, "radius_px": round(r, 3), "d_nm": round(1 / (r * s), 6)})
+            continue
+        p_idx, j = max(a, key=lambda t: m.lines[t[0]].intensity[t[1]] * m.amounts[t[0]])
+        ln = m.lines[p_idx]
+        hkl, hkil = _hkl_json(ln.phase, ln.hkl[j])
+        matched.append({"ring": i + 1, "d_nm": round(1 / (r * s), 6), "d_nm_calc": round(float(ln.d_nm[j]), 6),
+                        "hkl": hkl, "hkil": hkil, "families": [ln.hkl_label(jj) for pp, jj in a if pp == p_idx],
+                        "phase": ln.phase.name, "error_pct": round(100 * float(m.ring_delta_rel[i]), 4),
+                        "also": [f"{m.lines[pp].phase.name} {m.lines[pp].hkl_label(jj)}" for pp, jj in a if pp != p_idx]})
+    missing = []
+    for p_idx, j, v in m.missing:
+        ln = m.lines[p_idx]
+        hkl, hkil = _hkl_json(ln.phase, ln.hkl[j])
+        missing.append({"phase": ln.phase.name, "hkl": hkl, "hkil": hkil, "d_nm": round(float(ln.d_nm[j]), 6),
+                        "radius_px": round(float(ln.g_inv_nm[j] / s), 2), "expected_intensity": round(v, 4)})
+    total = sum(m.amounts) or 1.0
+    return {
+        "rank": rank,
+        "phase": m.name,
+        "phases": [p.name for p in m.phases],
+        "fractions": [round(a / total, 4) for a in m.amounts],
+        "score": round(m.score, 4),
+        "scale_inv_nm_per_px": s,
+        "scale_change_pct": None if scale is None else round(100 * (s / scale - 1), 4),
+        "r_factor": round(m.r_factor, 4),
+        "position_agreement": round(m.position_quality, 4),
+        "rings_matched": matched,
+        "rings_unexplained": unexplained,
+        "lines_missing": missing,
+    }
+
+
+def run(args) -> int:
+    _check_args(args)
+    from saed.cli.progress import Progress
+    from saed.image.io import read_image, read_mask_image
+    from saed.rings.identify import identify_phases
+    from saed.rings.match import ObservedRings
+    from saed.rings.measure import measure_rings
+
+    cal = calibration_from_args(args)
+    phases = phases_from_args(args)
+    image = read_image(args.image, frame=args.frame)
+    mask = read_mask_image(args.mask, shape=image.shape) if args.mask else None
+    center = cal.center_px
+    measured = measure_rings(image, mask=mask, center_px=center, ellipse=cal.ellipse, allow_spots=args.spotty)
+    rings = measured.rings
+    if len(rings) == 1:
+        r = rings.radius_px[0]
+        d = f", d = {1 / (r * cal.scale_inv_nm_per_px):.4f} nm" if cal.is_calibrated else ""
+        raise InputError(f"only one ring found (r = {r:.1f} px{d}): phase identification needs at least two rings")
+    obs = ObservedRings.from_profile_rings(rings, radius_px_of_bins=measured.profile.radius_px)
+    with Progress(len(phases), "rings") as bar:
+        ident = identify_phases(obs, phases, scale_inv_nm_per_px=cal.scale_inv_nm_per_px,
+                                scale_sigma_rel=args.scale_tolerance / 100, tol_rel=args.tolerance / 100, top=args.top,
+                                mixtures=not args.no_mixtures, progress=bar)
+    s = cal.scale_inv_nm_per_px
+    doc = {
+        "image": args.image,
+        "center_px": [round(v, 3) for v in measured.center_px],
+        "ellipse": {"axis_ratio": round(measured.ellipse.axis_ratio, 6),
+                    "major_axis_angle_deg": round(measured.ellipse.major_axis_angle_deg, 2),
+                    "source": "calibration" if cal.ellipse is not None else "fitted"},
+        "scale_inv_nm_per_px": s,
+        "voltage_kv": cal.voltage_kv,
+        "rings": [],
+        "solutions": [solution_json(k + 1, m, obs, s) for k, m in enumerate(ident.solutions)],
+        "notes": list(measured.notes) + list(ident.notes),
+    }
+    for i in range(len(rings)):
+        r = float(rings.radius_px[i])
+        g = None if s is None else r * s
+        cov = measured.coverage[i]
+        doc["rings"].append({
+            "radius_px": round(r, 3), "radius_sigma_px": round(float(rings.radius_sigma_px[i]), 4),
+            "g_inv_nm": None if g is None else round(g, 5), "d_nm": None if g is None else round(1 / g, 6),
+            "d_sigma_nm": None if g is None else round(float(rings.radius_sigma_px[i]) / r / g, 7),
+            "intensity": round(float(obs.intensity[i]), 5), "width_px": round(float(rings.width_px[i]), 3),
+            "snr": round(float(rings.snr[i]), 1), "coverage": None if not math.isfinite(cov) else round(float(cov), 3),
+        })
+    if args.plot:
+        from saed.report.rings_plot import plot_rings
+
+        plot_rings(measured, ident, image, args.plot, scale_inv_nm_per_px=s, title=args.image)
+    if args.json:
+        write_json(args.json, doc)
+        if args.json == "-":
+            return 0
+    _print(doc, ident)
+    if args.plot:
+        print(f"plot: {args.plot}")
+    if args.json:
+        print(f"JSON: {args.json}")
+    return 0
+
+
+def _print(doc, ident):
+    import sys
+
+    c = doc["center_px"]
+    e = doc["ellipse"]
+    s = doc["scale_inv_nm_per_px"]
+    print(f"centre ({c[0]:.2f}, {c[1]:.2f}) px, ellipse {e['axis_ratio']:.4f} at {e['major_axis_angle_deg']:.1f} deg "
+          f"({e['source']}), scale {'%.6f 1/nm per px' % s if s else 'unknown'}")
+    print(f"{'ring':>4} {'r px':>9} {'d nm':>9} {'g 1/nm':>8} {'I rel':>6} {'cover':>5}")
+    for k, r in enumerate(doc["rings"], 1):
+        d = "-" if r["d_nm"] is None else f"{r['d_nm']:.5f}"
+        g = "-" if r["g_inv_nm"] is None else f"{r['g_inv_nm']:.4f}"
+        cov = "-" if r["coverage"] is None else f"{r['coverage']:.2f}"
+        print(f"{k:>4} {r['radius_px']:>9.2f} {d:>9} {g:>8} {r['intensity']:>6.3f} {cov:>5}")
+    if not doc["solutions"]:
+        print("saed rings: no candidate phase explains these rings", file=sys.stderr)
+    for sol in doc["solutions"]:
+        frac = "" if len(sol["phases"]) == 1 else " (" + ", ".join(
+            f"{p} {100 * f:.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
+        extra = "" if s else f", implied scale {sol['scale_inv_nm_per_px']:.6f} 1/nm per px"
+        print(f"#{sol['rank']} {sol['phase']}{frac}: score {sol['score']:.3f}, {len(sol['rings_matched'])} of "
+              f"{len(doc['rings'])} rings{extra}")
+        parts = [f"{m['ring']}:{'/'.join(m['families'])}" + ("" if len(sol["phases"]) == 1 else f" {m['phase']}")
+                 for m in sol["rings_matched"]]
+        print("    " + ", ".join(parts))
+        if sol["rings_unexplained"]:
+            print("    unexplained rings: " + ", ".join(str(u["ring"]) for u in sol["rings_unexplained"]))
+        if sol["lines_missing"]:
+            print("    expected but not seen: " + ", ".join(
+                f"{m['phase']} {''.join(str(v) for v in m['hkl'])} ({m['d_nm']:.4f} nm)" for m in sol["lines_missing"][:6]))
+    for note in doc["notes"]:
+        print(f"note: {note}")

@@ -1,0 +1,160 @@
+"""Pictures of a ring analysis: the pattern with its fitted rings, the radial profile with each candidate's lines.
+
+Left: the recorded pattern (logarithmic display) with every measured ring drawn as the fitted
+ellipse over the upper half of the pattern (the lower half is left bare to compare), solid in the colour of the phase that explains it in the best solution, dashed grey when
+unexplained; a cross marks the centre. Right, top: the azimuthally averaged profile (distortion
+undone) with the SNIP background and a triangle at each measured ring; below it one strip per
+candidate solution with a stick at every ring line of each phase (height: predicted intensity,
+shape of the tip tells the phases of a mixture apart), the stronger ones labelled with their hkl
+(4-index hkil for hexagonal phases).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+
+from saed.report.files import atomic_write_bytes, check_writable
+
+__all__ = ["plot_rings", "plot_calibration", "line_label"]
+
+#: Colours given to the phases in order of appearance (best solution first), and to unexplained rings.
+PHASE_COLOURS = ("#d62728", "#1f77b4", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")
+UNEXPLAINED_COLOUR = "#7f7f7f"
+#: Tip markers of the sticks, per phase as the colours (shape, not only colour).
+PHASE_MARKERS = ("o", "^", "s", "D", "v", "P")
+
+
+def line_label(lines, j: int) -> str:
+    """hkl of ring line j: '311', '10-11' for hexagonal phases (strongest family only)."""
+    from saed.crystal.miller import plane_to_4
+
+    hkl = [int(v) for v in lines.families[j][0]]
+    idx = [int(v) for v in plane_to_4(hkl)] if lines.phase.is_hexagonal else hkl
+    if all(0 <= v < 10 for v in idx):
+        return "".join(str(v) for v in idx)
+    return "".join(str(v) if v >= 0 else f"-{-v}" for v in idx)
+
+
+def _display(image) -> np.ndarray:
+    img = np.asarray(image, dtype=np.float64)
+    lo, hi = np.percentile(img[np.isfinite(img)], [1, 99.8])
+    v = np.log1p(np.clip(img - lo, 0, None)) / math.log1p(max(hi - lo, 1e-9))
+    return np.clip(v, 0, 1)
+
+
+def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_strips=3):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Arc
+
+    check_writable(path)
+    sols = list(solutions)[:max_strips]
+    n_strips = max(len(sols), 1)
+    fig = Figure(figsize=(15, 7.5), dpi=100)
+    FigureCanvasAgg(fig)
+    gs = fig.add_gridspec(2 + n_strips, 2, width_ratios=[1, 1.35], height_ratios=[3, 0.15] + [1] * n_strips,
+                          hspace=0.08, wspace=0.12, left=0.04, right=0.98, top=0.88, bottom=0.08)
+    ax_img = fig.add_subplot(gs[:, 0])
+    ax_prof = fig.add_subplot(gs[0, 1])
+    strips = [fig.add_subplot(gs[2 + k, 1], sharex=ax_prof) for k in range(n_strips)]
+    fig.suptitle(title, fontsize=11, x=0.02, ha="left")
+
+    # ---- image with fitted rings
+    ax_img.imshow(_display(image), cmap="gray", interpolation="nearest")
+    cx, cy = measured.center_px
+    ell = measured.ellipse
+    q = math.sqrt(ell.axis_ratio)
+    rings = measured.rings
+    best = sols[0] if sols else None
+    style_of = {}
+    for m in sols:
+        for ph in m.phases:
+            style_of.setdefault(ph.name, len(style_of) % len(PHASE_COLOURS))
+    for i, r in enumerate(rings.radius_px):
+        colour, style = UNEXPLAINED_COLOUR, "--"
+        if best is not None and best.ring_lines[i]:
+            phases = {p for p, _ in best.ring_lines[i]}
+            colour, style = PHASE_COLOURS[style_of[best.phases[min(phases)].name]], "-"
+        # Upper half only (detector rows above the centre), so the recorded rings show in the other half.
+        ax_img.add_patch(Arc((cx, cy), 2 * r * q, 2 * r / q, angle=ell.major_axis_angle_deg,
+                             theta1=180 - ell.major_axis_angle_deg, theta2=360 - ell.major_axis_angle_deg,
+                             edgecolor=colour, linestyle=style, linewidth=0.8, alpha=0.9))
+    ax_img.plot([cx], [cy], marker="+", color="yellow", markersize=14, mew=1.5)
+    ax_img.set_xlim(-0.5, image.shape[1] - 0.5)
+    ax_img.set_ylim(image.shape[0] - 0.5, -0.5)
+    ax_img.set_title(f"centre ({cx:.1f}, {cy:.1f}) px, ellipse {ell.axis_ratio:.4f} at {ell.major_axis_angle_deg:.0f} deg",
+                     fontsize=9)
+    ax_img.set_xticks([])
+    ax_img.set_yticks([])
+
+    # ---- profile
+    prof = measured.profile
+    lo, hi = rings.r_min_px, rings.r_max_px
+    sel = (prof.radius_px >= lo) & (prof.radius_px <= hi)
+    x = prof.radius_px[sel]
+    ax_prof.plot(x, prof.mean[sel], color="black", linewidth=0.8, label="azimuthal average")
+    ax_prof.plot(x, rings.background[sel], color="#2ca02c", linewidth=0.8, linestyle="--", label="background (SNIP)")
+    peak_y = np.interp(rings.radius_px, prof.radius_px, np.nan_to_num(prof.mean))
+    ax_prof.plot(rings.radius_px, peak_y, linestyle="none", marker="v", color="#ff7f0e", markersize=5,
+                 label="measured rings")
+    for k, (r, yv) in enumerate(zip(rings.radius_px, peak_y), 1):
+        ax_prof.annotate(str(k), (r, yv), textcoords="offset points", xytext=(0, 5), ha="center", fontsize=6)
+    ax_prof.set_yscale("log")
+    ax_prof.set_ylabel("mean counts / px")
+    ax_prof.legend(fontsize=7, loc="upper right")
+    ax_prof.tick_params(labelbottom=False)
+    ax_prof.set_xlim(lo, hi)
+    if scale_inv_nm_per_px:
+        s = scale_inv_nm_per_px
+        top = ax_prof.secondary_xaxis("top", functions=(lambda r: r * s, lambda g: g / s))
+        top.set_xlabel("g (1/nm)", fontsize=8)
+        top.tick_params(labelsize=7)
+
+    # ---- one strip per candidate
+    for k, ax in enumerate(strips):
+        ax.set_yticks([])
+        ax.set_ylim(0, 1.55)
+        for r in rings.radius_px:
+            ax.axvline(r, color="#ff7f0e", linewidth=0.5, alpha=0.5)
+        if k >= len(sols):
+            ax.text(0.5, 0.5, "no candidate phase", transform=ax.transAxes, ha="center", va="center")
+            continue
+        m = sols[k]
+        s = m.scale_inv_nm_per_px
+        tops = [max(float(a) * float(ln.intensity.max()), 1e-12) for a, ln in zip(m.amounts, m.lines)]
+        ref = max(tops)
+        for p, ln in enumerate(m.lines):
+            rr = ln.g_inv_nm / s
+            keep = (rr >= lo) & (rr <= hi)
+            h = np.sqrt(ln.intensity * m.amounts[p] / ref)  # sqrt so that weak lines show
+            k_style = style_of[ln.phase.name]
+            colour = PHASE_COLOURS[k_style]
+            ax.vlines(rr[keep], 0, h[keep], color=colour, linewidth=1.2)
+            ax.plot(rr[keep], h[keep], linestyle="none", marker=PHASE_MARKERS[k_style], color=colour, markersize=3)
+            strong = np.nonzero(keep & (h >= 0.12))[0]
+            for j in strong[:28]:
+                ax.text(rr[j], h[j] + 0.04, line_label(ln, j), rotation=90, fontsize=6, ha="center", va="bottom",
+                        color=colour)
+        label = f"#{k + 1} {m.name}  score {m.score:.2f}"
+        ax.text(0.005, 0.95, label, transform=ax.transAxes, fontsize=8, va="top", ha="left",
+                bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+        if k < n_strips - 1:
+            ax.tick_params(labelbottom=False)
+    strips[-1].set_xlabel("corrected radius (px)")
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    atomic_write_bytes(path, buf.getvalue())
+
+
+def plot_rings(measured, identification, image, path, *, scale_inv_nm_per_px=None, title="") -> None:
+    """Write the ring-analysis picture (module notes) of `measured` with the top candidates of `identification`."""
+    _draw(measured, identification.solutions, image, path, scale_inv_nm_per_px=scale_inv_nm_per_px, title=title)
+
+
+def plot_calibration(result, image, path, *, title="") -> None:
+    """Write the picture of a ring calibration: the standard's lines at the fitted scale."""
+    _draw(result.measurement, [result.match], image, path,
+          scale_inv_nm_per_px=result.calibration.scale_inv_nm_per_px, title=title)
