@@ -12,7 +12,7 @@ DESCRIPTION = (
     "shortest reflections, their d-spacings, ratio and angle, and the zone map with the tilt angles between "
     "neighbouring zones. Print it before the session."
 )
-ORDER = 30
+ORDER = 32
 
 
 def add_arguments(p):

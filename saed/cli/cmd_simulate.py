@@ -172,7 +172,7 @@ def _print_table(zp, doc: dict) -> None:
             note = f"forbidden; double diffraction {reflection_label(ph, zp.hkl[a])} + {reflection_label(ph, zp.hkl[b])}"
         r = doc["reflections"][i]
         print(f"{reflection_label(ph, zp.hkl[i]):>10} {zp.d_nm[i]:8.4f} {zp.g_inv_nm[i]:8.3f} {r['x_inv_nm']:8.3f} "
-              f"{r['y_inv_nm']:8.3f} {zp.excitation_error_inv_nm[i]:9.4f} {zp.intensity[i]:8.4f}  {note}")
+              f"{r['y_inv_nm']:8.3f} {zp.excitation_error_inv_nm[i]:9.4f} {zp.intensity[i]:8.3g}  {note}")
     if len(rows) > TABLE_ROWS:
         print(f"... {len(rows) - TABLE_ROWS} more zero-order reflections (all are in --json)")
     n_holz = int(np.sum(~zp.zolz))
