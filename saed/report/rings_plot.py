@@ -155,6 +155,42 @@ def plot_rings(measured, identification, image, path, *, scale_inv_nm_per_px=Non
 
 
 def plot_calibration(result, image, path, *, title="") -> None:
-    """Write the picture of a ring calibration: the standard's lines at the fitted scale."""
-    _draw(result.measurement, [result.match], image, path,
-          scale_inv_nm_per_px=result.calibration.scale_inv_nm_per_px, title=title)
+    """Write the picture of a calibration: for rings the standard's lines at the fitted scale, for a zone
+    pattern the lattice spots used with their hkl."""
+    if hasattr(result, "match"):
+        _draw(result.measurement, [result.match], image, path,
+              scale_inv_nm_per_px=result.calibration.scale_inv_nm_per_px, title=title)
+    else:
+        _draw_zone(result, image, path, title=title)
+
+
+def _draw_zone(result, image, path, *, title=""):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    check_writable(path)
+    fig = Figure(figsize=(8, 8.4), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes([0.02, 0.02, 0.96, 0.9])
+    ax.imshow(_display(image), cmap="gray", interpolation="nearest")
+    mp = result.measured
+    cx, cy = mp.center_px
+    on = mp.basis.on_lattice
+    xy = mp.spots.xy_px[on]
+    idx = mp.basis.indices[on]
+    h1, h2 = (np.asarray(h) for h in result.basis_hkl)
+    ax.plot(xy[:, 0], xy[:, 1], linestyle="none", marker="o", markersize=11, markerfacecolor="none",
+            markeredgecolor=PHASE_COLOURS[0], mew=1.0)
+    for (x, y), (m, n) in zip(xy, idx):
+        lab = m * h1 + n * h2
+        ax.annotate("".join(str(int(v)) if v >= 0 else f"-{-int(v)}" for v in lab), (x, y), textcoords="offset points",
+                    xytext=(0, 9), ha="center", fontsize=7, color="yellow")
+    ax.plot([cx], [cy], marker="+", color="yellow", markersize=14, mew=1.5)
+    c = result.calibration
+    ax.set_title(f"{title}\nscale {c.scale_inv_nm_per_px:.6f} 1/nm/px, ellipse {c.ellipse.axis_ratio:.4f} at "
+                 f"{c.ellipse.major_axis_angle_deg:.0f} deg, residual {result.residual_pct:.3f} %", fontsize=9)
+    ax.set_xticks([])
+    ax.set_yticks([])
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    atomic_write_bytes(path, buf.getvalue())
