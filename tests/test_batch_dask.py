@@ -45,6 +45,7 @@ def frame_stats(image, shared, *, name, frame, context=None):
 @pytest.fixture(scope="module")
 def client():
     import dask
+    import distributed  # noqa: F401 - its config defaults must exist before config.set, or leaving it drops them
 
     with dask.config.set({"distributed.scheduler.allowed-failures": 1}):
         with dask_client(workers=2) as c:

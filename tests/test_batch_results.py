@@ -53,7 +53,7 @@ def test_line_cut_short_by_a_crash_is_removed(tmp_path):
     with open(p, "a") as fh:
         fh.write("scan.npy,2,Co-fc")          # the process died in the middle of a write
     with ResultsFile(p) as out:
-        assert len(out.rows) == 2
+        assert out.n_rows == 2
         out.append([_row(2)])
     rows = read_rows(p)
     assert [r.frame for r in rows] == [0, 1, 2]

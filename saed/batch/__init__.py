@@ -19,11 +19,11 @@ import time
 from dataclasses import dataclass
 
 from saed.batch.inputs import FrameSource, Inputs, Skipped, discover_inputs
-from saed.batch.results import COLUMNS, CONTRACT_COLUMNS, ResultsFile, Row, read_rows
+from saed.batch.results import COLUMNS, CONTRACT_COLUMNS, ResultsFile, Row, iter_rows, read_rows
 from saed.batch.runner import chunk_size_for, count_todo, plan_chunks, run_frames, share, unshare
 
 __all__ = ["run_batch", "BatchOutcome", "discover_inputs", "Inputs", "FrameSource", "Skipped", "ResultsFile",
-           "Row", "read_rows", "COLUMNS", "CONTRACT_COLUMNS"]
+           "Row", "read_rows", "iter_rows", "COLUMNS", "CONTRACT_COLUMNS"]
 
 logger = logging.getLogger(__name__)
 

@@ -58,8 +58,11 @@ def dask_client(*, workers: int | None = None, scheduler: str | None = None,
     n = default_workers() if workers is None else int(workers)
     if n < 1:
         raise InputError(f"--workers {n}: need at least 1 worker")
+    # The scheduler always serves HTTP (health checks); a free loopback port keeps it from taking
+    # (or warning about) the usual dashboard port, and no dashboard is started.
     with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None, silence_logs=logging.ERROR, memory_limit=memory_limit) as cluster, \
+                      dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
+                      silence_logs=logging.CRITICAL, memory_limit=memory_limit) as cluster, \
             Client(cluster) as client:
         logger.info("local Dask cluster with %d worker processes at %s", n, cluster.scheduler_address)
         yield client

@@ -27,11 +27,10 @@ import logging
 import math
 import os
 from dataclasses import dataclass, fields
-from pathlib import Path
 
 from saed.errors import InputError
 
-__all__ = ["CONTRACT_COLUMNS", "COLUMNS", "Row", "ResultsFile", "read_rows", "frame_key", "error_status"]
+__all__ = ["CONTRACT_COLUMNS", "COLUMNS", "Row", "ResultsFile", "read_rows", "iter_rows", "frame_key", "error_status"]
 
 logger = logging.getLogger(__name__)
 
@@ -132,7 +131,9 @@ def _parse(name: str, text: str):
 
 def _csv_line(cells: list[str]) -> str:
     buf = io.StringIO()
-    csv.writer(buf, lineterminator="\n").writerow(cells)
+    # minimal quoting quotes a cell with "\n" but not one with a bare "\r": quote that row fully
+    quoting = csv.QUOTE_ALL if any("\r" in c for c in cells) else csv.QUOTE_MINIMAL
+    csv.writer(buf, lineterminator="\n", quoting=quoting).writerow(cells)
     return buf.getvalue()
 
 
@@ -151,55 +152,76 @@ def _check_header(path, first_line: str) -> None:
                      "give another --out or move the file away")
 
 
-def _parse_existing(path, text: str) -> tuple[list[Row], int]:
-    """Rows of an existing file and the byte length of its complete lines."""
-    cut = text.rfind("\n") + 1       # the text after the last newline was cut short (or is empty)
-    if cut == 0:
-        if text and not _HEADER_LINE.startswith(text):
-            _check_header(path, text)   # one line, no newline: only a header cut short is ours
-        return [], 0
+class _CompleteLines:
+    """The lines of a binary file object that end in a newline, decoded (a last line cut short is left out).
+
+    Lines are split at ``\\n`` only (a ``\\r`` inside a quoted cell stays in its cell);
+    ``n_bytes`` counts the bytes of the lines handed out so far.
+    """
+
+    def __init__(self, fh):
+        self._fh = fh
+        self.n_bytes = 0
+
+    def __iter__(self):
+        for line in self._fh:
+            if not line.endswith(b"\n"):
+                return
+            self.n_bytes += len(line)
+            yield line.decode("utf-8")
+
+
+def _iter_parsed(path, lines: _CompleteLines):
+    """Rows from `lines` of a saed batch CSV (header checked first); InputError on anything else."""
+    reader = csv.reader(lines)
     try:
-        return _parse_lines(path, text[:cut]), len(text[:cut].encode("utf-8"))
+        first = next(reader, None)
+        if first is None:
+            return
+        _check_header(path, _csv_line(first))
+        for cells in reader:
+            if not cells:
+                continue
+            if len(cells) != len(COLUMNS):
+                raise InputError(f"{path}: line {reader.line_num} has {len(cells)} cells, expected {len(COLUMNS)}; the "
+                                 "file was changed by something else: refusing to append (give another --out)")
+            try:
+                yield Row.from_cells(cells)
+            except ValueError:
+                raise InputError(f"{path}: line {reader.line_num} is not a saed batch row ({','.join(cells)[:60]!r}); "
+                                 "refusing to append (give another --out)") from None
     except csv.Error as exc:
         raise InputError(f"{path}: not a saed batch CSV ({exc}); refusing to append to it: give another --out") from None
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a saed batch CSV (not text); refusing to append to it: "
+                         "give another --out or move the file away") from None
 
 
-def _parse_lines(path, text: str) -> list[Row]:
-    reader = csv.reader(io.StringIO(text, newline=""))
-    _check_header(path, _csv_line(next(reader, [])))
-    rows = []
-    for cells in reader:
-        if not cells:
-            continue
-        if len(cells) != len(COLUMNS):
-            raise InputError(f"{path}: line {reader.line_num} has {len(cells)} cells, expected {len(COLUMNS)}; the "
-                             "file was changed by something else: refusing to append (give another --out)")
-        try:
-            rows.append(Row.from_cells(cells))
-        except ValueError:
-            raise InputError(f"{path}: line {reader.line_num} is not a saed batch row ({','.join(cells)[:60]!r}); "
-                             "refusing to append (give another --out)") from None
-    return rows
+def iter_rows(path):
+    """The complete rows of a saed batch CSV, one at a time (InputError if the file is not one)."""
+    try:
+        fh = open(path, "rb")
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the file ({exc.strerror})") from None
+    with fh:
+        yield from _iter_parsed(path, _CompleteLines(fh))
 
 
 def read_rows(path) -> list[Row]:
-    """Every complete row of a saed batch CSV (InputError if the file is not one)."""
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such file") from None
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not a saed batch CSV (not text)") from None
-    return _parse_existing(path, text)[0]
+    """Every complete row of a saed batch CSV, as a list."""
+    return list(iter_rows(path))
 
 
 class ResultsFile:
     """The batch CSV opened for appending: ``with ResultsFile(path) as out: out.append(rows)``.
 
-    On opening, an existing file is locked, checked and its rows read (``done``: the keys
-    already there, ``rows``: the rows); a new or empty file gets the header. ``retry_errors=True``
-    drops the error rows first (rewriting the file atomically), so those frames are done again.
+    On opening, an existing file is locked and checked line by line; ``done`` holds the
+    (path, frame) keys already in it and ``n_rows`` their number (the rows themselves are not
+    kept: read them back with :func:`iter_rows`). A new or empty file gets the header; a last
+    line cut short by a crash is removed. ``retry_errors=True`` drops the error rows first
+    (rewriting the file atomically), so those frames are done again.
     """
 
     def __init__(self, path, *, retry_errors: bool = False):
@@ -207,43 +229,72 @@ class ResultsFile:
 
         self.path = check_writable(path)
         self._fh = None
+        self.done: set = set()
+        self.n_rows = 0
         try:
             self._open(retry_errors)
         except BaseException:
             self.close()
             raise
 
-    def _open(self, retry_errors: bool) -> None:
+    def _open_locked(self) -> None:
         try:
-            self._fh = open(self.path, "r+" if self.path.exists() else "w+", encoding="utf-8", newline="")
+            self._fh = open(self.path, "r+b" if self.path.exists() else "w+b")
         except OSError as exc:
             raise InputError(f"{self.path}: cannot open the file for writing ({exc.strerror})") from None
         _lock(self._fh, self.path)
-        try:
-            text = self._fh.read()
-        except UnicodeDecodeError:
-            raise InputError(f"{self.path}: not a saed batch CSV (not text); refusing to append to it: "
-                             "give another --out or move the file away") from None
-        rows, good_bytes = _parse_existing(self.path, text)
-        n_err = sum(r.is_error for r in rows) if retry_errors else 0
-        if n_err:
-            from saed.report.files import atomic_write_text
 
-            rows = [r for r in rows if not r.is_error]
-            atomic_write_text(self.path, _HEADER_LINE + "".join(_csv_line(r.cells()) for r in rows))
-            self._fh.close()
-            self._fh = open(self.path, "r+", encoding="utf-8", newline="")
-            _lock(self._fh, self.path)
-            logger.info("%s: %d error rows removed; those frames will be done again", self.path, n_err)
-        elif good_bytes < len(text.encode("utf-8")):
+    def _scan(self) -> tuple[int, int]:
+        """Read the keys of the rows in the file; returns (bytes of complete lines, error rows)."""
+        lines = _CompleteLines(self._fh)
+        paths: dict = {}
+        n_err = 0
+        self.done, self.n_rows = set(), 0
+        for r in _iter_parsed(self.path, lines):
+            path = paths.setdefault(r.image, os.path.abspath(r.image))    # one string per file
+            self.done.add((path, r.frame))
+            self.n_rows += 1
+            n_err += r.is_error
+        return lines.n_bytes, n_err
+
+    def _open(self, retry_errors: bool) -> None:
+        self._open_locked()
+        head = self._fh.read(len(_HEADER_LINE)).decode("utf-8", errors="replace")
+        if head and "\n" not in head and not _HEADER_LINE.startswith(head):
+            _check_header(self.path, head)     # one line and no newline: only a header cut short is ours
+        self._fh.seek(0)
+        good_bytes, n_err = self._scan()
+        size = self._fh.seek(0, os.SEEK_END)
+        if retry_errors and n_err:
+            self._drop_error_rows(n_err)
+        elif good_bytes < size:
             logger.warning("%s: removed a last line cut short by an interruption (that frame is done again)", self.path)
             self._fh.truncate(good_bytes)
-        self._fh.seek(0, os.SEEK_END)
+            self._fh.seek(0, os.SEEK_END)
         if self._fh.tell() == 0:
-            self._fh.write(_HEADER_LINE)
+            self._fh.write(_HEADER_LINE.encode("utf-8"))
             self._sync(self._fh)
-        self.rows = rows
-        self.done = {r.key for r in rows}
+
+    def _drop_error_rows(self, n_err: int) -> None:
+        import tempfile
+
+        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp", dir=self.path.parent)
+        try:
+            with os.fdopen(fd, "wb") as out:
+                out.write(_HEADER_LINE.encode("utf-8"))
+                for r in iter_rows(self.path):
+                    if not r.is_error:
+                        out.write(_csv_line(r.cells()).encode("utf-8"))
+                self._sync(out)
+            os.replace(tmp, self.path)
+        finally:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        self._fh.close()
+        self._open_locked()
+        self._scan()
+        self._fh.seek(0, os.SEEK_END)
+        logger.info("%s: %d error rows removed; those frames will be done again", self.path, n_err)
 
     @staticmethod
     def _sync(fh) -> None:
@@ -258,10 +309,10 @@ class ResultsFile:
                 keys.add(r.key)
                 new.append(r)
         if new:
-            self._fh.write("".join(_csv_line(r.cells()) for r in new))
+            self._fh.write("".join(_csv_line(r.cells()) for r in new).encode("utf-8"))
             self._sync(self._fh)
             self.done |= keys
-            self.rows.extend(new)
+            self.n_rows += len(new)
         return len(new)
 
     def close(self) -> None:

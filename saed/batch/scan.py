@@ -101,25 +101,44 @@ def _phase_family(row: Row, phases: dict) -> tuple[str, tuple[int, ...] | None]:
     return row.phase, zone_family(row.zone_axis, ph)
 
 
-def summarize(rows, *, phases: dict) -> Summary:
-    """Count `rows` by status, phase and zone family; `phases` maps phase names to Phase objects.
+class _Tally:
+    """Counts rows by status, phase and (phase, zone family) in one pass."""
 
-    Phases are listed by frame count (most first), families within a phase likewise.
-    A row whose phase is not in `phases` is counted under its phase with family None.
+    def __init__(self, phases: dict):
+        self.phases = phases
+        self.status: Counter = Counter()
+        self.by_phase: Counter = Counter()
+        self.by_family: Counter = Counter()
+
+    def add(self, row: Row):
+        """Count `row`; returns its (phase, family) when it is indexed, else None."""
+        if row.status == "ok" and row.phase:
+            self.status["ok"] += 1
+            pf = _phase_family(row, self.phases)
+            self.by_phase[pf[0]] += 1
+            self.by_family[pf] += 1
+            return pf
+        self.status["error" if row.is_error else row.status] += 1
+        return None
+
+    def summary(self) -> Summary:
+        order = {name: i for i, (name, _) in enumerate(self.by_phase.most_common())}
+        fams = sorted(self.by_family.items(), key=lambda kv: (order[kv[0][0]], -kv[1], str(kv[0][1])))
+        return Summary(sum(self.status.values()), self.status["ok"], self.status["no-solution"], self.status["error"],
+                       tuple(self.by_phase.most_common()), tuple(FamilyCount(p, f, c) for (p, f), c in fams))
+
+
+def summarize(rows, *, phases: dict) -> Summary:
+    """Count `rows` (any iterable, read once) by status, phase and zone family.
+
+    `phases` maps phase names to Phase objects. Phases are listed by frame count (most first),
+    families within a phase likewise. A row whose phase is not in `phases` is counted under
+    its phase with family None; an indexed row with another status than ``ok`` does not occur.
     """
-    status = Counter("ok" if r.status == "ok" else "error" if r.is_error else r.status for r in rows)
-    by_phase: Counter = Counter()
-    by_family: Counter = Counter()
+    tally = _Tally(phases)
     for r in rows:
-        if r.status != "ok" or not r.phase:
-            continue
-        name, fam = _phase_family(r, phases)
-        by_phase[name] += 1
-        by_family[(name, fam)] += 1
-    order = {name: i for i, (name, _) in enumerate(by_phase.most_common())}
-    fams = sorted(by_family.items(), key=lambda kv: (order[kv[0][0]], -kv[1], str(kv[0][1])))
-    return Summary(len(rows), status["ok"], status["no-solution"], status["error"], tuple(by_phase.most_common()),
-                   tuple(FamilyCount(p, f, c) for (p, f), c in fams))
+        tally.add(r)
+    return tally.summary()
 
 
 @dataclass(frozen=True)
@@ -165,50 +184,53 @@ def check_scan_shape(scan_shape, sources) -> tuple[int, int]:
     return ny, nx
 
 
-def _sequenced(rows, sources) -> list[tuple[int, Row]]:
-    """(sequence number over all frames of `sources`, row) for the rows that belong to `sources`."""
+def _sequenced(rows, sources):
+    """(sequence number over all frames of `sources`, row) for the rows that belong to `sources` (lazy)."""
     offset, start = {}, 0
     for s in sources:
         offset.setdefault(s.path, (start, s.n_frames))
         start += s.n_frames
-    out = []
     for r in rows:
         path, k = r.key
         if path in offset and 0 <= k < offset[path][1]:
-            out.append((offset[path][0] + k, r))
-    return out
+            yield offset[path][0] + k, r
 
 
-def rows_for_sources(rows, sources) -> list[Row]:
-    """The rows that belong to frames of `sources` (a CSV may hold rows of earlier, other inputs)."""
-    return [r for _, r in _sequenced(rows, sources)]
+def rows_for_sources(rows, sources):
+    """The rows that belong to frames of `sources` (a CSV may hold rows of earlier, other inputs); lazy."""
+    return (r for _, r in _sequenced(rows, sources))
 
 
 def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases: dict,
                    phase_order=()) -> ScanMap:
-    """Place `rows` on the scan grid of `sources` (frames in input order, row-major).
+    """Place `rows` (any iterable, read once) on the scan grid of `sources` (frames in input order, row-major).
 
     Rows of frames not in `sources` are ignored; positions with no row are NOT_DONE.
     `phase_order` fixes the order (and so the colours) of the phases; phases found but not
     listed follow, by name.
     """
     ny, nx = check_scan_shape(scan_shape, sources)
-    mine = _sequenced(rows, sources)
-    summary = summarize([r for _, r in mine], phases=phases)
-    names = [p for p in phase_order if any(p == q for q, _ in summary.phases)]
+    tally = _Tally(phases)
+    status_grid = np.full(ny * nx, NOT_DONE, np.int32)
+    found: dict = {}                           # (phase, family) -> id in the order first seen
+    pf_grid = np.full(ny * nx, -1, np.int32)
+    for seq, r in _sequenced(rows, sources):
+        pf = tally.add(r)
+        if pf is None:
+            status_grid[seq] = ERROR if r.is_error else NO_SOLUTION
+        else:
+            pf_grid[seq] = found.setdefault(pf, len(found))
+            status_grid[seq] = 0
+    summary = tally.summary()
+    names = [p for p in phase_order if p in dict(summary.phases)]
     names += sorted(q for q, _ in summary.phases if q not in names)
     pidx = {p: i for i, p in enumerate(names)}
     fidx = {(f.phase, f.family): i for i, f in enumerate(summary.families)}
-    phase_grid = np.full(ny * nx, NOT_DONE, np.int32)
-    fam_grid = np.full(ny * nx, -1, np.int32)
-    for seq, r in mine:
-        if seq >= ny * nx:
-            continue
-        if r.status == "ok" and r.phase:
-            name, fam = _phase_family(r, phases)
-            phase_grid[seq] = pidx[name]
-            fam_grid[seq] = fidx[(name, fam)]
-        else:
-            phase_grid[seq] = ERROR if r.is_error else NO_SOLUTION
+    keys = sorted(found, key=found.get)
+    to_phase = np.array([pidx[p] for p, _ in keys] or [0], np.int32)
+    to_family = np.array([fidx[k] for k in keys] or [0], np.int32)
+    indexed = pf_grid >= 0
+    phase_grid = np.where(indexed, to_phase[np.maximum(pf_grid, 0)], status_grid)
+    fam_grid = np.where(indexed, to_family[np.maximum(pf_grid, 0)], -1)
     return ScanMap((ny, nx), phase_grid.reshape(ny, nx), fam_grid.reshape(ny, nx), tuple(names),
                    summary.families, summary)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import logging
 import os
 import signal
 import sys
@@ -124,6 +125,11 @@ def run(args) -> int:
     from saed.batch.runner import count_todo
     from saed.batch.scan import check_scan_shape
 
+    # Dask's own messages (worker start-up, restarts) only with -v / -vv; saed says what matters.
+    # (Importing distributed sets its logger's level, so import it first.)
+    import distributed  # noqa: F401
+
+    logging.getLogger("distributed").setLevel({0: logging.CRITICAL, 1: logging.WARNING}.get(args.verbose, logging.INFO))
     if args.workers is not None and args.scheduler is not None:
         raise InputError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
     out, map_path, summary_path = _check_outputs(args, args.inputs)
@@ -164,23 +170,30 @@ def run(args) -> int:
                         outcome = run_batch(inputs, results, index_frame, job, client=client, progress=bar,
                                             context_of=context_of)
             except KeyboardInterrupt:
-                _say(f"interrupted; {len(results.rows)} rows are safe in {out}: run the same command again to go on")
+                _say(f"interrupted; {results.n_rows} rows are safe in {out}: run the same command again to go on")
                 return 130
-        rows = list(results.rows)
 
-    _report(rows, inputs, out, outcome, phases)
+    _report(out, inputs, outcome, phases)
     if scan_shape is not None or summary_path is not None:
-        _scan_outputs(rows, inputs, scan_shape, map_path, summary_path, phases)
+        _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases)
     return 0
 
 
-def _report(rows, inputs, out, outcome, phases) -> None:
+def _report(out, inputs, outcome, phases) -> None:
+    from saed.batch.results import iter_rows
     from saed.batch.scan import rows_for_sources, summarize
     from saed.report.scan_map import format_summary
 
-    mine = rows_for_sources(rows, inputs.sources)
-    summary = summarize(mine, phases={p.name: p for p in phases})
-    line = (f"{out}: {len(mine)} rows for these inputs; {summary.n_ok} ok, {summary.n_no_solution} no solution, "
+    errors: Counter = Counter()
+
+    def mine():
+        for r in rows_for_sources(iter_rows(out), inputs.sources):
+            if r.is_error:
+                errors[r.status] += 1
+            yield r
+
+    summary = summarize(mine(), phases={p.name: p for p in phases})
+    line = (f"{out}: {summary.n_frames} rows for these inputs; {summary.n_ok} ok, {summary.n_no_solution} no solution, "
             f"{summary.n_error} errors")
     if outcome is not None and outcome.n_written:
         rate = outcome.n_written / outcome.elapsed_s if outcome.elapsed_s > 0 else float("nan")
@@ -188,27 +201,27 @@ def _report(rows, inputs, out, outcome, phases) -> None:
     print(line)
     if summary.n_ok or summary.n_no_solution:
         print(format_summary(summary))
-    errors = Counter(r.status for r in mine if r.is_error)
     for status, n in errors.most_common(3):
         print(f"  {n} x {status}")
     if len(errors) > 3:
         print(f"  ... and {len(errors) - 3} other error messages (see the status column of {out})")
 
 
-def _scan_outputs(rows, inputs, scan_shape, map_path, summary_path, phases) -> None:
+def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases) -> None:
+    from saed.batch.results import iter_rows
     from saed.batch.scan import build_scan_map, rows_for_sources, summarize
     from saed.report.files import atomic_write_text
     from saed.report.scan_map import render_scan_map, summary_csv
 
     lookup = {p.name: p for p in phases}
     if scan_shape is not None:
-        scan = build_scan_map(rows, inputs.sources, scan_shape, phases=lookup, phase_order=[p.name for p in phases])
+        scan = build_scan_map(iter_rows(out), inputs.sources, scan_shape, phases=lookup, phase_order=[p.name for p in phases])
         title = inputs.sources[0].name if len(inputs.sources) == 1 else f"{len(inputs.sources)} files"
         render_scan_map(scan, map_path, title=title)
         print(f"map: {map_path}")
         summary = scan.summary
     else:
-        summary = summarize(rows_for_sources(rows, inputs.sources), phases=lookup)
+        summary = summarize(rows_for_sources(iter_rows(out), inputs.sources), phases=lookup)
     if summary_path is not None:
         atomic_write_text(summary_path, summary_csv(summary))
         print(f"summary: {summary_path}")

@@ -1,0 +1,225 @@
+"""`saed batch` end to end with the real indexer: stacks, scans, bad input, and kill-and-resume.
+
+Patterns are drawn from the kinematic simulation (saed.index.synthetic.synthetic_measured for spot
+positions and intensities) through the detector model of saed.synth (noise, haze, direct beam),
+so every frame has a known phase and zone axis.
+"""
+
+import logging
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+
+from saed.batch.results import read_rows
+from saed.batch.scan import zone_family
+from saed.calibration import Calibration
+from saed.cli import main
+from saed.crystal import builtin_phase
+
+logging.getLogger("distributed").setLevel(logging.ERROR)
+
+SIZE = 192
+SCALE = 0.08 * 256 / SIZE          # 1/nm per px: spots out to about 10 1/nm inside the frame
+PHASES = ("Co-fcc", "Co-hcp", "Cr")
+TRUTH_CYCLE = (("Co-fcc", (0, 1, 1)), ("Co-fcc", (1, 1, 2)), ("Co-hcp", (0, 0, 1)), ("Co-hcp", (1, 0, 0)))
+PHASE_ARGS = [a for p in PHASES for a in ("--phase", p)]
+
+
+def _pattern(phase_name, zone, rot_deg, seed):
+    from saed.index.synthetic import synthetic_measured
+    from saed.synth import Detector, Scene, render_pattern
+
+    m, _ = synthetic_measured(builtin_phase(phase_name), zone, scale_inv_nm_per_px=SCALE,
+                              in_plane_rotation_deg=rot_deg, image_shape=(SIZE, SIZE), position_noise_px=0.0, rng=seed)
+    el = m.spots.intensity / m.spots.intensity.max() * 3e4
+    p = render_pattern(np.stack([m.spots.x_px, m.spots.y_px], 1), el, center_px=m.center_px,
+                       detector=Detector(shape=(SIZE, SIZE)),
+                       scene=Scene(haze_electrons=200.0, haze_core_px=10.0), rng=seed)
+    return p.image
+
+
+def _stack(path, n):
+    """A uint16 stack of n patterns on disk; frame k shows TRUTH_CYCLE[(k // 5) % 4] at rotation 13k deg."""
+    out = np.lib.format.open_memmap(path, mode="w+", dtype=np.uint16, shape=(n, SIZE, SIZE))
+    truth = []
+    for k in range(n):
+        name, zone = TRUTH_CYCLE[(k // 5) % 4]
+        out[k] = _pattern(name, zone, 13.0 * k, k)
+        truth.append((name, zone))
+    out.flush()
+    del out
+    return truth
+
+
+@pytest.fixture(scope="module")
+def scheduler():
+    from saed.batch.cluster import dask_client
+
+    with dask_client(workers=2) as client:
+        yield client.scheduler.address
+
+
+N_FRAMES = 24
+
+
+@pytest.fixture(scope="module")
+def stack(tmp_path_factory):
+    path = tmp_path_factory.mktemp("stack") / "grains.npy"
+    return str(path), _stack(path, N_FRAMES)
+
+
+@pytest.fixture(scope="module")
+def reference(scheduler, stack, tmp_path_factory):
+    """An uninterrupted run over `stack`: (CSV path, what it printed)."""
+    import contextlib
+    import io
+
+    out = tmp_path_factory.mktemp("ref") / "ref.csv"
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        code = main(["batch", stack[0], "--out", str(out), "--scale", str(SCALE), *PHASE_ARGS, "--scheduler", scheduler])
+    assert code == 0
+    return out, buf.getvalue()
+
+
+def _cells(path):
+    rows = read_rows(path)
+    keys = [r.key for r in rows]
+    assert len(keys) == len(set(keys)), "a frame has two rows"
+    return {r.key: tuple(r.cells()) for r in rows}
+
+
+def test_batch_indexes_every_frame_like_index_image(stack, reference):
+    from saed.index import index_image, prepare_phases
+
+    path, truth = stack
+    out, text = reference
+    rows = {r.frame: r for r in read_rows(out)}
+    assert sorted(rows) == list(range(N_FRAMES))
+    for k, (name, zone) in enumerate(truth):
+        r = rows[k]
+        assert r.status == "ok" and r.phase == name, (k, r)
+        ph = builtin_phase(name)
+        assert zone_family(r.zone_axis, ph) == zone_family(zone, ph)
+    # the batch row is what the indexer says for that frame on its own
+    tables = prepare_phases([builtin_phase(p) for p in PHASES])
+    for k in (0, 17, N_FRAMES - 1):
+        best = index_image(np.load(path, mmap_mode="r")[k].astype(np.float32), tables, Calibration(SCALE, 200.0)).best
+        assert (rows[k].phase, rows[k].zone_axis) == (best.phase_name, best.zone_axis)
+        assert rows[k].score == pytest.approx(best.score, abs=1e-4)
+    assert "Co-fcc" in text and "<110>" in text and "<0001>" in text
+
+
+def test_killed_run_resumes_without_losing_or_duplicating_rows(scheduler, stack, reference, tmp_path):
+    psutil = pytest.importorskip("psutil")
+    path, _ = stack
+    ref, out = reference[0], tmp_path / "out.csv"
+    common = [path, "--scale", str(SCALE), *PHASE_ARGS]
+
+    proc = subprocess.Popen([sys.executable, "-m", "saed", "batch", *common, "--out", str(out), "--workers", "2"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    try:
+        t_end = time.monotonic() + 60
+        n_rows = 0
+        while time.monotonic() < t_end and proc.poll() is None:
+            n_rows = len(read_rows(out)) if out.exists() else 0
+            if n_rows >= 1:
+                break
+            time.sleep(0.02)
+        children = psutil.Process(proc.pid).children(recursive=True)
+        os.kill(proc.pid, signal.SIGKILL)             # no clean-up at all: as a crash or power cut
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+        proc.stderr.close()
+    assert 1 <= n_rows
+    partial = _cells(out)
+    assert len(partial) < N_FRAMES, "the run ended before it could be interrupted"
+    _, alive = psutil.wait_procs(children, timeout=15)
+    for p in alive:                                   # our own worker processes, by id
+        p.kill()
+    assert not alive, "worker processes outlived the killed run"
+
+    assert main(["batch", *common, "--out", str(out), "--scheduler", scheduler]) == 0
+    assert _cells(out) == _cells(ref)
+    assert set(partial.items()) <= set(_cells(ref).items())
+
+
+def test_scan_map_and_summary(scheduler, tmp_path, capsys):
+    path = tmp_path / "scan.npy"
+    truth = _stack(tmp_path / "flat.npy", 12)
+    np.save(path, np.load(tmp_path / "flat.npy").reshape(3, 4, SIZE, SIZE))
+    os.remove(tmp_path / "flat.npy")
+    out = tmp_path / "scan.csv"
+    summary = tmp_path / "summary.csv"
+    assert main(["batch", str(path), "--out", str(out), "--scale", str(SCALE), *PHASE_ARGS, "--scheduler", scheduler,
+                 "--summary", str(summary)]) == 0
+    map_png = tmp_path / "scan_map.png"
+    assert map_png.stat().st_size > 10_000
+    text = capsys.readouterr().out
+    assert f"map: {map_png}" in text
+    fcc = sum(1 for name, _ in truth if name == "Co-fcc")
+    assert f"Co-fcc,1 1 0,5," in summary.read_text()
+    assert any(line.startswith("Co-fcc ") and f" {fcc} " in line for line in text.splitlines())
+
+
+def _closed_port():
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_bad_inputs_exit_2_with_one_line(tmp_path, capsys):
+    good = tmp_path / "one.npy"
+    np.save(good, _pattern("Co-fcc", (0, 1, 1), 0.0, 1))
+    args = ["--scale", str(SCALE), "--phase", "Co-fcc"]
+
+    foreign = tmp_path / "notes.csv"
+    foreign.write_text("grain,comment\n1,bent\n")
+    assert main(["batch", str(good), "--out", str(foreign), *args]) == 2
+    err = capsys.readouterr().err
+    assert "not a saed batch CSV" in err and str(foreign) in err and "Traceback" not in err
+    assert foreign.read_text() == "grain,comment\n1,bent\n"
+
+    address = f"tcp://127.0.0.1:{_closed_port()}"
+    assert main(["batch", str(good), "--out", str(tmp_path / "a.csv"), *args, "--scheduler", address,
+                 "--connect-timeout", "0.5"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert address in err[-1] and "cannot reach the Dask scheduler" in err[-1]
+
+    bad = tmp_path / "flat.npy"
+    np.save(bad, np.zeros(4096, np.float32))
+    assert main(["batch", str(bad), "--out", str(tmp_path / "b.csv"), *args]) == 2
+    err = capsys.readouterr().err
+    assert "neither an image" in err and "nothing to index" in err
+
+    assert main(["batch", str(good), "--out", str(tmp_path / "c.csv"), *args, "--workers", "2",
+                 "--scheduler", address]) == 2
+    assert main(["batch", str(good), "--out", str(good), *args]) == 2
+    assert main(["batch", str(good), "--out", str(tmp_path / "d.csv"), *args, "--scan-shape", "2", "3"]) == 2
+    assert "1 frames" in capsys.readouterr().err
+
+
+def test_folder_with_non_images_and_a_nan_frame(scheduler, tmp_path, capsys):
+    d = tmp_path / "session"
+    d.mkdir()
+    np.save(d / "g1.npy", _pattern("Co-hcp", (0, 0, 1), 5.0, 2))
+    nan = np.full((SIZE, SIZE), np.nan, np.float32)
+    np.save(d / "g2.npy", np.stack([_pattern("Co-fcc", (0, 1, 1), 0.0, 3).astype(np.float32), nan]))
+    (d / "g1.json").write_text("{}")
+    (d / "log.txt").write_text("tired")
+    out = tmp_path / "out.csv"
+    assert main(["batch", str(d), "--out", str(out), "--scale", str(SCALE), *PHASE_ARGS, "--scheduler", scheduler]) == 0
+    err = capsys.readouterr().err
+    assert "skipped " + str(d / "g1.json") in err and "skipped " + str(d / "log.txt") in err
+    rows = {(os.path.basename(r.image), r.frame): r for r in read_rows(out)}
+    assert set(rows) == {("g1.npy", 0), ("g2.npy", 0), ("g2.npy", 1)}
+    assert rows[("g1.npy", 0)].phase == "Co-hcp"
+    assert rows[("g2.npy", 1)].status.startswith("error:") and "NaN" in rows[("g2.npy", 1)].status
