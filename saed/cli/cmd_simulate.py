@@ -50,6 +50,9 @@ def add_arguments(p):
                    help="largest reciprocal length listed, 1/nm (default 10)")
     p.add_argument("--thickness", type=positive_float, default=50.0, metavar="NM",
                    help="foil thickness for the sinc^2 shape factor, nm (default 50)")
+    p.add_argument("--thickness-spread", type=float, default=0.5, metavar="W",
+                   help="average the shape factor over thicknesses t(1-W)..t(1+W), as in a real wedge-shaped "
+                        "or bent foil (default 0.5; 0 = one exact parallel-sided foil)")
     p.add_argument("--tilt", type=float, default=0.0, metavar="DEG",
                    help="tilt the beam off the zone axis by DEG degrees (needs --tilt-toward)")
     p.add_argument("--tilt-toward", nargs="+", metavar="H",
@@ -85,7 +88,8 @@ def build_pattern(args):
         raise InputError("--tilt-toward needs --tilt DEG (the beam tilt in degrees)")
     voltage = args.voltage if args.voltage is not None else 200.0
     return phase, zone_pattern(phase, zone, voltage_kv=voltage, max_g_inv_nm=args.max_g, tilt_deg=args.tilt,
-                               tilt_toward_hkl=toward, thickness_nm=args.thickness, include_holz=not args.zolz_only)
+                               tilt_toward_hkl=toward, thickness_nm=args.thickness, include_holz=not args.zolz_only,
+                               thickness_spread=args.thickness_spread)
 
 
 def pattern_json(zp, *, in_plane_rotation_deg: float = 0.0) -> dict:
@@ -136,6 +140,7 @@ def pattern_json(zp, *, in_plane_rotation_deg: float = 0.0) -> dict:
         "wavelength_nm": round(zp.wavelength_nm, 9),
         "max_g_inv_nm": zp.max_g_inv_nm,
         "thickness_nm": zp.thickness_nm,
+        "thickness_spread": zp.thickness_spread,
         "tilt_deg": zp.tilt_deg,
         "tilt_toward_hkl": None if zp.tilt_toward_hkl is None else zp.tilt_toward_hkl.tolist(),
         "in_plane_rotation_deg": in_plane_rotation_deg,

@@ -20,7 +20,12 @@ Physics
 * Kinematic intensity I_g = |F_g|^2 sinc^2(pi t s_g), sinc(x) = sin(x)/x: the shape factor of a
   parallel-sided foil of thickness t (the relrod), e.g. Williams & Carter, *Transmission Electron
   Microscopy* (2009), ch. 17; Hirsch, Howie, Nicholson, Pashley & Whelan, *Electron Microscopy of
-  Thin Crystals* (1965), ch. 4.
+  Thin Crystals* (1965), ch. 4. A selected area is never one exact thickness (wedge-shaped foils,
+  bending, beam convergence), and the exact sinc^2 has zeros that would wipe out strong low-order
+  spots (fcc 200 in [011] at t = 50 nm). By default the shape factor is therefore averaged over a
+  uniform thickness range t (1 +/- w), w = ``thickness_spread`` = 0.5, which has the closed form
+  <sin^2(pi s t)> = 1/2 - [sin(2 pi s t2) - sin(2 pi s t1)] / (4 pi s (t2 - t1)), divided by
+  (pi s t)^2; w = 0 gives the exact sinc^2 of a parallel-sided foil.
 * Laue zones: n = h u + k v + l w is the layer index of reflection hkl along [uvw]. With the zone
   along the beam the sphere bends toward -b, so it meets the layers n < 0; ``laue_zone`` = -n,
   so the first-order Laue zone (FOLZ) seen in a pattern has ``laue_zone`` = +1 x (layer order).
@@ -222,6 +227,7 @@ class ZonePattern:
     folz_ring_radius_inv_nm : float, radius of the FOLZ ring on the zone axis
     laue_circle_center_xy_inv_nm : (2,) projected centre of the Laue circle (0, 0 on the zone)
     laue_circle_radius_inv_nm : float, radius k sin(tilt) of the circle where the sphere cuts the ZOLZ
+    thickness_spread : float, half-width w of the thickness range t (1 +/- w) the shape factor averages
     """
 
     phase: Phase
@@ -249,6 +255,7 @@ class ZonePattern:
     folz_ring_radius_inv_nm: float
     laue_circle_center_xy_inv_nm: np.ndarray
     laue_circle_radius_inv_nm: float
+    thickness_spread: float = 0.0
 
     def __post_init__(self):
         for name in ("zone_axis", "beam_direction_cart", "tilt_toward_hkl", "orientation_matrix", "hkl", "g_inv_nm",
@@ -395,7 +402,8 @@ def tilted_beam(lattice, uvw, *, tilt_deg: float, toward_hkl) -> tuple[np.ndarra
 
 def zone_pattern(phase: Phase, zone_axis, *, voltage_kv: float = 200.0, max_g_inv_nm: float = 10.0,
                  tilt_deg: float = 0.0, tilt_toward_hkl=None, thickness_nm: float = 50.0,
-                 include_holz: bool = True, max_excitation_error_inv_nm: float | None = None) -> ZonePattern:
+                 include_holz: bool = True, max_excitation_error_inv_nm: float | None = None,
+                 thickness_spread: float = 0.5) -> ZonePattern:
     """The kinematic pattern of `phase` along `zone_axis` (see the module notes for the physics).
 
     Parameters
@@ -407,6 +415,8 @@ def zone_pattern(phase: Phase, zone_axis, *, voltage_kv: float = 200.0, max_g_in
     tilt_deg : beam tilt off the zone axis, degrees (0 <= tilt < 60); needs `tilt_toward_hkl`
     tilt_toward_hkl : reflection (3 or 4 indices) toward which the Laue-circle centre moves
     thickness_nm : foil thickness t for the sinc^2 shape factor, nm (> 0)
+    thickness_spread : half-width w of the uniform thickness range t (1 +/- w) the shape factor is
+        averaged over (0 <= w < 1; 0: exact sinc^2 of one parallel-sided foil)
     include_holz : also list higher-order Laue-zone reflections near the Ewald sphere
     max_excitation_error_inv_nm : |s| limit for those HOLZ reflections (default 1/t, the first
         zero of the shape factor); ZOLZ reflections are always listed
@@ -445,12 +455,44 @@ def zone_pattern(phase: Phase, zone_axis, *, voltage_kv: float = 200.0, max_g_in
         raise InputError(f"a beam tilt of {tilt:g} deg needs a direction: give the reflection to tilt toward")
     if tilt == 0.0:
         toward = None
+    try:
+        spread = float(thickness_spread)
+    except (TypeError, ValueError):
+        raise InputError(f"thickness spread {thickness_spread!r} is not a number (a fraction, e.g. 0.5)") from None
+    if not math.isfinite(spread) or not 0.0 <= spread < 1.0:
+        raise InputError(f"thickness spread must be a fraction from 0 up to 1 (e.g. 0.5), got {thickness_spread!r}")
     s_max = None
     if max_excitation_error_inv_nm is not None:
         s_max = _positive(max_excitation_error_inv_nm, "max excitation error", "1/nm", example="0.02")
     return _zone_pattern_cached(phase, tuple(int(x) for x in uvw), v, g_max, tilt,
                                 None if toward is None else tuple(int(x) for x in toward),
-                                t_nm, bool(include_holz), s_max)
+                                t_nm, bool(include_holz), s_max, spread)
+
+
+def shape_factor(s_inv_nm, thickness_nm: float, thickness_spread: float = 0.0) -> np.ndarray:
+    """Foil shape factor, 1 at s = 0 for an exact foil: sinc^2(pi t s), or its average over t (1 +/- w).
+
+    >>> round(float(shape_factor(0.0, 50.0)), 6), round(float(shape_factor(1 / 50.0, 50.0)), 6)
+    (1.0, 0.0)
+    >>> bool(shape_factor(1 / 50.0, 50.0, 0.5) > 0.01)
+    True
+    """
+    s = np.abs(np.asarray(s_inv_nm, dtype=float))
+    t = float(thickness_nm)
+    w = float(thickness_spread)
+    out = np.empty_like(s)
+    small = math.pi * t * (1.0 + w) * s < 1e-6
+    if w == 0.0:
+        x = math.pi * t * s[~small]
+        out[~small] = (np.sin(x) / x) ** 2
+        out[small] = 1.0
+        return out
+    t1, t2 = t * (1.0 - w), t * (1.0 + w)
+    ss = s[~small]
+    mean_sin2 = 0.5 - (np.sin(2 * math.pi * ss * t2) - np.sin(2 * math.pi * ss * t1)) / (4 * math.pi * ss * (t2 - t1))
+    out[~small] = mean_sin2 / (math.pi * ss * t) ** 2
+    out[small] = 1.0 + w * w / 3.0  # <t^2> / t^2 for a uniform range
+    return out
 
 
 def _positive(value, what: str, unit_: str, *, example: str) -> float:
@@ -466,12 +508,12 @@ def _positive(value, what: str, unit_: str, *, example: str) -> float:
 @lru_cache(maxsize=2048)
 def _zone_pattern_cached(phase: Phase, uvw: tuple, voltage_kv: float, max_g_inv_nm: float, tilt_deg: float,
                          toward: tuple | None, thickness_nm: float, include_holz: bool,
-                         s_max: float | None) -> ZonePattern:
+                         s_max: float | None, spread: float) -> ZonePattern:
     return _build(phase, np.array(uvw, dtype=np.int64), voltage_kv, max_g_inv_nm, tilt_deg, toward,
-                  thickness_nm, include_holz, s_max)
+                  thickness_nm, include_holz, s_max, spread)
 
 
-def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm, include_holz, s_max):
+def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm, include_holz, s_max, spread):
     lat = phase.lattice
     tbl: ReflectionTable = reflection_table(phase, max_g_inv_nm)
     centring_absent, keys, order, span, base = _table_extras(phase, max_g_inv_nm)
@@ -496,10 +538,7 @@ def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm,
     route_tbl = _dd_routes(tbl, rows, zolz[rows] & allowed, zolz[rows] & forbidden, keys, order, span, base)
 
     f_abs = np.abs(tbl.f_nm[rows])
-    x = math.pi * thickness_nm * s[rows]
-    shape = np.ones_like(x)
-    nz = np.abs(x) > 1e-12
-    shape[nz] = (np.sin(x[nz]) / x[nz]) ** 2
+    shape = shape_factor(s[rows], thickness_nm, spread)
     inten = np.where(allowed, tbl.intensity[rows] * shape, 0.0)
     peak = float(inten.max()) if len(inten) else 0.0
     if peak > 0:
@@ -521,7 +560,7 @@ def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm,
 
     return ZonePattern(
         phase=phase, zone_axis=uvw, beam_direction_cart=beam, voltage_kv=voltage_kv, wavelength_nm=lam,
-        max_g_inv_nm=max_g_inv_nm, thickness_nm=thickness_nm, tilt_deg=tilt_deg,
+        max_g_inv_nm=max_g_inv_nm, thickness_nm=thickness_nm, thickness_spread=spread, tilt_deg=tilt_deg,
         tilt_toward_hkl=None if toward is None else np.array(toward, dtype=np.int64), orientation_matrix=u,
         hkl=tbl.hkl[rows], g_inv_nm=tbl.g_inv_nm[rows], xy_inv_nm=q[rows, :2],
         excitation_error_inv_nm=s[rows], intensity=inten, f_abs=f_abs, laue_zone=-n_layer[rows],
