@@ -26,9 +26,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
+from saed.image.background import Background
 from saed.image.binning import Binned
+from saed.image.spotfit import fit_spots
 
-__all__ = ["symmetric_center", "FriedelCentre", "friedel_center"]
+__all__ = ["symmetric_center", "FriedelCentre", "friedel_center", "DirectBeam", "find_direct_beam"]
 
 logger = logging.getLogger(__name__)
 
@@ -146,3 +148,47 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
         sigma = max(scatter / math.sqrt(len(mid)), formal)
     logger.debug("Friedel centre (%.2f, %.2f) +- %.2f px from %d pairs", c[0], c[1], sigma, len(pairs))
     return FriedelCentre(center_px=(float(c[0]), float(c[1])), sigma_px=sigma, pairs=pairs)
+
+
+@dataclass(frozen=True)
+class DirectBeam:
+    """The direct (transmitted) beam: fitted centre (x, y) px and its 1 sigma, Gaussian width, integrated
+    intensity (a lower bound when saturated), peak SNR and whether its core is saturated."""
+
+    xy_px: tuple[float, float]
+    sigma_px: float
+    width_px: float
+    intensity: float
+    snr: float
+    saturated: bool
+
+
+def find_direct_beam(image, valid, background: Background, start_px, *, width_px: float,
+                     saturated_area_px: float = 0.0, min_snr: float = 10.0) -> DirectBeam | None:
+    """Fit the direct beam near `start_px`; None when nothing bright and significant is there.
+
+    The direct beam is wider than the spots and lies on the steepest haze, so the radial background
+    hides it from the spot search; it is fitted on its own (Gaussian on a plane,
+    :func:`saed.image.spotfit.fit_spots`) in a window sized from `width_px` (a first width measured at
+    the start) and the saturated area, whose pixels (False in `valid`) are left out so the fit uses the
+    unsaturated flanks.
+    """
+    x0, y0 = float(start_px[0]), float(start_px[1])
+    rows, cols = image.shape
+    if not (0 <= x0 < cols and 0 <= y0 < rows):
+        return None
+    core = math.sqrt(max(saturated_area_px, 0.0) / math.pi)
+    s0 = float(np.clip(width_px, 1.0, 20.0))
+    half = int(np.clip(math.ceil(3.0 * s0 + core + 3.0), 6, 48))
+    fit = fit_spots(image, valid, [x0], [y0], sigma0_px=max(s0, core / 2.0, 1.0), half_px=half,
+                    gain=background.gain, offset_var=background.offset_var, var_floor=background.var_floor)
+    if not fit.ok[0]:
+        return None
+    x, y = float(fit.x_px[0]), float(fit.y_px[0])
+    if math.hypot(x - x0, y - y0) > max(5.0, 2.0 * s0, 1.5 * core):
+        return None
+    snr = float(fit.amplitude[0] / max(float(background.sigma(max(fit.background[0], 0.0))), 1e-12))
+    if snr < min_snr and saturated_area_px <= 0:
+        return None
+    return DirectBeam(xy_px=(x, y), sigma_px=float(max(fit.sigma_xy_px[0], 0.01)), width_px=float(fit.width_px[0]),
+                      intensity=float(fit.intensity[0]), snr=snr, saturated=saturated_area_px > 0)

@@ -71,21 +71,27 @@ def gauss_reduce(a, b) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return u, v, np.stack([tu, tv])
 
 
-def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int = 14, n_strong: int = 60) -> np.ndarray:
+def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int = 14, n_strong: int = 400,
+                      neighbours: int = 6) -> np.ndarray:
     """(k, 2) short vectors that recur among the spot and difference vectors, best first.
 
-    `xy_rel`: spot positions relative to the centre, ordered strongest first.
+    `xy_rel`: spot positions relative to the centre, ordered strongest first. The difference vectors
+    are those from each of the `n_strong` strongest spots to its `neighbours` nearest ones (the short
+    lattice vectors connect neighbours); the spot vectors from the centre are added.
     """
     p = np.asarray(xy_rel, np.float64)[:n_strong]
     n = len(p)
     if n < 2:
         return np.zeros((0, 2))
-    i, j = np.triu_indices(n, 1)
-    diff = p[i] - p[j]
+    k = min(neighbours, n - 1)
+    _, nb = cKDTree(p).query(p, k=k + 1)
+    i = np.repeat(np.arange(n), k)
+    j = nb[:, 1:].ravel()
+    diff = p[j] - p[i]
     vec = np.vstack([p, diff])
     allv = np.vstack([vec, -vec])
     tree = cKDTree(allv)
-    counts = np.array([len(x) for x in tree.query_ball_point(vec, r=tol_px)])
+    counts = tree.query_ball_point(vec, r=tol_px, return_length=True)
     length = np.hypot(vec[:, 0], vec[:, 1])
     ok = length > 3.0 * tol_px
     vec, counts, length = vec[ok], counts[ok], length[ok]

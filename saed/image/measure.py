@@ -29,11 +29,11 @@ from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
 from saed.image.binning import bin_image
-from saed.image.centre import friedel_center, symmetric_center
+from saed.image.centre import find_direct_beam, friedel_center, symmetric_center
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import find_basis, refine_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
-from saed.image.spots import estimate_spot_sigma, find_spots
+from saed.image.spots import _adaptive_width, estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
 
 __all__ = ["measure_pattern", "measure_file", "inspect_pattern", "inspect_file", "Inspection", "DEFAULT_SNR_MIN",
@@ -213,23 +213,26 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if search.n_hot:
         notes.append(f"{search.n_hot} single-pixel peaks (hot pixels, X-ray hits) ignored")
 
-    # The direct beam: brightest spot close to the rough centre.
-    db_index = None
-    if len(fits):
-        d = np.hypot(xy[:, 0] - c0[0], xy[:, 1] - c0[1])
-        near_r = max(8.0, 3.0 * sigma, 0.01 * min(rows, cols)) if db_region is None else max(8.0, math.sqrt(db_region[1]))
-        near = np.flatnonzero(d <= near_r)
-        if len(near):
-            k = int(near[np.argmax(fits.intensity[near])])
-            others = np.delete(fits.intensity, k)
-            if search.saturated[k] or len(others) == 0 or fits.intensity[k] >= 0.5 * float(np.max(others)):
-                db_index = k
-    db_xy = None if db_index is None else xy[db_index]
-    db_saturated = bool(db_index is not None and search.saturated[db_index])
+    # The direct beam: fitted on its own at the rough centre (the radial background hides it from the
+    # spot search); spots on top of it are dropped.
+    db = None
+    core_area = db_region[1] if db_region is not None else 0.0
+    start_db = db_region[0] if db_region is not None else c0
+    ix, iy = int(round(start_db[0])), int(round(start_db[1]))
+    if 0 <= ix < cols and 0 <= iy < rows and not (stop is not None and stop.mask[iy, ix]):
+        w_db = _adaptive_width(img, fit_valid | sat_mask, np.array([float(start_db[0])]), np.array([float(start_db[1])]),
+                               half=24)[0]
+        db = find_direct_beam(img, fit_valid, bg, start_db, width_px=w_db if np.isfinite(w_db) else 2.0 * sigma,
+                              saturated_area_px=core_area)
+        if db is not None and len(fits) and core_area <= 0 and db.intensity < 0.5 * float(np.max(fits.intensity)):
+            logger.debug("bright blob at the centre is weaker than the spots: not taken as the direct beam")
+            db = None
     keep = np.ones(len(fits), bool)
-    if db_index is not None:
-        keep[db_index] = False
-
+    if db is not None and len(fits):
+        d = np.hypot(xy[:, 0] - db.xy_px[0], xy[:, 1] - db.xy_px[1])
+        keep &= d > max(3.0, 2.0 * db.width_px, core_area ** 0.5)
+    db_xy = None if db is None else np.asarray(db.xy_px, float)
+    db_saturated = bool(db is not None and db.saturated)
     spots = Spots(fits.x_px[keep], fits.y_px[keep], fits.intensity[keep], fits.intensity_sigma[keep],
                   fits.sigma_xy_px[keep], search.snr[keep], np.sqrt(2.0) * fits.width_px[keep], search.saturated[keep])
     if len(spots) == 0:
@@ -248,7 +251,7 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     center_how = how
     center_obs, center_obs_sigma = None, 1.0
     if db_xy is not None and not db_saturated:
-        center, center_sigma = db_xy.copy(), float(max(fits.sigma_xy_px[db_index], 0.02))
+        center, center_sigma = db_xy.copy(), float(max(db.sigma_px, 0.02))
         center_obs, center_obs_sigma = center.copy(), center_sigma
         center_how = "the direct beam"
     strong = spots.snr >= max(5.0, snr_min)
@@ -279,7 +282,7 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if basis is None:
         notes.append("no 2-D lattice found (needs three or more spots not all on one line)")
     notes.insert(0, f"centre from {center_how}")
-    if db_index is None and stop is None and not sat_mask.any():
+    if db is None and stop is None and not sat_mask.any():
         notes.append("no direct beam seen at the centre")
     mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
                          basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
