@@ -142,18 +142,16 @@ def cell_atoms(phase: Phase) -> CellAtoms:
     0.3333 for 1/3 would otherwise leave the site-specific extinctions (hcp 30-31, diamond 222) at
     |F| ~ 1e-4 of sum |f| instead of zero, and mark them allowed.
     """
-    sg = space_group(phase.space_group)
-    ops = list(sg.operations())
+    rot, tran = _operations(phase.space_group)
     to_cart = phase.lattice.direct_matrix_nm
     frac, els, occ, bs = [], [], [], []
     for site in phase.sites:
-        p = _onto_special_position(np.array([site.x, site.y, site.z]), ops, to_cart)
-        images = []
-        for op in ops:
-            q = np.array(op.apply_to_xyz(p.tolist())) % 1.0
-            if not any(_same_site(q, r, to_cart) for r in images):
-                images.append(q)
-        for q in images:
+        p = _onto_special_position(np.array([site.x, site.y, site.z]), rot, tran, to_cart)
+        images = (rot @ p + tran) % 1.0
+        d = (images[:, None, :] - images[None, :, :] + 0.5) % 1.0 - 0.5
+        close = np.linalg.norm(d @ to_cart.T, axis=-1) < SPECIAL_POSITION_TOL_NM
+        kept = ~np.any(np.tril(close, k=-1), axis=1)  # the first image of each coinciding group
+        for q in images[kept]:
             frac.append(q)
             els.append(site.element)
             occ.append(site.occupancy)
@@ -170,18 +168,21 @@ def cell_atoms(phase: Phase) -> CellAtoms:
 SPECIAL_POSITION_TOL_NM = 0.01
 
 
-def _onto_special_position(p: np.ndarray, ops, to_cart: np.ndarray) -> np.ndarray:
-    shifts = []
-    for op in ops:
-        d = (np.array(op.apply_to_xyz(p.tolist())) - p + 0.5) % 1.0 - 0.5  # nearest lattice image
-        if np.linalg.norm(to_cart @ d) < SPECIAL_POSITION_TOL_NM:
-            shifts.append(d)
-    return p + np.mean(shifts, axis=0)  # the identity is always among them
+@lru_cache(maxsize=None)
+def _operations(space_group_name: str) -> tuple[np.ndarray, np.ndarray]:
+    """All operations of the space group (centring included) as rotations (n, 3, 3) and translations (n, 3)."""
+    ops = list(space_group(space_group_name).operations())
+    rot = np.array([op.rot for op in ops], dtype=float) / ops[0].DEN
+    tran = np.array([op.tran for op in ops], dtype=float) / ops[0].DEN
+    rot.flags.writeable = False
+    tran.flags.writeable = False
+    return rot, tran
 
 
-def _same_site(p: np.ndarray, q: np.ndarray, to_cart: np.ndarray) -> bool:
-    d = (p - q + 0.5) % 1.0 - 0.5
-    return bool(np.linalg.norm(to_cart @ d) < SPECIAL_POSITION_TOL_NM)
+def _onto_special_position(p: np.ndarray, rot: np.ndarray, tran: np.ndarray, to_cart: np.ndarray) -> np.ndarray:
+    d = (rot @ p + tran - p + 0.5) % 1.0 - 0.5  # each image relative to p, nearest lattice copy
+    near = np.linalg.norm(d @ to_cart.T, axis=1) < SPECIAL_POSITION_TOL_NM
+    return p + d[near].mean(axis=0)  # the identity is always among them
 
 
 # ---------------------------------------------------------------------- built-in table
