@@ -187,3 +187,12 @@ def test_fuzzed_cif_raises_only_saed_errors(data):
             reflection_table(ph, 5.0)  # a phase that loads must also give structure factors
         except SaedError as exc:
             assert "\n" not in str(exc)
+
+
+def test_space_group_by_number_only(tmp_path):
+    # No H-M symbol, no Hall symbol, no symmetry operations: _space_group_IT_number alone (194) is enough.
+    text = "\n".join(l for l in (DATA / "Co-hcp.cif").read_text().splitlines() if "H-M" not in l) + "\n"
+    path = tmp_path / "number.cif"
+    path.write_text(text)
+    co = phase_from_cif(path)
+    assert co.space_group_number == 194 and len(cell_atoms(co).elements) == 2
