@@ -29,6 +29,10 @@ logger = logging.getLogger(__name__)
 
 #: Share of the ring signal (sqrt-intensity weighted) the standard must explain.
 MIN_EXPLAINED = 0.75
+#: An unexplained ring this strong (relative to the strongest ring) rejects the standard.
+STRONG_RING = 0.25
+#: A line of the standard predicted this strong (above the detection limit) but not seen rejects it.
+STRONG_MISSING = 0.1
 
 
 @dataclass(frozen=True)
@@ -78,8 +82,21 @@ def fit_standard(measured: RingMeasurement, standard: Phase, *, tol_rel: float =
         raise InputError(
             f"the rings do not fit {standard.name}: rings at r = {_fmt_rings(measured, unfit)} px match no "
             f"{standard.name} line (best scale {best.scale_inv_nm_per_px:.5g} 1/nm/px explains {best.n_matched} of {n}; "
-            f"radius ratios to the strongest ring {', '.join(f'{v:.3f}' for v in ratios)}); check --standard"
+            f"radius ratios to the strongest ring {', '.join(f'{v:.3f}' for v in ratios[:8])}"
+            f"{', ...' if len(ratios) > 8 else ''}); check --standard"
         )
+    lines = best.lines[0]
+    strong_unfit = [i for i in unfit if obs.intensity[i] >= STRONG_RING]
+    missing = [(j, v) for p_idx, j, v in best.missing if v >= STRONG_MISSING]
+    if strong_unfit or missing:
+        parts = []
+        if strong_unfit:
+            parts.append(f"the strong rings at r = {_fmt_rings(measured, strong_unfit)} px match no {standard.name} line")
+        if missing:
+            parts.append(", ".join(f"{standard.name} {lines.hkl_label(j)} (d = {lines.d_nm[j]:.4f} nm, expected at "
+                                   f"r = {lines.g_inv_nm[j] / best.scale_inv_nm_per_px:.1f} px) is missing" for j, _ in missing))
+        raise InputError(f"the rings do not fit {standard.name}: " + "; ".join(parts) +
+                         f" (best scale {best.scale_inv_nm_per_px:.5g} 1/nm/px); check --standard")
     if len(res) > 1 and res[1].score > 0.9 * best.score:
         logger.warning("a second scale (%.5g 1/nm/px) fits %s almost as well", res[1].scale_inv_nm_per_px, standard.name)
     return best

@@ -27,7 +27,7 @@ from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
 from saed.image.azimuthal import RadialProfile, polar_coordinates, radial_profile
 from saed.image.rings import ProfileRings, find_profile_rings
-from saed.rings.geometry import RingGeometry, fit_ring_geometry, inversion_centre
+from saed.rings.geometry import RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
 
 __all__ = ["RingMeasurement", "ring_mask", "measure_rings", "SINGLE_CRYSTAL_COVERAGE"]
 
@@ -106,6 +106,11 @@ def ring_mask(image, *, mask=None) -> np.ndarray:
     dark = ndimage.binary_opening(dark, iterations=2)
     out |= ndimage.binary_dilation(dark, iterations=3)
     return out
+
+
+def _spots_message(coverage: float) -> str:
+    return (f"the rings are made of isolated spots (the strongest cover {100 * coverage:.0f} % of the circle): "
+            "this looks like a single-crystal pattern; use 'saed index'")
 
 
 def _search_range(shape, center, mask, coords, img_for_range=None) -> tuple[float, float]:
@@ -198,6 +203,12 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
     prof, rings = profile_and_rings(cen, ell)
     if len(rings) == 0:
         raise ImageError("no rings found in the radial profile (nothing stands 5 sigma above the background)")
+    # A quick look first: rings made of a few spots are a single crystal, not worth fitting.
+    first = np.argsort(-rings.snr)[:6]
+    _, _, cov0 = trace_rings(img, center_px=cen, ellipse=ell, radii_px=rings.radius_px[first],
+                             widths_px=rings.width_px[first], mask=m)
+    if not allow_spots and len(cov0) and float(np.median(cov0)) < SINGLE_CRYSTAL_COVERAGE:
+        raise ImageError(_spots_message(float(np.median(cov0))) + " (or --spotty for a coarse-grained film)")
     geom = None
     for stage in ("coarse", "fine"):
         strong = np.argsort(-rings.snr)
@@ -225,8 +236,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
     traced = np.isfinite(coverage)
     med_cov = float(np.median(coverage[traced])) if traced.any() else float("nan")
     if traced.any() and med_cov < SINGLE_CRYSTAL_COVERAGE:
-        msg = (f"the rings are made of isolated spots (the strongest cover {100 * med_cov:.0f} % of the circle): "
-               "this looks like a single-crystal pattern; use 'saed index'")
+        msg = _spots_message(med_cov)
         if not allow_spots:
             raise ImageError(msg + " (or --spotty for a coarse-grained film)")
         notes.append(msg)
