@@ -13,7 +13,7 @@ from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
 __all__ = ["add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
-           "write_json", "positive_float", "finite_float"]
+           "write_json", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
 
 
 def finite_float(text: str) -> float:
@@ -73,6 +73,28 @@ def phases_from_args(args, *, default_all: bool = True) -> list[Phase]:
     if not phases:
         raise InputError("no candidate phases given (use --phase)")
     return phases
+
+
+def add_matching_options(p: argparse.ArgumentParser) -> None:
+    """The matcher's options (as ``saed index`` has them), for commands that index many patterns."""
+    g = p.add_argument_group("matching")
+    g.add_argument("--top", type=int, default=5, metavar="N", help="solutions to rank per pattern (default 5)")
+    g.add_argument("--length-tol", type=positive_float, metavar="PCT",
+                   help="tolerance of the calibrated scale, percent (default 3)")
+    g.add_argument("--angle-tol", type=positive_float, metavar="DEG",
+                   help="tolerance of the angle between two spots, degrees (default 2)")
+    g.add_argument("--max-g", type=positive_float, metavar="INV_NM", help="largest |g| considered, 1/nm")
+    g.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
+                   help="direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), "
+                        "to give the mistilt correction as alpha/beta")
+
+
+def matching_options_from_args(args) -> dict:
+    """Keyword options of :func:`saed.index.index_pattern` from :func:`add_matching_options` arguments."""
+    if args.top < 1:
+        raise InputError(f"--top {args.top}: give at least 1")
+    return {"angle_tol_deg": args.angle_tol, "length_tol_pct": args.length_tol,
+            "holder_alpha_axis_deg": args.alpha_axis}
 
 
 def write_json(path: str, obj) -> None:
