@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import math
 import sys
@@ -63,12 +64,13 @@ def add_phase_option(p: argparse.ArgumentParser, *, required: bool = False) -> N
 
 def phases_from_args(args, *, default_all: bool = True) -> list[Phase]:
     specs = getattr(args, "phase", None) or (builtin_names() if default_all else [])
-    phases, seen = [], set()
+    phases: list[Phase] = []
     for spec in specs:
         ph = load_phase(spec)
-        if ph.name in seen:
+        if ph in phases:  # the same phase given twice
             continue
-        seen.add(ph.name)
+        if any(p.name == ph.name for p in phases):  # same name, different crystal (e.g. a CIF's data block)
+            ph = dataclasses.replace(ph, name=f"{ph.name} ({spec})")
         phases.append(ph)
     if not phases:
         raise InputError("no candidate phases given (use --phase)")
