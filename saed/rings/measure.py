@@ -164,7 +164,8 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
     ----------
     image : (ny, nx) array of counts
     mask : (ny, nx) bool, True = ignore (added to the automatic mask)
-    center_px : centre hint (x, y); refined unless ``fit_center`` is False
+    center_px : centre hint (x, y): the symmetry centre is searched within 8 % of the image size of it,
+        then refined (unless ``fit_center`` is False: then it is used as given)
     ellipse : known distortion (e.g. from a calibration file); fitted from the rings when None and
         ``fit_ellipse``
     snr_min : detection threshold of a ring in the radial profile (local-noise sigmas)
@@ -191,6 +192,9 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
         cen = (float(center_px[0]), float(center_px[1]))
         if not (-0.5 * img.shape[1] <= cen[0] <= 1.5 * img.shape[1] and -0.5 * img.shape[0] <= cen[1] <= 1.5 * img.shape[0]):
             raise InputError(f"centre hint ({cen[0]:g}, {cen[1]:g}) px lies far outside the {img.shape[1]}x{img.shape[0]} image")
+        if fit_center:
+            # A hint (from --center or a calibration file of another exposure) only narrows the search.
+            cen = inversion_centre(img, mask=m, hint_px=cen, search_px=max(0.08 * min(img.shape), 16.0))
     do_ellipse = fit_ellipse and given_ellipse is None
 
     def profile_and_rings(c, e, width=None):
