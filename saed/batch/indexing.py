@@ -8,6 +8,7 @@ an :class:`IndexJob`, and sent to each worker once; :func:`index_frame` then onl
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -15,24 +16,56 @@ import numpy as np
 from saed.batch.results import Row
 from saed.calibration import Calibration
 
-__all__ = ["IndexJob", "make_index_job", "index_frame"]
+__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for"]
 
 
 @dataclass(frozen=True)
 class IndexJob:
-    """What every frame of a batch shares: the prepared phases, the calibration and ``top``."""
+    """What every frame of a batch shares: the prepared phases, the calibration and the matching options.
+
+    ``mask``: (rows, cols) bool, True where pixels are ignored (a beam stop that stays put), or
+    None; ``options``: keyword options of :func:`saed.index.index_pattern` as (name, value) pairs.
+    """
 
     tables: object
     calibration: Calibration
     top: int = 5
+    mask: np.ndarray | None = None
+    options: tuple[tuple[str, object], ...] = ()
+
+    def __post_init__(self):
+        if self.mask is not None:
+            m = np.array(self.mask, dtype=bool)
+            m.flags.writeable = False
+            object.__setattr__(self, "mask", m)
+        object.__setattr__(self, "options", tuple((k, v) for k, v in dict(self.options).items() if v is not None))
 
 
-def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None) -> IndexJob:
-    """Prepare `phases` once (at the calibration's voltage) for a batch."""
+def max_g_for(frame_shape, scale_inv_nm_per_px: float | None) -> float | None:
+    """The largest |g| a spot on a detector of `frame_shape` can have, 16 to 30 1/nm (None: uncalibrated).
+
+    ``saed index`` sizes its tables by the farthest measured spot (at least 16, at most 30 1/nm);
+    a batch sizes them once, by the farthest point a spot can reach: 1.05 x the half-diagonal.
+
+    >>> max_g_for((256, 256), 0.08), max_g_for((2048, 2048), 0.0558)
+    (16.0, 30.0)
+    """
+    from saed.index.tables import DEFAULT_MAX_G_INV_NM
+
+    if scale_inv_nm_per_px is None:
+        return None
+    rows, cols = frame_shape
+    reach = 1.05 * 0.5 * math.hypot(rows, cols) * scale_inv_nm_per_px
+    return float(min(max(DEFAULT_MAX_G_INV_NM, reach), 30.0))
+
+
+def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None,
+                   mask=None, **options) -> IndexJob:
+    """Prepare `phases` once (at the calibration's voltage) for a batch; `options` go to index_pattern."""
     from saed.index import prepare_phases
 
     tables = prepare_phases(phases, voltage_kv=calibration.voltage_kv, max_g_inv_nm=max_g_inv_nm)
-    return IndexJob(tables, calibration, int(top))
+    return IndexJob(tables, calibration, int(top), mask, tuple(options.items()))
 
 
 def _one_line(parts) -> str:
@@ -49,7 +82,8 @@ def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, cont
     from saed.index import index_image
 
     cal = context if isinstance(context, Calibration) else job.calibration
-    result = index_image(image, job.tables, cal, top=job.top, source=f"{name} frame {frame}")
+    result = index_image(image, job.tables, cal, top=job.top, mask=job.mask, source=f"{name} frame {frame}",
+                         **dict(job.options))
     measured = result.measured
     n_spots = len(measured.spots) if measured is not None else None
     if not result.solutions:

@@ -51,13 +51,14 @@ class FrameSource:
     column); ``path`` is its absolute form (what the workers open and what resume matches
     on); ``stack_shape`` is the shape of the leading axes of a stack (``(n,)`` for a
     3-axis ``.npy`` or a multi-page TIFF, ``(ny, nx)`` for a 4-axis ``.npy``, ``()`` for
-    a single image).
+    a single image); ``frame_shape`` is (rows, cols) when the header gives it (``.npy``).
     """
 
     name: str
     path: str
     n_frames: int
     stack_shape: tuple[int, ...] = ()
+    frame_shape: tuple[int, int] | None = None
 
     @property
     def scan_shape(self) -> tuple[int, int] | None:
@@ -119,7 +120,7 @@ def inspect_source(name: str) -> FrameSource:
         n = math.prod(lead)
         if n == 0:
             raise ImageError(f"{name}: the .npy stack of shape {shape} holds no frames")
-        return FrameSource(name, path, n, lead)
+        return FrameSource(name, path, n, lead, tuple(shape[-2:]))
     n = count_frames(path)
     if n < 1:
         raise ImageError(f"{name}: the file holds no image")

@@ -11,8 +11,8 @@ import sys
 from collections import Counter
 from pathlib import Path
 
-from saed.cli.common import (add_calibration_options, add_phase_option, calibration_from_args, phases_from_args,
-                             positive_float)
+from saed.cli.common import (add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
+                             matching_options_from_args, phases_from_args, positive_float)
 from saed.cli.progress import Progress, _fmt_s
 from saed.errors import InputError
 
@@ -42,9 +42,9 @@ def add_arguments(p):
     p.add_argument("--out", required=True, metavar="PATH.csv", help="the results CSV (appended to, and resumed from)")
     add_phase_option(p)
     add_calibration_options(p)
-    g = p.add_argument_group("indexing")
-    g.add_argument("--top", type=_positive_int, default=5, metavar="N", help="solutions ranked per frame (default 5)")
-    g.add_argument("--max-g", type=positive_float, metavar="INV_NM", help="largest |g| considered, 1/nm")
+    add_matching_options(p)
+    p.add_argument("--mask", metavar="PNG", help="mask image of the frames' size: non-zero pixels are ignored in "
+                                                 "every frame (a beam stop that stays put)")
     r = p.add_argument_group("where to run")
     r.add_argument("--workers", type=_positive_int, metavar="N",
                    help="local worker processes (default: one per CPU core)")
@@ -98,6 +98,38 @@ def _file_calibration(base):
     return context_of
 
 
+def _frame_shape(sources):
+    """(rows, cols) of the first frame that can be read (None if none of the first few can)."""
+    from saed.errors import ImageError
+    from saed.image.io import read_image
+
+    for src in sources[:20]:
+        if src.frame_shape is not None:
+            return src.frame_shape
+        for k in range(min(src.n_frames, 3)):
+            try:
+                return read_image(src.path, frame=k).shape
+            except ImageError:
+                continue
+    return None
+
+
+def _frame_geometry(args, sources, calibration):
+    """The mask (read once) and the tables' max |g|, from the frames' size."""
+    from saed.batch.indexing import max_g_for
+    from saed.image.io import read_mask_image
+
+    shape = _frame_shape(sources)
+    mask = None
+    if args.mask:
+        if shape is None:
+            raise InputError(f"--mask {args.mask}: no frame of the inputs could be read to check its size against")
+        mask = read_mask_image(args.mask, shape=shape)
+    if args.max_g is not None or shape is None:
+        return mask, args.max_g
+    return mask, max_g_for(shape, calibration.scale_inv_nm_per_px)
+
+
 def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
     from saed.report.files import check_writable
 
@@ -133,6 +165,7 @@ def run(args) -> int:
     if args.workers is not None and args.scheduler is not None:
         raise InputError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
     out, map_path, summary_path = _check_outputs(args, args.inputs)
+    matching = matching_options_from_args(args)
     calibration = calibration_from_args(args)
     phases = phases_from_args(args)
 
@@ -149,6 +182,7 @@ def run(args) -> int:
         scan_shape = check_scan_shape(args.scan_shape, inputs.sources)
         map_path = map_path or default_map
 
+    mask, max_g = _frame_geometry(args, inputs.sources, calibration)
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
         n_todo = count_todo(inputs.sources, results.done)
         n_files = len(inputs.sources)
@@ -165,7 +199,7 @@ def run(args) -> int:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,
                                     connect_timeout_s=args.connect_timeout) as client:
-                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=args.max_g)
+                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask, **matching)
                     with Progress(n_todo, "batch") as bar:
                         outcome = run_batch(inputs, results, index_frame, job, client=client, progress=bar,
                                             context_of=context_of)

@@ -3,8 +3,8 @@
 Left panel: one fill colour *and* one hatch pattern per phase, so phases stay apart in
 greyscale print and for colour-blind readers. Right panel: one colour per (phase, zone
 family), still hatched by phase; the legend names each family with its frame count.
-Frames with no solution are light grey with dots, errors dark grey with crosses, frames
-not yet indexed are left white.
+Frames with no solution are plain light grey, errors near-black, frames not yet indexed
+are left white.
 """
 
 from __future__ import annotations
@@ -25,9 +25,11 @@ PHASE_HATCHES = ("///", "...", "xx", "\\\\\\", "oo", "++", "--", "||")
 #: Zone families drawn in their own colour; rarer ones share a grey "other zones".
 MAX_FAMILIES_SHOWN = 12
 
-_NO_SOLUTION_STYLE = ("#d4d4d4", "..", "#8a8a8a")
-_ERROR_STYLE = ("#4a4a4a", "xx", "#d0d0d0")
+_NO_SOLUTION_STYLE = ("#cfcfcf", "", "#8a8a8a")
+_ERROR_STYLE = ("#262626", "", "#262626")
 _OTHER_ZONES = "#9e9e9e"
+#: Zone-family colours: matplotlib's tab20 without its two greys (kept for "other", "no solution", "error").
+_ZONE_COLOUR_ORDER = (0, 2, 4, 6, 8, 10, 12, 16, 18, 1, 3, 5, 7, 9, 11, 13, 17, 19)
 
 
 def _runs_path(mask: np.ndarray):
@@ -89,6 +91,10 @@ def _setup_axes(ax, shape, title):
     ax.set_title(title, fontsize=11)
     ax.set_xlabel("scan x (position index)")
     ax.set_ylabel("scan y (position index)")
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.yaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_facecolor("white")
 
 
@@ -147,7 +153,7 @@ def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120) -> 
     for rank, j in enumerate(sorted(shown, key=lambda j: (pindex.get(scan.families[j].phase, 99), -fam_counts[j]))):
         fam = scan.families[j]
         _, hatch, _ = _phase_style(pindex.get(fam.phase, 0))
-        face = palette[(2 * rank) % 20 if rank < 10 else (2 * (rank - 10) + 1) % 20]
+        face = palette[_ZONE_COLOUR_ORDER[rank % len(_ZONE_COLOUR_ORDER)]]
         _fill(ax_z, scan.family_index == j, face=face, hatch=hatch, hatch_colour=_darker(face))
         zone_handles.append(Patch(facecolor=face, hatch=hatch, edgecolor=_darker(face),
                                   label=f"{_tex_escape(fam.phase)} {family_mathtext(fam.family)}  {fam_counts[j]}"))
