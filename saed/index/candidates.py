@@ -62,12 +62,7 @@ class Candidate:
 
 def spot_set(measured) -> SpotSet:
     """Collect the measured spot vectors, weights and uncertainties from a MeasuredPattern."""
-    v = np.asarray(measured.spot_vectors_px(), dtype=float).reshape(-1, 2)
-    ell = measured.calibration.ellipse if measured.calibration is not None else None
-    already = bool(getattr(measured, "ellipse_corrected", False))
-    if ell is not None and ell.axis_ratio > 1.0 and not already:
-        dx, dy = ell.corrected_px(v[:, 0], v[:, 1])
-        v = np.stack([np.asarray(dx, float), np.asarray(dy, float)], axis=1)
+    v = np.asarray(measured.corrected_spot_vectors_px(), dtype=float).reshape(-1, 2)
     sp = measured.spots
     inten = np.asarray(sp.intensity, float)
     n = len(v)
@@ -77,10 +72,8 @@ def spot_set(measured) -> SpotSet:
     if basis is not None and len(basis.on_lattice) == n:
         on_lat = np.asarray(basis.on_lattice, bool)
         idx = np.asarray(basis.indices, float)
-        lat_v = idx[:, :1] * np.asarray(basis.g1_px)[None, :] + idx[:, 1:2] * np.asarray(basis.g2_px)[None, :]
-        if ell is not None and ell.axis_ratio > 1.0 and not already:
-            dx, dy = ell.corrected_px(lat_v[:, 0], lat_v[:, 1])
-            lat_v = np.stack([np.asarray(dx, float), np.asarray(dy, float)], axis=1)
+        g1, g2 = measured.corrected_basis_px()
+        lat_v = idx[:, :1] * np.asarray(g1)[None, :] + idx[:, 1:2] * np.asarray(g2)[None, :]
         use = on_lat & np.any(idx != 0, axis=1)
         # only where the lattice point agrees with the spot (a guard against a wrong basis)
         close = np.linalg.norm(lat_v - v, axis=1) <= np.maximum(2.0, 0.03 * np.linalg.norm(v, axis=1))
@@ -278,8 +271,9 @@ def find_candidates(tables: IndexTables, spots: SpotSet, *, scale_inv_nm_per_px:
                 if taken.get(key, 0) >= per_zone:
                     continue
                 taken[key] = taken.get(key, 0) + 1
-                found.append(Candidate(pi, int(pt.pair_i1[rows[j]]), int(pt.pair_i2[rows[j]]),
-                                       tuple(int(v) for v in uvw[j]), key, u[j], float(k[j]), float(qs[j])))
+                zone, u_c = pt.canonical_orientation(uvw[j], u[j])
+                found.append(Candidate(pi, int(pt.pair_i1[rows[j]]), int(pt.pair_i2[rows[j]]), zone, key, u_c,
+                                       float(k[j]), float(qs[j])))
     return _select(found, max_candidates), n_hits
 
 

@@ -163,8 +163,8 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     floor = 2.0 * scale
     r_meas = np.linalg.norm(meas_xy, axis=1)
     region = (0.35 * float(r_meas.min()), 1.02 * float(r_meas.max())) if len(r_meas) else (0.0, 0.0)
-    idx_int = [s.intensity for s in best.indexed if s.kind == "allowed"]
-    ref_i = float(np.median(idx_int)) if idx_int else 1.0
+    # "strong" is judged against the strong spots of the pattern (90th percentile), not the median
+    ref_i = float(np.percentile(spots.intensity, 90)) if len(spots.intensity) else 1.0
     ex_o = _extras(po, pb, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
     ex_b = _extras(pb, po, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
     ratio_pct = _ratio_difference_pct(pb, po, floor=floor)
@@ -185,7 +185,7 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
         for e in ex:
             holz_weak = e.other_kind == "holz-projection" and e.observed and e.observed_strength < 0.1
             if holz_weak:
-                caution = (f"the {_hkl_text(e.hkl, hx)} spots of {who} are weak here, and weak spots at those "
+                caution = caution or (f"the {_hkl_text(e.hkl, hx)} spots of {who} are weak here, and weak spots at those "
                            f"positions also arise in thin or faulted foils of {whom.split(' [')[0]} (projected "
                            f"higher-order Laue-zone reflections), so they do not decide; strong ones would favour "
                            f"{who.split(' [')[0]}")
@@ -401,7 +401,7 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
             else:
                 dis, miss_a, miss_b = 1.0, [], []
             index = min(_zone_index(u, p.is_hexagonal) for u, p in ((uvw_a, pa), (uvw_b, pb)) if u is not None)
-            merit = dis - abs(omega) / 120.0 - 0.06 * (index - 1)
+            merit = dis - abs(omega) / 150.0 - 0.1 * (index - 1)
             if dis >= 0.2 and (best_choice is None or merit > best_choice[0]):
                 best_choice = (merit, omega, ia, ib, d, uvw_a, uvw_b, miss_a, miss_b, pat_a, pat_b, ua2, ub2)
     if best_choice is None:
@@ -413,16 +413,35 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
     az = math.degrees(math.atan2(d[1], d[0])) % 360.0
     beam = np.array([0.0, 0.0, 1.0])
 
-    def reach(name, phase, uvw, u2, hexagonal):
+    axis = np.array([d[0], d[1], 0.0])
+
+    def reach(name, phase, uvw, u_m, h, hexagonal):
         if uvw is not None:
             return f"{name} reaches [{_zone_text(uvw, hexagonal)}]"
-        near, off, far = _nearest_zone(phase, u2.T @ beam, max_index=zmax, tol_deg=90.0)
-        z = near if near is not None else far
-        return f"{name} reaches no low-index zone (nearest [{_zone_text(z, hexagonal)}], {off:.1f} deg away)"
+        # the zones this phase does meet on the same tilt arc (they contain the same row)
+        zs = _zones_with_row(phase, h, 2)
+        best_z, best_w = None, None
+        if len(zs):
+            zl = phase.lattice.r_cartesian_nm(zs) @ u_m.T
+            zl /= np.linalg.norm(zl, axis=1, keepdims=True)
+            for z, uvw_z in zip(np.concatenate([zl, -zl]), np.concatenate([zs, -zs])):
+                w = _tilt_to(z, axis)
+                if abs(w) < 1.0 or w * omega < 0 or abs(w - omega) < 1.0:
+                    continue
+                if best_w is not None and abs(w - omega) >= abs(best_w - omega):
+                    continue
+                u_at = rotation_about_axis(axis, w) @ u_m
+                if _two_rows(_lab_pattern(phase, uvw_z, u_at, voltage_kv=voltage_kv, g_max=g_max)):
+                    best_z, best_w = uvw_z, w
+        txt = f"{name} reaches no low-index zone"
+        if best_z is not None:
+            txt += f" (on this tilt arc its nearest zone pattern is [{_zone_text(best_z, hexagonal)}], at {abs(best_w):.1f} deg)"
+        return txt
 
     text = (f"tilt {abs(omega):.1f} deg about the {row_a} row ({row_b} in {other.phase_name}; detector azimuth "
-            f"{az:.0f} deg, {'+' if omega > 0 else '-'} sense): {reach(best.phase_name, pa, uvw_a, ua2, hexa)}, "
-            f"{reach(other.phase_name, pb, uvw_b, ub2, hexb)}")
+            f"{az:.0f} deg, {'+' if omega > 0 else '-'} sense): "
+            f"{reach(best.phase_name, pa, uvw_a, ua, za.hkl[ia], hexa)}, "
+            f"{reach(other.phase_name, pb, uvw_b, ub, zb.hkl[ib], hexb)}")
     diffs = []
     if miss_a:
         diffs.append(f"{best.phase_name} shows {_hkl_text(pat_a[4][miss_a[0]], hexa)}")
@@ -499,6 +518,12 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
     return out
 
 
+def _observed_g_max(best: Solution, spots) -> float:
+    """The |g| range the detector recorded (1/nm), at least 10: the tilt targets are judged within it."""
+    r = float(np.max(spots.r_px)) if len(spots.r_px) else 0.0
+    return max(10.0, 1.05 * r * best.scale_inv_nm_per_px)
+
+
 def _lk_zone(lk: Lookalike) -> str:
     return format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
 
@@ -564,7 +589,8 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         if s.score < best.score - 0.15 or len(looks) >= 3:
             continue
         rel, text, need_tilt = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-        tilt = separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv) if need_tilt else None
+        tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots))
+                if need_tilt else None)
         looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text, tilt,
                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))
         seen_phases.add(s.phase_name)

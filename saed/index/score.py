@@ -6,14 +6,16 @@ nearest predicted reflection; the in-plane rotation and the scale are refined by
 least squares over all assigned spots (a 2-D similarity: the complex ratio of measured to
 predicted positions), and the assignment is repeated. The figure of merit is
 
-    score = M * (1 - 0.5 A) * (0.85 + 0.15 T) * S * Z
+    score = M * (1 - 0.5 A) * (0.85 + 0.15 T) * (1 - 0.3 D) * S * Z
 
 with M the weighted agreement of the measured spots (position likelihood times a kind factor:
 allowed 1, forbidden but reachable by double diffraction 0.95, projection of a higher-order
 Laue-zone reflection 0.9 when weak and 0.15 when strong, forbidden with no route or
 unexplained 0), A the share of predicted kinematic intensity that is missing inside the
 observed region (Friedel pairs count as seen when either member is), T the rank correlation of
-measured and kinematic intensities (robust to dynamical scattering, used lightly), S the
+measured and kinematic intensities (robust to dynamical scattering, used lightly), D the share
+of indexed spot weight whose measured/kinematic intensity ratio lies more than 10x below the
+weighted median ratio (kinematically strong spots that are all but missing), S the
 agreement of the refined scale with the calibration (1 when uncalibrated) and Z a faint
 preference for low-index zones, which only breaks exact ties.
 """
@@ -47,6 +49,9 @@ KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.95, "holz-weak": 0.9, "ho
 #: layers are this close (1/nm): the stacking-direction zones (fcc <111>: 1.6 1/nm for Co) where
 #: thin foils, surface steps and faults put weak spots at those positions (common practice).
 HOLZ_LAYER_SPACING_MAX_INV_NM = 2.0
+
+#: Measured/kinematic intensity ratios this far below the median ratio count as an intensity misfit.
+INTENSITY_MISFIT_FACTOR = 10.0
 
 #: A HOLZ-projection spot counts as weak below this fraction of the median indexed intensity.
 HOLZ_WEAK_FRACTION = 0.1
@@ -190,20 +195,27 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
 
     # intensity agreement (rank correlation; dynamical intensities differ, so it weighs little)
     idx_allowed = np.flatnonzero(ok & np.array([k == "allowed" for k in kinds], bool))
-    rank = 0.5  # neutral when the kinematic intensities do not discriminate
+    rank = 0.75  # neutral when the kinematic intensities do not discriminate
     if len(idx_allowed) >= 5:
         pi_ = np.round(np.log10(np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)), 2)
         mi = spots.intensity[idx_allowed]
         if len(np.unique(pi_)) >= 2 and np.ptp(mi) > 0:
             rho = stats.spearmanr(mi, pi_).statistic
             rank = float(max(0.0, rho)) if np.isfinite(rho) else 0.5
+    # kinematically strong spots measured far weaker than the rest (robust: only > 10x off the median ratio)
+    misfit = 0.0
+    if len(idx_allowed) >= 5:
+        pred = np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)
+        ratio = np.log(np.maximum(spots.intensity[idx_allowed], 1e-12) / pred)
+        off = ratio < _weighted_median(ratio, spots.weight[idx_allowed]) - math.log(INTENSITY_MISFIT_FACTOR)
+        misfit = float(np.sum(spots.weight[idx_allowed][off]) / max(np.sum(spots.weight[idx_allowed]), 1e-12))
     scale_term = 1.0
     scale_err = None
     if calibrated_scale is not None:
         scale_err = scale / calibrated_scale - 1.0
         scale_term = math.exp(-0.5 * (scale_err / max(length_tol / 1.5, 1e-6)) ** 2)
     zone_term = 1.0 - 0.002 * (max(abs(v) for v in uvw) - 1)
-    score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * scale_term * zone_term
+    score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * (1.0 - 0.3 * misfit) * scale_term * zone_term
 
     # per-spot records
     use_scale = calibrated_scale if calibrated_scale is not None else scale
@@ -257,8 +269,8 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         mean_angle_error_deg=float(np.mean(a_err)) if a_err else float("nan"),
         structure_type=phase.structure_type, implied_camera_length_mm=cam,
         scale_error_pct=None if scale_err is None else 100.0 * scale_err,
-        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("scale", scale_term),
-               ("zone_prior", zone_term)),
+        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
+               ("scale", scale_term), ("zone_prior", zone_term)),
         predicted_xy_px=pred_abs, predicted_hkl=zp.hkl[show], predicted_intensity=np.where(allowed, f_rel ** 2, 0.0)[show],
         predicted_kind=tuple("allowed" if a else "double-diffraction" for a in allowed[show]),
     )
@@ -320,6 +332,12 @@ def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):
     dz = np.min(np.linalg.norm(q[:, None, :] - zolz[None, :, :], axis=2), axis=1)
     keep = dz > 1e-3
     return q[keep], pt.hkl[sel][keep]
+
+
+def _weighted_median(x: np.ndarray, w: np.ndarray) -> float:
+    order = np.argsort(x)
+    c = np.cumsum(w[order])
+    return float(x[order][np.searchsorted(c, 0.5 * c[-1])])
 
 
 def _friedel_rows(hkl: np.ndarray) -> np.ndarray:

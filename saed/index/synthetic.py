@@ -37,51 +37,93 @@ class SyntheticTruth:
     hkl: np.ndarray  # (n_spots, 3) reflection behind every spot
 
 
-def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
-                       in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
-                       thickness_nm: float = 8.0, excitation_width_inv_nm: float = 0.1, image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 12.0,
-                       position_noise_px: float = 0.15, intensity_noise: float = 0.3, min_intensity: float = 2e-3,
-                       double_diffraction: float = 0.0, ellipse: Ellipse | None = None, calibrated: bool = True,
-                       beam_stop_azimuth_deg: float | None = None, extra_spots_xy_px=None, pixel_pitch_um=None,
-                       rng=None) -> tuple[MeasuredPattern, SyntheticTruth]:
-    """A MeasuredPattern of `phase` along `zone_axis` with known truth (see the module notes).
+def zone_spots(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
+               in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
+               max_g_inv_nm: float = 12.0, excitation_width_inv_nm: float = 0.1, min_intensity: float = 2e-3,
+               double_diffraction: float = 0.0, holz_projection_intensity: float = 0.0):
+    """Undistorted spot offsets (px, from the centre), relative intensities, hkl and U of a zone pattern.
 
-    ``beam_stop_azimuth_deg``: spots in the half-plane centred on that azimuth are removed (a beam
-    stop or its shadow covering half the pattern). ``double_diffraction``: intensity (relative to
-    the strongest) given to forbidden spots with a double-diffraction route; 0 leaves them out.
-    ``ellipse``: the distortion applied to the positions; the calibration carries it too, as a
-    calibrated microscope would (only when ``calibrated``).
+    Intensities are |F|^2 exp(-(s/w)^2) with s the exact excitation error of the (tilted) beam and
+    w = `excitation_width_inv_nm`, strongest = 1; forbidden reflections with a double-diffraction
+    route get `double_diffraction` (0 leaves them out). Only zero-order reflections are kept, plus,
+    when `holz_projection_intensity` > 0, weak spots at the projections of the first two
+    higher-order layers (intensity that fraction of their |F|^2), as thin or faulted foils show.
     """
-    rng = np.random.default_rng(rng)
     zp = zone_pattern(phase, zone_axis, voltage_kv=voltage_kv, max_g_inv_nm=max_g_inv_nm, tilt_deg=tilt_deg,
-                      tilt_toward_hkl=tilt_toward_hkl, thickness_nm=thickness_nm, include_holz=False)
-    h, w = image_shape
-    cx, cy = ((w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2) if center_px is None else center_px
-    # |F|^2 times a broad excitation envelope: a thin, slightly bent foil and a convergent beam
-    # keep reflections visible well off the Bragg condition, as in recorded SAED patterns
+                      tilt_toward_hkl=tilt_toward_hkl, thickness_nm=20.0, include_holz=False)
     f2 = np.where(zp.kinematically_forbidden, 0.0, np.asarray(zp.f_abs, float) ** 2)
     inten = f2 * np.exp(-(np.asarray(zp.excitation_error_inv_nm) / excitation_width_inv_nm) ** 2)
     inten = inten / max(float(inten.max()), 1e-30)
     if double_diffraction > 0:
         inten = np.where(zp.double_diffraction, double_diffraction, inten)
     keep = (zp.laue_zone == 0) & (inten >= min_intensity)
-    xy = np.asarray(zp.xy_rotated_inv_nm(in_plane_rotation_deg))[keep]
-    hkl = np.asarray(zp.hkl)[keep]
-    inten = inten[keep]
-    v = xy / scale_inv_nm_per_px
-    if ellipse is not None and ellipse.axis_ratio > 1:
-        q = math.sqrt(ellipse.axis_ratio)
-        t = math.radians(ellipse.major_axis_angle_deg)
-        c, s = math.cos(t), math.sin(t)
-        uu = (c * v[:, 0] + s * v[:, 1]) * q
-        vv = (-s * v[:, 0] + c * v[:, 1]) / q
-        v = np.stack([c * uu - s * vv, s * uu + c * vv], axis=1)
-    if beam_stop_azimuth_deg is not None:
-        b = math.radians(beam_stop_azimuth_deg)
-        side = v @ np.array([math.cos(b), math.sin(b)])
-        perp = np.abs(v @ np.array([-math.sin(b), math.cos(b)]))
-        blocked = (side > 0) & (perp < 0.5 * max(h, w))
-        v, hkl, inten = v[~blocked], hkl[~blocked], inten[~blocked]
+    u = in_plane_rotation(in_plane_rotation_deg) @ zp.orientation_matrix
+    v = np.asarray(zp.xy_rotated_inv_nm(in_plane_rotation_deg))[keep] / scale_inv_nm_per_px
+    inten, hkl = inten[keep], np.asarray(zp.hkl)[keep]
+    if holz_projection_intensity > 0:
+        # thin foils, surface steps and faults: weak spots where the first layers project (fcc <111>: 1/3{422})
+        from saed.crystal.reflections import reflection_table
+
+        tbl = reflection_table(phase, max_g_inv_nm)
+        n = tbl.hkl @ np.asarray(zp.zone_axis)
+        p = zp.layer_multiplicity
+        sel = tbl.allowed & ((np.abs(n) == p) | (np.abs(n) == 2 * p))
+        q = (tbl.g_cart_inv_nm[sel] @ u.T)[:, :2]
+        f2 = np.abs(tbl.f_nm[sel]) ** 2 / max(float(np.max(np.abs(tbl.f_nm) ** 2)), 1e-30)
+        xy_keys = np.round(q, 3)
+        _, first = np.unique(xy_keys, axis=0, return_index=True)
+        ok = np.linalg.norm(q[first], axis=1) <= max_g_inv_nm
+        first = first[ok]
+        v = np.concatenate([v, q[first] / scale_inv_nm_per_px])
+        inten = np.concatenate([inten, holz_projection_intensity * f2[first]])
+        hkl = np.concatenate([hkl, tbl.hkl[sel][first]])
+    return v, inten, hkl, u, tuple(int(x) for x in zp.zone_axis)
+
+
+def _distort(v: np.ndarray, ellipse: Ellipse | None) -> np.ndarray:
+    if ellipse is None or ellipse.axis_ratio <= 1:
+        return v
+    from saed.synth.detector import distortion_matrix
+
+    return v @ distortion_matrix(ellipse).T
+
+
+def _beam_stop_blocked(v: np.ndarray, azimuth_deg: float | None, size: float) -> np.ndarray:
+    if azimuth_deg is None:
+        return np.zeros(len(v), bool)
+    b = math.radians(azimuth_deg)
+    side = v @ np.array([math.cos(b), math.sin(b)])
+    perp = np.abs(v @ np.array([-math.sin(b), math.cos(b)]))
+    return (side > 0) & (perp < 0.5 * size)
+
+
+def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
+                       in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
+                       image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 12.0,
+                       excitation_width_inv_nm: float = 0.1, position_noise_px: float = 0.15,
+                       intensity_noise: float = 0.3, min_intensity: float = 2e-3, double_diffraction: float = 0.0,
+                       holz_projection_intensity: float = 0.0, ellipse: Ellipse | None = None, calibrated: bool = True, beam_stop_azimuth_deg: float | None = None,
+                       extra_spots_xy_px=None, pixel_pitch_um=None, rng=None) -> tuple[MeasuredPattern, SyntheticTruth]:
+    """A MeasuredPattern of `phase` along `zone_axis` with known truth (see :func:`zone_spots`).
+
+    ``beam_stop_azimuth_deg``: spots in the half-plane centred on that azimuth are removed (a beam
+    stop or its shadow covering half the pattern). ``ellipse``: the distortion applied to the
+    positions; the calibration carries it too, as a calibrated microscope would (only when
+    ``calibrated``). ``intensity_noise``: sigma of the log-normal factor on every intensity
+    ("dynamical-like" disorder). ``extra_spots_xy_px``: (k, 3) x, y, intensity of stray spots.
+    """
+    rng = np.random.default_rng(rng)
+    h, w = image_shape
+    cx, cy = ((w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2) if center_px is None else center_px
+    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, voltage_kv=voltage_kv, scale_inv_nm_per_px=scale_inv_nm_per_px,
+                                        in_plane_rotation_deg=in_plane_rotation_deg, tilt_deg=tilt_deg,
+                                        tilt_toward_hkl=tilt_toward_hkl, max_g_inv_nm=max_g_inv_nm,
+                                        excitation_width_inv_nm=excitation_width_inv_nm, min_intensity=min_intensity,
+                                        double_diffraction=double_diffraction,
+                                        holz_projection_intensity=holz_projection_intensity)
+    v = _distort(v, ellipse)
+    blocked = _beam_stop_blocked(v, beam_stop_azimuth_deg, max(h, w))
+    v, hkl, inten = v[~blocked], hkl[~blocked], inten[~blocked]
     x = cx + v[:, 0] + rng.normal(0, position_noise_px, len(v))
     y = cy + v[:, 1] + rng.normal(0, position_noise_px, len(v))
     inside = (x > 4) & (x < w - 5) & (y > 4) & (y < h - 5)
@@ -99,7 +141,42 @@ def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv
                       pixel_pitch_um=pixel_pitch_um)
     measured = MeasuredPattern(image_shape=(h, w), center_px=(cx, cy), spots=spots, basis=None, calibration=cal,
                                source=f"synthetic {phase.name} {list(zone_axis)}")
-    u = in_plane_rotation(in_plane_rotation_deg) @ zp.orientation_matrix
-    truth = SyntheticTruth(phase.name, tuple(int(v) for v in zp.zone_axis), float(in_plane_rotation_deg),
-                           float(scale_inv_nm_per_px), u, float(tilt_deg), hkl)
+    truth = SyntheticTruth(phase.name, zone, float(in_plane_rotation_deg), float(scale_inv_nm_per_px), u,
+                           float(tilt_deg), hkl)
     return measured, truth
+
+
+def synthetic_image(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
+                    in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
+                    image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 14.0,
+                    excitation_width_inv_nm: float = 0.1, intensity_noise: float = 0.3, min_intensity: float = 2e-3,
+                    double_diffraction: float = 0.0, holz_projection_intensity: float = 0.0,
+                    ellipse: Ellipse | None = None, beam_stop=None, electrons_max: float = 4e4, scene=None, rng=None):
+    """A detector image (uint16) of a zone pattern through :mod:`saed.synth`, and its truth.
+
+    The spots of :func:`zone_spots` (with log-normal intensity disorder) are drawn by
+    :func:`saed.synth.detector.render_pattern`: Gaussian spots, a bright direct beam, radial haze,
+    Poisson and read noise, an optional beam stop (:class:`saed.synth.detector.BeamStop`) and the
+    elliptical distortion of `ellipse`.
+    """
+    from dataclasses import replace as _replace
+
+    from saed.synth.detector import Detector, Scene, render_pattern
+
+    rng = np.random.default_rng(rng)
+    h, w = image_shape
+    cx, cy = ((w - 1) / 2.0 + 0.37, (h - 1) / 2.0 - 0.41) if center_px is None else center_px
+    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, voltage_kv=voltage_kv, scale_inv_nm_per_px=scale_inv_nm_per_px,
+                                        in_plane_rotation_deg=in_plane_rotation_deg, tilt_deg=tilt_deg,
+                                        tilt_toward_hkl=tilt_toward_hkl, max_g_inv_nm=max_g_inv_nm,
+                                        excitation_width_inv_nm=excitation_width_inv_nm, min_intensity=min_intensity,
+                                        double_diffraction=double_diffraction,
+                                        holz_projection_intensity=holz_projection_intensity)
+    el = electrons_max * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
+    sc = scene if scene is not None else Scene(direct_beam_electrons=3e7)
+    sc = _replace(sc, ellipse=ellipse, beam_stop=beam_stop)
+    pat = render_pattern(v + np.array([cx, cy]), el, center_px=(cx, cy), detector=Detector(shape=(h, w)), scene=sc,
+                         rng=rng)
+    truth = SyntheticTruth(phase.name, zone, float(in_plane_rotation_deg), float(scale_inv_nm_per_px), u,
+                           float(tilt_deg), hkl)
+    return pat, truth

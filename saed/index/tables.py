@@ -105,6 +105,31 @@ class PhaseIndexTable:
         out[hit] = self.key_order[at[hit]]
         return out
 
+    def canonical_orientation(self, uvw, u_matrix: np.ndarray) -> tuple[tuple[int, int, int], np.ndarray]:
+        """The same crystal orientation described with the most readable equivalent zone axis.
+
+        Among the proper rotations S of the Laue group, take the one that turns [uvw] into the
+        form found in the tables ([011] rather than [1-10], [2-1-10] rather than [-12-10]); the description changes
+        (uvw' = S uvw, hkl' = hkl S^-1), the crystal does not: U' = U A S^-1 A^-1 with A the direct
+        matrix, so U' A uvw' = U A uvw stays on +z and every reflection lands where it did.
+        """
+        u = np.asarray(uvw, dtype=np.int64)
+        rots = self.laue[np.rint(np.linalg.det(self.laue)).astype(int) == 1]
+        cand = np.einsum("nij,j->ni", rots, u)
+        if self.phase.is_hexagonal:
+            from saed.crystal.miller import direction_to_4
+
+            four = direction_to_4(cand)
+            # [2-1-10], [10-10], [0001]: the largest 4-index tuple with W >= 0
+            best = max(range(len(cand)), key=lambda k: (int(four[k][3] >= 0), tuple(int(v) for v in four[k])))
+        else:
+            # [001], [011], [112], [123]: fewest negative indices, then ascending order
+            best = min(range(len(cand)), key=lambda k: (int(np.sum(cand[k] < 0)), tuple(int(v) for v in cand[k])))
+        s_mat = rots[best].astype(float)
+        a = self.phase.lattice.direct_matrix_nm
+        m_inv = a @ np.linalg.inv(s_mat) @ np.linalg.inv(a)
+        return tuple(int(v) for v in cand[best]), np.asarray(u_matrix) @ m_inv
+
     def canonical_zone(self, uvw) -> tuple[int, int, int]:
         """The representative of the Laue-group family <uvw> (largest tuple), for merging duplicates."""
         u = np.asarray(uvw, dtype=np.int64)

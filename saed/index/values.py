@@ -184,6 +184,11 @@ class Solution:
         """Spots explained as allowed or double-diffraction reflections."""
         return sum(1 for s in self.indexed if s.kind in ("allowed", "double-diffraction"))
 
+    @property
+    def n_explained(self) -> int:
+        """Spots with any explanation (also projected higher-order Laue-zone spots)."""
+        return sum(1 for s in self.indexed if s.kind in ("allowed", "double-diffraction", "holz-projection"))
+
     def term(self, name: str) -> float | None:
         return dict(self.terms).get(name)
 

@@ -1,0 +1,117 @@
+"""``saed index``: rank (phase, zone axis, orientation) solutions for a recorded pattern."""
+
+from __future__ import annotations
+
+import sys
+
+from saed.cli.common import (add_calibration_options, add_phase_option, calibration_from_args, finite_float,
+                             phases_from_args, positive_float, write_json)
+from saed.errors import InputError
+
+NAME = "index"
+HELP = "index a recorded pattern: phase, zone axis and orientation, with every spot labelled"
+DESCRIPTION = (
+    "Find the centre and the spots of a recorded single-crystal pattern and rank the (phase, zone axis, "
+    "in-plane orientation) solutions among the candidate phases (--phase, repeatable; default: the whole "
+    "built-in library). Every spot is indexed; look-alike solutions are named with what separates them and "
+    "the tilt that decides; the beam tilt off the zone is estimated from the spot intensities. Without a "
+    "calibration the pattern is indexed by spacing ratios and angles and the implied scale is reported "
+    "(and the camera length, given --pixel-pitch). Exit status 0 also when nothing fits (the message says "
+    "what came closest); 2 on bad input."
+)
+ORDER = 10
+
+
+def add_arguments(p):
+    p.add_argument("image", metavar="IMAGE", help="recorded pattern (TIFF, PNG, JPEG or .npy)")
+    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0)")
+    p.add_argument("--mask", metavar="PNG", help="mask image of the same size: non-zero pixels are ignored")
+    add_phase_option(p)
+    add_calibration_options(p)
+    g = p.add_argument_group("matching")
+    g.add_argument("--top", type=int, default=5, metavar="N", help="solutions to list (default 5)")
+    g.add_argument("--length-tol", type=positive_float, metavar="PCT",
+                   help="tolerance of the calibrated scale, percent (default 3)")
+    g.add_argument("--angle-tol", type=positive_float, metavar="DEG",
+                   help="tolerance of the angle between two spots, degrees (default 2)")
+    g.add_argument("--max-g", type=positive_float, metavar="INV_NM",
+                   help="largest |g| considered, 1/nm (default 16, or the largest measured spot)")
+    g.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
+                   help="direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), "
+                        "to give the mistilt correction as alpha/beta")
+    out = p.add_argument_group("output")
+    out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
+    out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
+    out.add_argument("--report", metavar="DIR", help="write a self-contained HTML report (index.html) into DIR")
+
+
+def check_outputs(args) -> None:
+    """Fail before any work when an output cannot be written (nothing is lost later)."""
+    from pathlib import Path
+
+    from saed.report.files import check_writable
+
+    if args.top < 1:
+        raise InputError(f"--top {args.top}: give at least 1")
+    if args.frame is not None and args.frame < 0:
+        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
+    if args.json and args.json != "-":
+        check_writable(args.json)
+    if args.overlay:
+        if not args.overlay.lower().endswith((".png", ".pdf", ".svg")):
+            raise InputError(f"--overlay {args.overlay}: must end in .png (or .pdf, .svg)")
+        check_writable(args.overlay)
+    if args.report:
+        d = Path(args.report)
+        if d.exists() and not d.is_dir():
+            raise InputError(f"--report {args.report}: exists and is not a folder")
+        if not d.exists() and not d.parent.is_dir():
+            raise InputError(f"--report {args.report}: folder {d.parent} does not exist")
+
+
+def _max_g(args, measured) -> float | None:
+    import numpy as np
+
+    from saed.index.tables import DEFAULT_MAX_G_INV_NM
+
+    if args.max_g is not None:
+        return args.max_g
+    scale = measured.calibration.scale_inv_nm_per_px
+    if scale is None or len(measured.spots) == 0:
+        return None
+    g = float(np.max(np.linalg.norm(measured.corrected_spot_vectors_px(), axis=1))) * scale
+    return min(max(DEFAULT_MAX_G_INV_NM, 1.05 * g), 30.0)
+
+
+def run(args) -> int:
+    from saed.image.measure import inspect_file
+    from saed.index import index_pattern, prepare_phases
+    from saed.report.index_json import result_json
+    from saed.report.index_summary import format_summary
+
+    check_outputs(args)
+    cal = calibration_from_args(args)
+    phases = phases_from_args(args)
+    insp = inspect_file(args.image, cal, frame=args.frame, mask_path=args.mask)
+    measured = insp.measured
+    tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
+    result = index_pattern(measured, tables, top=args.top, angle_tol_deg=args.angle_tol, length_tol_pct=args.length_tol,
+                           holder_alpha_axis_deg=args.alpha_axis)
+    out = sys.stderr if args.json == "-" else sys.stdout
+    print(format_summary(result, image=args.image, frame=args.frame, top=args.top), file=out)
+    if args.json:
+        write_json(args.json, result_json(result, image=args.image, frame=args.frame))
+    if args.overlay:
+        from saed.report.index_overlay import write_index_overlay
+
+        write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored)
+        print(f"overlay written to {args.overlay}", file=out)
+    if args.report:
+        from saed.report.index_html import ReportEntry, write_report
+
+        path = write_report(args.report, [ReportEntry(args.image, insp.image, result, ignored=insp.ignored)],
+                            title=f"saed index: {args.image}")
+        print(f"report written to {path}", file=out)
+    if not result.solutions:
+        print(f"saed index: {result.message}", file=sys.stderr)
+    return 0

@@ -1,0 +1,162 @@
+"""The overlay of an indexed pattern: what was measured, what the best solution predicts, the labels.
+
+Drawn on the recorded pattern (asinh stretch, :func:`saed.image.overlay.display_stretch`):
+
+* measured spots as circles, by what they were explained as: allowed reflection (green),
+  double diffraction (yellow, dashed), projected higher-order Laue-zone reflection (violet, dotted),
+  forbidden or unexplained (red, with a cross);
+* the best solution's simulated zero-order pattern as hollow squares (cyan; side ~ sqrt of the
+  kinematic intensity) and its double-diffraction positions as small diamonds;
+* the indices of the indexed spots (overbars for negatives; 4-index for hexagonal phases);
+* the phase, zone axis, score and errors in the title, a scale bar in 1/nm (the implied scale
+  when uncalibrated), the Laue-circle centre when the fit found a mistilt.
+
+matplotlib is imported inside the functions.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+
+from saed.image.overlay import display_stretch
+from saed.index.values import IndexResult
+from saed.report.files import atomic_write_bytes, check_writable
+from saed.report.index_summary import confidence_word, zone_text
+from saed.report.render_pattern import index_text, nice_scale_bar_inv_nm
+
+__all__ = ["overlay_figure_bytes", "write_index_overlay", "KIND_STYLE"]
+
+#: Colour, line style and label of each spot kind.
+KIND_STYLE = {
+    "allowed": ("#4cd964", "-", "indexed"),
+    "double-diffraction": ("#ffd60a", "--", "double diffraction"),
+    "holz-projection": ("#bf5af2", ":", "projected HOLZ (thin foil / faults)"),
+    "forbidden": ("#ff453a", "-", "forbidden, no route"),
+    "unindexed": ("#ff453a", "-", "not explained"),
+}
+PRED_COLOUR = "#64d2ff"
+MAX_LABELS = 36
+
+
+def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str | None = None, fmt: str = "png",
+                         dpi: int = 100, size_in: float = 8.0, ignored: np.ndarray | None = None) -> bytes:
+    """Render the overlay and return the file bytes (PNG, PDF or SVG)."""
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Circle, Rectangle
+
+    img = np.asarray(image)
+    rows, cols = img.shape[:2]
+    m = result.measured
+    best = result.best or result.near_miss
+    cx, cy = m.center_px
+    # crop to the pattern when it fills only the middle of a large frame
+    r_spots = float(np.max(np.hypot(m.spots.x_px - cx, m.spots.y_px - cy), initial=0.0)) if len(m.spots) else 0.0
+    half = max(r_spots * 1.18, 60.0)
+    x0, x1 = max(cx - half, -0.5), min(cx + half, cols - 0.5)
+    y0, y1 = max(cy - half, -0.5), min(cy + half, rows - 0.5)
+    if (x1 - x0) > 0.8 * cols and (y1 - y0) > 0.8 * rows:
+        x0, x1, y0, y1 = -0.5, cols - 0.5, -0.5, rows - 0.5
+    span = max(x1 - x0, y1 - y0)
+    head_in = 0.85
+    fig = Figure(figsize=(size_in, size_in * (y1 - y0) / (x1 - x0) + head_in), dpi=dpi)
+    fh = fig.get_figheight()
+    ax = fig.add_axes([0.0, 0.0, 1.0, 1.0 - head_in / fh])
+    ax.imshow(display_stretch(img), cmap="gray", vmin=0, vmax=1, interpolation="antialiased")
+    if ignored is not None and np.any(ignored):
+        shade = np.zeros((rows, cols, 4), np.float32)
+        shade[..., 0], shade[..., 1], shade[..., 2] = 0.55, 0.35, 0.95
+        shade[..., 3] = np.where(ignored, 0.3, 0.0)
+        ax.imshow(shade, interpolation="nearest")
+    unit = span / 100.0  # drawing unit: 1 % of the shown width
+    lw = 1.1
+    cal = m.calibration
+    scale = best.scale_inv_nm_per_px if best is not None else (cal.scale_inv_nm_per_px if cal else None)
+    if best is not None:
+        px = best.predicted_xy_px
+        inten = best.predicted_intensity
+        for (x, y), i, kind in zip(px, inten, best.predicted_kind):
+            if not (x0 <= x <= x1 and y0 <= y <= y1):
+                continue
+            if kind == "double-diffraction":
+                ax.plot([x], [y], marker="D", ms=4, mfc="none", mec=PRED_COLOUR, mew=0.9, alpha=0.8)
+                continue
+            side = unit * (0.8 + 2.2 * math.sqrt(max(float(i), 0.0)))
+            ax.add_patch(Rectangle((x - side / 2, y - side / 2), side, side, fill=False, ec=PRED_COLOUR, lw=0.9,
+                                   alpha=0.75))
+    rec = {s.spot_index: s for s in best.indexed} if best is not None else {}
+    r_circ = 1.6 * unit
+    labels = []
+    for k in range(len(m.spots)):
+        x, y = float(m.spots.x_px[k]), float(m.spots.y_px[k])
+        s = rec.get(k)
+        kind = s.kind if s is not None else "unindexed"
+        col, ls, _ = KIND_STYLE[kind]
+        ax.add_patch(Circle((x, y), r_circ, fill=False, ec=col, lw=1.4 * lw, ls=ls))
+        if kind in ("forbidden", "unindexed"):
+            d = 0.7 * r_circ
+            ax.plot([x - d, x + d], [y - d, y + d], color=col, lw=lw)
+            ax.plot([x - d, x + d], [y + d, y - d], color=col, lw=lw)
+        if s is not None and s.hkl is not None:
+            labels.append((math.hypot(x - cx, y - cy), x, y, s.hkil if s.hkil is not None else s.hkl, col))
+    labels.sort(key=lambda t: t[0])
+    for r, x, y, idx, col in labels[:MAX_LABELS]:
+        ux, uy = ((x - cx) / r, (y - cy) / r) if r > 0 else (0.0, -1.0)
+        ax.annotate(index_text(idx), (x, y), xytext=(ux * 15, -uy * 15), textcoords="offset points", ha="center",
+                    va="center", fontsize=8, color="white",
+                    bbox=dict(boxstyle="round,pad=0.12", fc=(0, 0, 0, 0.55), ec="none"))
+    arm = 2.5 * unit
+    ax.plot([cx - arm, cx + arm], [cy, cy], color="#ff375f", lw=1.5 * lw)
+    ax.plot([cx, cx], [cy - arm, cy + arm], color="#ff375f", lw=1.5 * lw)
+    if best is not None and best.mistilt is not None and best.mistilt.reliable and best.mistilt.tilt_deg >= 0.15:
+        lx, ly = best.mistilt.laue_center_px
+        if x0 <= lx <= x1 and y0 <= ly <= y1:
+            ax.plot([lx], [ly], marker="x", ms=9, color="#ff9f0a", mew=2)
+            ax.annotate("Laue-circle centre", (lx, ly), xytext=(8, 8), textcoords="offset points", color="#ff9f0a",
+                        fontsize=8)
+    if scale:
+        bar = nice_scale_bar_inv_nm(span * scale)
+        bar_px = bar / scale
+        bx, by = x0 + 0.05 * (x1 - x0), y0 + 0.95 * (y1 - y0)
+        ax.plot([bx, bx + bar_px], [by, by], color="white", lw=4, solid_capstyle="butt")
+        lab = f"{bar:g} 1/nm" + ("" if cal is not None and cal.is_calibrated else " (implied)")
+        ax.text(bx + bar_px / 2, by - 0.015 * (y1 - y0), lab, color="white", ha="center", va="bottom", fontsize=9,
+                fontweight="bold", bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.55), ec="none"))
+    kinds_here = sorted({(rec[k].kind if k in rec else "unindexed") for k in range(len(m.spots))},
+                        key=lambda k: list(KIND_STYLE).index(k))
+    leg = [(KIND_STYLE[k][2], KIND_STYLE[k][0]) for k in kinds_here]
+    if best is not None:
+        leg.append(("simulated pattern (square ~ sqrt I)", PRED_COLOUR))
+    for i, (text, col) in enumerate(leg):
+        ax.text(0.985, 0.015 + 0.032 * i, text, transform=ax.transAxes, ha="right", va="bottom", color=col,
+                fontsize=8.5, bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.6), ec="none"))
+    ax.set_xlim(x0, x1)
+    ax.set_ylim(y1, y0)
+    ax.set_axis_off()
+    src = title or m.source or "pattern"
+    if best is None:
+        line1 = f"{src}: no solution"
+        line2 = result.message
+    else:
+        word = confidence_word(result) if result.best is not None else "near miss"
+        line1 = f"{best.phase_name} {zone_text(best)}   score {best.score:.2f} ({word})   -   {src}"
+        line2 = (f"{best.n_indexed}/{len(best.indexed)} spots indexed, d error {best.mean_d_error_pct:.2f} %, "
+                 f"angle error {best.mean_angle_error_deg:.2f} deg, in-plane rotation {best.in_plane_rotation_deg:.1f} deg, "
+                 f"{best.scale_inv_nm_per_px:.5g} 1/nm per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
+    fig.text(0.01, 1.0 - 0.12 / fh, line1, fontsize=11.5, fontweight="bold", va="top")
+    fig.text(0.01, 1.0 - 0.45 / fh, line2[:150], fontsize=8.5, va="top")
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=dpi)
+    return buf.getvalue()
+
+
+def write_index_overlay(image: np.ndarray, result: IndexResult, path, *, title: str | None = None,
+                        ignored: np.ndarray | None = None, dpi: int = 100) -> None:
+    """Write the overlay to `path` (.png, .pdf or .svg), atomically."""
+    p = check_writable(path)
+    fmt = p.suffix.lower().lstrip(".")
+    if fmt not in ("png", "pdf", "svg"):
+        fmt = "png"
+    atomic_write_bytes(p, overlay_figure_bytes(image, result, title=title, fmt=fmt, dpi=dpi, ignored=ignored))
