@@ -164,14 +164,15 @@ class DirectBeam:
 
 
 def find_direct_beam(image, valid, background: Background, start_px, *, width_px: float,
-                     saturated_area_px: float = 0.0, min_snr: float = 10.0) -> DirectBeam | None:
+                     saturated_area_px: float = 0.0, min_snr: float = 10.0, max_shift_px: float = 5.0) -> DirectBeam | None:
     """Fit the direct beam near `start_px`; None when nothing bright and significant is there.
 
     The direct beam is wider than the spots and lies on the steepest haze, so the radial background
     hides it from the spot search; it is fitted on its own (Gaussian on a plane,
     :func:`saed.image.spotfit.fit_spots`) in a window sized from `width_px` (a first width measured at
     the start) and the saturated area, whose pixels (False in `valid`) are left out so the fit uses the
-    unsaturated flanks.
+    unsaturated flanks. A fit that wanders more than `max_shift_px` (or 1.5 saturated radii) from the
+    start has found something else and is refused.
     """
     x0, y0 = float(start_px[0]), float(start_px[1])
     rows, cols = image.shape
@@ -185,7 +186,7 @@ def find_direct_beam(image, valid, background: Background, start_px, *, width_px
     if not fit.ok[0]:
         return None
     x, y = float(fit.x_px[0]), float(fit.y_px[0])
-    if math.hypot(x - x0, y - y0) > max(5.0, 2.0 * s0, 1.5 * core):
+    if math.hypot(x - x0, y - y0) > max(max_shift_px, 1.5 * core):
         return None
     snr = float(fit.amplitude[0] / max(float(background.sigma(max(fit.background[0], 0.0))), 1e-12))
     if snr < min_snr and saturated_area_px <= 0:

@@ -21,10 +21,12 @@ Pixel convention (CONTRACT.md): the array is indexed ``[row, column]``, i.e. ``[
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
 import re
 import struct
+import tokenize
 import warnings
 import zlib
 from pathlib import Path
@@ -54,10 +56,11 @@ RECIPROCAL_UNITS_INV_NM = {
 _TIFF_SUFFIXES = (".tif", ".tiff")
 _PIL_SUFFIXES = (".png", ".jpg", ".jpeg")
 _NPY_SUFFIXES = (".npy",)
-# What third-party decoders raise on corrupt bytes (Pillow raises SyntaxError for broken PNG chunks).
+# What third-party decoders raise on corrupt bytes (Pillow raises SyntaxError for broken PNG chunks,
+# numpy's .npy header parser SyntaxError or tokenize.TokenError); found by fuzzing (tests/test_image_io.py).
 _DECODE_ERRORS = (ValueError, OSError, EOFError, KeyError, IndexError, TypeError, AttributeError,
                   struct.error, zlib.error, SyntaxError, OverflowError, RuntimeError, ZeroDivisionError,
-                  NotImplementedError, UnicodeDecodeError)
+                  NotImplementedError, UnicodeDecodeError, tokenize.TokenError)
 
 
 def _kind(path: Path) -> str:
@@ -115,6 +118,26 @@ def _check_shape(path, shape) -> None:
 
 # --------------------------------------------------------------------------- TIFF
 
+class _DemoteTifffile(logging.Filter):
+    """Pass tifffile's complaints about a damaged file on as debug messages of this module, so the
+    microscopist sees one line (our ImageError), not tifffile's internals as well."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        logger.debug("tifffile: %s", record.getMessage())
+        return False
+
+
+@contextlib.contextmanager
+def _quiet_tifffile():
+    tl = logging.getLogger("tifffile")
+    flt = _DemoteTifffile()
+    tl.addFilter(flt)
+    try:
+        yield
+    finally:
+        tl.removeFilter(flt)
+
+
 def _open_tiff(path: Path):
     import tifffile
 
@@ -128,7 +151,7 @@ def _tiff_frame(path: Path, frame, *, colour_ok: bool = False) -> np.ndarray:
     import tifffile
 
     size = path.stat().st_size
-    with _open_tiff(path) as tif:
+    with _quiet_tifffile(), _open_tiff(path) as tif:
         try:
             n = len(tif.pages)
             if n == 0:
@@ -311,7 +334,7 @@ def count_frames(path) -> int:
     if kind == "tiff":
         import tifffile
 
-        with _open_tiff(p) as tif:
+        with _quiet_tifffile(), _open_tiff(p) as tif:
             try:
                 return len(tif.pages)
             except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
@@ -430,7 +453,7 @@ def read_image_calibration(path) -> float | None:
         return None
     import tifffile
 
-    with _open_tiff(p) as tif:
+    with _quiet_tifffile(), _open_tiff(p) as tif:
         try:
             page = tif.pages[0]
             meta = tif.imagej_metadata or {}

@@ -134,8 +134,9 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
 
     Notes
     -----
-    The haze level at each radius is the radial median of the smoothed block image (the shadow takes a
-    minority of every ring). Blocks where the haze is not clearly above the darkest level (five times
+    The haze level at each radius is the upper quartile of the smoothed block image in that ring (the
+    shadow takes at most half of a ring outside its tip), held at least as high as any ring further
+    out (rings inside the rounded tip are wholly dark). Blocks where the haze is not clearly above the darkest level (five times
     the block noise) cannot show a shadow and are not considered. Of the dark connected regions, the
     one that comes within 6 % of the image size of the centre, is at least three times longer than
     wide (principal axes) and reaches outward at least 12 % of the image size is taken. Its two edges
@@ -154,9 +155,13 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         return None
     yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
     r = np.hypot(xx - cxb, yy - cyb)
-    rc, prof = radial_quantile_profile(sm[finite], r[finite], q=0.5, bin_width=1.0, min_count=8)
+    # Haze reference per radius: the upper quartile of each ring (the shadow may cover half of a small
+    # ring), made non-increasing outward from the inside (rings wholly inside the rod's tip take the
+    # level just outside it).
+    rc, prof = radial_quantile_profile(sm[finite], r[finite], q=0.75, bin_width=1.0, min_count=8)
     if len(rc) < 8:
         return None
+    prof = np.maximum.accumulate(prof[::-1])[::-1]
     haze = np.interp(r, rc, prof)
     dark = float(np.nanpercentile(sm, 0.5))
     resid = img - sm

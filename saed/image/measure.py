@@ -222,8 +222,9 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if 0 <= ix < cols and 0 <= iy < rows and not (stop is not None and stop.mask[iy, ix]):
         w_db = _adaptive_width(img, fit_valid | sat_mask, np.array([float(start_db[0])]), np.array([float(start_db[1])]),
                                half=24)[0]
-        db = find_direct_beam(img, fit_valid, bg, start_db, width_px=w_db if np.isfinite(w_db) else 2.0 * sigma,
-                              saturated_area_px=core_area)
+        w_db = float(np.clip(w_db, sigma, max(3.0 * sigma, 6.0))) if np.isfinite(w_db) else 2.0 * sigma
+        db = find_direct_beam(img, fit_valid, bg, start_db, width_px=w_db, saturated_area_px=core_area,
+                              max_shift_px=max(5.0, 1.5 * sigma))
         if db is not None and len(fits) and core_area <= 0 and db.intensity < 0.5 * float(np.max(fits.intensity)):
             logger.debug("bright blob at the centre is weaker than the spots: not taken as the direct beam")
             db = None

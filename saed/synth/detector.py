@@ -74,16 +74,21 @@ class BeamStop:
     transmission: float = 0.01
     edge_px: float = 1.5
 
-    def transmission_map(self, shape, center_px) -> np.ndarray:
-        """(rows, cols) fraction of electrons passing (1 outside the rod)."""
-        rows, cols = shape
-        y, x = np.mgrid[0:rows, 0:cols].astype(np.float64)
+    def distance_px(self, x, y, center_px) -> np.ndarray:
+        """Signed distance (px) of points from the rod's edge: negative inside, positive outside."""
+        x, y = np.asarray(x, np.float64), np.asarray(y, np.float64)
         tx = center_px[0] + self.tip_offset_px[0]
         ty = center_px[1] + self.tip_offset_px[1]
         a = math.radians(self.angle_deg)
         ux, uy = math.cos(a), math.sin(a)
         t = np.clip((x - tx) * ux + (y - ty) * uy, 0.0, None)
-        d = np.hypot(x - (tx + t * ux), y - (ty + t * uy)) - self.width_px / 2.0
+        return np.hypot(x - (tx + t * ux), y - (ty + t * uy)) - self.width_px / 2.0
+
+    def transmission_map(self, shape, center_px) -> np.ndarray:
+        """(rows, cols) fraction of electrons passing (1 outside the rod)."""
+        rows, cols = shape
+        y, x = np.mgrid[0:rows, 0:cols].astype(np.float64)
+        d = self.distance_px(x, y, center_px)
         inside = 0.5 * (1.0 - erf(d / (math.sqrt(2.0) * max(self.edge_px, 1e-3))))
         return 1.0 - (1.0 - self.transmission) * inside
 
@@ -119,7 +124,7 @@ class SynthPattern:
 
     spot_xy_px (N, 2): true centres of the input spots on the detector; spot_electrons (N,): their
     electrons after the mistilt; peak_snr (N,): peak height over the background noise (counts/counts);
-    visible (N,): inside the frame (3 sigma from the border) and not behind the beam stop;
+    visible (N,): inside the frame (3 sigma from the border) and clear of the beam stop;
     beam_stop_mask: True where the rod transmits under half; distortion: the 2x2 matrix D with
     detector offset = D @ undistorted offset.
     """
@@ -270,12 +275,17 @@ def render_pattern(spot_xy_px, spot_electrons, *, center_px, detector: Detector 
     margin = 3.0 * scene.spot_sigma_px + scene.disc_radius_px
     inside = ((true_xy[:, 0] >= margin) & (true_xy[:, 0] <= cols - 1 - margin)
               & (true_xy[:, 1] >= margin) & (true_xy[:, 1] <= rows - 1 - margin))
-    visible = inside if stop_mask is None else inside & (np.asarray(trans_at) > 0.9)
+    if stop_mask is None:
+        visible = inside
+    else:
+        # a spot is visible when its whole profile (3 sigma + disc radius) is clear of the rod's edge
+        clear = scene.beam_stop.distance_px(true_xy[:, 0], true_xy[:, 1], (cx, cy)) > margin + 2.0 * scene.beam_stop.edge_px
+        visible = inside & clear
     db_peak = float(spot_peak_counts([scene.direct_beam_electrons], Scene(spot_sigma_px=scene.direct_beam_sigma_px),
                                      detector)[0]) + g * float(haze[int(round(cy)) % rows, int(round(cx)) % cols])
     if stop_mask is not None:
         db_peak *= float(trans[int(round(cy)) % rows, int(round(cx)) % cols])
     saturated = db_peak + detector.dark_offset_counts >= full
     return SynthPattern(image=image, center_px=(cx, cy), spot_xy_px=true_xy, spot_electrons=el,
-                        peak_snr=peak / noise, visible=np.asarray(visible, bool), direct_beam_saturated=bool(saturated),
+                        peak_snr=np.divide(peak, noise, out=np.full(len(peak), np.inf), where=noise > 0), visible=np.asarray(visible, bool), direct_beam_saturated=bool(saturated),
                         beam_stop_mask=stop_mask, distortion=dmat, detector=detector, scene=scene)
