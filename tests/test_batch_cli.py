@@ -223,3 +223,29 @@ def test_folder_with_non_images_and_a_nan_frame(scheduler, tmp_path, capsys):
     assert set(rows) == {("g1.npy", 0), ("g2.npy", 0), ("g2.npy", 1)}
     assert rows[("g1.npy", 0)].phase == "Co-hcp"
     assert rows[("g2.npy", 1)].status.startswith("error:") and "NaN" in rows[("g2.npy", 1)].status
+
+
+def test_tiff_tags_calibrate_when_no_scale_is_given_and_mask_applies(scheduler, tmp_path):
+    import tifffile
+
+    img = _pattern("Co-fcc", (0, 1, 1), 20.0, 4)
+    tif = tmp_path / "tagged.tif"
+    # ImageJ stores a calibrated pattern as pixels per unit with unit=1/nm (what saed.image.io reads)
+    tifffile.imwrite(tif, img, imagej=True, resolution=(1 / SCALE, 1 / SCALE), metadata={"unit": "1/nm"})
+    out = tmp_path / "tags.csv"
+    assert main(["batch", str(tif), "--out", str(out), *PHASE_ARGS, "--scheduler", scheduler]) == 0
+    (row,) = read_rows(out)
+    assert row.status == "ok" and row.phase == "Co-fcc"
+    assert row.scale_inv_nm_per_px == pytest.approx(SCALE, rel=0.01)
+
+    mask = np.zeros((SIZE, SIZE), np.uint8)
+    mask[:, SIZE // 2:] = 255                          # hide the right half of every frame
+    mask_png = tmp_path / "mask.png"
+    from PIL import Image
+
+    Image.fromarray(mask).save(mask_png)
+    out2 = tmp_path / "masked.csv"
+    assert main(["batch", str(tif), "--out", str(out2), *PHASE_ARGS, "--scheduler", scheduler,
+                 "--mask", str(mask_png)]) == 0
+    (masked,) = read_rows(out2)
+    assert 0 < masked.n_spots < row.n_spots

@@ -15,6 +15,7 @@ The pieces, each in its own module:
 from __future__ import annotations
 
 import logging
+import os
 import time
 from dataclasses import dataclass
 
@@ -73,11 +74,16 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
     if n_todo:
         shared_ref = share(client, shared)
 
+        n_errors = 0
+
         def on_rows(rows):
-            nonlocal written
+            nonlocal written, n_errors
             written += results.append(rows)
+            n_errors += sum(r.is_error for r in rows)
             if progress:
-                progress(written, n_todo, rows[-1].image)
+                last = rows[-1]
+                progress(written, n_todo, f"{os.path.basename(last.image)} frame {last.frame}"
+                         + (f", {n_errors} errors" if n_errors else ""))
 
         try:
             run_frames(client, plan_chunks(inputs.sources, done_before, chunk_frames=size, context_of=context_of),
