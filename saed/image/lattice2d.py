@@ -98,7 +98,7 @@ def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int 
     if len(vec) == 0:
         return np.zeros((0, 2))
     # Best first: most votes, then shortest; drop near-duplicates (either sign).
-    order = np.lexsort((length, -counts))
+    order = np.lexsort((length, -counts))[:300]
     chosen: list[np.ndarray] = []
     for k in order:
         v = vec[k]
