@@ -42,8 +42,8 @@ def test_fit_recovers_the_analytic_centre_of_a_sampled_gaussian(sigma):
     assert fits.ok.all()
     np.testing.assert_allclose(np.stack([fits.x_px, fits.y_px], 1), centres, atol=1e-4)
     np.testing.assert_allclose(fits.width_px, sigma, rtol=1e-4)
-    # Integrated intensity of a 2-D Gaussian: 2 pi A s^2 (aperture of 3 s holds 1 - exp(-4.5) of it).
-    np.testing.assert_allclose(fits.intensity, 2 * math.pi * 1000.0 * sigma**2 * (1 - math.exp(-4.5)), rtol=0.03)
+    # Integrated intensity of a 2-D Gaussian: 2 pi A s^2 (sampled at unit pixels; exact for s >~ 0.8).
+    np.testing.assert_allclose(fits.intensity, 2 * math.pi * 1000.0 * sigma**2, rtol=0.01)
 
 
 def test_detection_matches_scikit_image_peak_local_max():
@@ -118,6 +118,19 @@ def test_centre_with_the_direct_beam_saturated_or_blocked(case):
     err = math.hypot(mp.center_px[0] - pat.center_px[0], mp.center_px[1] - pat.center_px[1])
     assert err < 0.2
     assert mp.center_sigma_px < 0.2
+
+
+def test_integrated_intensities_and_their_uncertainties():
+    det = Detector(shape=(512, 512), gain_counts_per_electron=1.5)
+    pat, _ = render_lattice(np.array([33.7, 5.9]), np.array([-12.3, 41.1]), center_px=(257.4, 253.4), detector=det,
+                            scene=Scene(), rng=12, spread=1.5)
+    mp = measure_pattern(pat.image, Calibration())
+    d = np.hypot(*(pat.spot_xy_px[:, None] - mp.spots.xy_px[None]).transpose(2, 0, 1))
+    true_counts = pat.spot_electrons[d.argmin(axis=0)] * 1.5
+    pull = (mp.spots.intensity - true_counts) / mp.spots.intensity_sigma
+    # Poisson + read noise: the pulls of honest 1-sigma uncertainties have mean ~0 and spread ~1.
+    assert abs(np.median(mp.spots.intensity / true_counts) - 1) < 0.02
+    assert abs(np.mean(pull)) < 0.3 and 0.7 < np.std(pull) < 1.4
 
 
 def test_basis_is_reduced_and_accurate():

@@ -130,7 +130,8 @@ def _summary(measured, *, image: str, frame, show_all: bool) -> str:
     lines.append(f"  centre   x {measured.center_px[0]:.2f}  y {measured.center_px[1]:.2f} px"
                  + (f"  (+- {cs:.2f} px)" if math.isfinite(cs) else ""))
     if cal.is_calibrated:
-        lines.append(f"  scale    {scale:.5g} 1/nm per px at {cal.voltage_kv:g} kV"
+        origin = " (from the TIFF resolution tags)" if "TIFF resolution tags" in (cal.source or "") else ""
+        lines.append(f"  scale    {scale:.5g} 1/nm per px at {cal.voltage_kv:g} kV{origin}"
                      + ("  (ellipse corrected)" if cal.ellipse is not None else ""))
     else:
         lines.append("  scale    uncalibrated (lengths in px; give --scale, --camera-length with --pixel-pitch, "
@@ -192,9 +193,8 @@ def run(args) -> int:
                         spot_sigma_px=args.spot_width, find_stop=not args.no_beam_stop)
     mp = insp.measured
     doc = spots_json(mp, image=args.image, frame=args.frame)
-    text = _summary(mp, image=args.image, frame=args.frame, show_all=args.all)
     out = sys.stderr if args.json == "-" else sys.stdout
-    print(text, file=out)
+    # Files first: a closed terminal pipe (e.g. '| head') must not lose them.
     if args.json:
         write_json(args.json, doc)
     if args.overlay:
@@ -202,6 +202,8 @@ def run(args) -> int:
 
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored,
                             title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""))
+    print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all), file=out)
+    if args.overlay:
         print(f"overlay written to {args.overlay}", file=out)
     if len(mp.spots) == 0:
         print(f"saed spots: no spots found in {args.image}", file=sys.stderr)

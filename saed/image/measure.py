@@ -280,6 +280,11 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
             off = int((~fit.on_lattice).sum())
             if off:
                 notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
+            idx_on = fit.indices[fit.on_lattice]
+            for name, unit in (("g1", (1, 0)), ("g2", (0, 1))):
+                if not any(tuple(v) in (unit, (-unit[0], -unit[1])) for v in idx_on.tolist()):
+                    notes.append(f"no spot at +-{name}: the net's basis vector is itself a missing (absent or "
+                                 "forbidden) reflection")
     if basis is None:
         notes.append("no 2-D lattice found (needs three or more spots not all on one line)")
     notes.insert(0, f"centre from {center_how}")

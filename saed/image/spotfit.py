@@ -14,8 +14,9 @@ of the background-subtracted window.
 
 The position uncertainty is the fit covariance ``(J^T W J)^-1``, scaled by the reduced chi-square when
 it exceeds 1. The integrated intensity is the aperture sum (radius 3 s) of the data minus the fitted
-plane, with the model standing in for masked pixels; its variance is the sum of the pixel variances
-plus (aperture area)^2 times the variance of b0.
+plane, with the model standing in for masked pixels, divided by the fraction of a Gaussian inside the
+aperture (0.989); its variance is the sum of the pixel variances plus (aperture area)^2 times the
+variance of b0, scaled alike.
 
 A disc (large convergence angle) is point-symmetric like a Gaussian, so the fitted centre of a disc is
 unbiased too; its ``s`` is then only a size measure.
@@ -256,6 +257,10 @@ def fit_spots(image: np.ndarray, valid: np.ndarray | None, x0, y0, *, sigma0_px:
     n_ap = ap.sum(axis=(1, 2))
     pix_var = np.maximum(gain * filled + offset_var, var_floor)
     inten_var = (pix_var * ap).sum(axis=(1, 2)) + n_ap**2 * np.where(np.isfinite(var_b), var_b, 0.0)
+    # The aperture holds 1 - exp(-r^2 / 2 s^2) of a Gaussian spot (98.9 % at 3 s): report the whole spot.
+    frac = np.clip(1.0 - np.exp(-(r_ap**2) / (2.0 * np.maximum(s, 1e-3) ** 2)), 0.5, 1.0)
+    inten = inten / frac
+    inten_var = inten_var / frac**2
     n_masked = (ap & ~mask).sum(axis=(1, 2))
     ok = (np.isfinite(p).all(axis=1) & np.isfinite(sig_xy) & (a > 0) & (np.abs(xc) < h) & (np.abs(yc) < h)
           & (s > 0.25) & (s < 2.0 * h) & (nvalid > 12))
