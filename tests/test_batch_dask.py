@@ -136,13 +136,6 @@ def test_a_frame_that_kills_its_worker_gets_an_error_row(client, tmp_path):
     assert "worker process died" in bad[0].status
 
 
-def test_existing_scheduler_by_address(client, tmp_path):
-    np.save(tmp_path / "s.npy", _stack(5, seed=6))
-    with dask_client(scheduler=client.scheduler.address) as other, ResultsFile(tmp_path / "out.csv") as res:
-        run_batch(discover_inputs([str(tmp_path / "s.npy")]), res, frame_stats, Divisor(1.0), client=other)
-    assert len(read_rows(tmp_path / "out.csv")) == 5
-
-
 def _closed_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))

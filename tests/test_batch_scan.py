@@ -22,8 +22,9 @@ def test_cubic_zone_families_have_one_name():
     # m-3m: the form <110> has 12 members, <111> 8, <100> 6, <123> 48 (International Tables Vol. A,
     # point group m-3m); here built by hand as signed permutations, independent of gemmi.
     al = builtin_phase("Al")
-    for v, n, rep in (((1, 1, 0), 12, (1, 1, 0)), ((1, 1, 1), 8, (1, 1, 1)), ((1, 0, 0), 6, (1, 0, 0)),
-                      ((1, 2, 3), 48, (3, 2, 1))):
+    # The representative is the textbook one, in the 001-011-111 triangle with w >= v >= u >= 0.
+    for v, n, rep in (((1, 1, 0), 12, (0, 1, 1)), ((1, 1, 1), 8, (1, 1, 1)), ((1, 0, 0), 6, (0, 0, 1)),
+                      ((1, 2, 3), 48, (1, 2, 3))):
         members = _signed_permutations(v)
         assert len(members) == n
         assert {zone_family(m, al) for m in members} == {rep}
@@ -35,8 +36,8 @@ def test_hexagonal_zone_families_in_four_indices():
     co = builtin_phase("Co-hcp")
     a_axes = [(1, 0, 0), (0, 1, 0), (1, 1, 0)]
     m_axes = [(1, -1, 0), (2, 1, 0), (1, 2, 0)]
-    assert {zone_family(s * np.array(v), co) for v in a_axes for s in (1, -1)} == {(2, -1, -1, 0)}
-    assert {zone_family(s * np.array(v), co) for v in m_axes for s in (1, -1)} == {(1, 0, -1, 0)}
+    assert {zone_family(s * np.array(v), co) for v in a_axes for s in (1, -1)} == {(1, 1, -2, 0)}
+    assert {zone_family(s * np.array(v), co) for v in m_axes for s in (1, -1)} == {(0, 1, -1, 0)}
     assert zone_family((0, 0, -1), co) == zone_family((0, 0, 1), co) == (0, 0, 0, 1)
     with pytest.raises(InputError):
         zone_family((0, 0, 0), co)
@@ -58,7 +59,7 @@ def test_scan_grid_follows_the_input_order(tmp_path):
     expected = np.array([[1, 1, 1, 1], [1, 1, 0, 0], [0, NO_SOLUTION, ERROR, NOT_DONE]])
     np.testing.assert_array_equal(scan.phase_index, expected)
     assert scan.summary.n_frames == 11 and scan.summary.n_ok == 9
-    assert [(f.phase, f.label, f.count) for f in scan.families] == [("Co-fcc", "<110>", 6), ("Co-hcp", "<0001>", 3)]
+    assert [(f.phase, f.label, f.count) for f in scan.families] == [("Co-fcc", "<011>", 6), ("Co-hcp", "<0001>", 3)]
     with pytest.raises(InputError, match="12 frames"):
         check_scan_shape((5, 5), (a, b))
     with pytest.raises(InputError, match="--scan-shape"):
@@ -72,8 +73,8 @@ def test_summary_tables():
     s = summarize(rows, phases={n: builtin_phase(n) for n in ("Co-fcc", "Co-hcp")})
     assert s.phases == (("Co-fcc", 4), ("Co-hcp", 2))
     text = format_summary(s)
-    assert "<110> 4" in text and "<2-1-10> 2" in text and "no solution" in text
-    assert "Co-hcp,2 -1 -1 0,2," in summary_csv(s)
+    assert "<011> 4" in text and "<11-20> 2" in text and "no solution" in text
+    assert "Co-hcp,1 1 -2 0,2," in summary_csv(s)
 
 
 def test_scan_map_png_shows_each_phase_colour(tmp_path):

@@ -1,10 +1,10 @@
 """Scans: frames on an (ny, nx) grid, zone families, and the summary of what was found.
 
 A zone axis is reduced to its family under the phase's Laue group (point group plus
-inversion: Friedel's law makes every kinematic pattern centrosymmetric), using
-:func:`saed.crystal.symmetry.direction_family`. The family is shown by one member: the
-lexicographically largest, in 4-index Miller-Bravais form for hexagonal axes -- so
-<110>, <211>, <111> for a cubic phase and <2-1-10>, <10-10>, <0001> for a hexagonal one.
+inversion: Friedel's law makes every kinematic pattern centrosymmetric). The family is shown
+by the representative the rest of saed uses (:func:`saed.simulate.families.canonical_zone`,
+the member in the standard triangle), in 4-index Miller-Bravais form for hexagonal axes -- so
+<001>, <011>, <111>, <112> for a cubic phase and <0001>, <11-20>, <01-10> for a hexagonal one.
 """
 
 from __future__ import annotations
@@ -27,16 +27,12 @@ NOT_DONE, NO_SOLUTION, ERROR = -1, -2, -3
 
 
 @lru_cache(maxsize=4096)
-def _family(uvw: tuple[int, ...], space_group: str, hexagonal: bool) -> tuple[int, ...]:
-    from saed.crystal.lattice import reduce_indices
+def _family(uvw: tuple[int, ...], phase) -> tuple[int, ...]:
     from saed.crystal.miller import direction_to_4
-    from saed.crystal.symmetry import direction_family
+    from saed.simulate.families import canonical_zone
 
-    members = reduce_indices(direction_family(uvw, space_group))
-    if hexagonal:
-        members = direction_to_4(members)
-    best = max(tuple(int(v) for v in m) for m in np.atleast_2d(members))
-    return best
+    rep = canonical_zone(phase, uvw)
+    return tuple(int(v) for v in (direction_to_4(rep) if phase.is_hexagonal else rep))
 
 
 def zone_family(uvw, phase) -> tuple[int, ...]:
@@ -48,21 +44,21 @@ def zone_family(uvw, phase) -> tuple[int, ...]:
     --------
     >>> from saed.crystal import builtin_phase
     >>> zone_family((0, -1, 1), builtin_phase("Al")), zone_family((1, -2, 1), builtin_phase("Al"))
-    ((1, 1, 0), (2, 1, 1))
+    ((0, 1, 1), (1, 1, 2))
     >>> zone_family((0, 0, -1), builtin_phase("Co-hcp")), zone_family((0, 1, 0), builtin_phase("Co-hcp"))
-    ((0, 0, 0, 1), (2, -1, -1, 0))
+    ((0, 0, 0, 1), (1, 1, -2, 0))
     """
     u = tuple(int(v) for v in uvw)
     if not any(u):
         raise InputError(f"zone axis {list(u)} is all zeros")
-    return _family(u, phase.space_group, bool(phase.is_hexagonal))
+    return _family(u, phase)
 
 
 def family_label(family) -> str:
-    """``<2-1-10>``-style text (ASCII, minus signs before negative indices).
+    """``<11-20>``-style text (ASCII, minus signs before negative indices).
 
-    >>> family_label((2, -1, -1, 0)), family_label((1, 1, 0)), family_label((10, 0, 1))
-    ('<2-1-10>', '<110>', '<10 0 1>')
+    >>> family_label((1, 1, -2, 0)), family_label((0, 1, 1)), family_label((10, 0, 1))
+    ('<11-20>', '<011>', '<10 0 1>')
     """
     from saed.crystal.miller import format_indices
 

@@ -86,10 +86,14 @@ def _terminate_as_interrupt():
 def _file_calibration(base):
     """Per-file calibration from TIFF resolution tags, for runs given no scale."""
     from saed.calibration import Calibration
+    from saed.errors import ImageError
     from saed.image.io import read_image_calibration
 
     def context_of(source):
-        scale = read_image_calibration(source.path)
+        try:
+            scale = read_image_calibration(source.path)
+        except ImageError:          # its frames will say what is wrong, one error row each
+            return None
         if scale is None:
             return None
         return Calibration(scale, base.voltage_kv, center_px=base.center_px, ellipse=base.ellipse,
