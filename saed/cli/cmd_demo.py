@@ -106,10 +106,10 @@ def run(args) -> int:
             print(format_summary(result, image=label, top=3))
             print()
             atomic_write_text(out / f"{name}.json", json.dumps(result_json(result, image=label), indent=2) + "\n")
-            atomic_write_bytes(out / f"{name}_overlay.png",
-                               overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored))
+            png = overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored, dpi=90, size_in=7.5)
+            atomic_write_bytes(out / f"{name}_overlay.png", png)
             entries.append(ReportEntry(label, insp.image, result, ignored=insp.ignored,
-                                       caption=f"Synthetic demo pattern: {desc[name]}."))
+                                       caption=f"Synthetic demo pattern: {desc[name]}.", overlay_png=png))
             bar.update(1, text=name)
     path = write_report(out, entries, title="saed demo: cobalt grains of a Co-Cr wear coating (200 kV)",
                         intro="Synthetic example patterns (invented data) indexed against Co-fcc, Co-hcp and Cr, "

@@ -224,13 +224,15 @@ def quick_scores(pt: PhaseIndexTable, u: np.ndarray, scale: np.ndarray, spots: S
 def find_candidates(tables: IndexTables, spots: SpotSet, *, scale_inv_nm_per_px: float | None,
                     length_tol: float, ratio_tol: float, angle_tol_deg: float, rel_pos_tol: float,
                     phase_indices=None, per_zone: int = 2, max_candidates: int = 24,
-                    good_enough: float = 0.85) -> tuple[list[Candidate], int]:
+                    good_enough: float = 0.85, max_zone_index: int = 7) -> tuple[list[Candidate], int]:
     """All table hits of the seed pairs, quick-scored and merged by (phase, Laue-equivalent zone).
 
     Seed pairs are tried in two batches (the three best pairs first); the second batch runs for
     the phases whose candidates explain less than `good_enough` of the spot weight so far. Returns the
     surviving candidates (best quick score first; at most `max_candidates`, plus the best of
-    every phase that comes within 70 % of the best) and the number of raw table hits.
+    every phase that comes within 70 % of the best) and the number of raw table hits. Zone axes
+    with an index above `max_zone_index` (3-index, conventional cell) are not considered: their
+    dense nets fit any few spots by accident, and patterns are recorded along low-index zones.
     """
     pairs = seed_pairs(spots)
     qspots = _quick_subset(spots)
@@ -258,6 +260,10 @@ def find_candidates(tables: IndexTables, spots: SpotSet, *, scale_inv_nm_per_px:
                 continue
             rows = np.concatenate(rows_l)
             u, k, uvw = _orientations(pt, rows, np.concatenate(a_l), np.concatenate(b_l))
+            low = np.max(np.abs(uvw), axis=1) <= max_zone_index
+            rows, u, k, uvw = rows[low], u[low], k[low], uvw[low]
+            if len(rows) == 0:
+                continue
             n_hits += len(rows)
             qs = quick_scores(pt, u, k, qspots, rel_tol=rel_pos_tol)
             best_quick[pi] = max(best_quick.get(pi, 0.0), float(qs.max()))

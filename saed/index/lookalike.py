@@ -59,19 +59,25 @@ class _Pattern:
     hkl: np.ndarray
     holz_xy: np.ndarray
     hexagonal: bool
+    g: np.ndarray  # the reflections' own |g| (1/nm), independent of the fitted scale and distortion
 
 
-def _pattern_of(fit, g_max: float) -> _Pattern:
+def _pattern_of(fit, g_max: float, scale_ref: float) -> _Pattern:
+    """The predicted pattern of a fit on the detector, in 1/nm of the reference scale `scale_ref`.
+
+    Two solutions of one uncalibrated pattern have different implied scales; they are compared
+    where they matter, on the detector, so both are converted with the same scale.
+    """
     zp = fit.zone
     allowed = ~zp.kinematically_forbidden
     f = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
-    xy = fit.predicted_px * fit.scale
-    keep = (zp.g_inv_nm <= g_max) & (allowed | zp.double_diffraction)
+    xy = fit.predicted_px * scale_ref
+    keep = (np.linalg.norm(xy, axis=1) <= g_max) & (allowed | zp.double_diffraction)
     holz = np.zeros((0, 2))
     if getattr(fit, "holz_xy_inv_nm", None) is not None and len(fit.holz_xy_inv_nm):
-        holz = fit.holz_xy_inv_nm
+        holz = fit.holz_xy_inv_nm * (scale_ref / fit.scale)
     return _Pattern(xy[keep], np.where(allowed, f * f, 0.0)[keep], allowed[keep], zp.double_diffraction[keep],
-                    zp.hkl[keep], holz, fit.table.phase.is_hexagonal)
+                    zp.hkl[keep], holz, fit.table.phase.is_hexagonal, np.asarray(zp.g_inv_nm)[keep])
 
 
 def _hkl_text(hkl, hexagonal: bool) -> str:
@@ -127,7 +133,7 @@ def _extras(p: _Pattern, q: _Pattern, meas_xy: np.ndarray, meas_i: np.ndarray, r
     jm, _ = _near(p.xy[miss], meas_xy, rel=tol_rel, floor=floor)
     groups: dict[float, list[int]] = {}
     for k, row in enumerate(miss):
-        groups.setdefault(round(float(r[row]), 2), []).append(k)
+        groups.setdefault(round(float(p.g[row]), 2), []).append(k)
     out = []
     for g, ks in sorted(groups.items()):
         rows = miss[ks]
@@ -141,24 +147,26 @@ def _extras(p: _Pattern, q: _Pattern, meas_xy: np.ndarray, meas_i: np.ndarray, r
 
 
 def _ratio_difference_pct(p: _Pattern, q: _Pattern, *, floor: float) -> float:
-    """Largest relative length difference of the spots the two patterns share (percent)."""
-    sel = p.allowed & (p.inten >= WEAK_I)
-    if not np.any(sel):
+    """Largest difference (percent) between the spacing ratios of the spots the two patterns share.
+
+    The ratios come from the reflections' own |g|, so a fitted scale or distortion cannot hide them.
+    """
+    sel = np.flatnonzero(p.allowed & (p.inten >= WEAK_I))
+    if len(sel) == 0:
         return 0.0
     j, hit = _near(p.xy[sel], q.xy, rel=0.03, floor=floor)
     if not np.any(hit):
         return 0.0
-    a = np.linalg.norm(p.xy[sel][hit], axis=1)
-    b = np.linalg.norm(q.xy[j[hit]], axis=1)
-    ra = a / a.min()
-    rb = b / b[np.argmin(a)]
-    return float(100.0 * np.max(np.abs(ra / rb - 1.0)))
+    a = p.g[sel][hit]
+    b = q.g[j[hit]]
+    k = int(np.argmin(a))
+    return float(100.0 * np.max(np.abs((a / a[k]) / (b / b[k]) - 1.0)))
 
 
 def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g_max: float, calibrated: bool):
     """Relation, separating text and whether a tilt is needed, for two solutions of one pattern."""
-    pb, po = _pattern_of(fit_b, g_max), _pattern_of(fit_o, g_max)
     scale = best.scale_inv_nm_per_px
+    pb, po = _pattern_of(fit_b, g_max, scale), _pattern_of(fit_o, g_max, scale)
     meas_xy = spots.v_px * scale
     floor = 2.0 * scale
     r_meas = np.linalg.norm(meas_xy, axis=1)
@@ -573,10 +581,10 @@ def row_near_miss(phase_index: int, best: Solution, measured, tables, spots, *, 
     for j in np.lexsort((simple, -np.round(qs, 3)))[:3]:
         c = Candidate(phase_index, int(rows[j]), int(rows[j]), zones[j], pt.canonical_zone(zones[j]), u[j], scale,
                       float(qs[j]))
-        sol, fit = score_candidate(c, tables, spots, measured,
-                                   calibrated_scale=measured.calibration.scale_inv_nm_per_px if calibrated else None,
-                                   length_tol=length_tol, rel_pos_tol=rel_pos_tol,
-                                   pixel_pitch_um=measured.calibration.pixel_pitch_um)
+        # "what this phase would show here": at the best solution's scale, without a fitted ellipse
+        sol, fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=min(length_tol, 0.01),
+                                   rel_pos_tol=rel_pos_tol, pixel_pitch_um=measured.calibration.pixel_pitch_um,
+                                   allow_distortion=False)
         if best_fit is None or sol.score > best_fit[0].score + 1e-3:
             best_fit = (sol, fit)
     return best_fit

@@ -32,6 +32,9 @@ DEFAULT_LENGTH_TOL_PCT = 3.0
 #: Default tolerance of the angle between two seed spots, degrees (common practice: 1-2 deg).
 DEFAULT_ANGLE_TOL_DEG = 2.0
 
+#: Zone axes above this index (3-index, conventional cell) are not considered (see find_candidates).
+MAX_ZONE_INDEX = 7
+
 #: Relative tolerance of spacing ratios (measurement only: the scale cancels).
 RATIO_TOL = 0.025
 
@@ -46,7 +49,7 @@ def _check_measured(measured) -> None:
 
 def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
                   length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
-                  lookalikes: bool = True) -> IndexResult:
+                  lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX) -> IndexResult:
     """Rank (phase, zone axis, orientation) solutions for a measured pattern.
 
     Parameters
@@ -66,6 +69,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         express the mistilt correction as alpha/beta tilts.
     lookalikes : bool
         Analyse look-alikes and suggest separating tilts (a few ms per solution).
+    max_zone_index : int
+        Largest zone-axis index considered (3-index, conventional cell; default 7).
 
     Returns
     -------
@@ -107,14 +112,15 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
                            "zone axis (tilt to a zone where a second row is excited)", phases=names)
     pitch = cal.pixel_pitch_um if cal is not None else None
     solutions, n_cand = _solve(measured, tables, spots, scale=scale, length_tol=length_tol, angle_tol=angle_tol,
-                               pitch=pitch)
+                               pitch=pitch, max_zone_index=max_zone_index)
     notes: list[str] = []
     message = ""
     good = [s for s, _ in solutions if s.score >= MIN_SCORE]
     near = solutions[0][0] if solutions and not good else None
     if scale is not None and (not good or good[0].score < 0.6):
         # Is the calibration wildly off? Index by ratios alone and compare the implied scale.
-        free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch)
+        free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch,
+                         max_zone_index=max_zone_index)
         if free and free[0][0].score >= MIN_SCORE:
             fs = free[0][0]
             f = fs.scale_inv_nm_per_px / scale
@@ -147,10 +153,11 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes), n_candidates=n_cand, phases=names)
 
 
-def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch) -> tuple[list, int]:
+def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_zone_index) -> tuple[list, int]:
     """Score every candidate; (Solution, Fit) pairs, best first, one per (phase, Laue-equivalent zone)."""
     cands, n_hits = find_candidates(tables, spots, scale_inv_nm_per_px=scale, length_tol=length_tol,
-                                    ratio_tol=RATIO_TOL, angle_tol_deg=angle_tol, rel_pos_tol=REL_POS_TOL)
+                                    ratio_tol=RATIO_TOL, angle_tol_deg=angle_tol, rel_pos_tol=REL_POS_TOL,
+                                    max_zone_index=int(max_zone_index))
     best: dict[tuple, tuple] = {}
     for c in cands:
         sol, fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,

@@ -3,8 +3,9 @@
 For a candidate (phase, zone [uvw], U, scale) the zero-order Laue-zone pattern comes from
 :func:`saed.simulate.zone.zone_pattern` (cached per zone). Every measured spot is assigned to the
 nearest predicted reflection; the in-plane rotation and the scale are refined by weighted
-least squares over all assigned spots (a 2-D similarity: the complex ratio of measured to
-predicted positions), and the assignment is repeated. The figure of merit is
+least squares over all assigned spots (a 2-D similarity, the complex ratio of measured to
+predicted positions; when the calibration states no ellipse, a bounded elliptical distortion
+of up to 3 % as well), and the assignment is repeated. The figure of merit is
 
     score = M * (1 - 0.5 A) * (0.85 + 0.15 T) * (1 - 0.3 D) * S * Z
 
@@ -17,7 +18,8 @@ measured and kinematic intensities (robust to dynamical scattering, used lightly
 of indexed spot weight whose measured/kinematic intensity ratio lies more than 10x below the
 weighted median ratio (kinematically strong spots that are all but missing), S the
 agreement of the refined scale with the calibration (1 when uncalibrated) and Z a faint
-preference for low-index zones, which only breaks exact ties.
+preference for low-index zones (0.4 % per index step, 1 % more per step above 3), which breaks
+ties between patterns of identical geometry in favour of the zone a microscopist records.
 """
 
 from __future__ import annotations
@@ -108,7 +110,8 @@ def _observed_region(measured, spots: SpotSet, pred_px: np.ndarray) -> np.ndarra
 
 
 def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
-                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None) -> tuple[Solution, Fit]:
+                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
+                    allow_distortion: bool = True) -> tuple[Solution, Fit]:
     """Refine and score one candidate against all spots; returns the Solution and its Fit."""
     pt = tables.phases[cand.phase_index]
     phase = pt.phase
@@ -124,30 +127,33 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     f_rel = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
     xy = np.asarray(zp.xy_inv_nm, float)
 
-    # HOLZ projections (stacking-direction zones only)
-
     n = len(spots.r_px)
-    for _ in range(3):
-        pred_px = (xy @ _rot2(phi).T) / scale
+    fit_distortion = allow_distortion and measured.calibration.ellipse is None
+    lin = _rot2(phi) / scale  # detector px per 1/nm: pred_px = xy @ lin.T + shift
+    shift = np.zeros(2)
+    t_max = max(3.0, 3.0 * float(measured.center_sigma_px or 0.0))
+    for _ in range(4):
+        pred_px = xy @ lin.T + shift
         j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
         ok = (j >= 0) & (dmin <= 3.0 * sigma)
         use = ok & (allowed[np.maximum(j, 0)] | dd[np.maximum(j, 0)]) if len(xy) else ok
         if np.count_nonzero(use) < 2:
             break
-        p = xy[j[use], 0] + 1j * xy[j[use], 1]
-        v = spots.v_px[use, 0] + 1j * spots.v_px[use, 1]
         wt = spots.weight[use] / sigma[use] ** 2
-        c = np.sum(wt * v * np.conj(p)) / np.sum(wt * np.abs(p) ** 2)
-        new_scale = 1.0 / abs(c)
+        new_lin, shift = _fit_linear(xy[j[use]], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
+        new_scale = 1.0 / math.sqrt(abs(np.linalg.det(new_lin)))
         if calibrated_scale is not None:
             lo, hi = calibrated_scale * (1 - length_tol), calibrated_scale * (1 + length_tol)
-            new_scale = min(max(new_scale, lo), hi)
-        new_phi = math.atan2(c.imag, c.real)
-        if abs(new_phi - phi) < 1e-7 and abs(new_scale / scale - 1) < 1e-9:
-            phi, scale = new_phi, new_scale
+            clamped = min(max(new_scale, lo), hi)
+            new_lin = new_lin * (new_scale / clamped)
+            new_scale = clamped
+        done = np.allclose(new_lin, lin, rtol=1e-9, atol=1e-12)
+        lin, scale = new_lin, new_scale
+        if done:
             break
-        phi, scale = new_phi, new_scale
-    pred_px = (xy @ _rot2(phi).T) / scale
+    phi = math.atan2(lin[1, 0] - lin[0, 1], lin[0, 0] + lin[1, 1])  # rotation part of the polar decomposition
+    aniso_pct, aniso_deg = _anisotropy(lin)
+    pred_px = xy @ lin.T + shift
     j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
     ok = (j >= 0) & (dmin <= 3.0 * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
@@ -155,7 +161,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     # HOLZ projections for spots not on a ZOLZ position
     holz_j = np.full(n, -1)
     if len(holz_xy) and n:
-        hp = (holz_xy @ _rot2(phi).T) / scale
+        hp = holz_xy @ lin.T + shift
         dh = np.linalg.norm(spots.v_px[:, None, :] - hp[None, :, :], axis=2)
         jh = np.argmin(dh, axis=1)
         hit = dh[np.arange(n), jh] <= 3.0 * sigma
@@ -179,7 +185,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
             kinds.append("holz-projection")
             weak = spots.intensity[i] < HOLZ_WEAK_FRACTION * med_int
             kind_w[i] = KIND_WEIGHT["holz-weak" if weak else "holz-strong"] * math.exp(
-                -0.5 * (float(np.linalg.norm(spots.v_px[i] - (holz_xy[holz_j[i]] @ _rot2(phi).T) / scale)) / sigma[i]) ** 2)
+                -0.5 * (float(np.linalg.norm(spots.v_px[i] - holz_xy[holz_j[i]] @ lin.T - shift)) / sigma[i]) ** 2)
         else:
             kinds.append("unindexed")
     agreement = float(np.sum(spots.weight * kind_w))
@@ -214,11 +220,13 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     if calibrated_scale is not None:
         scale_err = scale / calibrated_scale - 1.0
         scale_term = math.exp(-0.5 * (scale_err / max(length_tol / 1.5, 1e-6)) ** 2)
-    zone_term = 1.0 - 0.002 * (max(abs(v) for v in uvw) - 1)
+    idx = max(abs(v) for v in uvw)
+    zone_term = 1.0 - 0.004 * (idx - 1) - 0.01 * max(0, idx - 3)
     score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * (1.0 - 0.3 * misfit) * scale_term * zone_term
 
     # per-spot records
     use_scale = calibrated_scale if calibrated_scale is not None else scale
+    cx0, cy0 = measured.center_px
     hex_axes = phase.is_hexagonal
     recs = []
     d_err, a_err = [], []
@@ -226,7 +234,8 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         k = kinds[i]
         x_px = float(measured.spots.x_px[i])
         y_px = float(measured.spots.y_px[i])
-        r = float(spots.r_px[i])
+        vc = spots.v_px[i] - shift  # from the refined centre
+        r = float(np.hypot(vc[0], vc[1]))
         d_meas = 1.0 / (use_scale * r) if r > 0 else float("inf")
         if k in ("allowed", "double-diffraction", "forbidden"):
             h = tuple(int(v) for v in zp.hkl[j[i]])
@@ -235,22 +244,27 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
             ic = float(f_rel[j[i]] ** 2) if allowed[j[i]] else 0.0
             if k == "allowed":
                 d_err.append(abs(d_meas - d_calc) / d_calc * 100.0)
-                pv = pred_px[j[i]]
-                cosang = float(spots.v_px[i] @ pv) / (r * float(np.linalg.norm(pv)))
+                pv = pred_px[j[i]] - shift
+                cosang = float(vc @ pv) / (r * float(np.linalg.norm(pv)))
                 a_err.append(math.degrees(math.acos(max(-1.0, min(1.0, cosang)))))
         elif k == "holz-projection":
             h = tuple(int(v) for v in holz_hkl[holz_j[i]])
-            g = float(lat.g_inv_nm(np.array(h)))
             gp = float(np.linalg.norm(holz_xy[holz_j[i]]))
             d_calc = 1.0 / gp if gp > 0 else None
-            res = float(np.linalg.norm(spots.v_px[i] - (holz_xy[holz_j[i]] @ _rot2(phi).T) / scale))
+            res = float(np.linalg.norm(spots.v_px[i] - holz_xy[holz_j[i]] @ lin.T - shift))
             ic = None
-            del g
         else:
             h, d_calc, res, ic = None, None, None, None
         hkil = tuple(int(v) for v in plane_to_4(np.array(h))) if (h is not None and hex_axes) else None
         recs.append(IndexedSpot(i, x_px, y_px, float(spots.intensity[i]), h, hkil, k, d_meas, d_calc, res, ic))
 
+    notes = []
+    if float(np.hypot(*shift)) >= 1.0:
+        notes.append(f"the spots fit best about a centre {float(np.hypot(*shift)):.1f} px from the measured one "
+                     f"(at {cx0 + shift[0]:.1f}, {cy0 + shift[1]:.1f} px)")
+    if fit_distortion and aniso_pct >= 0.6 and np.count_nonzero(ok) >= 6:
+        notes.append(f"the spot lattice is stretched {aniso_pct:.1f} % along {aniso_deg:.0f} deg (a projector "
+                     "ellipse?): a ring calibration ('saed calibrate') measures and then corrects it")
     u = orientation_matrix(lat, uvw, math.degrees(phi))
     cam = None
     if pixel_pitch_um is not None:
@@ -267,17 +281,19 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         score=float(score), indexed=tuple(recs),
         mean_d_error_pct=float(np.mean(d_err)) if d_err else float("nan"),
         mean_angle_error_deg=float(np.mean(a_err)) if a_err else float("nan"),
-        structure_type=phase.structure_type, implied_camera_length_mm=cam,
+        structure_type=phase.structure_type, implied_camera_length_mm=cam, notes=tuple(notes),
         scale_error_pct=None if scale_err is None else 100.0 * scale_err,
         terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
-               ("scale", scale_term), ("zone_prior", zone_term)),
+               ("scale", scale_term), ("zone_prior", zone_term), ("distortion_pct", aniso_pct),
+               ("distortion_axis_deg", aniso_deg), ("center_shift_x_px", float(shift[0])),
+               ("center_shift_y_px", float(shift[1]))),
         predicted_xy_px=pred_abs, predicted_hkl=zp.hkl[show], predicted_intensity=np.where(allowed, f_rel ** 2, 0.0)[show],
         predicted_kind=tuple("allowed" if a else "double-diffraction" for a in allowed[show]),
     )
     fit = Fit(table=pt, zone=zp, uvw=uvw, phi_deg=math.degrees(phi), scale=float(scale), assigned=np.where(ok, j, -1),
               kinds=tuple(kinds), predicted_px=pred_px, seen=seen_pair, in_region=region,
               holz_hkl=np.array([holz_hkl[x] if x >= 0 else [0, 0, 0] for x in holz_j], np.int64).reshape(-1, 3),
-              holz_xy_inv_nm=holz_xy @ _rot2(phi).T)
+              holz_xy_inv_nm=(holz_xy @ lin.T) * scale)
     return sol, fit
 
 
@@ -296,6 +312,64 @@ def _zone_facts(pt: PhaseIndexTable, uvw: tuple, voltage_kv: float, max_g_inv_nm
     import weakref
 
     return _zone_facts_cached(weakref.ref(pt), uvw, voltage_kv, max_g_inv_nm)  # a weak key: tables are not pinned
+
+
+#: Largest elliptical distortion (axis ratio - 1) the refinement absorbs when the calibration states none.
+MAX_FITTED_DISTORTION = 0.03
+
+
+def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool,
+                t_max_px: float) -> tuple[np.ndarray, np.ndarray]:
+    """Map (L, t) with v ~ L p + t (weighted least squares): a similarity, or one with a bounded ellipse.
+
+    t is a small shift of the pattern centre (at most `t_max_px`; Friedel pairs fix it). L is the
+    similarity (rotation and scale) or, with `distortion` and at least four spots, the general
+    map whose polar decomposition L = R S has the axis ratio of S clipped to
+    1 + MAX_FITTED_DISTORTION: a projector ellipse of a few per cent, not the freedom to turn any
+    lattice into any other.
+    """
+    sw = np.sqrt(w)
+    n = len(p)
+    # similarity with shift: [a -b tx ; b a ty]
+    rows = np.zeros((2 * n, 4))
+    rows[:n, 0], rows[:n, 1], rows[:n, 2] = p[:, 0], -p[:, 1], 1.0
+    rows[n:, 0], rows[n:, 1], rows[n:, 3] = p[:, 1], p[:, 0], 1.0
+    rhs = np.concatenate([v[:, 0], v[:, 1]])
+    ww = np.concatenate([sw, sw])
+    use_shift = n >= 3 and t_max_px > 0
+    cols = [0, 1, 2, 3] if use_shift else [0, 1]
+    sol, *_ = np.linalg.lstsq(rows[:, cols] * ww[:, None], rhs * ww, rcond=None)
+    a, b = sol[0], sol[1]
+    t = np.array([sol[2], sol[3]]) if use_shift else np.zeros(2)
+    if np.linalg.norm(t) > t_max_px:
+        t = t * (t_max_px / np.linalg.norm(t))
+        sol, *_ = np.linalg.lstsq(rows[:, :2] * ww[:, None], (rhs - np.repeat(t, n)) * ww, rcond=None)
+        a, b = sol
+    sim = np.array([[a, -b], [b, a]])
+    if not distortion or n < 4:
+        return sim, t
+    q = v - t
+    m = (p * w[:, None]).T @ p
+    if np.linalg.cond(m) > 1e6:
+        return sim, t
+    lin = ((q * w[:, None]).T @ p) @ np.linalg.inv(m)
+    if np.linalg.det(lin) <= 0:
+        return sim, t
+    uu, sv, vt = np.linalg.svd(lin)
+    rot = uu @ vt
+    s_mat = vt.T @ np.diag(sv) @ vt
+    ev, qv = np.linalg.eigh(s_mat)
+    mean = math.sqrt(ev[0] * ev[1])
+    lim = math.sqrt(1.0 + MAX_FITTED_DISTORTION)
+    ev = np.clip(ev / mean, 1.0 / lim, lim) * mean
+    return rot @ (qv @ np.diag(ev) @ qv.T), t
+
+
+def _anisotropy(lin: np.ndarray) -> tuple[float, float]:
+    """Axis ratio - 1 (percent) of the fitted map and the azimuth of its long axis (deg)."""
+    uu, sv, vt = np.linalg.svd(lin)
+    major = uu[:, 0]
+    return float(100.0 * (sv[0] / sv[1] - 1.0)), float(math.degrees(math.atan2(major[1], major[0])) % 180.0)
 
 
 def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):

@@ -53,6 +53,7 @@ class ReportEntry:
     result: IndexResult
     ignored: np.ndarray | None = None
     caption: str = ""
+    overlay_png: bytes | None = None  # reused when already rendered
 
 
 def _e(text) -> str:
@@ -74,7 +75,8 @@ def _entry_html(entry: ReportEntry, k: int) -> str:
     r = entry.result
     m = r.measured
     cal = m.calibration
-    png = overlay_figure_bytes(entry.image, r, title=entry.name, dpi=90, size_in=7.5, ignored=entry.ignored)
+    png = entry.overlay_png or overlay_figure_bytes(entry.image, r, title=entry.name, dpi=90, size_in=7.5,
+                                                    ignored=entry.ignored)
     img = f'<img alt="overlay of {_e(entry.name)}" src="data:image/png;base64,{base64.b64encode(png).decode()}">'
     best = r.best
     word = confidence_word(r)
