@@ -13,9 +13,11 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from saed.calibration import Calibration, Ellipse
-from saed.errors import ImageError
+from saed.errors import ImageError, InputError
 from saed.image.measure import inspect_pattern, measure_pattern
 from saed.image.spotfit import fit_spots
 from saed.synth import BeamStop, Detector, Scene, render_lattice
@@ -212,3 +214,28 @@ def test_bad_arrays():
         measure_pattern(np.ones((1, 64)), Calibration())
     with pytest.raises(ImageError, match="the mask is"):
         measure_pattern(np.random.default_rng(0).random((64, 64)), Calibration(), mask=np.zeros((32, 32), bool))
+
+
+@settings(max_examples=60, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1), rows=st.integers(16, 96), cols=st.integers(16, 96),
+       kind=st.sampled_from(["noise", "sparse", "steps", "spikes", "huge"]))
+def test_any_image_gives_a_result_or_an_image_error(seed, rows, cols, kind):
+    rng = np.random.default_rng(seed)
+    if kind == "noise":
+        img = rng.poisson(rng.uniform(0.1, 500), (rows, cols))
+    elif kind == "sparse":
+        img = (rng.random((rows, cols)) > 0.995) * rng.uniform(1, 1e4)
+    elif kind == "steps":
+        img = np.repeat(rng.integers(0, 4, (rows, 1)), cols, axis=1) * 1000.0
+    elif kind == "spikes":
+        img = rng.normal(100, 3, (rows, cols))
+        img[rng.integers(0, rows, 5), rng.integers(0, cols, 5)] = 65535
+    else:
+        img = rng.uniform(0, 1e30, (rows, cols))
+    try:
+        mp = measure_pattern(img.astype(np.float64), Calibration())
+    except InputError as exc:
+        assert "\n" not in str(exc)
+    else:
+        assert len(mp.spots) == len(mp.spots.x_px)
+        assert all(np.isfinite(mp.spots.xy_px).ravel())

@@ -243,10 +243,15 @@ def refine_lattice(xy_px, sigma_px, center_px, g1_px, g2_px, *, tol_px: float, c
         idx, resid, on = index_spots(xy - c, g1, g2, tol_px=tol)
         if on.sum() < 2 or (on.sum() < 3 and center_obs is None):
             return None
-        # Need two independent index directions.
-        if abs(np.linalg.det(idx[on].T @ idx[on])) < 1e-9:
+        # The centre and both vectors must be determined: the indices must not all lie on one line
+        # (an affine rank of 3, or 2 through the origin when the direct beam is observed).
+        design = idx[on].astype(float) if center_obs is not None else np.c_[np.ones(int(on.sum())), idx[on]]
+        if np.linalg.matrix_rank(design) < design.shape[1]:
             return None
-        theta, cov = _solve(xy[on], sig[on], idx[on].astype(float), center_obs, center_sigma_px)
+        try:
+            theta, cov = _solve(xy[on], sig[on], idx[on].astype(float), center_obs, center_sigma_px)
+        except np.linalg.LinAlgError:
+            return None
         c, g1, g2 = theta[0:2], theta[2:4], theta[4:6]
         rr = np.hypot(*(xy[on] - c - idx[on] @ np.stack([g1, g2])).T)
         rms = float(np.sqrt(np.mean(rr**2)))

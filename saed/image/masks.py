@@ -70,7 +70,7 @@ def border_mask(image: np.ndarray, *, border_px: int = 2) -> np.ndarray:
     # Blank frame: edge rows/columns holding one value, examined from each edge inward.
     def _count(get, n):
         k = 0
-        while k < n // 2:
+        while k < n // 4:
             line = get(k)
             if line.max() != line.min():
                 break

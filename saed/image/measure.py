@@ -49,6 +49,13 @@ DEFAULT_DETECT_SNR = 5.0
 MAX_SATURATED_FRACTION = 0.5
 
 
+def _check_enough_left(name: str, valid: np.ndarray) -> None:
+    n = int(np.count_nonzero(valid))
+    if n < max(256, 0.05 * valid.size):
+        raise ImageError(f"{name}: only {n} of {valid.size} pixels are left after masking (border, blank frame, "
+                         "saturation, beam stop, mask image); nothing to measure")
+
+
 def _direct_beam_region(sat_mask: np.ndarray, near_px, max_dist_px: float):
     """Centroid (x, y) and area of the largest saturated region within `max_dist_px` of `near_px`, or None."""
     rows, cols = sat_mask.shape
@@ -172,6 +179,7 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if masked.all():
         raise ImageError(f"{name}: every pixel is masked")
     fit_valid = ~masked & ~sat_mask
+    _check_enough_left(name, fit_valid)
     binned = bin_image(img, fit_valid)
 
     # Rough centre: the hint, or the saturated direct beam, or point symmetry.
@@ -196,6 +204,7 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     if stop is not None:
         masked |= stop.mask
         fit_valid &= ~stop.mask
+        _check_enough_left(name, fit_valid)
         binned = bin_image(img, fit_valid)
         notes.append(f"beam stop masked (towards {stop.angle_deg:.0f} deg, {stop.width_px:.0f} px wide)")
     if sat_mask.any():
