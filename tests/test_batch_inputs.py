@@ -5,6 +5,8 @@ import os
 import numpy as np
 import pytest
 import tifffile
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from saed.batch.inputs import discover_inputs, inspect_source
 from saed.errors import InputError
@@ -80,3 +82,18 @@ def test_same_file_twice_is_taken_once(tmp_path):
     np.save(p, _pattern())
     inp = discover_inputs([str(p), str(tmp_path), os.path.relpath(p)])
     assert len(inp.sources) == 1
+
+
+_MAGIC = [b"", b"\x93NUMPY\x01\x00", b"II*\x00", b"MM\x00*", b"\x89PNG\r\n\x1a\n", b"\xff\xd8"]
+
+
+@settings(max_examples=60, deadline=None)
+@given(suffix=st.sampled_from([".npy", ".tif", ".png", ".jpg", ".txt", ""]), magic=st.sampled_from(_MAGIC),
+       body=st.binary(max_size=200))
+def test_broken_files_in_a_folder_are_skipped_never_raised(tmp_path_factory, suffix, magic, body):
+    # hypothesis: any bytes under any name are either a source or a skipped line with a reason
+    d = tmp_path_factory.mktemp("junk")
+    (d / f"f{suffix}").write_bytes(magic + body)
+    inp = discover_inputs([str(d)])
+    assert len(inp.sources) + len(inp.skipped) == 1
+    assert all(s.reason and "\n" not in s.reason for s in inp.skipped)

@@ -128,3 +128,20 @@ def test_rows_survive_the_round_trip(tmp_path_factory, frame, phase, zone, score
     if score is not None:
         assert back.score == pytest.approx(score, abs=5e-5)
     assert len(COLUMNS) == len(back.cells())
+
+
+@settings(max_examples=80, deadline=None)
+@given(content=st.binary(max_size=300) | st.text(max_size=200).map(lambda t: t.encode("utf-8")))
+def test_any_existing_file_is_refused_cleanly_or_taken(tmp_path_factory, content):
+    # hypothesis: whatever an existing --out holds, opening it either works or is a one-line
+    # InputError that leaves the file exactly as it was
+    p = tmp_path_factory.mktemp("any") / "out.csv"
+    p.write_bytes(content)
+    try:
+        with ResultsFile(p) as out:
+            out.append([_row(0)])
+    except InputError as exc:
+        assert "\n" not in str(exc)
+        assert p.read_bytes() == content
+    else:
+        assert _row(0).key in {r.key for r in read_rows(p)}

@@ -16,7 +16,7 @@ import numpy as np
 from saed.batch.results import Row
 from saed.calibration import Calibration
 
-__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for"]
+__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "calibration_from_tags"]
 
 
 @dataclass(frozen=True)
@@ -66,6 +66,29 @@ def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_
 
     tables = prepare_phases(phases, voltage_kv=calibration.voltage_kv, max_g_inv_nm=max_g_inv_nm)
     return IndexJob(tables, calibration, int(top), mask, tuple(options.items()))
+
+
+def calibration_from_tags(base: Calibration):
+    """A ``context_of(source)`` for runs given no scale: a file's TIFF resolution tags calibrate its frames.
+
+    As ``saed index`` does for one file (:func:`saed.image.measure.inspect_file`); the voltage,
+    centre hint, ellipse and pixel pitch come from `base`. Files without usable tags (and files
+    that cannot be read: their frames report that) get None, i.e. `base`.
+    """
+    from saed.errors import ImageError
+    from saed.image.io import read_image_calibration
+
+    def context_of(source):
+        try:
+            scale = read_image_calibration(source.path)
+        except ImageError:
+            return None
+        if scale is None:
+            return None
+        return Calibration(scale, base.voltage_kv, center_px=base.center_px, ellipse=base.ellipse,
+                           pixel_pitch_um=base.pixel_pitch_um, source=f"{source.name} (TIFF resolution tags)")
+
+    return context_of
 
 
 def _one_line(parts) -> str:

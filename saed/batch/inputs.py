@@ -27,12 +27,13 @@ import logging
 import math
 import os
 import re
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 from saed.errors import ImageError, InputError
 
-__all__ = ["FrameSource", "Skipped", "Inputs", "discover_inputs", "inspect_source", "IMAGE_SUFFIXES",
+__all__ = ["FrameSource", "Skipped", "Inputs", "discover_inputs", "inspect_source", "first_frame_shape", "IMAGE_SUFFIXES",
            "MAX_STACK_AXES"]
 
 logger = logging.getLogger(__name__)
@@ -121,7 +122,10 @@ def inspect_source(name: str) -> FrameSource:
         if n == 0:
             raise ImageError(f"{name}: the .npy stack of shape {shape} holds no frames")
         return FrameSource(name, path, n, lead, tuple(shape[-2:]))
-    n = count_frames(path)
+    with warnings.catch_warnings():
+        # Pillow warns (then raises) on corrupt metadata; the file is reported as skipped, the warning adds nothing
+        warnings.simplefilter("ignore", UserWarning)
+        n = count_frames(path)
     if n < 1:
         raise ImageError(f"{name}: the file holds no image")
     return FrameSource(name, path, n, (n,) if n > 1 else ())
@@ -223,6 +227,21 @@ def discover_inputs(paths, *, recursive: bool = False, exclude=()) -> Inputs:
     for s in skipped:
         logger.info("%s", s)
     return Inputs(tuple(sources), tuple(skipped))
+
+
+def first_frame_shape(sources, *, max_sources: int = 20) -> tuple[int, int] | None:
+    """(rows, cols) of the first frame of `sources` that can be read (header or pixels); None if none can."""
+    from saed.image.io import read_image
+
+    for src in list(sources)[:max_sources]:
+        if src.frame_shape is not None:
+            return src.frame_shape
+        for k in range(min(src.n_frames, 3)):
+            try:
+                return read_image(src.path, frame=k).shape
+            except ImageError:
+                continue
+    return None
 
 
 def _strip_name(message: str, name: str) -> str:

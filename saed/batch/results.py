@@ -141,7 +141,10 @@ _HEADER_LINE = _csv_line(list(COLUMNS))
 
 
 def _check_header(path, first_line: str) -> None:
-    got = next(csv.reader([first_line]), [])
+    try:
+        got = next(csv.reader([first_line]), [])
+    except csv.Error:
+        got = []
     if tuple(got) == COLUMNS:
         return
     if tuple(got[:len(CONTRACT_COLUMNS)]) == CONTRACT_COLUMNS:

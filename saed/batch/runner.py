@@ -100,8 +100,8 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
     `frame_fn(image, shared, *, name, frame, context) -> Row` does the work for one frame.
     A :class:`~saed.errors.SaedError` (unreadable frame, NaN pixels, ...) becomes
     ``error: <message>``; any other exception from one frame becomes ``error: internal
-    error (<class>: <message>)`` and is logged with its traceback on the worker, so that a
-    fault on one frame in ten thousand does not end the run.
+    error (<class>: <message>)`` (its traceback is logged at debug level on the worker), so
+    that a fault on one frame in ten thousand does not end the run.
     """
     from saed.image.io import read_image
 

@@ -83,47 +83,13 @@ def _terminate_as_interrupt():
         signal.signal(signal.SIGTERM, old)
 
 
-def _file_calibration(base):
-    """Per-file calibration from TIFF resolution tags, for runs given no scale."""
-    from saed.calibration import Calibration
-    from saed.errors import ImageError
-    from saed.image.io import read_image_calibration
-
-    def context_of(source):
-        try:
-            scale = read_image_calibration(source.path)
-        except ImageError:          # its frames will say what is wrong, one error row each
-            return None
-        if scale is None:
-            return None
-        return Calibration(scale, base.voltage_kv, center_px=base.center_px, ellipse=base.ellipse,
-                           pixel_pitch_um=base.pixel_pitch_um, source=f"{source.name} (TIFF tags)")
-
-    return context_of
-
-
-def _frame_shape(sources):
-    """(rows, cols) of the first frame that can be read (None if none of the first few can)."""
-    from saed.errors import ImageError
-    from saed.image.io import read_image
-
-    for src in sources[:20]:
-        if src.frame_shape is not None:
-            return src.frame_shape
-        for k in range(min(src.n_frames, 3)):
-            try:
-                return read_image(src.path, frame=k).shape
-            except ImageError:
-                continue
-    return None
-
-
 def _frame_geometry(args, sources, calibration):
     """The mask (read once) and the tables' max |g|, from the frames' size."""
     from saed.batch.indexing import max_g_for
+    from saed.batch.inputs import first_frame_shape
     from saed.image.io import read_mask_image
 
-    shape = _frame_shape(sources)
+    shape = first_frame_shape(sources)
     mask = None
     if args.mask:
         if shape is None:
@@ -139,6 +105,8 @@ def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
 
     out = check_writable(args.out)
     map_path = Path(args.map) if args.map else None
+    if map_path is not None and map_path.suffix.lower() != ".png":
+        raise InputError(f"--map {args.map}: the map is a PNG; give a name ending in .png")
     summary = Path(args.summary) if args.summary else None
     given = {os.path.abspath(p) for p in inputs_raw}
     for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary)):
@@ -156,7 +124,7 @@ def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
 def run(args) -> int:
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client, default_workers
-    from saed.batch.indexing import index_frame, make_index_job
+    from saed.batch.indexing import calibration_from_tags, index_frame, make_index_job
     from saed.batch.results import ResultsFile
     from saed.batch.runner import count_todo
     from saed.batch.scan import check_scan_shape
@@ -198,7 +166,7 @@ def run(args) -> int:
              + (f" on {where}" if n_todo else ""))
         outcome = None
         if n_todo:
-            context_of = None if calibration.is_calibrated else _file_calibration(calibration)
+            context_of = None if calibration.is_calibrated else calibration_from_tags(calibration)
             try:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,
