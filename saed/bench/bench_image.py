@@ -99,12 +99,13 @@ def accuracy_scenarios(size: int = 1024):
     c = (size / 2 + 3.37, size / 2 - 8.61)
     out = []
     specs = [
-        ("points, saturated direct beam", Scene(direct_beam_electrons=3e7), 0),
+        ("points of different sizes, saturated direct beam", Scene(direct_beam_electrons=3e7, size_spread=0.25), 0),
         ("beam stop, direct beam blocked", Scene(beam_stop=BeamStop(angle_deg=300, width_px=36, transmission=0.0)), 0),
         ("ellipse 1.03, mistilt, 2nd grain, hot pixels",
          Scene(ellipse=Ellipse(1.03, 25.0), mistilt_strength=0.6, hot_pixels=20, direct_beam_electrons=3e7), 5),
         ("faint: low dose, strong haze", Scene(haze_electrons=1500.0, floor_electrons=8.0, direct_beam_electrons=5e6), 0),
-        ("discs (radius 6 px)", Scene(disc_radius_px=6.0, spot_sigma_px=1.0, direct_beam_electrons=3e7), 0),
+        ("discs (radius 6 px, sizes +-30 %)", Scene(disc_radius_px=6.0, spot_sigma_px=1.0, size_spread=0.3,
+                                                     direct_beam_electrons=3e7), 0),
     ]
     for k, (name, scene, nb) in enumerate(specs):
         el = 4e3 if "faint" in name else (8e4 if "discs" in name else 2e4)

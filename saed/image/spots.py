@@ -229,6 +229,19 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
     return x[keep].astype(float), y[keep].astype(float), zz[keep], rho
 
 
+def _replace_rows(fits: SpotFits, rows: np.ndarray, new: SpotFits) -> SpotFits:
+    """`fits` with `rows` replaced by the rows of `new` where those converged."""
+    take = rows[new.ok]
+    src = np.flatnonzero(new.ok)
+    cols = {}
+    for name in ("x_px", "y_px", "sigma_xy_px", "amplitude", "width_px", "background", "intensity",
+                 "intensity_sigma", "chi2_red", "n_masked", "ok"):
+        a = np.array(getattr(fits, name), copy=True)
+        a[take] = getattr(new, name)[src]
+        cols[name] = a
+    return SpotFits(**cols)
+
+
 def find_spots(image, valid, background: Background, *, sigma_px: float, snr_min: float = 3.0,
                detect_snr: float = 5.0, saturated_mask: np.ndarray | None = None) -> SpotSearch:
     """Detect and measure spots (see the module notes).
@@ -241,6 +254,19 @@ def find_spots(image, valid, background: Background, *, sigma_px: float, snr_min
     half = int(np.clip(math.ceil(3.0 * sigma_px + 1.0), 3, 24))
     fits = fit_spots(image, valid, x, y, sigma0_px=sigma_px, half_px=half, gain=background.gain,
                      offset_var=background.offset_var, var_floor=background.var_floor)
+    # Spots wider than the window holds (spots of different sizes): fit again in windows sized to them.
+    # (A flat disc filling the window drives the width up and the fit off: those are refitted too,
+    # from their candidate positions.)
+    big = np.isfinite(fits.width_px) & (fits.width_px > 0.4 * half) & (fits.amplitude > 0)
+    if big.any():
+        w_big = np.minimum(fits.width_px[big], 13.0)
+        s_big = float(np.median(w_big))
+        half2 = int(np.clip(math.ceil(3.0 * float(np.percentile(w_big, 90)) + 1.0), half + 1, 40))
+        sx = np.where(fits.ok[big], fits.x_px[big], x[big])
+        sy = np.where(fits.ok[big], fits.y_px[big], y[big])
+        refit = fit_spots(image, valid, sx, sy, sigma0_px=s_big, half_px=half2,
+                          gain=background.gain, offset_var=background.offset_var, var_floor=background.var_floor)
+        fits = _replace_rows(fits, np.flatnonzero(big), refit)
     n_cand = len(x)
     noise = background.sigma(np.maximum(fits.background, 0.0) if len(fits) else np.zeros(0))
     snr = fits.amplitude / np.maximum(noise, 1e-12)

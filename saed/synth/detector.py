@@ -98,12 +98,15 @@ class Scene:
     """What the optics and the specimen add: spot shape, direct beam, haze, distortion, mistilt, defects.
 
     Spot shape: Gaussian of ``spot_sigma_px`` when ``disc_radius_px`` is 0, else a disc of that
-    radius with an edge of ``spot_sigma_px``. Haze in electrons per pixel:
+    radius with an edge of ``spot_sigma_px``; ``size_spread`` > 0 gives every spot its own size,
+    ``exp(size_spread * N(0, 1))`` times the nominal one (spots of different sizes). Haze in electrons
+    per pixel:
     ``haze_electrons / (1 + (r / haze_core_px)^2)^(haze_power / 2) + floor_electrons``.
     """
 
     spot_sigma_px: float = 1.5
     disc_radius_px: float = 0.0
+    size_spread: float = 0.0
     direct_beam_electrons: float = 2e6
     direct_beam_sigma_px: float = 3.0
     haze_electrons: float = 400.0
@@ -153,12 +156,12 @@ def distortion_matrix(ellipse: Ellipse | None) -> np.ndarray:
     return rot @ np.diag([q, 1.0 / q]) @ rot.T
 
 
-def spot_peak_counts(electrons, scene: Scene, detector: Detector) -> np.ndarray:
+def spot_peak_counts(electrons, scene: Scene, detector: Detector, *, size_factor=1.0) -> np.ndarray:
     """Peak height (counts above background) of spots of `electrons` in `scene` (sampled profile)."""
     e = np.asarray(electrons, float) * detector.gain_counts_per_electron
     if scene.disc_radius_px > 0:
-        return e / (math.pi * scene.disc_radius_px**2)
-    s = scene.spot_sigma_px
+        return e / (math.pi * (scene.disc_radius_px * np.asarray(size_factor, float)) ** 2)
+    s = scene.spot_sigma_px * np.asarray(size_factor, float)
     # Pixel-integrated Gaussian: the central pixel holds erf(1/(2 sqrt2 s))^2 of the spot.
     return e * erf(0.5 / (math.sqrt(2.0) * s)) ** 2
 
@@ -239,8 +242,9 @@ def render_pattern(spot_xy_px, spot_electrons, *, center_px, detector: Detector 
 
     expected = _haze((rows, cols), (cx, cy), scene, dinv)
     haze = expected.copy()
-    for (x0, y0), e in zip(true_xy, el):
-        _add_spot(expected, x0, y0, e, scene.spot_sigma_px, scene.disc_radius_px)
+    size = np.exp(scene.size_spread * rng.standard_normal(len(el))) if scene.size_spread > 0 else np.ones(len(el))
+    for (x0, y0), e, k in zip(true_xy, el, size):
+        _add_spot(expected, x0, y0, e, scene.spot_sigma_px * k, scene.disc_radius_px * k)
     if scene.direct_beam_electrons > 0:
         _add_spot(expected, cx, cy, scene.direct_beam_electrons, scene.direct_beam_sigma_px, 0.0)
     stop_mask = None
@@ -265,14 +269,14 @@ def render_pattern(spot_xy_px, spot_electrons, *, center_px, detector: Detector 
     image = counts.astype(dt)
 
     # Ground truth per spot: peak SNR against the background noise where it sits, visibility.
-    peak = spot_peak_counts(el, scene, detector)
+    peak = spot_peak_counts(el, scene, detector, size_factor=size)
     ix = np.clip(np.rint(true_xy[:, 0]).astype(int), 0, cols - 1)
     iy = np.clip(np.rint(true_xy[:, 1]).astype(int), 0, rows - 1)
     bg_e = haze[iy, ix]
     noise = np.sqrt(g * g * bg_e + detector.read_noise_counts**2)
     trans_at = 1.0 if stop_mask is None else trans[iy, ix]
     peak = peak * trans_at
-    margin = 3.0 * scene.spot_sigma_px + scene.disc_radius_px
+    margin = (3.0 * scene.spot_sigma_px + scene.disc_radius_px) * size
     inside = ((true_xy[:, 0] >= margin) & (true_xy[:, 0] <= cols - 1 - margin)
               & (true_xy[:, 1] >= margin) & (true_xy[:, 1] <= rows - 1 - margin))
     if stop_mask is None:
