@@ -175,8 +175,8 @@ def test_second_grain_spots_are_flagged_and_ellipse_is_corrected():
     assert raw > 0.003
 
 
-def test_discs():
-    pat = _lattice_case(Scene(disc_radius_px=5.0, spot_sigma_px=0.8, direct_beam_electrons=3e7),
+def test_discs_of_different_sizes():
+    pat = _lattice_case(Scene(disc_radius_px=5.0, spot_sigma_px=0.8, size_spread=0.3, direct_beam_electrons=3e7),
                         g1=(50.5, 8.8), g2=(-18.4, 61.6), electrons_max=8e4, spread=0.6)
     mp = measure_pattern(pat.image, Calibration())
     d_t, d_f = _errors(pat, mp)
