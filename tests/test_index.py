@@ -241,3 +241,14 @@ def test_lattice_sanity_for_the_ratio_exercise():
     lat = Lattice.cubic(0.4)
     assert float(lat.plane_angle_deg([1, 1, -1], [-1, 1, -1])) == pytest.approx(70.53, abs=0.01)
     assert float(lat.g_inv_nm([2, 0, 0]) / lat.g_inv_nm([1, 1, 1])) == pytest.approx(2 / math.sqrt(3))
+
+
+def test_mistilt_correction_split_onto_the_holder_axes():
+    co = builtin_phase("Co-hcp")
+    m, _ = synthetic_measured(co, [2, -1, -1, 0], tilt_deg=1.2, tilt_toward_hkl=[0, 1, 0], rng=8, max_g_inv_nm=13.0,
+                              intensity_noise=0.1)
+    mt = index_pattern(m, prepare_phases([co]), holder_alpha_axis_deg=30.0).best.mistilt
+    assert mt is not None and mt.alpha_deg is not None
+    # a rotation vector split onto two perpendicular in-plane axes keeps its length
+    assert math.hypot(mt.alpha_deg, mt.beta_deg) == pytest.approx(mt.tilt_deg, rel=1e-6)
+    assert "alpha" in mt.advice

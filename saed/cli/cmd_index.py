@@ -36,6 +36,8 @@ def add_arguments(p):
                    help="tolerance of the angle between two spots, degrees (default 2)")
     g.add_argument("--max-g", type=positive_float, metavar="INV_NM",
                    help="largest |g| considered, 1/nm (default 16, or the largest measured spot)")
+    g.add_argument("--max-zone-index", type=int, default=7, metavar="N",
+                   help="largest zone-axis index considered, 3-index conventional cell (default 7)")
     g.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
                    help="direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), "
                         "to give the mistilt correction as alpha/beta")
@@ -53,6 +55,8 @@ def check_outputs(args) -> None:
 
     if args.top < 1:
         raise InputError(f"--top {args.top}: give at least 1")
+    if not 1 <= args.max_zone_index <= 20:
+        raise InputError(f"--max-zone-index {args.max_zone_index}: give 1 to 20")
     if args.frame is not None and args.frame < 0:
         raise InputError(f"--frame {args.frame}: frames are numbered from 0")
     if args.json and args.json != "-":
@@ -96,7 +100,7 @@ def run(args) -> int:
     measured = insp.measured
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
     result = index_pattern(measured, tables, top=args.top, angle_tol_deg=args.angle_tol, length_tol_pct=args.length_tol,
-                           holder_alpha_axis_deg=args.alpha_axis)
+                           holder_alpha_axis_deg=args.alpha_axis, max_zone_index=args.max_zone_index)
     out = sys.stderr if args.json == "-" else sys.stdout
     print(format_summary(result, image=args.image, frame=args.frame, top=args.top), file=out)
     if args.json:

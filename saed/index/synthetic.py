@@ -80,6 +80,16 @@ def zone_spots(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_
     return v, inten, hkl, u, tuple(int(x) for x in zp.zone_axis)
 
 
+_SPOT_OPTIONS = ("voltage_kv", "scale_inv_nm_per_px", "in_plane_rotation_deg", "tilt_deg", "tilt_toward_hkl",
+                 "max_g_inv_nm", "excitation_width_inv_nm", "min_intensity", "double_diffraction",
+                 "holz_projection_intensity")
+
+
+def _spot_options(options: dict) -> dict:
+    """The keyword options of :func:`zone_spots` picked from a caller's arguments."""
+    return {k: options[k] for k in _SPOT_OPTIONS}
+
+
 def _distort(v: np.ndarray, ellipse: Ellipse | None) -> np.ndarray:
     if ellipse is None or ellipse.axis_ratio <= 1:
         return v
@@ -115,12 +125,7 @@ def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv
     rng = np.random.default_rng(rng)
     h, w = image_shape
     cx, cy = ((w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2) if center_px is None else center_px
-    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, voltage_kv=voltage_kv, scale_inv_nm_per_px=scale_inv_nm_per_px,
-                                        in_plane_rotation_deg=in_plane_rotation_deg, tilt_deg=tilt_deg,
-                                        tilt_toward_hkl=tilt_toward_hkl, max_g_inv_nm=max_g_inv_nm,
-                                        excitation_width_inv_nm=excitation_width_inv_nm, min_intensity=min_intensity,
-                                        double_diffraction=double_diffraction,
-                                        holz_projection_intensity=holz_projection_intensity)
+    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, **_spot_options(locals()))
     v = _distort(v, ellipse)
     blocked = _beam_stop_blocked(v, beam_stop_azimuth_deg, max(h, w))
     v, hkl, inten = v[~blocked], hkl[~blocked], inten[~blocked]
@@ -166,12 +171,7 @@ def synthetic_image(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm
     rng = np.random.default_rng(rng)
     h, w = image_shape
     cx, cy = ((w - 1) / 2.0 + 0.37, (h - 1) / 2.0 - 0.41) if center_px is None else center_px
-    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, voltage_kv=voltage_kv, scale_inv_nm_per_px=scale_inv_nm_per_px,
-                                        in_plane_rotation_deg=in_plane_rotation_deg, tilt_deg=tilt_deg,
-                                        tilt_toward_hkl=tilt_toward_hkl, max_g_inv_nm=max_g_inv_nm,
-                                        excitation_width_inv_nm=excitation_width_inv_nm, min_intensity=min_intensity,
-                                        double_diffraction=double_diffraction,
-                                        holz_projection_intensity=holz_projection_intensity)
+    v, inten, hkl, u, zone = zone_spots(phase, zone_axis, **_spot_options(locals()))
     el = electrons_max * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
     sc = scene if scene is not None else Scene(direct_beam_electrons=3e7)
     sc = _replace(sc, ellipse=ellipse, beam_stop=beam_stop)

@@ -18,7 +18,7 @@ from saed.crystal.miller import format_indices
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_text
 from saed.report.index_overlay import overlay_figure_bytes
-from saed.report.index_summary import confidence_word, zone_text
+from saed.report.index_summary import confidence_word, other_lookalikes, plain_notes, zone_text
 
 __all__ = ["ReportEntry", "report_html", "write_report"]
 
@@ -94,7 +94,7 @@ def _entry_html(entry: ReportEntry, k: int) -> str:
     else:
         right.append(f'<div class="answer">{_e(best.phase_name)} {_e(zone_text(best))}'
                      f'<span class="tag {word}">{word}</span></div>')
-        right.append(f'<div class="sub">score {best.score:.2f}; {best.n_indexed}/{len(best.indexed)} spots indexed; '
+        right.append(f'<div class="sub">score {best.score:.2f}; {best.n_explained}/{len(best.indexed)} spots explained; '
                      f'd error {_f(best.mean_d_error_pct, ".2f")} %; angle error {_f(best.mean_angle_error_deg, ".2f")}&deg;; '
                      f'in-plane rotation {best.in_plane_rotation_deg:.1f}&deg;</div>')
         rows = ['<tr><th>rank</th><th class="l">phase</th><th class="l">zone</th><th>score</th><th>spots</th>'
@@ -104,23 +104,16 @@ def _entry_html(entry: ReportEntry, k: int) -> str:
             if s.implied_camera_length_mm is not None and not (cal is not None and cal.is_calibrated):
                 sc += f", L = {s.implied_camera_length_mm:.0f} mm"
             rows.append(f"<tr><td>{i + 1}</td><td class='l'>{_e(s.phase_name)}</td><td class='l' style='white-space:nowrap'>{_e(zone_text(s))}</td>"
-                        f"<td>{s.score:.2f}</td><td>{s.n_indexed}/{len(s.indexed)}</td>"
+                        f"<td>{s.score:.2f}</td><td>{s.n_explained}/{len(s.indexed)}</td>"
                         f"<td>{_f(s.mean_d_error_pct, '.2f')}</td><td>{_f(s.mean_angle_error_deg, '.2f')}</td><td>{sc}</td></tr>")
         right.append("<table>" + "".join(rows) + "</table>")
         notes = []
         if best.mistilt is not None:
             notes.append(f"<li><b>Mistilt.</b> {_e(best.mistilt.advice)}</li>")
-        for n in best.notes:
-            if best.mistilt is not None and n == best.mistilt.advice:
-                continue
-            notes.append(f"<li>{_e(n)}</li>")
-        for lk in best.lookalikes:
-            if lk.relation == "ambiguous":
-                continue
-            z = format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
-            notes.append(f"<li><b>{_e(lk.relation.capitalize())}: {_e(lk.phase_name)} [{_e(z)}]</b> "
-                         f"(score {lk.score:.2f}). {_e(lk.separating)}" + (f" <i>{_e(lk.tilt.text)}</i>" if lk.tilt else "")
-                         + "</li>")
+        notes += [f"<li>{_e(n)}</li>" for n in plain_notes(best)]
+        for head, sep, tilt in other_lookalikes(best):
+            notes.append(f"<li><b>{_e(head[0].upper() + head[1:])}.</b> {_e(sep)}"
+                         + (f" <i>{_e(tilt)}</i>" if tilt else "") + "</li>")
         if r.message:
             notes.append(f"<li>{_e(r.message)}</li>")
         if notes:

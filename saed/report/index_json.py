@@ -83,6 +83,7 @@ def solution_json(sol: Solution, rank: int) -> dict:
         "indexed_spots": indexed,
         "unexplained_spots": unexplained,
         "n_indexed": sol.n_indexed,
+        "n_explained": sol.n_explained,
         "mean_d_error_pct": _num(sol.mean_d_error_pct, 4),
         "mean_angle_error_deg": _num(sol.mean_angle_error_deg, 4),
         "figure_of_merit": {k: _num(v, 4) for k, v in sol.terms},

@@ -142,7 +142,7 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
     else:
         word = confidence_word(result) if result.best is not None else "near miss"
         line1 = f"{best.phase_name} {zone_text(best)}   score {best.score:.2f} ({word})   -   {src}"
-        line2 = (f"{best.n_indexed}/{len(best.indexed)} spots indexed, d error {best.mean_d_error_pct:.2f} %, "
+        line2 = (f"{best.n_explained}/{len(best.indexed)} spots explained, d error {best.mean_d_error_pct:.2f} %, "
                  f"angle error {best.mean_angle_error_deg:.2f} deg, in-plane rotation {best.in_plane_rotation_deg:.1f} deg, "
                  f"{best.scale_inv_nm_per_px:.5g} 1/nm per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
     fig.text(0.01, 1.0 - 0.12 / fh, line1, fontsize=11.5, fontweight="bold", va="top")

@@ -10,7 +10,7 @@ import math
 from saed.crystal.miller import format_indices
 from saed.index.values import IndexResult, Solution
 
-__all__ = ["format_summary", "zone_text", "confidence_word", "SHOWN_SPOTS"]
+__all__ = ["format_summary", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "SHOWN_SPOTS"]
 
 #: Spots of the best solution listed in the summary (all of them are in the JSON).
 SHOWN_SPOTS = 14
@@ -24,6 +24,23 @@ def zone_text(sol) -> str:
 def _hkl_text(spot) -> str:
     h = spot.hkil if spot.hkil is not None else spot.hkl
     return "-" if h is None else format_indices(h)
+
+
+def plain_notes(best: Solution) -> list[str]:
+    """The best solution's notes without the mistilt advice (which is shown on its own line)."""
+    return [n for n in best.notes if best.mistilt is None or n != best.mistilt.advice]
+
+
+def other_lookalikes(best: Solution) -> list[tuple[str, str, str]]:
+    """(heading, what separates them, tilt text) for the look-alikes not already in the notes."""
+    out = []
+    for lk in best.lookalikes:
+        if lk.relation == "ambiguous":
+            continue  # already in the notes
+        z = format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
+        out.append((f"{lk.relation}: {lk.phase_name} [{z}] ({lk.score:.2f})", lk.separating,
+                    lk.tilt.text if lk.tilt else ""))
+    return out
 
 
 def confidence_word(result: IndexResult) -> str:
@@ -68,7 +85,7 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
     head = f"{'rank':>4}  {'phase':<12} {'zone':<12} {'score':>5}  {'spots':>7}  {'d err %':>7}  {'angle err':>9}  {'scale 1/nm/px':>13}"
     lines.append(head)
     for i, s in enumerate(result.solutions[:top]):
-        spots = f"{s.n_indexed}/{len(s.indexed)}"
+        spots = f"{s.n_explained}/{len(s.indexed)}"
         scale = f"{s.scale_inv_nm_per_px:.5g}"
         if s.scale_error_pct is not None:
             scale += f" ({s.scale_error_pct:+.1f}%)"
@@ -90,16 +107,9 @@ def _best_block(best: Solution, *, calibrated: bool) -> list[str]:
         out.append(txt)
     if best.mistilt is not None:
         out.append(f"  mistilt: {best.mistilt.advice}")
-    for n in best.notes:
-        if best.mistilt is not None and n == best.mistilt.advice:
-            continue
-        out.append(f"  note: {n}")
-    for lk in best.lookalikes:
-        if lk.relation == "ambiguous":
-            continue  # already in the notes
-        z = format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
-        out.append(f"  {lk.relation}: {lk.phase_name} [{z}] ({lk.score:.2f}): {lk.separating}"
-                   + (f"; {lk.tilt.text}" if lk.tilt else ""))
+    out += [f"  note: {n}" for n in plain_notes(best)]
+    for head, sep, tilt in other_lookalikes(best):
+        out.append(f"  {head}: {sep}" + (f"; {tilt}" if tilt else ""))
     shown = sorted((s for s in best.indexed), key=lambda s: (s.hkl is None, s.d_nm_measured * -1))
     out.append("")
     out.append(f"  {'hkl':<10} {'x':>8} {'y':>8} {'d meas nm':>10} {'d calc nm':>10} {'err %':>6}  kind")
