@@ -122,6 +122,15 @@ def test_centre_with_the_direct_beam_saturated_or_blocked(case):
     assert mp.center_sigma_px < 0.2
 
 
+@pytest.mark.parametrize("offset", [(6.0, -5.0), (0.0, 19.0), (-17.0, -9.0)])
+def test_a_wrong_centre_hint_is_corrected(offset):
+    # |g1| = 34 px: a hint off by more than half a spot spacing still ends on the true centre
+    pat = _lattice_case(Scene(beam_stop=BeamStop(angle_deg=200.0, width_px=30.0, transmission=0.0)))
+    hint = (pat.center_px[0] + offset[0], pat.center_px[1] + offset[1])
+    mp = measure_pattern(pat.image, Calibration(center_px=hint))
+    assert math.hypot(mp.center_px[0] - pat.center_px[0], mp.center_px[1] - pat.center_px[1]) < 0.2
+
+
 def test_integrated_intensities_and_their_uncertainties():
     det = Detector(shape=(512, 512), gain_counts_per_electron=1.5)
     pat, _ = render_lattice(np.array([33.7, 5.9]), np.array([-12.3, 41.1]), center_px=(257.4, 253.4), detector=det,

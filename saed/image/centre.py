@@ -11,7 +11,10 @@ parabola through its neighbours. It does not need the direct beam, so it works b
 
 Friedel pairs
 -------------
-Spots g and -g sit symmetrically about the centre: ``p_i + p_j = 2 c``. Every spot's mirror
+Spots g and -g sit symmetrically about the centre: ``p_i + p_j = 2 c``. When the start may be a few
+pixels off, it is first moved to the densest point of the pair midpoints near it, each vote weighted
+by how alike the two intensities are (Friedel mates are alike; the pairs g, h - g that meet at half
+a lattice vector are not). Then every spot's mirror
 ``2 c - p_i`` is matched to the nearest spot (mutual matches only, of intensities within a factor
 `max_ratio`); the centre is the weighted mean of the pair midpoints, iterated with a shrinking
 tolerance, and its uncertainty is the weighted scatter of the midpoints over sqrt(pairs).
@@ -104,19 +107,57 @@ def _pairs(xy: np.ndarray, c: np.ndarray, tol: float, intensity: np.ndarray | No
     return np.stack([ii, jj[ii]], axis=1) if len(ii) else np.zeros((0, 2), int)
 
 
+def _vote_center(xy: np.ndarray, start: np.ndarray, search_px: float, intensity: np.ndarray | None,
+                 min_radius: float) -> np.ndarray | None:
+    """The densest point of the pair midpoints within `search_px` of `start`, votes weighted by how
+    alike the two intensities are (Friedel mates are alike; pairs g, h - g that also meet at a half
+    lattice vector h/2 are not)."""
+    r = np.hypot(*(xy - start[None, :]).T)
+    use = np.flatnonzero(r > min_radius)
+    if len(use) < 2:
+        return None
+    p = xy[use]
+    tree = cKDTree(p)
+    mids, wts = [], []
+    for i, nbrs in enumerate(tree.query_ball_point(2.0 * start[None, :] - p, r=2.0 * search_px)):
+        for j in nbrs:
+            if j <= i:
+                continue
+            m = 0.5 * (p[i] + p[j])
+            if np.hypot(*(m - start)) > search_px:
+                continue
+            w = 1.0
+            if intensity is not None:
+                a, b = intensity[use[i]], intensity[use[j]]
+                w = math.exp(-abs(math.log(max(a, 1e-12) / max(b, 1e-12)))) if a > 0 and b > 0 else 0.1
+            mids.append(m)
+            wts.append(w)
+    if len(mids) < 2:
+        return None
+    mids, wts = np.array(mids), np.array(wts)
+    mt = cKDTree(mids)
+    score = np.array([wts[n].sum() for n in mt.query_ball_point(mids, r=1.5)])
+    k = int(np.argmax(score))
+    near = mt.query_ball_point(mids[k], r=1.5)
+    return np.average(mids[near], axis=0, weights=wts[near])
+
+
 def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: float = 6.0,
-                   max_ratio: float = 6.0, min_radius_px: float = 3.0) -> FriedelCentre | None:
+                   max_ratio: float = 6.0, min_radius_px: float = 3.0, search_px: float | None = None) -> FriedelCentre | None:
     """Refine the centre from Friedel pairs of spots; None when fewer than two pairs are found.
 
     Parameters
     ----------
     xy_px : (n, 2) spot positions, pixels
-    start_px : (2,) starting centre; must be within about `tol_px` / 2 of the truth
+    start_px : (2,) starting centre
     sigma_px : (n,) position uncertainties (weights); default equal
     intensity : (n,) spot intensities; pairs differing by more than `max_ratio` are refused (mistilt
         can make Friedel mates differ, so the limit is loose); None: not used
     tol_px : first matching tolerance for |p_i + p_j - 2 c|, pixels; halved twice
     min_radius_px : spots this close to the centre (the direct beam) are not paired
+    search_px : how far from `start_px` the centre may be. When given, the start is first moved to
+        the densest point of the pair midpoints within that distance (votes weighted by intensity
+        likeness), so a start a few pixels off (a rough hint) still finds the pairs.
     """
     xy = np.asarray(xy_px, np.float64).reshape(-1, 2)
     if len(xy) < 4:
@@ -124,6 +165,10 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
     sig = np.full(len(xy), 0.3) if sigma_px is None else np.maximum(np.asarray(sigma_px, float), 0.02)
     inten = None if intensity is None else np.asarray(intensity, float)
     c = np.asarray(start_px, np.float64).copy()
+    if search_px is not None and search_px > 0:
+        voted = _vote_center(xy, c, float(search_px), inten, min_radius_px)
+        if voted is not None:
+            c = voted
     pairs = np.zeros((0, 2), int)
     sigma = float("nan")
     for tol in (tol_px, tol_px / 2.0, max(tol_px / 4.0, 1.0), max(tol_px / 4.0, 1.0)):

@@ -37,7 +37,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
-__all__ = ["gauss_reduce", "candidate_vectors", "find_basis", "index_spots", "LatticeFit", "refine_lattice"]
+__all__ = ["gauss_reduce", "candidate_vectors", "find_basis", "index_spots", "LatticeFit", "refine_lattice",
+           "fit_spot_lattice"]
 
 logger = logging.getLogger(__name__)
 
@@ -271,3 +272,68 @@ def refine_lattice(xy_px, sigma_px, center_px, g1_px, g2_px, *, tol_px: float, c
     rms = float(np.sqrt(np.mean(rr**2))) if on.any() else float("nan")
     idx = np.where(on[:, None], idx, 0)
     return LatticeFit(center_px=c, g1_px=g1, g2_px=g2, cov=cov, indices=idx, on_lattice=on, rms_residual_px=rms)
+
+
+def fit_spot_lattice(xy_px, sigma_px, center_guess_px, *, tol_px: float, order=None, center_tol_px: float | None = None,
+                     center_obs=None, center_sigma_px: float = 1.0) -> LatticeFit | None:
+    """Basis and refinement together, robust to a centre guess that is a few pixels off.
+
+    The basis is looked for first with the spots taken from the centre guess (tolerance
+    `center_tol_px`, default `tol_px`), then, if that indexes fewer than 90 % of the spots, from
+    each of the three strongest spots (a spot is a lattice point; the centre then need not be known).
+    The lattice point nearest the guess starts the refinement, which frees the centre. The fit that
+    indexes the most spots is returned. `order`: spot indices strongest first.
+    """
+    xy = np.asarray(xy_px, np.float64).reshape(-1, 2)
+    if len(xy) < 2:
+        return None
+    order = np.arange(len(xy)) if order is None else np.asarray(order)
+    guess = np.asarray(center_guess_px, np.float64)
+    refs = [(guess, center_tol_px if center_tol_px is not None else tol_px)]
+    refs += [(xy[k], tol_px) for k in order[:3]]
+    best = None
+    for ref, tol in refs:
+        found = find_basis(xy[order] - ref, tol_px=tol)
+        if found is None:
+            continue
+        g1, g2, _ = found
+        basis = np.stack([g1, g2])
+        c_init = ref + np.rint((guess - ref) @ np.linalg.inv(basis)) @ basis
+        fit = refine_lattice(xy, sigma_px, c_init, g1, g2, tol_px=max(tol_px, 0.02 * float(np.hypot(*g1))),
+                             center_obs=center_obs, center_sigma_px=center_sigma_px)
+        if fit is None:
+            continue
+        if best is None or fit.on_lattice.sum() > best.on_lattice.sum():
+            best = fit
+        if best.on_lattice.sum() >= 0.9 * len(xy):
+            break
+    if best is not None:
+        best = _fix_half_lattice_origin(best, xy, sigma_px, guess, tol_px, center_obs, center_sigma_px)
+    return best
+
+
+def _fix_half_lattice_origin(fit: LatticeFit, xy, sigma_px, guess, tol_px, center_obs, center_sigma_px) -> LatticeFit:
+    """A centre half a lattice vector off makes every index odd in one direction (the spots then look
+    like the odd coset of a finer lattice). The pattern's own lattice contains its centre, so such a fit
+    is moved by that vector to the coarser lattice, whichever of the two neighbouring points indexes
+    more spots (then: nearer the guess)."""
+    idx = fit.indices[fit.on_lattice]
+    if len(idx) < 4:
+        return fit
+    g1, g2 = fit.g1_px, fit.g2_px
+    for v, shift, basis in (((1, 0), g1, (2 * g1, g2)), ((0, 1), g2, (g1, 2 * g2)), ((1, 1), g1, (g1 + g2, g1 - g2))):
+        if not np.all((idx @ np.array(v)) % 2 == 1):
+            continue
+        best = None
+        for sign in (1.0, -1.0):
+            f = refine_lattice(xy, sigma_px, fit.center_px + sign * shift, basis[0], basis[1], tol_px=tol_px,
+                               center_obs=center_obs, center_sigma_px=center_sigma_px)
+            if f is None:
+                continue
+            key = (int(f.on_lattice.sum()), -float(np.hypot(*(f.center_px - guess))))
+            if best is None or key > best[0]:
+                best = (key, f)
+        if best is not None and best[0][0] >= 0.9 * fit.on_lattice.sum():
+            logger.debug("centre moved by half a lattice vector to (%.2f, %.2f)", *best[1].center_px)
+            return best[1]
+    return fit

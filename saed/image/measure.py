@@ -24,6 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import ndimage as ndi
+from scipy.spatial import cKDTree
 
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
@@ -31,7 +32,7 @@ from saed.image.background import Background, estimate_background
 from saed.image.binning import bin_image
 from saed.image.centre import find_direct_beam, friedel_center, symmetric_center
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
-from saed.image.lattice2d import find_basis, refine_lattice
+from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
 from saed.image.spots import _adaptive_width, estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
@@ -265,8 +266,13 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
         center_obs, center_obs_sigma = center.copy(), center_sigma
         center_how = "the direct beam"
     strong = spots.snr >= max(5.0, snr_min)
+    search = None
+    if db_xy is None and strong.sum() >= 4:
+        # how far off the rough centre may be: under half the smallest spot spacing, at most 30 px
+        nn = cKDTree(sxy[strong]).query(sxy[strong], k=2)[0][:, 1]
+        search = float(np.clip(0.4 * np.median(nn), 8.0, 30.0))
     fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
-                        tol_px=4.0 if db_xy is not None else 8.0, min_radius_px=2.0 * sigma + 2.0)
+                        tol_px=4.0 if db_xy is not None else 8.0, min_radius_px=2.0 * sigma + 2.0, search_px=search)
     if fr is not None and center_obs is None:
         center, center_sigma = np.asarray(fr.center_px), fr.sigma_px
         center_how = f"{fr.n_pairs} Friedel pairs"
@@ -274,26 +280,24 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     basis = None
     order = np.argsort(-spots.snr)
     tol = float(max(1.5, 3.0 * np.median(spots.sigma_xy_px), 0.6 * sigma))
-    found = find_basis(sxy[order] - center, tol_px=tol + (0.0 if center_how != how else 2.0))
-    if found is not None:
-        g1, g2, _ = found
-        fit = refine_lattice(sxy, spots.sigma_xy_px, center, g1, g2, tol_px=max(tol, 0.02 * float(np.hypot(*g1))),
-                             center_obs=center_obs, center_sigma_px=center_obs_sigma)
-        if fit is not None:
-            sc, s1, s2, sa = fit.sigmas()
-            basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
-                                 sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
-            center, center_sigma = fit.center_px, sc
-            center_how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
-                " and the direct beam" if center_obs is not None else "")
-            off = int((~fit.on_lattice).sum())
-            if off:
-                notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
-            idx_on = fit.indices[fit.on_lattice]
-            for name, unit in (("g1", (1, 0)), ("g2", (0, 1))):
-                if not any(tuple(v) in (unit, (-unit[0], -unit[1])) for v in idx_on.tolist()):
-                    notes.append(f"no spot at +-{name}: the net's basis vector is itself a missing (absent or "
-                                 "forbidden) reflection")
+    fit = fit_spot_lattice(sxy, spots.sigma_xy_px, center, tol_px=tol, order=order,
+                           center_tol_px=tol + (0.0 if center_how != how else 2.0),
+                           center_obs=center_obs, center_sigma_px=center_obs_sigma)
+    if fit is not None:
+        sc, s1, s2, sa = fit.sigmas()
+        basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
+                             sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
+        center, center_sigma = fit.center_px, sc
+        center_how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
+            " and the direct beam" if center_obs is not None else "")
+        off = int((~fit.on_lattice).sum())
+        if off:
+            notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
+        idx_on = fit.indices[fit.on_lattice]
+        for name, unit in (("g1", (1, 0)), ("g2", (0, 1))):
+            if not any(tuple(v) in (unit, (-unit[0], -unit[1])) for v in idx_on.tolist()):
+                notes.append(f"no spot at +-{name}: the net's basis vector is itself a missing (absent or "
+                             "forbidden) reflection")
     if basis is None:
         notes.append("no 2-D lattice found (needs three or more spots not all on one line)")
     notes.insert(0, f"centre from {center_how}")
