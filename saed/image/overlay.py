@@ -10,7 +10,6 @@ pattern is calibrated. matplotlib is imported here, inside the function.
 from __future__ import annotations
 
 import io
-import math
 
 import numpy as np
 
@@ -37,16 +36,6 @@ def display_stretch(image: np.ndarray, *, background=None) -> np.ndarray:
     a = np.arcsinh(np.clip(img - lo, 0.0, None) / soft)
     top = max(float(np.arcsinh(max(hi - lo, 1e-6) / soft)), 1e-6)
     return np.clip(a / top, 0.0, 1.0)
-
-
-def _nice_length(x: float) -> float:
-    if x <= 0 or not math.isfinite(x):
-        return 1.0
-    e = 10 ** math.floor(math.log10(x))
-    for m in (1, 2, 5, 10):
-        if m * e >= x:
-            return m * e
-    return 10 * e
 
 
 def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, ignored: np.ndarray | None = None,
@@ -115,8 +104,9 @@ def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, i
                     fontsize=9.5, fontweight="bold", family="monospace",
                     bbox=dict(boxstyle="round,pad=0.25", fc=(0, 0, 0, 0.6), ec="none"))
     if cal.is_calibrated:
-        target_inv_nm = 0.2 * cols * cal.scale_inv_nm_per_px
-        bar_inv_nm = _nice_length(target_inv_nm) if _nice_length(target_inv_nm) <= target_inv_nm * 1.6 else target_inv_nm
+        from saed.report.render_pattern import nice_scale_bar_inv_nm
+
+        bar_inv_nm = nice_scale_bar_inv_nm(cols * cal.scale_inv_nm_per_px)
         bar_px = bar_inv_nm / cal.scale_inv_nm_per_px
         x0, y0 = 0.05 * cols, 0.94 * rows
         ax.plot([x0, x0 + bar_px], [y0, y0], color="white", lw=4 * lw, solid_capstyle="butt")
