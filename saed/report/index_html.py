@@ -41,6 +41,7 @@ ul{margin:4px 0 4px 18px;padding:0} li{margin:3px 0;font-size:13.5px}
 .k-allowed{color:#146c2e} .k-double-diffraction{color:#8a6d00} .k-holz-projection{color:#6b2fa0}
 .k-forbidden,.k-unindexed{color:#b3261e}
 .foot{color:#777;font-size:12px;margin-top:30px}
+.grid table td:last-child{white-space:normal}
 """
 
 
