@@ -69,7 +69,8 @@ def test_calibration_without_pixel_pitch_has_no_camera_length():
     assert cal.implied_camera_length_mm is None and cal.camera_constant_nm_mm is None
 
 
-def test_si_011_single_crystal_against_the_codata_lattice_parameter():
+@pytest.mark.parametrize("rotation_deg", [23.0, 61.0])
+def test_si_011_single_crystal_against_the_codata_lattice_parameter(rotation_deg):
     # Si [011] zone pattern rendered at 200 kV, L = 100 mm, 14 um pixels; the calibration found from it must
     # give d(111) = a / sqrt(3) with a = CODATA 'lattice parameter of silicon' (scipy.constants, in m).
     from saed.simulate.detector import detector_image
@@ -79,7 +80,7 @@ def test_si_011_single_crystal_against_the_codata_lattice_parameter():
     scale = physics.scale_from_camera_inv_nm_per_px(100.0, 14.0, 200.0)
     zp = zone_pattern(si, [0, 1, 1])
     det = detector_image(zp, shape_px=(768, 768), scale_inv_nm_per_px=scale, center_px=(390.4, 377.7),
-                         in_plane_rotation_deg=23.0, noise=True, rng=2, double_diffraction_strength=0.1)
+                         in_plane_rotation_deg=rotation_deg, noise=True, rng=2, double_diffraction_strength=0.1)
     res = calibrate_from_zone(det.image, si, [0, 1, 1], voltage_kv=200.0, pixel_pitch_um=14.0)
     a_nm = constants.physical_constants["lattice parameter of silicon"][0] * 1e9
     rows111 = [r for r in res.ring_rows if [abs(int(v)) for v in re.findall(r"-?\d", r[1])] == [1, 1, 1]]

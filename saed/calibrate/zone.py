@@ -129,8 +129,14 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
     p = mp.spot_vectors_px()[on]
     if len(p) < 2:
         raise InputError("fewer than two spots on the pattern's lattice: cannot calibrate")
+    # The measured basis is a primitive basis of the spots found: prefer zone bases of the smallest cell
+    # (a basis of a similar sub-lattice, e.g. 4-22 / 42-2 for 11-1 / 1-11, fits as well, scaled).
+    cell = abs(xy[i1, 0] * xy[i2, 1] - xy[i1, 1] * xy[i2, 0])
     best = None
     for a, b in cands:
+        area = abs(xy[a, 0] * xy[b, 1] - xy[a, 1] * xy[b, 0]) / cell
+        if abs(area - round(area)) > 0.02 * area:
+            continue
         h = idx[:, :1] * xy[a][None, :] + idx[:, 1:] * xy[b][None, :]
         a_map, *_ = np.linalg.lstsq(p, h, rcond=None)  # h = p @ a_map, i.e. A = a_map.T
         a_mat = a_map.T
@@ -139,7 +145,7 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
         u, s_vals, vt = np.linalg.svd(a_mat)
         distortion = s_vals[0] / s_vals[1]
         resid = np.linalg.norm(p @ a_map - h, axis=1) / np.maximum(np.linalg.norm(h, axis=1), 1e-12)
-        key = (round(distortion, 4), float(np.sqrt(np.mean(resid**2))))
+        key = (int(round(area)), round(distortion, 4), float(np.sqrt(np.mean(resid**2))))
         if best is None or key < best[0]:
             best = (key, a, b, a_mat, resid, h)
     if best is None:

@@ -34,6 +34,9 @@ __all__ = ["RingGeometry", "inversion_centre", "trace_rings", "fit_ring_geometry
 
 logger = logging.getLogger(__name__)
 
+#: Largest projector ellipse fitted (axis ratio); real projectors stay well below (0.5-2 %, common practice).
+MAX_AXIS_RATIO = 1.15
+
 
 @dataclass(frozen=True, eq=False)
 class RingGeometry:
@@ -79,8 +82,9 @@ def _s_from_ellipse(e: Ellipse) -> tuple[float, float]:
 def inversion_centre(image, *, mask=None, hint_px=None, search_px: float | None = None) -> tuple[float, float]:
     """Centre of inversion symmetry of `image` (x, y), pixels.
 
-    The image is high-pass filtered (difference of Gaussians), masked pixels set to zero, and
-    convolved with itself by FFT; the peak is at twice the centre. `hint_px` with `search_px` limits
+    The image is high-pass filtered (difference of Gaussians by normalised convolution, so masked pixels
+    leave no edges), clipped at three robust sigmas (so that many faint ring pixels rather than a few
+    sharp edges decide), and convolved with itself by FFT; the peak is at twice the centre. `hint_px` with `search_px` limits
     the search to a window around a hint.
     """
     img = np.asarray(image, dtype=np.float32)
@@ -91,10 +95,20 @@ def inversion_centre(image, *, mask=None, hint_px=None, search_px: float | None 
     if mask is not None:
         valid &= ~np.asarray(mask, bool)[::step, ::step]
     work = np.where(valid, work, np.nanmedian(work[valid]) if valid.any() else 0.0)
-    work = np.log1p(np.clip(work - np.percentile(work, 1), 0, None))
-    hp = ndimage.gaussian_filter(work, 1.0) - ndimage.gaussian_filter(work, 6.0)
-    hp[~valid] = 0.0
+    work = np.log1p(np.clip(work - np.percentile(work[valid], 1), 0, None))
+    # Difference of Gaussians by normalised convolution, so masked areas (beam stop) leave no edges.
+    wv = valid.astype(np.float64)
+
+    def blur(sigma):
+        return ndimage.gaussian_filter(work * wv, sigma) / np.maximum(ndimage.gaussian_filter(wv, sigma), 1e-3)
+
+    hp = blur(1.0) - blur(6.0)
     hp = ndimage.binary_erosion(valid, iterations=2) * hp
+    # Clip at 3 robust sigmas: many faint ring pixels, not a few sharp edges (beam-stop disc), decide.
+    v = hp[valid]
+    sig = 1.4826 * float(np.median(np.abs(v - np.median(v)))) if v.size else 0.0
+    if sig > 0:
+        hp = np.clip(hp, -3 * sig, 3 * sig)
     h, w = hp.shape
     shape = (fft.next_fast_len(2 * h), fft.next_fast_len(2 * w))
     spec = fft.rfft2(hp, shape)
@@ -269,7 +283,11 @@ def _fit_points(points, ring_idx, n_rings, center_px, ellipse, radii, fit_ellips
         rho = np.sqrt(np.einsum("ni,ij,nj->n", d, m, d))
         return rho - p[4 + ring_idx]
 
-    res = optimize.least_squares(resid, p0[free], loss="soft_l1", f_scale=0.3, x_scale="jac")
+    k_max = math.log(MAX_AXIS_RATIO)
+    lo = np.concatenate([[-np.inf, -np.inf, -k_max, -k_max], np.full(n_rings, 1.0)])[free]
+    hi = np.concatenate([[np.inf, np.inf, k_max, k_max], np.full(n_rings, np.inf)])[free]
+    start = np.clip(p0[free], lo + 1e-9, hi - 1e-9)
+    res = optimize.least_squares(resid, start, bounds=(lo, hi), loss="soft_l1", f_scale=0.3, x_scale="jac")
     p = unpack(res.x)
     r = res.fun
     try:

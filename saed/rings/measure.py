@@ -27,7 +27,7 @@ from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
 from saed.image.azimuthal import RadialProfile, polar_coordinates, radial_profile
 from saed.image.rings import ProfileRings, find_profile_rings
-from saed.rings.geometry import RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
+from saed.rings.geometry import MAX_AXIS_RATIO, RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
 
 __all__ = ["RingMeasurement", "ring_mask", "measure_rings", "SINGLE_CRYSTAL_COVERAGE"]
 
@@ -227,6 +227,9 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
                                  ellipse=ell, mask=m, fit_ellipse=do_ellipse, fit_center=fit_center,
                                  n_iter=4 if stage == "coarse" else 3)
         cen, ell = geom.center_px, geom.ellipse
+        if ell.axis_ratio > MAX_AXIS_RATIO - 1e-3:
+            raise ImageError(f"the rings could not be traced reliably (the fitted distortion ran to the "
+                             f"{100 * (MAX_AXIS_RATIO - 1):.0f} % limit); give --center X Y, or --no-ellipse")
         width = float(np.median(rings.width_px[k]))
         prof, rings = profile_and_rings(cen, ell, width)
         if len(rings) == 0:
