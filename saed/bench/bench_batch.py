@@ -3,8 +3,8 @@
 Reports (as the case's extra lines): throughput in patterns/s on 1 and 2 workers and their
 ratio (goal >= 1.7 on 2 cores), the per-pattern time on 1 worker against the 'image256'
 floor (read a 256x256 uint16 TIFF + one Gaussian pass) as a ratio, and the peak RSS of the
-workers and the client after 1024 patterns and at the end of the 2-worker run (memory must
-stay flat as the stack grows). The case's own median is the whole case (cluster start-up
+workers and the client (resident memory sampled after every task, the maximum so far) after
+1024 patterns and at the end of the 2-worker run (memory must stay flat as the stack grows). The case's own median is the whole case (cluster start-up
 included); the rates are timed over the batch runs alone, after a warm-up task per worker.
 
 The stack size is ``SAED_BENCH_BATCH_FRAMES`` (default 4096, the issue's size); e.g.
@@ -59,13 +59,15 @@ def write_stack(path, n_frames: int) -> None:
     del out
 
 
-def _peak_rss_mib() -> float:
-    """Peak resident memory of this process, MiB (run on each worker by client.run)."""
-    import resource
-    import sys
+def _rss_mib() -> float:
+    """Resident memory of this process now, MiB (run on each worker by client.run).
 
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return peak / (1024 * 1024) if sys.platform == "darwin" else peak / 1024
+    Sampled after every task and the maximum kept: the kernel's own peak (``ru_maxrss``) of a
+    spawned worker includes its parent's memory at the fork, so it would not show the worker's.
+    """
+    import psutil
+
+    return psutil.Process().memory_info().rss / 2**20
 
 
 def _cpu_s() -> float:
@@ -109,9 +111,13 @@ def _run(state, workers: int, memory_at: int | None):
             run_batch(discover_inputs([str(state["warm"])]), res, index_frame, job, client=client, chunk_frames=1)
         warm_csv.unlink()
 
+        peak = [0.0, 0.0]                               # worker max, client
+
         def sample(done, total, text):
+            peak[0] = max(peak[0], max(client.run(_rss_mib).values()))
+            peak[1] = max(peak[1], psutil.Process().memory_info().rss / 2**20)
             if memory_at and done >= memory_at and "at_1k" not in memory:
-                memory["at_1k"] = (max(client.run(_peak_rss_mib).values()), psutil.Process().memory_info().rss / 2**20)
+                memory["at_1k"] = tuple(peak)
 
         out = tmp / f"out{workers}.csv"
         cpu0 = sum(client.run(_cpu_s).values())
@@ -121,7 +127,7 @@ def _run(state, workers: int, memory_at: int | None):
                                 progress=sample)
         elapsed = time.perf_counter() - t0
         memory["cpu_ms_per_pattern"] = 1e3 * (sum(client.run(_cpu_s).values()) - cpu0) / max(outcome.n_written, 1)
-        memory["end"] = (max(client.run(_peak_rss_mib).values()), psutil.Process().memory_info().rss / 2**20)
+        memory["end"] = tuple(peak)
     out.unlink()
     return outcome.n_written / elapsed, memory
 
