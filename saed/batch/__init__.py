@@ -63,7 +63,9 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
         Frames per task (default: :func:`saed.batch.runner.chunk_size_for`).
     """
     t0 = time.monotonic()
-    done_before = {k for k in results.done}
+    # planning reads `results.done` lazily while rows arrive; only frames already planned are added
+    # to it, so it can serve as the set of frames done before (no copy of a set that may be large)
+    done_before = results.done
     n_todo = count_todo(inputs.sources, done_before)
     n_before = inputs.n_frames - n_todo
     threads = sum(client.nthreads().values()) or 1
