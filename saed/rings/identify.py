@@ -2,8 +2,10 @@
 
 Each candidate phase is matched alone (:func:`saed.rings.match.match_scale`). The strongest
 candidates are then tried in pairs at a common scale; a pair is kept only when each of its phases
-explains at least two rings the other cannot (otherwise the second phase is a look-alike of the
-first, not a second phase), and it must beat both of its phases alone by a clear margin
+explains rings (gives at least half their predicted intensity) that its partner alone leaves
+unexplained -- at least two, or one carrying 8 % of the ring signal; otherwise the second phase is
+a look-alike of the first, not a second phase -- and it must beat both of its phases alone by a
+clear margin
 (:data:`MIXTURE_GAIN`). Solutions of both kinds are ranked together by their score.
 """
 
@@ -13,6 +15,8 @@ import logging
 from dataclasses import dataclass, field
 from itertools import combinations
 from typing import Sequence
+
+import numpy as np
 
 from saed.crystal.phase import Phase
 from saed.errors import InputError
@@ -26,8 +30,19 @@ logger = logging.getLogger(__name__)
 MIXTURE_GAIN = 0.05
 #: Phases alone that are tried in pairs (the best by score).
 PAIR_POOL = 10
-#: Rings a phase of a mixture must explain that its partner cannot.
+#: Rings a phase of a mixture must explain that its partner cannot ...
 MIN_UNIQUE_RINGS = 2
+#: ... or one such ring carrying at least this share of the ring signal (sqrt-intensity weighted).
+MIN_UNIQUE_SIGNAL = 0.08
+
+
+def _own_evidence(obs: ObservedRings, mix: RingMatch, p: int, partner_alone: RingMatch) -> bool:
+    """Does phase p of the mixture explain rings its partner alone cannot? (at least two, or one strong)"""
+    sq = np.sqrt(obs.intensity)
+    mine = [i for i in range(len(mix.ring_lines))
+            if mix.ring_share[i, p] >= 0.5 and not partner_alone.ring_lines[i]]
+    signal = float(sq[mine].sum() / sq.sum()) if mine else 0.0
+    return len(mine) >= MIN_UNIQUE_RINGS or (len(mine) >= 1 and signal >= MIN_UNIQUE_SIGNAL)
 
 
 @dataclass(frozen=True)
@@ -80,7 +95,7 @@ def identify_phases(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm
             if not res:
                 continue
             mix = res[0]
-            if min(mix.unique_rings) < MIN_UNIQUE_RINGS or min(mix.amounts) <= 0:
+            if min(mix.amounts) <= 0 or not (_own_evidence(obs, mix, 0, b) and _own_evidence(obs, mix, 1, a)):
                 continue
             if mix.score < max(best_alone[a.phases[0].name], best_alone[b.phases[0].name]) + MIXTURE_GAIN:
                 continue

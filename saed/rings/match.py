@@ -1,7 +1,8 @@
 """How well one phase (or a mixture of two) explains the measured rings, and at which detector scale.
 
 For a hypothesis (phases, scale) every ring line of every phase is placed at radius g / scale;
-lines closer than two ring widths blend into one (the profile cannot separate them). Each measured
+lines closer than two ring widths blend into one (the profile cannot separate them), and so do
+neighbours up to 3.5 widths apart where the measured profile shows only one ring. Each measured
 ring is matched to the nearest blend within tolerance, one to one. The amount of each phase
 (a scale factor on its model intensities m |F|^2 d^2) is the non-negative least-squares fit to the
 matched ring intensities and to zero at every unmatched line. Three factors make the score
@@ -38,6 +39,11 @@ __all__ = ["ObservedRings", "RingMatch", "evaluate", "match_scale", "POSITION_FL
 
 #: Systematic floor of the relative ring-position uncertainty (residual distortion, calibration).
 POSITION_FLOOR_REL = 0.001
+#: Neighbouring lines closer than this many ring widths (Gaussian sigma) count as one ring when the
+#: profile shows only one there.
+UNRESOLVED_WIDTHS = 3.5
+#: Share of a ring's predicted intensity one phase must give for the ring to be that phase's alone.
+UNIQUE_SHARE = 0.8
 #: Largest |g| of the ring lists used while searching the scale (1/nm).
 MAX_LINE_G_INV_NM = 20.0
 #: Largest |g| of the ring lists once a scale is proposed (rings out to the edge of the detector).
@@ -98,7 +104,10 @@ class RingMatch:
     ring_lines : per measured ring, a tuple of (phase index, line index) it is assigned to (empty:
     unexplained); ring_delta_rel : relative radius misfit (NaN: unexplained); amounts : fitted
     amount of each phase; missing : (phase index, line index, predicted relative intensity) of lines
-    that should have been seen and were not; unique_rings : rings explained by one phase only.
+    that should have been seen and were not; unique_rings : per phase, rings it explains alone (it gives
+    at least 80 % of their predicted intensity); unique_signal : the share of the ring signal
+    (sqrt-intensity) of those rings; ring_share : (n_rings, n_phases) share of each phase in each
+    matched ring's predicted intensity (0 for unexplained rings).
     """
 
     phases: tuple[Phase, ...]
@@ -109,8 +118,10 @@ class RingMatch:
     ring_lines: tuple[tuple[tuple[int, int], ...], ...]
     ring_delta_rel: np.ndarray
     predicted_intensity: np.ndarray
+    ring_share: np.ndarray
     missing: tuple[tuple[int, int, float], ...]
     unique_rings: tuple[int, ...]
+    unique_signal: tuple[float, ...]
     r_factor: float
     position_quality: float
     prior: float
@@ -126,8 +137,12 @@ class RingMatch:
         return sum(1 for a in self.ring_lines if a)
 
 
-def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: float, blend_px: float):
+def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: float, blend_px: float,
+            phase_weight=None):
     """Lines of all phases placed at g/scale within r_lo..r_hi, merged into blends.
+
+    A blend sits at the intensity-weighted mean of its lines (model intensity x `phase_weight` of the
+    phase, default 1); `design` holds the unweighted model intensity per phase.
 
     Returns (rho (n,), spread (n,), design (n, n_phases), members: list of [(p, j), ...]).
     """
@@ -139,6 +154,7 @@ def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: floa
         ph_l.append(np.full(len(keep), p))
         j_l.append(keep)
         w_l.append(np.maximum(ln.intensity[keep], 1e-9))
+    pw = np.ones(len(lines)) if phase_weight is None else np.maximum(np.asarray(phase_weight, float), 1e-3)
     rho = np.concatenate(rho_l)
     n_ph = len(lines)
     if len(rho) == 0:
@@ -147,29 +163,53 @@ def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: floa
     rho, ph, jj, w = rho[order], np.concatenate(ph_l)[order], np.concatenate(j_l)[order], np.concatenate(w_l)[order]
     starts = np.concatenate([[0], np.nonzero(np.diff(rho) >= blend_px)[0] + 1])
     ends = np.concatenate([starts[1:], [len(rho)]])
-    wsum = np.add.reduceat(w, starts)
-    rho_b = np.add.reduceat(w * rho, starts) / wsum
+    wc = w * pw[ph]
+    w_b = np.add.reduceat(wc, starts)
+    rho_b = np.add.reduceat(wc * rho, starts) / w_b
     spread_b = rho[ends - 1] - rho[starts]
     group = np.repeat(np.arange(len(starts)), ends - starts)
     design = np.zeros((len(starts), n_ph))
     np.add.at(design, (group, ph), w)
     pairs = list(zip(ph.tolist(), jj.tolist()))
     members = [pairs[a:b] for a, b in zip(starts.tolist(), ends.tolist())]
-    return rho_b, spread_b, design, members
+    return rho_b, spread_b, design, members, w_b
 
 
-def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px: float, *, tol_rel: float = 0.01,
-             prior: tuple[float, float] | None = None, scale_sigma_rel: float = 0.0) -> RingMatch:
-    """Score the hypothesis "these phases at this scale" against `obs` (module notes)."""
-    s = float(scale_inv_nm_per_px)
-    lines = tuple(lines)
-    width = float(np.median(obs.width_px))
-    blend_px = 2.0 * width
-    r_in_lo = obs.r_min_px + 2 * width
-    r_in_hi = obs.r_max_px - 2 * width
-    g_top = min(ln.max_g_inv_nm for ln in lines)
-    rho, spread, design, members = _blends(lines, s, r_lo=obs.r_min_px - blend_px,
-                                           r_hi=min(obs.r_max_px + blend_px, g_top / s), blend_px=blend_px)
+def _merge_unresolved(rho, spread, design, members, w_b, r_obs, *, limit_px: float, margin_px: float):
+    """Merge neighbouring blends closer than `limit_px` where the measured profile shows at most one ring.
+
+    Two lines 2-3 ring widths apart are often measured as one broad ring; treating them as separate
+    would call one of them missing.
+    """
+    rho, spread, w_b = list(rho), list(spread), list(w_b)
+    lo_edge = [r - sp for r, sp in zip(rho, spread)]
+    hi_edge = list(rho)
+    design = [d.copy() for d in design]
+    members = [list(m) for m in members]
+    k = 0
+    while k + 1 < len(rho):
+        gap = rho[k + 1] - rho[k]
+        n_between = int(np.count_nonzero((r_obs >= rho[k] - margin_px) & (r_obs <= rho[k + 1] + margin_px)))
+        if gap < limit_px and n_between <= 1:
+            wa, wb = w_b[k], w_b[k + 1]
+            rho[k] = (rho[k] * wa + rho[k + 1] * wb) / (wa + wb)
+            lo = min(lo_edge[k], lo_edge[k + 1])
+            hi = max(hi_edge[k] + spread[k], hi_edge[k + 1] + spread[k + 1], rho[k])
+            spread[k] = max(spread[k], spread[k + 1], gap)
+            lo_edge[k], hi_edge[k] = lo, hi - spread[k]
+            w_b[k] = wa + wb
+            design[k] = design[k] + design[k + 1]
+            members[k] = members[k] + members[k + 1]
+            for arr in (rho, spread, w_b, design, members, lo_edge, hi_edge):
+                del arr[k + 1]
+            continue
+        k += 1
+    n_ph = design[0].shape[0] if design else 0
+    return (np.array(rho), np.array(spread), np.array(design).reshape(-1, n_ph), members)
+
+
+def _assign(obs: ObservedRings, rho, spread, tol_rel: float):
+    """Each measured ring to the nearest blend within tolerance, one ring per blend: (assign, delta)."""
     n = len(obs)
     r = obs.radius_px
     assign = np.full(n, -1)
@@ -182,22 +222,50 @@ def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px
         d_rel = (r - rho[best]) / rho[best]
         tol = np.maximum(tol_rel, 3 * obs.radius_sigma_px / r) + spread[best] / rho[best]
         ok = np.abs(d_rel) <= tol
-        # One ring per blend: the nearest wins.
         for b in np.unique(best[ok]):
             idx = np.nonzero(ok & (best == b))[0]
             win = idx[np.argmin(np.abs(d_rel[idx]))]
             assign[win] = b
             delta[win] = d_rel[win]
-    matched = assign >= 0
-    used = set(assign[matched].tolist())
-    unmatched_b = [b for b in range(len(rho)) if b not in used and r_in_lo <= rho[b] <= r_in_hi]
+    return assign, delta
+
+
+def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px: float, *, tol_rel: float = 0.01,
+             prior: tuple[float, float] | None = None, scale_sigma_rel: float = 0.0) -> RingMatch:
+    """Score the hypothesis "these phases at this scale" against `obs` (module notes).
+
+    For a mixture the blends are placed twice: first with equal phase amounts, then with the fitted ones
+    (a blend of a strong line of one phase and a weak one of the other sits near the strong one).
+    """
+    s = float(scale_inv_nm_per_px)
+    lines = tuple(lines)
     n_ph = len(lines)
-    rows_x = [design[assign[i]] for i in np.nonzero(matched)[0]] + [design[b] for b in unmatched_b]
-    rows_y = [obs.intensity[i] for i in np.nonzero(matched)[0]] + [0.0] * len(unmatched_b)
-    if rows_x and matched.any():
-        amounts, _ = optimize.nnls(np.array(rows_x).reshape(-1, n_ph), np.array(rows_y))
-    else:
-        amounts = np.zeros(n_ph)
+    width = float(np.median(obs.width_px))
+    blend_px = 2.0 * width
+    r_in_lo = obs.r_min_px + 2 * width
+    r_in_hi = obs.r_max_px - 2 * width
+    g_top = min(ln.max_g_inv_nm for ln in lines)
+    n = len(obs)
+    r = obs.radius_px
+    weights = None
+    for _pass in range(1 if n_ph == 1 else 2):
+        rho, spread, design, members, w_b = _blends(lines, s, r_lo=obs.r_min_px - blend_px,
+                                                    r_hi=min(obs.r_max_px + blend_px, g_top / s),
+                                                    blend_px=blend_px, phase_weight=weights)
+        if len(rho) > 1:
+            rho, spread, design, members = _merge_unresolved(rho, spread, design, members, w_b, r,
+                                                             limit_px=UNRESOLVED_WIDTHS * width, margin_px=width)
+        assign, delta = _assign(obs, rho, spread, tol_rel)
+        matched = assign >= 0
+        used = set(assign[matched].tolist())
+        unmatched_b = [b for b in range(len(rho)) if b not in used and r_in_lo <= rho[b] <= r_in_hi]
+        rows_x = [design[assign[i]] for i in np.nonzero(matched)[0]] + [design[b] for b in unmatched_b]
+        rows_y = [obs.intensity[i] for i in np.nonzero(matched)[0]] + [0.0] * len(unmatched_b)
+        if rows_x and matched.any():
+            amounts, _ = optimize.nnls(np.array(rows_x).reshape(-1, n_ph), np.array(rows_y))
+        else:
+            amounts = np.zeros(n_ph)
+        weights = amounts / amounts.max() if amounts.max() > 0 else None
     pred = np.zeros(n)
     pred[matched] = design[assign[matched]] @ amounts
     sq_i = np.sqrt(obs.intensity)
@@ -227,16 +295,26 @@ def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px
         prior_f = math.exp(-0.5 * ((s / s0 - 1) / sig0) ** 2)
     explained = float(sq_i[matched].sum() / sq_i.sum())
     ring_assign = tuple(tuple(members[assign[i]]) if assign[i] >= 0 else () for i in range(n))
+    # A ring belongs to one phase when that phase gives >= 80 % of its predicted intensity.
     unique = [0] * n_ph
-    for a in ring_assign:
-        ph = {m[0] for m in a}
-        if len(ph) == 1:
-            unique[next(iter(ph))] += 1
+    unique_signal = [0.0] * n_ph
+    share = np.zeros((n, n_ph))
+    for i in np.nonzero(matched)[0]:
+        contrib = design[assign[i]] * amounts
+        tot = contrib.sum()
+        if tot > 0:
+            share[i] = contrib / tot
+        if tot > 0 and contrib.max() >= UNIQUE_SHARE * tot:
+            p_i = int(np.argmax(contrib))
+            unique[p_i] += 1
+            unique_signal[p_i] += float(sq_i[i] / sq_i.sum())
+    share.flags.writeable = False
     score = (1.0 - r_factor) * pos * prior_f
     delta.flags.writeable = False
     pred.flags.writeable = False
     return RingMatch(tuple(ln.phase for ln in lines), lines, s, float(scale_sigma_rel), tuple(float(a) for a in amounts),
-                     ring_assign, delta, pred, tuple(missing), tuple(unique), r_factor, pos, prior_f, explained, score)
+                     ring_assign, delta, pred, share, tuple(missing), tuple(unique), tuple(unique_signal), r_factor,
+                     pos, prior_f, explained, score)
 
 
 def _refine_scale(obs: ObservedRings, m: RingMatch, prior) -> tuple[float, float]:
@@ -248,7 +326,10 @@ def _refine_scale(obs: ObservedRings, m: RingMatch, prior) -> tuple[float, float
         gs = np.array([m.lines[p].g_inv_nm[j] for p, j in a])
         ws = np.array([max(m.lines[p].intensity[j] * m.amounts[p], 1e-9) for p, j in a])
         g_i = float((gs * ws).sum() / ws.sum())
-        sig = math.hypot(obs.radius_sigma_px[i] / obs.radius_px[i], 0.3 * POSITION_FLOOR_REL)
+        # a blend's measured centre depends on the real (textured) intensities of its lines: half its spread
+        spread_rel = 0.5 * float(gs.max() - gs.min()) / g_i
+        sig = math.sqrt((obs.radius_sigma_px[i] / obs.radius_px[i]) ** 2 + (0.3 * POSITION_FLOOR_REL) ** 2
+                        + spread_rel**2)
         r.append(obs.radius_px[i])
         g.append(g_i)
         w.append(1.0 / sig**2)
