@@ -107,3 +107,29 @@ def test_single_crystal_pattern_is_recognised():
     img = _spot_pattern()
     with pytest.raises(ImageError, match="single-crystal"):
         measure_rings(img)
+
+
+@settings(max_examples=20, deadline=None)
+@given(kind=st.sampled_from(["noise", "constant", "gradient", "spikes", "one_ring", "zeros_with_hot_pixel"]),
+       size=st.integers(24, 96), seed=st.integers(0, 10_000))
+def test_any_image_gives_rings_or_one_image_error(kind, size, seed):
+    # Whatever the image, measure_rings returns a measurement or raises one SaedError (a one-line message).
+    from saed.errors import SaedError
+
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[:size, :size]
+    r = np.hypot(xx - size / 2, yy - size / 2)
+    img = {
+        "noise": rng.poisson(50, (size, size)).astype(float),
+        "constant": np.full((size, size), 3.0),
+        "gradient": xx * 10.0 + 1,
+        "spikes": np.where(rng.random((size, size)) < 0.01, 60000.0, 10.0),
+        "one_ring": 100 + 500 * np.exp(-0.5 * ((r - size / 4) / 1.2) ** 2) + rng.normal(0, 3, (size, size)),
+        "zeros_with_hot_pixel": np.pad(np.full((1, 1), 9.0), ((size // 2, size - size // 2 - 1),) * 2),
+    }[kind].astype(np.float32)
+    try:
+        m = measure_rings(img)
+    except SaedError as exc:
+        assert "\n" not in str(exc)
+    else:
+        assert len(m.rings) >= 1 and np.all(np.isfinite(m.rings.radius_px))

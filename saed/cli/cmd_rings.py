@@ -18,13 +18,17 @@ DESCRIPTION = (
 )
 ORDER = 35
 
+#: Default width of the scale prior, %: a calibration from a standard, or a scale from options.
+DEFAULT_SCALE_TOLERANCE_PCT = {"file": 0.5, "options": 2.0}
+
 
 def add_arguments(p):
     p.add_argument("image", metavar="IMAGE", help="ring pattern (TIFF, PNG, JPEG or .npy)")
     add_phase_option(p)
     add_calibration_options(p, center=True)
-    p.add_argument("--scale-tolerance", type=positive_float, default=0.5, metavar="PCT",
-                   help="how far the true scale may lie from the calibration, %% (default 0.5)")
+    p.add_argument("--scale-tolerance", type=positive_float, metavar="PCT",
+                   help="how far the true scale may lie from the calibration, %% (default 0.5 with a calibration "
+                        "file, 2 with --scale or --camera-length: a nominal camera length is rarely better)")
     p.add_argument("--tolerance", type=positive_float, default=1.0, metavar="PCT",
                    help="largest misfit of a ring to a phase's line, %% (default 1)")
     p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame image (default the first)")
@@ -116,9 +120,12 @@ def run(args) -> int:
         d = f", d = {1 / (r * cal.scale_inv_nm_per_px):.4f} nm" if cal.is_calibrated else ""
         raise InputError(f"only one ring found (r = {r:.1f} px{d}): phase identification needs at least two rings")
     obs = ObservedRings.from_profile_rings(rings, radius_px_of_bins=measured.profile.radius_px)
+    tolerance_pct = args.scale_tolerance
+    if tolerance_pct is None:
+        tolerance_pct = DEFAULT_SCALE_TOLERANCE_PCT["file" if args.calibration else "options"]
     with Progress(len(phases), "rings") as bar:
         ident = identify_phases(obs, phases, scale_inv_nm_per_px=cal.scale_inv_nm_per_px,
-                                scale_sigma_rel=args.scale_tolerance / 100, tol_rel=args.tolerance / 100, top=args.top,
+                                scale_sigma_rel=tolerance_pct / 100, tol_rel=args.tolerance / 100, top=args.top,
                                 mixtures=not args.no_mixtures, progress=bar)
     s = cal.scale_inv_nm_per_px
     doc = {
@@ -128,6 +135,7 @@ def run(args) -> int:
                     "major_axis_angle_deg": round(measured.ellipse.major_axis_angle_deg, 2),
                     "source": "calibration" if cal.ellipse is not None else "fitted"},
         "scale_inv_nm_per_px": s,
+        "scale_tolerance_pct": tolerance_pct if s is not None else None,
         "voltage_kv": cal.voltage_kv,
         "rings": [],
         "solutions": [solution_json(k + 1, m, obs, s) for k, m in enumerate(ident.solutions)],
