@@ -133,7 +133,8 @@ def calibrate_from_rings(image, standard: Phase, *, voltage_kv: float = 200.0, p
     True
     """
     v = physics.check_voltage_kv(voltage_kv)
-    measured = measure_rings(image, mask=mask, center_px=center_px, fit_ellipse=fit_ellipse, allow_spots=allow_spots)
+    measured = measure_rings(image, mask=mask, center_px=center_px, fit_ellipse=fit_ellipse, allow_spots=allow_spots,
+                             spots_advice="for a single-crystal standard give its zone axis, --zone U V W")
     best = fit_standard(measured, standard, tol_rel=tol_rel)
     s = best.scale_inv_nm_per_px
     rows, unfit, deltas = [], [], []

@@ -108,9 +108,9 @@ def ring_mask(image, *, mask=None) -> np.ndarray:
     return out
 
 
-def _spots_message(coverage: float) -> str:
+def _spots_message(coverage: float, advice: str) -> str:
     return (f"the rings are made of isolated spots (the strongest cover {100 * coverage:.0f} % of the circle): "
-            "this looks like a single-crystal pattern; use 'saed index'")
+            f"this looks like a single-crystal pattern; {advice}")
 
 
 def _search_range(shape, center, mask, coords, img_for_range=None) -> tuple[float, float]:
@@ -157,7 +157,7 @@ def _search_range(shape, center, mask, coords, img_for_range=None) -> tuple[floa
 
 def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None = None, fit_ellipse: bool = True,
                   fit_center: bool = True, snr_min: float = 5.0, bin_px: float = 0.5,
-                  allow_spots: bool = False) -> RingMeasurement:
+                  allow_spots: bool = False, spots_advice: str = "use 'saed index'") -> RingMeasurement:
     """Centre, ellipse and rings of a polycrystalline ring pattern.
 
     Parameters
@@ -170,6 +170,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
         ``fit_ellipse``
     snr_min : detection threshold of a ring in the radial profile (local-noise sigmas)
     allow_spots : accept a pattern whose rings are spotty (coarse-grained film) or even single spots
+    spots_advice : what the message for a single-crystal pattern tells the operator to do
 
     Raises
     ------
@@ -212,7 +213,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
     _, _, cov0 = trace_rings(img, center_px=cen, ellipse=ell, radii_px=rings.radius_px[first],
                              widths_px=rings.width_px[first], mask=m)
     if not allow_spots and len(cov0) and float(np.median(cov0)) < SINGLE_CRYSTAL_COVERAGE:
-        raise ImageError(_spots_message(float(np.median(cov0))) + " (or --spotty for a coarse-grained film)")
+        raise ImageError(_spots_message(float(np.median(cov0)), spots_advice) + " (or --spotty for a coarse-grained film)")
     geom = None
     for stage in ("coarse", "fine"):
         strong = np.argsort(-rings.snr)
@@ -243,7 +244,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
     traced = np.isfinite(coverage)
     med_cov = float(np.median(coverage[traced])) if traced.any() else float("nan")
     if traced.any() and med_cov < SINGLE_CRYSTAL_COVERAGE:
-        msg = _spots_message(med_cov)
+        msg = _spots_message(med_cov, spots_advice)
         if not allow_spots:
             raise ImageError(msg + " (or --spotty for a coarse-grained film)")
         notes.append(msg)
