@@ -121,12 +121,15 @@ def _run(state, workers: int, memory_at: int | None):
 
         out = tmp / f"out{workers}.csv"
         cpu0 = sum(client.run(_cpu_s).values())
+        client_cpu0 = _cpu_s()
         t0 = time.perf_counter()
         with ResultsFile(out) as res:
             outcome = run_batch(discover_inputs([str(state["stack"])]), res, index_frame, job, client=client,
                                 progress=sample)
         elapsed = time.perf_counter() - t0
-        memory["cpu_ms_per_pattern"] = 1e3 * (sum(client.run(_cpu_s).values()) - cpu0) / max(outcome.n_written, 1)
+        n_done = max(outcome.n_written, 1)
+        memory["cpu_ms_per_pattern"] = 1e3 * (sum(client.run(_cpu_s).values()) - cpu0) / n_done
+        memory["client_cpu_ms_per_pattern"] = 1e3 * (_cpu_s() - client_cpu0) / n_done
         memory["end"] = tuple(peak)
     out.unlink()
     return outcome.n_written / elapsed, memory
@@ -145,6 +148,12 @@ def _case_fn(state):
         "load_average_at_start (other work on the machine)": round(load, 2),
         "worker_cpu_ms_per_pattern (1 worker, 2 workers)": (round(mem1["cpu_ms_per_pattern"], 1),
                                                             round(mem["cpu_ms_per_pattern"], 1)),
+        "client_cpu_ms_per_pattern (1 worker, 2 workers)": (round(mem1["client_cpu_ms_per_pattern"], 1),
+                                                            round(mem["client_cpu_ms_per_pattern"], 1)),
+        # what 2 dedicated cores would give from the CPU each pattern costs (other work on the machine
+        # takes cores from the measured rates, not CPU from the patterns): 2 C1 / (C2 + client C2)
+        "scaling_from_cpu_time (2 dedicated cores)": round(
+            2 * mem1["cpu_ms_per_pattern"] / (mem["cpu_ms_per_pattern"] + mem["client_cpu_ms_per_pattern"]), 2),
         "rate_1_worker_per_s": round(rate1, 2),
         "rate_2_workers_per_s": round(rate2, 2),
         "scaling_2_vs_1 (goal >= 1.7)": round(rate2 / rate1, 2),
