@@ -176,36 +176,40 @@ def _blends(lines: Sequence[RingLines], scale: float, *, r_lo: float, r_hi: floa
 
 
 def _merge_unresolved(rho, spread, design, members, w_b, r_obs, *, limit_px: float, margin_px: float):
-    """Merge neighbouring blends closer than `limit_px` where the measured profile shows at most one ring.
+    """Merge runs of neighbouring blends closer than `limit_px` where the measured profile shows at most
+    one ring.
 
     Two lines 2-3 ring widths apart are often measured as one broad ring; treating them as separate
     would call one of them missing.
     """
-    rho, spread, w_b = list(rho), list(spread), list(w_b)
-    lo_edge = [r - sp for r, sp in zip(rho, spread)]
-    hi_edge = list(rho)
-    design = [d.copy() for d in design]
-    members = [list(m) for m in members]
+    gaps = np.diff(rho)
+    if not np.any(gaps < limit_px):
+        return rho, spread, design, members
+    r_sorted = np.sort(r_obs)
+
+    def n_rings(lo, hi):
+        return int(np.searchsorted(r_sorted, hi, side="right") - np.searchsorted(r_sorted, lo, side="left"))
+
+    starts = [0]
     k = 0
     while k + 1 < len(rho):
-        gap = rho[k + 1] - rho[k]
-        n_between = int(np.count_nonzero((r_obs >= rho[k] - margin_px) & (r_obs <= rho[k + 1] + margin_px)))
-        if gap < limit_px and n_between <= 1:
-            wa, wb = w_b[k], w_b[k + 1]
-            rho[k] = (rho[k] * wa + rho[k + 1] * wb) / (wa + wb)
-            lo = min(lo_edge[k], lo_edge[k + 1])
-            hi = max(hi_edge[k] + spread[k], hi_edge[k + 1] + spread[k + 1], rho[k])
-            spread[k] = max(spread[k], spread[k + 1], gap)
-            lo_edge[k], hi_edge[k] = lo, hi - spread[k]
-            w_b[k] = wa + wb
-            design[k] = design[k] + design[k + 1]
-            members[k] = members[k] + members[k + 1]
-            for arr in (rho, spread, w_b, design, members, lo_edge, hi_edge):
-                del arr[k + 1]
+        first = starts[-1]
+        if gaps[k] < limit_px and n_rings(rho[first] - spread[first] - margin_px, rho[k + 1] + margin_px) <= 1:
+            k += 1  # blend k+1 joins the current run
             continue
+        starts.append(k + 1)
         k += 1
-    n_ph = design[0].shape[0] if design else 0
-    return (np.array(rho), np.array(spread), np.array(design).reshape(-1, n_ph), members)
+    if len(starts) == len(rho):
+        return rho, spread, design, members
+    st = np.array(starts)
+    ends = np.append(st[1:], len(rho))
+    w_sum = np.add.reduceat(w_b, st)
+    rho_m = np.add.reduceat(w_b * rho, st) / w_sum
+    lo = np.minimum.reduceat(rho - spread, st)
+    hi = np.maximum.reduceat(rho, st)
+    design_m = np.add.reduceat(design, st, axis=0)
+    members_m = [sum(members[a:b], []) for a, b in zip(st.tolist(), ends.tolist())]
+    return rho_m, hi - lo, design_m, members_m
 
 
 def _assign(obs: ObservedRings, rho, spread, tol_rel: float):
@@ -351,6 +355,11 @@ def _refine_scale(obs: ObservedRings, m: RingMatch, prior) -> tuple[float, float
     return s, sigma_rel
 
 
+def _quantised_g(g_inv_nm: float) -> float:
+    """Round a ring-list limit up to a multiple of 2.5 1/nm, so the cached lists are reused."""
+    return float(math.ceil(g_inv_nm / 2.5) * 2.5)
+
+
 def match_scale(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm_per_px: float | None = None,
                 scale_sigma_rel: float = 0.005, scale_range=PLAUSIBLE_SCALE_INV_NM_PER_PX, tol_rel: float = 0.01,
                 n_best: int = 3, seeds: Sequence[float] = ()) -> list[RingMatch]:
@@ -369,7 +378,7 @@ def match_scale(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm_per
     for ph in phases:
         g_need = obs.r_max_px * (scale_inv_nm_per_px * (1 + 5 * scale_sigma_rel) if scale_inv_nm_per_px else
                                  scale_range[1])
-        lines.append(ring_lines(ph, float(min(max(g_need * 1.05, 4.0), MAX_LINE_G_INV_NM))))
+        lines.append(ring_lines(ph, _quantised_g(min(max(g_need * 1.05, 4.0), MAX_LINE_G_INV_NM))))
     prior = None if scale_inv_nm_per_px is None else (float(scale_inv_nm_per_px), float(scale_sigma_rel))
     lo, hi = scale_range
     if prior is not None:
@@ -400,7 +409,7 @@ def match_scale(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm_per
     for s in picked:
         g_out = obs.r_max_px * s * 1.05
         if g_out > min(ln.max_g_inv_nm for ln in lines):  # rings beyond the lists: extend them for this scale
-            lines_s = [ring_lines(ln.phase, float(min(max(g_out, ln.max_g_inv_nm), MAX_EXTENDED_G_INV_NM)))
+            lines_s = [ring_lines(ln.phase, _quantised_g(min(max(g_out, ln.max_g_inv_nm), MAX_EXTENDED_G_INV_NM)))
                        for ln in lines]
         else:
             lines_s = lines
