@@ -25,7 +25,7 @@ import numpy as np
 
 from saed.crystal.phase import Phase
 from saed.crystal.reflections import reflection_table
-from saed.crystal.symmetry import plane_family
+from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
 
 __all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM"]
@@ -71,10 +71,22 @@ class RingLines:
                         for fam in self.families[i])
 
 
-def _representative(members: np.ndarray) -> tuple[int, int, int]:
-    """The family member with most non-negative indices, then the lexicographically largest."""
-    key = [(int((m >= 0).sum()), tuple(int(v) for v in m)) for m in members]
-    return max(key)[1]
+def _family_keys(hkl: np.ndarray, space_group: str) -> tuple[np.ndarray, np.ndarray]:
+    """For every reflection, its family's representative and an integer key of it.
+
+    The representative is the member (under the Laue group) with most non-negative indices, then the
+    lexicographically largest; members of one family share it. Vectorised over the whole table.
+    """
+    if len(hkl) == 0:
+        return np.zeros((0, 3), np.int64), np.zeros(0, np.int64)
+    orbit = np.einsum("ni,rij->nrj", hkl, laue_rotations(space_group))  # plane indices transform as rows
+    span = int(np.abs(orbit).max()) + 1
+    base = 2 * span + 1
+    lex = ((orbit[..., 0] + span) * base + (orbit[..., 1] + span)) * base + (orbit[..., 2] + span)
+    key = (orbit >= 0).sum(-1) * base**3 + lex
+    best = np.argmax(key, axis=1)
+    rows = np.arange(len(hkl))
+    return orbit[rows, best], key[rows, best]
 
 
 @lru_cache(maxsize=256)
@@ -96,38 +108,30 @@ def ring_lines(phase: Phase, max_g_inv_nm: float = DEFAULT_MAX_G_INV_NM) -> Ring
     table = reflection_table(phase, g_max)
     keep = table.allowed
     hkl, g, f2 = table.hkl[keep], table.g_inv_nm[keep], table.intensity[keep]
-    rings_g, rings_f2, rings_m, rings_fams = [], [], [], []
-    start = 0
-    n = len(g)
-    while start < n:
-        stop = start + 1
-        while stop < n and g[stop] - g[start] <= SAME_RING_REL * g[start]:
-            stop += 1
-        members = hkl[start:stop]
-        member_f2 = f2[start:stop]
-        done = np.zeros(len(members), bool)
-        fams = []
-        for i in range(len(members)):
-            if done[i]:
-                continue
-            fam = plane_family(members[i], phase.space_group)
-            in_fam = (members[:, None, :] == fam[None, :, :]).all(-1).any(-1)
-            done |= in_fam
-            fams.append((float(member_f2[in_fam].sum()), _representative(members[in_fam])))
-        fams.sort(key=lambda t: (-t[0], t[1]))
-        rings_g.append(float(g[start:stop].mean()))
-        rings_f2.append(float(member_f2.sum()))
-        rings_m.append(stop - start)
-        rings_fams.append(tuple(f[1] for f in fams))
-        start = stop
-    g_arr = np.array(rings_g, float)
-    f2_arr = np.array(rings_f2, float)
+    rep, fam_key = _family_keys(hkl, phase.space_group)
+    # Rings: runs of equal |g| (the table is sorted by |g|).
+    new_ring = np.ones(len(g), bool)
+    if len(g) > 1:
+        new_ring[1:] = np.diff(g) > SAME_RING_REL * g[:-1]
+    ring_id = np.cumsum(new_ring) - 1
+    n_rings = int(ring_id[-1]) + 1 if len(g) else 0
+    count = np.bincount(ring_id, minlength=n_rings)
+    g_arr = np.bincount(ring_id, weights=g, minlength=n_rings) / np.maximum(count, 1)
+    f2_arr = np.bincount(ring_id, weights=f2, minlength=n_rings)
+    # Families within each ring, strongest first.
+    pair, first, inverse = np.unique(np.stack([ring_id, fam_key], axis=1), axis=0, return_index=True,
+                                     return_inverse=True)
+    fam_f2 = np.bincount(inverse.ravel(), weights=f2, minlength=len(pair))
+    rings_fams = [[] for _ in range(n_rings)]
+    for k in np.lexsort((pair[:, 1], -fam_f2, pair[:, 0])):
+        rings_fams[int(pair[k, 0])].append(tuple(int(v) for v in rep[first[k]]))
+    rings_fams = [tuple(f) for f in rings_fams]
     d_arr = 1.0 / g_arr if len(g_arr) else np.zeros(0)
     w = f2_arr * d_arr**2
     if len(w) and w.max() > 0:
         w = w / w.max()
     arrays = dict(g_inv_nm=g_arr, d_nm=d_arr, hkl=np.array([f[0] for f in rings_fams], np.int64).reshape(-1, 3),
-                  multiplicity=np.array(rings_m, np.int64), f2_nm2=f2_arr, intensity=w)
+                  multiplicity=count.astype(np.int64), f2_nm2=f2_arr, intensity=w)
     for a in arrays.values():
         a.flags.writeable = False
     return RingLines(phase=phase, max_g_inv_nm=g_max, families=tuple(rings_fams), **arrays)
