@@ -136,3 +136,9 @@ def test_history_groups_by_camera_length_newest_first(tmp_path):
     assert len(problems) == 1 and "notes.json" in problems[0]
     for e in entries:  # every stored file is an ordinary calibration file
         assert read_calibration_file(e.path).scale_inv_nm_per_px == e.calibration.scale_inv_nm_per_px
+
+
+def test_ring_pattern_given_with_zone_is_told_to_drop_it():
+    pat = ring_pattern([builtin_phase("Au")], shape_px=(448, 448), scale_inv_nm_per_px=0.045, rng=9)
+    with pytest.raises(InputError, match="drop --zone"):
+        calibrate_from_zone(pat.image, builtin_phase("Au"), [0, 1, 1])

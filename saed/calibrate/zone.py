@@ -76,6 +76,21 @@ def zone_lattice_basis(zp) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarr
     return xy, hkl, i1, i2
 
 
+def _refuse_ring_pattern(image, mask) -> None:
+    """InputError if `image` is a ring pattern (rings all round the circle): --zone is then wrong."""
+    from saed.errors import SaedError
+    from saed.rings.measure import measure_rings
+
+    try:
+        m = measure_rings(image, mask=mask)
+    except SaedError:
+        return
+    cov = m.coverage[np.isfinite(m.coverage)]
+    if len(cov) and float(np.median(cov)) > 0.7:
+        raise InputError(f"this is a ring pattern ({len(m.rings)} rings, each seen all round): drop --zone to "
+                         "calibrate from the rings")
+
+
 def _ratio_angle(a, b) -> tuple[float, float]:
     na, nb = math.hypot(*a), math.hypot(*b)
     ang = math.degrees(math.atan2(abs(a[0] * b[1] - a[1] * b[0]), a[0] * b[0] + a[1] * b[1]))
@@ -99,6 +114,7 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
     hint = Calibration(voltage_kv=v, center_px=tuple(center_px) if center_px is not None else None)
     mp = measure_pattern(np.asarray(image, dtype=np.float32), hint, mask=mask)
     if mp.basis is None:
+        _refuse_ring_pattern(image, mask)
         raise InputError(f"found {len(mp.spots)} spots but no 2-D lattice: a zone calibration needs a single-crystal "
                          "pattern with at least two independent reflections (a ring pattern? drop --zone)")
     g1, g2 = np.asarray(mp.basis.g1_px, float), np.asarray(mp.basis.g2_px, float)
@@ -118,6 +134,7 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
             if abs(r / ratio_m - 1) <= RATIO_TOL and abs(ang - angle_m) <= ANGLE_TOL_DEG:
                 cands.append((a, b))
     if not cands:
+        _refuse_ring_pattern(image, mask)
         r0, a0 = _ratio_angle(xy[i1], xy[i2])
         raise InputError(
             f"the pattern's lattice (|g2|/|g1| = {ratio_m:.3f}, angle {angle_m:.1f} deg) does not match {standard.name} "
