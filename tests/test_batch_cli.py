@@ -249,3 +249,15 @@ def test_tiff_tags_calibrate_when_no_scale_is_given_and_mask_applies(scheduler, 
                  "--mask", str(mask_png)]) == 0
     (masked,) = read_rows(out2)
     assert 0 < masked.n_spots < row.n_spots
+
+
+def test_sigterm_ends_a_run_like_ctrl_c():
+    # a cluster's time limit sends SIGTERM: the run must stop through the same clean path as Ctrl-C
+    from saed.cli.cmd_batch import _terminate_as_interrupt
+
+    before = signal.getsignal(signal.SIGTERM)
+    with pytest.raises(KeyboardInterrupt):
+        with _terminate_as_interrupt():
+            os.kill(os.getpid(), signal.SIGTERM)
+            time.sleep(5)                           # interrupted long before this ends
+    assert signal.getsignal(signal.SIGTERM) is before
