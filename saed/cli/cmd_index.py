@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import sys
 
-from saed.cli.common import (add_calibration_options, add_phase_option, calibration_from_args, finite_float,
-                             phases_from_args, positive_float, write_json)
+from saed.cli.common import (add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
+                             matching_options_from_args, phases_from_args, write_json)
 from saed.errors import InputError
 
 NAME = "index"
@@ -28,19 +28,7 @@ def add_arguments(p):
     p.add_argument("--mask", metavar="PNG", help="mask image of the same size: non-zero pixels are ignored")
     add_phase_option(p)
     add_calibration_options(p)
-    g = p.add_argument_group("matching")
-    g.add_argument("--top", type=int, default=5, metavar="N", help="solutions to list (default 5)")
-    g.add_argument("--length-tol", type=positive_float, metavar="PCT",
-                   help="tolerance of the calibrated scale, percent (default 3)")
-    g.add_argument("--angle-tol", type=positive_float, metavar="DEG",
-                   help="tolerance of the angle between two spots, degrees (default 2)")
-    g.add_argument("--max-g", type=positive_float, metavar="INV_NM",
-                   help="largest |g| considered, 1/nm (default 16, or the largest measured spot)")
-    g.add_argument("--max-zone-index", type=int, default=7, metavar="N",
-                   help="largest zone-axis index considered, 3-index conventional cell (default 7)")
-    g.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
-                   help="direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), "
-                        "to give the mistilt correction as alpha/beta")
+    add_matching_options(p)
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
     out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
@@ -53,10 +41,7 @@ def check_outputs(args) -> None:
 
     from saed.report.files import check_writable
 
-    if args.top < 1:
-        raise InputError(f"--top {args.top}: give at least 1")
-    if not 1 <= args.max_zone_index <= 20:
-        raise InputError(f"--max-zone-index {args.max_zone_index}: give 1 to 20")
+    matching_options_from_args(args)  # range checks before any work
     if args.frame is not None and args.frame < 0:
         raise InputError(f"--frame {args.frame}: frames are numbered from 0")
     if args.json and args.json != "-":
@@ -99,8 +84,7 @@ def run(args) -> int:
     insp = inspect_file(args.image, cal, frame=args.frame, mask_path=args.mask)
     measured = insp.measured
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
-    result = index_pattern(measured, tables, top=args.top, angle_tol_deg=args.angle_tol, length_tol_pct=args.length_tol,
-                           holder_alpha_axis_deg=args.alpha_axis, max_zone_index=args.max_zone_index)
+    result = index_pattern(measured, tables, top=args.top, **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
     print(format_summary(result, image=args.image, frame=args.frame, top=args.top), file=out)
     if args.json:

@@ -85,7 +85,10 @@ def add_matching_options(p: argparse.ArgumentParser) -> None:
                    help="tolerance of the calibrated scale, percent (default 3)")
     g.add_argument("--angle-tol", type=positive_float, metavar="DEG",
                    help="tolerance of the angle between two spots, degrees (default 2)")
-    g.add_argument("--max-g", type=positive_float, metavar="INV_NM", help="largest |g| considered, 1/nm")
+    g.add_argument("--max-g", type=positive_float, metavar="INV_NM",
+                   help="largest |g| considered, 1/nm (default: as far as the measured spots reach)")
+    g.add_argument("--max-zone-index", type=int, default=7, metavar="N",
+                   help="largest zone-axis index considered, 3-index conventional cell (default 7)")
     g.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
                    help="direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), "
                         "to give the mistilt correction as alpha/beta")
@@ -95,8 +98,10 @@ def matching_options_from_args(args) -> dict:
     """Keyword options of :func:`saed.index.index_pattern` from :func:`add_matching_options` arguments."""
     if args.top < 1:
         raise InputError(f"--top {args.top}: give at least 1")
+    if not 1 <= args.max_zone_index <= 20:
+        raise InputError(f"--max-zone-index {args.max_zone_index}: give 1 to 20")
     return {"angle_tol_deg": args.angle_tol, "length_tol_pct": args.length_tol,
-            "holder_alpha_axis_deg": args.alpha_axis}
+            "holder_alpha_axis_deg": args.alpha_axis, "max_zone_index": args.max_zone_index}
 
 
 def write_json(path: str, obj) -> None:
