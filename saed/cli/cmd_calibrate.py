@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from saed.cli.common import finite_float, positive_float, write_json
+from saed.cli.common import add_image_arguments, finite_float, positive_float, write_json
 from saed.errors import InputError
 
 NAME = "calibrate"
@@ -31,8 +31,7 @@ def add_arguments(p):
                    help="the microscope's nominal camera-length setting, mm: files the calibration under it and "
                         "reports the measured value beside it")
     p.add_argument("--center", type=finite_float, nargs=2, metavar=("X", "Y"), help="pattern centre hint, pixels")
-    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame image (default the first)")
-    p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
+    add_image_arguments(p, positional=False)
     p.add_argument("--no-ellipse", action="store_true", help="assume circular rings (do not fit the ellipse)")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
     p.add_argument("--tolerance", type=positive_float, default=1.0, metavar="PCT",

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from saed.cli.common import (add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
+from saed.cli.common import (add_image_arguments, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
                              matching_options_from_args, phases_from_args, write_json)
 from saed.errors import InputError
 
@@ -23,9 +23,7 @@ ORDER = 10
 
 
 def add_arguments(p):
-    p.add_argument("image", metavar="IMAGE", help="recorded pattern (TIFF, PNG, JPEG or .npy)")
-    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0)")
-    p.add_argument("--mask", metavar="PNG", help="mask image of the same size: non-zero pixels are ignored")
+    add_image_arguments(p)
     add_phase_option(p)
     add_calibration_options(p)
     add_matching_options(p)

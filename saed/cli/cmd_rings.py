@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from saed.cli.common import add_calibration_options, add_phase_option, calibration_from_args, phases_from_args, \
+from saed.cli.common import add_image_arguments, add_calibration_options, add_phase_option, calibration_from_args, phases_from_args, \
     positive_float, write_json
 from saed.errors import InputError
 
@@ -23,7 +23,7 @@ DEFAULT_SCALE_TOLERANCE_PCT = {"file": 0.5, "options": 2.0}
 
 
 def add_arguments(p):
-    p.add_argument("image", metavar="IMAGE", help="ring pattern (TIFF, PNG, JPEG or .npy)")
+    add_image_arguments(p, what="ring pattern")
     add_phase_option(p)
     add_calibration_options(p, center=True)
     p.add_argument("--scale-tolerance", type=positive_float, metavar="PCT",
@@ -31,8 +31,6 @@ def add_arguments(p):
                         "file, 2 with --scale or --camera-length: a nominal camera length is rarely better)")
     p.add_argument("--tolerance", type=positive_float, default=1.0, metavar="PCT",
                    help="largest misfit of a ring to a phase's line, %% (default 1)")
-    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame image (default the first)")
-    p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
     p.add_argument("--top", type=int, default=5, metavar="N", help="solutions listed (default 5)")
     p.add_argument("--no-mixtures", action="store_true", help="do not try mixtures of two phases")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 import sys
 
-from saed.cli.common import add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.cli.common import add_image_arguments, add_calibration_options, calibration_from_args, positive_float, write_json
 from saed.errors import InputError
 
 NAME = "spots"
@@ -24,9 +24,7 @@ SHOWN_SPOTS = 12
 
 
 def add_arguments(p):
-    p.add_argument("image", metavar="IMAGE", help="recorded pattern (TIFF, PNG, JPEG or .npy)")
-    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0; default 0)")
-    p.add_argument("--mask", metavar="PNG", help="mask image of the same size: non-zero pixels are ignored")
+    add_image_arguments(p)
     add_calibration_options(p)
     g = p.add_argument_group("detection")
     g.add_argument("--snr-min", type=positive_float, default=None, metavar="SNR",

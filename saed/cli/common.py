@@ -13,7 +13,7 @@ from saed.crystal.phase import Phase, builtin_names, load_phase
 from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
-__all__ = ["add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
+__all__ = ["add_image_arguments", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
            "write_json", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
 
 
@@ -32,6 +32,15 @@ def positive_float(text: str) -> float:
     if v <= 0:
         raise argparse.ArgumentTypeError(f"{text!r} must be positive")
     return v
+
+
+def add_image_arguments(p: argparse.ArgumentParser, *, what: str = "recorded pattern",
+                        positional: bool = True) -> None:
+    """The IMAGE argument with --frame and --mask, as every single-pattern command takes them."""
+    if positional:
+        p.add_argument("image", metavar="IMAGE", help=f"{what} (TIFF, PNG, JPEG or .npy)")
+    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0; default 0)")
+    p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
 
 
 def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) -> None:
