@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from saed.cli.common import (add_image_arguments, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
+from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
                              matching_options_from_args, phases_from_args, write_json)
 from saed.errors import InputError
 
@@ -37,17 +37,8 @@ def check_outputs(args) -> None:
     """Fail before any work when an output cannot be written (nothing is lost later)."""
     from pathlib import Path
 
-    from saed.report.files import check_writable
-
     matching_options_from_args(args)  # range checks before any work
-    if args.frame is not None and args.frame < 0:
-        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
-    if args.json and args.json != "-":
-        check_writable(args.json)
-    if args.overlay:
-        if not args.overlay.lower().endswith((".png", ".pdf", ".svg")):
-            raise InputError(f"--overlay {args.overlay}: must end in .png (or .pdf, .svg)")
-        check_writable(args.overlay)
+    check_frame_and_outputs(args)
     if args.report:
         d = Path(args.report)
         if d.exists() and not d.is_dir():

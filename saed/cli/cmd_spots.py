@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 import sys
 
-from saed.cli.common import add_image_arguments, add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.cli.common import add_image_arguments, check_frame_and_outputs, add_calibration_options, calibration_from_args, positive_float, write_json
 from saed.errors import InputError
 
 NAME = "spots"
@@ -39,16 +39,7 @@ def add_arguments(p):
 
 
 def _check_args(args):
-    from saed.report.files import check_writable
-
-    if args.frame is not None and args.frame < 0:
-        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
-    if args.json and args.json != "-":
-        check_writable(args.json)
-    if args.overlay:
-        if not args.overlay.lower().endswith((".png", ".pdf", ".svg")):
-            raise InputError(f"--overlay {args.overlay}: must end in .png (or .pdf, .svg)")
-        check_writable(args.overlay)
+    check_frame_and_outputs(args)
     if args.json == "-" and args.overlay == "-":
         raise InputError("--overlay needs a file name")
 

@@ -13,7 +13,7 @@ from saed.crystal.phase import Phase, builtin_names, load_phase
 from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
-__all__ = ["add_image_arguments", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
+__all__ = ["add_image_arguments", "check_frame_and_outputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
            "write_json", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
 
 
@@ -41,6 +41,20 @@ def add_image_arguments(p: argparse.ArgumentParser, *, what: str = "recorded pat
         p.add_argument("image", metavar="IMAGE", help=f"{what} (TIFF, PNG, JPEG or .npy)")
     p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0; default 0)")
     p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
+
+
+def check_frame_and_outputs(args) -> None:
+    """Before any work: a valid --frame, and --json / --overlay files that can be written (nothing is lost later)."""
+    from saed.report.files import check_writable
+
+    if args.frame is not None and args.frame < 0:
+        raise InputError(f"--frame {args.frame}: frames are numbered from 0")
+    if args.json and args.json != "-":
+        check_writable(args.json)
+    if args.overlay:
+        if not args.overlay.lower().endswith((".png", ".pdf", ".svg")):
+            raise InputError(f"--overlay {args.overlay}: must end in .png (or .pdf, .svg)")
+        check_writable(args.overlay)
 
 
 def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) -> None:
