@@ -38,14 +38,7 @@ class Binned:
         mr, mc = -(-nr // k), -(-nc // k)
         w = np.where(np.isfinite(self.image), self.valid_fraction, 0.0).astype(np.float32)
         v = np.where(w > 0, self.image, 0.0).astype(np.float32) * w
-        pr, pc = mr * k - nr, mc * k - nc
-        if pr or pc:
-            v = np.pad(v, ((0, pr), (0, pc)))
-            w = np.pad(w, ((0, pr), (0, pc)))
-        sv = _block_sum(v, mr, mc, k)
-        sw = _block_sum(w, mr, mc, k)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.where(sw > 0, sv / np.maximum(sw, 1e-12), np.nan).astype(np.float32)
+        mean, sw = _weighted_block_mean(v, w, mr, mc, k)
         return Binned(mean, (sw / (k * k)).astype(np.float32), self.factor * k, self.full_shape)
 
     def to_binned_px(self, x, y):
@@ -68,6 +61,24 @@ def _block_sum(a: np.ndarray, nr: int, nc: int, f: int) -> np.ndarray:
     return out
 
 
+def _pad_to_blocks(a: np.ndarray, nr: int, nc: int, f: int) -> np.ndarray:
+    """`a` padded with zeros to nr x nc whole f x f blocks."""
+    pr, pc = nr * f - a.shape[0], nc * f - a.shape[1]
+    return np.pad(a, ((0, pr), (0, pc))) if pr or pc else a
+
+
+def _weighted_block_mean(values: np.ndarray, weights: np.ndarray, nr: int, nc: int, f: int):
+    """(mean of `values` weighted by `weights` over f x f blocks, NaN where the weights sum to 0; weight sums).
+
+    `values` must already carry the weights (values * weights).
+    """
+    s = _block_sum(_pad_to_blocks(values, nr, nc, f), nr, nc, f)
+    n = _block_sum(_pad_to_blocks(weights, nr, nc, f), nr, nc, f)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(n > 0, s / np.maximum(n, 1e-12), np.nan).astype(np.float32)
+    return mean, n
+
+
 def bin_image(image: np.ndarray, valid: np.ndarray | None = None, *, factor: int | None = None) -> Binned:
     """Mean over f x f blocks of the valid pixels (the ragged last row/column of blocks is averaged too)."""
     rows, cols = image.shape
@@ -79,21 +90,11 @@ def bin_image(image: np.ndarray, valid: np.ndarray | None = None, *, factor: int
         if valid is not None:
             img[~valid] = np.nan
         return Binned(img, vf, 1, (rows, cols))
-    pr, pc = nr * f - rows, nc * f - cols
     w = np.ones((rows, cols), np.float32) if valid is None else valid.astype(np.float32)
     img = image * w if valid is not None else image
-    if pr or pc:
-        img = np.pad(img, ((0, pr), (0, pc)))
-        w = np.pad(w, ((0, pr), (0, pc)))
-    s = _block_sum(img, nr, nc, f)
-    n = _block_sum(w, nr, nc, f)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(n > 0, s / np.maximum(n, 1), np.nan).astype(np.float32)
+    mean, n = _weighted_block_mean(img, w, nr, nc, f)
     # Each block's valid fraction relative to the pixels that exist in it (ragged edge blocks).
-    exist = np.ones((rows, cols), np.float32)
-    if pr or pc:
-        exist = np.pad(exist, ((0, pr), (0, pc)))
-    e = _block_sum(exist, nr, nc, f)
+    e = _block_sum(_pad_to_blocks(np.ones((rows, cols), np.float32), nr, nc, f), nr, nc, f)
     return Binned(mean, (n / e).astype(np.float32), f, (rows, cols))
 
 
