@@ -16,8 +16,8 @@ from pathlib import Path
 from saed import physics
 from saed.errors import InputError
 
-__all__ = ["Ellipse", "Calibration", "calibration_from_options", "read_calibration_file",
-           "write_calibration_file", "CALIBRATION_FORMAT"]
+__all__ = ["Ellipse", "Calibration", "calibration_from_options", "read_calibration_file", "read_calibration_document",
+           "validate_calibration_dict", "parse_calibration_date", "write_calibration_file", "CALIBRATION_FORMAT"]
 
 #: The ``format`` field of a saed calibration file.
 CALIBRATION_FORMAT = "saed-calibration-1"
@@ -37,8 +37,11 @@ class Ellipse:
         r = float(self.axis_ratio)
         if not math.isfinite(r) or r < 1.0 or r > 1.5:
             raise InputError(f"ellipse axis ratio {self.axis_ratio!r} must lie between 1 and 1.5")
+        a = float(self.major_axis_angle_deg)
+        if not math.isfinite(a):
+            raise InputError(f"ellipse long-axis angle {self.major_axis_angle_deg!r} must be a finite number of degrees")
         object.__setattr__(self, "axis_ratio", r)
-        object.__setattr__(self, "major_axis_angle_deg", float(self.major_axis_angle_deg) % 180.0)
+        object.__setattr__(self, "major_axis_angle_deg", a % 180.0)
 
     def corrected_px(self, dx_px, dy_px):
         """Undo the distortion of offsets (dx, dy) from the pattern centre; returns (dx', dy') in px.
@@ -174,45 +177,141 @@ def calibration_from_options(*, scale_inv_nm_per_px=None, camera_length_mm=None,
 
 def read_calibration_file(path) -> Calibration:
     """Read a calibration file written by ``saed calibrate``; anything else is a one-line InputError."""
+    return read_calibration_document(path)[0]
+
+
+def read_calibration_document(path) -> tuple[Calibration, dict]:
+    """(Calibration, the whole JSON object) of a calibration file, every field checked (:func:`validate_calibration_dict`)."""
+    from saed.files import read_json_file
+
     p = Path(path)
+    if not p.exists():
+        raise InputError(f"{path}: no such calibration file")
+    d = read_json_file(p, what="a saed calibration file")
+    return validate_calibration_dict(d, where=str(path)), d
+
+
+#: Fields of a calibration file (and its history extras) that hold one number: (lowest, highest, may be 0).
+_NUMBER_FIELDS = {
+    "voltage_kv": (None, None, False),  # range checked by physics.check_voltage_kv
+    "wavelength_nm": (0.0, 1.0, False),
+    "camera_length_mm": (0.0, 1e6, False),
+    "camera_constant_nm_mm": (0.0, 1e6, False),
+    "pixel_pitch_um": (0.0, 1e4, False),
+    "nominal_camera_length_mm": (0.0, 1e6, False),
+    "residual_pct": (0.0, 100.0, True),
+    "scale_sigma_pct": (0.0, 100.0, True),
+    "n_rings_used": (0.0, 1e4, True),
+}
+_TEXT_FIELDS = ("standard", "date", "image", "kind")
+
+
+def _number(d: dict, key: str, where: str):
+    """d[key] as a float (None if absent or null); a bool, text, NaN, infinity or out-of-range value is refused."""
+    v = d.get(key)
+    if v is None:
+        return None
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise InputError(f"{where}: field {key} is {v!r}, not a number")
+    v = float(v)
+    if not math.isfinite(v):
+        raise InputError(f"{where}: field {key} is {v!r}, not a finite number")
+    lo, hi, zero_ok = _NUMBER_FIELDS.get(key, (None, None, True))
+    if lo is not None and (v < lo or (v == lo and not zero_ok) or v > hi):
+        raise InputError(f"{where}: field {key} = {v:g} is outside {'[' if zero_ok else '('}{lo:g}, {hi:g}]")
+    return v
+
+
+def parse_calibration_date(text):
+    """A calibration date (ISO 8601 text) as an aware datetime (a date without a UTC offset is local time).
+
+    >>> parse_calibration_date("2026-03-01T10:00:00+02:00") < parse_calibration_date("2026-03-01T09:30:00+00:00")
+    True
+    """
+    import datetime as _dt
+
+    if not isinstance(text, str):
+        raise InputError(f"date {text!r} is not ISO 8601 text (e.g. 2026-03-01T22:15:00+01:00)")
     try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such calibration file") from None
-    except (OSError, UnicodeError) as exc:
-        raise InputError(f"{path}: cannot read the calibration file ({exc.__class__.__name__})") from None
-    try:
-        d = json.loads(text)
-    except json.JSONDecodeError:
-        raise InputError(f"{path}: not a saed calibration file (not JSON)") from None
+        t = _dt.datetime.fromisoformat(text.strip())
+    except ValueError:
+        raise InputError(f"date {text[:40]!r} is not an ISO 8601 date-time (e.g. 2026-03-01T22:15:00+01:00)") from None
+    return t if t.tzinfo is not None else t.astimezone()
+
+
+def validate_calibration_dict(d, *, where: str) -> Calibration:
+    """The Calibration in a parsed calibration file; every field's type and range is checked.
+
+    Each refusal is one InputError naming the file (`where`) and the field, e.g. ``scale: true``
+    is not read as 1.0 and an infinite ellipse angle is not wrapped into NaN.
+    """
     if not isinstance(d, dict) or d.get("format") != CALIBRATION_FORMAT:
-        raise InputError(f"{path}: not a saed calibration file (no \"format\": \"{CALIBRATION_FORMAT}\")")
+        raise InputError(f"{where}: not a saed calibration file (no \"format\": \"{CALIBRATION_FORMAT}\")")
     if d.get("scale_inv_nm_per_px") is None:
-        raise InputError(f"{path}: the calibration file has no scale_inv_nm_per_px")
+        raise InputError(f"{where}: the calibration file has no scale_inv_nm_per_px")
+    scale = _number(d, "scale_inv_nm_per_px", where)
+    nums = {k: _number(d, k, where) for k in _NUMBER_FIELDS}
+    for key in _TEXT_FIELDS:
+        v = d.get(key)
+        if v is not None and (not isinstance(v, str) or len(v) > 4096):
+            raise InputError(f"{where}: field {key} is {str(v)[:40]!r}, not a text")
+    if d.get("date") is not None:
+        try:
+            parse_calibration_date(d["date"])
+        except InputError as exc:
+            raise InputError(f"{where}: field date: {exc}") from None
+    if d.get("n_rings_used") is not None and nums["n_rings_used"] != int(nums["n_rings_used"]):
+        raise InputError(f"{where}: field n_rings_used = {nums['n_rings_used']:g} is not a whole number")
+    centre = d.get("center_px")
+    if centre is not None:
+        if not isinstance(centre, list) or len(centre) != 2:
+            raise InputError(f"{where}: field center_px is {str(centre)[:40]}, not two pixel coordinates [x, y]")
+        centre = tuple(_number({"center_px": c}, "center_px", where) for c in centre)
+        if any(c is None or abs(c) > 1e6 for c in centre):
+            raise InputError(f"{where}: field center_px {list(centre)} is not two pixel coordinates within 1e6 px")
+    ell = d.get("ellipse")
+    ellipse = None
+    if ell is not None:
+        if not isinstance(ell, dict) or "axis_ratio" not in ell or "major_axis_angle_deg" not in ell:
+            raise InputError(f"{where}: field ellipse is {str(ell)[:40]}, not {{axis_ratio, major_axis_angle_deg}}")
+        ratio = _number({"ellipse.axis_ratio": ell["axis_ratio"]}, "ellipse.axis_ratio", where)
+        angle = _number({"ellipse.major_axis_angle_deg": ell["major_axis_angle_deg"]}, "ellipse.major_axis_angle_deg", where)
+        if ratio is None or angle is None:
+            raise InputError(f"{where}: field ellipse needs both axis_ratio and major_axis_angle_deg")
+        try:
+            ellipse = Ellipse(ratio, angle)
+        except InputError as exc:
+            raise InputError(f"{where}: field ellipse: {exc}") from None
+    zone = d.get("zone_axis")
+    if zone is not None and (not isinstance(zone, list) or not 3 <= len(zone) <= 4
+                             or any(_number({"zone_axis": z}, "zone_axis", where) is None for z in zone)):
+        raise InputError(f"{where}: field zone_axis is {str(zone)[:40]}, not 3 or 4 indices")
     try:
-        ell = d.get("ellipse")
-        return Calibration(
-            scale_inv_nm_per_px=d["scale_inv_nm_per_px"],
-            voltage_kv=d.get("voltage_kv", 200.0),
-            center_px=tuple(d["center_px"]) if d.get("center_px") else None,
-            ellipse=Ellipse(ell["axis_ratio"], ell["major_axis_angle_deg"]) if ell else None,
-            camera_length_mm=d.get("camera_length_mm"),
-            pixel_pitch_um=d.get("pixel_pitch_um"),
+        physics.check_voltage_kv(200.0 if nums["voltage_kv"] is None else nums["voltage_kv"])
+        cal = Calibration(
+            scale_inv_nm_per_px=scale,
+            voltage_kv=200.0 if nums["voltage_kv"] is None else nums["voltage_kv"],
+            center_px=centre,
+            ellipse=ellipse,
+            camera_length_mm=nums["camera_length_mm"],
+            pixel_pitch_um=nums["pixel_pitch_um"],
             standard=d.get("standard"),
             date=d.get("date"),
-            source=str(p),
+            source=where,
         )
-    except (KeyError, TypeError, ValueError) as exc:
-        if isinstance(exc, InputError):
-            raise InputError(f"{path}: {exc}") from None
-        raise InputError(f"{path}: malformed calibration file ({exc.__class__.__name__}: {exc})") from None
+    except InputError as exc:
+        field_ = "voltage_kv" if "voltage" in str(exc) else "scale_inv_nm_per_px"
+        raise InputError(f"{where}: field {field_}: {exc}") from None
+    if nums["wavelength_nm"] is not None and abs(nums["wavelength_nm"] / cal.wavelength_nm - 1) > 1e-3:
+        raise InputError(f"{where}: field wavelength_nm = {nums['wavelength_nm']:g} contradicts voltage_kv = "
+                         f"{cal.voltage_kv:g} (lambda {cal.wavelength_nm:.6f} nm)")
+    return cal
 
 
 def write_calibration_file(cal: Calibration, path, **extra) -> None:
-    """Write `cal` as a saed calibration file (JSON), atomically (temporary file then rename)."""
-    p = Path(path)
+    """Write `cal` as a saed calibration file (JSON), atomically (:func:`saed.files.atomic_write_text`)."""
+    from saed.files import atomic_write_text
+
     d = cal.to_json()
     d.update(extra)
-    tmp = p.with_name(p.name + ".tmp")
-    tmp.write_text(json.dumps(d, indent=2) + "\n", encoding="utf-8")
-    tmp.replace(p)
+    atomic_write_text(path, json.dumps(d, indent=2, allow_nan=False) + "\n")

@@ -12,6 +12,13 @@ saed writes nowhere else unless asked (``--out``). Each file is an ordinary cali
 in the name is the nominal one the operator gave (``--camera-length``, the microscope's setting),
 else the one measured. The list groups files by that camera length, newest first, so the operator
 at the microscope picks the latest calibration of the setting in use.
+
+Nothing is lost when several calibrations are filed at the same moment: each file is created
+exclusively (:func:`saed.files.create_new_file`: a name already taken is never replaced, the next
+free ``_2``, ``_3``... is used), and the file and the folder are fsynced. Reading checks every
+entry (:func:`saed.calibration.validate_calibration_dict`); an entry that fails is listed as
+unreadable with the reason and is never chosen. Dates are compared as date-times (a date without a
+UTC offset counts as local time), not as text.
 """
 
 from __future__ import annotations
@@ -23,11 +30,11 @@ import sys
 from dataclasses import dataclass
 from pathlib import Path
 
-from saed.calibration import CALIBRATION_FORMAT, Calibration, read_calibration_file
+from saed.calibration import Calibration, parse_calibration_date, validate_calibration_dict
 from saed.errors import InputError
-from saed.report.files import atomic_write_text
+from saed.files import create_new_file, read_json_file
 
-__all__ = ["HistoryEntry", "history_folder", "store_calibration", "list_calibrations", "ENV_VAR"]
+__all__ = ["HistoryEntry", "history_folder", "store_calibration", "list_calibrations", "read_history_entry", "ENV_VAR"]
 
 #: Environment variable naming the calibration-history folder.
 ENV_VAR = "SAED_CALIBRATION_DIR"
@@ -41,6 +48,11 @@ class HistoryEntry:
     calibration: Calibration
     nominal_camera_length_mm: float | None
     residual_pct: float | None
+
+    @property
+    def when(self):
+        """The calibration date as an aware datetime (None if undated); checked when the entry was read."""
+        return None if self.calibration.date is None else parse_calibration_date(self.calibration.date)
 
     @property
     def label_mm(self) -> float | None:
@@ -80,23 +92,26 @@ def store_calibration(cal: Calibration, folder, *, nominal_camera_length_mm: flo
     stamp = re.sub(r"[^0-9]", "", (cal.date or "")[:19]) or "undated"
     stamp = f"{stamp[:8]}-{stamp[8:]}" if len(stamp) == 14 else stamp
     name = f"{label}_{stamp}_{_slug(cal.standard or 'standard')}"
-    path = root / f"{name}.json"
-    k = 2
-    while path.exists():
-        path = root / f"{name}_{k}.json"
-        k += 1
     d = cal.to_json()
     d["nominal_camera_length_mm"] = nominal_camera_length_mm
     d.update(extra)
-    atomic_write_text(path, json.dumps(d, indent=2, allow_nan=False) + "\n")
-    return path
+    data = (json.dumps(d, indent=2, allow_nan=False) + "\n").encode("utf-8")
+    for k in range(1, MAX_SAME_NAME + 1):
+        path = root / (f"{name}.json" if k == 1 else f"{name}_{k}.json")
+        if create_new_file(path, data):
+            return path
+    raise InputError(f"{root}: {MAX_SAME_NAME} calibrations named {name} already; clear out the history folder")
+
+
+#: Files of one camera length, date and standard before filing gives up (a runaway script, not a lab).
+MAX_SAME_NAME = 1000
 
 
 def list_calibrations(folder) -> tuple[list[HistoryEntry], list[str]]:
     """Stored calibrations in `folder`, grouped by camera length (ascending) and newest first.
 
-    Returns (entries, problems): files that are not calibration files are skipped and named in
-    `problems`.
+    Returns (entries, problems): a ``*.json`` file that is not a valid calibration file is left out
+    of `entries` and named in `problems` as "unreadable: FILE: reason".
     """
     root = Path(folder)
     if not root.exists():
@@ -106,19 +121,23 @@ def list_calibrations(folder) -> tuple[list[HistoryEntry], list[str]]:
     entries, problems = [], []
     for p in sorted(root.glob("*.json")):
         try:
-            cal = read_calibration_file(p)
-            d = json.loads(p.read_text(encoding="utf-8"))
+            entries.append(read_history_entry(p))
         except InputError as exc:
-            problems.append(str(exc))
-            continue
-        if d.get("format") != CALIBRATION_FORMAT:
-            continue
-        nominal = d.get("nominal_camera_length_mm")
-        res = d.get("residual_pct")
-        entries.append(HistoryEntry(p, cal, float(nominal) if nominal is not None else None,
-                                    float(res) if res is not None else None))
-
-    # Newest first within a camera length (two stable sorts), camera lengths ascending.
-    entries.sort(key=lambda e: e.calibration.date or "", reverse=True)
+            problems.append(f"unreadable: {exc}")
+    # Newest first within a camera length (two stable sorts), camera lengths ascending; undated last.
+    entries.sort(key=lambda e: (e.when is not None, e.when.timestamp() if e.when is not None else 0.0), reverse=True)
     entries.sort(key=lambda e: (e.label_mm is None, round(e.label_mm) if e.label_mm is not None else 0))
     return entries, problems
+
+
+def read_history_entry(path) -> HistoryEntry:
+    """One history file, every field checked; InputError (one line naming the file and field) if it fails."""
+    p = Path(path)
+    d = read_json_file(p, what="a saed calibration file", max_bytes=MAX_ENTRY_BYTES)
+    cal = validate_calibration_dict(d, where=p.name)
+    nominal, res = d.get("nominal_camera_length_mm"), d.get("residual_pct")  # checked by validate_calibration_dict
+    return HistoryEntry(p, cal, None if nominal is None else float(nominal), None if res is None else float(res))
+
+
+#: Largest history file read: an entry is about 1 KB.
+MAX_ENTRY_BYTES = 2**20

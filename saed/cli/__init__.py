@@ -49,8 +49,54 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
         p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show the full traceback on errors")
         mod.add_arguments(p)
-        p.set_defaults(_run=mod.run)
+        p.set_defaults(_run=mod.run, _files=getattr(mod, "FILES", None), _labels=_labels(p))
     return parser
+
+
+def _labels(p: argparse.ArgumentParser) -> dict:
+    """Each argument's name as the user types it: the metavar of a positional, the long option otherwise."""
+    out = {}
+    for a in p._actions:
+        if a.option_strings:
+            out[a.dest] = max(a.option_strings, key=len)
+        elif isinstance(a.metavar, str):
+            out[a.dest] = a.metavar
+    return out
+
+
+def _run(args) -> int:
+    """Run the command; one declaring FILES = (inputs, outputs) is checked first and writes all or nothing."""
+    files = getattr(args, "_files", None)
+    if files is None:
+        status = int(args._run(args) or 0)
+    else:
+        from saed.cli.common import check_outputs_not_inputs
+        from saed.files import all_or_nothing
+
+        check_outputs_not_inputs(args, *files)
+        with all_or_nothing():
+            status = int(args._run(args) or 0)
+    sys.stdout.flush()  # a full disk or closed pipe on stdout is reported here, not at exit
+    return status
+
+
+def _silence_stdout() -> None:
+    """After stdout failed: send what is still buffered nowhere, so the exit flush cannot fail again."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+
+
+def _stdout_broken() -> bool:
+    try:
+        sys.stdout.flush()
+    except (OSError, ValueError):
+        return True
+    return False
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -61,7 +107,7 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help(sys.stderr)
         return 2
     try:
-        return int(args._run(args) or 0)
+        return _run(args)
     except SaedError as exc:
         if args.debug:
             raise
@@ -71,7 +117,18 @@ def main(argv: list[str] | None = None) -> int:
         print(f"saed {args.command}: interrupted", file=sys.stderr)
         return 130
     except BrokenPipeError:
+        if _stdout_broken():
+            _silence_stdout()
         return 0
+    except OSError as exc:  # a write the library could not name better (stdout on a full disk, ...)
+        if args.debug:
+            raise
+        where = f"{exc.filename}: " if exc.filename else ""
+        if _stdout_broken():
+            where = where or "standard output: "
+            _silence_stdout()
+        print(f"saed {args.command}: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        return 2
     except MemoryError:
         if args.debug:
             raise

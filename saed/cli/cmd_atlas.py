@@ -13,6 +13,9 @@ DESCRIPTION = (
     "neighbouring zones. Print it before the session."
 )
 ORDER = 32
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("phases",), ("out",))
 
 
 def add_arguments(p):

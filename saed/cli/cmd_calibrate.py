@@ -17,6 +17,9 @@ DESCRIPTION = (
     "(see --history); 'saed calibrate --list' shows it per camera length."
 )
 ORDER = 30
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("image", "mask", "standard"), ("json", "out", "plot"))
 
 
 def add_arguments(p):
@@ -105,8 +108,8 @@ def run_list(args) -> int:
                   f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '9.5f'):>9} "
                   f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
         print("* = the newest calibration of that camera length")
-    for msg in problems:
-        print(f"skipped: {msg}")
+    for msg in problems:  # "unreadable: FILE: reason"; such a file is never chosen
+        print(msg)
     return 0
 
 

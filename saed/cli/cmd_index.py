@@ -20,6 +20,9 @@ DESCRIPTION = (
     "what came closest); 2 on bad input."
 )
 ORDER = 10
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("image", "mask", "calibration", "phase"), ("json", "overlay", "report/index.html"))
 
 
 def add_arguments(p):

@@ -15,6 +15,9 @@ HELP = "list the built-in phases (name, structure type, space group, lattice par
 DESCRIPTION = ("List the built-in phases: name, structure type, space group, lattice parameters (nm, room "
                "temperature) and where the numbers come from. Any name here, or a CIF path, works with --phase.")
 ORDER = 90
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = ((), ("json",))
 
 
 def add_arguments(p):

@@ -17,6 +17,9 @@ DESCRIPTION = (
     "Without a calibration, phases are matched by radius ratios alone."
 )
 ORDER = 35
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("image", "mask", "calibration", "phase"), ("json", "plot"))
 
 #: Default width of the scale prior, %: a calibration from a standard, or a scale from options.
 DEFAULT_SCALE_TOLERANCE_PCT = {"file": 0.5, "options": 2.0}

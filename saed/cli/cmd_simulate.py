@@ -19,6 +19,9 @@ DESCRIPTION = (
     "(--zone 2 -1 -1 0, or written together: --zone 2-1-10)."
 )
 ORDER = 20
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("phase", "calibration"), ("json", "image", "diagram"))
 
 #: Rows printed in the terminal table before pointing at --json.
 TABLE_ROWS = 40

@@ -18,6 +18,9 @@ DESCRIPTION = (
     "With a calibration, lengths are given in 1/nm and as d-spacings."
 )
 ORDER = 20
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("image", "mask", "calibration"), ("json", "overlay"))
 
 #: Spots listed in the terminal summary (all of them go to --json).
 SHOWN_SPOTS = 12

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import math
 
 import numpy as np
@@ -21,6 +20,9 @@ DESCRIPTION = (
     "further on); check the signs once on your holder and use --flip-alpha / --flip-beta if they differ."
 )
 ORDER = 40
+#: Inputs and outputs (argument names): checked before any work that no output replaces an input;
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("phase", "from_index"), ("json",))
 
 
 def add_arguments(p):
@@ -53,21 +55,22 @@ def add_arguments(p):
 
 
 def _from_index(path: str, rank: int):
-    try:
-        with open(path, encoding="utf-8") as fh:
-            doc = json.load(fh)
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such file") from None
-    except (OSError, UnicodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"{path}: not a readable 'saed index' JSON ({exc.__class__.__name__})") from None
+    from saed.files import read_json_file
+
+    doc = read_json_file(path, what="a 'saed index' JSON")
     sols = doc.get("solutions") if isinstance(doc, dict) else None
-    if not sols:
+    if not sols or not isinstance(sols, list):
         raise InputError(f"{path}: no solutions in the file (nothing to tilt from)")
     if not 1 <= rank <= len(sols):
         raise InputError(f"--solution {rank}: the file has solutions 1 to {len(sols)}")
     s = sols[rank - 1]
-    if "orientation_matrix" not in s or "phase" not in s:
+    if not isinstance(s, dict) or "orientation_matrix" not in s or "phase" not in s:
         raise InputError(f"{path}: solution {rank} has no phase or orientation_matrix")
+    m = s["orientation_matrix"]
+    if not (isinstance(s["phase"], str) and isinstance(m, list) and len(m) == 3
+            and all(isinstance(r, list) and len(r) == 3 for r in m)
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for r in m for v in r)):
+        raise InputError(f"{path}: solution {rank}: phase must be a name and orientation_matrix 3 rows of 3 finite numbers")
     return s["phase"], s["orientation_matrix"]
 
 

@@ -13,7 +13,7 @@ from saed.crystal.phase import Phase, builtin_names, load_phase
 from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
-__all__ = ["add_image_arguments", "check_frame_and_outputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
+__all__ = ["add_image_arguments", "check_frame_and_outputs", "check_outputs_not_inputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
            "write_json", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
 
 
@@ -55,6 +55,29 @@ def check_frame_and_outputs(args) -> None:
         if not args.overlay.lower().endswith((".png", ".pdf", ".svg")):
             raise InputError(f"--overlay {args.overlay}: must end in .png (or .pdf, .svg)")
         check_writable(args.overlay)
+
+
+def check_outputs_not_inputs(args, inputs, outputs) -> None:
+    """Before any work: no output of this run names one of its inputs (or another output).
+
+    `inputs` and `outputs` are attribute names of `args` (a value may be a list, e.g. --phase);
+    "report/index.html" stands for the file index.html in the folder of --report. Labels are the
+    option as typed (``--json``) or the positional's metavar (``IMAGE``), from ``args._labels``.
+    """
+    from saed.files import refuse_overwriting_inputs
+
+    labels = getattr(args, "_labels", {})
+
+    def pairs(names):
+        for name in names:
+            attr, _, inner = name.partition("/")
+            value = getattr(args, attr, None)
+            label = labels.get(attr, "--" + attr.replace("_", "-"))
+            for v in value if isinstance(value, (list, tuple)) else [value]:
+                if isinstance(v, str) and v:
+                    yield label, (f"{v.rstrip('/')}/{inner}" if inner else v)
+
+    refuse_overwriting_inputs(list(pairs(inputs)), list(pairs(outputs)))
 
 
 def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) -> None:

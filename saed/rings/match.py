@@ -379,6 +379,8 @@ def match_scale(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm_per
         g_need = obs.r_max_px * (scale_inv_nm_per_px * (1 + 5 * scale_sigma_rel) if scale_inv_nm_per_px else
                                  scale_range[1])
         lines.append(ring_lines(ph, _quantised_g(min(max(g_need * 1.05, 4.0), MAX_LINE_G_INV_NM))))
+    if not all(len(ln.g_inv_nm) for ln in lines):  # a phase with no line in reach cannot explain a ring
+        return []
     prior = None if scale_inv_nm_per_px is None else (float(scale_inv_nm_per_px), float(scale_sigma_rel))
     lo, hi = scale_range
     if prior is not None:
