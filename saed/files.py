@@ -87,7 +87,7 @@ def _target(path) -> _Target:
     try:
         real = Path(os.path.realpath(given))
         st = os.stat(real)
-    except FileNotFoundError:
+    except (FileNotFoundError, NotADirectoryError):  # not there yet (its folder is checked below)
         st = None
     except OSError as exc:  # a loop of links, a name too long, a folder that cannot be searched
         raise InputError(f"{given}: cannot be written ({_why(exc)})") from None

@@ -34,7 +34,7 @@ from saed.calibration import Calibration, parse_calibration_date, validate_calib
 from saed.errors import InputError
 from saed.files import create_new_file, read_json_file
 
-__all__ = ["HistoryEntry", "history_folder", "store_calibration", "list_calibrations", "read_history_entry", "ENV_VAR"]
+__all__ = ["HistoryEntry", "history_folder", "check_history_folder", "store_calibration", "list_calibrations", "read_history_entry", "ENV_VAR"]
 
 #: Environment variable naming the calibration-history folder.
 ENV_VAR = "SAED_CALIBRATION_DIR"
@@ -77,6 +77,20 @@ def history_folder(folder=None) -> Path:
 
 def _slug(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9.+-]+", "-", text).strip("-") or "standard"
+
+
+def check_history_folder(folder) -> None:
+    """Before any work: InputError unless a calibration can be filed in `folder` (made if missing)."""
+    from saed.files import check_writable
+
+    root = Path(folder)
+    probe = root
+    while not probe.exists() and probe.parent != probe:  # the nearest part of the path that exists
+        probe = probe.parent
+    if probe.exists() and not probe.is_dir():
+        raise InputError(f"cannot file calibrations in {root}: {probe} is not a folder; "
+                         f"choose another with --history FOLDER or {ENV_VAR}")
+    check_writable(probe / ".saed-history-probe")
 
 
 def store_calibration(cal: Calibration, folder, *, nominal_camera_length_mm: float | None = None, **extra) -> Path:

@@ -123,11 +123,11 @@ def main(argv: list[str] | None = None) -> int:
     except OSError as exc:  # a write the library could not name better (stdout on a full disk, ...)
         if args.debug:
             raise
-        where = f"{exc.filename}: " if exc.filename else ""
+        what = f"{exc.filename}: {exc.strerror or exc}" if exc.filename else \
+            f"cannot write the output ({exc.strerror or exc})"
         if _stdout_broken():
-            where = where or "standard output: "
             _silence_stdout()
-        print(f"saed {args.command}: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        print(f"saed {args.command}: error: {what}", file=sys.stderr)
         return 2
     except MemoryError:
         if args.debug:

@@ -69,6 +69,10 @@ def _check_args(args):
     for path in (args.json if args.json not in (None, "-") else None, args.out, args.plot):
         if path:
             check_writable(path)
+    if not args.no_history:
+        from saed.calibrate.history import check_history_folder, history_folder
+
+        check_history_folder(history_folder(args.history))
     if args.plot and not args.plot.lower().endswith(".png"):
         raise InputError(f"--plot {args.plot}: must end in .png")
     if args.frame is not None and args.frame < 0:

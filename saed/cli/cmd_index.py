@@ -43,11 +43,14 @@ def check_outputs(args) -> None:
     matching_options_from_args(args)  # range checks before any work
     check_frame_and_outputs(args)
     if args.report:
+        from saed.report.files import check_writable
+
         d = Path(args.report)
         if d.exists() and not d.is_dir():
             raise InputError(f"--report {args.report}: exists and is not a folder")
         if not d.exists() and not d.parent.is_dir():
             raise InputError(f"--report {args.report}: folder {d.parent} does not exist")
+        check_writable(d / "index.html" if d.exists() else d)  # tried, not guessed
 
 
 def _max_g(args, measured) -> float | None:

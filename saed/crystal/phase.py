@@ -282,6 +282,12 @@ def suggest_builtin(name: str, *, n: int = 3) -> list[str]:
 
 
 # ---------------------------------------------------------------------- CIF
+#: Cell lengths a CIF may give, Angstrom: no crystal has an edge below 1 A (the shortest bonds are
+#: about 0.74 A, and a cell holds at least one atom with its neighbours beyond it), and above 1000 A
+#: (large protein cells) no electron-diffraction pattern could be indexed spot by spot.
+CIF_CELL_LENGTH_A = (1.0, 1000.0)
+
+
 def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
     """Load a phase from a CIF file with gemmi; every failure becomes a one-line PhaseError."""
     import gemmi
@@ -319,6 +325,10 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
     except (RuntimeError, ValueError, IndexError, UnicodeError) as exc:
         raise PhaseError(f"{path}: cannot read the structure ({_one_line(exc)})") from None
     cell = small.cell
+    for label, v in (("a", cell.a), ("b", cell.b), ("c", cell.c)):
+        if not CIF_CELL_LENGTH_A[0] <= v <= CIF_CELL_LENGTH_A[1]:
+            raise PhaseError(f"{path}: cell length {label} = {v:g} A lies outside {CIF_CELL_LENGTH_A[0]:g}-"
+                             f"{CIF_CELL_LENGTH_A[1]:g} A: not a crystal cell (check the unit: the CIF gives Angstrom)")
     lat = Lattice(cell.a / 10.0, cell.b / 10.0, cell.c / 10.0, cell.alpha, cell.beta, cell.gamma)  # A -> nm
     sg_name = _cif_space_group(block, small)
     if sg_name is None:

@@ -12,14 +12,18 @@ from functools import lru_cache
 
 import numpy as np
 
-from saed.crystal.phase import Phase
+from saed.crystal.phase import Phase, cell_atoms
 from saed.crystal.structure_factor import ZERO_F_RELATIVE, scattering_sum_nm, structure_factors_nm
-from saed.errors import InputError
+from saed.errors import InputError, PhaseError
 
 __all__ = ["ReflectionTable", "reflection_table"]
 
 #: Upper bound on reflections in one table, so a huge cell cannot exhaust memory.
 MAX_REFLECTIONS = 2_000_000
+
+#: Upper bound on atoms-in-the-cell x reflections (structure-factor terms) of one table: computed in
+#: blocks (bounded memory), at a few million terms per second on one core, so 2e8 is about a minute.
+MAX_STRUCTURE_FACTOR_TERMS = 200_000_000
 
 
 @dataclass(frozen=True, eq=False)
@@ -85,6 +89,14 @@ def reflection_table(phase: Phase, max_g_inv_nm: float) -> ReflectionTable:
     g = g[keep]
     order = np.lexsort((-hkl[:, 2], -hkl[:, 1], -hkl[:, 0], np.round(g, 9)))
     hkl, g = hkl[order], g[order]
+    n_atoms = len(cell_atoms(phase).elements)
+    if len(hkl) * n_atoms > MAX_STRUCTURE_FACTOR_TERMS:
+        raise PhaseError(
+            f"{phase.source or phase.name}: {n_atoms:,} atoms in the cell x {len(hkl):,} reflections up to "
+            f"{g_max:g} 1/nm = {len(hkl) * n_atoms:.2g} structure-factor terms, more than the "
+            f"{MAX_STRUCTURE_FACTOR_TERMS:.0e} saed computes (minutes of work); lower --max-g, or give the CIF of "
+            "a smaller (e.g. primitive or averaged) cell"
+        )
     f = structure_factors_nm(phase, hkl) if len(hkl) else np.zeros(0, complex)
     fsum = scattering_sum_nm(phase, hkl) if len(hkl) else np.zeros(0)
     allowed = np.abs(f) > ZERO_F_RELATIVE * fsum

@@ -37,7 +37,22 @@ def structure_factors_nm(phase: Phase, hkl, *, debye_waller: bool = True) -> np.
     """
     h = np.atleast_2d(np.asarray(hkl, dtype=float))
     atoms = cell_atoms(phase)
-    s = _s_inv_nm(phase, h)
+    n_atoms = len(atoms.elements)
+    # In blocks of reflections, so that the (reflections x atoms) arrays stay near CHUNK_TERMS
+    # elements whatever the cell holds (a 5000-atom CIF would otherwise need gigabytes).
+    step = max(1, CHUNK_TERMS // max(n_atoms, 1))
+    f = np.empty(len(h), dtype=complex)
+    for i in range(0, len(h), step):
+        f[i:i + step] = _structure_factor_block(atoms, h[i:i + step], _s_inv_nm(phase, h[i:i + step]), debye_waller)
+    return f if np.ndim(hkl) > 1 else f[0]
+
+
+#: Reflection x atom terms computed at once by :func:`structure_factors_nm` (about 16 bytes each,
+#: a few arrays: some 100 MB at most).
+CHUNK_TERMS = 2**21
+
+
+def _structure_factor_block(atoms, h, s, debye_waller: bool) -> np.ndarray:
     phases = np.exp(2j * np.pi * (h @ atoms.frac.T))  # (N, n_atoms)
     weights = np.empty((len(h), len(atoms.elements)))
     for el in set(atoms.elements):
@@ -46,8 +61,7 @@ def structure_factors_nm(phase: Phase, hkl, *, debye_waller: bool = True) -> np.
     weights *= atoms.occupancy[None, :]
     if debye_waller:
         weights *= np.exp(-np.outer(s * s, atoms.b_iso_nm2))
-    f = np.sum(weights * phases, axis=1)
-    return f if np.ndim(hkl) > 1 else f[0]
+    return np.sum(weights * phases, axis=1)
 
 
 def scattering_sum_nm(phase: Phase, hkl, *, debye_waller: bool = True) -> np.ndarray:
@@ -56,9 +70,13 @@ def scattering_sum_nm(phase: Phase, hkl, *, debye_waller: bool = True) -> np.nda
     atoms = cell_atoms(phase)
     s = _s_inv_nm(phase, h)
     total = np.zeros(len(h))
+    groups: dict[tuple[str, float], float] = {}  # atoms of one element and B: one form factor (big cells)
     for el, occ, b in zip(atoms.elements, atoms.occupancy, atoms.b_iso_nm2):
-        f = occ * electron_form_factor_nm(el, s)
+        key = (el, float(b) if debye_waller else 0.0)
+        groups[key] = groups.get(key, 0.0) + abs(float(occ))
+    for (el, b), occ in groups.items():
+        f = np.abs(electron_form_factor_nm(el, s))
         if debye_waller:
             f = f * np.exp(-b * s * s)
-        total += np.abs(f)
+        total += occ * f
     return total if np.ndim(hkl) > 1 else total[0]

@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from saed.crystal.miller import format_indices
+from saed.errors import InputError
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_text
 from saed.report.index_overlay import overlay_figure_bytes
@@ -156,7 +157,10 @@ def report_html(entries: list[ReportEntry], *, title: str = "saed report", intro
 def write_report(folder, entries: list[ReportEntry], *, title: str = "saed report", intro: str = "") -> Path:
     """Write ``index.html`` into `folder` (created if needed); returns its path."""
     d = Path(folder)
-    d.mkdir(parents=True, exist_ok=True)
+    try:
+        d.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{folder}: cannot make the report folder ({exc.strerror or exc})") from None
     path = d / "index.html"
     atomic_write_text(path, report_html(entries, title=title, intro=intro))
     return path

@@ -91,6 +91,11 @@ def detector_image(zp: ZonePattern, *, shape_px: tuple[int, int] = (1024, 1024),
     if not 0.0 <= float(double_diffraction_strength) <= 1.0:
         raise InputError("double-diffraction strength must lie between 0 and 1")
     cx, cy = ((cols - 1) / 2.0, (rows - 1) / 2.0) if center_px is None else (float(center_px[0]), float(center_px[1]))
+    if not (math.isfinite(cx) and math.isfinite(cy) and -cols <= cx <= 2 * cols and -rows <= cy <= 2 * rows):
+        # Farther out than one frame, nothing of a pattern scaled to the frame reaches it: a blank image.
+        raise InputError(f"centre ({cx:g}, {cy:g}) px lies far outside the {cols}x{rows} px image: give a centre "
+                         f"within x {-cols} to {2 * cols}, y {-rows} to {2 * rows} (the frame centre is "
+                         f"{(cols - 1) / 2:g}, {(rows - 1) / 2:g})")
 
     xy = zp.xy_rotated_inv_nm(in_plane_rotation_deg) / scale + np.array([cx, cy])
     peaks = zp.intensity * float(peak_counts)
