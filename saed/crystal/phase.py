@@ -327,7 +327,7 @@ def phase_from_cif(path: str | Path, *, name: str | None = None) -> Phase:
     cell = small.cell
     for label, v in (("a", cell.a), ("b", cell.b), ("c", cell.c)):
         if not CIF_CELL_LENGTH_A[0] <= v <= CIF_CELL_LENGTH_A[1]:
-            raise PhaseError(f"{path}: cell length {label} = {v:g} A lies outside {CIF_CELL_LENGTH_A[0]:g}-"
+            raise PhaseError(f"{path}: cell parameter {label} = {v:g} A lies outside {CIF_CELL_LENGTH_A[0]:g}-"
                              f"{CIF_CELL_LENGTH_A[1]:g} A: not a crystal cell (check the unit: the CIF gives Angstrom)")
     lat = Lattice(cell.a / 10.0, cell.b / 10.0, cell.c / 10.0, cell.alpha, cell.beta, cell.gamma)  # A -> nm
     sg_name = _cif_space_group(block, small)
