@@ -9,6 +9,7 @@ real processes (multiprocessing, 20 rounds each).
 from __future__ import annotations
 
 import json
+import math
 import multiprocessing
 import os
 import resource
@@ -501,3 +502,52 @@ def test_a_5000_atom_cif_is_refused_with_the_cif_and_atom_count_under_a_memory_l
     err = proc.stderr.decode()
     assert proc.returncode == 2
     _one_line_error(err, "big_cell.cif", "5,000 atoms", "reflections")
+
+
+@pytest.fixture(scope="module")
+def frame_256(tmp_path_factory):
+    """A 256 x 256 simulated frame whose centre we place ourselves at (131.3, 124.8) px."""
+    path = tmp_path_factory.mktemp("f256") / "f256.tif"
+    assert main(["simulate", "Co-fcc", "--zone", "0", "1", "1", "--image-size", "256", "--scale", "0.08",
+                 "--center", "131.3", "124.8", "--noise", "--seed", "1", "--image", str(path)]) == 0
+    return path
+
+
+@pytest.mark.parametrize("offset", [(20.0, 0.0), (0.0, -20.0), (-14.1, 14.1), (14.1, 14.1)])
+def test_a_centre_hint_20_px_off_on_a_256_px_frame_still_finds_the_centre(frame_256, offset, capsys):
+    capsys.readouterr()
+    hint = (131.3 + offset[0], 124.8 + offset[1])
+    rc, out, err = _run(capsys, "spots", frame_256, "--scale", "0.08", "--center", *hint, "--json", "-")
+    assert rc == 0
+    doc = json.loads(out)
+    assert doc["n_spots"] >= 12
+    assert math.hypot(doc["center_px"][0] - 131.3, doc["center_px"][1] - 124.8) < 0.3
+
+
+def test_a_centre_hint_20_px_off_behind_a_beam_stop_on_a_256_px_frame():
+    from saed.calibration import Calibration as Cal
+    from saed.image.measure import measure_pattern
+    from saed.synth import BeamStop, Detector, Scene, render_lattice
+
+    c = (129.37, 125.39)
+    pat, _ = render_lattice(np.array([33.7, 5.9]), np.array([-12.3, 41.1]), center_px=c,
+                            detector=Detector(shape=(256, 256)),
+                            scene=Scene(beam_stop=BeamStop(angle_deg=200.0, width_px=16.0, transmission=0.0)), rng=11)
+    for dx, dy in ((20.0, 0.0), (0.0, 20.0), (-14.1, -14.1)):
+        mp = measure_pattern(pat.image, Cal(center_px=(c[0] + dx, c[1] + dy)))
+        assert math.hypot(mp.center_px[0] - c[0], mp.center_px[1] - c[1]) < 0.3
+
+
+@pytest.mark.parametrize("address", ["not a url", "tcp://head-node", "head-node"])
+def test_a_bad_scheduler_address_is_refused_before_a_dask_client_exists(address, monkeypatch):
+    # A Client that fails inside its constructor prints a traceback from its __del__ at exit
+    # (after a 10 s close timeout): the address must be refused before one is made.
+    import distributed
+
+    from saed.batch.cluster import _connect
+
+    made = []
+    monkeypatch.setattr(distributed, "Client", lambda *a, **k: made.append(a))
+    with pytest.raises(InputError, match="not a scheduler address"):
+        _connect(address, 0.5)
+    assert made == []

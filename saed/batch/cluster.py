@@ -78,6 +78,7 @@ def _connect(address: str, timeout_s: float):
     text = str(address).strip()
     if not text:
         raise InputError("--scheduler: empty address (give e.g. tcp://head-node:8786)")
+    _check_address(text)
     try:
         client = Client(text, timeout=f"{float(timeout_s)}s", set_as_default=False)
     except (OSError, TimeoutError) as exc:
@@ -91,6 +92,23 @@ def _connect(address: str, timeout_s: float):
                          f"({exc.__class__.__name__}); check the address and port") from None
     logger.info("connected to the Dask scheduler at %s", text)
     return client
+
+
+def _check_address(text: str) -> None:
+    """InputError for an address Dask cannot parse, checked before a Client exists.
+
+    A Client that fails inside its constructor on such an address is left half made, and its
+    ``__del__`` later prints a traceback (after a 10 s close timeout) below our one-line message.
+    """
+    from distributed.comm.addressing import get_address_host_port, normalize_address
+
+    try:
+        address = normalize_address(text)
+        if address.split("://", 1)[0] in ("tcp", "tls"):
+            get_address_host_port(address)
+    except ValueError as exc:
+        raise InputError(f"--scheduler {text!r} is not a scheduler address ({_short(exc)}); "
+                         "give e.g. tcp://head-node:8786") from None
 
 
 def _short(exc: BaseException) -> str:

@@ -50,6 +50,12 @@ DEFAULT_DETECT_SNR = 5.0
 MAX_SATURATED_FRACTION = 0.5
 
 
+#: How far a --center hint may be off and still be replaced by the saturated direct beam or the
+#: centre of symmetry found near it: the larger of this many pixels and this fraction of the frame.
+HINT_REACH_PX = 30.0
+HINT_REACH_FRACTION = 0.08
+
+
 def _check_enough_left(name: str, valid: np.ndarray) -> None:
     n = int(np.count_nonzero(valid))
     if n < max(256, 0.05 * valid.size):
@@ -189,8 +195,18 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     c_sym = symmetric_center(coarse)
     db_region = _direct_beam_region(sat_mask & ~masked, c_sym, 0.15 * min(rows, cols))
     if calibration.center_px is not None:
-        c0 = tuple(calibration.center_px)
-        how = "the given centre"
+        # A hint is a rough guess: a saturated direct beam or the centre of symmetry near it is
+        # better (the radial background and the spot width are measured about this centre, and 20 px
+        # off on a 256 px frame spoils both); far from both, the hint stands (e.g. an asymmetric pattern).
+        hint = tuple(float(v) for v in calibration.center_px)
+        reach = max(HINT_REACH_PX, HINT_REACH_FRACTION * min(rows, cols))
+        db_hint = _direct_beam_region(sat_mask & ~masked, hint, reach)
+        if db_hint is not None:
+            db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
+        elif math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach:
+            c0, how = tuple(c_sym), "point symmetry near the given centre"
+        else:
+            c0, how = hint, "the given centre"
     elif db_region is not None:
         c0 = db_region[0]
         how = "the saturated direct beam"
