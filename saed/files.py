@@ -85,15 +85,15 @@ def _target(path) -> _Target:
     if given == "":
         raise InputError("an empty file name was given")
     try:
-        real = Path(os.path.realpath(given))
-        st = os.stat(real)
+        st = os.stat(given)  # follows links, also the kernel's (/proc/self/fd/1 to a pipe)
     except (FileNotFoundError, NotADirectoryError):  # not there yet (its folder is checked below)
         st = None
     except OSError as exc:  # a loop of links, a name too long, a folder that cannot be searched
         raise InputError(f"{given}: cannot be written ({_why(exc)})") from None
+    if st is not None and (stat.S_ISCHR(st.st_mode) or stat.S_ISFIFO(st.st_mode)):
+        return _Target(given, Path(given), True, None)
+    real = Path(os.path.realpath(given))
     if st is not None:
-        if stat.S_ISCHR(st.st_mode) or stat.S_ISFIFO(st.st_mode):
-            return _Target(given, real, True, None)
         if not stat.S_ISREG(st.st_mode):
             what = "a folder, not a file name" if stat.S_ISDIR(st.st_mode) else _kind(st.st_mode)
             raise InputError(f"{given}: is {what}; saed writes only regular files, character devices and named pipes")

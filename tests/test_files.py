@@ -196,3 +196,18 @@ def test_json_reader_caps_size_and_nesting(tmp_path):
     ok = tmp_path / "ok.json"
     ok.write_text(json.dumps({"a": [1, 2]}))
     assert read_json_file(ok, what="a thing") == {"a": [1, 2]}
+
+
+def test_a_symlink_to_a_pipe_of_this_process_is_written_straight(tmp_path):
+    r, w = os.pipe()
+    try:
+        fd_link = f"/proc/self/fd/{w}"
+        if not os.path.exists(fd_link):
+            pytest.skip("no /proc/self/fd on this system")
+        link = tmp_path / "out.json"
+        link.symlink_to(fd_link)  # as in the issue: --json naming a link to the process's own stdout
+        atomic_write_bytes(link, b"into our own pipe")
+        assert os.read(r, 100) == b"into our own pipe" and link.is_symlink()
+    finally:
+        os.close(r)
+        os.close(w)
