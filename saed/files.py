@@ -51,20 +51,13 @@ MAX_JSON_BYTES = 16 * 2**20
 _STAGE: contextvars.ContextVar = contextvars.ContextVar("saed_staged_writes", default=None)
 
 
+_KINDS = ((stat.S_ISDIR, "a folder"), (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket"),
+          (stat.S_ISCHR, "a character device"), (stat.S_ISFIFO, "a named pipe (FIFO)"),
+          (stat.S_ISREG, "a regular file"))
+
+
 def _kind(mode: int) -> str:
-    if stat.S_ISDIR(mode):
-        return "a folder"
-    if stat.S_ISBLK(mode):
-        return "a block device"
-    if stat.S_ISSOCK(mode):
-        return "a socket"
-    if stat.S_ISCHR(mode):
-        return "a character device"
-    if stat.S_ISFIFO(mode):
-        return "a named pipe (FIFO)"
-    if stat.S_ISREG(mode):
-        return "a regular file"
-    return "a special file"
+    return next((name for test, name in _KINDS if test(mode)), "a special file")
 
 
 def _why(exc: OSError) -> str:

@@ -70,27 +70,15 @@ def test_a_fifo_is_written_straight_and_stays_a_fifo(tmp_path):
     assert _leftovers(tmp_path) == []
 
 
-def _private_device(tmp_path, minor):
-    """A character-device node of our own in tmp_path (1, minor: the null or full device), or skip."""
-    node = tmp_path / f"dev{minor}"
-    try:
-        os.mknod(node, stat.S_IFCHR | 0o666, os.makedev(1, minor))
-        with open(node, "wb"):
-            pass
-    except OSError as exc:  # not root, or a file system mounted nodev
-        pytest.skip(f"cannot make a private device node here ({exc.strerror})")
-    return node
-
-
-def test_a_character_device_is_written_straight_and_stays_a_device(tmp_path):
-    node = _private_device(tmp_path, 3)  # a private twin of the null device
+def test_a_character_device_is_written_straight_and_stays_a_device(tmp_path, private_device):
+    node = private_device(3)  # a private twin of the null device
     atomic_write_text(node, "discarded")
     assert stat.S_ISCHR(os.lstat(node).st_mode)
     assert _leftovers(tmp_path) == []
 
 
-def test_a_full_device_is_one_line_and_stays_a_device(tmp_path):
-    node = _private_device(tmp_path, 7)  # a private twin of the full device: every write fails with ENOSPC
+def test_a_full_device_is_one_line_and_stays_a_device(private_device):
+    node = private_device(7)  # a private twin of the full device: every write fails with ENOSPC
     with pytest.raises(InputError, match="cannot write"):
         atomic_write_text(node, "x" * 10000)
     assert stat.S_ISCHR(os.lstat(node).st_mode)

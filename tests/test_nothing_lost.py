@@ -160,13 +160,8 @@ def test_json_into_a_fifo_is_written_straight(tmp_path, capsys):
     assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
 
 
-def test_json_onto_a_device_node_stays_a_device(tmp_path, capsys):
-    node = tmp_path / "null"
-    try:
-        os.mknod(node, stat.S_IFCHR | 0o666, os.makedev(1, 3))  # a private twin of the null device
-        open(node, "wb").close()
-    except OSError as exc:
-        pytest.skip(f"cannot make a private device node here ({exc.strerror})")
+def test_json_onto_a_device_node_stays_a_device(private_device, capsys):
+    node = private_device(3)  # a private twin of the null device
     rc, _, _ = _run(capsys, "phases", "--json", node)
     assert rc == 0 and stat.S_ISCHR(os.lstat(node).st_mode)
 
@@ -226,13 +221,8 @@ def test_a_failing_later_output_leaves_the_earlier_one_untouched(tmp_path, capsy
     assert [p.name for p in tmp_path.iterdir()] == ["s.json"]
 
 
-def test_stdout_on_a_full_device_is_one_line(tmp_path):
-    node = tmp_path / "full"
-    try:
-        os.mknod(node, stat.S_IFCHR | 0o666, os.makedev(1, 7))  # a private twin of the full device
-        open(node, "wb").close()
-    except OSError as exc:
-        pytest.skip(f"cannot make a private device node here ({exc.strerror})")
+def test_stdout_on_a_full_device_is_one_line(private_device):
+    node = private_device(7)  # a private twin of the full device
     with open(node, "wb") as out:
         proc = subprocess.run([sys.executable, "-m", "saed", "phases"], stdout=out, stderr=subprocess.PIPE,
                               cwd=ROOT, env={**os.environ, "PYTHONPATH": str(ROOT)}, timeout=120)

@@ -7,7 +7,7 @@ import re
 
 import numpy as np
 
-from saed.cli.common import add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.cli.common import add_calibration_options, calibration_from_args, int_at_least, positive_float, write_json
 from saed.errors import InputError
 
 NAME = "simulate"
@@ -45,19 +45,6 @@ def parse_indices(tokens, what: str) -> list[float]:
     return vals
 
 
-def _seed(text: str) -> int:
-    """A random seed: a whole number from 0 (numpy's generators take no negative seed)."""
-    import argparse
-
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"{text!r}: give a whole number from 0")
-    return v
-
-
 def add_arguments(p):
     p.add_argument("phase", metavar="PHASE", help="built-in phase name (see 'saed phases') or CIF path")
     p.add_argument("--zone", nargs="+", required=True, metavar="U",
@@ -86,7 +73,7 @@ def add_arguments(p):
     img.add_argument("--show-double-diffraction", type=float, default=0.0, metavar="F",
                      help="draw double-diffraction spots in the image at F x sqrt(I1 I2) of their route (0-1, default 0)")
     img.add_argument("--noise", action="store_true", help="add Poisson counting noise to the image")
-    img.add_argument("--seed", type=_seed, default=None, metavar="N", help="seed for --noise (a whole number from 0)")
+    img.add_argument("--seed", type=int_at_least(0), default=None, metavar="N", help="seed for --noise (a whole number from 0)")
     add_calibration_options(p, center=True)
 
 

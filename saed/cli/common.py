@@ -14,7 +14,7 @@ from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
 __all__ = ["add_image_arguments", "check_frame_and_outputs", "check_outputs_not_inputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
-           "write_json", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
+           "write_json", "int_at_least", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
 
 
 def finite_float(text: str) -> float:
@@ -25,6 +25,20 @@ def finite_float(text: str) -> float:
     if not math.isfinite(v):
         raise argparse.ArgumentTypeError(f"{text!r} is not a finite number")
     return v
+
+
+def int_at_least(minimum: int):
+    """An argparse type: a whole number of at least `minimum` (e.g. a seed from 0)."""
+    def parse(text: str) -> int:
+        try:
+            v = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+        if v < minimum:
+            raise argparse.ArgumentTypeError(f"{text!r}: give a whole number from {minimum}")
+        return v
+
+    return parse
 
 
 def positive_float(text: str) -> float:
