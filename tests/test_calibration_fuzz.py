@@ -60,7 +60,7 @@ def mangled_file(draw) -> bytes:
     return data
 
 
-FAST = settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+FAST = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
 
 @FAST

@@ -273,60 +273,61 @@ def test_calibrate_with_a_history_folder_that_cannot_exist_fails_before_work(tmp
 ROUNDS = 20
 
 
-def _file_one(folder, barrier):
-    barrier.wait(timeout=60)
+def _file_calibrations(root, k, barrier, errors):
+    """Writer k: in every round, file one calibration into round<r>/ the moment all writers are ready."""
     cal = Calibration(0.0558, 200.0, pixel_pitch_um=14.0, standard="Au", date="2026-03-01T22:15:00+01:00")
-    store_calibration(cal, folder, nominal_camera_length_mm=100, residual_pct=0.1)
+    for r in range(ROUNDS):
+        barrier.wait(timeout=60)
+        try:
+            store_calibration(cal, root / f"round{r}", nominal_camera_length_mm=100, residual_pct=0.1, writer=k)
+        except BaseException as exc:  # any failure of a writer is the bug this test looks for
+            errors.put(f"round {r}: {type(exc).__name__}: {exc}")
 
 
-def _write_out(path, k, barrier, errors):
-    barrier.wait(timeout=60)
-    try:
-        write_calibration_file(Calibration(0.05 + 0.001 * k, 200.0, date="2026-03-01T22:15:00+01:00"), path,
-                               writer=k)
-    except BaseException as exc:  # any failure of a writer is the bug this test looks for
-        errors.put(f"{type(exc).__name__}: {exc}")
+def _write_out_files(root, k, barrier, errors):
+    """Writer k: in every round, write cal<r>.json the moment all writers are ready."""
+    for r in range(ROUNDS):
+        barrier.wait(timeout=60)
+        try:
+            write_calibration_file(Calibration(0.05 + 0.001 * k, 200.0, date="2026-03-01T22:15:00+01:00"),
+                                   root / f"cal{r}.json", writer=k)
+        except BaseException as exc:
+            errors.put(f"round {r}: {type(exc).__name__}: {exc}")
 
 
-def _processes(target, n, *args):
+def _race(target, n, root) -> list[str]:
+    """n real processes running `target` for ROUNDS rounds, each round started together (a barrier)."""
     ctx = multiprocessing.get_context("fork")
-    barrier = ctx.Barrier(n)
-    extra = ctx.Queue()
+    barrier, errors = ctx.Barrier(n), ctx.Queue()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DeprecationWarning)  # fork in a threaded test process (Python >= 3.12)
-        procs = [ctx.Process(target=target, args=(*args, *((k,) if target is _write_out else ()), barrier,
-                                                  *((extra,) if target is _write_out else ())))
-                 for k in range(n)]
+        procs = [ctx.Process(target=target, args=(root, k, barrier, errors)) for k in range(n)]
         for p in procs:
             p.start()
     for p in procs:
-        p.join(timeout=120)
+        p.join(timeout=300)
     assert all(p.exitcode == 0 for p in procs)
     problems = []
-    while not extra.empty():
-        problems.append(extra.get())
+    while not errors.empty():
+        problems.append(errors.get())
     return problems
 
 
 def test_calibrations_filed_at_the_same_moment_are_all_kept(tmp_path):
+    assert _race(_file_calibrations, 6, tmp_path) == []
     for r in range(ROUNDS):
         folder = tmp_path / f"round{r}"
-        folder.mkdir()
-        _processes(_file_one, 6, folder)
-        names = sorted(p.name for p in folder.iterdir())
-        assert len(names) == 6, names  # 6 processes, 6 entries: none replaced another
         entries, problems = list_calibrations(folder)
-        assert len(entries) == 6 and problems == []
+        assert problems == [] and len(entries) == 6, sorted(p.name for p in folder.iterdir())
+        assert len(list(folder.iterdir())) == 6  # 6 processes, 6 entries: none replaced another, no leftovers
 
 
 def test_writers_of_one_out_file_never_collide(tmp_path):
+    assert _race(_write_out_files, 3, tmp_path) == []
     for r in range(ROUNDS):
-        path = tmp_path / f"cal{r}.json"
-        problems = _processes(_write_out, 3, path)
-        assert problems == []
-        doc = json.loads(path.read_text())  # whole, valid JSON: exactly one writer's file
+        doc = json.loads((tmp_path / f"cal{r}.json").read_text())  # whole, valid JSON: one writer's file
         assert doc["scale_inv_nm_per_px"] == pytest.approx(0.05 + 0.001 * doc["writer"])
-        assert read_calibration_file(path).date == "2026-03-01T22:15:00+01:00"
+        assert read_calibration_file(tmp_path / f"cal{r}.json").date == "2026-03-01T22:15:00+01:00"
     assert not [p for p in tmp_path.iterdir() if p.name.endswith(".tmp")]
 
 
