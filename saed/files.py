@@ -126,7 +126,7 @@ def _write_temporary(t: _Target, data: bytes) -> Path:
     """`data` in a new, fsynced temporary file beside the target; removed again on any failure."""
     folder = t.real.parent
     try:
-        fd, name = tempfile.mkstemp(prefix=f".{t.real.name}.", suffix=".tmp", dir=folder)
+        fd, name = tempfile.mkstemp(prefix=f".{t.real.name[:100]}.", suffix=".tmp", dir=folder)  # < NAME_MAX
     except OSError as exc:
         raise InputError(f"{t.given}: cannot write into folder {folder} ({_why(exc)})") from None
     tmp = Path(name)
@@ -210,6 +210,7 @@ def all_or_nothing():
     ...     pass
     >>> sorted(p.name for p in d.iterdir())   # nothing written, no temporary file left
     []
+    >>> d.rmdir()
     """
     staged: list[_Staged] = []
     token = _STAGE.set(staged)

@@ -199,3 +199,9 @@ def test_a_symlink_to_a_pipe_of_this_process_is_written_straight(tmp_path):
     finally:
         os.close(r)
         os.close(w)
+
+
+def test_a_name_near_the_length_limit_still_gets_a_temporary(tmp_path):
+    p = tmp_path / ("n" * 250 + ".json")  # 255 bytes: the longest name most file systems allow
+    atomic_write_text(p, "x")
+    assert p.read_text() == "x" and _leftovers(tmp_path) == []
