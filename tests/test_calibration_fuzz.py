@@ -1,6 +1,6 @@
 """Hypothesis: mangled calibration files and history folders fed to every command that reads them.
 
-A calibration file is read by ``index``, ``spots``, ``rings`` and ``simulate`` (--calibration);
+A calibration file is read by ``index``, ``spots``, ``rings``, ``simulate`` and ``batch`` (--calibration);
 the history by ``calibrate --list``. Whatever the bytes, the answer is a result (exit 0) or one
 line naming the file (exit 2), never a traceback; a history lists every good entry, names every
 bad one "unreadable", and orders each camera length newest first by time (checked here with
@@ -93,6 +93,7 @@ COMMANDS = {
     "spots": ["spots", "{missing}", "--calibration", "{cal}"],
     "rings": ["rings", "{missing}", "--phase", "Au", "--calibration", "{cal}"],
     "simulate": ["simulate", "Co-fcc", "--zone", "0", "0", "1", "--max-g", "4", "--calibration", "{cal}"],
+    "batch": ["batch", "{missing}", "--phase", "Co-fcc", "--calibration", "{cal}", "--out", "{out}"],
 }
 
 
@@ -103,7 +104,7 @@ def test_every_command_reading_a_calibration_gives_a_result_or_one_line(data, co
         cal = Path(d) / "cal.json"
         cal.write_bytes(data)
         missing = Path(d) / "pattern.tif"
-        argv = [a.format(cal=cal, missing=missing) for a in COMMANDS[command]]
+        argv = [a.format(cal=cal, missing=missing, out=Path(d) / "rows.csv") for a in COMMANDS[command]]
         try:
             read_calibration_file(cal)
             readable = True
