@@ -542,3 +542,30 @@ def test_a_bad_scheduler_address_is_refused_before_a_dask_client_exists(address,
     with pytest.raises(InputError, match="not a scheduler address"):
         _connect(address, 0.5)
     assert made == []
+
+
+def _two_symmetric_sets(shape=(256, 256)):
+    """Gaussian spots point-symmetric about A = (120.3, 131.6) (strong) and B = A + (24, 0) (weak)."""
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    img = np.full(shape, 100.0)
+    rng = np.random.default_rng(4)
+    for centre, amp in (((120.3, 131.6), 4000.0), ((144.3, 131.6), 1500.0)):
+        for g in rng.uniform(-90, 90, size=(12, 2)):
+            for s in (1, -1):
+                x, y = centre[0] + s * g[0], centre[1] + s * g[1]
+                img += amp * np.exp(-((xx - x) ** 2 + (yy - y) ** 2) / (2 * 2.0**2))
+    return img
+
+
+def test_an_exact_hint_on_a_weaker_centre_of_symmetry_is_kept_not_replaced():
+    from saed.image.binning import bin_image
+    from saed.image.centre import near_symmetry_peak, symmetric_center
+
+    img = _two_symmetric_sets()
+    b = bin_image(img, np.ones(img.shape, bool))
+    cx, cy = symmetric_center(b)
+    assert math.hypot(cx - 120.3, cy - 131.6) < 1.0  # the stronger set wins the global search
+    assert near_symmetry_peak(b, (144.3, 131.6))  # the weaker set's centre is a centre of its own: kept
+    assert near_symmetry_peak(b, (120.3, 131.6))
+    assert not near_symmetry_peak(b, (132.3, 131.6))  # half-way between: no centre, the hint gives way
+    assert not near_symmetry_peak(b, (120.3, 151.6))  # 20 px off the strong centre

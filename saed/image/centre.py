@@ -33,7 +33,7 @@ from saed.image.background import Background
 from saed.image.binning import Binned
 from saed.image.spotfit import fit_spots
 
-__all__ = ["symmetric_center", "FriedelCentre", "friedel_center", "DirectBeam", "find_direct_beam"]
+__all__ = ["near_symmetry_peak", "symmetric_center", "FriedelCentre", "friedel_center", "DirectBeam", "find_direct_beam"]
 
 logger = logging.getLogger(__name__)
 
@@ -51,13 +51,12 @@ def _parabolic_peak(c: np.ndarray, i: int, j: int) -> tuple[float, float]:
     return i + di, j + dj
 
 
-def symmetric_center(binned: Binned) -> tuple[float, float]:
-    """Rough centre (x, y) in full-resolution pixels from the point symmetry of the block image."""
+def _self_convolution(binned: Binned):
+    """Self-convolution of the log block image (peaks at twice a centre of symmetry), or None if all NaN."""
     img = binned.image
     ok = np.isfinite(img)
     if not ok.any():
-        rows, cols = binned.full_shape
-        return (cols - 1) / 2.0, (rows - 1) / 2.0
+        return None
     med = float(np.median(img[ok]))
     lo = float(np.percentile(img[ok], 1.0))
     span = max(med - lo, 1e-6)
@@ -65,13 +64,48 @@ def symmetric_center(binned: Binned) -> tuple[float, float]:
     nr, nc = a.shape
     shape = (2 * nr, 2 * nc)
     fa = np.fft.rfft2(a, s=shape)
-    conv = np.fft.irfft2(fa * fa, s=shape)
+    return np.fft.irfft2(fa * fa, s=shape)
+
+
+def symmetric_center(binned: Binned) -> tuple[float, float]:
+    """Rough centre (x, y) in full-resolution pixels from the point symmetry of the block image."""
+    conv = _self_convolution(binned)
+    if conv is None:
+        rows, cols = binned.full_shape
+        return (cols - 1) / 2.0, (rows - 1) / 2.0
+    nr, nc = binned.image.shape
     # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
     search = conv[: 2 * nr - 1, : 2 * nc - 1]
     i, j = np.unravel_index(int(np.argmax(search)), search.shape)
     si, sj = _parabolic_peak(conv, i, j)
     x, y = binned.to_full_px(sj / 2.0, si / 2.0)
     return float(x), float(y)
+
+
+def near_symmetry_peak(binned: Binned, center_px, radius_px: float = 3.0) -> bool:
+    """True when a local maximum of the pattern's point symmetry lies within `radius_px` of `center_px`.
+
+    The self-convolution (as in :func:`symmetric_center`) is searched in a window twice that radius
+    about the point; a maximum inside the window (not on its edge, where the surface only slopes up
+    toward some other centre) that stands above the median of the window marks a centre of symmetry
+    there, even when it is not the highest one of the image.
+    """
+    conv = _self_convolution(binned)
+    if conv is None:
+        return False
+    nr, nc = binned.image.shape
+    xb, yb = binned.to_binned_px(float(center_px[0]), float(center_px[1]))
+    ci, cj = 2 * float(yb), 2 * float(xb)
+    r = max(2, int(np.ceil(4.0 * radius_px / binned.factor)))  # window half-width: 2 radii, in shift units
+    i0, i1 = int(round(ci)) - r, int(round(ci)) + r + 1
+    j0, j1 = int(round(cj)) - r, int(round(cj)) + r + 1
+    if i0 < 0 or j0 < 0 or i1 > 2 * nr - 1 or j1 > 2 * nc - 1:
+        return False
+    win = conv[i0:i1, j0:j1]
+    pi, pj = np.unravel_index(int(np.argmax(win)), win.shape)
+    inside = 0 < pi < win.shape[0] - 1 and 0 < pj < win.shape[1] - 1
+    close = np.hypot(pi + i0 - ci, pj + j0 - cj) * binned.factor / 2.0 <= radius_px
+    return bool(inside and close and win[pi, pj] > np.median(win))
 
 
 @dataclass(frozen=True)

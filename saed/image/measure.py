@@ -30,7 +30,7 @@ from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
 from saed.image.binning import bin_image
-from saed.image.centre import find_direct_beam, friedel_center, symmetric_center
+from saed.image.centre import find_direct_beam, friedel_center, near_symmetry_peak, symmetric_center
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
@@ -203,7 +203,8 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
         db_hint = _direct_beam_region(sat_mask & ~masked, hint, reach)
         if db_hint is not None:
             db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
-        elif math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach:
+        elif (math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach
+              and not near_symmetry_peak(coarse, hint)):  # a hint on a centre of symmetry of its own stands
             c0, how = tuple(c_sym), "point symmetry near the given centre"
         else:
             c0, how = hint, "the given centre"
