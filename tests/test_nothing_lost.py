@@ -365,12 +365,17 @@ def test_bad_history_entries_are_named_unreadable_and_never_starred(tmp_path, ca
     assert len(doc["skipped"]) == 6
 
 
-def test_history_dates_with_different_utc_offsets_compare_as_times(tmp_path):
+def test_history_dates_with_different_utc_offsets_compare_as_times(tmp_path, capsys):
     # 10:00 at +02:00 is 08:00 UTC: earlier than 09:30 UTC, though later as text.
     _entry(tmp_path, "a.json", date="2026-03-01T10:00:00+02:00", scale_inv_nm_per_px=0.0556)
     _entry(tmp_path, "b.json", date="2026-03-01T09:30:00+00:00", scale_inv_nm_per_px=0.0558)
     entries, problems = list_calibrations(tmp_path)
     assert problems == [] and [e.path.name for e in entries] == ["b.json", "a.json"]
+    assert main(["calibrate", "--list", str(tmp_path)]) == 0
+    rows = [ln for ln in capsys.readouterr().out.splitlines() if ln.endswith(".json")]
+    assert [r.split()[-1] for r in rows] == ["b.json", "a.json"] and "*" in rows[0]
+    shown = [r[8:30].strip() for r in rows]  # both in this machine's zone, so the order reads true
+    assert shown[0][-5:] == shown[1][-5:] and shown[0] > shown[1]
 
 
 # ---------------------------------------------------------------- 17.7 every calibration field checked

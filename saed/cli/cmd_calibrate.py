@@ -98,7 +98,7 @@ def run_list(args) -> int:
         print(f"no calibrations stored in {folder}" + ("" if folder.exists() else " (folder does not exist yet)"))
     else:
         print(f"calibrations in {folder}, newest first per camera length:")
-        print(f"{'L mm':>7} {'date':<20} {'standard':<10} {'scale 1/nm/px':>13} {'L meas mm':>9} {'lambda L':>9} "
+        print(f"{'L mm':>7} {'date (this clock)':<22} {'standard':<10} {'scale 1/nm/px':>13} {'L meas mm':>9} {'lambda L':>9} "
               f"{'ellipse':>14} {'resid %':>7}  file")
         last = object()
         for e in entries:
@@ -108,7 +108,9 @@ def run_list(args) -> int:
             mark = "*" if lab != last else " "
             last = lab
             ell = f"{c.ellipse.axis_ratio:.4f}@{c.ellipse.major_axis_angle_deg:.0f}" if c.ellipse else "-"
-            print(f"{head:>7}{mark}{(c.date or '-')[:19]:<20} {(c.standard or '-'):<10} {c.scale_inv_nm_per_px:>13.6f} "
+            # One time zone for every row (files may carry different UTC offsets): the order reads true.
+            when = e.when.astimezone().strftime("%Y-%m-%d %H:%M%z") if e.when is not None else "-"
+            print(f"{head:>7}{mark}{when:<22} {(c.standard or '-'):<10} {c.scale_inv_nm_per_px:>13.6f} "
                   f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '9.5f'):>9} "
                   f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
         print("* = the newest calibration of that camera length")
