@@ -116,6 +116,8 @@ def _inv_batch(a: np.ndarray) -> np.ndarray:
                 out[k] = np.linalg.inv(a[k])
             except np.linalg.LinAlgError:
                 pass
+    # A nearly singular matrix inverts to +-inf entries whose sums would be inf - inf: treat as singular.
+    out[~np.isfinite(out).all(axis=(1, 2))] = np.nan
     return out
 
 
