@@ -6,6 +6,7 @@ import sys
 
 from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
                              matching_options_from_args, phases_from_args, write_json)
+from saed.cli.display import add_units_argument, display_options
 from saed.errors import InputError
 
 NAME = "index"
@@ -31,6 +32,7 @@ def add_arguments(p):
     out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
     out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
     out.add_argument("--report", metavar="DIR", help="write a self-contained HTML report (index.html) into DIR")
+    add_units_argument(out)
 
 
 def check_outputs(args) -> None:
@@ -75,7 +77,7 @@ def run(args) -> int:
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
     result = index_pattern(measured, tables, top=args.top, **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
-    print(format_summary(result, image=args.image, frame=args.frame, top=args.top), file=out)
+    print(format_summary(result, image=args.image, frame=args.frame, top=args.top, **display_options(args, out)), file=out)
     if args.json:
         write_json(args.json, result_json(result, image=args.image, frame=args.frame))
     if args.overlay:

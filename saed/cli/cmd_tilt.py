@@ -209,10 +209,12 @@ def _print(phase, holder, rec, doc, reach, rows) -> None:
               f"{t['angle_from_beam_deg']:.1f} deg from the present beam; the pattern then lies at in-plane rotation "
               f"{t['in_plane_rotation_deg']:.1f} deg)")
     print(f"{len(reach)} zone axes within reach, nearest first:")
-    print(f"{'zone':>12} {'family':>12} {'from beam':>10} {'alpha':>8} {'beta':>8}")
+    zw = max([12] + [len(zone_label(phase, s.zone_axis)) for s in reach[:rows]])  # long zones stay aligned
+    fw = max([12] + [len(js["family"]) for js in doc["reachable_zones"][:rows]])
+    print(f"{'zone':>{zw}} {'family':>{fw}} {'from beam deg':>13} {'alpha deg':>9} {'beta deg':>9}")
     for s, js in zip(reach[:rows], doc["reachable_zones"]):
         fam = js["family"]
-        print(f"{zone_label(phase, s.zone_axis):>12} {fam:>12} {s.angle_from_beam_deg:9.1f}\N{DEGREE SIGN} "
-              f"{round(s.alpha_deg, 2) + 0.0:+8.2f} {round(s.beta_deg, 2) + 0.0:+8.2f}")
+        print(f"{zone_label(phase, s.zone_axis):>{zw}} {fam:>{fw}} {s.angle_from_beam_deg:13.1f} "
+              f"{round(s.alpha_deg, 2) + 0.0:+9.2f} {round(s.beta_deg, 2) + 0.0:+9.2f}")
     if len(reach) > rows:
         print(f"... {len(reach) - rows} more (--rows N, or --json)")

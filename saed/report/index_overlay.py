@@ -24,8 +24,8 @@ import numpy as np
 from saed.image.overlay import display_stretch
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_bytes, check_writable
-from saed.report.index_summary import confidence_word, zone_text
-from saed.report.render_pattern import index_text, nice_scale_bar_inv_nm
+from saed.report.index_summary import confidence_word, spot_label, zone_text
+from saed.report.render_pattern import nice_scale_bar_inv_nm
 
 __all__ = ["overlay_figure_bytes", "write_index_overlay", "KIND_STYLE"]
 
@@ -100,11 +100,11 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
             ax.plot([x - d, x + d], [y - d, y + d], color=col, lw=lw)
             ax.plot([x - d, x + d], [y + d, y - d], color=col, lw=lw)
         if s is not None and s.hkl is not None:
-            labels.append((math.hypot(x - cx, y - cy), x, y, s.hkil if s.hkil is not None else s.hkl, col))
+            labels.append((math.hypot(x - cx, y - cy), x, y, spot_label(s, "mathtext"), col))
     labels.sort(key=lambda t: t[0])
     for r, x, y, idx, col in labels[:MAX_LABELS]:
         ux, uy = ((x - cx) / r, (y - cy) / r) if r > 0 else (0.0, -1.0)
-        ax.annotate(index_text(idx), (x, y), xytext=(ux * 15, -uy * 15), textcoords="offset points", ha="center",
+        ax.annotate(idx, (x, y), xytext=(ux * 15, -uy * 15), textcoords="offset points", ha="center",
                     va="center", fontsize=8, color="white",
                     bbox=dict(boxstyle="round,pad=0.12", fc=(0, 0, 0, 0.55), ec="none"))
     arm = 2.5 * unit
@@ -141,9 +141,9 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
         line2 = result.message
     else:
         word = confidence_word(result) if result.best is not None else "near miss"
-        line1 = f"{best.phase_name} {zone_text(best)}   score {best.score:.2f} ({word})   -   {src}"
+        line1 = f"{best.phase_name} {zone_text(best, 'mathtext')}   score {best.score:.2f} ({word})   -   {src}"
         line2 = (f"{best.n_explained}/{len(best.indexed)} spots explained, d error {best.mean_d_error_pct:.2f} %, "
-                 f"angle error {best.mean_angle_error_deg:.2f} deg, in-plane rotation {best.in_plane_rotation_deg:.1f} deg, "
+                 f"angle error {best.mean_angle_error_deg:.2f}\N{DEGREE SIGN}, in-plane rotation {best.in_plane_rotation_deg:.1f}\N{DEGREE SIGN}, "
                  f"{best.scale_inv_nm_per_px:.5g} 1/nm per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
     fig.text(0.01, 1.0 - 0.12 / fh, line1, fontsize=11.5, fontweight="bold", va="top")
     fig.text(0.01, 1.0 - 0.45 / fh, line2[:150], fontsize=8.5, va="top")

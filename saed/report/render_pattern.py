@@ -77,13 +77,9 @@ def write_detector_image(det: DetectorImage, path) -> None:
 # ---------------------------------------------------------------------- labels
 def index_text(idx, *, math_text: bool = True) -> str:
     """Indices with overbars for negatives (mathtext), e.g. 1-1 1 -> 1 bar-1 1; plain '1-11' if not math."""
-    vals = [int(v) for v in np.asarray(idx).ravel()]
-    if not math_text:
-        sep = " " if any(abs(v) >= 10 for v in vals) else ""
-        return sep.join(str(v) for v in vals)
-    parts = [(r"\bar{%d}" % -v) if v < 0 else str(v) for v in vals]
-    sep = r"\,"
-    return "$" + sep.join(parts) + "$"
+    from saed.crystal.notation import indices_text
+
+    return indices_text(idx, "mathtext" if math_text else "plain")
 
 
 def pattern_title(zp: ZonePattern) -> str:
