@@ -30,7 +30,7 @@ from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.errors import InputError
 
 __all__ = ["STYLES", "indices_text", "zone_text", "plane_text", "shown_zone", "shown_plane", "projected_plane",
-           "fraction_text", "terminal_style", "text_width", "pad", "person_text", "Units", "UNITS",
+           "fraction_text", "terminal_style", "text_width", "pad", "table_lines", "person_text", "Units", "UNITS",
            "units_named", "wavelength_text", "degrees_text"]
 
 #: Media an index can be written for.
@@ -204,6 +204,20 @@ def pad(text: str, width: int, align: str = "<") -> str:
     """`text` padded to `width` terminal columns ('<' left, '>' right), never cut."""
     fill = " " * max(0, width - text_width(text))
     return text + fill if align == "<" else fill + text
+
+
+def table_lines(header, rows, indent: str = "") -> list[str]:
+    """A terminal table: `header` is [(title, '<' or '>')], `rows` lists of cell texts. Each column is as
+    wide as its widest cell in terminal columns, so long zones ([17 -13 -4 18]) and overbars keep it aligned.
+
+    >>> print("\\n".join(table_lines([("hkl", "<"), ("d nm", ">")], [["111", "0.2047"], ["2-20", "0.1253"]])))
+    hkl     d nm
+    111   0.2047
+    2-20  0.1253
+    """
+    widths = [max([text_width(h)] + [text_width(r[i]) for r in rows]) for i, (h, _) in enumerate(header)]
+    return [indent + "  ".join(pad(c, w, a) for c, w, (_, a) in zip(cells, widths, header)).rstrip()
+            for cells in [[h for h, _ in header]] + [list(r) for r in rows]]
 
 
 _BRACKETED = re.compile(r"([\[(])((?:-?\d){3,4})([\])])")

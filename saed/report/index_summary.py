@@ -10,7 +10,7 @@ import math
 import textwrap
 
 from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, indices_text, pad, person_text,
-                                   shown_plane, text_width)
+                                   shown_plane, table_lines)
 from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
 
@@ -104,15 +104,6 @@ def _fmt(v, spec: str, dash: str = "-") -> str:
     return dash if v is None or (isinstance(v, float) and not math.isfinite(v)) else format(v, spec)
 
 
-def _table(header: list[tuple[str, str]], rows: list[list[str]], indent: str = "") -> list[str]:
-    """Columns as wide as their widest cell (terminal columns, so overbars do not shift them)."""
-    widths = [max([text_width(h)] + [text_width(r[i]) for r in rows]) for i, (h, _) in enumerate(header)]
-    out = []
-    for cells in [[h for h, _ in header]] + rows:
-        out.append(indent + "  ".join(pad(c, w, a) for c, w, (_, a) in zip(cells, widths, header)).rstrip())
-    return out
-
-
 def format_summary(result: IndexResult, *, image: str, frame: int | None = None, top: int = 5,
                    style: str = "plain", units: Units = UNITS["nm"]) -> str:
     """A plain-text summary (no colours; fits 100 columns). `style` 'unicode' draws overbars (UTF-8
@@ -147,7 +138,7 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
         table.append([str(i + 1), s.phase_name, zone_text(s, style), f"{s.score:.2f}",
                       f"{s.n_explained}/{len(s.indexed)}", _fmt(s.mean_d_error_pct, ".2f"),
                       _fmt(s.mean_angle_error_deg, ".2f"), scale])
-    lines += _table(header, table)
+    lines += table_lines(header, table)
     lines.append("")
     lines += _best_block(best, calibrated=cal is not None and cal.is_calibrated, style=style, units=units)
     if result.message:
@@ -178,7 +169,7 @@ def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -
     rows = [[spot_label(s, style), f"{s.x_px:.1f}", f"{s.y_px:.1f}", units.length_text(s.d_nm_measured),
              units.length_text(s.d_nm_calc), _fmt(s.d_error_pct, "+.2f"), kind_text(s, style)]
             for s in shown[:SHOWN_SPOTS]]
-    out += _table(header, rows, indent="  ")
+    out += table_lines(header, rows, indent="  ")
     if len(shown) > SHOWN_SPOTS:
         out.append(f"  ... {len(shown) - SHOWN_SPOTS} more spots (all in --json)")
     if any(s.kind == "holz-projection" for s in shown[:SHOWN_SPOTS]):
