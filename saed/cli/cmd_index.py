@@ -6,7 +6,7 @@ import sys
 
 from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
                              matching_options_from_args, phases_from_args, write_json)
-from saed.cli.display import add_units_argument, display_options
+from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.errors import InputError
 
 NAME = "index"
@@ -89,7 +89,7 @@ def run(args) -> int:
         from saed.report.index_html import ReportEntry, write_report
 
         path = write_report(args.report, [ReportEntry(args.image, insp.image, result, ignored=insp.ignored)],
-                            title=f"saed index: {args.image}")
+                            title=f"saed index: {args.image}", units=units_from_args(args))
         print(f"report written to {path}", file=out)
     if not result.solutions:
         print(f"saed index: {result.message}", file=sys.stderr)

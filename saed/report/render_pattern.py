@@ -171,7 +171,7 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         r_pts = 0.5 * math.sqrt(0.5 * base if kind_dd[i] else size[i])  # marker radius, points
         _label(ax, x, y, ux, uy, r_pts + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
-        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
+        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "0000" if zp.is_hexagonal else "000", font_size, "black")
 
     ax.set_xlim(-ext, ext)
     ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
