@@ -175,6 +175,7 @@ RING_SCORE_MEANING = ("score: how well the phase's ring list explains the measur
 def _print(doc, ident, units=None):
     import sys
 
+    from saed.cli.display import say
     from saed.crystal.notation import UNITS, indices_text, terminal_style
 
     units = units or UNITS["nm"]
@@ -184,7 +185,7 @@ def _print(doc, ident, units=None):
     e = doc["ellipse"]
     s = doc["scale_inv_nm_per_px"]
     print(f"centre ({c[0]:.2f}, {c[1]:.2f}) px, ellipse {e['axis_ratio']:.4f} at {e['major_axis_angle_deg']:.1f} deg "
-          f"({e['source']}), scale {f'{units.reciprocal(s):.6g} {inv} per px' if s else 'unknown'}")
+          f"({e['source']}), scale {f'{units.reciprocal(s):.5g} {inv} per px' if s else 'unknown'}")
     print(f"{'ring':>4} {'r px':>9} {'d ' + un:>9} {'g ' + inv:>8} {'I rel':>6} {'cover':>5}")
     for k, r in enumerate(doc["rings"], 1):
         d = units.length_text(r["d_nm"], 5)
@@ -196,16 +197,16 @@ def _print(doc, ident, units=None):
     for sol in doc["solutions"]:
         frac = "" if len(sol["phases"]) == 1 else " (" + ", ".join(
             f"{p} {100 * f:.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
-        extra = "" if s else f", implied scale {units.reciprocal(sol['scale_inv_nm_per_px']):.6g} {inv} per px"
+        extra = "" if s else f", implied scale {units.reciprocal(sol['scale_inv_nm_per_px']):.5g} {inv} per px"
         print(f"#{sol['rank']} {sol['phase']}{frac}: score {sol['score']:.3f}, {len(sol['rings_matched'])} of "
               f"{len(doc['rings'])} rings{extra}")
         parts = [f"{m['ring']}:{'/'.join(m['families'])}" + ("" if len(sol["phases"]) == 1 else f" {m['phase']}")
                  for m in sol["rings_matched"]]
-        print("    " + ", ".join(parts))
+        say("    " + ", ".join(parts))
         if sol["rings_unexplained"]:
             print("    unexplained rings: " + ", ".join(str(u["ring"]) for u in sol["rings_unexplained"]))
         if sol["lines_missing"]:
-            print("    expected but not seen: " + ", ".join(
+            say("    expected but not seen: " + ", ".join(
                 f"{m['phase']} {indices_text(m['hkil'] or m['hkl'])} ({units.length_text(m['d_nm'])} {un})" for m in sol["lines_missing"][:6]))
     for note in doc["notes"]:
         print(f"note: {note}")

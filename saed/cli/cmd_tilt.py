@@ -197,6 +197,7 @@ def run(args) -> int:
 
 
 def _print(phase, holder, rec, doc, reach, rows) -> None:
+    from saed.cli.display import say
     from saed.simulate.families import zone_label
 
     print(f"{phase.name}: holder alpha axis at {holder.alpha_axis_deg:g} deg on the detector, {holder.range_text()}; "
@@ -205,7 +206,7 @@ def _print(phase, holder, rec, doc, reach, rows) -> None:
     if t is not None:
         z = zone_label(phase, t["zone_axis"])
         state = "within range" if t["reachable"] else "OUT OF RANGE"
-        print(f"target {z}: alpha {t['alpha_deg']:+.2f} deg, beta {t['beta_deg']:+.2f} deg  ({state}; "
+        say(f"target {z}: alpha {t['alpha_deg']:+.2f} deg, beta {t['beta_deg']:+.2f} deg  ({state}; "
               f"{t['angle_from_beam_deg']:.1f} deg from the present beam; the pattern then lies at in-plane rotation "
               f"{t['in_plane_rotation_deg']:.1f} deg)")
     print(f"{len(reach)} zone axes within reach, nearest first:")
@@ -214,7 +215,7 @@ def _print(phase, holder, rec, doc, reach, rows) -> None:
     print(f"{'zone':>{zw}} {'family':>{fw}} {'from beam deg':>13} {'alpha deg':>9} {'beta deg':>9}")
     for s, js in zip(reach[:rows], doc["reachable_zones"]):
         fam = js["family"]
-        print(f"{zone_label(phase, s.zone_axis):>{zw}} {fam:>{fw}} {s.angle_from_beam_deg:13.1f} "
+        say(f"{zone_label(phase, s.zone_axis):>{zw}} {fam:>{fw}} {s.angle_from_beam_deg:13.1f} "
               f"{round(s.alpha_deg, 2) + 0.0:+9.2f} {round(s.beta_deg, 2) + 0.0:+9.2f}")
     if len(reach) > rows:
         print(f"... {len(reach) - rows} more (--rows N, or --json)")

@@ -6,7 +6,7 @@ import sys
 
 from saed.crystal.notation import UNITS, Units, terminal_style, units_named
 
-__all__ = ["add_units_argument", "units_from_args", "display_options"]
+__all__ = ["add_units_argument", "units_from_args", "display_options", "say"]
 
 
 def add_units_argument(p) -> None:
@@ -22,3 +22,12 @@ def units_from_args(args) -> Units:
 def display_options(args, stream=None) -> dict:
     """``style`` (overbars when `stream`, default stdout, encodes UTF-8) and ``units`` for the printers."""
     return {"style": terminal_style(stream if stream is not None else sys.stdout), "units": units_from_args(args)}
+
+
+def say(text: str, file=None) -> None:
+    """Print one line a person reads: index groups get overbars on a UTF-8 stream (the marks take no
+    column, so padding done before stays aligned); otherwise the text is printed as it is."""
+    from saed.crystal.notation import person_text
+
+    stream = file if file is not None else sys.stdout
+    print(person_text(text, terminal_style(stream)), file=stream)
