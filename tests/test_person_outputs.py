@@ -235,6 +235,10 @@ def test_thin_fcc_111_extra_spots_are_labelled_as_one_third_422_positions(tmp_pa
     spots = json.loads(js.read_text())["solutions"][0]["indexed_spots"]
     holz = [s for s in spots if s.get("kind") == "holz-projection"]
     assert holz and all(len(s["hkl"]) == 3 for s in holz)  # the JSON keeps the 3-D reflection
+    for s in holz:  # ... and adds where it lands: hkl - (N/3)(1,1,1), N = h + k + l, times 3
+        assert s["projected_denominator"] == 3 and s["projected_hkl"] == [3 * h - sum(s["hkl"]) for h in s["hkl"]]
+    assert all(s["projected_hkl"] is None and s["projected_denominator"] is None
+               for s in spots if s["kind"] != "holz-projection")
 
 
 def test_units_angstrom_in_terminal_and_html(hcp_example, tmp_path, capsys):
