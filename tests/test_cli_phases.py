@@ -76,7 +76,7 @@ def test_structure_types_show_no_raw_underscore(capsys):
 def test_tial_cell_repeats_under_c_centring_only():
     # TiAl (L1_0) in the 4-atom cell: Ti at 0,0,0 and 1/2,1/2,0, Al at 1/2,0,1/2 and 0,1/2,1/2 (the CuAu
     # structure, common practice). (1/2,1/2,0) maps every atom onto a like atom; (1/2,0,1/2) maps Ti onto Al.
-    from saed.cli.cmd_phases import cell_centring
+    from saed.crystal.phase import cell_centring
 
     assert cell_centring(builtin_phase("TiAl")) == "C"
     assert cell_centring(builtin_phase("NiAl")) == "P" and cell_centring(builtin_phase("Ni3Al")) == "P"

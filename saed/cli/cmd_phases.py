@@ -7,7 +7,7 @@ import sys
 import textwrap
 
 from saed.cli.common import write_json
-from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, suggest_builtin
+from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, space_group_in_cell, suggest_builtin
 from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
 
@@ -26,45 +26,15 @@ def add_arguments(p):
     add_units_argument(p)
 
 
-#: centring translations a primitive-group cell may carry on top of its lattice (the cell is then a supercell)
-_CENTRINGS = (("F", ((0, .5, .5), (.5, 0, .5), (.5, .5, 0))), ("I", ((.5, .5, .5),)), ("C", ((.5, .5, 0),)),
-              ("A", ((0, .5, .5),)), ("B", ((.5, 0, .5),)))
-
-
-def cell_centring(ph) -> str:
-    """'P', or the centring letter when every atom of the cell repeats under that centring translation
-    (TiAl's 4-atom cell: 'C'), so the space group can be named as written in the cell saed uses."""
-    import numpy as np
-
-    atoms = cell_atoms(ph)
-    frac = np.asarray(atoms.frac) % 1.0
-    els = np.asarray(atoms.elements)
-
-    def repeats(t) -> bool:
-        moved = (frac + np.asarray(t)) % 1.0
-        d = (moved[:, None, :] - frac[None, :, :] + 0.5) % 1.0 - 0.5
-        same = (np.abs(d).max(-1) < 1e-6) & (els[:, None] == els[None, :])
-        return bool(np.all(same.any(axis=1)))
-
-    if not ph.space_group_short.startswith("P") or len(frac) < 2:
-        return ph.space_group_short[0]
-    for letter, ts in _CENTRINGS:
-        if all(repeats(t) for t in ts):
-            return letter
-    return "P"
-
-
 def _row(ph):
     lat = ph.lattice
-    letter = cell_centring(ph)
-    in_cell = ph.space_group_short if letter == ph.space_group_short[0] else letter + ph.space_group_short[1:]
     return {
         "name": ph.name,
         "structure_type": ph.structure_type,
         "space_group": ph.space_group_short,
         "space_group_number": ph.space_group_number,
         "space_group_setting": ph.space_group,
-        "space_group_in_cell": in_cell,
+        "space_group_in_cell": space_group_in_cell(ph),
         "a_nm": lat.a_nm, "b_nm": lat.b_nm, "c_nm": lat.c_nm,
         "alpha_deg": lat.alpha_deg, "beta_deg": lat.beta_deg, "gamma_deg": lat.gamma_deg,
         "crystal_system": lat.crystal_system,

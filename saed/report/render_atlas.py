@@ -44,6 +44,7 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
     """A matplotlib Figure: the reference sheet of `phase` (see the module notes)."""
     from matplotlib.figure import Figure
 
+    from saed.crystal.phase import space_group_in_cell
     from saed.simulate.families import shortest_allowed_g_inv_nm, standard_patterns, zone_label
     from saed.simulate.zone import zone_pattern
     from saed.simulate.zonemap import zone_map
@@ -59,7 +60,7 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
     cell = f"a = {lat.a_nm:.5f} nm" + (f", c = {lat.c_nm:.5f} nm" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
     fig.text(0.02, 0.965, f"{phase.name}", fontsize=16, weight="bold", va="center")
     fig.text(0.02 + 0.012 * (len(phase.name) + 2), 0.965,
-             f"{phase.structure_type or ''}   {phase.space_group_short} ({phase.space_group_number})   {cell}   "
+             f"{phase.structure_type or ''}   {space_group_in_cell(phase)} ({phase.space_group_number})   {cell}   "
              f"kinematic, {voltage_kv:g} kV, foil {thickness_nm:g} nm, all patterns at one scale",
              fontsize=9.5, va="center")
     fig.text(0.02, 0.03, "g1 drawn to the right in every pattern   filled disc: allowed (area ~ intensity)   open square: forbidden, present only by double "
