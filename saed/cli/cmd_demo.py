@@ -109,7 +109,8 @@ def run(args) -> int:
             print(format_summary(result, image=label, top=3, **shown))
             print()
             atomic_write_text(out / f"{name}.json", json.dumps(result_json(result, image=label), indent=2) + "\n")
-            png = overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored, dpi=90, size_in=7.5)
+            png = overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored, dpi=90, size_in=7.5,
+                                       units=shown["units"])
             atomic_write_bytes(out / f"{name}_overlay.png", png)
             entries.append(ReportEntry(label, insp.image, result, ignored=insp.ignored,
                                        caption=f"Synthetic demo pattern: {desc[name]}.", overlay_png=png))

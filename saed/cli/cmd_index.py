@@ -83,7 +83,8 @@ def run(args) -> int:
     if args.overlay:
         from saed.report.index_overlay import write_index_overlay
 
-        write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored)
+        write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored,
+                            units=units_from_args(args))
         print(f"overlay written to {args.overlay}", file=out)
     if args.report:
         from saed.report.index_html import ReportEntry, write_report

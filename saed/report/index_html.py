@@ -87,7 +87,7 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
     m = r.measured
     cal = m.calibration
     png = entry.overlay_png or overlay_figure_bytes(entry.image, r, title=entry.name, dpi=90, size_in=7.5,
-                                                    ignored=entry.ignored)
+                                                    ignored=entry.ignored, units=units)
     img = f'<img alt="overlay of {_e(entry.name)}" src="data:image/png;base64,{base64.b64encode(png).decode()}">'
     best = r.best
     word = confidence_word(r)

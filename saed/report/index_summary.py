@@ -15,7 +15,7 @@ from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
 
 __all__ = ["format_summary", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "spot_label",
-           "kind_text", "SHOWN_SPOTS", "SCORE_MEANING", "CONFIDENCE_MEANING", "legend_lines"]
+           "kind_text", "SHOWN_SPOTS", "SCORE_MEANING", "SCORE_SHORT", "CONFIDENCE_MEANING", "legend_lines"]
 
 #: Spots of the best solution listed in the summary (all of them are in the JSON).
 SHOWN_SPOTS = 14
@@ -24,6 +24,8 @@ SHOWN_SPOTS = 14
 SCORE_MEANING = ("score: how well the simulated pattern explains the measured spots, 0 to 1 (1 = every spot on a "
                  "predicted position and no strong predicted spot missing); it ranks solutions, it is not a "
                  "probability")
+#: The same in a few words, for pictures.
+SCORE_SHORT = "score: how well the simulated pattern explains the spots, 0 to 1; a ranking, not a probability"
 #: What each confidence tag means (the rule in :func:`confidence_word`).
 CONFIDENCE_MEANING = {
     "clear": "score at least 0.80 and at least 0.05 above the runner-up, no look-alike",
