@@ -241,7 +241,7 @@ def test_thin_fcc_111_extra_spots_are_labelled_as_one_third_422_positions(tmp_pa
                for s in spots if s["kind"] != "holz-projection")
 
 
-def test_units_angstrom_in_terminal_and_html(hcp_example, tmp_path, capsys):
+def test_units_angstrom_in_terminal_and_html(hcp_example, tmp_path, capsys, figure_texts):
     a_nm = 0.25071
     d_1010_ang = 10 * a_nm * math.sqrt(3) / 2  # 2.1712 Å
     assert main(["simulate", "Co-hcp", "--zone", "2", "-1", "-1", "0", "--units", "angstrom"]) == 0
@@ -252,7 +252,11 @@ def test_units_angstrom_in_terminal_and_html(hcp_example, tmp_path, capsys):
     assert float(row.split()[1]) == pytest.approx(d_1010_ang, abs=6e-4)
     img, cal = hcp_example
     assert main(["index", str(img), "--calibration", str(cal), "--phase", "Co-hcp", "--units", "angstrom",
-                 "--report", str(tmp_path)]) == 0
+                 "--report", str(tmp_path), "--overlay", str(tmp_path / "o.png")]) == 0
+    # the overlay (drawn for --overlay and again for the report): scale bar and scale in 1/Å, score legend
+    assert sum(re.fullmatch(r"[\d.]+ 1/Å", t) is not None for t in figure_texts) == 2
+    assert not any("1/nm" in t for t in figure_texts)
+    assert sum("not a probability" in t for t in figure_texts) == 2
     out = _plain(capsys.readouterr().out)
     assert "d meas Å" in out and "1/Å per px" in out and " nm" not in out.split("score:")[0]
     page = (tmp_path / "index.html").read_text()
