@@ -197,12 +197,13 @@ def run(args) -> int:
 
 
 def _print(res, doc, args):
-    from saed.crystal.notation import table_lines, terminal_style, wavelength_text
+    from saed.crystal.notation import indices_text, person_text, table_lines, terminal_style, wavelength_text
 
     cal = res.calibration
     units = units_from_args(args)
     un, inv = units.label(terminal_style()), units.inverse_label(terminal_style())
-    kind = f"[{' '.join(f'{v:g}' for v in doc['zone_axis'])}] zone pattern" if doc["zone_axis"] else "ring pattern"
+    st = terminal_style()
+    kind = f"[{indices_text(doc['zone_axis'], st)}] zone pattern" if doc["zone_axis"] else "ring pattern"
     print(f"{cal.standard} {kind}, {cal.voltage_kv:g} kV (lambda = {wavelength_text(cal.wavelength_nm)})")
     print(f"  scale          {units.reciprocal(cal.scale_inv_nm_per_px):.5g} {inv} per px  (+-{doc['scale_sigma_pct']:.4f} %)")
     if cal.center_px:
@@ -216,7 +217,7 @@ def _print(res, doc, args):
     else:
         print("  camera length  - (give --pixel-pitch UM for camera length and camera constant)")
     print(f"  residual       {res.residual_pct:.3f} % (RMS misfit of the {'spots' if doc['zone_axis'] else 'rings'} used)")
-    rows = [[f"{r[0]:.2f}", r[1] or "(none)", units.length_text(r[2], 5), units.length_text(r[3], 5), _fmt(r[4], "+.3f")]
+    rows = [[f"{r[0]:.2f}", person_text(r[1], st) if r[1] else "(none)", units.length_text(r[2], 5), units.length_text(r[3], 5), _fmt(r[4], "+.3f")]
             for r in res.ring_rows]
     for line in table_lines([("r px", ">"), ("hkl", ">"), (f"d std {un}", ">"), (f"d meas {un}", ">"),
                              ("misfit %", ">")], rows, indent="  "):
