@@ -114,10 +114,10 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
                 f'<th>{_SCORE_HEAD}</th><th>spots</th>'
                 f'<th>d err %</th><th>angle err &deg;</th><th>scale {inv}/px</th></tr>']
         for i, s in enumerate(r.solutions):
-            sc = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}" + (f" ({s.scale_error_pct:+.1f} %)" if s.scale_error_pct is not None else "")
+            sc = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}" + (f" ({s.scale_error_pct:+.1f}&nbsp;%)" if s.scale_error_pct is not None else "")
             if s.implied_camera_length_mm is not None and not (cal is not None and cal.is_calibrated):
                 sc += f", L = {s.implied_camera_length_mm:.0f} mm"
-            rows.append(f"<tr><td>{i + 1}</td><td class='l'>{_e(s.phase_name)}</td><td class='l' style='white-space:nowrap'>{zone_text(s, 'html')}</td>"
+            rows.append(f"<tr><td>{i + 1}</td><td class='l' style='white-space:nowrap'>{_e(s.phase_name)}</td><td class='l' style='white-space:nowrap'>{zone_text(s, 'html')}</td>"
                         f"<td>{s.score:.2f}</td><td>{s.n_explained}/{len(s.indexed)}</td>"
                         f"<td>{_f(s.mean_d_error_pct, '.2f')}</td><td>{_f(s.mean_angle_error_deg, '.2f')}</td><td>{sc}</td></tr>")
         right.append("<table>" + "".join(rows) + "</table>")
