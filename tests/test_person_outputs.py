@@ -135,7 +135,9 @@ def test_no_person_facing_output_prints_a_three_index_hexagonal_zone(hcp_example
     labels += re.findall(r"g[12] (\S+) d", out)
     # tilt
     assert main(["tilt", "Co-hcp", "--zone", "0", "0", "0", "1", "--target", "1", "0", "-1", "3"]) == 0
-    texts.append(capsys.readouterr().out)
+    out = capsys.readouterr().out
+    assert "°" not in out and "from beam deg" in out  # one angle style in the terminal
+    texts.append(out)
     # rings: terminal and plot, on a Co-hcp ring pattern
     scale = physics.scale_from_camera_inv_nm_per_px(100.0, 14.0, 200.0)
     rp = ring_pattern([builtin_phase("Co-hcp")], shape_px=(512, 512), scale_inv_nm_per_px=scale, rng=3)
@@ -306,3 +308,33 @@ def test_calibrate_list_keeps_the_star_off_the_date_and_names_the_camera_constan
     assert "lambda L nm mm" in out
     row = next(line for line in out.splitlines() if "*" in line and "Au" in line)
     assert re.search(r"\* \d{4}-\d\d-\d\d", row), row
+
+
+def test_summary_table_stays_aligned_with_a_long_zone(hcp_example):
+    # [17 -13 -4 18] is a real 4-index zone (17 - 13 - 4 = 0); the ranked table must not shift for it
+    import dataclasses
+
+    from saed.calibration import read_calibration_file
+    from saed.crystal.notation import text_width
+    from saed.image.measure import inspect_file
+    from saed.index import index_pattern, prepare_phases
+    from saed.report.index_summary import format_summary
+
+    img, cal = hcp_example
+    insp = inspect_file(img, read_calibration_file(cal))
+    result = index_pattern(insp.measured, prepare_phases([builtin_phase("Co-hcp")]), top=3)
+    best = result.solutions[0]
+    long = dataclasses.replace(best, zone_axis_4=(17, -13, -4, 18), score=0.5)
+    result = dataclasses.replace(result, solutions=(best, long))
+    for style in ("unicode", "plain"):
+        lines = format_summary(result, image="x.tif", style=style).splitlines()
+        k = next(i for i, line in enumerate(lines) if line.startswith("rank"))
+        head, rows = lines[k], lines[k + 1:k + 3]
+        score_end = text_width(head[:head.index("score") + len("score")])
+        for row, sol in zip(rows, result.solutions):
+            cell = f"{sol.score:.2f}"
+            assert text_width(row[:row.index(cell) + len(cell)]) == score_end, (style, row)
+            zone_start = text_width(row[:row.index("[")])
+            assert zone_start == text_width(head[:head.index("zone")]), (style, row)
+        assert len({text_width(r) for r in [head] + rows}) == 1  # the last, right-aligned column ends together
+        assert "17 -13 -4 18" in rows[1] or "17 1\u03053\u0305 4\u0305 18" in rows[1]
