@@ -338,3 +338,17 @@ def test_summary_table_stays_aligned_with_a_long_zone(hcp_example):
             assert zone_start == text_width(head[:head.index("zone")]), (style, row)
         assert len({text_width(r) for r in [head] + rows}) == 1  # the last, right-aligned column ends together
         assert "17 -13 -4 18" in rows[1] or "17 1\u03053\u0305 4\u0305 18" in rows[1]
+
+
+def test_atlas_and_diagram_in_angstrom(tmp_path, capsys, figure_texts):
+    # Co-hcp [0001]: g1 a {10-10} spot, d = a sqrt(3)/2 = 2.171 Å (a = 0.25071 nm)
+    assert main(["atlas", "Co-hcp", "--out", str(tmp_path / "a.pdf"), "--max-index", "1", "--units", "angstrom"]) == 0
+    capsys.readouterr()
+    text = " ".join(figure_texts)
+    assert f"d {10 * 0.25071 * math.sqrt(3) / 2:.3f} Å" in text and "a = 2.5071 Å, c = 4.0695 Å" in text
+    assert " nm" not in text.replace("1/nm", "")
+    figure_texts.clear()
+    assert main(["simulate", "Co-hcp", "--zone", "0", "0", "0", "1", "--units", "angstrom",
+                 "--diagram", str(tmp_path / "d.png")]) == 0
+    text = " ".join(figure_texts)
+    assert "t = 500 Å" in text and "Å$^{-1}$" in text and " nm" not in text

@@ -8,7 +8,7 @@ import re
 import numpy as np
 
 from saed.cli.common import add_calibration_options, calibration_from_args, positive_float, write_json
-from saed.cli.display import add_units_argument, display_options
+from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.errors import InputError
 
 NAME = "simulate"
@@ -232,7 +232,7 @@ def run(args) -> int:
     if args.diagram:
         from saed.report.render_pattern import render_diagram
 
-        render_diagram(zp, args.diagram, in_plane_rotation_deg=args.rotation)
+        render_diagram(zp, args.diagram, in_plane_rotation_deg=args.rotation, units=units_from_args(args))
     if args.json != "-":
         _print_table(zp, doc, **display_options(args))
         for label, path in (("JSON", args.json), ("image", args.image), ("diagram", args.diagram)):
