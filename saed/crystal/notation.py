@@ -31,7 +31,7 @@ from saed.errors import InputError
 
 __all__ = ["STYLES", "indices_text", "zone_text", "plane_text", "shown_zone", "shown_plane", "projected_plane",
            "fraction_text", "terminal_style", "text_width", "pad", "table_lines", "person_text", "Units", "UNITS",
-           "units_named", "wavelength_text", "degrees_text"]
+           "units_named", "wavelength_text", "degrees_text", "signed_text"]
 
 #: Media an index can be written for.
 STYLES = ("plain", "unicode", "html", "mathtext")
@@ -260,6 +260,17 @@ def person_text(text: str, style: str = "plain") -> str:
     if style == "unicode":
         return text
     return _DEG.sub(lambda m: m.group(1) + ("&deg;" if style == "html" else "°"), text)
+
+
+def signed_text(value, decimals: int = 2) -> str:
+    """A signed number without a negative zero: '+0.00', not '-0.00', for -0.001; '-' for none.
+
+    >>> signed_text(-0.001), signed_text(-0.26), signed_text(None)
+    ('+0.00', '-0.26', '-')
+    """
+    if value is None or not math.isfinite(float(value)):
+        return "-"
+    return f"{round(float(value), decimals) + 0.0:+.{decimals}f}"
 
 
 def degrees_text(value_deg: float, spec: str = ".1f", style: str = "unicode") -> str:

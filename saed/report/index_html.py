@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from saed.crystal.notation import UNITS, Units, person_text
+from saed.crystal.notation import UNITS, Units, person_text, signed_text
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_text
 from saed.report.index_overlay import overlay_figure_bytes
@@ -114,7 +114,7 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
                 f'<th>{_SCORE_HEAD}</th><th>spots</th>'
                 f'<th>d err %</th><th>angle err &deg;</th><th>scale {inv}/px</th></tr>']
         for i, s in enumerate(r.solutions):
-            sc = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}" + (f" ({s.scale_error_pct:+.1f}&nbsp;%)" if s.scale_error_pct is not None else "")
+            sc = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}" + (f" ({signed_text(s.scale_error_pct, 1)}&nbsp;%)" if s.scale_error_pct is not None else "")
             if s.implied_camera_length_mm is not None and not (cal is not None and cal.is_calibrated):
                 sc += f", L = {s.implied_camera_length_mm:.0f} mm"
             rows.append(f"<tr><td>{i + 1}</td><td class='l' style='white-space:nowrap'>{_e(s.phase_name)}</td><td class='l' style='white-space:nowrap'>{zone_text(s, 'html')}</td>"
@@ -142,7 +142,7 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
         for s in sorted(best.indexed, key=lambda s: -s.d_nm_measured):
             rows.append(f"<tr><td class='l'>{_hkl(s)}</td><td>{s.x_px:.1f}</td><td>{s.y_px:.1f}</td>"
                         f"<td>{units.length_text(s.d_nm_measured)}</td>"
-                        f"<td>{units.length_text(s.d_nm_calc).replace('-', '&ndash;')}</td><td>{_f(s.d_error_pct, '+.2f')}</td>"
+                        f"<td>{units.length_text(s.d_nm_calc).replace('-', '&ndash;')}</td><td>{signed_text(s.d_error_pct) if s.d_error_pct is not None else '&ndash;'}</td>"
                         f"<td>{_f(s.residual_px, '.2f')}</td><td>{s.intensity:.0f}</td>"
                         f"<td class='l k-{s.kind}'>{kind_text(s, 'html')}</td></tr>")
         holz = ("<p class='legend'>projected HOLZ: a higher-order Laue-zone reflection seen at its projection onto "

@@ -10,7 +10,7 @@ import math
 import textwrap
 
 from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, indices_text, pad, person_text,
-                                   shown_plane, table_lines)
+                                   shown_plane, signed_text, table_lines)
 from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
 
@@ -136,7 +136,7 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
     for i, s in enumerate(result.solutions[:top]):
         scale = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}"
         if s.scale_error_pct is not None:
-            scale += f" ({s.scale_error_pct:+.1f} %)"
+            scale += f" ({signed_text(s.scale_error_pct, 1)} %)"
         table.append([str(i + 1), s.phase_name, zone_text(s, style), f"{s.score:.2f}",
                       f"{s.n_explained}/{len(s.indexed)}", _fmt(s.mean_d_error_pct, ".2f"),
                       _fmt(s.mean_angle_error_deg, ".2f"), scale])
@@ -169,7 +169,7 @@ def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -
     header = [("hkl", "<"), ("x px", ">"), ("y px", ">"), (f"d meas {u}", ">"), (f"d calc {u}", ">"),
               ("err %", ">"), ("explained as", "<")]
     rows = [[spot_label(s, style), f"{s.x_px:.1f}", f"{s.y_px:.1f}", units.length_text(s.d_nm_measured),
-             units.length_text(s.d_nm_calc), _fmt(s.d_error_pct, "+.2f"), kind_text(s, style)]
+             units.length_text(s.d_nm_calc), signed_text(s.d_error_pct), kind_text(s, style)]
             for s in shown[:SHOWN_SPOTS]]
     out += table_lines(header, rows, indent="  ")
     if len(shown) > SHOWN_SPOTS:
