@@ -9,7 +9,7 @@ import html
 import math
 import textwrap
 
-from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, indices_text, pad, person_text,
+from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, indices_text, person_text,
                                    shown_plane, signed_text, table_lines)
 from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
@@ -28,7 +28,7 @@ SCORE_MEANING = ("score: how well the simulated pattern explains the measured sp
 SCORE_SHORT = "score: how well the simulated pattern explains the spots, 0 to 1; a ranking, not a probability"
 #: What each confidence tag means (the rule in :func:`confidence_word`).
 CONFIDENCE_MEANING = {
-    "clear": "score at least 0.80 and at least 0.05 above the runner-up, no look-alike",
+    "clear": "score at least 0.80, at least 0.05 above the runner-up, and no look-alike that fits as well",
     "likely": "score at least 0.60, but close to the runner-up or below 0.80",
     "weak": "score below 0.60: check the calibration and the phase list",
     "ambiguous": "a look-alike fits as well: this one pattern cannot decide (the note says what would)",
