@@ -83,6 +83,13 @@ def test_tial_cell_repeats_under_c_centring_only():
     assert cell_centring(builtin_phase("Cu")) == "F"
 
 
+def test_phases_json_names_the_group_in_the_cell_and_keeps_the_standard_one(capsys):
+    assert main(["phases", "TiAl", "--json", "-"]) == 0
+    (row,) = json.loads(capsys.readouterr().out)
+    assert (row["space_group"], row["space_group_in_cell"], row["space_group_number"]) == ("P4/mmm", "C4/mmm", 123)
+    assert row["n_atoms_cell"] == 4
+
+
 def test_sources_cite_nothing_that_cannot_be_checked_here():
     # Powder-card numbers recalled from memory cannot be confirmed here: sources name a paper, CODATA, or the
     # library cross-check that tests/test_phases.py makes; unchecked values say so.
