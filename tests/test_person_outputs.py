@@ -352,3 +352,15 @@ def test_atlas_and_diagram_in_angstrom(tmp_path, capsys, figure_texts):
                  "--diagram", str(tmp_path / "d.png")]) == 0
     text = " ".join(figure_texts)
     assert "t = 500 Å" in text and "Å$^{-1}$" in text and " nm" not in text
+
+
+@pytest.mark.parametrize("argv", [["index", "x.tif"], ["spots", "x.tif"], ["rings", "x.tif"], ["demo"],
+                                  ["simulate", "Co-fcc", "--zone", "0", "0", "1"], ["phases"],
+                                  ["calibrate", "x.tif", "--standard", "Au"], ["atlas", "Co-fcc", "--out", "a.pdf"]])
+def test_a_unit_that_is_not_offered_is_refused_in_one_line(argv, capsys):
+    try:
+        rc = main(argv + ["--units", "furlong"])
+    except SystemExit as e:  # argparse's own exit
+        rc = e.code
+    err = capsys.readouterr().err
+    assert rc == 2 and "--units" in err and "furlong" in err and "Traceback" not in err
