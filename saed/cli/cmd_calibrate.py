@@ -6,6 +6,7 @@ import math
 
 from saed.cli.common import add_image_arguments, finite_float, positive_float, write_json
 from saed.cli.display import add_units_argument, units_from_args
+from saed.crystal.notation import terminal_style
 from saed.errors import InputError
 
 NAME = "calibrate"
@@ -93,7 +94,9 @@ def run_list(args) -> int:
         print(f"no calibrations stored in {folder}" + ("" if folder.exists() else " (folder does not exist yet)"))
     else:
         print(f"calibrations in {folder}, newest first per camera length:")
-        print(f"{'L mm':>7}  {'date':<19} {'standard':<10} {'scale 1/nm/px':>13} {'L meas mm':>9} {'lambda L nm mm':>14} "
+        units = units_from_args(args)
+        inv = units.inverse_label(terminal_style())
+        print(f"{'L mm':>7}  {'date':<19} {'standard':<10} {'scale ' + inv + '/px':>13} {'L meas mm':>9} {'lambda L nm mm':>14} "
               f"{'ellipse':>14} {'resid %':>7}  file")
         last = object()
         for e in entries:
@@ -103,7 +106,7 @@ def run_list(args) -> int:
             mark = "*" if lab != last else " "
             last = lab
             ell = f"{c.ellipse.axis_ratio:.4f}@{c.ellipse.major_axis_angle_deg:.0f}" if c.ellipse else "-"
-            print(f"{head:>7}{mark} {(c.date or '-')[:19]:<19} {(c.standard or '-'):<10} {c.scale_inv_nm_per_px:>13.6f} "
+            print(f"{head:>7}{mark} {(c.date or '-')[:19]:<19} {(c.standard or '-'):<10} {units.reciprocal(c.scale_inv_nm_per_px):>13.5g} "
                   f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '.5f'):>14} "
                   f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
         print("* = the newest calibration of that camera length; lambda L = camera constant (wavelength x camera "
