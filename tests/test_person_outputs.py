@@ -263,9 +263,12 @@ def test_units_angstrom_in_terminal_and_html(hcp_example, tmp_path, capsys, figu
     assert "d meas Å" in out and "1/Å per px" in out and " nm" not in out.split("score:")[0]
     page = (tmp_path / "index.html").read_text()
     assert "<th>d meas Å</th>" in page and "<td>2.171</td>" in page
-    assert main(["spots", str(img), "--calibration", str(cal), "--units", "angstrom"]) == 0
+    figure_texts.clear()
+    assert main(["spots", str(img), "--calibration", str(cal), "--units", "angstrom",
+                 "--overlay", str(tmp_path / "s.png")]) == 0
     out = capsys.readouterr().out
     assert "d = 2.171 Å" in out and "1/Å per px" in out
+    assert any("d 2.171 Å" in t for t in figure_texts) and not any("nm" in t for t in figure_texts)
     assert main(["phases", "Co-hcp", "--units", "angstrom"]) == 0
     assert "2.5071" in capsys.readouterr().out
 

@@ -6,7 +6,7 @@ import math
 import sys
 
 from saed.cli.common import add_image_arguments, check_frame_and_outputs, add_calibration_options, calibration_from_args, positive_float, write_json
-from saed.cli.display import add_units_argument, display_options
+from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.crystal.notation import UNITS, table_lines
 from saed.errors import InputError
 
@@ -197,7 +197,8 @@ def run(args) -> int:
         from saed.image.overlay import write_spots_overlay
 
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored,
-                            title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""))
+                            title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),
+                            units=units_from_args(args))
     print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all,
                    **display_options(args, out)), file=out)
     if args.overlay:
