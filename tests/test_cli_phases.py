@@ -47,17 +47,61 @@ def test_table(capsys):
     out = capsys.readouterr().out
     lines = [l for l in out.splitlines() if l.strip()]
     assert lines[0].split()[:2] == ["name", "structure"]
-    body = {l.split()[0]: l for l in lines[1:-1]}
+    end = next(i for i, l in enumerate(lines) if l.startswith("45 phases"))
+    body = {l.split()[0]: l for l in lines[1:end]}
     assert set(body) == set(builtin_names())
     # Si shows the CODATA digits, not 0.54310; hcp shows c; cubic leaves c empty
     assert "0.5431021" in body["Si"]
     assert "0.25071" in body["Co-hcp"] and "0.40695" in body["Co-hcp"] and "P63/mmc (194)" in body["Co-hcp"]
     assert "Fm-3m (225)" in body["Co-fcc"]
-    assert lines[-1].startswith("45 phases")
-    # columns line up: every row's space group starts in the same column as the header's
+    # columns line up: every row's space group starts in the same column as the header's; TiAl's 4-atom cell
+    # is C-centred, so its group is named as written in that cell (P4/mmm = C4/mmm, International Tables A)
     col = lines[0].index("space group")
     for name, line in body.items():
-        assert line[col:].startswith(builtin_phase(name).space_group_short), name
+        shown = "C4/mmm (123 = P4/mmm)" if name == "TiAl" else builtin_phase(name).space_group_short
+        assert line[col:].startswith(shown), name
+    assert any(l.startswith("TiAl: 4-atom C-centred tetragonal cell") for l in lines[end:])
+
+
+def test_structure_types_show_no_raw_underscore(capsys):
+    # Strukturbericht symbols carry subscripts (L1₂, L1₀); a raw "L1_2" is a typesetting leftover
+    assert main(["phases"]) == 0
+    out = capsys.readouterr().out
+    assert "_" not in "".join(l.split("  ")[1] for l in out.splitlines()[1:] if l.strip() and "  " in l)
+    assert "L1\u2082 (Cu3Au type)" in out and "L1\u2080 (CuAu type)" in out
+    assert main(["phases", "L12", "--json", "-"]) == 0  # the plain-digit spelling still finds it
+    assert [r["name"] for r in json.loads(capsys.readouterr().out)] == ["Ni3Al"]
+
+
+def test_tial_cell_repeats_under_c_centring_only():
+    # TiAl (L1_0) in the 4-atom cell: Ti at 0,0,0 and 1/2,1/2,0, Al at 1/2,0,1/2 and 0,1/2,1/2 (the CuAu
+    # structure, common practice). (1/2,1/2,0) maps every atom onto a like atom; (1/2,0,1/2) maps Ti onto Al.
+    from saed.crystal.phase import cell_centring
+
+    assert cell_centring(builtin_phase("TiAl")) == "C"
+    assert cell_centring(builtin_phase("NiAl")) == "P" and cell_centring(builtin_phase("Ni3Al")) == "P"
+    assert cell_centring(builtin_phase("Cu")) == "F"
+
+
+def test_phases_json_names_the_group_in_the_cell_and_keeps_the_standard_one(capsys):
+    assert main(["phases", "TiAl", "--json", "-"]) == 0
+    (row,) = json.loads(capsys.readouterr().out)
+    assert (row["space_group"], row["space_group_in_cell"], row["space_group_number"]) == ("P4/mmm", "C4/mmm", 123)
+    assert row["n_atoms_cell"] == 4
+
+
+def test_sources_cite_nothing_that_cannot_be_checked_here():
+    # Powder-card numbers recalled from memory cannot be confirmed here: sources name a paper, CODATA, or the
+    # library cross-check that tests/test_phases.py makes; unchecked values say so.
+    from tests.test_phases import XRAYLIB, _ase_pairs
+
+    ase_names = {n for n, _ in _ase_pairs()}
+    for name in builtin_names():
+        src = builtin_phase(name).source
+        assert "ICDD" not in src and "card number" not in src, name
+        assert ("xraylib" in src) == (name in XRAYLIB), name
+        assert ("ASE reference_states" in src) == (name in ase_names), name
+        assert "checked here" in src or "nothing here" in src or "CODATA" in src or "(19" in src, name
 
 
 @pytest.mark.parametrize("query,names", [

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from saed.cli.common import positive_float
+from saed.cli.display import add_units_argument, units_from_args
 from saed.cli.progress import Progress
 
 NAME = "atlas"
@@ -26,6 +27,7 @@ def add_arguments(p):
     p.add_argument("--voltage", type=positive_float, default=200.0, metavar="KV", help="accelerating voltage, kV (default 200)")
     p.add_argument("--thickness", type=positive_float, default=50.0, metavar="NM",
                    help="foil thickness for the intensities, nm (default 50)")
+    add_units_argument(p)
 
 
 def run(args) -> int:
@@ -48,6 +50,6 @@ def run(args) -> int:
             phases.append(ph)
     with Progress(100 * len(phases), "atlas") as bar:
         n = write_atlas(phases, args.out, max_index=args.max_index, voltage_kv=args.voltage,
-                        thickness_nm=args.thickness, progress=bar)
+                        thickness_nm=args.thickness, progress=bar, units=units_from_args(args))
     print(f"{n} page{'s' if n != 1 else ''} written to {args.out}")
     return 0

@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 
 from saed.cli.common import add_image_arguments, finite_float, positive_float, write_json
+from saed.cli.display import add_units_argument, units_from_args
+from saed.crystal.notation import terminal_style
 from saed.errors import InputError
 
 NAME = "calibrate"
@@ -41,6 +43,7 @@ def add_arguments(p):
                    help="largest misfit of a ring to a line of the standard, %% (default 1)")
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write the result as JSON ('-' for stdout)")
+    add_units_argument(out)
     out.add_argument("--out", metavar="CAL.json", help="write the calibration file (for --calibration of index, rings, batch)")
     out.add_argument("--plot", metavar="PNG", help="draw the radial profile with the standard's lines and the fitted rings")
     hist = p.add_argument_group("history")
@@ -98,7 +101,9 @@ def run_list(args) -> int:
         print(f"no calibrations stored in {folder}" + ("" if folder.exists() else " (folder does not exist yet)"))
     else:
         print(f"calibrations in {folder}, newest first per camera length:")
-        print(f"{'L mm':>7} {'date (this clock)':<22} {'standard':<10} {'scale 1/nm/px':>13} {'L meas mm':>9} {'lambda L':>9} "
+        units = units_from_args(args)
+        inv = units.inverse_label(terminal_style())
+        print(f"{'L mm':>7}  {'date (this clock)':<22} {'standard':<10} {'scale ' + inv + '/px':>13} {'L meas mm':>9} {'lambda L nm mm':>14} "
               f"{'ellipse':>14} {'resid %':>7}  file")
         last = object()
         for e in entries:
@@ -110,10 +115,11 @@ def run_list(args) -> int:
             ell = f"{c.ellipse.axis_ratio:.4f}@{c.ellipse.major_axis_angle_deg:.0f}" if c.ellipse else "-"
             # One time zone for every row (files may carry different UTC offsets): the order reads true.
             when = e.when.astimezone().strftime("%Y-%m-%d %H:%M%z") if e.when is not None else "-"
-            print(f"{head:>7}{mark}{when:<22} {(c.standard or '-'):<10} {c.scale_inv_nm_per_px:>13.6f} "
-                  f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '9.5f'):>9} "
+            print(f"{head:>7}{mark} {when:<22} {(c.standard or '-'):<10} {units.reciprocal(c.scale_inv_nm_per_px):>13.5g} "
+                  f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '.5f'):>14} "
                   f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
-        print("* = the newest calibration of that camera length")
+        print("* = the newest calibration of that camera length; lambda L = camera constant (wavelength x camera "
+              "length), nm mm")
     for msg in problems:  # "unreadable: FILE: reason"; such a file is never chosen
         print(msg)
     return 0
@@ -203,10 +209,15 @@ def run(args) -> int:
 
 
 def _print(res, doc, args):
+    from saed.crystal.notation import indices_text, person_text, table_lines, terminal_style, wavelength_text
+
     cal = res.calibration
-    kind = f"[{' '.join(f'{v:g}' for v in doc['zone_axis'])}] zone pattern" if doc["zone_axis"] else "ring pattern"
-    print(f"{cal.standard} {kind}, {cal.voltage_kv:g} kV (lambda = {cal.wavelength_nm:.6f} nm)")
-    print(f"  scale          {cal.scale_inv_nm_per_px:.6f} 1/nm per px  (+-{doc['scale_sigma_pct']:.4f} %)")
+    units = units_from_args(args)
+    un, inv = units.label(terminal_style()), units.inverse_label(terminal_style())
+    st = terminal_style()
+    kind = f"[{indices_text(doc['zone_axis'], st)}] zone pattern" if doc["zone_axis"] else "ring pattern"
+    print(f"{cal.standard} {kind}, {cal.voltage_kv:g} kV (lambda = {wavelength_text(cal.wavelength_nm)})")
+    print(f"  scale          {units.reciprocal(cal.scale_inv_nm_per_px):.5g} {inv} per px  (+-{doc['scale_sigma_pct']:.4f} %)")
     if cal.center_px:
         print(f"  centre         ({cal.center_px[0]:.2f}, {cal.center_px[1]:.2f}) px")
     if cal.ellipse:
@@ -218,8 +229,10 @@ def _print(res, doc, args):
     else:
         print("  camera length  - (give --pixel-pitch UM for camera length and camera constant)")
     print(f"  residual       {res.residual_pct:.3f} % (RMS misfit of the {'spots' if doc['zone_axis'] else 'rings'} used)")
-    print(f"  {'r px':>9} {'hkl':>9} {'d std nm':>9} {'d meas nm':>10} {'misfit %':>9}")
-    for r in res.ring_rows:
-        print(f"  {r[0]:>9.2f} {r[1] or '(none)':>9} {_fmt(r[2], '9.5f'):>9} {r[3]:>10.5f} {_fmt(r[4], '+9.3f'):>9}")
+    rows = [[f"{r[0]:.2f}", person_text(r[1], st) if r[1] else "(none)", units.length_text(r[2], 5), units.length_text(r[3], 5), _fmt(r[4], "+.3f")]
+            for r in res.ring_rows]
+    for line in table_lines([("r px", ">"), ("hkl", ">"), (f"d std {un}", ">"), (f"d meas {un}", ">"),
+                             ("misfit %", ">")], rows, indent="  "):
+        print(line)
     for note in res.notes:
         print(f"note: {note}")

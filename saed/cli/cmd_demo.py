@@ -7,6 +7,7 @@ import sys
 from importlib import resources
 from pathlib import Path
 
+from saed.cli.display import add_units_argument, display_options
 from saed.errors import InputError
 
 NAME = "demo"
@@ -24,6 +25,7 @@ def add_arguments(p):
     p.add_argument("--out", metavar="DIR", default="saed-demo",
                    help="folder for the report, overlays and JSON (default ./saed-demo)")
     p.add_argument("--make", metavar="DIR", help="write the example images (TIFF) and their sidecars into DIR and stop")
+    add_units_argument(p)
 
 
 def example_files() -> list[tuple[str, object, object]]:
@@ -89,6 +91,7 @@ def run(args) -> int:
     if not out.exists() and not out.parent.is_dir():
         raise InputError(f"--out {args.out}: folder {out.parent} does not exist")
     out.mkdir(exist_ok=True)
+    shown = display_options(args)
     tables = prepare_phases([builtin_phase(n) for n in DEMO_PHASES], voltage_kv=DEMO_VOLTAGE_KV)
     files = example_files()
     entries = []
@@ -103,16 +106,18 @@ def run(args) -> int:
             insp = inspect_file(img_path, cal)
             result = index_pattern(insp.measured, tables)
             label = f"{name}.tif"
-            print(format_summary(result, image=label, top=3))
+            print(format_summary(result, image=label, top=3, **shown))
             print()
             atomic_write_text(out / f"{name}.json", json.dumps(result_json(result, image=label), indent=2) + "\n")
-            png = overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored, dpi=90, size_in=7.5)
+            png = overlay_figure_bytes(insp.image, result, title=label, ignored=insp.ignored, dpi=90, size_in=7.5,
+                                       units=shown["units"])
             atomic_write_bytes(out / f"{name}_overlay.png", png)
             entries.append(ReportEntry(label, insp.image, result, ignored=insp.ignored,
                                        caption=f"Synthetic demo pattern: {desc[name]}.", overlay_png=png))
             bar.update(1, text=name)
     path = write_report(out, entries, title="saed demo: cobalt grains of a Co-Cr wear coating (200 kV)",
                         intro="Synthetic example patterns (invented data) indexed against Co-fcc, Co-hcp and Cr, "
-                              "each with its calibration sidecar (camera length 120 mm, 15 um pixels).")
+                              "each with its calibration sidecar (camera length 120 mm, 15 \u00b5m pixels).",
+                        units=shown["units"])
     print(f"report written to {path}", file=sys.stdout)
     return 0

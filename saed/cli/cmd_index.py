@@ -6,6 +6,7 @@ import sys
 
 from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
                              matching_options_from_args, phases_from_args, write_json)
+from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.errors import InputError
 
 NAME = "index"
@@ -34,6 +35,7 @@ def add_arguments(p):
     out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
     out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
     out.add_argument("--report", metavar="DIR", help="write a self-contained HTML report (index.html) into DIR")
+    add_units_argument(out)
 
 
 def check_outputs(args) -> None:
@@ -81,19 +83,20 @@ def run(args) -> int:
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
     result = index_pattern(measured, tables, top=args.top, **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
-    print(format_summary(result, image=args.image, frame=args.frame, top=args.top), file=out)
+    print(format_summary(result, image=args.image, frame=args.frame, top=args.top, **display_options(args, out)), file=out)
     if args.json:
         write_json(args.json, result_json(result, image=args.image, frame=args.frame))
     if args.overlay:
         from saed.report.index_overlay import write_index_overlay
 
-        write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored)
+        write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored,
+                            units=units_from_args(args))
         print(f"overlay written to {args.overlay}", file=out)
     if args.report:
         from saed.report.index_html import ReportEntry, write_report
 
         path = write_report(args.report, [ReportEntry(args.image, insp.image, result, ignored=insp.ignored)],
-                            title=f"saed index: {args.image}")
+                            title=f"saed index: {args.image}", units=units_from_args(args))
         print(f"report written to {path}", file=out)
     if not result.solutions:
         print(f"saed index: {result.message}", file=sys.stderr)

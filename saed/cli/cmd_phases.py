@@ -7,7 +7,8 @@ import sys
 import textwrap
 
 from saed.cli.common import write_json
-from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, suggest_builtin
+from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, space_group_in_cell, suggest_builtin
+from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
 
 NAME = "phases"
@@ -25,6 +26,7 @@ def add_arguments(p):
                    help="show only phases whose name, structure type or space group contains TEXT "
                         "(e.g. 'Co', 'hcp', 'rock salt', '225')")
     p.add_argument("--json", metavar="PATH", help="write the list as JSON ('-' for stdout)")
+    add_units_argument(p)
 
 
 def _row(ph):
@@ -35,6 +37,7 @@ def _row(ph):
         "space_group": ph.space_group_short,
         "space_group_number": ph.space_group_number,
         "space_group_setting": ph.space_group,
+        "space_group_in_cell": space_group_in_cell(ph),
         "a_nm": lat.a_nm, "b_nm": lat.b_nm, "c_nm": lat.c_nm,
         "alpha_deg": lat.alpha_deg, "beta_deg": lat.beta_deg, "gamma_deg": lat.gamma_deg,
         "crystal_system": lat.crystal_system,
@@ -50,6 +53,7 @@ def _words(row) -> set[str]:
     text = " ".join([row["name"], row["structure_type"], row["space_group"],
                      str(row["space_group_number"]), row["crystal_system"], " ".join(row["elements"])])
     text += " " + text.replace("-", " ")  # 'Co-fcc' answers to 'Co', 'fcc' and 'Co-fcc'
+    text += " " + _ascii(text)  # 'L1₂' answers to 'L12'
     return {w.strip("(),").lower() for w in text.split() if w.strip("(),")}
 
 
@@ -61,22 +65,32 @@ def _matches(row, query) -> bool:
                for q in (t.lower() for t in " ".join(query).split()))
 
 
-def _nm(x: float) -> str:
-    """A length in nm with the digits the source gives: at least 5 decimals, at most 7 (Si: 0.5431021)."""
-    text = f"{x:.7f}".rstrip("0")
+_SUBSCRIPTS = str.maketrans("₀₁₂₃₄₅₆₇₈₉", "0123456789")
+
+
+def _ascii(text: str) -> str:
+    """Subscript digits as plain digits (Strukturbericht 'L1₂' -> 'L12') for terminals that cannot show them."""
+    return text.translate(_SUBSCRIPTS)
+
+
+def _nm(x: float, per_nm: float = 1.0) -> str:
+    """A length with the digits the source gives: in nm at least 5 decimals, at most 7 (Si: 0.5431021);
+    in Å (per_nm 10) one decimal fewer, the same significant figures."""
+    shift = 1 if per_nm == 10.0 else 0
+    text = f"{x * per_nm:.{7 - shift}f}".rstrip("0")
     decimals = len(text.split(".")[1])
-    return text + "0" * max(0, 5 - decimals)
+    return text + "0" * max(0, 5 - shift - decimals)
 
 
-def _cell_text(r) -> tuple[str, str]:
+def _cell_text(r, per_nm: float = 1.0) -> tuple[str, str]:
     """(a, other parameters) for the table; cubic shows a only, uniaxial shows c, others everything."""
-    a = _nm(r["a_nm"])
+    a = _nm(r["a_nm"], per_nm)
     system = r["crystal_system"]
     if system == "cubic":
         return a, ""
     if system in ("hexagonal", "tetragonal"):
-        return a, _nm(r["c_nm"])
-    extra = f"b {_nm(r['b_nm'])} c {_nm(r['c_nm'])}"
+        return a, _nm(r["c_nm"], per_nm)
+    extra = f"b {_nm(r['b_nm'], per_nm)} c {_nm(r['c_nm'], per_nm)}"
     angles = [(k, r[k + "_deg"]) for k in ("alpha", "beta", "gamma") if abs(r[k + "_deg"] - 90.0) > 1e-9]
     return a, extra + "".join(f" {k} {v:g}" for k, v in angles)
 
@@ -94,25 +108,41 @@ def run(args) -> int:
         write_json(args.json, rows)
         if args.json == "-":
             return 0
-    _print_table(rows, sys.stdout)
+    _print_table(rows, sys.stdout, units_from_args(args))
     return 0
 
 
-def _print_table(rows, out) -> None:
+def _sg_text(r) -> str:
+    """'Fm-3m (225)'; a cell with extra centring names the group as written in that cell: 'C4/mmm (123 = P4/mmm)'."""
+    if r["space_group_in_cell"] != r["space_group"]:
+        return f"{r['space_group_in_cell']} ({r['space_group_number']} = {r['space_group']})"
+    return f"{r['space_group']} ({r['space_group_number']})"
+
+
+def _print_table(rows, out, units=None) -> None:
     """The table, one phase per line.
 
     On a terminal nothing runs past the window edge: the whole list cuts the source to fit (or leaves it
     out below 24 free columns); a short list (a few matches) wraps it instead. Piped output is never cut,
     so grep sees whole lines.
     """
-    cells = [_cell_text(r) for r in rows]
-    sg = [f"{r['space_group']} ({r['space_group_number']})" for r in rows]
+    from saed.crystal.notation import terminal_style
+
+    if terminal_style(out) == "plain":
+        rows = [{**r, "structure_type": _ascii(r["structure_type"])} for r in rows]
+    from saed.crystal.notation import UNITS
+
+    units = units or UNITS["nm"]
+    ulab = units.label(terminal_style(out))
+    cells = [_cell_text(r, units.per_nm) for r in rows]
+    sg = [_sg_text(r) for r in rows]
     w_name = max(4, *(len(r["name"]) for r in rows))
     w_type = max(9, *(len(r["structure_type"]) for r in rows))
     w_sg = max(11, *(len(s) for s in sg))
     w_a = max(4, *(len(c[0]) for c in cells))
     w_other = max(7, *(len(c[1]) for c in cells))
-    head = f"{'name':<{w_name}}  {'structure':<{w_type}}  {'space group':<{w_sg}}  {'a nm':<{w_a}}  {'c nm':<{w_other}}"
+    head = (f"{'name':<{w_name}}  {'structure':<{w_type}}  {'space group':<{w_sg}}  {'a ' + ulab:<{w_a}}  "
+            f"{'c ' + ulab:<{w_other}}")
     width = shutil.get_terminal_size((200, 24)).columns if out.isatty() else 0
     room = width - len(head) - 3 if width else 10**6
     wrap = len(rows) <= 5
@@ -141,7 +171,10 @@ def _print_table(rows, out) -> None:
             else:
                 cut = True
     n = len(rows)
-    notes = [f"{n} phase{'s' if n != 1 else ''} (room temperature, nm). Use a name or a CIF path with --phase."]
+    notes = [f"{n} phase{'s' if n != 1 else ''} (room temperature, {ulab}). Use a name or a CIF path with --phase."]
+    for r in rows:
+        if r["space_group_in_cell"] != r["space_group"]:
+            notes.append(f"{r['name']}: {r['note']}.")
     if cut:
         how = "shortened" if room >= 24 else "left out"
         notes.append(f"Sources {how} to fit: 'saed phases NAME' shows one whole, --json - all.")

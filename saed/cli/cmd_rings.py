@@ -6,6 +6,7 @@ import math
 
 from saed.cli.common import add_image_arguments, add_calibration_options, add_phase_option, calibration_from_args, phases_from_args, \
     positive_float, write_json
+from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
 
 NAME = "rings"
@@ -38,6 +39,7 @@ def add_arguments(p):
     p.add_argument("--no-mixtures", action="store_true", help="do not try mixtures of two phases")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
     p.add_argument("--json", metavar="PATH", help="write the result as JSON ('-' for stdout)")
+    add_units_argument(p)
     p.add_argument("--plot", metavar="PNG", help="radial profile with each candidate's lines indexed, and the fitted rings")
 
 
@@ -161,7 +163,7 @@ def run(args) -> int:
         write_json(args.json, doc)
         if args.json == "-":
             return 0
-    _print(doc, ident)
+    _print(doc, ident, units_from_args(args))
     if args.plot:
         print(f"plot: {args.plot}")
     if args.json:
@@ -169,18 +171,28 @@ def run(args) -> int:
     return 0
 
 
-def _print(doc, ident):
+RING_SCORE_MEANING = ("score: how well the phase's ring list explains the measured rings, 0 to 1 (intensity "
+                      "agreement x position agreement x scale prior); it ranks solutions, it is not a probability")
+
+
+def _print(doc, ident, units=None):
     import sys
+
+    from saed.cli.display import say
+    from saed.crystal.notation import UNITS, indices_text, terminal_style
+
+    units = units or UNITS["nm"]
+    un, inv = units.label(terminal_style()), units.inverse_label(terminal_style())
 
     c = doc["center_px"]
     e = doc["ellipse"]
     s = doc["scale_inv_nm_per_px"]
     print(f"centre ({c[0]:.2f}, {c[1]:.2f}) px, ellipse {e['axis_ratio']:.4f} at {e['major_axis_angle_deg']:.1f} deg "
-          f"({e['source']}), scale {'%.6f 1/nm per px' % s if s else 'unknown'}")
-    print(f"{'ring':>4} {'r px':>9} {'d nm':>9} {'g 1/nm':>8} {'I rel':>6} {'cover':>5}")
+          f"({e['source']}), scale {f'{units.reciprocal(s):.5g} {inv} per px' if s else 'unknown'}")
+    print(f"{'ring':>4} {'r px':>9} {'d ' + un:>9} {'g ' + inv:>8} {'I rel':>6} {'cover':>5}")
     for k, r in enumerate(doc["rings"], 1):
-        d = "-" if r["d_nm"] is None else f"{r['d_nm']:.5f}"
-        g = "-" if r["g_inv_nm"] is None else f"{r['g_inv_nm']:.4f}"
+        d = units.length_text(r["d_nm"], 5)
+        g = units.reciprocal_text(r["g_inv_nm"], 4)
         cov = "-" if r["coverage"] is None else f"{r['coverage']:.2f}"
         print(f"{k:>4} {r['radius_px']:>9.2f} {d:>9} {g:>8} {r['intensity']:>6.3f} {cov:>5}")
     if not doc["solutions"]:
@@ -188,16 +200,18 @@ def _print(doc, ident):
     for sol in doc["solutions"]:
         frac = "" if len(sol["phases"]) == 1 else " (" + ", ".join(
             f"{p} {100 * f:.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
-        extra = "" if s else f", implied scale {sol['scale_inv_nm_per_px']:.6f} 1/nm per px"
+        extra = "" if s else f", implied scale {units.reciprocal(sol['scale_inv_nm_per_px']):.5g} {inv} per px"
         print(f"#{sol['rank']} {sol['phase']}{frac}: score {sol['score']:.3f}, {len(sol['rings_matched'])} of "
               f"{len(doc['rings'])} rings{extra}")
         parts = [f"{m['ring']}:{'/'.join(m['families'])}" + ("" if len(sol["phases"]) == 1 else f" {m['phase']}")
                  for m in sol["rings_matched"]]
-        print("    " + ", ".join(parts))
+        say("    " + ", ".join(parts))
         if sol["rings_unexplained"]:
             print("    unexplained rings: " + ", ".join(str(u["ring"]) for u in sol["rings_unexplained"]))
         if sol["lines_missing"]:
-            print("    expected but not seen: " + ", ".join(
-                f"{m['phase']} {''.join(str(v) for v in m['hkl'])} ({m['d_nm']:.4f} nm)" for m in sol["lines_missing"][:6]))
+            say("    expected but not seen: " + ", ".join(
+                f"{m['phase']} {indices_text(m['hkil'] or m['hkl'])} ({units.length_text(m['d_nm'])} {un})" for m in sol["lines_missing"][:6]))
     for note in doc["notes"]:
         print(f"note: {note}")
+    if doc["solutions"]:
+        print(RING_SCORE_MEANING)

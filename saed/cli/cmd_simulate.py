@@ -8,6 +8,7 @@ import re
 import numpy as np
 
 from saed.cli.common import add_calibration_options, calibration_from_args, int_at_least, positive_float, write_json
+from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.errors import InputError
 
 NAME = "simulate"
@@ -64,6 +65,7 @@ def add_arguments(p):
     p.add_argument("--rotation", type=float, default=0.0, metavar="DEG",
                    help="in-plane rotation of the pattern on the detector, from +x toward +y (default 0)")
     p.add_argument("--json", metavar="PATH", help="write the pattern as JSON ('-' for stdout)")
+    add_units_argument(p)
     img = p.add_argument_group("pictures")
     img.add_argument("--image", metavar="PATH", help="detector-like image: .png (8-bit log display) or .tif (16-bit counts)")
     img.add_argument("--diagram", metavar="PATH", help="labelled diagram: .png, .pdf or .svg")
@@ -158,29 +160,41 @@ def pattern_json(zp, *, in_plane_rotation_deg: float = 0.0) -> dict:
     }
 
 
-def _print_table(zp, doc: dict) -> None:
-    from saed.simulate.families import reflection_label, zone_label
+def _print_table(zp, doc: dict, *, style: str = "plain", units=None) -> None:
+    from saed.crystal.notation import UNITS, plane_text, table_lines, wavelength_text, zone_text
 
+    units = units or UNITS["nm"]
     ph = zp.phase
-    print(f"{ph.name} {zone_label(ph, zp.zone_axis)}  {zp.voltage_kv:g} kV (lambda {zp.wavelength_nm * 1e3:.4f} pm)"
-          f"  thickness {zp.thickness_nm:g} nm" + (f"  beam tilted {zp.tilt_deg:g} deg" if zp.tilted else ""))
+    hexa = ph.is_hexagonal
+    u, inv = units.label(style), units.inverse_label(style)
+
+    def refl(h):
+        return plane_text(h, hexa, style)
+
+    print(f"{ph.name} {zone_text(zp.zone_axis, hexa, style)}  {zp.voltage_kv:g} kV (lambda {wavelength_text(zp.wavelength_nm)})"
+          f"  thickness {units.length(zp.thickness_nm):g} {u}"
+          + (f"  beam tilted {zp.tilt_deg:g} deg" if zp.tilted else ""))
     s = doc["pattern"]
     if s:
-        g1 = reflection_label(ph, s["g1_hkl"])
-        g2 = reflection_label(ph, s["g2_hkl"])
-        print(f"g1 {g1} d {s['d1_nm']:.4f} nm, g2 {g2} d {s['d2_nm']:.4f} nm, R2/R1 {s['ratio']:.4f}, "
-              f"angle {s['angle_deg']:.2f} deg")
-    print(f"FOLZ ring radius {zp.folz_ring_radius_inv_nm:.2f} 1/nm (layer spacing {zp.layer_spacing_inv_nm:.4f} 1/nm)")
+        print(f"g1 {refl(s['g1_hkl'])} d {units.length_text(s['d1_nm'])} {u}, g2 {refl(s['g2_hkl'])} d "
+              f"{units.length_text(s['d2_nm'])} {u}, R2/R1 {s['ratio']:.4f}, angle {s['angle_deg']:.2f} deg")
+    print(f"FOLZ ring radius {units.reciprocal_text(zp.folz_ring_radius_inv_nm, 2)} {inv} "
+          f"(layer spacing {units.reciprocal_text(zp.layer_spacing_inv_nm, 4)} {inv})")
     rows = [i for i in range(len(zp)) if zp.zolz[i] and (zp.allowed[i] or zp.double_diffraction[i])]
-    print(f"{'hkl':>10} {'d nm':>8} {'g 1/nm':>8} {'x 1/nm':>8} {'y 1/nm':>8} {'s 1/nm':>9} {'I':>8}  note")
+    header = [("hkl", ">"), (f"d {u}", ">"), (f"g {inv}", ">"), (f"x {inv}", ">"), (f"y {inv}", ">"),
+              (f"s {inv}", ">"), ("I", ">"), ("note", "<")]
+    cells = []
     for i in rows[:TABLE_ROWS]:
         note = ""
         if zp.double_diffraction[i]:
             a, b = zp.dd_route[i]
-            note = f"forbidden; double diffraction {reflection_label(ph, zp.hkl[a])} + {reflection_label(ph, zp.hkl[b])}"
+            note = f"forbidden; double diffraction {refl(zp.hkl[a])} + {refl(zp.hkl[b])}"
         r = doc["reflections"][i]
-        print(f"{reflection_label(ph, zp.hkl[i]):>10} {zp.d_nm[i]:8.4f} {zp.g_inv_nm[i]:8.3f} {r['x_inv_nm']:8.3f} "
-              f"{r['y_inv_nm']:8.3f} {zp.excitation_error_inv_nm[i]:9.4f} {zp.intensity[i]:8.3g}  {note}")
+        cells.append([refl(zp.hkl[i]), units.length_text(zp.d_nm[i]), units.reciprocal_text(zp.g_inv_nm[i]),
+                      units.reciprocal_text(r["x_inv_nm"]), units.reciprocal_text(r["y_inv_nm"]),
+                      units.reciprocal_text(zp.excitation_error_inv_nm[i], 4), f"{zp.intensity[i]:.3g}", note])
+    for line in table_lines(header, cells):
+        print(line)
     if len(rows) > TABLE_ROWS:
         print(f"... {len(rows) - TABLE_ROWS} more zero-order reflections (all are in --json)")
     n_holz = int(np.sum(~zp.zolz))
@@ -221,9 +235,9 @@ def run(args) -> int:
     if args.diagram:
         from saed.report.render_pattern import render_diagram
 
-        render_diagram(zp, args.diagram, in_plane_rotation_deg=args.rotation)
+        render_diagram(zp, args.diagram, in_plane_rotation_deg=args.rotation, units=units_from_args(args))
     if args.json != "-":
-        _print_table(zp, doc)
+        _print_table(zp, doc, **display_options(args))
         for label, path in (("JSON", args.json), ("image", args.image), ("diagram", args.diagram)):
             if path:
                 print(f"{label} written to {path}")

@@ -6,6 +6,8 @@ import math
 import sys
 
 from saed.cli.common import add_image_arguments, check_frame_and_outputs, add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.cli.display import add_units_argument, display_options, units_from_args
+from saed.crystal.notation import UNITS, table_lines
 from saed.errors import InputError
 
 NAME = "spots"
@@ -39,6 +41,7 @@ def add_arguments(p):
     out.add_argument("--json", metavar="PATH", help="write centre, spots and basis as JSON ('-' for stdout)")
     out.add_argument("--overlay", metavar="PNG", help="draw the spots, centre, g1/g2 and masked regions on the pattern")
     out.add_argument("--all", action="store_true", help="list every spot in the summary, not only the strongest")
+    add_units_argument(out)
 
 
 def _check_args(args):
@@ -111,7 +114,7 @@ def _angle(a, b) -> float:
     return math.degrees(math.acos(max(-1.0, min(1.0, c))))
 
 
-def _summary(measured, *, image: str, frame, show_all: bool) -> str:
+def _summary(measured, *, image: str, frame, show_all: bool, units=UNITS["nm"], style: str = "plain") -> str:
     cal = measured.calibration
     scale = cal.scale_inv_nm_per_px
     sp = measured.spots
@@ -123,11 +126,11 @@ def _summary(measured, *, image: str, frame, show_all: bool) -> str:
                  + (f"  (+- {cs:.2f} px)" if math.isfinite(cs) else ""))
     if cal.is_calibrated:
         origin = " (from the TIFF resolution tags)" if "TIFF resolution tags" in (cal.source or "") else ""
-        lines.append(f"  scale    {scale:.5g} 1/nm per px at {cal.voltage_kv:g} kV{origin}"
+        lines.append(f"  scale    {units.reciprocal(scale):.5g} {units.inverse_label(style)} per px at {cal.voltage_kv:g} kV{origin}"
                      + ("  (ellipse corrected)" if cal.ellipse is not None else ""))
     else:
         lines.append("  scale    uncalibrated (lengths in px; give --scale, --camera-length with --pixel-pitch, "
-                     "or --calibration for 1/nm and d)")
+                     "or --calibration for reciprocal lengths and d)")
     if len(sp):
         lines.append(f"  spots    {len(sp)}  (peak SNR {sp.snr.min():.1f} to {sp.snr.max():.0f}, median {float(_median(sp.snr)):.0f})")
     else:
@@ -138,7 +141,8 @@ def _summary(measured, *, image: str, frame, show_all: bool) -> str:
             length = math.hypot(*g)
             text = f"  {name}       {length:8.2f} px  +- {sig:.2f}"
             if scale is not None:
-                text += f"   {length * scale:7.4f} 1/nm   d = {1.0 / (length * scale):.4f} nm"
+                text += (f"   {units.reciprocal_text(length * scale, 4)} {units.inverse_label(style)}   "
+                         f"d = {units.length_text(1.0 / (length * scale))} {units.label(style)}")
             lines.append(text)
         l1, l2 = math.hypot(*g1c), math.hypot(*g2c)
         lines.append(f"  angle    {_angle(g1c, g2c):.2f} deg +- {b.sigma_angle_deg:.2f}    |g2|/|g1| = {l2 / l1:.4f}")
@@ -150,20 +154,23 @@ def _summary(measured, *, image: str, frame, show_all: bool) -> str:
         order = sorted(range(len(sp)), key=lambda k: -float(sp.snr[k]))
         shown = order if show_all else order[:SHOWN_SPOTS]
         vec = measured.corrected_spot_vectors_px()
-        head = f"  {'m n':>7} {'x':>9} {'y':>9} {'|g| px':>8}"
-        head += f" {'d nm':>8}" if scale is not None else ""
-        head += f" {'SNR':>6} {'intensity':>11}"
-        lines.append("")
-        lines.append(("strongest spots" if not show_all else "spots") + ":")
-        lines.append(head)
+        # m and n (the spot = m g1 + n g2) in columns of their own, so signs and widths line up
+        header = [("m", ">"), ("n", ">"), ("x px", ">"), ("y px", ">"), ("|g| px", ">")]
+        header += [(f"d {units.label(style)}", ">")] if scale is not None else []
+        header += [("SNR", ">"), ("intensity", ">"), ("", "<")]
+        cells = []
         for k in shown:
-            mn = f"{b.indices[k][0]:d} {b.indices[k][1]:d}" if b is not None and b.on_lattice[k] else "-"
+            on = b is not None and b.on_lattice[k]
+            m, n = (f"{b.indices[k][0]:d}", f"{b.indices[k][1]:d}") if on else ("-", "-")
             length = math.hypot(*vec[k])
-            row = f"  {mn:>7} {sp.x_px[k]:9.2f} {sp.y_px[k]:9.2f} {length:8.2f}"
+            row = [m, n, f"{sp.x_px[k]:.2f}", f"{sp.y_px[k]:.2f}", f"{length:.2f}"]
             if scale is not None:
-                row += f" {1.0 / (length * scale):8.4f}" if length > 0 else f" {'-':>8}"
-            row += f" {sp.snr[k]:6.1f} {sp.intensity[k]:11.0f}" + ("  saturated" if sp.saturated[k] else "")
-            lines.append(row)
+                row.append(units.length_text(1.0 / (length * scale)) if length > 0 else "-")
+            row += [f"{sp.snr[k]:.1f}", f"{sp.intensity[k]:.0f}", "saturated" if sp.saturated[k] else ""]
+            cells.append(row)
+        lines.append("")
+        lines.append(("strongest spots" if not show_all else "spots") + " (at m g1 + n g2):")
+        lines += table_lines(header, cells, indent="  ")
         if len(shown) < len(sp):
             lines.append(f"  ... {len(sp) - len(shown)} more (--all, or --json for every spot)")
     return "\n".join(lines)
@@ -193,8 +200,10 @@ def run(args) -> int:
         from saed.image.overlay import write_spots_overlay
 
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored,
-                            title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""))
-    print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all), file=out)
+                            title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),
+                            units=units_from_args(args))
+    print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all,
+                   **display_options(args, out)), file=out)
     if args.overlay:
         print(f"overlay written to {args.overlay}", file=out)
     if len(mp.spots) == 0:

@@ -200,6 +200,7 @@ def run(args) -> int:
 
 
 def _print(phase, holder, rec, doc, reach, rows) -> None:
+    from saed.cli.display import say
     from saed.simulate.families import zone_label
 
     print(f"{phase.name}: holder alpha axis at {holder.alpha_axis_deg:g} deg on the detector, {holder.range_text()}; "
@@ -208,14 +209,16 @@ def _print(phase, holder, rec, doc, reach, rows) -> None:
     if t is not None:
         z = zone_label(phase, t["zone_axis"])
         state = "within range" if t["reachable"] else "OUT OF RANGE"
-        print(f"target {z}: alpha {t['alpha_deg']:+.2f} deg, beta {t['beta_deg']:+.2f} deg  ({state}; "
+        say(f"target {z}: alpha {t['alpha_deg']:+.2f} deg, beta {t['beta_deg']:+.2f} deg  ({state}; "
               f"{t['angle_from_beam_deg']:.1f} deg from the present beam; the pattern then lies at in-plane rotation "
               f"{t['in_plane_rotation_deg']:.1f} deg)")
     print(f"{len(reach)} zone axes within reach, nearest first:")
-    print(f"{'zone':>12} {'family':>12} {'from beam':>10} {'alpha':>8} {'beta':>8}")
+    zw = max([12] + [len(zone_label(phase, s.zone_axis)) for s in reach[:rows]])  # long zones stay aligned
+    fw = max([12] + [len(js["family"]) for js in doc["reachable_zones"][:rows]])
+    print(f"{'zone':>{zw}} {'family':>{fw}} {'from beam deg':>13} {'alpha deg':>9} {'beta deg':>9}")
     for s, js in zip(reach[:rows], doc["reachable_zones"]):
         fam = js["family"]
-        print(f"{zone_label(phase, s.zone_axis):>12} {fam:>12} {s.angle_from_beam_deg:9.1f}\N{DEGREE SIGN} "
-              f"{round(s.alpha_deg, 2) + 0.0:+8.2f} {round(s.beta_deg, 2) + 0.0:+8.2f}")
+        say(f"{zone_label(phase, s.zone_axis):>{zw}} {fam:>{fw}} {s.angle_from_beam_deg:13.1f} "
+              f"{round(s.alpha_deg, 2) + 0.0:+9.2f} {round(s.beta_deg, 2) + 0.0:+9.2f}")
     if len(reach) > rows:
         print(f"... {len(reach) - rows} more (--rows N, or --json)")

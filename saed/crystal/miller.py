@@ -75,14 +75,14 @@ def direction_from_4(uvtw) -> np.ndarray:
 
 
 def format_indices(idx) -> str:
-    """Compact index string with minus signs, e.g. ``1-10`` or ``2-1-10``; spaces when an index has two digits.
+    """Compact index string with minus signs, e.g. ``1-10`` or ``2-1-10``; spaces when an index has two digits
+    (the plain style of :func:`saed.crystal.notation.indices_text`).
 
     >>> format_indices([1, -1, 0])
     '1-10'
     >>> format_indices([10, 0, -2])
     '10 0 -2'
     """
-    vals = [int(v) for v in np.asarray(idx).ravel()]
-    if any(abs(v) >= 10 for v in vals):
-        return " ".join(str(v) for v in vals)
-    return "".join(str(v) for v in vals)
+    from saed.crystal.notation import indices_text  # the one place indices are written for people
+
+    return indices_text(idx)

@@ -27,7 +27,7 @@ from saed.errors import PhaseError
 logger = logging.getLogger(__name__)
 
 __all__ = ["Site", "Phase", "CellAtoms", "builtin_phase", "builtin_names", "load_phase", "cell_atoms",
-           "suggest_builtin"]
+           "cell_centring", "space_group_in_cell", "suggest_builtin"]
 
 #: Isotropic Debye-Waller B used when a source gives none: 0.5 A^2 = 0.005 nm^2,
 #: a typical room-temperature value for metals (common practice).
@@ -166,6 +166,40 @@ def cell_atoms(phase: Phase) -> CellAtoms:
 #: 0.01 nm = 0.1 A absorbs coordinates rounded to 3 decimals (0.333 for 1/3) in cells up to
 #: about 3 nm, and stays below the 0.2-0.5 A spacing of split (disordered) sites.
 SPECIAL_POSITION_TOL_NM = 0.01
+
+
+#: centring translations a primitive-group cell may carry on top of its lattice (the cell is then a supercell)
+_CENTRINGS = (("F", ((0, .5, .5), (.5, 0, .5), (.5, .5, 0))), ("I", ((.5, .5, .5),)), ("C", ((.5, .5, 0),)),
+              ("A", ((0, .5, .5),)), ("B", ((.5, 0, .5),)))
+
+
+def cell_centring(phase: Phase) -> str:
+    """The lattice letter of the cell as filled: the space group's own, or, for a primitive group whose
+    cell content repeats under a centring translation, that centring (TiAl's 4-atom cell: 'C')."""
+    own = phase.space_group_short[0]
+    atoms = cell_atoms(phase)
+    if own != "P" or len(atoms.elements) < 2:
+        return own
+    frac = np.asarray(atoms.frac) % 1.0
+    els = np.asarray(atoms.elements)
+
+    def repeats(t) -> bool:
+        d = ((frac + np.asarray(t)) % 1.0)[:, None, :] - frac[None, :, :]
+        d = (d + 0.5) % 1.0 - 0.5
+        same = (np.abs(d).max(-1) < 1e-6) & (els[:, None] == els[None, :])
+        return bool(np.all(same.any(axis=1)))
+
+    for letter, ts in _CENTRINGS:
+        if all(repeats(t) for t in ts):
+            return letter
+    return "P"
+
+
+def space_group_in_cell(phase: Phase) -> str:
+    """The short space-group symbol as written in the cell saed uses: 'C4/mmm' for TiAl's C-centred 4-atom
+    cell of P4/mmm (No. 123), else the symbol itself."""
+    letter = cell_centring(phase)
+    return phase.space_group_short if letter == phase.space_group_short[0] else letter + phase.space_group_short[1:]
 
 
 @lru_cache(maxsize=None)

@@ -39,8 +39,9 @@ def display_stretch(image: np.ndarray, *, background=None) -> np.ndarray:
 
 
 def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, ignored: np.ndarray | None = None,
-                        title: str | None = None, dpi: int = 110, size_in: float = 9.0) -> None:
-    """Write the overlay of `measured` on `image` to `path` (PNG, PDF or SVG by suffix), atomically.
+                        title: str | None = None, dpi: int = 110, size_in: float = 9.0, units=None) -> None:
+    """Write the overlay of `measured` on `image` to `path` (PNG, PDF or SVG by suffix), atomically;
+    lengths in `units` (:data:`saed.crystal.notation.UNITS`, nm by default).
 
     Parameters
     ----------
@@ -53,6 +54,9 @@ def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, i
     from matplotlib.figure import Figure
     from matplotlib.patches import Circle, FancyArrowPatch
 
+    from saed.crystal.notation import UNITS
+
+    u = units or UNITS["nm"]
     p = check_writable(path)
     fmt = (p.suffix.lower().lstrip(".") or "png")
     if fmt not in ("png", "pdf", "svg"):
@@ -96,9 +100,10 @@ def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, i
             text = f"{name}  {length:.2f} px"
             if cal.is_calibrated:
                 g_inv = length * cal.scale_inv_nm_per_px
-                text += f"   {g_inv:.4f} 1/nm   d {1.0 / g_inv:.4f} nm"
+                text += (f"   {u.reciprocal_text(g_inv, 4)} {u.inverse_label()}   "
+                         f"d {u.length_text(1.0 / g_inv)} {u.label()}")
             legend.append((text, col))
-        legend.append((f"angle {b.angle_deg:.2f} deg   |g2|/|g1| {np.hypot(*corr[1]) / np.hypot(*corr[0]):.4f}", "white"))
+        legend.append((f"angle {b.angle_deg:.2f}\N{DEGREE SIGN}   |g2|/|g1| {np.hypot(*corr[1]) / np.hypot(*corr[0]):.4f}", "white"))
         for i, (text, col) in enumerate(legend):
             ax.text(0.985, 0.985 - 0.035 * i, text, transform=ax.transAxes, ha="right", va="top", color=col,
                     fontsize=9.5, fontweight="bold", family="monospace",
@@ -106,11 +111,11 @@ def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, i
     if cal.is_calibrated:
         from saed.report.render_pattern import nice_scale_bar_inv_nm
 
-        bar_inv_nm = nice_scale_bar_inv_nm(cols * cal.scale_inv_nm_per_px)
-        bar_px = bar_inv_nm / cal.scale_inv_nm_per_px
+        bar_shown = nice_scale_bar_inv_nm(u.reciprocal(cols * cal.scale_inv_nm_per_px))  # round, display unit
+        bar_px = bar_shown * u.per_nm / cal.scale_inv_nm_per_px
         x0, y0 = 0.05 * cols, 0.94 * rows
         ax.plot([x0, x0 + bar_px], [y0, y0], color="white", lw=4 * lw, solid_capstyle="butt")
-        ax.text(x0 + bar_px / 2, y0 - 0.015 * rows, f"{bar_inv_nm:g} 1/nm", color="white", ha="center", va="bottom",
+        ax.text(x0 + bar_px / 2, y0 - 0.015 * rows, f"{bar_shown:g} {u.inverse_label()}", color="white", ha="center", va="bottom",
                 fontsize=10, fontweight="bold", bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.55), ec="none"))
     ax.set_xlim(-0.5, cols - 0.5)
     ax.set_ylim(rows - 0.5, -0.5)
@@ -120,7 +125,7 @@ def write_spots_overlay(image: np.ndarray, measured: MeasuredPattern, path, *, i
     line2 = f"{len(sp)} spots" + (f" ({n_off} off the lattice, orange)" if b is not None and n_off else "")
     line2 += f"; centre ({cx:.1f}, {cy:.1f}) px"
     if b is not None:
-        line2 += f"; angle g1^g2 {b.angle_deg:.2f} deg"
+        line2 += f"; angle g1^g2 {b.angle_deg:.2f}\N{DEGREE SIGN}"
     if not cal.is_calibrated:
         line2 += "; uncalibrated"
     fig.text(0.01, 1.0 - 0.15 / (size_in * rows / cols + 0.6), head, fontsize=11, fontweight="bold", va="top")

@@ -4,7 +4,7 @@ Invented data for the demo only (synthetic patterns from :mod:`saed.index.synthe
 16-bit frames at a camera length of 120 mm with 15 um pixels, each with a calibration sidecar.
 The set is chosen to show what the indexer does with the cases a microscopist meets in such a
 coating: a clear fcc grain, a clear hcp grain with a double-diffraction spot, the basal hcp
-zone, the fcc [112] / hcp [01-10] pair that one pattern cannot separate, and a thin fcc grain
+zone, the fcc [112] / hcp [10-10] pair that one pattern cannot separate, and a thin fcc grain
 along [111] whose weak extra spots mimic hcp.
 """
 
@@ -53,7 +53,7 @@ DEMO_PATTERNS = (
     DemoPattern("grain_C_hcp_basal", "Co-hcp", (0, 0, 0, 1), 12.0, 0.0, None, 0.0, 0.0, False, 13,
                 "an hcp cobalt grain along [0001]: strong 10-10 spots inside the 11-20 hexagon"),
     DemoPattern("grain_D_fcc_or_hcp", "Co-fcc", (1, 1, 2), 78.0, 0.0, None, 0.0, 0.0, True, 14,
-                "an fcc cobalt grain along [112], whose pattern hcp cobalt [01-10] matches to 0.6 %"),
+                "an fcc cobalt grain along [112], whose pattern hcp cobalt [10-10] matches to 0.6 %"),
     DemoPattern("grain_E_thin_fcc", "Co-fcc", (1, 1, 1), 5.0, 0.0, None, 0.0, 0.02, False, 15,
                 "a thin fcc cobalt grain along [111] with weak extra spots at the 1/3{422} positions"),
 )

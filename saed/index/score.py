@@ -33,6 +33,7 @@ import numpy as np
 from scipy import stats
 
 from saed.crystal.miller import direction_to_4, plane_to_4
+from saed.crystal.notation import projected_plane
 from saed.index.candidates import Candidate, SpotSet
 from saed.index.tables import IndexTables, PhaseIndexTable
 from saed.index.values import IndexedSpot, Solution
@@ -253,10 +254,14 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
             d_calc = 1.0 / gp if gp > 0 else None
             res = float(np.linalg.norm(spots.v_px[i] - holz_xy[holz_j[i]] @ lin.T - shift))
             ic = None
+            proj_den, proj = projected_plane(lat.metric_tensor_nm2, h, uvw)
         else:
             h, d_calc, res, ic = None, None, None, None
+        if k != "holz-projection":
+            proj_den, proj = 1, None
         hkil = tuple(int(v) for v in plane_to_4(np.array(h))) if (h is not None and hex_axes) else None
-        recs.append(IndexedSpot(i, x_px, y_px, float(spots.intensity[i]), h, hkil, k, d_meas, d_calc, res, ic))
+        recs.append(IndexedSpot(i, x_px, y_px, float(spots.intensity[i]), h, hkil, k, d_meas, d_calc, res, ic,
+                                None if proj is None else tuple(int(v) for v in proj), int(proj_den)))
 
     notes = []
     if float(np.hypot(*shift)) >= 1.0:

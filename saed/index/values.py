@@ -33,7 +33,8 @@ class IndexedSpot:
     hexagonal axes, else None); ``kind`` is one of :data:`SPOT_KINDS`: a kinematically allowed
     zero-order reflection, a forbidden one reachable by double diffraction, a forbidden one with
     no route, the projection of a higher-order Laue-zone reflection (thin foils, faults), or
-    nothing at all (``hkl`` None). ``residual_px`` is the distance to the predicted position.
+    nothing at all (``hkl`` None). For a projection ``hkl`` is the 3-D reflection and ``projected_hkl``
+    / ``projected_denominator`` the fractional zero-layer position it lands on. ``residual_px`` is the distance to the predicted position.
     """
 
     spot_index: int
@@ -47,6 +48,10 @@ class IndexedSpot:
     d_nm_calc: float | None
     residual_px: float | None
     intensity_calc: float | None = None
+    #: holz-projection spots only: where ``hkl`` lands projected along the zone axis, as integers over
+    #: ``projected_denominator`` (fcc [111]: -200 -> (-4 2 2) / 3, a 1/3{422} position; d_nm_calc is its spacing)
+    projected_hkl: tuple[int, int, int] | None = None
+    projected_denominator: int = 1
 
     @property
     def d_error_pct(self) -> float | None:

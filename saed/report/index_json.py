@@ -67,7 +67,9 @@ def solution_json(sol: Solution, rank: int) -> dict:
         indexed.append({"x": _num(s.x_px, 3), "y": _num(s.y_px, 3), "hkl": _ints(s.hkl), "hkil": _ints(s.hkil),
                         "d_nm_measured": _num(s.d_nm_measured, 5), "d_nm_calc": _num(s.d_nm_calc, 5),
                         "kind": s.kind, "residual_px": _num(s.residual_px, 3), "d_error_pct": _num(s.d_error_pct, 3),
-                        "intensity": _num(s.intensity, 1), "intensity_calc": _num(s.intensity_calc, 5)})
+                        "intensity": _num(s.intensity, 1), "intensity_calc": _num(s.intensity_calc, 5),
+                        "projected_hkl": _ints(s.projected_hkl),
+                        "projected_denominator": None if s.projected_hkl is None else s.projected_denominator})
     return {
         "rank": rank,
         "phase": sol.phase_name,

@@ -24,8 +24,8 @@ import numpy as np
 from saed.image.overlay import display_stretch
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_bytes, check_writable
-from saed.report.index_summary import confidence_word, zone_text
-from saed.report.render_pattern import index_text, nice_scale_bar_inv_nm
+from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_SHORT, confidence_word, spot_label, zone_text
+from saed.report.render_pattern import nice_scale_bar_inv_nm
 
 __all__ = ["overlay_figure_bytes", "write_index_overlay", "KIND_STYLE"]
 
@@ -42,10 +42,15 @@ MAX_LABELS = 36
 
 
 def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str | None = None, fmt: str = "png",
-                         dpi: int = 100, size_in: float = 8.0, ignored: np.ndarray | None = None) -> bytes:
-    """Render the overlay and return the file bytes (PNG, PDF or SVG)."""
+                         dpi: int = 100, size_in: float = 8.0, ignored: np.ndarray | None = None,
+                         units=None) -> bytes:
+    """Render the overlay and return the file bytes (PNG, PDF or SVG); `units` (nm default) for the scale."""
     from matplotlib.figure import Figure
     from matplotlib.patches import Circle, Rectangle
+
+    from saed.crystal.notation import UNITS
+
+    units = units or UNITS["nm"]
 
     img = np.asarray(image)
     rows, cols = img.shape[:2]
@@ -100,11 +105,11 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
             ax.plot([x - d, x + d], [y - d, y + d], color=col, lw=lw)
             ax.plot([x - d, x + d], [y + d, y - d], color=col, lw=lw)
         if s is not None and s.hkl is not None:
-            labels.append((math.hypot(x - cx, y - cy), x, y, s.hkil if s.hkil is not None else s.hkl, col))
+            labels.append((math.hypot(x - cx, y - cy), x, y, spot_label(s, "mathtext"), col))
     labels.sort(key=lambda t: t[0])
     for r, x, y, idx, col in labels[:MAX_LABELS]:
         ux, uy = ((x - cx) / r, (y - cy) / r) if r > 0 else (0.0, -1.0)
-        ax.annotate(index_text(idx), (x, y), xytext=(ux * 15, -uy * 15), textcoords="offset points", ha="center",
+        ax.annotate(idx, (x, y), xytext=(ux * 15, -uy * 15), textcoords="offset points", ha="center",
                     va="center", fontsize=8, color="white",
                     bbox=dict(boxstyle="round,pad=0.12", fc=(0, 0, 0, 0.55), ec="none"))
     arm = 2.5 * unit
@@ -117,11 +122,11 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
             ax.annotate("Laue-circle centre", (lx, ly), xytext=(8, 8), textcoords="offset points", color="#ff9f0a",
                         fontsize=8)
     if scale:
-        bar = nice_scale_bar_inv_nm(span * scale)
-        bar_px = bar / scale
+        bar = nice_scale_bar_inv_nm(units.reciprocal(span * scale))  # a round length in the display unit
+        bar_px = bar * units.per_nm / scale
         bx, by = x0 + 0.05 * (x1 - x0), y0 + 0.95 * (y1 - y0)
         ax.plot([bx, bx + bar_px], [by, by], color="white", lw=4, solid_capstyle="butt")
-        lab = f"{bar:g} 1/nm" + ("" if cal is not None and cal.is_calibrated else " (implied)")
+        lab = f"{bar:g} {units.inverse_label('mathtext')}" + ("" if cal is not None and cal.is_calibrated else " (implied)")
         ax.text(bx + bar_px / 2, by - 0.015 * (y1 - y0), lab, color="white", ha="center", va="bottom", fontsize=9,
                 fontweight="bold", bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.55), ec="none"))
     kinds_here = sorted({(rec[k].kind if k in rec else "unindexed") for k in range(len(m.spots))},
@@ -141,22 +146,27 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
         line2 = result.message
     else:
         word = confidence_word(result) if result.best is not None else "near miss"
-        line1 = f"{best.phase_name} {zone_text(best)}   score {best.score:.2f} ({word})   -   {src}"
+        line1 = f"{best.phase_name} {zone_text(best, 'mathtext')}   score {best.score:.2f} ({word})   -   {src}"
         line2 = (f"{best.n_explained}/{len(best.indexed)} spots explained, d error {best.mean_d_error_pct:.2f} %, "
-                 f"angle error {best.mean_angle_error_deg:.2f} deg, in-plane rotation {best.in_plane_rotation_deg:.1f} deg, "
-                 f"{best.scale_inv_nm_per_px:.5g} 1/nm per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
+                 f"angle error {best.mean_angle_error_deg:.2f}\N{DEGREE SIGN}, in-plane rotation {best.in_plane_rotation_deg:.1f}\N{DEGREE SIGN}, "
+                 f"{units.reciprocal(best.scale_inv_nm_per_px):.5g} {units.inverse_label('mathtext')} per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
     fig.text(0.01, 1.0 - 0.12 / fh, line1, fontsize=11.5, fontweight="bold", va="top")
     fig.text(0.01, 1.0 - 0.45 / fh, line2[:150], fontsize=8.5, va="top")
+    if best is not None:
+        legend = SCORE_SHORT + (f"   {word}: {CONFIDENCE_MEANING[word]}" if word in CONFIDENCE_MEANING else "")
+        fig.text(0.01, 1.0 - 0.66 / fh, legend if len(legend) <= 170 else SCORE_SHORT, fontsize=7.5, va="top",
+                 color="#444444")
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)
     return buf.getvalue()
 
 
 def write_index_overlay(image: np.ndarray, result: IndexResult, path, *, title: str | None = None,
-                        ignored: np.ndarray | None = None, dpi: int = 100) -> None:
+                        ignored: np.ndarray | None = None, dpi: int = 100, units=None) -> None:
     """Write the overlay to `path` (.png, .pdf or .svg), atomically."""
     p = check_writable(path)
     fmt = p.suffix.lower().lstrip(".")
     if fmt not in ("png", "pdf", "svg"):
         fmt = "png"
-    atomic_write_bytes(p, overlay_figure_bytes(image, result, title=title, fmt=fmt, dpi=dpi, ignored=ignored))
+    atomic_write_bytes(p, overlay_figure_bytes(image, result, title=title, fmt=fmt, dpi=dpi, ignored=ignored,
+                                               units=units))

@@ -5,25 +5,67 @@ Written for a tired microscopist: the answer first (phase, zone, how sure), then
 
 from __future__ import annotations
 
+import html
 import math
+import textwrap
 
-from saed.crystal.miller import format_indices
+from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, indices_text, person_text,
+                                   shown_plane, signed_text, table_lines)
+from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
 
-__all__ = ["format_summary", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "SHOWN_SPOTS"]
+__all__ = ["format_summary", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "spot_label",
+           "kind_text", "SHOWN_SPOTS", "SCORE_MEANING", "SCORE_SHORT", "CONFIDENCE_MEANING", "legend_lines"]
 
 #: Spots of the best solution listed in the summary (all of them are in the JSON).
 SHOWN_SPOTS = 14
 
+#: What "score" means, said wherever a score is shown (terminal legend, HTML tooltip and legend).
+SCORE_MEANING = ("score: how well the simulated pattern explains the measured spots, 0 to 1 (1 = every spot on a "
+                 "predicted position and no strong predicted spot missing); it ranks solutions, it is not a "
+                 "probability")
+#: The same in a few words, for pictures.
+SCORE_SHORT = "score: how well the simulated pattern explains the spots, 0 to 1; a ranking, not a probability"
+#: What each confidence tag means (the rule in :func:`confidence_word`).
+CONFIDENCE_MEANING = {
+    "clear": "score at least 0.80, at least 0.05 above the runner-up, and no look-alike that fits as well",
+    "likely": "score at least 0.60, but close to the runner-up or below 0.80",
+    "weak": "score below 0.60: check the calibration and the phase list",
+    "ambiguous": "a look-alike fits as well: this one pattern cannot decide (the note says what would)",
+    "none": "nothing fits within the tolerances",
+}
 
-def zone_text(sol) -> str:
+
+def legend_lines(word: str | None = None) -> list[str]:
+    """The score legend and the meaning of `word` (or of every tag), one line each."""
+    tags = [word] if word in CONFIDENCE_MEANING else [w for w in CONFIDENCE_MEANING if w != "none"]
+    return [SCORE_MEANING + "."] + [f"{w}: {CONFIDENCE_MEANING[w]}." for w in tags]
+
+
+def zone_text(sol, style: str = "plain") -> str:
+    """``[10-10]``: the zone as a person reads it (4-index for hexagonal axes)."""
     z = sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis
-    return f"[{format_indices(z)}]"
+    return _zone(z, False, style)
 
 
-def _hkl_text(spot) -> str:
-    h = spot.hkil if spot.hkil is not None else spot.hkl
-    return "-" if h is None else format_indices(h)
+def spot_label(spot, style: str = "plain") -> str:
+    """The label of a spot: its reflection (4-index on hexagonal axes); for a projected higher-order
+    Laue-zone spot the fractional zero-layer position it sits on, e.g. ``1/3(-422)`` (fcc [111])."""
+    hexagonal = spot.hkil is not None
+    if spot.kind == "holz-projection" and spot.projected_hkl is not None:
+        body = indices_text(shown_plane(spot.projected_hkl, hexagonal), style).strip("$")
+        text = fraction_text(spot.projected_denominator, style).strip("$") + "(" + body + ")"
+        return "$" + text + "$" if style == "mathtext" else text
+    h = spot.hkil if hexagonal else spot.hkl
+    return "-" if h is None else indices_text(h, style)
+
+
+def kind_text(spot, style: str = "plain") -> str:
+    """What a spot was explained as, in words; a projection names the reflection it comes from."""
+    if spot.kind == "holz-projection" and spot.hkl is not None:
+        src = spot.hkil if spot.hkil is not None else spot.hkl
+        return f"projected HOLZ (from {indices_text(src, style).strip('$')})"
+    return {"double-diffraction": "double diffraction"}.get(spot.kind, spot.kind)
 
 
 def plain_notes(best: Solution) -> list[str]:
@@ -31,20 +73,22 @@ def plain_notes(best: Solution) -> list[str]:
     return [n for n in best.notes if best.mistilt is None or n != best.mistilt.advice]
 
 
-def other_lookalikes(best: Solution) -> list[tuple[str, str, str]]:
+def other_lookalikes(best: Solution, style: str = "plain") -> list[tuple[str, str, str]]:
     """(heading, what separates them, tilt text) for the look-alikes not already in the notes."""
     out = []
     for lk in best.lookalikes:
         if lk.relation == "ambiguous":
             continue  # already in the notes
-        z = format_indices(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis)
-        out.append((f"{lk.relation}: {lk.phase_name} [{z}] ({lk.score:.2f})", lk.separating,
+        z = indices_text(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis, style)
+        name = html.escape(lk.phase_name) if style == "html" else lk.phase_name
+        out.append((f"{lk.relation}: {name} [{z}] (score {lk.score:.2f})", lk.separating,
                     lk.tilt.text if lk.tilt else ""))
     return out
 
 
 def confidence_word(result: IndexResult) -> str:
-    """'clear', 'likely' or 'ambiguous' for the best solution, from its score and the look-alikes."""
+    """'clear', 'likely', 'weak' or 'ambiguous' for the best solution, from its score and the look-alikes
+    (:data:`CONFIDENCE_MEANING` says each in words)."""
     best = result.best
     if best is None:
         return "none"
@@ -62,60 +106,75 @@ def _fmt(v, spec: str, dash: str = "-") -> str:
     return dash if v is None or (isinstance(v, float) and not math.isfinite(v)) else format(v, spec)
 
 
-def format_summary(result: IndexResult, *, image: str, frame: int | None = None, top: int = 5) -> str:
-    """A plain-text summary (no colours; fits 100 columns)."""
+def format_summary(result: IndexResult, *, image: str, frame: int | None = None, top: int = 5,
+                   style: str = "plain", units: Units = UNITS["nm"]) -> str:
+    """A plain-text summary (no colours; fits 100 columns). `style` 'unicode' draws overbars (UTF-8
+    terminals); `units` sets the length unit of every spacing and scale."""
     m = result.measured
     cal = m.calibration
     rows, cols = m.image_shape
+    inv = units.inverse_label(style)
     lines = [f"{image}  ({cols} x {rows} px" + (f", frame {frame}" if frame is not None else "") + f"), "
              f"{len(m.spots)} spots, centre {m.center_px[0]:.1f} {m.center_px[1]:.1f} px"]
     if cal is not None and cal.is_calibrated:
-        lines.append(f"calibrated: {cal.scale_inv_nm_per_px:.5g} 1/nm per px at {cal.voltage_kv:g} kV"
+        lines.append(f"calibrated: {units.reciprocal(cal.scale_inv_nm_per_px):.5g} {inv} per px at {cal.voltage_kv:g} kV"
                      + ("  (ellipse corrected)" if cal.ellipse is not None else ""))
     else:
         lines.append("uncalibrated: indexed by spacing ratios and angles; the scale below is implied by the solution")
     if not result.solutions:
         lines.append("")
-        lines.append(f"no solution: {result.message}")
+        lines.append(f"no solution: {person_text(result.message, style)}")
         return "\n".join(lines)
     best = result.best
+    word = confidence_word(result)
     lines.append("")
-    lines.append(f"answer: {best.phase_name} {zone_text(best)}  ({confidence_word(result)}, score {best.score:.2f})")
+    lines.append(f"answer: {best.phase_name} {zone_text(best, style)}  ({word}, score {best.score:.2f})")
     lines.append("")
-    head = f"{'rank':>4}  {'phase':<12} {'zone':<12} {'score':>5}  {'spots':>7}  {'d err %':>7}  {'angle err':>9}  {'scale 1/nm/px':>13}"
-    lines.append(head)
+    header = [("rank", ">"), ("phase", "<"), ("zone", "<"), ("score", ">"), ("spots", ">"), ("d err %", ">"),
+              ("angle err deg", ">"), (f"scale {inv}/px", ">")]
+    table = []
     for i, s in enumerate(result.solutions[:top]):
-        spots = f"{s.n_explained}/{len(s.indexed)}"
-        scale = f"{s.scale_inv_nm_per_px:.5g}"
+        scale = f"{units.reciprocal(s.scale_inv_nm_per_px):.5g}"
         if s.scale_error_pct is not None:
-            scale += f" ({s.scale_error_pct:+.1f}%)"
-        lines.append(f"{i + 1:>4}  {s.phase_name:<12} {zone_text(s):<12} {s.score:5.2f}  {spots:>7}  "
-                     f"{_fmt(s.mean_d_error_pct, '.2f'):>7}  {_fmt(s.mean_angle_error_deg, '.2f') + ' deg':>9}  {scale:>13}")
+            scale += f" ({signed_text(s.scale_error_pct, 1)} %)"
+        table.append([str(i + 1), s.phase_name, zone_text(s, style), f"{s.score:.2f}",
+                      f"{s.n_explained}/{len(s.indexed)}", _fmt(s.mean_d_error_pct, ".2f"),
+                      _fmt(s.mean_angle_error_deg, ".2f"), scale])
+    lines += table_lines(header, table)
     lines.append("")
-    lines += _best_block(best, calibrated=cal is not None and cal.is_calibrated)
+    lines += _best_block(best, calibrated=cal is not None and cal.is_calibrated, style=style, units=units)
     if result.message:
-        lines.append(f"note: {result.message}")
+        lines.append(f"note: {person_text(result.message, style)}")
+    lines.append("")
+    lines += [textwrap.fill(t, 100, subsequent_indent="  ") for t in legend_lines(word)]
     return "\n".join(lines)
 
 
-def _best_block(best: Solution, *, calibrated: bool) -> list[str]:
-    out = [f"best: {best.phase_name} {zone_text(best)}, in-plane rotation {best.in_plane_rotation_deg:.1f} deg"]
+def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -> list[str]:
+    rot = degrees_text(best.in_plane_rotation_deg, style=style)
+    out = [f"best: {best.phase_name} {zone_text(best, style)}, in-plane rotation {rot}"]
     if not calibrated:
-        txt = f"  implied scale {best.scale_inv_nm_per_px:.5g} 1/nm per px"
+        txt = f"  implied scale {units.reciprocal(best.scale_inv_nm_per_px):.5g} {units.inverse_label(style)} per px"
         if best.implied_camera_length_mm is not None:
             txt += f", camera length {best.implied_camera_length_mm:.0f} mm"
         out.append(txt)
     if best.mistilt is not None:
-        out.append(f"  mistilt: {best.mistilt.advice}")
-    out += [f"  note: {n}" for n in plain_notes(best)]
-    for head, sep, tilt in other_lookalikes(best):
-        out.append(f"  {head}: {sep}" + (f"; {tilt}" if tilt else ""))
+        out.append(f"  mistilt: {person_text(best.mistilt.advice, style)}")
+    out += [f"  note: {person_text(n, style)}" for n in plain_notes(best)]
+    for head, sep, tilt in other_lookalikes(best, style):
+        out.append(f"  {head}: {person_text(sep, style)}" + (f"; {person_text(tilt, style)}" if tilt else ""))
     shown = sorted((s for s in best.indexed), key=lambda s: (s.hkl is None, s.d_nm_measured * -1))
     out.append("")
-    out.append(f"  {'hkl':<10} {'x':>8} {'y':>8} {'d meas nm':>10} {'d calc nm':>10} {'err %':>6}  kind")
-    for s in shown[:SHOWN_SPOTS]:
-        out.append(f"  {_hkl_text(s):<10} {s.x_px:8.1f} {s.y_px:8.1f} {s.d_nm_measured:10.4f} "
-                   f"{_fmt(s.d_nm_calc, '10.4f'):>10} {_fmt(s.d_error_pct, '+6.2f'):>6}  {s.kind}")
+    u = units.label(style)
+    header = [("hkl", "<"), ("x px", ">"), ("y px", ">"), (f"d meas {u}", ">"), (f"d calc {u}", ">"),
+              ("err %", ">"), ("explained as", "<")]
+    rows = [[spot_label(s, style), f"{s.x_px:.1f}", f"{s.y_px:.1f}", units.length_text(s.d_nm_measured),
+             units.length_text(s.d_nm_calc), signed_text(s.d_error_pct), kind_text(s, style)]
+            for s in shown[:SHOWN_SPOTS]]
+    out += table_lines(header, rows, indent="  ")
     if len(shown) > SHOWN_SPOTS:
         out.append(f"  ... {len(shown) - SHOWN_SPOTS} more spots (all in --json)")
+    if any(s.kind == "holz-projection" for s in shown[:SHOWN_SPOTS]):
+        out.append("  projected HOLZ: a higher-order Laue-zone reflection seen at its projection onto the zero "
+                   "layer (thin or faulted foil); d calc is the spacing of that projected position")
     return out

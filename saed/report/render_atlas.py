@@ -40,10 +40,12 @@ def _zone_text(phase: Phase, uvw) -> str:
 
 
 def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
-               progress=None):
-    """A matplotlib Figure: the reference sheet of `phase` (see the module notes)."""
+               progress=None, units=None):
+    """A matplotlib Figure: the reference sheet of `phase` (see the module notes); lengths in `units` (nm)."""
     from matplotlib.figure import Figure
 
+    from saed.crystal.notation import UNITS
+    from saed.crystal.phase import space_group_in_cell
     from saed.simulate.families import shortest_allowed_g_inv_nm, standard_patterns, zone_label
     from saed.simulate.zone import zone_pattern
     from saed.simulate.zonemap import zone_map
@@ -56,11 +58,13 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
     ext = max(2.2 * g_min, 1.15 * max(s.g2_inv_nm for _, _, s in shown))
     fig = Figure(figsize=_PAGE_IN)
     lat = phase.lattice
-    cell = f"a = {lat.a_nm:.5f} nm" + (f", c = {lat.c_nm:.5f} nm" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
+    u = units or UNITS["nm"]
+    cell = f"a = {u.length_text(lat.a_nm, 5)} {u.label()}" + (
+        f", c = {u.length_text(lat.c_nm, 5)} {u.label()}" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
     fig.text(0.02, 0.965, f"{phase.name}", fontsize=16, weight="bold", va="center")
     fig.text(0.02 + 0.012 * (len(phase.name) + 2), 0.965,
-             f"{phase.structure_type or ''}   {phase.space_group_short} ({phase.space_group_number})   {cell}   "
-             f"kinematic, {voltage_kv:g} kV, foil {thickness_nm:g} nm, all patterns at one scale",
+             f"{phase.structure_type or ''}   {space_group_in_cell(phase)} ({phase.space_group_number})   {cell}   "
+             f"kinematic, {voltage_kv:g} kV, foil {u.length(thickness_nm):g} {u.label()}, all patterns at one scale",
              fontsize=9.5, va="center")
     fig.text(0.02, 0.03, "g1 drawn to the right in every pattern   filled disc: allowed (area ~ intensity)   open square: forbidden, present only by double "
              "diffraction   angles on the map: tilt between neighbouring zones about the row written under it",
@@ -85,10 +89,10 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
         i1 = int(np.flatnonzero(np.all(zp.hkl == np.array(summ.g1_hkl), axis=1))[0])
         turn = -math.degrees(math.atan2(zp.xy_inv_nm[i1, 1], zp.xy_inv_nm[i1, 0]))  # g1 to the right
         draw_pattern(ax, zp, in_plane_rotation_deg=turn, extent_inv_nm=ext, label_max_g_inv_nm=1.02 * summ.g2_inv_nm,
-                     font_size=5.5, legend=False, scale_bar=(k == 0), marker_scale=0.55, label_centre=False)
+                     font_size=5.5, legend=False, scale_bar=(k == 0), marker_scale=0.55, label_centre=False, units=u)
         ax.set_title(_zone_text(phase, fam.representative), fontsize=9, pad=2)
-        line1 = (f"g1 {_hkl_text(phase, summ.g1_hkl)}  d {summ.d1_nm:.4f} nm     "
-                 f"g2 {_hkl_text(phase, summ.g2_hkl)}  d {summ.d2_nm:.4f} nm")
+        line1 = (f"g1 {_hkl_text(phase, summ.g1_hkl)}  d {u.length_text(summ.d1_nm)} {u.label()}     "
+                 f"g2 {_hkl_text(phase, summ.g2_hkl)}  d {u.length_text(summ.d2_nm)} {u.label()}")
         line2 = f"R2/R1 = {summ.ratio:.3f}     angle {summ.angle_deg:.1f}\N{DEGREE SIGN}"
         if summ.double_diffraction_hkl:
             line2 += "     DD: " + ", ".join(_hkl_text(phase, h) for h in summ.double_diffraction_hkl[:3])
@@ -103,7 +107,7 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
 
 
 def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
-                progress=None) -> int:
+                progress=None, units=None) -> int:
     """Write one page per phase to the PDF `path` (atomically); returns the number of pages."""
     p = Path(path)
     if p.suffix.lower() != ".pdf":
@@ -119,7 +123,7 @@ def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, 
                 if progress:
                     progress(_i * 100 + int(100 * done / max(total, 1)), 100 * len(phases), text)
             fig = atlas_page(phase, max_index=max_index, voltage_kv=voltage_kv, thickness_nm=thickness_nm,
-                             progress=sub)
+                             progress=sub, units=units)
             pdf.savefig(fig)
             n += 1
     atomic_write_bytes(p, buf.getvalue())

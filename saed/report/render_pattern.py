@@ -77,19 +77,15 @@ def write_detector_image(det: DetectorImage, path) -> None:
 # ---------------------------------------------------------------------- labels
 def index_text(idx, *, math_text: bool = True) -> str:
     """Indices with overbars for negatives (mathtext), e.g. 1-1 1 -> 1 bar-1 1; plain '1-11' if not math."""
-    vals = [int(v) for v in np.asarray(idx).ravel()]
-    if not math_text:
-        sep = " " if any(abs(v) >= 10 for v in vals) else ""
-        return sep.join(str(v) for v in vals)
-    parts = [(r"\bar{%d}" % -v) if v < 0 else str(v) for v in vals]
-    sep = r"\,"
-    return "$" + sep.join(parts) + "$"
+    from saed.crystal.notation import indices_text
+
+    return indices_text(idx, "mathtext" if math_text else "plain")
 
 
-def pattern_title(zp: ZonePattern) -> str:
+def pattern_title(zp: ZonePattern, units=None) -> str:
     z = zp.zone_axis_4 if zp.is_hexagonal else zp.zone_axis
     t = f"{zp.phase.name}  [{index_text(z)}]"
-    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm:g} nm"
+    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm * (units.per_nm if units else 1):g} {units.label() if units else 'nm'}"
     if zp.tilted:
         lab = index_text(_plane_shown(zp, zp.tilt_toward_hkl))
         t += f", beam tilted {zp.tilt_deg:g}\N{DEGREE SIGN} toward {lab}"
@@ -119,7 +115,7 @@ def nice_scale_bar_inv_nm(span_inv_nm: float) -> float:
 # ---------------------------------------------------------------------- the diagram
 def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, extent_inv_nm: float | None = None,
                  label_max_g_inv_nm: float | None = None, font_size: float = 7.0, legend: bool = True,
-                 scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True) -> None:
+                 scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True, units=None) -> None:
     """Draw the labelled diagram of `zp` on a matplotlib axes (detector frame, y downward).
 
     Parameters
@@ -175,7 +171,7 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         r_pts = 0.5 * math.sqrt(0.5 * base if kind_dd[i] else size[i])  # marker radius, points
         _label(ax, x, y, ux, uy, r_pts + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
-        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
+        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "0000" if zp.is_hexagonal else "000", font_size, "black")
 
     ax.set_xlim(-ext, ext)
     ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
@@ -183,10 +179,14 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     ax.set_xticks([])
     ax.set_yticks([])
     if scale_bar:
-        bar = nice_scale_bar_inv_nm(2 * ext)
+        from saed.crystal.notation import UNITS
+
+        u = units or UNITS["nm"]
+        bar_shown = nice_scale_bar_inv_nm(u.reciprocal(2 * ext))  # a round length in the display unit
+        bar = bar_shown * u.per_nm
         x0, y0 = -0.92 * ext, 0.9 * ext
         ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
-        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
+        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar_shown:g} {u.label()}$^{{-1}}$", ha="center", va="bottom",
                 fontsize=font_size, zorder=6)
     if legend:
         handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)")]
@@ -213,8 +213,8 @@ def _label(ax, x, y, ux, uy, off_pts, text, font_size, color) -> None:
 
 def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
                    extent_inv_nm: float | None = None, label_max_g_inv_nm: float | None = None,
-                   size_in: float = 7.0, dpi: int = 150) -> None:
-    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically)."""
+                   size_in: float = 7.0, dpi: int = 150, units=None) -> None:
+    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically); lengths in `units` (nm)."""
     p = Path(path)
     if p.suffix.lower() not in _FIGURE_SUFFIXES:
         raise InputError(f"{path}: the diagram must end in .png, .pdf or .svg")
@@ -224,8 +224,8 @@ def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
     fig = Figure(figsize=(size_in, size_in))
     ax = fig.add_axes([0.03, 0.03, 0.94, 0.9])
     draw_pattern(ax, zp, in_plane_rotation_deg=in_plane_rotation_deg, extent_inv_nm=extent_inv_nm,
-                 label_max_g_inv_nm=label_max_g_inv_nm, font_size=8.0)
-    fig.suptitle(pattern_title(zp), fontsize=11, y=0.975)
+                 label_max_g_inv_nm=label_max_g_inv_nm, font_size=8.0, units=units)
+    fig.suptitle(pattern_title(zp, units), fontsize=11, y=0.975)
     buf = io.BytesIO()
     fig.savefig(buf, format=p.suffix.lower()[1:], dpi=dpi)
     atomic_write_bytes(p, buf.getvalue())

@@ -65,10 +65,12 @@ class RingLines:
     def __len__(self) -> int:
         return len(self.g_inv_nm)
 
-    def hkl_label(self, i: int) -> str:
-        """'111' or '333/511' (families of ring i, 3-index; negative indices as -1)."""
-        return "/".join("".join(str(int(v)) if 0 <= v < 10 else f"({int(v)})" for v in fam)
-                        for fam in self.families[i])
+    def hkl_label(self, i: int, style: str = "plain") -> str:
+        """'111' or '333/511': the families of ring i as a person reads them (4-index '10-11' on
+        hexagonal axes; `style` as in :func:`saed.crystal.notation.indices_text`)."""
+        from saed.crystal.notation import plane_text
+
+        return "/".join(plane_text(fam, self.phase.is_hexagonal, style) for fam in self.families[i])
 
 
 def _family_keys(hkl: np.ndarray, space_group: str) -> tuple[np.ndarray, np.ndarray]:
