@@ -1,0 +1,302 @@
+"""``saed serve`` over HTTP: the contract routes, bad fields, the guards, the watched folder, saving.
+
+A real server (uvicorn on 127.0.0.1, ephemeral port) runs in a thread for the module; every test
+talks to it with httpx or, where a client would tidy the path, with raw http.client requests.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import http.client
+import json
+import os
+import shutil
+
+import httpx
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from saed.cli import main
+from saed.serve.settings import FILE_NAME, PhaseBook, load_settings
+
+from serve_helpers import example, start_server, wait_for
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    state = tmp_path_factory.mktemp("serve-state")
+    old = os.environ.get("SAED_SERVE_DIR")
+    os.environ["SAED_SERVE_DIR"] = str(state)
+    watch = tmp_path_factory.mktemp("acquisition")
+    srv, service = start_server(watch, max_upload_mb=2.0)
+    client = httpx.Client(base_url=srv.url.rstrip("/"), timeout=60)
+    try:
+        yield srv, service, client, watch, state
+    finally:
+        client.close()
+        srv.stop()
+        if old is None:
+            os.environ.pop("SAED_SERVE_DIR", None)
+        else:
+            os.environ["SAED_SERVE_DIR"] = old
+
+
+def _raw_get(srv, path: str, host: str | None = None) -> tuple[int, bytes]:
+    conn = http.client.HTTPConnection("127.0.0.1", srv.port, timeout=30)
+    try:
+        conn.putrequest("GET", path, skip_host=True)
+        conn.putheader("Host", host or f"127.0.0.1:{srv.port}")
+        conn.endheaders()
+        r = conn.getresponse()
+        return r.status, r.read()
+    finally:
+        conn.close()
+
+
+def _upload(client, path, **fields):
+    data = dict(fields)
+    with open(path, "rb") as fh:
+        return client.post("/api/index", files={"file": (path.name, fh.read(), "image/tiff")}, data=data)
+
+
+def _folder_snapshot(folder):
+    return {p.name: (p.stat().st_size, p.stat().st_mtime_ns, hashlib.sha256(p.read_bytes()).hexdigest())
+            for p in folder.iterdir() if p.is_file()}
+
+
+# ---------------------------------------------------------------- contract
+def test_page_has_a_file_input(served):
+    _, _, client, _, _ = served
+    r = client.get("/")
+    assert r.status_code == 200
+    assert '<input type="file"' in r.text and "/static/app.js" in r.text
+    js = client.get("/static/app.js")
+    assert js.status_code == 200 and "api/index" in js.text
+
+
+def test_index_upload_returns_the_index_json_and_finds_the_truth(served, tmp_path):
+    _, _, client, _, _ = served
+    path, side = example("grain_B_hcp")
+    truth = side["synthetic"]  # written by saed.index.demo_set when the pattern was made
+    r = _upload(client, path, phase=["Co-fcc", "Co-hcp"], scale=str(side["scale_inv_nm_per_px"]), voltage="200")
+    assert r.status_code == 200, r.text
+    doc = r.json()
+    best = doc["solutions"][0]
+    assert best["phase"] == truth["phase"] == "Co-hcp"
+    # [2-1-10] and its Laue-group equivalents: any <2-1-10> zone; the 4-index form has zero W
+    assert sorted(abs(v) for v in best["zone_axis_4"]) == [0, 1, 1, 2] and best["zone_axis_4"][3] == 0
+    for key in ("image", "center_px", "scale_inv_nm_per_px", "voltage_kv", "spots", "solutions"):
+        assert key in doc
+    for key in ("rank", "phase", "zone_axis", "zone_axis_4", "score", "orientation_matrix", "in_plane_rotation_deg",
+                "scale_inv_nm_per_px", "indexed_spots", "mean_d_error_pct", "mean_angle_error_deg"):
+        assert key in best
+    # the same document as `saed index --json` for the same file and options
+    out = tmp_path / "cli.json"
+    assert main(["index", str(path), "--phase", "Co-fcc", "--phase", "Co-hcp", "--scale",
+                 str(side["scale_inv_nm_per_px"]), "--json", str(out)]) == 0
+    cli = json.loads(out.read_text())
+    assert [(s["phase"], s["zone_axis"]) for s in cli["solutions"]] == [(s["phase"], s["zone_axis"])
+                                                                           for s in doc["solutions"]]
+    assert cli["center_px"] == doc["center_px"] and len(cli["spots"]) == len(doc["spots"])
+
+
+@pytest.mark.parametrize("fields, words", [
+    ({"phase": "Unobtainium"}, "Unobtainium"),
+    ({"phase": "/etc/passwd"}, "built-in"),
+    ({"scale": "abc"}, "not a number"),
+    ({"scale": "-0.05"}, "positive"),
+    ({"scale": "5"}, "plausible"),
+    ({"voltage": "nan"}, "finite"),
+    ({"colour": "red"}, "unknown field"),
+])
+def test_bad_fields_are_400_with_one_line(served, fields, words):
+    _, _, client, _, _ = served
+    path, _ = example("grain_A_fcc")
+    r = _upload(client, path, **fields)
+    assert r.status_code == 400
+    msg = r.json()["error"]
+    assert words.lower() in msg.lower() and "\n" not in msg and "Traceback" not in msg
+
+
+def test_missing_or_empty_file_is_400(served):
+    _, _, client, _, _ = served
+    r = client.post("/api/index", data={"scale": "0.05"}, files={"other": ("x.txt", b"x")})
+    assert r.status_code == 400 and "\n" not in r.json()["error"]
+    r = client.post("/api/index", files={"file": ("empty.tif", b"", "image/tiff")})
+    assert r.status_code == 400 and "empty" in r.json()["error"]
+    r = client.post("/api/index", content=b"{}", headers={"content-type": "application/json"})
+    assert r.status_code == 400
+
+
+def test_bad_image_upload_is_400_and_server_goes_on(served):
+    _, _, client, _, _ = served
+    r = client.post("/api/index", files={"file": ("broken.tif", b"II*\x00" + b"\x00" * 40, "image/tiff")})
+    assert r.status_code == 400
+    assert "broken.tif" in r.json()["error"] and "\n" not in r.json()["error"]
+    assert client.get("/api/status").status_code == 200
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(scale=st.text(max_size=12), voltage=st.text(max_size=8))
+def test_hostile_number_fields_never_500(served, scale, voltage):
+    _, _, client, _, _ = served
+    r = client.post("/api/settings", data={"scale": scale, "voltage": voltage})
+    assert r.status_code in (200, 400), r.text
+    if r.status_code == 400:
+        assert "\n" not in r.json()["error"]
+    client.post("/api/settings", data={"scale": "0.0498", "voltage": "200"})  # back to a good state
+
+
+def test_upload_size_cap(served):
+    _, _, client, _, _ = served
+    r = client.post("/api/index", files={"file": ("big.tif", b"\x00" * 3_000_000, "image/tiff")})
+    assert r.status_code == 413 and "cap" in r.json()["error"]
+
+
+# ---------------------------------------------------------------- guards
+def test_host_header_guard(served):
+    srv, _, _, _, _ = served
+    status, body = _raw_get(srv, "/api/status", host="evil.example:80")
+    assert status == 421 and b"Host" in body
+    status, _ = _raw_get(srv, "/api/status", host=f"localhost:{srv.port}")
+    assert status == 200
+    status, _ = _raw_get(srv, "/api/status", host="127.0.0.1:1")  # right name, wrong port
+    assert status == 421
+
+
+@pytest.mark.parametrize("path", [
+    "/files/w/../../../../etc/passwd",
+    "/files/w/%2e%2e/%2e%2e/%2e%2e/etc/passwd",
+    "/files/w/..%2f..%2f..%2fetc%2fpasswd",
+    "/files/w/%2fetc%2fpasswd",
+    "/files/w//etc/passwd",
+    "/files/u/../../etc/passwd",
+    "/files/x/etc/passwd",
+    "/static/../app.py",
+    "/static/%2e%2e/app.py",
+    "/static/..%2f..%2fcli%2f__init__.py",
+    "/api/image/..%2f..%2fetc%2fpasswd",
+    "/../../etc/passwd",
+])
+def test_no_path_outside_is_served(served, path):
+    srv, _, _, _, _ = served
+    status, body = _raw_get(srv, path)
+    assert status in (400, 404), (path, status)
+    assert b"root:" not in body and b"import" not in body
+
+
+def test_only_saved_reports_are_served_from_the_folder(served):
+    srv, _, _, watch, _ = served
+    (watch / "notes_saed.txt").write_text("private")
+    status, _ = _raw_get(srv, "/files/w/notes_saed.txt")
+    assert status == 404
+
+
+def test_token_when_remote(tmp_path, monkeypatch):
+    monkeypatch.setenv("SAED_SERVE_DIR", str(tmp_path / "state"))
+    srv, _ = start_server(None, token="s3cret-token", remember=False)
+    try:
+        base = srv.url.rstrip("/")
+        assert httpx.get(base + "/api/status").status_code == 403
+        assert httpx.get(base + "/api/status?token=wrong").status_code == 403
+        assert httpx.get(base + "/api/status", headers={"x-saed-token": "s3cret-token"}).status_code == 200
+        with httpx.Client(base_url=base) as c:
+            r = c.get("/?token=s3cret-token")
+            assert r.status_code == 200 and "saed_token" in r.headers.get("set-cookie", "")
+            assert c.get("/api/status").status_code == 200  # the page's cookie carries it
+    finally:
+        srv.stop()
+
+
+# ---------------------------------------------------------------- watched folder
+def test_watched_folder_results_newest_first_and_bad_file_row(served):
+    _, service, client, watch, _ = served
+    before = {r["image"] for r in client.get("/api/results").json()}
+    path, side = example("grain_A_fcc")
+    shutil.copy(path, watch / "w1_fcc.tif")
+    wait_for(lambda: any(r["image"] == "w1_fcc.tif" and r["status"] == "ok" for r in client.get("/api/results").json()),
+             what="w1 indexed")
+    (watch / "w2_broken.tif").write_bytes(b"this is not a TIFF at all" * 10)
+    os.utime(watch / "w2_broken.tif", (0, 0))  # an old file, as if moved into place: no waiting for more bytes
+    row = wait_for(lambda: next((r for r in client.get("/api/results").json()
+                                 if r["image"] == "w2_broken.tif" and r["status"] == "error"), None), what="error row")
+    assert "w2_broken.tif" in row["error"] and "\n" not in row["error"]
+    shutil.copy(example("grain_C_hcp_basal")[0], watch / "w3_hcp.tif")
+    wait_for(lambda: any(r["image"] == "w3_hcp.tif" and r["status"] == "ok" for r in client.get("/api/results").json()),
+             what="the server goes on after a bad file")
+    rows = [r for r in client.get("/api/results").json() if r["image"] not in before]
+    assert [r["image"] for r in rows] == ["w3_hcp.tif", "w2_broken.tif", "w1_fcc.tif"]
+    first = rows[2]
+    assert first["phase"] == side["synthetic"]["phase"] == "Co-fcc"
+    assert sorted(abs(v) for v in first["zone_axis"]) == [0, 1, 1]
+    for r in rows:
+        assert {"image", "status", "phase", "zone_axis"} <= set(r)
+    assert all(r["origin"] == "watch" for r in client.get("/api/results").json())
+
+
+def test_half_written_file_is_retried_when_complete(served):
+    _, service, client, watch, _ = served
+    path, _ = example("grain_E_thin_fcc")
+    data = path.read_bytes()
+    target = watch / "w4_slow.tif"
+    with open(target, "wb") as fh:
+        fh.write(data[: len(data) // 3])
+        fh.flush()
+        row = wait_for(lambda: next((r for r in client.get("/api/results").json() if r["image"] == "w4_slow.tif"),
+                                    None), what="row of the half-written file")
+        assert row["status"] in ("waiting", "indexing")
+        fh.write(data[len(data) // 3:])
+    row = wait_for(lambda: next((r for r in client.get("/api/results").json()
+                                 if r["image"] == "w4_slow.tif" and r["status"] == "ok"), None), what="retried")
+    assert row["phase"] == "Co-fcc"
+    assert sum(r["image"] == "w4_slow.tif" for r in client.get("/api/results").json()) == 1
+
+
+def test_save_report_writes_new_files_only(served):
+    _, service, client, watch, _ = served
+    shutil.copy(example("grain_D_fcc_or_hcp")[0], watch / "w5.tif")
+    row = wait_for(lambda: next((r for r in client.get("/api/results").json()
+                                 if r["image"] == "w5.tif" and r["status"] in ("ok", "no-solution")), None),
+                   what="w5 indexed")
+    snap = _folder_snapshot(watch)
+    r1 = client.post(f"/api/save/{row['id']}")
+    r2 = client.post(f"/api/save/{row['id']}")
+    assert r1.status_code == 200 and r2.status_code == 200, (r1.text, r2.text)
+    names1 = sorted(os.path.basename(p) for p in r1.json()["saved"])
+    names2 = sorted(os.path.basename(p) for p in r2.json()["saved"])
+    assert names1 == ["w5_saed.html", "w5_saed.json"] and names2 == ["w5_saed-2.html", "w5_saed-2.json"]
+    after = _folder_snapshot(watch)
+    assert {k: v for k, v in after.items() if k in snap} == snap  # nothing that was there changed
+    assert set(after) - set(snap) == set(names1) | set(names2)
+    saved = json.loads((watch / "w5_saed.json").read_text())
+    assert saved["solutions"][0]["phase"] == row["phase"] and saved["image"].endswith("w5.tif")
+    html = client.get(r1.json()["links"][0])
+    assert html.status_code == 200 and "<html" in html.text and "w5.tif" in html.text
+    assert not any(r["image"].startswith("w5_saed") for r in client.get("/api/results").json())
+
+
+def test_grain_marks_and_settings_are_remembered(served):
+    _, service, client, watch, state = served
+    path, side = example("grain_B_hcp")
+    doc = _upload(client, path).json()
+    rid = doc["id"]
+    assert client.post(f"/api/grain/{rid}", data={"grain": "G7", "alpha": "12.5", "beta": "-3"}).status_code == 200
+    bad = client.post(f"/api/grain/{rid}", data={"grain": "G7", "alpha": "200"})
+    assert bad.status_code == 400 and "90" in bad.json()["error"]
+    marks = client.get("/api/grains").json()
+    assert [(m["grain"], m["alpha_deg"], m["beta_deg"]) for m in marks if m["id"] == rid] == [("G7", 12.5, -3.0)]
+    stored = json.loads((state / "serve-grains.json").read_text())
+    assert any(m["grain"] == "G7" and m["alpha_deg"] == 12.5 for m in stored["marks"])
+    r = client.post("/api/settings", data={"phase": ["Co-fcc", "Co-hcp", "Cr"], "camera_length": "120",
+                                          "pixel_pitch": "15", "scale": "", "voltage": "200", "alpha_axis": "35"})
+    assert r.status_code == 200, r.text
+    assert (state / FILE_NAME).is_file()
+    again = load_settings(PhaseBook(), state)
+    assert again.phases == ("Co-fcc", "Co-hcp", "Cr") and again.camera_length_mm == 120.0 and again.alpha_axis_deg == 35.0
+    # 120 mm, 15 um pixels at 200 kV: 15e-3 mm / (0.0025079 nm * 120 mm) = 0.04984 1/nm per px (the
+    # example's sidecar value, written from the same camera length and pitch)
+    assert again.calibration().scale_inv_nm_per_px == pytest.approx(side["scale_inv_nm_per_px"], rel=2e-4)
+    assert "camera length 120" in r.json()["settings"]["calibration_text"]
+    client.post("/api/settings", data={"phase": ["Co-fcc", "Co-hcp", "Ni", "Cr"], "scale": str(side["scale_inv_nm_per_px"]),
+                                       "camera_length": "", "pixel_pitch": ""})

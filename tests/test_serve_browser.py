@@ -1,0 +1,136 @@
+"""``saed serve`` in a real browser: Selenium driving Debian's headless Chromium.
+
+Skipped, with the reason, only where no Chromium or chromedriver can be found (.ci/run installs
+the apt packages ``chromium`` and ``chromium-driver`` when they are missing). Screenshots go to
+``$SAED_SCREENSHOTS`` when set (else the test's temporary folder) for a person to look at.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import pytest
+
+from serve_helpers import example, start_server, wait_for
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+DRIVER = shutil.which("chromedriver")
+
+pytestmark = pytest.mark.skipif(
+    CHROMIUM is None or DRIVER is None,
+    reason="no browser: the browser tests need Debian's 'chromium' and 'chromium-driver' "
+           "(apt-get install chromium chromium-driver; .ci/run does this)")
+
+
+def make_driver(profile_dir: str):
+    """Headless Chromium with a fresh profile and nothing that reaches the network by itself."""
+    from selenium import webdriver
+    from selenium.webdriver.chrome.options import Options
+    from selenium.webdriver.chrome.service import Service
+
+    opts = Options()
+    opts.binary_location = CHROMIUM
+    for a in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+              "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-dev-shm-usage",
+              "--window-size=1500,1000", f"--user-data-dir={profile_dir}"):
+        opts.add_argument(a)
+    return webdriver.Chrome(options=opts, service=Service(DRIVER))
+
+
+@pytest.fixture(scope="module")
+def page(tmp_path_factory):
+    state = tmp_path_factory.mktemp("serve-state")
+    old = os.environ.get("SAED_SERVE_DIR")
+    os.environ["SAED_SERVE_DIR"] = str(state)
+    watch = tmp_path_factory.mktemp("acquisition")
+    shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
+    shots.mkdir(parents=True, exist_ok=True)
+    srv, service = start_server(watch)
+    profile = tempfile.mkdtemp(prefix="saed-chromium-")
+    driver = None
+    try:
+        driver = make_driver(profile)
+        driver.get(srv.url)
+        yield driver, srv, watch, shots
+    finally:
+        if driver is not None:
+            driver.quit()
+        srv.stop()
+        shutil.rmtree(profile, ignore_errors=True)
+        if old is None:
+            os.environ.pop("SAED_SERVE_DIR", None)
+        else:
+            os.environ["SAED_SERVE_DIR"] = old
+
+
+def _text(driver, element_id: str) -> str:
+    return driver.find_element("id", element_id).text
+
+
+def _canvas(driver) -> str:
+    return driver.execute_script("return document.getElementById('canvas').toDataURL('image/png');")
+
+
+def test_page_loads_with_tables_ready(page):
+    driver, _, watch, shots = page
+    assert driver.title == "saed serve"
+    wait_for(lambda: "tables ready" in _text(driver, "tables"), what="tables ready on the page")
+    assert str(watch) in _text(driver, "watch")
+    assert driver.find_element("id", "file").get_attribute("type") == "file"
+    driver.save_screenshot(str(shots / "serve_1_empty.png"))
+
+
+def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
+    driver, srv, _, shots = page
+    path, side = example("grain_A_fcc")
+    truth = side["synthetic"]  # demo_set's truth: Co-fcc [011]
+    driver.find_element("id", "file").send_keys(str(path))
+    wait_for(lambda: "Co-fcc" in _text(driver, "answer"), what="the answer text")
+    answer = _text(driver, "answer")
+    assert answer.startswith(truth["phase"]) and any(z in answer for z in ("[011]", "[01-1]", "[0-11]", "[101]", "[110]",
+                                                                          "[10-1]", "[1-10]", "[-101]", "[-110]", "[0-1-1]"))
+    rows = driver.find_elements("css selector", "#solutions tbody tr.sol")
+    assert len(rows) >= 2, "this pattern has a close second (Ni [011]: a 0.7 % larger cell)"
+    wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "1",
+             what="overlay drawn")
+    driver.save_screenshot(str(shots / "serve_2_chosen.png"))
+    before = _canvas(driver)
+    rows[1].click()
+    wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "2",
+             what="second solution drawn")
+    assert _canvas(driver) != before
+    assert "drawing solution 2" in _text(driver, "viewing")
+    driver.save_screenshot(str(shots / "serve_3_second_solution.png"))
+
+
+def test_file_saved_into_the_watched_folder_appears(page):
+    driver, _, watch, shots = page
+    path, side = example("grain_B_hcp")
+    shutil.copy(path, watch / "g12_hcp.tif")
+
+    def row():
+        for tr in driver.find_elements("css selector", "#history tbody tr"):
+            if "g12_hcp.tif" in tr.text and "ok" in tr.text:
+                return tr
+        return None
+
+    tr = wait_for(row, what="the new pattern's row")
+    assert "Co-hcp" in tr.text
+    wait_for(lambda: _text(driver, "answer").startswith("Co-hcp"), what="the page follows the new pattern")
+    driver.save_screenshot(str(shots / "serve_4_watched.png"))
+
+
+def test_bad_file_shows_its_error(page):
+    driver, _, watch, shots = page
+    bad = watch / "g13_truncated.tif"
+    data = example("grain_C_hcp_basal")[0].read_bytes()
+    bad.write_bytes(data[:5000])
+    os.utime(bad, (0, 0))  # long finished: the truncation is an error, not a file still being written
+    wait_for(lambda: driver.find_element("id", "error").is_displayed(), what="the error line")
+    err = _text(driver, "error")
+    assert "g13_truncated.tif" in err and "\n" not in err
+    assert "tables ready" in _text(driver, "tables")  # still serving
+    driver.save_screenshot(str(shots / "serve_5_error.png"))
