@@ -137,7 +137,7 @@ def test_bad_image_upload_is_400_and_server_goes_on(served):
     assert client.get("/api/status").status_code == 200
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(scale=st.text(max_size=12), voltage=st.text(max_size=8))
 def test_hostile_number_fields_never_500(served, scale, voltage):
     _, _, client, _, _ = served
@@ -186,6 +186,18 @@ def test_no_path_outside_is_served(served, path):
     assert b"root:" not in body and b"import" not in body
 
 
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(rel=st.text(alphabet=st.sampled_from(list("./%2e5fcAZ_-~\\:")) | st.characters(codec="utf-8"), max_size=40),
+       kind=st.sampled_from(["w", "u", "x", "..", "%2e%2e"]))
+def test_hostile_file_paths_never_serve_anything(served, rel, kind):
+    srv, _, _, _, _ = served
+    from urllib.parse import quote
+
+    for path in (f"/files/{kind}/{quote(rel, safe='/%.')}", f"/files/{kind}/{quote(rel, safe='')}"):
+        status, body = _raw_get(srv, path)
+        assert status in (400, 404), (path, status)
+
+
 def test_only_saved_reports_are_served_from_the_folder(served):
     srv, _, _, watch, _ = served
     (watch / "notes_saed.txt").write_text("private")
@@ -217,8 +229,10 @@ def test_watched_folder_results_newest_first_and_bad_file_row(served):
     shutil.copy(path, watch / "w1_fcc.tif")
     wait_for(lambda: any(r["image"] == "w1_fcc.tif" and r["status"] == "ok" for r in client.get("/api/results").json()),
              what="w1 indexed")
-    (watch / "w2_broken.tif").write_bytes(b"this is not a TIFF at all" * 10)
-    os.utime(watch / "w2_broken.tif", (0, 0))  # an old file, as if moved into place: no waiting for more bytes
+    staged = watch / ".w2.partial"  # hidden: not followed
+    staged.write_bytes(b"this is not a TIFF at all" * 10)
+    os.utime(staged, (0, 0))  # an old file moved into place: no waiting for more bytes
+    os.replace(staged, watch / "w2_broken.tif")
     row = wait_for(lambda: next((r for r in client.get("/api/results").json()
                                  if r["image"] == "w2_broken.tif" and r["status"] == "error"), None), what="error row")
     assert "w2_broken.tif" in row["error"] and "\n" not in row["error"]
@@ -259,17 +273,16 @@ def test_save_report_writes_new_files_only(served):
     row = wait_for(lambda: next((r for r in client.get("/api/results").json()
                                  if r["image"] == "w5.tif" and r["status"] in ("ok", "no-solution")), None),
                    what="w5 indexed")
+    (watch / "w5_saed.html").write_text("a colleague's notes that happen to have this name")
     snap = _folder_snapshot(watch)
     r1 = client.post(f"/api/save/{row['id']}")
-    r2 = client.post(f"/api/save/{row['id']}")
-    assert r1.status_code == 200 and r2.status_code == 200, (r1.text, r2.text)
-    names1 = sorted(os.path.basename(p) for p in r1.json()["saved"])
-    names2 = sorted(os.path.basename(p) for p in r2.json()["saved"])
-    assert names1 == ["w5_saed.html", "w5_saed.json"] and names2 == ["w5_saed-2.html", "w5_saed-2.json"]
+    assert r1.status_code == 200, r1.text
+    names = sorted(os.path.basename(p) for p in r1.json()["saved"])
+    assert names == ["w5_saed-2.html", "w5_saed-2.json"]  # the taken name is left alone
     after = _folder_snapshot(watch)
     assert {k: v for k, v in after.items() if k in snap} == snap  # nothing that was there changed
-    assert set(after) - set(snap) == set(names1) | set(names2)
-    saved = json.loads((watch / "w5_saed.json").read_text())
+    assert set(after) - set(snap) == set(names)
+    saved = json.loads((watch / "w5_saed-2.json").read_text())
     assert saved["solutions"][0]["phase"] == row["phase"] and saved["image"].endswith("w5.tif")
     html = client.get(r1.json()["links"][0])
     assert html.status_code == 200 and "<html" in html.text and "w5.tif" in html.text

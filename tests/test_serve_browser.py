@@ -111,24 +111,25 @@ def test_file_saved_into_the_watched_folder_appears(page):
     path, side = example("grain_B_hcp")
     shutil.copy(path, watch / "g12_hcp.tif")
 
-    def row():
-        for tr in driver.find_elements("css selector", "#history tbody tr"):
-            if "g12_hcp.tif" in tr.text and "ok" in tr.text:
-                return tr
-        return None
+    def row_text():  # read in one script call: the table is redrawn while the page follows the folder
+        return driver.execute_script(
+            "for (const tr of document.querySelectorAll('#history tbody tr'))"
+            " if (tr.textContent.includes('g12_hcp.tif') && tr.querySelector('.st-ok')) return tr.textContent;"
+            " return null;")
 
-    tr = wait_for(row, what="the new pattern's row")
-    assert "Co-hcp" in tr.text
+    text = wait_for(row_text, what="the new pattern's row")
+    assert "Co-hcp" in text
     wait_for(lambda: _text(driver, "answer").startswith("Co-hcp"), what="the page follows the new pattern")
     driver.save_screenshot(str(shots / "serve_4_watched.png"))
 
 
 def test_bad_file_shows_its_error(page):
     driver, _, watch, shots = page
-    bad = watch / "g13_truncated.tif"
     data = example("grain_C_hcp_basal")[0].read_bytes()
-    bad.write_bytes(data[:5000])
-    os.utime(bad, (0, 0))  # long finished: the truncation is an error, not a file still being written
+    staged = watch / ".g13.partial"  # hidden: not followed
+    staged.write_bytes(data[:5000])
+    os.utime(staged, (0, 0))  # long finished: the truncation is an error, not a file still being written
+    os.replace(staged, watch / "g13_truncated.tif")
     wait_for(lambda: driver.find_element("id", "error").is_displayed(), what="the error line")
     err = _text(driver, "error")
     assert "g13_truncated.tif" in err and "\n" not in err

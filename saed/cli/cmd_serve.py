@@ -120,7 +120,11 @@ def run(args) -> int:
         import webbrowser
 
         webbrowser.open(url)
-    serve_forever(app, sock)
+    try:
+        serve_forever(app, sock)
+    except KeyboardInterrupt:
+        pass
+    print("saed serve: stopped", flush=True)
     return 0
 
 

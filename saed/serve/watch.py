@@ -4,8 +4,9 @@ The folder is listed every :data:`POLL_S` seconds (no platform file-event API ne
 network shares). A file is tried as soon as it appears; a complete file (or one renamed into place)
 reads at once. A file still being written usually fails to read (the readers report truncation) or
 changes size while it is read: it is then shown as "waiting" and tried again when its size or time
-stamp changes. Only when it has stayed unchanged for :data:`SETTLE_S` seconds and still fails is
-its one-line error shown; a later change tries it again.
+stamp changes. Only when it has stayed unchanged for :data:`SETTLE_S` seconds (counted from its time
+stamp, or from when it was last seen changing) and still fails is its one-line error shown; a later
+change tries it again.
 
 Only the folder itself is followed (not sub-folders). Hidden files, temporary files and saed's own
 reports (``.html``, ``.json`` ...) are skipped. Files already there when the server starts are left
@@ -132,7 +133,10 @@ class FolderWatcher:
                 if now - seen.changed_s < self.settle_s:
                     continue  # failed while recent: wait for a change or for the file to settle
             if seen is None or seen.sig != sig:
-                seen = _Seen(sig, rid=seen.rid if seen else None, changed_s=now)
+                # a file seen changing is in flux from now; a new one since its time stamp (a finished file
+                # renamed into place keeps its old stamp, so a read failure there is an error at once)
+                changed = now if seen is not None else min(now, sig[1] / 1e9)
+                seen = _Seen(sig, rid=seen.rid if seen else None, changed_s=changed)
                 self._seen[e.name] = seen
             if sig[0] == 0:
                 seen.rid = self.on_waiting(seen.rid, Path(e.path), "empty so far")
@@ -152,7 +156,7 @@ class FolderWatcher:
                 continue
             if ok:
                 seen.final = True
-            elif time.time() - max(seen.changed_s, sig[1] / 1e9) < self.settle_s:
+            elif time.time() - seen.changed_s < self.settle_s:
                 seen.rid = self.on_waiting(rid, path, error)
             else:
                 seen.final = True
