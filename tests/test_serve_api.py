@@ -311,5 +311,8 @@ def test_grain_marks_and_settings_are_remembered(served):
     # example's sidecar value, written from the same camera length and pitch)
     assert again.calibration().scale_inv_nm_per_px == pytest.approx(side["scale_inv_nm_per_px"], rel=2e-4)
     assert "camera length 120" in r.json()["settings"]["calibration_text"]
+    # new phases: the tables are built again, with the progress the page shows
+    wait_for(lambda: (lambda t: t["state"] == "ready" and t["total"] == 3)(client.get("/api/status").json()["tables"]),
+             what="tables of the three new phases")
     client.post("/api/settings", data={"phase": ["Co-fcc", "Co-hcp", "Ni", "Cr"], "scale": str(side["scale_inv_nm_per_px"]),
                                        "camera_length": "", "pixel_pitch": ""})

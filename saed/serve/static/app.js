@@ -27,7 +27,7 @@ async function api(path, opts) {
 async function pollStatus() {
   const r = await api("/api/status");
   if (r.ok) showStatus(r.body);
-  setTimeout(pollStatus, state.tablesReady ? 3000 : 300);
+  setTimeout(pollStatus, state.tablesReady ? 1000 : 250);
 }
 
 function showStatus(st) {
@@ -39,7 +39,7 @@ function showStatus(st) {
     state.tablesReady = false;
   } else if (t.state === "ready") {
     el.className = "tables ready";
-    el.textContent = `tables ready: ${t.total} phases` + (t.seconds != null ? ` (built in ${t.seconds} s)` : "");
+    el.textContent = `tables ready: ${t.total} phase${t.total === 1 ? "" : "s"}` + (t.seconds != null ? ` (built in ${t.seconds} s)` : "");
     state.tablesReady = true;
   } else if (t.state === "error") {
     el.className = "tables failed"; el.textContent = "tables failed: " + t.message; state.tablesReady = true;
@@ -67,7 +67,7 @@ $("settings").addEventListener("submit", async (ev) => {
   for (const k of ["scale", "camera_length", "pixel_pitch", "voltage", "alpha_axis"]) fd.append(k, $(k).value.trim());
   const r = await api("/api/settings", { method: "POST", body: fd });
   if (!r.ok) { $("settingsmsg").innerHTML = `<span class="st-error">${esc(r.body.error)}</span>`; return; }
-  fillSettings(r.body); showStatus(r.body);
+  state.tablesReady = false; fillSettings(r.body); showStatus(r.body);
   $("settingsmsg").textContent = "applied and remembered; " + $("settingsmsg").textContent;
 });
 
