@@ -7,7 +7,9 @@ saed.index.demo_set, independent of the server under test.
 
 from __future__ import annotations
 
+import contextlib
 import json
+import os
 import time
 from pathlib import Path
 
@@ -46,3 +48,17 @@ def wait_for(cond, *, timeout_s: float = 60.0, what: str = "condition"):
             return v
         time.sleep(0.05)
     raise AssertionError(f"timed out waiting for {what}")
+
+
+@contextlib.contextmanager
+def settings_dir(folder: Path):
+    """SAED_SERVE_DIR set to `folder` (the remembered page settings) for a module-wide fixture."""
+    old = os.environ.get("SAED_SERVE_DIR")
+    os.environ["SAED_SERVE_DIR"] = str(folder)
+    try:
+        yield folder
+    finally:
+        if old is None:
+            os.environ.pop("SAED_SERVE_DIR", None)
+        else:
+            os.environ["SAED_SERVE_DIR"] = old

@@ -20,26 +20,20 @@ from hypothesis import strategies as st
 from saed.cli import main
 from saed.serve.settings import FILE_NAME, PhaseBook, load_settings
 
-from serve_helpers import example, start_server, wait_for
+from serve_helpers import example, settings_dir, start_server, wait_for
 
 
 @pytest.fixture(scope="module")
 def served(tmp_path_factory):
-    state = tmp_path_factory.mktemp("serve-state")
-    old = os.environ.get("SAED_SERVE_DIR")
-    os.environ["SAED_SERVE_DIR"] = str(state)
-    watch = tmp_path_factory.mktemp("acquisition")
-    srv, service = start_server(watch, max_upload_mb=2.0)
-    client = httpx.Client(base_url=srv.url.rstrip("/"), timeout=60)
-    try:
-        yield srv, service, client, watch, state
-    finally:
-        client.close()
-        srv.stop()
-        if old is None:
-            os.environ.pop("SAED_SERVE_DIR", None)
-        else:
-            os.environ["SAED_SERVE_DIR"] = old
+    with settings_dir(tmp_path_factory.mktemp("serve-state")) as state:
+        watch = tmp_path_factory.mktemp("acquisition")
+        srv, service = start_server(watch, max_upload_mb=2.0)
+        client = httpx.Client(base_url=srv.url.rstrip("/"), timeout=60)
+        try:
+            yield srv, service, client, watch, state
+        finally:
+            client.close()
+            srv.stop()
 
 
 def _raw_get(srv, path: str, host: str | None = None) -> tuple[int, bytes]:

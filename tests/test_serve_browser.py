@@ -14,56 +14,36 @@ from pathlib import Path
 
 import pytest
 
-from serve_helpers import example, start_server, wait_for
+from serve_helpers import example, settings_dir, start_server, wait_for
 
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-DRIVER = shutil.which("chromedriver")
+from saed.serve.browser import find_browser, headless_chromium
+
+CHROMIUM, DRIVER = find_browser()
 
 pytestmark = pytest.mark.skipif(
     CHROMIUM is None or DRIVER is None,
     reason="no browser: the browser tests need Debian's 'chromium' and 'chromium-driver' "
-           "(apt-get install chromium chromium-driver; .ci/run does this)")
-
-
-def make_driver(profile_dir: str):
-    """Headless Chromium with a fresh profile and nothing that reaches the network by itself."""
-    from selenium import webdriver
-    from selenium.webdriver.chrome.options import Options
-    from selenium.webdriver.chrome.service import Service
-
-    opts = Options()
-    opts.binary_location = CHROMIUM
-    for a in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-              "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-dev-shm-usage",
-              "--window-size=1500,1000", f"--user-data-dir={profile_dir}"):
-        opts.add_argument(a)
-    return webdriver.Chrome(options=opts, service=Service(DRIVER))
+           "(apt-get install chromium chromium-driver; .ci/run does this) and selenium (test extra)")
 
 
 @pytest.fixture(scope="module")
 def page(tmp_path_factory):
-    state = tmp_path_factory.mktemp("serve-state")
-    old = os.environ.get("SAED_SERVE_DIR")
-    os.environ["SAED_SERVE_DIR"] = str(state)
-    watch = tmp_path_factory.mktemp("acquisition")
-    shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
-    shots.mkdir(parents=True, exist_ok=True)
-    srv, service = start_server(watch)
-    profile = tempfile.mkdtemp(prefix="saed-chromium-")
-    driver = None
-    try:
-        driver = make_driver(profile)
-        driver.get(srv.url)
-        yield driver, srv, watch, shots
-    finally:
-        if driver is not None:
-            driver.quit()
-        srv.stop()
-        shutil.rmtree(profile, ignore_errors=True)
-        if old is None:
-            os.environ.pop("SAED_SERVE_DIR", None)
-        else:
-            os.environ["SAED_SERVE_DIR"] = old
+    with settings_dir(tmp_path_factory.mktemp("serve-state")):
+        watch = tmp_path_factory.mktemp("acquisition")
+        shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
+        shots.mkdir(parents=True, exist_ok=True)
+        srv, service = start_server(watch)
+        profile = tempfile.mkdtemp(prefix="saed-chromium-")
+        driver = None
+        try:
+            driver = headless_chromium(profile)
+            driver.get(srv.url)
+            yield driver, srv, watch, shots
+        finally:
+            if driver is not None:
+                driver.quit()
+            srv.stop()
+            shutil.rmtree(profile, ignore_errors=True)
 
 
 def _text(driver, element_id: str) -> str:

@@ -36,26 +36,13 @@ TEN_PHASES = ("Co-fcc", "Co-hcp", "Cr", "Ni", "Ni3Al", "NiAl", "Fe-bcc", "Al", "
 COPIES = 200  # hard links of one file: enough for any --repeat
 
 
-def _browser():
-    chromium = shutil.which("chromium") or shutil.which("chromium-browser")
-    driver = shutil.which("chromedriver")
-    try:
-        import selenium  # noqa: F401  (test extra)
-    except ImportError:
-        return None, None
-    return chromium, driver
-
-
 class _State:
     def __init__(self):
         import tifffile
-        from selenium import webdriver
-        from selenium.webdriver.chrome.options import Options
-        from selenium.webdriver.chrome.service import Service as ChromeService
-
         from saed.crystal import builtin_phase
         from saed.index.synthetic import synthetic_image
         from saed.serve.app import Service
+        from saed.serve.browser import headless_chromium
         from saed.serve.guard import allowed_hosts
         from saed.serve.runner import ServerThread
         from saed.serve.settings import PhaseBook, Settings
@@ -86,15 +73,8 @@ class _State:
         t_end = time.monotonic() + 300
         while self.service.cache.status()["state"] != "ready" and time.monotonic() < t_end:
             time.sleep(0.05)
-        chromium, chromedriver = _browser()
-        opts = Options()
-        opts.binary_location = chromium
         self.profile = tempfile.mkdtemp(prefix="saed-bench-chromium-")
-        for a in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                  "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-dev-shm-usage",
-                  "--window-size=1400,1000", f"--user-data-dir={self.profile}"):
-            opts.add_argument(a)
-        self.driver = webdriver.Chrome(options=opts, service=ChromeService(chromedriver))
+        self.driver = headless_chromium(self.profile, window="1400,1000")
         self.driver.get(self.server.url)
         self.closed = False
         atexit.register(self.close)  # the bench has no tear-down step: the browser and server end with the run
@@ -145,7 +125,9 @@ def _fn(state: _State):
 
 
 def cases():
-    chromium, chromedriver = _browser()
+    from saed.serve.browser import find_browser
+
+    chromium, chromedriver = find_browser()
     if chromium is None or chromedriver is None:
         logger.warning("bench_serve left out: no Chromium/chromedriver or no selenium "
                        "(apt-get install chromium chromium-driver; pip install selenium)")

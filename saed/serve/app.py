@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import dataclasses
 import json
 import logging
 import re
@@ -129,6 +128,12 @@ class Service:
             return False, msg
         except MemoryError:
             msg = "out of memory while indexing this pattern (fewer phases or a smaller frame)"
+            self.store.update(rid, status="error", error=msg, done_s=time.time())
+            return False, msg
+        except Exception as exc:  # noqa: BLE001 - the server outlives any one pattern; the row says what broke
+            logger.exception("indexing %s failed", path)
+            msg = _one_line(f"internal error while indexing ({exc.__class__.__name__}: {exc}); please report it "
+                            "with this file")
             self.store.update(rid, status="error", error=msg, done_s=time.time())
             return False, msg
         status = "ok" if out.doc["solutions"] else "no-solution"

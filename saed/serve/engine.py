@@ -14,7 +14,6 @@ display stretch of :func:`saed.image.overlay.display_stretch`, reduced to at mos
 
 from __future__ import annotations
 
-import io
 import logging
 import math
 import threading

@@ -19,6 +19,8 @@ __all__ = ["bind_socket", "ServerThread"]
 
 def bind_socket(host: str, port: int) -> socket.socket:
     """A listening TCP socket on host:port; InputError (one line) when the port is taken or the address wrong."""
+    if host == "localhost":  # browsers try 127.0.0.1 first; do not end up on ::1 alone
+        host = "127.0.0.1"
     try:
         infos = socket.getaddrinfo(host, port, type=socket.SOCK_STREAM)
     except socket.gaierror:
