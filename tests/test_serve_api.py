@@ -310,3 +310,47 @@ def test_grain_marks_and_settings_are_remembered(served):
              what="tables of the three new phases")
     client.post("/api/settings", data={"phase": ["Co-fcc", "Co-hcp", "Ni", "Cr"], "scale": str(side["scale_inv_nm_per_px"]),
                                        "camera_length": "", "pixel_pitch": ""})
+
+
+# ---------------------------------------------------------------- pieces without a server
+def test_unexpected_failure_is_an_error_row(monkeypatch, tmp_path):
+    from saed.serve.app import Service
+    from saed.serve.settings import Settings
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("simulated bug")
+
+    service = Service(book=PhaseBook(), settings=Settings(phases=("Co-fcc",)), remember=False,
+                      uploads_dir=tmp_path / "uploads")
+    monkeypatch.setattr("saed.serve.app.index_file", boom)
+    rec = service.index_upload(b"II*\x00", "p.tif", service.settings)
+    assert rec.status == "error" and "internal error" in rec.error and "simulated bug" in rec.error
+
+
+def test_watcher_skips_old_hidden_and_report_files(tmp_path):
+    from saed.serve.watch import FolderWatcher
+
+    (tmp_path / "before.tif").write_bytes(b"x" * 10)
+    tried, errors = [], []
+
+    def attempt(path, rid):
+        tried.append(path.name)
+        return "r1", path.name != "bad.tif", "unreadable"
+
+    w = FolderWatcher(tmp_path, attempt, lambda rid, path, why: rid or "r1", lambda rid, path, err: errors.append(path.name))
+    for name in (".hidden.tif", "~lock.tif", "p_saed.json", "p_saed.html", "notes.txt", "copy.tmp"):
+        (tmp_path / name).write_bytes(b"y" * 10)
+    (tmp_path / "sub").mkdir()
+    (tmp_path / "sub" / "deep.tif").write_bytes(b"z" * 10)
+    (tmp_path / "new.tif").write_bytes(b"z" * 10)
+    staged = tmp_path / ".bad.partial"
+    staged.write_bytes(b"q" * 10)
+    os.utime(staged, (0, 0))
+    os.replace(staged, tmp_path / "bad.tif")
+    w.poll_once()
+    w.poll_once()  # nothing changed: nothing tried again
+    assert sorted(tried) == ["bad.tif", "new.tif"]
+    assert errors == ["bad.tif"]  # an old file that fails is an error at once
+    (tmp_path / "bad.tif").write_bytes(b"q" * 20)  # changed: tried again
+    w.poll_once()
+    assert tried.count("bad.tif") == 2
