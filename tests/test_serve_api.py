@@ -159,6 +159,16 @@ def test_host_header_guard(served):
     assert status == 421
 
 
+def test_cross_site_posts_are_refused(served):
+    srv, _, client, _, _ = served
+    evil = client.post("/api/settings", data={"alpha_axis": "10"}, headers={"origin": "http://evil.example"})
+    assert evil.status_code == 403 and "cross-site" in evil.json()["error"]
+    evil = client.post("/api/settings", data={"alpha_axis": "10"}, headers={"sec-fetch-site": "cross-site"})
+    assert evil.status_code == 403
+    own = client.post("/api/settings", data={"alpha_axis": ""}, headers={"origin": f"http://127.0.0.1:{srv.port}"})
+    assert own.status_code == 200
+
+
 @pytest.mark.parametrize("path", [
     "/files/w/../../../../etc/passwd",
     "/files/w/%2e%2e/%2e%2e/%2e%2e/etc/passwd",

@@ -6,6 +6,10 @@
 * **Token**: when the server listens beyond this computer (``--allow-remote``), every request must
   carry the token given in the printed URL (``?token=...``, the header ``X-Saed-Token``, or the
   cookie the page receives when opened with the token); otherwise 403.
+* **Same origin for changes**: a POST that a browser sends from another site's page (its ``Origin``
+  header names another host, or ``Sec-Fetch-Site`` says cross-site) gets 403, so a web page elsewhere
+  cannot change the settings, upload or save reports through the operator's browser. Scripts send no
+  ``Origin`` and are not affected.
 * **Size cap**: a request body larger than the cap is refused with 413, by its declared length
   before it is read, and by counting while it is read.
 
@@ -16,6 +20,7 @@ from __future__ import annotations
 
 import hmac
 import json
+import re
 from http.cookies import SimpleCookie
 from urllib.parse import parse_qs
 
@@ -62,6 +67,18 @@ class GuardMiddleware:
         self.token = token
         self.max_body_bytes = int(max_body_bytes)
 
+    def _same_origin(self, headers: dict) -> bool:
+        """A browser names the page a request comes from (Origin); only this server's own page may change
+        anything. Scripts send no Origin and are judged by the other guards."""
+        origin = headers.get("origin")
+        if origin is None:
+            return headers.get("sec-fetch-site", "same-origin") in ("same-origin", "none")
+        m = re.fullmatch(r"https?://([^/]+)", origin.strip().lower())
+        if m is None:
+            return False
+        allowed = self.hosts if self.hosts is not None else {headers.get("host", "").lower()}
+        return m.group(1) in allowed
+
     def _token_ok(self, scope, headers: dict) -> bool:
         if self.token is None:
             return True
@@ -87,6 +104,9 @@ class GuardMiddleware:
         if self.hosts is not None and headers.get("host", "").lower() not in self.hosts:
             return await _refuse(send, 421, "wrong Host header: this server answers only to "
                                  + " or ".join(sorted(self.hosts)))
+        if scope.get("method", "GET") not in ("GET", "HEAD") and not self._same_origin(headers):
+            return await _refuse(send, 403, "cross-site request refused: send it from the page itself or "
+                                 "without an Origin header (scripts)")
         if not self._token_ok(scope, headers):
             return await _refuse(send, 403, "missing or wrong token: open the URL that 'saed serve' printed")
         length = headers.get("content-length")
