@@ -86,7 +86,6 @@ class Service:
         self.work_lock = threading.Lock()  # one pattern at a time: 2 cores, bounded memory
         self._own_uploads = uploads_dir is None
         self.uploads_dir = Path(uploads_dir or tempfile.mkdtemp(prefix="saed-serve-uploads-")).resolve()
-        self.grains_path = None
         self.watcher = None
         if self.watch_dir is not None:
             self.watcher = FolderWatcher(self.watch_dir, self._attempt, self._waiting, self._failed,
@@ -115,7 +114,9 @@ class Service:
             logger.warning("tables not built: %s", exc)
 
     # ---------------------------------------------------------------- work
-    def _index_into(self, rid: str, path: Path, name: str, settings: Settings) -> tuple[bool, str]:
+    def _index_into(self, rid: str, path: Path, name: str, settings: Settings, *,
+                    fail_status: str = "error") -> tuple[bool, str]:
+        """Index `path` into record `rid`; on failure the record gets `fail_status` and the one-line message."""
         t0 = time.perf_counter()
         self.store.update(rid, status="indexing", error="")
         try:
@@ -123,26 +124,24 @@ class Service:
                 out = index_file(path, settings, self.cache, top=self.top, name=name, options=self.options)
         except SaedError as exc:  # the message names the file by its full path: the page knows it by name
             msg = _one_line(str(exc).replace(str(path), name))
-            self.store.update(rid, status="error", error=msg, done_s=time.time(), doc=None, view=None,
-                              display=None, result=None)
-            return False, msg
         except MemoryError:
             msg = "out of memory while indexing this pattern (fewer phases or a smaller frame)"
-            self.store.update(rid, status="error", error=msg, done_s=time.time())
-            return False, msg
         except Exception as exc:  # noqa: BLE001 - the server outlives any one pattern; the row says what broke
             logger.exception("indexing %s failed", path)
             msg = _one_line(f"internal error while indexing ({exc.__class__.__name__}: {exc}); please report it "
                             "with this file")
-            self.store.update(rid, status="error", error=msg, done_s=time.time())
-            return False, msg
-        status = "ok" if out.doc["solutions"] else "no-solution"
-        now = time.time()
-        rec = self.store.get(rid)
-        self.store.update(rid, status=status, error="", doc=out.doc, view=out.view, display=out.display,
-                          result=out.result, done_s=now, elapsed_s=time.perf_counter() - t0,
-                          added_s=rec.added_s if rec else now)
-        return True, ""
+        else:
+            status = "ok" if out.doc["solutions"] else "no-solution"
+            self.store.update(rid, status=status, error="", doc=out.doc, view=out.view, display=out.display,
+                              result=out.result, done_s=time.time(), elapsed_s=time.perf_counter() - t0)
+            return True, ""
+        if fail_status == "waiting":
+            msg_shown = f"waiting for the file to be complete ({msg})"
+        else:
+            msg_shown = msg
+        self.store.update(rid, status=fail_status, error=_one_line(msg_shown), done_s=time.time(), doc=None,
+                          view=None, display=None, result=None)
+        return False, msg
 
     def _display_name(self, path: Path) -> str:
         return path.name
@@ -150,9 +149,8 @@ class Service:
     def _attempt(self, path: Path, rid: str | None):
         if rid is None:
             rid = self.store.put(Record(self.store.new_id(), self._display_name(path), "watch", path)).id
-        ok, msg = self._index_into(rid, path, self._display_name(path), self.settings)
-        if not ok:  # the watcher decides whether this is "still being written" or a final error
-            self.store.update(rid, status="waiting", error=msg)
+        # on failure the watcher decides whether this is "still being written" or a final error
+        ok, msg = self._index_into(rid, path, self._display_name(path), self.settings, fail_status="waiting")
         return rid, ok, msg
 
     def _waiting(self, rid: str | None, path: Path, why: str) -> str:
