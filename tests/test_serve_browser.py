@@ -101,6 +101,10 @@ def test_file_saved_into_the_watched_folder_appears(page):
     assert "Co-hcp" in text
     wait_for(lambda: _text(driver, "answer").startswith("Co-hcp"), what="the page follows the new pattern")
     driver.save_screenshot(str(shots / "serve_4_watched.png"))
+    before = sorted(p.name for p in watch.iterdir())
+    driver.find_element("id", "save").click()
+    wait_for(lambda: "g12_hcp_saed.html" in _text(driver, "saved"), what="the saved report named on the page")
+    assert sorted(p.name for p in watch.iterdir()) == sorted(before + ["g12_hcp_saed.html", "g12_hcp_saed.json"])
 
 
 def test_bad_file_shows_its_error(page):

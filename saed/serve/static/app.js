@@ -170,6 +170,7 @@ function showResult(d) {
   if (doc) {
     sub.push(`${esc(d.image)} \u2014 ${doc.image_shape[1]}\u00d7${doc.image_shape[0]} px, ${doc.spots.length} spots`);
     if (d.elapsed_s != null) sub.push(`indexed in ${fmt(d.elapsed_s, 2)} s`);
+    if (!doc.calibrated) sub.push('<span class="st-no-solution">uncalibrated: phases of the same structure differ only in the implied scale</span>');
     if (doc.message) sub.push(`<span class="st-no-solution">${esc(doc.message)}</span>`);
   }
   $("sub").innerHTML = sub.join("; ");
@@ -199,7 +200,8 @@ function showNotes() {
   $("notes").innerHTML = items.join("") || '<li class="sub">none</li>';
   const doc = d && d.doc;
   const s = doc && doc.solutions[state.sol];
-  $("viewing").textContent = s && state.sol > 0 ? `drawing solution ${state.sol + 1}: ${s.phase} ${zoneText(s)}` : "";
+  if (doc && !doc.solutions.length && doc.near_miss) $("viewing").textContent = `drawing the closest fit, REJECTED (score ${fmt(doc.near_miss.score, 2)}): ${doc.near_miss.phase} ${zoneText(doc.near_miss)}`;
+  else $("viewing").textContent = s && state.sol > 0 ? `drawing solution ${state.sol + 1}: ${s.phase} ${zoneText(s)}` : "";
 }
 
 function showCalib(d) {
