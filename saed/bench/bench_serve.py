@@ -11,8 +11,8 @@ page's long-poll, fetching the result and the picture, and drawing.
 The page itself records the moment it drew the result (``window.saedShown.t_ms``); the extra line
 ``page_latency_ms`` is the median landing-to-drawn time from that stamp over the timed calls (the
 case's median wall time adds the Selenium poll, ~20 ms and more on a loaded machine);
-``server_read_and_index_s`` the part spent reading and indexing on the server. Needs Chromium and chromedriver (as the browser tests); without them the
-case is left out with a warning.
+``server_read_and_index_s`` the part spent reading and indexing on the server. Needs Chromium and
+chromedriver (as the browser tests); without them the case is left out with a warning.
 """
 
 from __future__ import annotations

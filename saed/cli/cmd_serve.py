@@ -27,7 +27,8 @@ def add_arguments(p):
     g = p.add_argument_group("server")
     g.add_argument("--host", default="127.0.0.1", metavar="ADDR",
                    help="address to listen on (default 127.0.0.1: this computer only; others need --allow-remote)")
-    g.add_argument("--port", type=int, default=DEFAULT_PORT, metavar="N", help=f"port (default {DEFAULT_PORT}; 0: any free one)")
+    g.add_argument("--port", type=int, default=DEFAULT_PORT, metavar="N",
+                   help=f"port (default {DEFAULT_PORT}; 0: any free one)")
     g.add_argument("--watch", metavar="DIR", help="acquisition folder: index each new pattern saved into it")
     g.add_argument("--include-existing", action="store_true", help="also index the files already in --watch at start")
     g.add_argument("--open", action="store_true", help="open the page in the default browser")
@@ -111,7 +112,7 @@ def run(args) -> int:
     port = sock.getsockname()[1]
     token = secrets.token_urlsafe(18) if args.allow_remote else None
     service = Service(book=book, settings=settings, watch_dir=watch, top=args.top, options=opts,
-                      include_existing=args.include_existing, remember=not args.forget)
+                      include_existing=args.include_existing, remember=not args.forget, max_g_inv_nm=args.max_g)
     app = create_app(service, hosts=allowed_hosts(args.host, port), token=token, max_upload_mb=args.max_upload_mb)
     shown = f"[{args.host}]" if ":" in args.host else args.host
     url = f"http://{shown}:{port}/" + (f"?token={token}" if token else "")

@@ -74,8 +74,9 @@ class Service:
 
     def __init__(self, *, book: PhaseBook, settings: Settings, watch_dir: Path | None = None, top: int = 5,
                  options: dict | None = None, include_existing: bool = False, remember: bool = True,
-                 uploads_dir: Path | None = None):
+                 uploads_dir: Path | None = None, max_g_inv_nm: float | None = None):
         self.book = book
+        self.max_g_inv_nm = max_g_inv_nm
         self.settings = settings
         self.watch_dir = None if watch_dir is None else Path(watch_dir).resolve()
         self.top = top
@@ -109,7 +110,10 @@ class Service:
         """Build the tables of the current settings (progress in ``cache.status()``)."""
         s = self.settings
         try:
-            self.cache.get(s.phases, s.calibration().voltage_kv)
+            if self.max_g_inv_nm is not None:
+                self.cache.get(s.phases, s.calibration().voltage_kv, self.max_g_inv_nm)
+            else:
+                self.cache.get(s.phases, s.calibration().voltage_kv)
         except SaedError as exc:
             logger.warning("tables not built: %s", exc)
 
@@ -121,7 +125,8 @@ class Service:
         self.store.update(rid, status="indexing", error="")
         try:
             with self.work_lock:
-                out = index_file(path, settings, self.cache, top=self.top, name=name, options=self.options)
+                out = index_file(path, settings, self.cache, top=self.top, name=name, options=self.options,
+                                 max_g_inv_nm=self.max_g_inv_nm)
         except SaedError as exc:  # the message names the file by its full path: the page knows it by name
             msg = _one_line(str(exc).replace(str(path), name))
         except MemoryError:
@@ -264,7 +269,8 @@ class Service:
             raise InputError(f"{rec.image}: nothing indexed to save ({rec.status})")
         result = rec.result
         if result is None:  # an older row: its objects were dropped; index the file again
-            out = index_file(rec.path, self.settings, self.cache, top=self.top, name=rec.image, options=self.options)
+            out = index_file(rec.path, self.settings, self.cache, top=self.top, name=rec.image, options=self.options,
+                             max_g_inv_nm=self.max_g_inv_nm)
             result = out.result
         doc = dict(rec.doc)
         doc["image"] = str(rec.path) if rec.origin == "watch" else rec.image
@@ -432,8 +438,8 @@ def create_app(service: Service, *, hosts, token: str | None, max_upload_mb: flo
         if p is None:
             return _bad("not found", 404)
         media = "text/html; charset=utf-8" if p.suffix == ".html" else "application/json"
-        return FileResponse(p, media_type=media, headers={"cache-control": "no-store",
-                                                          "content-security-policy": "default-src 'none'; img-src data:; style-src 'unsafe-inline'"})
+        csp = "default-src 'none'; img-src data:; style-src 'unsafe-inline'"  # a saved report runs no script
+        return FileResponse(p, media_type=media, headers={"cache-control": "no-store", "content-security-policy": csp})
 
     async def http_error(request: Request, exc):
         code = getattr(exc, "status_code", 500)

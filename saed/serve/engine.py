@@ -198,11 +198,12 @@ def describe_source(cal) -> str:
 
 
 def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, name: str = "",
-               options: dict | None = None) -> Indexed:
+               options: dict | None = None, max_g_inv_nm: float | None = None) -> Indexed:
     """Read and index one file with warm tables; raises SaedError (one line) on bad input.
 
     `options`: further keyword options of :func:`saed.index.index_pattern` (tolerances, largest zone
-    index); the holder's alpha-axis direction comes from `settings`.
+    index); the holder's alpha-axis direction comes from `settings`. `max_g_inv_nm` fixes the tables'
+    reach (``--max-g``); default :func:`max_g_for_pattern`.
     """
     from saed.image.measure import inspect_file
     from saed.index import index_pattern
@@ -211,7 +212,8 @@ def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, nam
     cal = settings.calibration()
     insp = inspect_file(path, cal)
     measured = insp.measured
-    tables = cache.get(settings.phases, measured.calibration.voltage_kv, max_g_for_pattern(measured))
+    reach = float(max_g_inv_nm) if max_g_inv_nm is not None else max_g_for_pattern(measured)
+    tables = cache.get(settings.phases, measured.calibration.voltage_kv, reach)
     opts = {k: v for k, v in (options or {}).items() if v is not None}
     result = index_pattern(measured, tables, top=top, holder_alpha_axis_deg=settings.alpha_axis_deg, **opts)
     doc = result_json(result, image=name or str(path))
