@@ -13,7 +13,8 @@ import os
 import time
 from pathlib import Path
 
-from saed.serve.app import Service, create_app
+from saed.serve.app import create_app
+from saed.serve.service import Service
 from saed.serve.guard import allowed_hosts
 from saed.serve.runner import ServerThread
 from saed.serve.settings import PhaseBook, Settings

@@ -324,7 +324,7 @@ def test_grain_marks_and_settings_are_remembered(served):
 
 # ---------------------------------------------------------------- pieces without a server
 def test_unexpected_failure_is_an_error_row(monkeypatch, tmp_path):
-    from saed.serve.app import Service
+    from saed.serve.service import Service
     from saed.serve.settings import Settings
 
     def boom(*args, **kwargs):
@@ -332,7 +332,7 @@ def test_unexpected_failure_is_an_error_row(monkeypatch, tmp_path):
 
     service = Service(book=PhaseBook(), settings=Settings(phases=("Co-fcc",)), remember=False,
                       uploads_dir=tmp_path / "uploads")
-    monkeypatch.setattr("saed.serve.app.index_file", boom)
+    monkeypatch.setattr("saed.serve.service.index_file", boom)
     rec = service.index_upload(b"II*\x00", "p.tif", service.settings)
     assert rec.status == "error" and "internal error" in rec.error and "simulated bug" in rec.error
 

@@ -41,7 +41,7 @@ class _State:
         import tifffile
         from saed.crystal import builtin_phase
         from saed.index.synthetic import synthetic_image
-        from saed.serve.app import Service
+        from saed.serve.service import Service
         from saed.serve.browser import headless_chromium
         from saed.serve.guard import allowed_hosts
         from saed.serve.runner import ServerThread

@@ -97,7 +97,8 @@ def book_phases(args):
 
 def run(args) -> int:
     from saed.cli.common import matching_options_from_args
-    from saed.serve.app import Service, create_app
+    from saed.serve.app import create_app
+    from saed.serve.service import Service
     from saed.serve.guard import allowed_hosts
     from saed.serve.runner import bind_socket, serve_forever
     from saed.serve.settings import PhaseBook

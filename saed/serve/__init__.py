@@ -8,8 +8,12 @@ Layers (each module one job):
   indexing one file into a :class:`~saed.serve.records.Record`;
 * :mod:`saed.serve.records` - the thread-safe list of results the page shows, and grain marks;
 * :mod:`saed.serve.watch` - the watched (acquisition) folder: each new file once completely written;
-* :mod:`saed.serve.guard` - the request guards: Host header, token, upload size;
-* :mod:`saed.serve.app` - the Starlette application (routes of docs/contract.md, static page).
+* :mod:`saed.serve.saving` - the HTML report and JSON beside the pattern, never overwriting;
+* :mod:`saed.serve.service` - the state of one server and the work behind each route;
+* :mod:`saed.serve.guard` - the request guards: Host header, same origin, token, upload size;
+* :mod:`saed.serve.app` - the Starlette application (routes of docs/contract.md, static page);
+* :mod:`saed.serve.runner` - listening (port in use: one line), in the foreground or a thread;
+* :mod:`saed.serve.browser` - headless Chromium for the browser tests and ``saed bench``.
 
 The page itself (``static/``: HTML, CSS, JS) is plain files shipped in the package: no build step,
 nothing fetched from the network.
