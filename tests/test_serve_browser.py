@@ -77,6 +77,9 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "1",
              what="overlay drawn")
     driver.save_screenshot(str(shots / "serve_2_chosen.png"))
+    # the best solution's look-alike note names the close second; the calibration and its source are shown
+    assert "Ni [0" in _text(driver, "notes")  # (wording of the note: saed.index.lookalike)
+    assert "1/nm per px" in _text(driver, "calib") and "from:" in _text(driver, "calib")
     before = _canvas(driver)
     rows[1].click()
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "2",
@@ -84,6 +87,12 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     assert _canvas(driver) != before
     assert "drawing solution 2" in _text(driver, "viewing")
     driver.save_screenshot(str(shots / "serve_3_second_solution.png"))
+    # zoom changes the picture; fit brings the first view back
+    fitted = _canvas(driver)
+    driver.find_element("id", "zoomin").click()
+    assert _canvas(driver) != fitted
+    driver.find_element("id", "fit").click()
+    assert _canvas(driver) == fitted
 
 
 def test_file_saved_into_the_watched_folder_appears(page):
