@@ -73,7 +73,7 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     assert answer.startswith(truth["phase"]) and any(z in answer for z in ("[011]", "[01-1]", "[0-11]", "[101]", "[110]",
                                                                           "[10-1]", "[1-10]", "[-101]", "[-110]", "[0-1-1]"))
     rows = driver.find_elements("css selector", "#solutions tbody tr.sol")
-    assert len(rows) >= 2, "this pattern has a close second (Ni [011]: a 0.7 % larger cell)"
+    assert len(rows) >= 2, "this pattern has a close second (Ni [011]: a cell 0.6 % smaller, saed.data phases table)"
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "1",
              what="overlay drawn")
     driver.save_screenshot(str(shots / "serve_2_chosen.png"))
