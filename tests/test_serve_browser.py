@@ -54,6 +54,19 @@ def _canvas(driver) -> str:
     return driver.execute_script("return document.getElementById('canvas').toDataURL('image/png');")
 
 
+def _click_solution(driver, rank: int) -> None:
+    """Click the solution row of `rank` (found afresh: the table is redrawn when a result arrives)."""
+    from selenium.common.exceptions import StaleElementReferenceException
+
+    for _ in range(20):
+        try:
+            driver.find_elements("css selector", "#solutions tbody tr.sol")[rank - 1].click()
+            return
+        except StaleElementReferenceException:
+            continue
+    raise AssertionError("the solutions table kept changing")
+
+
 def test_page_loads_with_tables_ready(page):
     driver, _, watch, shots = page
     assert driver.title == "saed serve"
@@ -81,7 +94,7 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     assert "Ni [0" in _text(driver, "notes")  # (wording of the note: saed.index.lookalike)
     assert "1/nm per px" in _text(driver, "calib") and "from:" in _text(driver, "calib")
     before = _canvas(driver)
-    rows[1].click()
+    _click_solution(driver, 2)
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "2",
              what="second solution drawn")
     assert _canvas(driver) != before
@@ -93,6 +106,23 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     assert _canvas(driver) != fitted
     driver.find_element("id", "fit").click()
     assert _canvas(driver) == fitted
+
+
+def test_dropping_a_file_on_the_page_indexes_it(page):
+    driver, _, _, _ = page
+    import base64
+
+    path, side = example("grain_E_thin_fcc")
+    b64 = base64.b64encode(path.read_bytes()).decode()
+    # what the browser does when a file is dropped: a drop event carrying the file
+    driver.execute_script("""
+        const bytes = Uint8Array.from(atob(arguments[0]), c => c.charCodeAt(0));
+        const dt = new DataTransfer();
+        dt.items.add(new File([bytes], arguments[1], {type: "image/tiff"}));
+        window.dispatchEvent(new DragEvent("drop", {dataTransfer: dt, bubbles: true, cancelable: true}));
+    """, b64, "dropped_E.tif")
+    wait_for(lambda: "dropped_E.tif" in _text(driver, "sub"), what="the dropped pattern's result")
+    assert _text(driver, "answer").startswith(side["synthetic"]["phase"])  # demo_set's truth: Co-fcc
 
 
 def test_file_saved_into_the_watched_folder_appears(page):

@@ -110,10 +110,10 @@ function showRows(rows) {
     const f = rows.find((r) => r.id === state.followId);
     if (f && f.status !== "indexing" && f.status !== "waiting") { state.followId = null; show(f.id); return; }
   }
-  if ($("follow").checked && newest && newest.id !== state.current && (!prev.has(newest.id) || prev.get(newest.id).status !== newest.status)) {
+  if ($("follow").checked && newest && newest.id !== state.current && state.pending !== newest.id && (!prev.has(newest.id) || prev.get(newest.id).status !== newest.status)) {
     if (!cur || newest.done_s >= (cur.done_s || 0)) { show(newest.id); return; }
   }
-  if (cur && prev.has(cur.id) && prev.get(cur.id).status !== cur.status) show(cur.id);
+  if (cur && state.data && state.data.id === cur.id && state.data.status !== cur.status) show(cur.id);
   else if (cur) showMeta(cur);
 }
 
@@ -124,7 +124,9 @@ $("history").addEventListener("click", (ev) => {
 
 // ------------------------------------------------------------------ one result
 async function show(id) {
+  state.pending = id;
   const r = await api(`/api/result/${encodeURIComponent(id)}`);
+  if (state.pending === id) state.pending = null;
   if (!r.ok) return;
   const d = r.body;
   state.current = id; state.data = d; state.sol = 0;
