@@ -148,6 +148,41 @@ def test_upload_size_cap(served):
     assert r.status_code == 413 and "cap" in r.json()["error"]
 
 
+def test_upload_size_cap_without_a_declared_length(served):
+    srv, _, _, _, _ = served
+    boundary = b"b0undary"
+    head = (b"--" + boundary + b'\r\nContent-Disposition: form-data; name="file"; filename="big.tif"\r\n'
+            b"Content-Type: image/tiff\r\n\r\n")
+
+    def body():  # chunked: the size is known only by counting
+        yield head
+        for _ in range(30):
+            yield b"\x00" * 100_000
+        yield b"\r\n--" + boundary + b"--\r\n"
+
+    r = httpx.post(srv.url + "api/index", content=body(),
+                   headers={"content-type": "multipart/form-data; boundary=b0undary"}, timeout=60)
+    assert r.status_code == 413 and "cap" in r.json()["error"]
+
+
+@settings(max_examples=60, deadline=None)
+@given(fields=st.dictionaries(st.sampled_from(["phase", "scale", "camera_length", "pixel_pitch", "voltage",
+                                               "alpha_axis", "other"]),
+                              st.text(max_size=10), max_size=5))
+def test_settings_fields_give_settings_or_one_line_reason(fields):
+    from saed.errors import InputError
+    from saed.serve.settings import Settings, settings_from_fields
+
+    if "phase" in fields:
+        fields["phase"] = [fields["phase"]]
+    try:
+        s = settings_from_fields(fields, Settings(), PhaseBook())
+    except InputError as exc:
+        assert "\n" not in str(exc) and str(exc)
+    else:
+        s.calibration()  # what was accepted is usable
+
+
 # ---------------------------------------------------------------- guards
 def test_host_header_guard(served):
     srv, _, _, _, _ = served
