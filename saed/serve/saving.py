@@ -1,9 +1,9 @@
 """Saving a pattern's HTML report and JSON beside it, never overwriting anything.
 
 The names are ``<stem>_saed.html`` and ``<stem>_saed.json`` in the pattern's folder; when one of
-them exists already, ``_saed-2``, ``_saed-3`` ... are used instead. Each file is written to a
-temporary name and then hard-linked to its final name, which fails rather than replaces when the
-name was taken in the meantime: no existing file, and never the pattern itself, is touched.
+them exists already, ``_saed-2``, ``_saed-3`` ... are used instead. Each file is created with
+:func:`saed.files.create_new_file`, which fails rather than replaces when the name was taken in the
+meantime: no existing file, and never the pattern itself, is touched.
 """
 
 from __future__ import annotations
@@ -13,6 +13,7 @@ import os
 from pathlib import Path
 
 from saed.errors import InputError
+from saed.files import create_new_file
 
 __all__ = ["save_beside", "free_stem"]
 
@@ -33,30 +34,18 @@ def free_stem(folder: Path, stem: str) -> str:
     raise InputError(f"{folder}: {MAX_TRIES} saved reports of {stem} exist already; move some away")
 
 
-def _write_new(path: Path, data: bytes) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        with open(tmp, "xb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.link(tmp, path)  # fails if the name was taken meanwhile: nothing is replaced
-    except FileExistsError:
-        raise InputError(f"{path}: exists already; not overwritten") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot write the report ({exc.strerror or exc.__class__.__name__})") from None
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-
-
 def save_beside(pattern: Path, doc: dict, html_text: str) -> list[Path]:
     """Write the JSON `doc` and the report `html_text` beside `pattern`; returns the two new paths."""
     folder = pattern.parent
     if not os.access(folder, os.W_OK):
         raise InputError(f"{folder}: the pattern's folder is not writable; nothing saved")
-    stem = free_stem(folder, pattern.stem or "pattern")
-    out_json, out_html = folder / f"{stem}.json", folder / f"{stem}.html"
-    _write_new(out_json, (json.dumps(doc, indent=2, allow_nan=False) + "\n").encode("utf-8"))
-    _write_new(out_html, html_text.encode("utf-8"))
-    return [out_html, out_json]
+    json_bytes = (json.dumps(doc, indent=2, allow_nan=False) + "\n").encode("utf-8")
+    for _ in range(MAX_TRIES):
+        stem = free_stem(folder, pattern.stem or "pattern")
+        out_json, out_html = folder / f"{stem}.json", folder / f"{stem}.html"
+        if not create_new_file(out_json, json_bytes):
+            continue  # taken meanwhile: the next free name
+        if not create_new_file(out_html, html_text.encode("utf-8")):
+            raise InputError(f"{out_html}: appeared while saving; not overwritten (the JSON is in {out_json.name})")
+        return [out_html, out_json]
+    raise InputError(f"{folder}: no free name for the report of {pattern.name}")
