@@ -8,6 +8,7 @@ the apt packages ``chromium`` and ``chromium-driver`` when they are missing). Sc
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import tempfile
 from pathlib import Path
@@ -82,9 +83,11 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     truth = side["synthetic"]  # demo_set's truth: Co-fcc [011]
     driver.find_element("id", "file").send_keys(str(path))
     wait_for(lambda: "Co-fcc" in _text(driver, "answer"), what="the answer text")
-    answer = _text(driver, "answer")
-    assert answer.startswith(truth["phase"]) and any(z in answer for z in ("[011]", "[01-1]", "[0-11]", "[101]", "[110]",
-                                                                          "[10-1]", "[1-10]", "[-101]", "[-110]", "[0-1-1]"))
+    answer = driver.find_element("id", "answer")
+    assert answer.text.startswith(truth["phase"]) and answer.get_attribute("data-phase") == truth["phase"]
+    zone = answer.get_attribute("data-zone")  # the plain form, e.g. [01-1]
+    assert sorted(abs(int(v)) for v in re.findall(r"-?\d", zone)) == [0, 1, 1]  # a <011> zone, the truth's family
+    assert answer.text.replace("\n", " ").count("[") == 1  # the zone, shown with overbars
     rows = driver.find_elements("css selector", "#solutions tbody tr.sol")
     assert len(rows) >= 2, "this pattern has a close second (Ni [011]: a cell 0.6 % smaller, saed.data phases table)"
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "1",

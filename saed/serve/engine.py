@@ -132,32 +132,45 @@ def _idx(v):
     return None if v is None else [int(x) for x in v]
 
 
+def _spot_view(s, x: float, y: float) -> dict:
+    from saed.crystal.notation import shown_plane
+    from saed.report.index_summary import spot_label
+
+    out = {"x": _num(x, 2), "y": _num(y, 2), "kind": s.kind, "hkl": _idx(s.hkil if s.hkil is not None else s.hkl),
+           "label_html": spot_label(s, "html"), "d_nm": _num(s.d_nm_measured, 5), "d_calc_nm": _num(s.d_nm_calc, 5),
+           "d_error_pct": _num(s.d_error_pct, 2), "residual_px": _num(s.residual_px, 2)}
+    if s.kind == "holz-projection" and getattr(s, "projected_hkl", None) is not None:
+        # labelled by the zero-layer position it sits on, e.g. 1/3(-422), as in the reports
+        out["projected"] = [int(s.projected_denominator),
+                            _idx(shown_plane(s.projected_hkl, s.hkil is not None))]
+    return out
+
+
 def _solution_view(sol, measured, word: str) -> dict:
-    from saed.report.index_summary import other_lookalikes, plain_notes
+    """Per solution: spots with labels, the simulated pattern, and the notes as HTML (escaped, overbars)."""
+    from saed.crystal.notation import person_text
+    from saed.report.index_summary import other_lookalikes, plain_notes, zone_text
 
     by_spot = {s.spot_index: s for s in sol.indexed}
     spots = []
     for k in range(len(measured.spots)):
         s = by_spot.get(k)
         x, y = float(measured.spots.x_px[k]), float(measured.spots.y_px[k])
-        if s is None:
-            spots.append({"x": _num(x, 2), "y": _num(y, 2), "kind": "unindexed", "hkl": None})
-            continue
-        spots.append({"x": _num(x, 2), "y": _num(y, 2), "kind": s.kind,
-                      "hkl": _idx(s.hkil if s.hkil is not None else s.hkl),
-                      "d_nm": _num(s.d_nm_measured, 5), "d_calc_nm": _num(s.d_nm_calc, 5),
-                      "d_error_pct": _num(s.d_error_pct, 2), "residual_px": _num(s.residual_px, 2)})
+        spots.append({"x": _num(x, 2), "y": _num(y, 2), "kind": "unindexed", "hkl": None} if s is None
+                     else _spot_view(s, x, y))
     pred = [[_num(x, 1), _num(y, 1), _num(i, 3), 1 if k == "double-diffraction" else 0]
             for (x, y), i, k in zip(np.asarray(sol.predicted_xy_px), np.asarray(sol.predicted_intensity),
                                      sol.predicted_kind)]
     notes = []
     if sol.mistilt is not None:
-        notes.append({"head": "Mistilt", "text": sol.mistilt.advice})
-    notes += [{"head": "", "text": n} for n in plain_notes(sol)]
-    for head, sep, tilt in other_lookalikes(sol):
-        notes.append({"head": head[0].upper() + head[1:], "text": sep, "tilt": tilt})
+        notes.append(f"<b>Mistilt.</b> {person_text(sol.mistilt.advice, 'html')}")
+    notes += [person_text(n, "html") for n in plain_notes(sol)]
+    for head, sep, tilt in other_lookalikes(sol, "html"):
+        notes.append(f"<b>{head[0].upper() + head[1:]}.</b> {person_text(sep, 'html')}"
+                     + (f" <i>{person_text(tilt, 'html')}</i>" if tilt else ""))
     m = sol.mistilt
-    return {"spots": spots, "predicted": pred, "notes": notes, "confidence": word,
+    return {"spots": spots, "predicted": pred, "notes_html": notes, "confidence": word,
+            "zone_html": zone_text(sol, "html"), "zone_plain": zone_text(sol, "plain"),
             "laue_center_px": ([_num(m.laue_center_px[0], 1), _num(m.laue_center_px[1], 1)]
                                if m is not None and m.reliable and m.tilt_deg >= 0.15 else None),
             "scale_inv_nm_per_px": _num(sol.scale_inv_nm_per_px, 7)}
@@ -165,8 +178,9 @@ def _solution_view(sol, measured, word: str) -> dict:
 
 def view_of(result, *, factor: int) -> dict:
     """What the page draws for a result: per solution (and the near miss) spots, labels, predictions, notes."""
+    from saed.crystal.notation import person_text
     from saed.report.index_overlay import KIND_STYLE, PRED_COLOUR
-    from saed.report.index_summary import confidence_word
+    from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_MEANING, confidence_word
 
     m = result.measured
     sols = [_solution_view(s, m, confidence_word(result) if i == 0 else "") for i, s in enumerate(result.solutions)]
@@ -182,6 +196,9 @@ def view_of(result, *, factor: int) -> dict:
         "calibration_source": describe_source(cal),
         "kind_style": {k: {"colour": c, "dash": d, "label": lab} for k, (c, d, lab) in KIND_STYLE.items()},
         "predicted_colour": PRED_COLOUR,
+        "notes_html": [person_text(n, "html") for n in list(m.notes) + list(result.notes)],
+        "message_html": person_text(result.message, "html") if result.message else "",
+        "score_meaning": SCORE_MEANING, "confidence_meaning": CONFIDENCE_MEANING,
     }
 
 

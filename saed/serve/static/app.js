@@ -10,8 +10,6 @@ const MAX_LABELS = 36;
 
 // ------------------------------------------------------------------ text helpers
 function esc(t) { return String(t == null ? "" : t).replace(/[&<>"']/g, (c) => ({ "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;" }[c])); }
-function plainIdx(v) { if (!v) return "-"; const two = v.some((x) => Math.abs(x) >= 10); return v.join(two ? " " : ""); }
-function zoneText(sol) { return "[" + plainIdx(sol.zone_axis_4 || sol.zone_axis) + "]"; }
 // indices with overbars (combining overline) for negative values, as written on paper
 function barIdx(v) { if (!v) return ""; return v.map((x) => x < 0 ? `<span class="bar">${-x}</span>` : String(x)).join(Math.max(...v.map(Math.abs)) >= 10 ? " " : ""); }
 function fmt(v, nd) { return v == null || !isFinite(v) ? "\u2013" : Number(v).toFixed(nd); }
@@ -86,7 +84,7 @@ async function followResults() {
 function sleep(ms) { return new Promise((res) => setTimeout(res, ms)); }
 
 function answerOf(row) {
-  if (row.status === "ok") return `${row.phase} [${plainIdx(row.zone_axis_4 || row.zone_axis)}]`;
+  if (row.status === "ok") return `${esc(row.phase)} [${barIdx(row.zone_axis_4 || row.zone_axis)}]`;
   if (row.status === "no-solution") return "no solution";
   if (row.status === "error") return "";
   return row.status === "waiting" ? "waiting for the file" : "indexing\u2026";
@@ -98,7 +96,7 @@ function showRows(rows) {
   const body = $("history").tBodies[0];
   body.innerHTML = rows.map((r) => {
     const t = r.done_s ? new Date(r.done_s * 1000).toLocaleTimeString() : "";
-    const ans = r.status === "error" ? `<td class="err">${esc(r.error)}</td>` : `<td class="l">${esc(answerOf(r))}${r.status === "waiting" && r.error ? ` <span class="sub">${esc(r.error)}</span>` : ""}</td>`;
+    const ans = r.status === "error" ? `<td class="err">${esc(r.error)}</td>` : `<td class="l">${answerOf(r)}${r.status === "waiting" && r.error ? ` <span class="sub">${esc(r.error)}</span>` : ""}</td>`;
     const g = r.grain ? `${esc(r.grain.grain)} (\u03b1 ${fmt(r.grain.alpha_deg, 1)}, \u03b2 ${fmt(r.grain.beta_deg, 1)})` : "";
     return `<tr data-id="${esc(r.id)}" class="row-${esc(r.status)}${state.current === r.id ? " on" : ""}"><td class="l">${esc(r.image)}${r.origin === "upload" ? ' <span class="sub">(opened)</span>' : ""}</td>` +
       `<td class="l st-${esc(r.status)}">${esc(r.status)}</td>${ans}<td>${t}</td><td class="l">${g}</td></tr>`;
@@ -160,9 +158,11 @@ function showResult(d) {
   const v = d.view;
   $("error").hidden = d.status !== "error";
   $("error").textContent = d.status === "error" ? (d.error.startsWith(d.image) ? d.error : `${d.image}: ${d.error}`) : "";
+  $("answer").dataset.zone = best ? v.solutions[0].zone_plain : "";
+  $("answer").dataset.phase = best ? best.phase : "";
   if (best) {
     const word = v.solutions[0].confidence;
-    $("answer").innerHTML = `${esc(best.phase)} ${esc(zoneText(best))}<span class="tag ${esc(word)}">${esc(word)}</span>`;
+    $("answer").innerHTML = `${esc(best.phase)} ${v.solutions[0].zone_html}<span class="tag ${esc(word)}" title="${esc(v.confidence_meaning[word] || "")}">${esc(word)}</span>`;
   } else if (d.status === "error") {
     $("answer").innerHTML = `${esc(d.image)} <span class="tag bad none">error</span>`;
   } else if (doc) {
@@ -173,13 +173,14 @@ function showResult(d) {
     sub.push(`${esc(d.image)} \u2014 ${doc.image_shape[1]}\u00d7${doc.image_shape[0]} px, ${doc.spots.length} spots`);
     if (d.elapsed_s != null) sub.push(`indexed in ${fmt(d.elapsed_s, 2)} s`);
     if (!doc.calibrated) sub.push('<span class="st-no-solution">uncalibrated: phases of the same structure differ only in the implied scale</span>');
-    if (doc.message) sub.push(`<span class="st-no-solution">${esc(doc.message)}</span>`);
+    if (doc.message) sub.push(`<span class="st-no-solution">${v.message_html}</span>`);
   }
   $("sub").innerHTML = sub.join("; ");
   const tb = $("solutions").tBodies[0];
-  tb.innerHTML = sols.map((s, i) => `<tr data-k="${i}" class="sol${i === state.sol ? " on" : ""}"><td>${i + 1}</td><td class="l">${esc(s.phase)}</td><td class="l">${esc(zoneText(s))}</td>` +
+  $("scorehead").title = v ? v.score_meaning : "";
+  tb.innerHTML = sols.map((s, i) => `<tr data-k="${i}" class="sol${i === state.sol ? " on" : ""}"><td>${i + 1}</td><td class="l">${esc(s.phase)}</td><td class="l">${v.solutions[i].zone_html}</td>` +
     `<td>${fmt(s.score, 2)}</td><td>${s.n_explained}/${s.indexed_spots.length + s.unexplained_spots.length}</td><td>${fmt(s.mean_d_error_pct, 2)}</td><td>${fmt(s.mean_angle_error_deg, 2)}\u00b0</td></tr>`).join("")
-    || (doc && doc.near_miss ? `<tr><td colspan="7" class="l sub">closest (below the threshold): ${esc(doc.near_miss.phase)} ${esc(zoneText(doc.near_miss))}, score ${fmt(doc.near_miss.score, 2)}</td></tr>` : "");
+    || (doc && doc.near_miss ? `<tr><td colspan="7" class="l sub">closest (below the threshold): ${esc(doc.near_miss.phase)} ${v.near_miss.zone_html}, score ${fmt(doc.near_miss.score, 2)}</td></tr>` : "");
   showNotes();
   showCalib(d);
   showSaved(d); showGrain(d);
@@ -197,13 +198,14 @@ function curSolView() {
 function showNotes() {
   const d = state.data, sv = curSolView();
   const items = [];
-  if (sv) for (const n of sv.notes) items.push(`<li>${n.head ? `<b>${esc(n.head)}.</b> ` : ""}${esc(n.text)}${n.tilt ? ` <i>${esc(n.tilt)}</i>` : ""}</li>`);
-  if (d && d.doc) for (const n of d.doc.notes) items.push(`<li class="sub">${esc(n)}</li>`);
+  // notes come as HTML made by saed.crystal.notation.person_text: escaped, negative indices overbarred
+  if (sv) for (const n of sv.notes_html) items.push(`<li>${n}</li>`);
+  if (d && d.view) for (const n of d.view.notes_html) items.push(`<li class="sub">${n}</li>`);
   $("notes").innerHTML = items.join("") || '<li class="sub">none</li>';
   const doc = d && d.doc;
   const s = doc && doc.solutions[state.sol];
-  if (doc && !doc.solutions.length && doc.near_miss) $("viewing").textContent = `drawing the closest fit, REJECTED (score ${fmt(doc.near_miss.score, 2)}): ${doc.near_miss.phase} ${zoneText(doc.near_miss)}`;
-  else $("viewing").textContent = s && state.sol > 0 ? `drawing solution ${state.sol + 1}: ${s.phase} ${zoneText(s)}` : "";
+  if (doc && !doc.solutions.length && doc.near_miss) $("viewing").innerHTML = `drawing the closest fit, REJECTED (score ${fmt(doc.near_miss.score, 2)}): ${esc(doc.near_miss.phase)} ${d.view.near_miss.zone_html}`;
+  else $("viewing").innerHTML = s && state.sol > 0 ? `drawing solution ${state.sol + 1}: ${esc(s.phase)} ${d.view.solutions[state.sol].zone_html}` : "";
 }
 
 function showCalib(d) {
@@ -355,7 +357,8 @@ function draw() {
       const [sx, sy] = toScreen(p.x, p.y);
       const ux = r > 0 ? (p.x - cx) / r : 0, uy = r > 0 ? (p.y - cy) / r : -1;
       const tx = sx + ux * (rc + 13 * dpr), ty = sy + uy * (rc + 11 * dpr);
-      drawIdx(p.hkl, tx, ty, dpr);
+      if (p.projected) drawIdx(p.projected[1], tx, ty, dpr, `1/${p.projected[0]}(`, ")");
+      else drawIdx(p.hkl, tx, ty, dpr);
     }
     ctx.textBaseline = "alphabetic";
   }
@@ -364,18 +367,21 @@ function draw() {
 }
 
 // one index label centred at (x, y): digits side by side, a bar drawn over each negative index
-function drawIdx(idx, x, y, dpr) {
+function drawIdx(idx, x, y, dpr, prefix = "", suffix = "") {
   const parts = idx.map((v) => String(Math.abs(v))), gap = idx.some((v) => Math.abs(v) >= 10) ? 4 * dpr : 1 * dpr;
   const widths = parts.map((t) => ctx.measureText(t).width);
-  const w = widths.reduce((a, b) => a + b, 0) + gap * (parts.length - 1);
+  const pw = ctx.measureText(prefix).width, sw = ctx.measureText(suffix).width;
+  const w = pw + widths.reduce((a, b) => a + b, 0) + gap * (parts.length - 1) + sw;
   ctx.fillStyle = "rgba(0,0,0,0.62)"; ctx.fillRect(x - w / 2 - 3 * dpr, y - 10 * dpr, w + 6 * dpr, 20 * dpr);
   ctx.fillStyle = "#fff"; ctx.strokeStyle = "#fff"; ctx.lineWidth = 1.3 * dpr; ctx.textAlign = "left";
   let cx = x - w / 2;
+  if (prefix) { ctx.fillText(prefix, cx, y + 1 * dpr); cx += pw; }
   parts.forEach((t, i) => {
     ctx.fillText(t, cx, y + 1 * dpr);
     if (idx[i] < 0) { ctx.beginPath(); ctx.moveTo(cx + 0.5 * dpr, y - 7 * dpr); ctx.lineTo(cx + widths[i] - 0.5 * dpr, y - 7 * dpr); ctx.stroke(); }
     cx += widths[i] + gap;
   });
+  if (suffix) ctx.fillText(suffix, cx - gap, y + 1 * dpr);
   ctx.textAlign = "start";
 }
 
@@ -436,7 +442,7 @@ function hover(ev) {
   const tip = $("tip");
   if (!bestP) { tip.hidden = true; return; }
   const st = v.kind_style[bestP.kind] || v.kind_style.unindexed;
-  tip.innerHTML = (bestP.hkl ? `<b>${barIdx(bestP.hkl)}</b> ` : "<b>not explained</b> ") + `<span style="color:${st.colour}">${esc(st.label)}</span><br>` +
+  tip.innerHTML = (bestP.hkl ? `<b>${bestP.label_html || barIdx(bestP.hkl)}</b> ` : "<b>not explained</b> ") + `<span style="color:${st.colour}">${esc(st.label)}</span><br>` +
     (bestP.d_nm != null ? `d ${fmt(bestP.d_nm, 4)} nm measured` + (bestP.d_calc_nm != null ? `, ${fmt(bestP.d_calc_nm, 4)} nm calculated` : "") + "<br>" : "") +
     (bestP.d_error_pct != null ? `error ${bestP.d_error_pct >= 0 ? "+" : ""}${fmt(bestP.d_error_pct, 2)} % in d` + (bestP.residual_px != null ? `, ${fmt(bestP.residual_px, 1)} px off the prediction` : "") + "<br>" : "") +
     `x ${fmt(bestP.x, 1)}, y ${fmt(bestP.y, 1)} px`;
