@@ -49,7 +49,7 @@ def _check_measured(measured) -> None:
 
 def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
                   length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
-                  lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX) -> IndexResult:
+                  lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX, max_crystals: int = 2) -> IndexResult:
     """Rank (phase, zone axis, orientation) solutions for a measured pattern.
 
     Parameters
@@ -71,6 +71,9 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         Analyse look-alikes and suggest separating tilts (a few ms per solution).
     max_zone_index : int
         Largest zone-axis index considered (3-index, conventional cell; default 7).
+    max_crystals : int
+        Crystals looked for in the pattern, 1 to 3 (default 2): further crystals are indexed from
+        the spots the best solution leaves unexplained (:mod:`saed.index.crystals`).
 
     Returns
     -------
@@ -88,6 +91,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     top = int(top)
     if top < 1:
         raise InputError(f"top must be at least 1, got {top}")
+    if isinstance(max_crystals, bool) or not isinstance(max_crystals, (int, np.integer)) or not 1 <= max_crystals <= 3:
+        raise InputError(f"max_crystals must be 1, 2 or 3, got {max_crystals!r}")
     names = tables.names
     n = len(measured.spots)
     if n == 0:
@@ -150,7 +155,13 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         from saed.index.mistilt import with_mistilt
 
         ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good[:top]]
-    return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes), n_candidates=n_cand, phases=names)
+    from saed.index.crystals import find_crystals
+
+    multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), angle_tol=angle_tol,
+                          ratio_tol=RATIO_TOL, rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
+    return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes) + multi.notes, n_candidates=n_cand,
+                       phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
+                       cross_double_diffraction=multi.cross_double_diffraction)
 
 
 def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_zone_index) -> tuple[list, int]:

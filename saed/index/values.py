@@ -205,6 +205,10 @@ class IndexResult:
     ``message`` is one line for the microscopist (empty when the best solution needs no comment);
     ``near_miss`` is the closest solution below the acceptance threshold when ``solutions`` is empty.
     ``implied_scale_inv_nm_per_px`` is the scale of the best solution (useful when uncalibrated).
+    ``crystals`` (:class:`saed.index.crystals.Crystal`): every crystal found in the pattern, the best
+    solution first (one entry for a single crystal, none without a solution);
+    ``orientation_relationships`` between crystals[0] and each further crystal;
+    ``cross_double_diffraction``: spots explained as g1 + g2 across two crystals.
     """
 
     measured: MeasuredPattern
@@ -214,9 +218,15 @@ class IndexResult:
     notes: tuple[str, ...] = ()
     n_candidates: int = 0
     phases: tuple[str, ...] = ()
+    crystals: tuple = ()
+    orientation_relationships: tuple = ()
+    cross_double_diffraction: tuple = ()
 
     def __post_init__(self):
         object.__setattr__(self, "solutions", tuple(self.solutions))
+        object.__setattr__(self, "crystals", tuple(self.crystals))
+        object.__setattr__(self, "orientation_relationships", tuple(self.orientation_relationships))
+        object.__setattr__(self, "cross_double_diffraction", tuple(self.cross_double_diffraction))
         object.__setattr__(self, "notes", tuple(self.notes))
         object.__setattr__(self, "phases", tuple(self.phases))
 

@@ -1,0 +1,381 @@
+"""More than one crystal in one pattern: twins, intergrowths, a matrix with precipitates.
+
+After the best single-crystal solution (crystal 1), the spots it leaves unexplained, or explains
+only as forbidden reflections or strong higher-order Laue-zone projections, are the residual. When
+they form a lattice, a second crystal is indexed from them; ``max_crystals`` = 3 allows a third.
+
+How saed decides (docs/indexing.md, "Two crystals in one pattern"):
+
+* The search uses only residual spots as seeds, at crystal 1's refined scale (both crystals share
+  the pattern's calibration, centre and ellipse) within :data:`SCALE_TOL` and for zone axes up to
+  :data:`MAX_SECOND_ZONE_INDEX`. Each hit is refined and scored against *all* spots, so a spot may
+  belong to both crystals (shared rows are normal in intergrowths).
+* A second crystal is accepted only when it explains at least :data:`MIN_OWN_SPOTS` residual spots
+  as allowed reflections, in at least two non-parallel rows, those spots carry at least
+  :data:`MIN_RESIDUAL_SHARE` of the residual spot weight, and no more than :data:`MAX_ABSENT` of
+  its own predicted kinematic intensity is missing. A candidate that is crystal 1 again (same phase,
+  within 3 deg) is never a second crystal. A false second crystal is worse than none: a residual
+  that does not pass becomes a note ("too weak to decide"), never a solution.
+* Spots at g1 + g2 (a reflection of one crystal plus one of the other) are double diffraction
+  across the crystals: they are recorded as such and never seed a further crystal.
+* Ordered and disordered forms of one cell in one orientation (L1_2 Ni3Al on fcc Ni, B2 on bcc):
+  the pattern is one ordered crystal unless the fundamental spots are much stronger than a fully
+  ordered crystal makes them (:func:`ordered_fraction` below :data:`ORDERED_FRACTION_MIN`); then the
+  disordered matrix is reported as a second crystal sharing the fundamental spots, with the
+  ordered precipitate in its orientation owning the superlattice spots, and a caution (partial
+  long-range order and dynamical scattering weaken superlattice spots too; a dark-field image in a
+  superlattice reflection decides).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from saed.index.candidates import Candidate, SpotSet, find_candidates
+from saed.index.orientation_relationships import (OrientationRelationship, describe_relationship, ordered_pair,
+                                                  proper_rotations_cart, misorientation)
+from saed.index.score import score_candidate
+from saed.index.values import Solution
+
+__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "find_crystals", "ordered_fraction",
+           "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT", "ORDERED_FRACTION_MIN"]
+
+logger = logging.getLogger(__name__)
+
+#: A further crystal must explain at least this many residual spots as allowed reflections.
+MIN_OWN_SPOTS = 4
+#: ... carrying at least this share of the residual spot weight.
+MIN_RESIDUAL_SHARE = 0.5
+#: ... and miss at most this share of its own predicted kinematic intensity.
+MAX_ABSENT = 0.45
+#: Scale tolerance of a further crystal relative to crystal 1's refined scale (cell parameters of
+#: different phases, strain): 2 %.
+SCALE_TOL = 0.02
+#: Zone axes of further crystals are searched up to this index.
+MAX_SECOND_ZONE_INDEX = 5
+#: Superlattice/fundamental intensity, relative to a fully ordered crystal, below which a
+#: disordered matrix is reported beside the ordered precipitate.
+ORDERED_FRACTION_MIN = 0.45
+#: Residual spots below this many are not examined at all (a stray spot or two is common).
+MIN_RESIDUAL_SPOTS = 3
+
+_EXPLAINED = ("allowed", "double-diffraction")
+
+
+@dataclass(frozen=True)
+class CrossDoubleDiffraction:
+    """A spot at g_a + g_b: reflection ``hkl_a`` of crystal ``crystal_a`` plus ``hkl_b`` of ``crystal_b``."""
+
+    spot_index: int
+    crystal_a: int
+    hkl_a: tuple[int, int, int]
+    crystal_b: int
+    hkl_b: tuple[int, int, int]
+
+
+@dataclass(frozen=True)
+class Crystal:
+    """One crystal of the pattern: its own solution (phase, zone, orientation, every spot assigned).
+
+    ``role``: 'best' (crystals[0]), 'second', 'third', 'matrix' or 'ordered precipitate';
+    ``own_spots``: spots only this crystal explains; ``shared_spots``: spots it shares with an
+    earlier crystal; ``intensity_share``: share of the measured spot weight it explains.
+    """
+
+    solution: Solution
+    role: str
+    own_spots: tuple[int, ...] = ()
+    shared_spots: tuple[int, ...] = ()
+    intensity_share: float = 0.0
+    note: str = ""
+
+    @property
+    def phase_name(self) -> str:
+        return self.solution.phase_name
+
+
+@dataclass(frozen=True)
+class MultiCrystalResult:
+    crystals: tuple[Crystal, ...]
+    relationships: tuple[OrientationRelationship, ...]
+    cross_double_diffraction: tuple[CrossDoubleDiffraction, ...]
+    notes: tuple[str, ...]
+
+
+def _explained_mask(sol: Solution, spots: SpotSet) -> np.ndarray:
+    """Spots `sol` explains: allowed, double diffraction, or a weak higher-order Laue-zone projection."""
+    n = len(sol.indexed)
+    out = np.zeros(n, bool)
+    allowed_int = [s.intensity for s in sol.indexed if s.kind == "allowed"]
+    med = float(np.median(allowed_int)) if allowed_int else 0.0
+    for s in sol.indexed:
+        if s.kind in _EXPLAINED:
+            out[s.spot_index] = True
+        elif s.kind == "holz-projection" and s.intensity < 0.1 * med:
+            out[s.spot_index] = True  # thin foil / faults (fcc <111>: weak 1/3{422}), not a crystal
+    return out
+
+
+def _subset(spots: SpotSet, idx: np.ndarray) -> SpotSet:
+    w = spots.weight[idx]
+    w = w / w.sum() if w.sum() > 0 else np.full(len(idx), 1.0 / max(len(idx), 1))
+    inten = spots.intensity[idx]
+    ref = np.percentile(inten, 90) if len(idx) >= 3 else inten.max()
+    return SpotSet(spots.v_px[idx], spots.r_px[idx], inten, w, spots.sigma_px[idx], inten >= 0.12 * ref,
+                   spots.v_px[idx], np.ones(len(idx), bool))
+
+
+def _n_rows(v: np.ndarray) -> int:
+    """Distinct directions (up to sign, 5 deg) among vectors v."""
+    dirs: list[np.ndarray] = []
+    for x in v:
+        u = x / max(float(np.linalg.norm(x)), 1e-12)
+        if not any(abs(float(u @ d)) > math.cos(math.radians(5.0)) for d in dirs):
+            dirs.append(u)
+    return len(dirs)
+
+
+def _same_crystal(sol: Solution, others: list[Solution], tables) -> bool:
+    for o in others:
+        if o.phase_name != sol.phase_name:
+            continue
+        pt = tables.table(sol.phase_name)
+        sym = proper_rotations_cart(pt.phase)
+        ang, _ = misorientation(np.asarray(sol.orientation_matrix).T @ np.asarray(o.orientation_matrix), sym, sym)
+        if ang < 3.0:
+            return True
+    return False
+
+
+def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution], *, scale: float,
+            angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
+    """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share) or None."""
+    sub = _subset(spots, residual)
+    cands, _ = find_candidates(tables, sub, scale_inv_nm_per_px=scale, length_tol=SCALE_TOL, ratio_tol=ratio_tol,
+                               angle_tol_deg=angle_tol, rel_pos_tol=rel_pos_tol,
+                               max_zone_index=min(max_zone_index, MAX_SECOND_ZONE_INDEX))
+    w_res = float(spots.weight[residual].sum())
+    res_set = set(int(i) for i in residual)
+    best = None
+    seen_keys = set()
+    for c in cands[:16]:
+        key = (c.phase_index, c.canonical_zone, round(c.u_matrix[0, 0], 2), round(c.u_matrix[1, 0], 2))
+        if key in seen_keys:
+            continue
+        seen_keys.add(key)
+        sol, _fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=SCALE_TOL,
+                                    rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        if _same_crystal(sol, crystals, tables):
+            continue
+        own = [s.spot_index for s in sol.indexed if s.kind == "allowed" and s.spot_index in res_set]
+        share = float(spots.weight[own].sum()) / w_res if w_res > 0 and own else 0.0
+        absent = float(sol.term("absent") or 0.0)
+        merit = share * (1.0 - 0.5 * absent) * float(sol.term("scale") or 1.0) * float(sol.term("zone_prior") or 1.0)
+        if best is None or merit > best[3]:
+            best = (sol, tuple(sorted(own)), share, merit, absent)
+    return best
+
+
+def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.ndarray, rel_pos_tol: float):
+    """Unexplained spots at g_a + g_b of two different crystals."""
+    out = []
+    cx, cy = measured.center_px
+    pred = []
+    for s in sols:
+        keep = np.array([k == "allowed" for k in s.predicted_kind], bool)
+        pred.append(((s.predicted_xy_px - np.array([cx, cy]))[keep], s.predicted_hkl[keep]))
+    for i in np.flatnonzero(unexplained):
+        v = spots.v_px[i]
+        sig = math.sqrt(float(spots.sigma_px[i]) ** 2 + (rel_pos_tol * float(spots.r_px[i])) ** 2 + 0.25)
+        hit = None
+        for a in range(len(sols)):
+            for b in range(a + 1, len(sols)):
+                pa, ha = pred[a]
+                pb, hb = pred[b]
+                if len(pa) == 0 or len(pb) == 0:
+                    continue
+                d = np.linalg.norm(pa[:, None, :] + pb[None, :, :] - v[None, None, :], axis=2)
+                k = np.unravel_index(int(np.argmin(d)), d.shape)
+                if d[k] <= 3.0 * sig:
+                    hit = CrossDoubleDiffraction(int(i), a, tuple(int(x) for x in ha[k[0]]), b,
+                                                 tuple(int(x) for x in hb[k[1]]))
+                    break
+            if hit:
+                break
+        if hit:
+            out.append(hit)
+    return out
+
+
+def ordered_fraction(ordered: Solution, disordered_table) -> tuple[float | None, int, int]:
+    """Measured superlattice/fundamental intensity relative to a fully ordered crystal (1 = fully ordered).
+
+    The ratio measured / kinematic intensity of the fundamental spots (allowed in the disordered
+    cell too) is fitted as log ratio = a + b g^2 (the fall-off with |g| that excitation errors,
+    absorption and the Debye-Waller factor give), and the superlattice spots are compared with that
+    fit at their own |g|: the median factor. Returns (factor or None when fewer than two
+    superlattice or three fundamental spots, n superlattice, n fundamental).
+    """
+    sup, fun = [], []
+    for s in ordered.indexed:
+        if s.kind != "allowed" or not s.intensity_calc or s.intensity_calc <= 0 or s.hkl is None or not s.d_nm_calc:
+            continue
+        row = disordered_table.rows_of(np.array([s.hkl]))[0]
+        is_fund = row >= 0 and bool(disordered_table.allowed[row])
+        rec = (1.0 / s.d_nm_calc, math.log(max(s.intensity, 1e-12) / s.intensity_calc))
+        (fun if is_fund else sup).append(rec)
+    if len(sup) < 2 or len(fun) < 3:
+        return None, len(sup), len(fun)
+    g_f = np.array([f[0] for f in fun])
+    r_f = np.array([f[1] for f in fun])
+    if np.ptp(g_f) > 0.5:
+        b, a = np.polyfit(g_f ** 2, r_f, 1)
+        b = min(b, 0.0)  # intensities never grow with |g|; a positive slope is noise
+        a = float(np.median(r_f - b * g_f ** 2))
+    else:
+        a, b = float(np.median(r_f)), 0.0
+    g_s = np.array([x[0] for x in sup])
+    r_s = np.array([x[1] for x in sup])
+    return float(math.exp(np.median(r_s - (a + b * g_s ** 2)))), len(sup), len(fun)
+
+
+def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
+    """Disordered partners of an ordered crystal: (fraction, matrix Solution, name) for the best partner, or None."""
+    pt_o = tables.table(ordered.phase_name)
+    best = None
+    for pi, pt in enumerate(tables.phases):
+        pair = ordered_pair(pt_o.phase, pt.phase)
+        if pair is None or pair[0] != ordered.phase_name:
+            continue
+        frac, n_s, n_f = ordered_fraction(ordered, pt)
+        if frac is None:
+            continue
+        uvw = tuple(int(v) for v in ordered.zone_axis)
+        cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(ordered.orientation_matrix),
+                         float(ordered.scale_inv_nm_per_px), 1.0)
+        sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=float(ordered.scale_inv_nm_per_px),
+                                 length_tol=SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        if best is None or sol.score > best[1].score:
+            best = (frac, sol, pt.phase.name, n_s, n_f)
+    return best
+
+
+def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_crystals: int = 2, angle_tol: float = 2.0,
+                  ratio_tol: float = 0.025, rel_pos_tol: float = 0.008, pitch=None,
+                  max_zone_index: int = 7) -> MultiCrystalResult:
+    """Crystals beyond `best` among the spots it leaves unexplained (see the module docstring)."""
+    sols: list[Solution] = [best]
+    roles = ["best"]
+    notes: list[str] = []
+    scale = float(best.scale_inv_nm_per_px)
+    explained = _explained_mask(best, spots)
+    cross: list[CrossDoubleDiffraction] = []
+    n = len(spots.r_px)
+    while len(sols) < max_crystals:
+        residual = np.flatnonzero(~explained)
+        if len(residual) < MIN_RESIDUAL_SPOTS:
+            break
+        found = _search(measured, tables, spots, residual, sols, scale=scale, angle_tol=angle_tol, ratio_tol=ratio_tol,
+                        rel_pos_tol=rel_pos_tol, pitch=pitch, max_zone_index=max_zone_index)
+        res_share = float(spots.weight[residual].sum())
+        if found is None:
+            if len(residual) >= MIN_OWN_SPOTS and res_share >= 0.1:
+                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                             f"{'the crystal' if len(sols) == 1 else 'the crystals'} found, and no further crystal among "
+                             "the candidate phases fits them (another phase, or a high-index zone?)")
+            break
+        sol, own, share, _merit, absent = found
+        ok = (len(own) >= MIN_OWN_SPOTS and share >= MIN_RESIDUAL_SHARE and absent <= MAX_ABSENT
+              and _n_rows(spots.v_px[list(own)]) >= 2)
+        if not ok:
+            if len(own) >= 3:
+                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                             f"crystal {len(sols)}; the best further crystal, {sol.phase_name} [{_zone(sol)}], explains "
+                             f"only {len(own)} of them ({100 * share:.0f} % of their intensity"
+                             f"{f', {100 * absent:.0f} % of its own pattern missing' if absent > MAX_ABSENT else ''}): too "
+                             "weak to decide, not reported as a crystal (a longer exposure, or the aperture on the "
+                             "second crystal alone, would decide)")
+            elif len(residual) >= MIN_OWN_SPOTS and res_share >= 0.1:
+                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                             f"{'the crystal' if len(sols) == 1 else 'the crystals'} found, and no further crystal among "
+                             "the candidate phases fits them (another phase, a high-index zone, or stray spots)")
+            break
+        sols.append(sol)
+        roles.append("second" if len(sols) == 2 else "third")
+        explained = explained | _explained_mask(sol, spots)
+        dd = _cross_dd(spots, measured, sols, ~explained, rel_pos_tol)
+        for d in dd:
+            explained[d.spot_index] = True
+        cross.extend(dd)
+    # ordered precipitate / disordered matrix in one orientation
+    pair_note = ""
+    if len(sols) == 1:
+        m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol)
+        if m is not None:
+            frac, msol, mname, n_s, n_f = m
+            if frac < ORDERED_FRACTION_MIN and max_crystals >= 2:
+                sols.append(msol)
+                roles[0] = "ordered precipitate"
+                roles.append("matrix")
+                pair_note = (f"the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, relative to the "
+                             f"fundamental spots, as a fully ordered crystal gives ({n_s} superlattice, {n_f} fundamental "
+                             f"spots): reported as {best.phase_name} precipitates in a {mname} matrix of the same "
+                             "orientation. Caution: partial long-range order and dynamical scattering also weaken "
+                             "superlattice spots; a dark-field image in a superlattice spot decides (particles, or "
+                             "the whole area lit)")
+            else:
+                pair_note = (f"one ordered crystal: the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, "
+                             f"relative to the fundamental spots, as a fully ordered crystal gives, so no separate "
+                             f"{mname} matrix is needed (a dark-field image in a superlattice spot would show "
+                             "precipitates if there were any)")
+    if pair_note:
+        notes.append(pair_note)
+    if len(sols) == 2 and roles[1] == "second":
+        pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
+        if pair is not None and pair[0] == sols[1].phase_name:
+            frac, _ns, _nf = ordered_fraction(sols[1], tables.table(pair[1]))
+            if frac is not None and frac >= ORDERED_FRACTION_MIN:
+                notes.append(f"the superlattice spots of {pair[0]} are {frac:.2f} x as strong, relative to the fundamental "
+                             f"spots, as a fully ordered crystal gives: this may be one ordered {pair[0]} crystal rather "
+                             f"than {pair[0]} precipitates in {pair[1]} (a dark-field image in a superlattice spot decides)")
+    rels = []
+    for k in range(1, len(sols)):
+        p0 = tables.table(sols[0].phase_name).phase
+        pk = tables.table(sols[k].phase_name).phase
+        r = describe_relationship(p0, pk, sols[0].orientation_matrix, sols[k].orientation_matrix, crystals=(0, k))
+        if r.name == "cube-on-cube" and ordered_pair(p0, pk) is not None:
+            o, d = ordered_pair(p0, pk)
+            from dataclasses import replace
+
+            r = replace(r, kind="ordered precipitate",
+                        text=f"ordered {o} in the orientation of its disordered matrix {d} (cube-on-cube, "
+                             f"{r.deviation_deg:.1f} deg from ideal); the superlattice spots belong to {o}")
+            roles[0 if sols[0].phase_name == o else k] = "ordered precipitate"
+            roles[k if sols[0].phase_name == o else 0] = "matrix"
+        rels.append(r)
+    crystals = _crystal_records(sols, roles, spots)
+    return MultiCrystalResult(tuple(crystals), tuple(rels), tuple(cross), tuple(notes))
+
+
+def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet) -> list[Crystal]:
+    out = []
+    masks = [np.array([s.kind in _EXPLAINED for s in sol.indexed], bool) for sol in sols]
+    for k, sol in enumerate(sols):
+        others = np.zeros(len(spots.r_px), bool)
+        for j, m in enumerate(masks):
+            if j != k:
+                others |= m
+        own = tuple(int(i) for i in np.flatnonzero(masks[k] & ~others))
+        shared = tuple(int(i) for i in np.flatnonzero(masks[k] & others))
+        out.append(Crystal(sol, roles[k], own, shared, float(spots.weight[masks[k]].sum())))
+    return out
+
+
+def _zone(sol: Solution) -> str:
+    from saed.crystal.miller import format_indices
+
+    return format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)
