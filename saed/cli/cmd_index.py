@@ -31,6 +31,9 @@ def add_arguments(p):
     add_phase_option(p)
     add_calibration_options(p)
     add_matching_options(p)
+    p.add_argument("--max-crystals", type=int, default=2, metavar="N",
+                   help="crystals looked for in the pattern, 1 to 3 (default 2): a twin, a second phase or a "
+                        "precipitate is indexed from the spots the best crystal leaves unexplained")
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
     out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
@@ -43,6 +46,7 @@ def check_outputs(args) -> None:
     from pathlib import Path
 
     matching_options_from_args(args)  # range checks before any work
+    _max_crystals(args)
     check_frame_and_outputs(args)
     if args.report:
         from saed.report.files import check_writable
@@ -53,6 +57,13 @@ def check_outputs(args) -> None:
         if not d.exists() and not d.parent.is_dir():
             raise InputError(f"--report {args.report}: folder {d.parent} does not exist")
         check_writable(d / "index.html" if d.exists() else d)  # tried, not guessed
+
+
+def _max_crystals(args) -> int:
+    n = args.max_crystals
+    if not 1 <= n <= 3:
+        raise InputError(f"--max-crystals {n}: give 1, 2 or 3 (1 = a single crystal only)")
+    return n
 
 
 def _max_g(args, measured) -> float | None:
@@ -81,7 +92,8 @@ def run(args) -> int:
     insp = inspect_file(args.image, cal, frame=args.frame, mask_path=args.mask)
     measured = insp.measured
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
-    result = index_pattern(measured, tables, top=args.top, **matching_options_from_args(args))
+    result = index_pattern(measured, tables, top=args.top, max_crystals=_max_crystals(args),
+                           **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
     print(format_summary(result, image=args.image, frame=args.frame, top=args.top, **display_options(args, out)), file=out)
     if args.json:

@@ -12,7 +12,8 @@ How saed decides (docs/indexing.md, "Two crystals in one pattern"):
   belong to both crystals (shared rows are normal in intergrowths).
 * A second crystal is accepted only when it explains at least :data:`MIN_OWN_SPOTS` residual spots
   as allowed reflections, in at least two non-parallel rows, those spots carry at least
-  :data:`MIN_RESIDUAL_SHARE` of the residual spot weight, and no more than :data:`MAX_ABSENT` of
+  :data:`MIN_RESIDUAL_SHARE` of the residual spot weight and :data:`MIN_INTENSITY_SHARE` of all the
+  spot intensity, and no more than :data:`MAX_ABSENT` of
   its own predicted kinematic intensity is missing. A candidate that is crystal 1 again (same phase,
   within 3 deg) is never a second crystal. A false second crystal is worse than none: a residual
   that does not pass becomes a note ("too weak to decide"), never a solution.
@@ -60,6 +61,9 @@ MAX_SECOND_ZONE_INDEX = 5
 #: Superlattice/fundamental intensity, relative to a fully ordered crystal, below which a
 #: disordered matrix is reported beside the ordered precipitate.
 ORDERED_FRACTION_MIN = 0.45
+#: ... and its own spots must carry at least this share of the measured spot intensity (weaker:
+#: a note, never a crystal).
+MIN_INTENSITY_SHARE = 0.03
 #: Residual spots below this many are not examined at all (a stray spot or two is common).
 MIN_RESIDUAL_SPOTS = 3
 
@@ -289,13 +293,20 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                              "the candidate phases fits them (another phase, or a high-index zone?)")
             break
         sol, own, share, _merit, absent = found
+        total = float(spots.intensity.sum())
+        own_int = float(spots.intensity[list(own)].sum()) / total if own and total > 0 else 0.0
+        # an ordered crystal on a disordered one of the same orientation owns only its superlattice spots,
+        # weak by nature: their number and rows decide, not their intensity
+        superlattice = any(ordered_pair(tables.table(sol.phase_name).phase, tables.table(o.phase_name).phase)
+                           is not None and _misorientation_deg(sol, o, tables) < 3.0 for o in sols)
         ok = (len(own) >= MIN_OWN_SPOTS and share >= MIN_RESIDUAL_SHARE and absent <= MAX_ABSENT
-              and _n_rows(spots.v_px[list(own)]) >= 2)
+              and (own_int >= MIN_INTENSITY_SHARE or superlattice) and _n_rows(spots.v_px[list(own)]) >= 2)
         if not ok:
             if len(own) >= 3:
                 notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
                              f"crystal {len(sols)}; the best further crystal, {sol.phase_name} [{_zone(sol)}], explains "
-                             f"only {len(own)} of them ({100 * share:.0f} % of their intensity"
+                             f"{'only ' if share < MIN_RESIDUAL_SHARE or len(own) < MIN_OWN_SPOTS else ''}{len(own)} of "
+                             f"them ({100 * share:.0f} % of their weight, {100 * own_int:.1f} % of all spot intensity"
                              f"{f', {100 * absent:.0f} % of its own pattern missing' if absent > MAX_ABSENT else ''}): too "
                              "weak to decide, not reported as a crystal (a longer exposure, or the aperture on the "
                              "second crystal alone, would decide)")
@@ -336,12 +347,18 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         notes.append(pair_note)
     if len(sols) == 2 and roles[1] == "second":
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
-        if pair is not None and pair[0] == sols[1].phase_name:
-            frac, _ns, _nf = ordered_fraction(sols[1], tables.table(pair[1]))
+        same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0
+        if same_orientation and pair[0] == sols[1].phase_name:
+            frac, n_s, n_f = ordered_fraction(sols[1], tables.table(pair[1]))
             if frac is not None and frac >= ORDERED_FRACTION_MIN:
-                notes.append(f"the superlattice spots of {pair[0]} are {frac:.2f} x as strong, relative to the fundamental "
-                             f"spots, as a fully ordered crystal gives: this may be one ordered {pair[0]} crystal rather "
-                             f"than {pair[0]} precipitates in {pair[1]} (a dark-field image in a superlattice spot decides)")
+                # one ordered crystal: it explains every spot the disordered one does, and its superlattice
+                # spots are as strong as full order gives
+                notes.append(f"one ordered crystal: {pair[0]} explains the fundamental spots that {pair[1]} explains "
+                             f"and the superlattice spots, which are {frac:.2f} x as strong as a fully ordered crystal "
+                             f"gives ({n_s} superlattice, {n_f} fundamental spots); not reported as {pair[0]} in a "
+                             f"{pair[1]} matrix (a dark-field image in a superlattice spot would show precipitates)")
+                sols, roles = [sols[1]], ["best"]
+                cross = []
     rels = []
     for k in range(1, len(sols)):
         p0 = tables.table(sols[0].phase_name).phase
@@ -361,6 +378,45 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     return MultiCrystalResult(tuple(crystals), tuple(rels), tuple(cross), tuple(notes))
 
 
+def rescue_with_more_crystals(measured, tables, spots: SpotSet, pool: list[Solution], *, min_score: float,
+                              max_crystals: int, **options) -> tuple[Solution, MultiCrystalResult] | None:
+    """When no single crystal reaches `min_score`: is a near miss crystal 1 of a pattern of several crystals?
+
+    For each near miss in `pool` (best first) the further crystals are looked for as usual; when at
+    least one is found, crystal 1 is scored again on the spots the others do not own (its agreement
+    counts only the spot weight left to it). The first near miss that then reaches `min_score` is
+    the solution; None when none does.
+    """
+    for sol in pool:
+        if sol.score < 0.5 * min_score:
+            continue
+        multi = find_crystals(measured, tables, spots, sol, max_crystals=max_crystals, **options)
+        if len(multi.crystals) < 2:
+            continue
+        rescored = multi.crystals[0].solution
+        if rescored.score >= min_score:
+            return rescored, multi
+    return None
+
+
+def _rescored(sol: Solution, others_own: np.ndarray, spots: SpotSet) -> Solution:
+    """`sol` with its agreement counted over the spot weight other crystals leave to it."""
+    from dataclasses import replace
+
+    w_o = float(spots.weight[others_own].sum()) if len(others_own) else 0.0
+    if w_o <= 0 or w_o >= 0.95:
+        return sol
+    score = min(1.0, sol.score / (1.0 - w_o))
+    return replace(sol, score=score, terms=sol.terms + (("other_crystals_weight", w_o),))
+
+
+def _misorientation_deg(a: Solution, b: Solution, tables) -> float:
+    pa, pb = tables.table(a.phase_name).phase, tables.table(b.phase_name).phase
+    ang, _ = misorientation(np.asarray(b.orientation_matrix).T @ np.asarray(a.orientation_matrix),
+                            proper_rotations_cart(pa), proper_rotations_cart(pb))
+    return ang
+
+
 def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet) -> list[Crystal]:
     out = []
     masks = [np.array([s.kind in _EXPLAINED for s in sol.indexed], bool) for sol in sols]
@@ -371,7 +427,9 @@ def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet) -> 
                 others |= m
         own = tuple(int(i) for i in np.flatnonzero(masks[k] & ~others))
         shared = tuple(int(i) for i in np.flatnonzero(masks[k] & others))
-        out.append(Crystal(sol, roles[k], own, shared, float(spots.weight[masks[k]].sum())))
+        others_own = np.flatnonzero(others & ~masks[k])
+        out.append(Crystal(_rescored(sol, others_own, spots), roles[k], own, shared,
+                           float(spots.weight[masks[k]].sum())))
     return out
 
 

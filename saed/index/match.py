@@ -122,6 +122,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     message = ""
     good = [s for s, _ in solutions if s.score >= MIN_SCORE]
     near = solutions[0][0] if solutions and not good else None
+    free: list = []
     if scale is not None and (not good or good[0].score < 0.6):
         # Is the calibration wildly off? Index by ratios alone and compare the implied scale.
         free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch,
@@ -135,6 +136,26 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
                            "calibration (camera length, binning, units)")
                 if not good:
                     near = fs
+    calibrated = scale is not None
+    if not good and free and free[0][0].score >= MIN_SCORE and 1 / 1.06 <= free[0][0].scale_inv_nm_per_px / scale <= 1.06:
+        # a stated calibration a few per cent off: index by ratios and angles, and say so
+        f = free[0][0].scale_inv_nm_per_px / scale
+        solutions, good, near, calibrated = free, [s for s, _ in free if s.score >= MIN_SCORE], None, False
+        notes.append(f"the spots fit only at a scale {100 * (f - 1):+.1f} % off the stated calibration (tolerance "
+                     f"{100 * length_tol:g} %): indexed by spacing ratios and angles; check the camera length")
+    if not good and max_crystals > 1 and (solutions or free):
+        from saed.index.crystals import rescue_with_more_crystals
+
+        pool = [sol for sol, _ in solutions[:3]] + [sol for sol, _ in free[:6]
+                                                    if 1 / 1.06 <= sol.scale_inv_nm_per_px / scale <= 1.06][:3]
+        rescued = rescue_with_more_crystals(measured, tables, spots, pool, min_score=MIN_SCORE,
+                                            max_crystals=int(max_crystals), angle_tol=angle_tol, ratio_tol=RATIO_TOL,
+                                            rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
+        if rescued is not None:
+            sol1, multi = rescued
+            return IndexResult(measured, (sol1,), "", notes=tuple(notes) + multi.notes, n_candidates=n_cand,
+                               phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
+                               cross_double_diffraction=multi.cross_double_diffraction)
     if not good:
         if not message:
             if near is not None:
@@ -150,7 +171,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         from saed.index.lookalike import annotate
 
         ranked = annotate(solutions, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg,
-                          calibrated=scale is not None, min_score=MIN_SCORE, top=top)
+                          calibrated=calibrated, min_score=MIN_SCORE, top=top)
     else:
         from saed.index.mistilt import with_mistilt
 

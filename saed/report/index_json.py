@@ -118,4 +118,13 @@ def result_json(result: IndexResult, *, image: str, frame: int | None = None) ->
         "near_miss": None if result.near_miss is None else solution_json(result.near_miss, 0),
         "implied_scale_inv_nm_per_px": _num(result.implied_scale_inv_nm_per_px, 7),
         "notes": list(m.notes) + list(result.notes),
+        **_crystal_fields(result),
     }
+
+
+def _crystal_fields(result: IndexResult) -> dict:
+    """``crystals``, ``orientation_relationships`` and ``cross_double_diffraction`` (saed.report.crystals_json)."""
+    from saed.report.crystals_json import cross_double_diffraction_json, crystals_json, relationships_json
+
+    return {"crystals": crystals_json(result), "orientation_relationships": relationships_json(result),
+            "cross_double_diffraction": cross_double_diffraction_json(result)}

@@ -28,7 +28,7 @@ class Confounders:
     """Which confounders to add and how strong (electrons per pixel at their peak)."""
 
     kikuchi_bands: int = 0
-    kikuchi_electrons: float = 60.0
+    kikuchi_electrons: float = 8.0
     kikuchi_width_px: float = 40.0
     halo_electrons: float = 0.0
     halo_radius_px: float = 90.0
@@ -39,9 +39,15 @@ class Confounders:
 
 
 def kikuchi_bands(shape, center_px, *, n: int, electrons: float, width_px: float, rng) -> np.ndarray:
-    """`n` bands at random azimuths passing within a quarter-frame of the centre."""
+    """`n` bands at random azimuths passing within a quarter-frame of the centre.
+
+    Their strength follows the diffuse background they come from (inelastic scattering falls off
+    like the haze, ~ (1 + (r / 25 px)^2)^-0.8); `electrons` is the edge-line excess 100 px from the centre.
+    """
     rows, cols = shape
     yy, xx = np.mgrid[0:rows, 0:cols].astype(np.float64)
+    r = np.hypot(xx - center_px[0], yy - center_px[1])
+    envelope = ((1.0 + (r / 25.0) ** 2) / (1.0 + 16.0)) ** -0.8
     out = np.zeros(shape)
     for _ in range(int(n)):
         a = rng.uniform(0, math.pi)
@@ -50,9 +56,9 @@ def kikuchi_bands(shape, center_px, *, n: int, electrons: float, width_px: float
         t = xx * nx + yy * ny - c
         half = 0.5 * width_px
         band = 0.35 * (np.abs(t) < half)
-        edge = 1.5
+        edge = 2.5
         band = band + np.exp(-0.5 * ((t - half) / edge) ** 2) - 0.7 * np.exp(-0.5 * ((t + half) / edge) ** 2)
-        out += electrons * band
+        out += electrons * band * envelope
     return out
 
 
