@@ -135,6 +135,9 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
         if notes:
             right.append("<h3 style='font-size:14px;margin:14px 0 2px'>Notes and look-alikes</h3><ul>"
                          + "".join(notes) + "</ul>")
+        from saed.report.crystals_report import crystals_html
+
+        right.append(crystals_html(r))  # further crystals and their relationship
     parts.append(f'<div class="card grid"><div>{img}</div><div>{"".join(right)}</div></div>')
     if best is not None:
         rows = ['<tr><th class="l">hkl</th><th>x px</th><th>y px</th>'

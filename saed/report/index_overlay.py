@@ -92,12 +92,17 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
             ax.add_patch(Rectangle((x - side / 2, y - side / 2), side, side, fill=False, ec=PRED_COLOUR, lw=0.9,
                                    alpha=0.75))
     rec = {s.spot_index: s for s in best.indexed} if best is not None else {}
+    from saed.report.crystals_report import draw_further_crystals, spots_of_further_crystals
+
+    elsewhere = spots_of_further_crystals(result)  # explained by crystal 2 or 3: no red cross for crystal 1
     r_circ = 1.6 * unit
     labels = []
     for k in range(len(m.spots)):
         x, y = float(m.spots.x_px[k]), float(m.spots.y_px[k])
         s = rec.get(k)
         kind = s.kind if s is not None else "unindexed"
+        if k in elsewhere and kind in ("forbidden", "unindexed"):
+            continue
         col, ls, _ = KIND_STYLE[kind]
         ax.add_patch(Circle((x, y), r_circ, fill=False, ec=col, lw=1.4 * lw, ls=ls))
         if kind in ("forbidden", "unindexed"):
@@ -129,11 +134,13 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
         lab = f"{bar:g} {units.inverse_label('mathtext')}" + ("" if cal is not None and cal.is_calibrated else " (implied)")
         ax.text(bx + bar_px / 2, by - 0.015 * (y1 - y0), lab, color="white", ha="center", va="bottom", fontsize=9,
                 fontweight="bold", bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.55), ec="none"))
-    kinds_here = sorted({(rec[k].kind if k in rec else "unindexed") for k in range(len(m.spots))},
+    kinds_here = sorted({(rec[k].kind if k in rec else "unindexed") for k in range(len(m.spots))
+                         if not (k in elsewhere and (rec[k].kind if k in rec else "unindexed") in ("forbidden", "unindexed"))},
                         key=lambda k: list(KIND_STYLE).index(k))
     leg = [(KIND_STYLE[k][2], KIND_STYLE[k][0]) for k in kinds_here]
     if best is not None:
         leg.append(("simulated pattern (square ~ sqrt I)", PRED_COLOUR))
+    leg += draw_further_crystals(ax, result, bounds=(x0, x1, y0, y1), unit=unit, label_text=index_text)
     for i, (text, col) in enumerate(leg):
         ax.text(0.985, 0.015 + 0.032 * i, text, transform=ax.transAxes, ha="right", va="bottom", color=col,
                 fontsize=8.5, bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.6), ec="none"))

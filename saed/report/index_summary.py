@@ -143,6 +143,9 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
     lines += table_lines(header, table)
     lines.append("")
     lines += _best_block(best, calibrated=cal is not None and cal.is_calibrated, style=style, units=units)
+    from saed.report.crystals_report import crystals_lines
+
+    lines += crystals_lines(result)  # further crystals, their relationship, the result's notes
     if result.message:
         lines.append(f"note: {person_text(result.message, style)}")
     lines.append("")

@@ -1,0 +1,139 @@
+"""The crystals of one pattern and their orientation relationship in the terminal summary, the HTML
+report and the overlay (each crystal in its own colour, with a legend).
+
+Crystal 1 keeps the overlay's usual colours (measured spots by kind, the simulated pattern in
+cyan); crystals 2 and 3 get :data:`CRYSTAL_COLOURS` for their simulated pattern, their own spots
+and their labels; spots two crystals share get a second, dashed ring in the further crystal's
+colour; spots explained as double diffraction across two crystals are marked with a small plus.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+
+import numpy as np
+
+from saed.crystal.miller import format_indices
+
+__all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "draw_further_crystals",
+           "spots_of_further_crystals"]
+
+#: Colours of crystals 2 and 3 (crystal 1 keeps the overlay's own colours).
+CRYSTAL_COLOURS = ("#ff9f0a", "#ff6ad5")
+CROSS_DD_COLOUR = "#ffd60a"
+
+
+def _zone(sol) -> str:
+    return f"[{format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)}]"
+
+
+def crystal_label(result, k: int) -> str:
+    c = result.crystals[k]
+    role = "" if c.role in ("best", "second", "third") else f", {c.role}"
+    return f"crystal {k + 1}: {c.phase_name} {_zone(c.solution)}{role}"
+
+
+def crystals_lines(result) -> list[str]:
+    """Lines for the terminal summary: the crystals, the relationships, the notes of the multi-crystal search."""
+    out: list[str] = []
+    if len(result.crystals) > 1:
+        out.append("")
+        out.append(f"crystals in the pattern: {len(result.crystals)}")
+        for k, c in enumerate(result.crystals):
+            out.append(f"  {k + 1}  {c.phase_name:<10} {_zone(c.solution):<12} score {c.solution.score:.2f}  "
+                       f"{len(c.own_spots)} own spots, {len(c.shared_spots)} shared"
+                       + ("" if c.role in ("best", "second", "third") else f"  ({c.role})"))
+        for r in result.orientation_relationships:
+            a, b = r.crystals
+            out.append(f"  relationship {a + 1}-{b + 1}: {r.text}")
+        if result.cross_double_diffraction:
+            out.append(f"  {len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
+                       "(g1 + g2), not a further crystal")
+    notes = list(result.notes)
+    if notes:
+        out.append("")
+        out += [f"note: {n}" for n in notes]
+    return out
+
+
+def crystals_html(result) -> str:
+    """A block for the HTML report ('' for a single crystal without notes)."""
+    e = html.escape
+    parts = []
+    if len(result.crystals) > 1:
+        rows = ["<tr><th>#</th><th class='l'>phase</th><th class='l'>zone</th><th>score</th><th>own spots</th>"
+                "<th>shared</th><th class='l'>role</th></tr>"]
+        for k, c in enumerate(result.crystals):
+            col = "" if k == 0 else f" style='color:{CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)]}'"
+            rows.append(f"<tr><td{col}>{k + 1}</td><td class='l'>{e(c.phase_name)}</td><td class='l'>{e(_zone(c.solution))}"
+                        f"</td><td>{c.solution.score:.2f}</td><td>{len(c.own_spots)}</td><td>{len(c.shared_spots)}</td>"
+                        f"<td class='l'>{e(c.role)}</td></tr>")
+        parts.append("<h3 style='font-size:14px;margin:14px 0 2px'>Crystals in the pattern</h3><table>"
+                     + "".join(rows) + "</table>")
+        for r in result.orientation_relationships:
+            a, b = r.crystals
+            parts.append(f"<p><b>Relationship {a + 1}&ndash;{b + 1}: {e(r.name if r.name != 'none' else 'none of the standard ones')}"
+                         f".</b> {e(r.text)}" + (f" <i>Source: {e(r.source)}</i>" if r.source else "") + "</p>")
+        if result.cross_double_diffraction:
+            parts.append(f"<p>{len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
+                         "(g<sub>1</sub> + g<sub>2</sub>), not a further crystal.</p>")
+    if result.notes:
+        parts.append("<ul>" + "".join(f"<li>{e(n)}</li>" for n in result.notes) + "</ul>")
+    return "".join(parts)
+
+
+def spots_of_further_crystals(result) -> set[int]:
+    """Spot indices explained by a crystal other than the first, or as double diffraction across crystals."""
+    out: set[int] = set()
+    for c in result.crystals[1:]:
+        out.update(c.own_spots)
+    out.update(d.spot_index for d in result.cross_double_diffraction)
+    return out
+
+
+def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> list[tuple[str, str]]:
+    """Draw crystals 2 and 3 (simulated pattern, their spots, labels) on `ax`; legend entries (text, colour)."""
+    from matplotlib.patches import Circle, Rectangle
+
+    x0, x1, y0, y1 = bounds
+    m = result.measured
+    cx, cy = m.center_px
+    legend: list[tuple[str, str]] = []
+    if len(result.crystals) < 2:
+        return legend
+    legend.append((crystal_label(result, 0) + " (spot colours by kind, cyan squares)", "#64d2ff"))
+    for k, c in enumerate(result.crystals[1:], start=1):
+        col = CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)]
+        sol = c.solution
+        for (x, y), i, kind in zip(sol.predicted_xy_px, sol.predicted_intensity, sol.predicted_kind):
+            if kind != "allowed" or not (x0 <= x <= x1 and y0 <= y <= y1):
+                continue
+            side = unit * (0.8 + 2.2 * math.sqrt(max(float(i), 0.0)))
+            ax.add_patch(Rectangle((x - side / 2, y - side / 2), side, side, fill=False, ec=col, lw=0.9, alpha=0.8))
+        rec = {s.spot_index: s for s in sol.indexed}
+        for i in list(c.own_spots) + list(c.shared_spots):
+            s = rec.get(i)
+            if s is None:
+                continue
+            shared = i in c.shared_spots
+            r = (2.3 if shared else 1.6) * unit
+            ax.add_patch(Circle((s.x_px, s.y_px), r, fill=False, ec=col, lw=1.4, ls="--" if shared else "-"))
+            if not shared and s.hkl is not None:
+                rr = math.hypot(s.x_px - cx, s.y_px - cy) or 1.0
+                ux, uy = (s.x_px - cx) / rr, (s.y_px - cy) / rr
+                ax.annotate(label_text(s.hkil if s.hkil is not None else s.hkl), (s.x_px, s.y_px),
+                            xytext=(-ux * 15, uy * 15), textcoords="offset points", ha="center", va="center",
+                            fontsize=7.5, color=col, bbox=dict(boxstyle="round,pad=0.1", fc=(0, 0, 0, 0.55), ec="none"))
+        legend.append((crystal_label(result, k) + " (squares, rings, labels)", col))
+    xs, ys = np.asarray(m.spots.x_px), np.asarray(m.spots.y_px)
+    for d in result.cross_double_diffraction:
+        ax.plot([xs[d.spot_index]], [ys[d.spot_index]], marker="+", ms=9, mew=1.6, color=CROSS_DD_COLOUR)
+    if result.cross_double_diffraction:
+        legend.append(("+ double diffraction across crystals", CROSS_DD_COLOUR))
+    for r in result.orientation_relationships:
+        a, b = r.crystals
+        name = r.name if r.name != "none" else f"no standard relationship ({r.misorientation_deg:.1f} deg)"
+        dev = f", {r.deviation_deg:.1f} deg off" if r.deviation_deg is not None else ""
+        legend.append((f"{a + 1}-{b + 1}: {name}{dev}", "white"))
+    return legend

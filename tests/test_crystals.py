@@ -1,0 +1,265 @@
+"""Two crystals in one pattern: overlaps built here by hand, indexed by the matcher.
+
+The spot patterns are made in this file from the cubic lattice parameter, the extinction rules of
+fcc (h, k, l unmixed) and bcc (h + k + l even) (International Tables A; common practice), the zero-
+order Laue-zone condition g . beam = 0 and rotation matrices written here, with smooth made-up
+intensities, not with saed's simulation. Lattice parameters: Co-fcc 0.35447 nm, Fe-fcc 0.359 nm,
+Fe-bcc 0.28665 nm, Ni 0.35238 nm, Ni3Al 0.3572 nm (the values of saed's phase table, whose sources
+it names; the test only needs them to agree with the candidate phases).
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import math
+from importlib import resources
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from saed.calibration import Calibration
+from saed.cli import main
+from saed.crystal import builtin_phase
+from saed.errors import InputError
+from saed.image.values import MeasuredPattern, Spots
+from saed.index import index_pattern, prepare_phases
+
+SCALE = 0.05  # 1/nm per px
+CENTRE = (255.3, 256.2)
+
+
+def rodrigues(axis, angle_deg):
+    k = np.asarray(axis, float) / np.linalg.norm(axis)
+    a = math.radians(angle_deg)
+    kx = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
+    return np.eye(3) + math.sin(a) * kx + (1 - math.cos(a)) * kx @ kx
+
+
+def beam_along(uvw, x_dir, phi_deg):
+    """U (crystal Cartesian -> detector) with the beam (+z) along uvw, x_dir on detector x, then turned by phi."""
+    z = np.asarray(uvw, float) / np.linalg.norm(uvw)
+    x = np.asarray(x_dir, float) - (np.asarray(x_dir, float) @ z) * z
+    x /= np.linalg.norm(x)
+    return rodrigues([0, 0, 1], phi_deg) @ np.stack([x, np.cross(z, x), z])
+
+
+def allowed(h, lattice):
+    if lattice == "fcc":
+        return len({v % 2 for v in h}) == 1
+    if lattice == "bcc":
+        return sum(h) % 2 == 0
+    if lattice == "L12":  # primitive: all reflections; fundamental ones are the fcc ones
+        return True
+    raise ValueError(lattice)
+
+
+def spots_of(a_nm, lattice, u, *, share=1.0, g_max=11.0, f=None):
+    """(vectors px, intensities) of the zero-order zone: g = hkl / a (cubic), kept where g . beam = 0."""
+    out_v, out_i = [], []
+    n = int(g_max * a_nm) + 1
+    for h in itertools.product(range(-n, n + 1), repeat=3):
+        if h == (0, 0, 0) or not allowed(h, lattice):
+            continue
+        g = np.array(h, float) / a_nm
+        gd = u @ g
+        if abs(gd[2]) > 1e-6 or np.linalg.norm(g) > g_max:
+            continue
+        inten = (f(h, np.linalg.norm(g)) if f else 1.0 / (1.0 + (np.linalg.norm(g) / 4.0) ** 2))
+        if inten < 1e-4:
+            continue
+        out_v.append(gd[:2] / SCALE)
+        out_i.append(share * inten)
+    return np.array(out_v), np.array(out_i)
+
+
+def measured(*crystals, rng=0, merge_px=2.0):
+    """A MeasuredPattern from (vectors, intensities) of several crystals; close spots merge (one detector spot)."""
+    rng = np.random.default_rng(rng)
+    v = np.concatenate([c[0] for c in crystals])
+    i = np.concatenate([c[1] for c in crystals])
+    order = np.argsort(-i)
+    used = np.zeros(len(v), bool)
+    mv, mi = [], []
+    for k in order:
+        if used[k]:
+            continue
+        near = ~used & (np.linalg.norm(v - v[k], axis=1) < merge_px)
+        used |= near
+        mv.append((v[near] * i[near, None]).sum(0) / i[near].sum())
+        mi.append(i[near].sum())
+    v, i = np.array(mv), np.array(mi)
+    x = CENTRE[0] + v[:, 0] + rng.normal(0, 0.15, len(v))
+    y = CENTRE[1] + v[:, 1] + rng.normal(0, 0.15, len(v))
+    inside = (x > 5) & (x < 506) & (y > 5) & (y < 506)
+    meas = 1e4 * i[inside] * np.exp(rng.normal(0, 0.2, inside.sum()))
+    sp = Spots(x[inside], y[inside], meas, intensity_sigma=np.sqrt(meas), sigma_xy_px=np.full(inside.sum(), 0.15),
+               snr=np.sqrt(meas))
+    return MeasuredPattern(image_shape=(512, 512), center_px=CENTRE, spots=sp, basis=None,
+                           calibration=Calibration(SCALE, 200.0))
+
+
+@pytest.fixture(scope="module")
+def co_tables():
+    return prepare_phases([builtin_phase("Co-fcc"), builtin_phase("Co-hcp")], max_g_inv_nm=12.0)
+
+
+@pytest.fixture(scope="module")
+def fe_tables():
+    return prepare_phases([builtin_phase("Fe-fcc"), builtin_phase("Fe-bcc")], max_g_inv_nm=12.0)
+
+
+def family(v):
+    return sorted(abs(int(x)) for x in v)
+
+
+def test_twin_is_found_as_a_second_crystal_and_named_with_its_plane(co_tables):
+    u1 = beam_along([1, -1, 0], [0, 0, 1], 17.0)
+    twin = rodrigues([1, 1, 1], 180.0)  # 180 deg about the (111) normal = Sigma 3 (Randle 1996, ch. 2)
+    u2 = u1 @ twin.T
+    m = measured(spots_of(0.35447, "fcc", u1, share=0.6), spots_of(0.35447, "fcc", u2, share=0.4))
+    r = index_pattern(m, co_tables)
+    assert [c.phase_name for c in r.crystals] == ["Co-fcc", "Co-fcc"]
+    assert all(family(c.solution.zone_axis) == [0, 1, 1] for c in r.crystals)
+    (rel,) = r.orientation_relationships
+    assert rel.name == "Sigma-3 twin" and rel.deviation_deg < 0.5
+    assert family(rel.twin_plane) == [1, 1, 1]
+    assert rel.misorientation_deg == pytest.approx(60.0, abs=0.5)
+    # the (111) systematic row is common to matrix and twin: those spots belong to both
+    assert len(r.crystals[1].shared_spots) >= 2
+    # a single crystal only when asked for one
+    r1 = index_pattern(m, co_tables, max_crystals=1)
+    assert len(r1.crystals) == 1 and r1.orientation_relationships == ()
+
+
+def test_kurdjumov_sachs_overlap_of_fcc_and_bcc(fe_tables):
+    # KS: (111)fcc || (011)bcc, [-101]fcc || [-1-11]bcc; the beam along [111]fcc || [011]bcc
+    def triad(n, d):
+        n = np.asarray(n, float) / np.linalg.norm(n)
+        d = np.asarray(d, float) / np.linalg.norm(d)
+        return np.stack([n, d, np.cross(n, d)], axis=1)
+
+    ks = triad([0, 1, 1], [-1, -1, 1]) @ triad([1, 1, 1], [-1, 0, 1]).T
+    u1 = beam_along([1, 1, 1], [1, -1, 0], 40.0)
+    m = measured(spots_of(0.359, "fcc", u1, share=0.55), spots_of(0.28665, "bcc", u1 @ ks.T, share=0.45))
+    r = index_pattern(m, fe_tables)
+    got = sorted((c.phase_name, tuple(family(c.solution.zone_axis))) for c in r.crystals)
+    assert got == [("Fe-bcc", (0, 1, 1)), ("Fe-fcc", (1, 1, 1))]
+    (rel,) = r.orientation_relationships
+    assert rel.name == "Kurdjumov-Sachs" and rel.deviation_deg < 1.0
+
+
+def test_single_crystals_are_not_split(co_tables):
+    for uvw, x in (([1, 1, 2], [1, -1, 0]), ([0, 0, 1], [1, 0, 0]), ([0, 1, 1], [1, 0, 0]), ([0, 1, 3], [1, 0, 0])):
+        u = beam_along(uvw, x, 33.0)
+        r = index_pattern(measured(spots_of(0.35447, "fcc", u)), co_tables)
+        assert len(r.crystals) == 1, uvw
+        assert r.crystals[0].phase_name == "Co-fcc"
+
+
+def test_fcc_111_with_weak_one_third_422_spots_is_not_hcp(co_tables):
+    # thin or faulted fcc foils show weak spots at 1/3{422} along <111> (Williams & Carter 2009, ch. 18)
+    u = beam_along([1, 1, 1], [1, -1, 0], 12.0)
+    v, i = spots_of(0.35447, "fcc", u)
+    extra = []
+    for h in {p for p in itertools.permutations((2, -1, -1))} | {p for p in itertools.permutations((-2, 1, 1))}:
+        g = np.array(h, float) / 3.0 / 0.35447
+        extra.append((u @ g)[:2] / SCALE)
+    weak = (np.array(extra), np.full(len(extra), 0.01))
+    r = index_pattern(measured((v, i), weak), co_tables)
+    assert [c.phase_name for c in r.crystals] == ["Co-fcc"]
+
+
+def test_a_too_weak_second_crystal_is_never_a_solution(co_tables):
+    u1 = beam_along([1, -1, 0], [0, 0, 1], 17.0)
+    u2 = u1 @ rodrigues([1, 1, 1], 180.0).T
+    m = measured(spots_of(0.35447, "fcc", u1, share=0.995), spots_of(0.35447, "fcc", u2, share=0.005))
+    r = index_pattern(m, co_tables)
+    assert len(r.crystals) == 1
+
+
+def _l12_factor(h, g_inv_nm):
+    """|F|^2 of Ni3Al (Al at 000, Ni at the face centres) with electron scattering factors from gemmi
+    (International Tables C 4.3.2.2 fits), evaluated here, outside saed."""
+    import gemmi
+
+    s2 = (g_inv_nm / 20.0) ** 2  # (sin theta / lambda)^2 in 1/A^2: g / 2 in 1/nm = g / 20 in 1/A
+    f_ni = gemmi.Element("Ni").c4322.calculate_sf(s2)
+    f_al = gemmi.Element("Al").c4322.calculate_sf(s2)
+    fundamental = len({v % 2 for v in h}) == 1
+    f = 3 * f_ni + f_al if fundamental else f_ni - f_al
+    return f * f / (3 * 2.35 + 1.27) ** 2 * math.exp(-(g_inv_nm / 6.0) ** 2)
+
+
+def _fcc_factor(h, g_inv_nm):
+    import gemmi
+
+    s2 = (g_inv_nm / 20.0) ** 2
+    f = 4 * gemmi.Element("Ni").c4322.calculate_sf(s2)
+    return f * f / (3 * 2.35 + 1.27) ** 2 * math.exp(-(g_inv_nm / 6.0) ** 2)
+
+
+def test_ordered_crystal_stays_one_and_ordered_precipitates_in_a_matrix_are_two():
+    tables = prepare_phases([builtin_phase("Ni"), builtin_phase("Ni3Al")], max_g_inv_nm=12.0)
+    u = beam_along([0, 0, 1], [1, 0, 0], 21.0)
+    alone = measured(spots_of(0.3572, "L12", u, f=_l12_factor))
+    r = index_pattern(alone, tables)
+    assert [c.phase_name for c in r.crystals] == ["Ni3Al"]
+    # 30 % ordered precipitates in a disordered Ni matrix of the same orientation: the fundamental spots
+    # are far stronger, relative to the superlattice ones, than one ordered crystal makes them
+    mix = measured(spots_of(0.3572, "L12", u, f=_l12_factor, share=0.3),
+                   spots_of(0.35238, "fcc", u, f=_fcc_factor, share=0.7), merge_px=6.0)
+    r2 = index_pattern(mix, tables)
+    assert sorted(c.phase_name for c in r2.crystals) == ["Ni", "Ni3Al"]
+    roles = {c.phase_name: c.role for c in r2.crystals}
+    assert roles == {"Ni3Al": "ordered precipitate", "Ni": "matrix"}
+    (rel,) = r2.orientation_relationships
+    assert rel.name == "cube-on-cube" and rel.kind == "ordered precipitate"
+    assert any("dark-field" in n for n in r2.notes)  # the caution and what decides
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.one_of(st.integers(max_value=0), st.integers(min_value=4)))
+def test_max_crystals_out_of_range_is_refused(n):
+    u = beam_along([0, 0, 1], [1, 0, 0], 0.0)
+    m = measured(spots_of(0.35447, "fcc", u))
+    with pytest.raises(InputError, match="max_crystals"):
+        index_pattern(m, _tables_small(), max_crystals=n)
+
+
+_SMALL = []
+
+
+def _tables_small():
+    if not _SMALL:
+        _SMALL.append(prepare_phases([builtin_phase("Co-fcc")], max_g_inv_nm=10.0))
+    return _SMALL[0]
+
+
+@pytest.mark.parametrize("value", ["0", "-1", "4"])
+def test_cli_refuses_max_crystals_out_of_range(tmp_path, capsys, value):
+    img = tmp_path / "g.tif"
+    img.write_bytes(resources.files("saed").joinpath("data/examples/grain_A_fcc.tif").read_bytes())
+    out = tmp_path / "r.json"
+    assert main(["index", str(img), "--scale", "0.05", "--max-crystals", value, "--json", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--max-crystals" in err[0]
+    assert not out.exists()
+
+
+def test_cli_json_lists_one_crystal_for_a_single_grain(tmp_path, capsys):
+    ex = resources.files("saed").joinpath("data/examples")
+    img, cal = tmp_path / "g.tif", tmp_path / "g.json"
+    img.write_bytes(ex.joinpath("grain_B_hcp.tif").read_bytes())
+    cal.write_bytes(ex.joinpath("grain_B_hcp.json").read_bytes())
+    out = tmp_path / "r.json"
+    assert main(["index", str(img), "--calibration", str(cal), "--phase", "Co-fcc", "--phase", "Co-hcp",
+                 "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert len(doc["crystals"]) == 1 and doc["orientation_relationships"] == []
+    c = doc["crystals"][0]
+    for key in ("phase", "zone_axis", "zone_axis_4", "orientation_matrix", "score", "indexed_spots"):
+        assert key in c
+    assert c["phase"] == doc["solutions"][0]["phase"] == "Co-hcp"
