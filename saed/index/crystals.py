@@ -54,8 +54,8 @@ MIN_RESIDUAL_SHARE = 0.5
 #: ... and miss at most this share of its own predicted kinematic intensity.
 MAX_ABSENT = 0.45
 #: Scale tolerance of a further crystal relative to crystal 1's refined scale (cell parameters of
-#: different phases, strain): 2 %.
-SCALE_TOL = 0.02
+#: alloyed or strained phases): 1.5 %.
+SCALE_TOL = 0.015
 #: Zone axes of further crystals are searched up to this index.
 MAX_SECOND_ZONE_INDEX = 5
 #: Superlattice/fundamental intensity, relative to a fully ordered crystal, below which a
@@ -64,6 +64,8 @@ ORDERED_FRACTION_MIN = 0.45
 #: ... and its own spots must carry at least this share of the measured spot intensity (weaker:
 #: a note, never a crystal).
 MIN_INTENSITY_SHARE = 0.03
+#: Residual spots nearer the centre than this (1/nm) do not seed a further crystal.
+MIN_SEED_G_INV_NM = 2.0
 #: Residual spots below this many are not examined at all (a stray spot or two is common).
 MIN_RESIDUAL_SPOTS = 3
 
@@ -158,13 +160,18 @@ def _same_crystal(sol: Solution, others: list[Solution], tables) -> bool:
 def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution], *, scale: float,
             angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
     """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share) or None."""
-    sub = _subset(spots, residual)
+    # seeds from residual spots beyond 2 1/nm: nearer ones are mostly double diffraction across the
+    # crystals (g1 + g2 of nearly opposite reflections) or debris, and would pair into wrong seeds
+    seedable = residual[spots.r_px[residual] * scale >= MIN_SEED_G_INV_NM]
+    if len(seedable) < 2:
+        return None
+    sub = _subset(spots, seedable)
     cands, _ = find_candidates(tables, sub, scale_inv_nm_per_px=scale, length_tol=SCALE_TOL, ratio_tol=ratio_tol,
                                angle_tol_deg=angle_tol, rel_pos_tol=rel_pos_tol,
                                max_zone_index=min(max_zone_index, MAX_SECOND_ZONE_INDEX))
     w_res = float(spots.weight[residual].sum())
     res_set = set(int(i) for i in residual)
-    best = None
+    scored = []
     seen_keys = set()
     for c in cands[:16]:
         key = (c.phase_index, c.canonical_zone, round(c.u_matrix[0, 0], 2), round(c.u_matrix[1, 0], 2))
@@ -178,9 +185,22 @@ def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: li
         own = [s.spot_index for s in sol.indexed if s.kind == "allowed" and s.spot_index in res_set]
         share = float(spots.weight[own].sum()) / w_res if w_res > 0 and own else 0.0
         absent = float(sol.term("absent") or 0.0)
-        merit = share * (1.0 - 0.5 * absent) * float(sol.term("scale") or 1.0) * float(sol.term("zone_prior") or 1.0)
-        if best is None or merit > best[3]:
-            best = (sol, tuple(sorted(own)), share, merit, absent)
+        merit = share * (1.0 - absent) * float(sol.term("scale") or 1.0) * float(sol.term("zone_prior") or 1.0)
+        scored.append((sol, tuple(sorted(own)), share, merit, absent))
+    if not scored:
+        return None
+    scored.sort(key=lambda t: -t[3])
+    best = scored[0]
+    # an ordered phase wins over its disordered form in the same orientation only through superlattice
+    # spots of its own (spots the disordered form cannot explain)
+    for alt in scored[1:]:
+        pair = ordered_pair(tables.table(best[0].phase_name).phase, tables.table(alt[0].phase_name).phase)
+        if (pair is not None and pair[0] == best[0].phase_name and alt[3] >= 0.5 * best[3]
+                and _misorientation_deg(best[0], alt[0], tables) < 3.0):
+            extra = set(best[1]) - set(alt[1])
+            if len(extra) < 2:
+                best = alt
+            break
     return best
 
 

@@ -123,6 +123,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     good = [s for s, _ in solutions if s.score >= MIN_SCORE]
     near = solutions[0][0] if solutions and not good else None
     free: list = []
+    near_scale: list = []
     if scale is not None and (not good or good[0].score < 0.6):
         # Is the calibration wildly off? Index by ratios alone and compare the implied scale.
         free, _ = _solve(measured, tables, spots, scale=None, length_tol=length_tol, angle_tol=angle_tol, pitch=pitch,
@@ -137,17 +138,18 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
                 if not good:
                     near = fs
     calibrated = scale is not None
-    if not good and free and free[0][0].score >= MIN_SCORE and 1 / 1.06 <= free[0][0].scale_inv_nm_per_px / scale <= 1.06:
-        # a stated calibration a few per cent off: index by ratios and angles, and say so
-        f = free[0][0].scale_inv_nm_per_px / scale
-        solutions, good, near, calibrated = free, [s for s, _ in free if s.score >= MIN_SCORE], None, False
+    near_scale = [(s, fit) for s, fit in free if 1 / 1.06 <= s.scale_inv_nm_per_px / scale <= 1.06] if free else []
+    if not good and near_scale and near_scale[0][0].score >= MIN_SCORE:
+        # a stated calibration a few per cent off: index by ratios and angles among the phases that fit
+        # within 6 % of it (isostructural phases of another cell size do not), and say so
+        f = near_scale[0][0].scale_inv_nm_per_px / scale
+        solutions, good, near, calibrated = near_scale, [s for s, _ in near_scale if s.score >= MIN_SCORE], None, False
         notes.append(f"the spots fit only at a scale {100 * (f - 1):+.1f} % off the stated calibration (tolerance "
                      f"{100 * length_tol:g} %): indexed by spacing ratios and angles; check the camera length")
     if not good and max_crystals > 1 and (solutions or free):
         from saed.index.crystals import rescue_with_more_crystals
 
-        pool = [sol for sol, _ in solutions[:3]] + [sol for sol, _ in free[:6]
-                                                    if 1 / 1.06 <= sol.scale_inv_nm_per_px / scale <= 1.06][:3]
+        pool = [sol for sol, _ in solutions[:3]] + [sol for sol, _ in near_scale[:3]]
         rescued = rescue_with_more_crystals(measured, tables, spots, pool, min_score=MIN_SCORE,
                                             max_crystals=int(max_crystals), angle_tol=angle_tol, ratio_tol=RATIO_TOL,
                                             rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
