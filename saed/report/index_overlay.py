@@ -154,6 +154,11 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
     else:
         word = confidence_word(result) if result.best is not None else "near miss"
         line1 = f"{best.phase_name} {zone_text(best, 'mathtext')}   score {best.score:.2f} ({word})   -   {src}"
+        if len(result.crystals) > 1:  # further crystals and their relationship (saed.report.crystals_report)
+            rel = result.orientation_relationships[0].name if result.orientation_relationships else ""
+            more = " + ".join(f"{c.phase_name} {zone_text(c.solution, 'mathtext')}" for c in result.crystals[1:])
+            line1 = f"{best.phase_name} {zone_text(best, 'mathtext')} + {more}" \
+                + (f" ({rel})" if rel and rel != "none" else "") + f"   -   {src}"
         line2 = (f"{best.n_explained}/{len(best.indexed)} spots explained, d error {best.mean_d_error_pct:.2f} %, "
                  f"angle error {best.mean_angle_error_deg:.2f}\N{DEGREE SIGN}, in-plane rotation {best.in_plane_rotation_deg:.1f}\N{DEGREE SIGN}, "
                  f"{units.reciprocal(best.scale_inv_nm_per_px):.5g} {units.inverse_label('mathtext')} per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
