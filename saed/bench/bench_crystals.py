@@ -164,9 +164,18 @@ def _found(result, truth, tables) -> bool:
     return want == got
 
 
-def accuracy_report(*, progress=None) -> dict:
+def _timed(measured, tables):
+    """(result with max_crystals 2, its time, the time with max_crystals 1), seconds."""
     from saed.index import index_pattern
 
+    t0 = time.perf_counter()
+    r = index_pattern(measured, tables, max_crystals=2)
+    t1 = time.perf_counter()
+    index_pattern(measured, tables, max_crystals=1)
+    return r, t1 - t0, time.perf_counter() - t1
+
+
+def accuracy_report(*, progress=None) -> dict:
     two = two_crystal_frames()
     one = single_crystal_frames()
     rows = []
@@ -175,12 +184,8 @@ def accuracy_report(*, progress=None) -> dict:
     by_rel: dict[str, list[int]] = {}
     for i, (m, truth, conf) in enumerate(two):
         tables = _tables(truth.phases)
-        t0 = time.perf_counter()
-        r = index_pattern(m, tables, max_crystals=2)
-        t2 += time.perf_counter() - t0
-        t0 = time.perf_counter()
-        index_pattern(m, tables, max_crystals=1)
-        t1 += time.perf_counter() - t0
+        r, d2, d1 = _timed(m, tables)
+        t2, t1 = t2 + d2, t1 + d1
         ok = _found(r, truth, tables)
         rel = r.orientation_relationships[0].name if r.orientation_relationships else "-"
         good_name = ok and rel == truth.relationship
@@ -199,12 +204,8 @@ def accuracy_report(*, progress=None) -> dict:
     s2 = s1 = 0.0
     for j, (m, (name, zone), conf) in enumerate(one):
         tables = _tables((name,))
-        t0 = time.perf_counter()
-        r = index_pattern(m, tables, max_crystals=2)
-        s2 += time.perf_counter() - t0
-        t0 = time.perf_counter()
-        index_pattern(m, tables, max_crystals=1)
-        s1 += time.perf_counter() - t0
+        r, d2, d1 = _timed(m, tables)
+        s2, s1 = s2 + d2, s1 + d1
         if len(r.crystals) > 1:
             false2 += 1
             rows.append(f"FALSE SECOND CRYSTAL: {name} {list(zone)} {'conf' if conf else ''} -> "

@@ -150,10 +150,7 @@ def overlap_measured(phase1, zone_axis, crystals, *, in_plane_rotation_deg: floa
     cal = Calibration(stated, voltage_kv)
     measured = MeasuredPattern(image_shape=(h, w), center_px=(cx, cy), spots=spots, basis=None, calibration=cal,
                                source=f"synthetic overlap {relationship}")
-    shares = (1.0 - sum(float(s) for _, _, s in crystals),) + tuple(float(s) for _, _, s in crystals)
-    truth = OverlapTruth(tuple(i[0] for i in info), tuple(i[1] for i in info), tuple(i[2] for i in info), shares,
-                         float(scale_inv_nm_per_px), float(stated), relationship)
-    return measured, truth
+    return measured, _truth(info, crystals, scale_inv_nm_per_px, stated, relationship)
 
 
 def overlap_image(phase1, zone_axis, crystals, *, in_plane_rotation_deg: float = 0.0, scale_inv_nm_per_px: float = 0.05,
@@ -183,13 +180,10 @@ def overlap_image(phase1, zone_axis, crystals, *, in_plane_rotation_deg: float =
         last = own == len(info) - 1
         img = add_confounders(img, (cx, cy), confounders, spot_xy_px=v[last] + np.array([cx, cy]), spot_electrons=el[last],
                               gain=det.gain_counts_per_electron, rng=rng)
+    return img, _truth(info, crystals, scale_inv_nm_per_px, None, relationship)
+
+
+def _truth(info, crystals, scale, stated, relationship) -> OverlapTruth:
     shares = (1.0 - sum(float(s) for _, _, s in crystals),) + tuple(float(s) for _, _, s in crystals)
-    truth = OverlapTruth(tuple(i[0] for i in info), tuple(i[1] for i in info), tuple(i[2] for i in info), shares,
-                         float(scale_inv_nm_per_px), None, relationship)
-    return img, truth
-
-
-def rotation_between(u1: np.ndarray, u2: np.ndarray) -> np.ndarray:
-    """R = U2^T U1 (crystal-1 Cartesian -> crystal-2 Cartesian) of two orientation matrices."""
-    return np.asarray(u2, float).T @ np.asarray(u1, float)
-
+    return OverlapTruth(tuple(i[0] for i in info), tuple(i[1] for i in info), tuple(i[2] for i in info), shares,
+                        float(scale), None if stated is None else float(stated), relationship)

@@ -12,24 +12,12 @@ plane, the nearest standard when none matched, the source and one line of text.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from saed.crystal.miller import direction_to_4, plane_to_4
+from saed.report.index_json import _ints, _num
 
 __all__ = ["crystals_json", "relationships_json", "cross_double_diffraction_json"]
-
-
-def _num(v, nd: int = 6):
-    if v is None:
-        return None
-    v = float(v)
-    return round(v, nd) if math.isfinite(v) else None
-
-
-def _ints(v):
-    return None if v is None else [int(x) for x in v]
 
 
 def crystals_json(result) -> list[dict]:
