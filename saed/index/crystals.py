@@ -365,6 +365,19 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                              "precipitates if there were any)")
     if pair_note:
         notes.append(pair_note)
+    if len(sols) >= 2:
+        first = _explained_mask(sols[0], spots)
+        rest = np.zeros(len(first), bool)
+        for o in sols[1:]:
+            rest |= _explained_mask(o, spots)
+        if np.count_nonzero(first & ~rest) < 2:
+            # the best solution owns no spots of its own: a further crystal explains all it does (e.g. an
+            # ordered crystal and its disordered form turned by a symmetry of the projected pattern)
+            notes.append(f"{sols[1].phase_name} [{_zone(sols[1])}] explains every spot the first-ranked solution "
+                         f"{sols[0].phase_name} [{_zone(sols[0])}] explains, and more: reported as one crystal")
+            sols, roles = sols[1:], ["best"] + roles[2:]
+            cross = [d for d in cross if max(d.crystal_a, d.crystal_b) < len(sols) + 1 and min(d.crystal_a, d.crystal_b) > 0]
+            cross = [CrossDoubleDiffraction(d.spot_index, d.crystal_a - 1, d.hkl_a, d.crystal_b - 1, d.hkl_b) for d in cross]
     if len(sols) == 2 and roles[1] == "second":
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
         same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0

@@ -39,7 +39,7 @@ def crystals_lines(result) -> list[str]:
     out: list[str] = []
     if len(result.crystals) > 1:
         out.append("")
-        out.append(f"crystals in the pattern: {len(result.crystals)}")
+        out.append(f"crystals in the pattern: {len(result.crystals)} (each score counts the spots the others leave to it)")
         for k, c in enumerate(result.crystals):
             out.append(f"  {k + 1}  {c.phase_name:<10} {_zone(c.solution):<12} score {c.solution.score:.2f}  "
                        f"{len(c.own_spots)} own spots, {len(c.shared_spots)} shared"
