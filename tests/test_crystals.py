@@ -263,3 +263,27 @@ def test_cli_json_lists_one_crystal_for_a_single_grain(tmp_path, capsys):
     for key in ("phase", "zone_axis", "zone_axis_4", "orientation_matrix", "score", "indexed_spots"):
         assert key in c
     assert c["phase"] == doc["solutions"][0]["phase"] == "Co-hcp"
+
+
+def test_summary_report_and_overlay_name_the_relationship(co_tables, tmp_path):
+    from saed.report.crystals_report import crystals_html
+    from saed.report.index_json import result_json
+    from saed.report.index_overlay import write_index_overlay
+    from saed.report.index_summary import format_summary
+
+    u1 = beam_along([1, -1, 0], [0, 0, 1], 17.0)
+    u2 = u1 @ rodrigues([1, 1, 1], 180.0).T
+    r = index_pattern(measured(spots_of(0.35447, "fcc", u1, share=0.6), spots_of(0.35447, "fcc", u2, share=0.4)),
+                      co_tables)
+    text = format_summary(r, image="twin.tif")
+    assert "crystals in the pattern: 2" in text and "relationship 1-2: Sigma-3 twin on (" in text
+    assert "Relationship 1&ndash;2: Sigma-3 twin" in crystals_html(r)
+    doc = json.loads(json.dumps(result_json(r, image="twin.tif")))
+    assert [c["phase"] for c in doc["crystals"]] == ["Co-fcc", "Co-fcc"]
+    (rel,) = doc["orientation_relationships"]
+    assert rel["crystals"] == [0, 1] and rel["name"] == "Sigma-3 twin"
+    assert family(rel["parallel_planes"][0]) == [1, 1, 1] and len(rel["parallel_directions"]) == 2
+    assert rel["deviation_deg"] < 0.5
+    png = tmp_path / "o.png"
+    write_index_overlay(np.zeros((512, 512), np.uint16), r, png)
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -181,7 +181,9 @@ def accuracy_report(*, progress=None) -> dict:
     rows = []
     found = named = 0
     t2 = t1 = 0.0
-    by_rel: dict[str, list[int]] = {}
+    by_rel: dict[str, list[int]] = {}  # [frames, second crystal found, relationship named]
+    by_share: dict[str, list[int]] = {}
+    by_conf: dict[str, list[int]] = {}
     for i, (m, truth, conf) in enumerate(two):
         tables = _tables(truth.phases)
         r, d2, d1 = _timed(m, tables)
@@ -191,10 +193,12 @@ def accuracy_report(*, progress=None) -> dict:
         good_name = ok and rel == truth.relationship
         found += ok
         named += good_name
-        st = by_rel.setdefault(truth.relationship, [0, 0, 0])
-        st[0] += 1
-        st[1] += ok
-        st[2] += good_name
+        for table, key in ((by_rel, truth.relationship), (by_share, f"{truth.shares[1]:.2f}"),
+                           (by_conf, "confounders" if conf else "clean")):
+            st = table.setdefault(key, [0, 0, 0])
+            st[0] += 1
+            st[1] += ok
+            st[2] += good_name
         rows.append(f"{truth.relationship:22s} {truth.phases[0]:7s}{list(truth.zones[0])!s:12s} {truth.phases[1]:7s}"
                     f"{list(truth.zones[1])!s:12s} share2 {truth.shares[1]:.2f} {'conf' if conf else '    '} -> "
                     + ", ".join(f"{c.phase_name} {list(c.solution.zone_axis)}" for c in r.crystals) + f" | {rel}")
@@ -215,6 +219,7 @@ def accuracy_report(*, progress=None) -> dict:
     return {"rows": rows, "n_two_crystal": len(two), "n_single_crystal": len(one),
             "second_crystal_found": found / len(two), "relationship_named": named / len(two),
             "false_second_crystal": false2 / len(one), "by_relationship": by_rel,
+            "by_second_crystal_share": by_share, "by_confounders": by_conf,
             "time_ratio_two_crystal_frames": t2 / t1, "time_ratio_single_crystal_frames": s2 / s1,
             "time_ratio_all": (t2 + s2) / (t1 + s1), "mean_index_s_max1": (t1 + s1) / (len(two) + len(one)),
             "mean_index_s_max2": (t2 + s2) / (len(two) + len(one))}

@@ -34,6 +34,20 @@ def crystal_label(result, k: int) -> str:
     return f"crystal {k + 1}: {c.phase_name} {_zone(c.solution)}{role}"
 
 
+def _lookalike_notes(result) -> list[str]:
+    """Further crystals that the best solution's look-alike list names as competitors."""
+    out = []
+    if not result.crystals or result.best is None:
+        return out
+    for k, c in enumerate(result.crystals[1:], start=2):
+        for lk in result.best.lookalikes:
+            if lk.phase_name == c.phase_name and sorted(map(abs, lk.zone_axis)) == sorted(map(abs, c.solution.zone_axis)):
+                out.append(f"the look-alike {lk.phase_name} {_zone(c.solution)} listed above is crystal {k} of this "
+                           "pattern, not a competing explanation of the same spots")
+                break
+    return out
+
+
 def crystals_lines(result) -> list[str]:
     """Lines for the terminal summary: the crystals, the relationships, the notes of the multi-crystal search."""
     out: list[str] = []
@@ -50,7 +64,7 @@ def crystals_lines(result) -> list[str]:
         if result.cross_double_diffraction:
             out.append(f"  {len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                        "(g1 + g2), not a further crystal")
-    notes = list(result.notes)
+    notes = list(result.notes) + _lookalike_notes(result)
     if notes:
         out.append("")
         out += [f"note: {n}" for n in notes]
@@ -73,13 +87,14 @@ def crystals_html(result) -> str:
                      + "".join(rows) + "</table>")
         for r in result.orientation_relationships:
             a, b = r.crystals
-            parts.append(f"<p><b>Relationship {a + 1}&ndash;{b + 1}: {e(r.name if r.name != 'none' else 'none of the standard ones')}"
+            parts.append(f"<p style='font-size:13px'><b>Relationship {a + 1}&ndash;{b + 1}: {e(r.name if r.name != 'none' else 'none of the standard ones')}"
                          f".</b> {e(r.text)}" + (f" <i>Source: {e(r.source)}</i>" if r.source else "") + "</p>")
         if result.cross_double_diffraction:
-            parts.append(f"<p>{len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
+            parts.append(f"<p style='font-size:13px'>{len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                          "(g<sub>1</sub> + g<sub>2</sub>), not a further crystal.</p>")
-    if result.notes:
-        parts.append("<ul>" + "".join(f"<li>{e(n)}</li>" for n in result.notes) + "</ul>")
+    notes = list(result.notes) + _lookalike_notes(result)
+    if notes:
+        parts.append("<ul>" + "".join(f"<li>{e(n)}</li>" for n in notes) + "</ul>")
     return "".join(parts)
 
 
