@@ -51,8 +51,11 @@ logger = logging.getLogger(__name__)
 MIN_OWN_SPOTS = 4
 #: ... carrying at least this share of the residual spot weight.
 MIN_RESIDUAL_SHARE = 0.5
-#: ... and miss at most this share of its own predicted kinematic intensity.
+#: ... and miss at most this share of its own predicted kinematic intensity (a weak crystal's faint
+#: reflections go undetected: with :data:`MANY_OWN_SPOTS` or more own spots, :data:`MAX_ABSENT_MANY`).
 MAX_ABSENT = 0.45
+MANY_OWN_SPOTS = 8
+MAX_ABSENT_MANY = 0.7
 #: Scale tolerance of a further crystal relative to crystal 1's refined scale (cell parameters of
 #: alloyed or strained phases): 1.5 %.
 SCALE_TOL = 0.015
@@ -191,6 +194,7 @@ def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: li
         return None
     scored.sort(key=lambda t: -t[3])
     best = scored[0]
+    rivals = []
     # an ordered phase wins over its disordered form in the same orientation only through superlattice
     # spots of its own (spots the disordered form cannot explain)
     for alt in scored[1:]:
@@ -201,7 +205,13 @@ def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: li
             if len(extra) < 2:
                 best = alt
             break
-    return best
+    for alt in scored:  # other phases that explain the same residual spots nearly as well
+        if (alt[0].phase_name != best[0].phase_name and alt[3] >= 0.8 * best[3]
+                and len(set(alt[1]) & set(best[1])) >= 0.8 * len(best[1]) and alt[0].phase_name not in [r[0] for r in rivals]):
+            pair = ordered_pair(tables.table(best[0].phase_name).phase, tables.table(alt[0].phase_name).phase)
+            if pair is None:
+                rivals.append((alt[0].phase_name, f"[{_zone(alt[0])}]", alt[0].scale_error_pct))
+    return best + (tuple(rivals),)
 
 
 def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.ndarray, rel_pos_tol: float):
@@ -312,14 +322,15 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                              f"{'the crystal' if len(sols) == 1 else 'the crystals'} found, and no further crystal among "
                              "the candidate phases fits them (another phase, or a high-index zone?)")
             break
-        sol, own, share, _merit, absent = found
+        sol, own, share, _merit, absent, rivals = found
         total = float(spots.intensity.sum())
         own_int = float(spots.intensity[list(own)].sum()) / total if own and total > 0 else 0.0
         # an ordered crystal on a disordered one of the same orientation owns only its superlattice spots,
         # weak by nature: their number and rows decide, not their intensity
         superlattice = any(ordered_pair(tables.table(sol.phase_name).phase, tables.table(o.phase_name).phase)
                            is not None and _misorientation_deg(sol, o, tables) < 3.0 for o in sols)
-        ok = (len(own) >= MIN_OWN_SPOTS and share >= MIN_RESIDUAL_SHARE and absent <= MAX_ABSENT
+        max_absent = MAX_ABSENT_MANY if len(own) >= MANY_OWN_SPOTS else MAX_ABSENT
+        ok = (len(own) >= MIN_OWN_SPOTS and share >= MIN_RESIDUAL_SHARE and absent <= max_absent
               and (own_int >= MIN_INTENSITY_SHARE or superlattice) and _n_rows(spots.v_px[list(own)]) >= 2)
         if not ok:
             if len(own) >= 3:
@@ -327,7 +338,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                              f"crystal {len(sols)}; the best further crystal, {sol.phase_name} [{_zone(sol)}], explains "
                              f"{'only ' if share < MIN_RESIDUAL_SHARE or len(own) < MIN_OWN_SPOTS else ''}{len(own)} of "
                              f"them ({100 * share:.0f} % of their weight, {100 * own_int:.1f} % of all spot intensity"
-                             f"{f', {100 * absent:.0f} % of its own pattern missing' if absent > MAX_ABSENT else ''}): too "
+                             f"{f', {100 * absent:.0f} % of its own pattern missing' if absent > max_absent else ''}): too "
                              "weak to decide, not reported as a crystal (a longer exposure, or the aperture on the "
                              "second crystal alone, would decide)")
             elif len(residual) >= MIN_OWN_SPOTS and res_share >= 0.1:
@@ -337,6 +348,12 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
             break
         sols.append(sol)
         roles.append("second" if len(sols) == 2 else "third")
+        if rivals:
+            notes.append(f"crystal {len(sols)} could also be " + ", ".join(
+                f"{n} {z}" + (f" (scale {e:+.1f} % from crystal 1's)" if e is not None else "") for n, z, e in rivals)
+                + f": its {len(own)} own spots fit {sol.phase_name} [{_zone(sol)}] best"
+                + (f" (scale {sol.scale_error_pct:+.1f} %)" if sol.scale_error_pct is not None else "")
+                + ", but the phase of this crystal is not decided by this pattern (a second zone, or EDS, decides)")
         explained = explained | _explained_mask(sol, spots)
         dd = _cross_dd(spots, measured, sols, ~explained, rel_pos_tol)
         for d in dd:
