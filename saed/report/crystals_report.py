@@ -108,7 +108,10 @@ def spots_of_further_crystals(result) -> set[int]:
 
 
 def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> list[tuple[str, str]]:
-    """Draw crystals 2 and 3 (simulated pattern, their spots, labels) on `ax`; legend entries (text, colour)."""
+    """Draw crystals 2 and 3 (simulated pattern, their spots, labels) on `ax`; legend entries (text, colour).
+
+    `label_text(spot)` gives the label of an IndexedSpot as the overlay writes it.
+    """
     from matplotlib.patches import Circle, Rectangle
 
     x0, x1, y0, y1 = bounds
@@ -137,7 +140,7 @@ def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> lis
             if not shared and s.hkl is not None:
                 rr = math.hypot(s.x_px - cx, s.y_px - cy) or 1.0
                 ux, uy = (s.x_px - cx) / rr, (s.y_px - cy) / rr
-                ax.annotate(label_text(s.hkil if s.hkil is not None else s.hkl), (s.x_px, s.y_px),
+                ax.annotate(label_text(s), (s.x_px, s.y_px),
                             xytext=(-ux * 15, uy * 15), textcoords="offset points", ha="center", va="center",
                             fontsize=7.5, color=col, bbox=dict(boxstyle="round,pad=0.1", fc=(0, 0, 0, 0.55), ec="none"))
         legend.append((crystal_label(result, k) + " (squares, rings, labels)", col))

@@ -140,7 +140,8 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
     leg = [(KIND_STYLE[k][2], KIND_STYLE[k][0]) for k in kinds_here]
     if best is not None:
         leg.append(("simulated pattern (square ~ sqrt I)", PRED_COLOUR))
-    leg += draw_further_crystals(ax, result, bounds=(x0, x1, y0, y1), unit=unit, label_text=index_text)
+    leg += draw_further_crystals(ax, result, bounds=(x0, x1, y0, y1), unit=unit,
+                                 label_text=lambda spot: spot_label(spot, "mathtext"))
     for i, (text, col) in enumerate(leg):
         ax.text(0.985, 0.015 + 0.032 * i, text, transform=ax.transAxes, ha="right", va="bottom", color=col,
                 fontsize=8.5, bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.6), ec="none"))
