@@ -308,7 +308,6 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     scale = float(best.scale_inv_nm_per_px)
     explained = _explained_mask(best, spots)
     cross: list[CrossDoubleDiffraction] = []
-    n = len(spots.r_px)
     while len(sols) < max_crystals:
         residual = np.flatnonzero(~explained)
         if len(residual) < MIN_RESIDUAL_SPOTS:
@@ -393,8 +392,8 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
             notes.append(f"{sols[1].phase_name} [{_zone(sols[1])}] explains every spot the first-ranked solution "
                          f"{sols[0].phase_name} [{_zone(sols[0])}] explains, and more: reported as one crystal")
             sols, roles = sols[1:], ["best"] + roles[2:]
-            cross = [d for d in cross if max(d.crystal_a, d.crystal_b) < len(sols) + 1 and min(d.crystal_a, d.crystal_b) > 0]
-            cross = [CrossDoubleDiffraction(d.spot_index, d.crystal_a - 1, d.hkl_a, d.crystal_b - 1, d.hkl_b) for d in cross]
+            cross = [CrossDoubleDiffraction(d.spot_index, d.crystal_a - 1, d.hkl_a, d.crystal_b - 1, d.hkl_b)
+                     for d in cross if min(d.crystal_a, d.crystal_b) > 0]
     if len(sols) == 2 and roles[1] == "second":
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
         same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0
