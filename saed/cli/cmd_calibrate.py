@@ -35,7 +35,8 @@ def add_arguments(p):
     p.add_argument("--camera-length", type=positive_float, metavar="MM",
                    help="the microscope's nominal camera-length setting, mm: files the calibration under it and "
                         "reports the measured value beside it")
-    p.add_argument("--center", type=finite_float, nargs=2, metavar=("X", "Y"), help="pattern centre hint, pixels")
+    p.add_argument("--centre", "--center", dest="center", type=finite_float, nargs=2, metavar=("X", "Y"),
+                   help="pattern centre hint, pixels (either spelling)")
     add_image_arguments(p, positional=False)
     p.add_argument("--no-ellipse", action="store_true", help="assume circular rings (do not fit the ellipse)")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
