@@ -1,0 +1,73 @@
+"""Start-up benchmarks: ``saed`` run as a new process, as a microscopist runs it, against ``python -c pass``.
+
+The cold case runs ``saed index`` on a 2048 x 2048 16-bit TIFF against 10 phases in a fresh
+interpreter, so imports, the phase tables, the image and the match are all in the time (issue 15.13:
+target 1.0 s wall). The floor is a fresh interpreter that does nothing, measured in the same run; the
+difference is what saed costs. The operating system's file cache is warm after the first run, as it
+is at the microscope PC.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+from saed.bench import Case
+
+#: The phases of the cold index case (the same 10 as the in-process index benchmark).
+TEN_PHASES = ("Co-fcc", "Co-hcp", "Cr", "Ni", "Ni3Al", "NiAl", "Fe-bcc", "Al", "Si", "Ti-hcp")
+
+
+def _env() -> dict:
+    """The environment of the child: this saed first on the path (a checkout runs its own code)."""
+    import saed
+
+    root = str(Path(saed.__file__).resolve().parent.parent)
+    env = dict(os.environ)
+    env["PYTHONPATH"] = root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
+
+
+def _index_setup():
+    import tifffile
+
+    from saed.crystal import builtin_phase
+    from saed.index.synthetic import synthetic_image
+    from saed.synth.detector import BeamStop
+
+    size = 2048
+    scale = 13.0 / (0.46 * size)
+    pat, _ = synthetic_image(builtin_phase("Co-hcp"), [2, -1, -1, 0], scale_inv_nm_per_px=scale, in_plane_rotation_deg=23.0,
+                             tilt_deg=0.4, tilt_toward_hkl=[0, 1, 1], image_shape=(size, size), max_g_inv_nm=13.0,
+                             double_diffraction=0.004, beam_stop=BeamStop(angle_deg=225, width_px=40), rng=5)
+    tmp = tempfile.TemporaryDirectory()
+    path = Path(tmp.name) / "pattern.tif"
+    tifffile.imwrite(path, pat.image)
+    argv = [sys.executable, "-m", "saed", "index", str(path), "--scale", repr(scale), "--json", str(Path(tmp.name) / "r.json")]
+    for name in TEN_PHASES:
+        argv += ["--phase", name]
+    return tmp, argv, _env()
+
+
+def _parser_setup():
+    return None, [sys.executable, "-m", "saed", "index", "--help"], _env()
+
+
+def _run(state):
+    _tmp, argv, env = state
+    done = subprocess.run(argv, env=env, capture_output=True, text=True)
+    if done.returncode != 0:
+        raise RuntimeError(f"{' '.join(argv[2:5])} failed: {done.stderr.strip()[-300:]}")
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    return {"load_1min": round(load, 2)}
+
+
+def cases():
+    return [
+        Case("start-up: cold 'saed index' 2048x2048, 10 phases", _index_setup, _run, target_s=1.0, repeat=5,
+             floor="python", note="a new process per run; load_1min = the machine's load meanwhile"),
+        Case("start-up: cold 'saed index --help' (imports + parser)", _parser_setup, _run, repeat=7, floor="python"),
+    ]
