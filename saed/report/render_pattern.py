@@ -77,15 +77,19 @@ def write_detector_image(det: DetectorImage, path) -> None:
 # ---------------------------------------------------------------------- labels
 def index_text(idx, *, math_text: bool = True) -> str:
     """Indices with overbars for negatives (mathtext), e.g. 1-1 1 -> 1 bar-1 1; plain '1-11' if not math."""
-    from saed.crystal.notation import indices_text
+    vals = [int(v) for v in np.asarray(idx).ravel()]
+    if not math_text:
+        sep = " " if any(abs(v) >= 10 for v in vals) else ""
+        return sep.join(str(v) for v in vals)
+    parts = [(r"\bar{%d}" % -v) if v < 0 else str(v) for v in vals]
+    sep = r"\,"
+    return "$" + sep.join(parts) + "$"
 
-    return indices_text(idx, "mathtext" if math_text else "plain")
 
-
-def pattern_title(zp: ZonePattern, units=None) -> str:
+def pattern_title(zp: ZonePattern) -> str:
     z = zp.zone_axis_4 if zp.is_hexagonal else zp.zone_axis
     t = f"{zp.phase.name}  [{index_text(z)}]"
-    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm * (units.per_nm if units else 1):g} {units.label() if units else 'nm'}"
+    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm:g} nm"
     if zp.tilted:
         lab = index_text(_plane_shown(zp, zp.tilt_toward_hkl))
         t += f", beam tilted {zp.tilt_deg:g}\N{DEGREE SIGN} toward {lab}"
@@ -115,7 +119,7 @@ def nice_scale_bar_inv_nm(span_inv_nm: float) -> float:
 # ---------------------------------------------------------------------- the diagram
 def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, extent_inv_nm: float | None = None,
                  label_max_g_inv_nm: float | None = None, font_size: float = 7.0, legend: bool = True,
-                 scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True, units=None) -> None:
+                 scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True) -> None:
     """Draw the labelled diagram of `zp` on a matplotlib axes (detector frame, y downward).
 
     Parameters
@@ -154,7 +158,14 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         t = np.linspace(0, 2 * math.pi, 361)
         ax.plot(r * np.cos(t), r * np.sin(t), ls=":", lw=0.8, color="#1b7837", zorder=1)
 
-    # Labels beside spots, pushed radially outward.
+    ax.set_xlim(-ext, ext)
+    ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
+    ax.set_aspect("equal")
+    ax.set_xticks([])
+    ax.set_yticks([])
+
+    # Labels beside spots: every spot up to lab_max whose label fits without covering another label or spot
+    # (shortest first, so the spots one measures are labelled before the crowded outer ones).
     i1 = None
     try:
         i1, _ = zp.shortest_allowed_pair()
@@ -163,30 +174,24 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     g1 = float(zp.g_inv_nm[i1]) if i1 is not None else ext
     lab_max = label_max_g_inv_nm if label_max_g_inv_nm is not None else min(2.3 * g1, ext)
     hkls = zp.hkil if zp.is_hexagonal else zp.hkl
-    in_frame = (np.abs(xy) <= 0.86 * ext).all(axis=1)
-    for i in np.flatnonzero((kind_allowed | kind_dd) & in_frame & (zp.g_inv_nm <= lab_max * (1 + 1e-9))):
-        x, y = xy[i]
-        rr = math.hypot(x, y)
-        ux, uy = (x / rr, y / rr) if rr > 0 else (0.0, 1.0)
-        r_pts = 0.5 * math.sqrt(0.5 * base if kind_dd[i] else size[i])  # marker radius, points
-        _label(ax, x, y, ux, uy, r_pts + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
+    in_frame = (np.abs(xy) <= 0.92 * ext).all(axis=1)
+    shown = np.flatnonzero(kind_allowed | kind_dd | kind_holz)
+    r_marker = np.where(kind_dd, 0.5 * np.sqrt(0.5 * base), 0.5 * np.sqrt(size))  # marker radius, points
+    r_marker[kind_holz] = 0.5 * np.sqrt(0.4 * base + size[kind_holz] * 0.5)
+    todo = np.flatnonzero((kind_allowed | kind_dd) & in_frame & (zp.g_inv_nm <= lab_max * (1 + 1e-9)))
+    todo = todo[np.argsort(zp.g_inv_nm[todo], kind="stable")]
+    placer = _LabelPlacer(ax, xy[shown], r_marker[shown], centre_r_pts=0.5 * math.sqrt(2.2 * base))
+    for i in todo:
+        placer.place(xy[i], float(r_marker[i]) + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
-        _label(ax, 0.0, 0.0, 0.0, 1.0, 0.5 * math.sqrt(2.2 * base) + 1.5, "0000" if zp.is_hexagonal else "000", font_size, "black")
+        placer.place(np.zeros(2), 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
+    ax._saed_labels = placer.placed  # (text, bbox) of the labels drawn, for tests
 
-    ax.set_xlim(-ext, ext)
-    ax.set_ylim(ext, -ext)  # rows increase downward, as on the detector
-    ax.set_aspect("equal")
-    ax.set_xticks([])
-    ax.set_yticks([])
     if scale_bar:
-        from saed.crystal.notation import UNITS
-
-        u = units or UNITS["nm"]
-        bar_shown = nice_scale_bar_inv_nm(u.reciprocal(2 * ext))  # a round length in the display unit
-        bar = bar_shown * u.per_nm
+        bar = nice_scale_bar_inv_nm(2 * ext)
         x0, y0 = -0.92 * ext, 0.9 * ext
         ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
-        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar_shown:g} {u.label()}$^{{-1}}$", ha="center", va="bottom",
+        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
                 fontsize=font_size, zorder=6)
     if legend:
         handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)")]
@@ -203,18 +208,70 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         ax.legend(handles=handles, loc="upper right", fontsize=font_size, framealpha=0.9)
 
 
-def _label(ax, x, y, ux, uy, off_pts, text, font_size, color) -> None:
-    """Text beside a marker at (x, y), pushed `off_pts` points outward along (ux, uy) (data y grows downward)."""
-    ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
-    va = "top" if uy > 0.35 else "bottom" if uy < -0.35 else "center"
-    ax.annotate(text, (x, y), xytext=(ux * off_pts, -uy * off_pts), textcoords="offset points", ha=ha, va=va,
-                fontsize=font_size, color=color, zorder=5, annotation_clip=True)
+def _renderer(fig):
+    """A renderer to measure text with (an Agg canvas is attached to a bare Figure first)."""
+    if not hasattr(fig.canvas, "get_renderer"):
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        FigureCanvasAgg(fig)
+    return fig.canvas.get_renderer()
+
+
+class _LabelPlacer:
+    """Puts each label beside its spot where it covers no label placed before, no other spot and stays in the axes.
+
+    Tried in turn: radially outward, then the other seven compass directions; a label that fits nowhere
+    is left out (the spot stays drawn). Boxes are in display pixels.
+    """
+
+    def __init__(self, ax, spots_xy, spots_r_pts, *, centre_r_pts: float):
+        self.ax = ax
+        self.renderer = _renderer(ax.figure)
+        self.pt_px = ax.figure.dpi / 72.0
+        centres = ax.transData.transform(np.vstack([np.reshape(spots_xy, (-1, 2)), [[0.0, 0.0]]]))
+        radii = np.append(np.asarray(spots_r_pts, float), centre_r_pts) * self.pt_px
+        self.spots = np.column_stack([centres - radii[:, None], centres + radii[:, None]])  # x0 y0 x1 y1
+        self.frame = ax.get_window_extent(self.renderer)
+        self.placed: list[tuple[str, tuple[float, float, float, float]]] = []
+
+    def _free(self, box, anchor) -> bool:
+        x0, y0, x1, y1 = box
+        f = self.frame
+        if x0 < f.x0 or x1 > f.x1 or y0 < f.y0 or y1 > f.y1:
+            return False
+        for _, (a0, b0, a1, b1) in self.placed:
+            if x0 < a1 and a0 < x1 and y0 < b1 and b0 < y1:
+                return False
+        s = self.spots
+        hit = (x0 < s[:, 2]) & (s[:, 0] < x1) & (y0 < s[:, 3]) & (s[:, 1] < y1)
+        own = np.hypot((s[:, 0] + s[:, 2]) / 2 - anchor[0], (s[:, 1] + s[:, 3]) / 2 - anchor[1]) < 0.5
+        return not np.any(hit & ~own)
+
+    def place(self, xy, off_pts, text, font_size, color) -> bool:
+        anchor = self.ax.transData.transform([xy])[0]
+        rr = math.hypot(*xy)
+        out = (xy[0] / rr, -xy[1] / rr) if rr > 0 else (0.0, 1.0)  # display y grows upward, data y downward
+        base = math.degrees(math.atan2(out[1], out[0]))
+        for turn in (0, 45, -45, 90, -90, 135, -135, 180):
+            t = math.radians(base + turn)
+            ux, uy = math.cos(t), math.sin(t)
+            ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
+            va = "bottom" if uy > 0.35 else "top" if uy < -0.35 else "center"
+            ann = self.ax.annotate(text, tuple(xy), xytext=(ux * off_pts, uy * off_pts), textcoords="offset points",
+                                   ha=ha, va=va, fontsize=font_size, color=color, zorder=5, annotation_clip=False)
+            bb = ann.get_window_extent(self.renderer)
+            box = (bb.x0 - 0.5, bb.y0 - 0.5, bb.x1 + 0.5, bb.y1 + 0.5)
+            if self._free(box, anchor):
+                self.placed.append((text, box))
+                return True
+            ann.remove()
+        return False
 
 
 def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
                    extent_inv_nm: float | None = None, label_max_g_inv_nm: float | None = None,
-                   size_in: float = 7.0, dpi: int = 150, units=None) -> None:
-    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically); lengths in `units` (nm)."""
+                   size_in: float = 7.0, dpi: int = 150) -> None:
+    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically)."""
     p = Path(path)
     if p.suffix.lower() not in _FIGURE_SUFFIXES:
         raise InputError(f"{path}: the diagram must end in .png, .pdf or .svg")
@@ -224,8 +281,8 @@ def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
     fig = Figure(figsize=(size_in, size_in))
     ax = fig.add_axes([0.03, 0.03, 0.94, 0.9])
     draw_pattern(ax, zp, in_plane_rotation_deg=in_plane_rotation_deg, extent_inv_nm=extent_inv_nm,
-                 label_max_g_inv_nm=label_max_g_inv_nm, font_size=8.0, units=units)
-    fig.suptitle(pattern_title(zp, units), fontsize=11, y=0.975)
+                 label_max_g_inv_nm=label_max_g_inv_nm, font_size=8.0)
+    fig.suptitle(pattern_title(zp), fontsize=11, y=0.975)
     buf = io.BytesIO()
     fig.savefig(buf, format=p.suffix.lower()[1:], dpi=dpi)
     atomic_write_bytes(p, buf.getvalue())
