@@ -1,6 +1,6 @@
-"""Reference sheets for a microscope session: one PDF page per phase.
+"""Reference sheets for a microscope session: one or two A4 pages per phase, readable when printed.
 
-Each page has the phase's standard zone-axis patterns side by side at one common scale (so the
+Each sheet has the phase's standard zone-axis patterns side by side at one common scale (so the
 eye compares spacings between panels directly), each with its two shortest reflections, their
 d-spacings, the ratio R2/R1 and the angle, and the zone map of the orientation triangle with the
 tilt angles between neighbouring zones.
@@ -21,10 +21,13 @@ from saed.report.files import atomic_write_bytes, check_writable
 from saed.report.render_pattern import draw_pattern, index_text
 from saed.report.render_zonemap import draw_zone_map
 
-__all__ = ["atlas_page", "write_atlas", "MAX_PANELS", "CAPTION_PT", "SPOT_PT"]
+__all__ = ["atlas_page", "atlas_pages", "write_atlas", "MAX_PANELS", "PANELS_PER_PAGE", "CAPTION_PT", "SPOT_PT"]
 
-#: Patterns per page (3 x 3 grid); families beyond these are on the zone map only.
+#: Patterns per phase (on up to two sheets); families beyond these are on the zone map only.
 MAX_PANELS = 9
+#: Patterns per sheet, in ROWS x COLS: large enough that the spot labels fit at a printable size.
+ROWS, COLS = 2, 3
+PANELS_PER_PAGE = ROWS * COLS
 
 _PAGE_IN = (11.69, 8.27)  # A4 landscape
 
@@ -50,7 +53,7 @@ def _zone_text(phase: Phase, uvw) -> str:
     return "$[" + index_text(direction_to_4(uvw) if phase.is_hexagonal else uvw).strip("$") + "]$"
 
 
-def _caption_lines(phase: Phase, summ, *, max_chars: int) -> list[str]:
+def _caption_lines(phase: Phase, summ) -> list[str]:
     """g1 / g2 with d, ratio and angle, and the DD spots (at most DD_SHOWN, the rest counted), each line short."""
     lines = [f"g1 {_hkl_text(phase, summ.g1_hkl)}   d = {summ.d1_nm:.4f} nm",
              f"g2 {_hkl_text(phase, summ.g2_hkl)}   d = {summ.d2_nm:.4f} nm",
@@ -63,14 +66,10 @@ def _caption_lines(phase: Phase, summ, *, max_chars: int) -> list[str]:
     return lines
 
 
-def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
-               progress=None):
-    """A matplotlib Figure: the reference sheet of `phase` (see the module notes)."""
-    from matplotlib.figure import Figure
-
-    from saed.simulate.families import shortest_allowed_g_inv_nm, standard_patterns, zone_label
-    from saed.simulate.zone import zone_pattern
-    from saed.simulate.zonemap import zone_map
+def atlas_pages(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
+                progress=None) -> list:
+    """matplotlib Figures: the reference sheets of `phase`, PANELS_PER_PAGE patterns per page (module notes)."""
+    from saed.simulate.families import shortest_allowed_g_inv_nm, standard_patterns
 
     std = standard_patterns(phase, max_index=max_index, voltage_kv=voltage_kv)
     if not std:
@@ -78,39 +77,73 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
     shown = std[:MAX_PANELS]
     g_min = shortest_allowed_g_inv_nm(phase)
     ext = max(2.2 * g_min, 1.15 * max(s.g2_inv_nm for _, _, s in shown))
+    chunks = [shown[i:i + PANELS_PER_PAGE] for i in range(0, len(shown), PANELS_PER_PAGE)]
+    total = len(shown) + len(chunks)
+    done = [0]
+
+    def tick(text):
+        done[0] += 1
+        if progress:
+            progress(done[0], total, text)
+
+    figs = []
+    for n, chunk in enumerate(chunks):
+        rest = std[len(shown):] if n == len(chunks) - 1 else []
+        figs.append(_page(phase, chunk, rest, ext=ext, max_index=max_index, voltage_kv=voltage_kv,
+                          thickness_nm=thickness_nm, page=(n + 1, len(chunks)), tick=tick))
+    return figs
+
+
+def atlas_page(phase: Phase, **kw):
+    """The first reference sheet of `phase` (a matplotlib Figure); see :func:`atlas_pages`."""
+    return atlas_pages(phase, **kw)[0]
+
+
+def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv: float, thickness_nm: float,
+          page: tuple[int, int], tick):
+    from matplotlib.figure import Figure
+
+    from saed.simulate.families import zone_label
+    from saed.simulate.zone import zone_pattern
+    from saed.simulate.zonemap import zone_map
+
     fig = Figure(figsize=_PAGE_IN)
     lat = phase.lattice
     cell = f"a = {lat.a_nm:.5f} nm" + (f", c = {lat.c_nm:.5f} nm" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
-    fig.text(0.02, 0.965, f"{phase.name}", fontsize=16, weight="bold", va="center")
-    fig.text(0.02 + 0.012 * (len(phase.name) + 2), 0.965,
-             f"{phase.structure_type or ''}   {phase.space_group_short} ({phase.space_group_number})   {cell}   "
-             f"kinematic, {voltage_kv:g} kV, foil {thickness_nm:g} nm, all patterns at one scale",
-             fontsize=10, va="center")
-    fig.text(0.015, 0.045, "g1 points to the right in every pattern and is labelled there.   Filled disc: allowed "
-             "(area grows with intensity).   Open square: forbidden, present only by double diffraction (DD).",
+    head = fig.text(0.015, 0.965, f"{phase.name}", fontsize=16, weight="bold", va="center")
+    sheet = f"   sheet {page[0]} of {page[1]}" if page[1] > 1 else ""
+    fig.text(0.015, 0.925, f"{phase.structure_type or ''}   {phase.space_group_short} ({phase.space_group_number})   "
+             f"{cell}   kinematic, {voltage_kv:g} kV, foil {thickness_nm:g} nm, all patterns at one scale{sheet}",
+             fontsize=CAPTION_PT + 1, va="center")
+    del head
+    fig.text(0.015, 0.045, "g1 points to the right in every pattern.   Filled disc: allowed (area grows with "
+             "intensity).   Open square: forbidden, present only by double diffraction (DD).",
              fontsize=CAPTION_PT, color="#333333", va="center")
-    fig.text(0.015, 0.02, "Numbers on the zone map: tilt between neighbouring zones, and the row of spots both "
-             "zones share (the tilt axis).", fontsize=CAPTION_PT, color="#333333", va="center")
+    fig.text(0.015, 0.02, "Spots are labelled where the label fits.   Numbers on the zone map: tilt between "
+             "neighbouring zones, and the row of spots both share (the tilt axis).",
+             fontsize=CAPTION_PT, color="#333333", va="center")
 
-    total = len(shown) + 1
-    zm_ax = fig.add_axes([0.015, 0.10, 0.29, 0.78])
+    zm_ax = fig.add_axes([0.015, 0.10, 0.27, 0.74])
     draw_zone_map(zm_ax, zone_map(phase, max_index=max(max_index, 2), region="triangle"), font_size=ZONE_MAP_PT)
     zm_ax.set_title("zone map (stereographic, orientation triangle)", fontsize=CAPTION_PT)
-    if progress:
-        progress(1, total, f"{phase.name} zone map")
+    left_out = getattr(zm_ax, "_saed_joint_labels_left_out", 0)
+    if left_out:
+        fig.text(0.015, 0.085, f"{left_out} tilt label{'s' if left_out != 1 else ''} on the map left out for room",
+                 fontsize=CAPTION_PT, color="#333333", va="center")
+    tick(f"{phase.name} zone map")
 
-    # A 3 x 3 grid right of the map, laid out in inches so that the type sizes stay printable: per row a
-    # title, a square pattern and a caption of up to CAPTION_LINES lines.
+    # A grid of ROWS x COLS right of the map, laid out in inches so that the type sizes stay printable:
+    # per row a title, a square pattern and a caption of up to CAPTION_LINES lines.
     page_w, page_h = _PAGE_IN
-    grid_left_in, grid_right_in = 0.325 * page_w, 0.99 * page_w
-    grid_top_in, grid_bottom_in = 0.925 * page_h, 0.095 * page_h
-    col_w_in = (grid_right_in - grid_left_in) / 3
-    row_h_in = (grid_top_in - grid_bottom_in) / 3
+    grid_left_in, grid_right_in = 0.30 * page_w, 0.995 * page_w
+    grid_top_in, grid_bottom_in = 0.895 * page_h, 0.085 * page_h
+    col_w_in = (grid_right_in - grid_left_in) / COLS
+    row_h_in = (grid_top_in - grid_bottom_in) / ROWS
     line_in = CAPTION_PT * 1.25 / 72
-    title_in = TITLE_PT * 1.5 / 72
-    side_in = min(row_h_in - title_in - CAPTION_LINES * line_in - 0.06, col_w_in - 0.1)
-    for k, (fam, zp0, summ) in enumerate(shown):
-        r, c = divmod(k, 3)
+    title_in = TITLE_PT * 1.6 / 72
+    side_in = min(row_h_in - title_in - CAPTION_LINES * line_in - 0.1, col_w_in - 0.15)
+    for k, (fam, _zp0, summ) in enumerate(panels):
+        r, c = divmod(k, COLS)
         cx_in = grid_left_in + (c + 0.5) * col_w_in
         top_in = grid_top_in - r * row_h_in
         ax = fig.add_axes([(cx_in - side_in / 2) / page_w, (top_in - title_in - side_in) / page_h,
@@ -120,22 +153,20 @@ def atlas_page(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, t
         i1 = int(np.flatnonzero(np.all(zp.hkl == np.array(summ.g1_hkl), axis=1))[0])
         turn = -math.degrees(math.atan2(zp.xy_inv_nm[i1, 1], zp.xy_inv_nm[i1, 0]))  # g1 to the right
         draw_pattern(ax, zp, in_plane_rotation_deg=turn, extent_inv_nm=ext, label_max_g_inv_nm=1.02 * summ.g2_inv_nm,
-                     font_size=SPOT_PT, legend=False, scale_bar=(k == 0), marker_scale=0.55, label_centre=False)
-        ax.set_title(_zone_text(phase, fam.representative), fontsize=TITLE_PT, pad=2)
-        fig.text(cx_in / page_w, (top_in - title_in - side_in - 0.03) / page_h,
-                 "\n".join(_caption_lines(phase, summ, max_chars=int(col_w_in * 72 / (0.6 * CAPTION_PT)))),
+                     font_size=SPOT_PT, legend=False, scale_bar=(k == 0), marker_scale=0.7, label_centre=False)
+        ax.set_title(_zone_text(phase, fam.representative), fontsize=TITLE_PT, pad=3)
+        fig.text(cx_in / page_w, (top_in - title_in - side_in - 0.05) / page_h, "\n".join(_caption_lines(phase, summ)),
                  fontsize=CAPTION_PT, ha="center", va="top", linespacing=1.25)
-        if progress:
-            progress(k + 2, total, f"{phase.name} {zone_label(phase, fam.representative)}")
-    if len(std) > len(shown):
-        more = ", ".join(zone_label(phase, f.representative) for f, _, _ in std[len(shown):])
-        fig.text(0.985, 0.02, f"also on the map: {more}", fontsize=CAPTION_PT, ha="right", va="center", color="#333333")
+        tick(f"{phase.name} {zone_label(phase, fam.representative)}")
+    if rest:
+        more = ", ".join(zone_label(phase, f.representative) for f, _, _ in rest)
+        fig.text(0.985, 0.925, f"also on the map: {more}", fontsize=CAPTION_PT, ha="right", va="center", color="#333333")
     return fig
 
 
 def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
                 progress=None) -> int:
-    """Write one page per phase to the PDF `path` (atomically); returns the number of pages."""
+    """Write the sheets of every phase (one or two pages each) to the PDF `path` (atomically); returns the page count."""
     p = Path(path)
     if p.suffix.lower() != ".pdf":
         raise InputError(f"{path}: the atlas is a PDF: give a file name ending in .pdf")
@@ -149,9 +180,9 @@ def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, 
             def sub(done, total, text, _i=i):
                 if progress:
                     progress(_i * 100 + int(100 * done / max(total, 1)), 100 * len(phases), text)
-            fig = atlas_page(phase, max_index=max_index, voltage_kv=voltage_kv, thickness_nm=thickness_nm,
-                             progress=sub)
-            pdf.savefig(fig)
-            n += 1
+            for fig in atlas_pages(phase, max_index=max_index, voltage_kv=voltage_kv, thickness_nm=thickness_nm,
+                                   progress=sub):
+                pdf.savefig(fig)
+                n += 1
     atomic_write_bytes(p, buf.getvalue())
     return n

@@ -164,6 +164,12 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     ax.set_xticks([])
     ax.set_yticks([])
 
+    if scale_bar:
+        bar = nice_scale_bar_inv_nm(2 * ext)
+        x0, y0 = -0.92 * ext, 0.9 * ext
+        ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
+        bar_text = ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
+                           fontsize=font_size, zorder=6)
     # Labels beside spots: every spot up to lab_max whose label fits without covering another label or spot
     # (shortest first, so the spots one measures are labelled before the crowded outer ones).
     i1 = None
@@ -181,18 +187,14 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     todo = np.flatnonzero((kind_allowed | kind_dd) & in_frame & (zp.g_inv_nm <= lab_max * (1 + 1e-9)))
     todo = todo[np.argsort(zp.g_inv_nm[todo], kind="stable")]
     placer = _LabelPlacer(ax, xy[shown], r_marker[shown], centre_r_pts=0.5 * math.sqrt(2.2 * base))
+    if scale_bar:
+        placer.reserve(bar_text.get_window_extent(placer.renderer))
     for i in todo:
         placer.place(xy[i], float(r_marker[i]) + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
         placer.place(np.zeros(2), 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
-    ax._saed_labels = placer.placed  # (text, bbox) of the labels drawn, for tests
+    ax._saed_labels = [p for p in placer.placed if p[0]]  # (text, bbox) of the labels drawn, for tests
 
-    if scale_bar:
-        bar = nice_scale_bar_inv_nm(2 * ext)
-        x0, y0 = -0.92 * ext, 0.9 * ext
-        ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
-        ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
-                fontsize=font_size, zorder=6)
     if legend:
         handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)")]
         if kind_dd.any():
@@ -220,8 +222,8 @@ def _renderer(fig):
 class _LabelPlacer:
     """Puts each label beside its spot where it covers no label placed before, no other spot and stays in the axes.
 
-    Tried in turn: radially outward, then the other seven compass directions; a label that fits nowhere
-    is left out (the spot stays drawn). Boxes are in display pixels.
+    Tried in turn: radially outward, then the other seven compass directions, then a little farther out;
+    a label that fits nowhere is left out (the spot stays drawn). Boxes are in display pixels.
     """
 
     def __init__(self, ax, spots_xy, spots_r_pts, *, centre_r_pts: float):
@@ -233,6 +235,10 @@ class _LabelPlacer:
         self.spots = np.column_stack([centres - radii[:, None], centres + radii[:, None]])  # x0 y0 x1 y1
         self.frame = ax.get_window_extent(self.renderer)
         self.placed: list[tuple[str, tuple[float, float, float, float]]] = []
+
+    def reserve(self, bbox) -> None:
+        """Keep labels off this display box (a scale bar, a legend)."""
+        self.placed.append(("", (bbox.x0, bbox.y0, bbox.x1, bbox.y1)))
 
     def _free(self, box, anchor) -> bool:
         x0, y0, x1, y1 = box
@@ -252,11 +258,12 @@ class _LabelPlacer:
         rr = math.hypot(*xy)
         out = (xy[0] / rr, -xy[1] / rr) if rr > 0 else (0.0, 1.0)  # display y grows upward, data y downward
         base = math.degrees(math.atan2(out[1], out[0]))
-        for turn in (0, 45, -45, 90, -90, 135, -135, 180):
+        tries = [(turn, 1.0) for turn in (0, 45, -45, 90, -90, 135, -135, 180)] + [(0, 2.5), (45, 2.5), (-45, 2.5)]
+        for turn, far in tries:
             t = math.radians(base + turn)
-            ux, uy = math.cos(t), math.sin(t)
-            ha = "left" if ux > 0.35 else "right" if ux < -0.35 else "center"
-            va = "bottom" if uy > 0.35 else "top" if uy < -0.35 else "center"
+            ux, uy = far * math.cos(t), far * math.sin(t)
+            ha = "left" if ux > 0.35 * far else "right" if ux < -0.35 * far else "center"
+            va = "bottom" if uy > 0.35 * far else "top" if uy < -0.35 * far else "center"
             ann = self.ax.annotate(text, tuple(xy), xytext=(ux * off_pts, uy * off_pts), textcoords="offset points",
                                    ha=ha, va=va, fontsize=font_size, color=color, zorder=5, annotation_clip=False)
             bb = ann.get_window_extent(self.renderer)
