@@ -20,6 +20,7 @@ MIN_PT = 7.5
 
 def _texts(fig):
     r = _renderer(fig)
+    fig.canvas.draw()  # lay out everything as the saved page has it
     return [(t, t.get_window_extent(r)) for t in fig.findobj(Text) if t.get_visible() and t.get_text().strip()]
 
 

@@ -37,6 +37,7 @@ def draw_zone_map(ax, zm: ZoneMap, *, font_size: float = 7.0, show_rows: bool = 
         ax.set_xlim(zm.xy[:, 0].min() - pad, zm.xy[:, 0].max() + pad)
         ax.set_ylim(zm.xy[:, 1].min() - pad, zm.xy[:, 1].max() + pad)
     ax.set_aspect("equal")
+    ax.apply_aspect()  # the axes box as it will be drawn, so that text boxes measured now stay true
     # Zone labels first (above the point, else below / beside), then the joints' angle and row along their
     # arc where they cover no other text; a joint label that fits nowhere is left out, and counted.
     boxes = _TextBoxes(ax)
