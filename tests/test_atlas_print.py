@@ -11,7 +11,7 @@ from matplotlib.text import Text
 
 from saed.crystal import builtin_phase
 from saed.report.render_atlas import atlas_pages
-from saed.report.render_pattern import _renderer
+from saed.report.text_boxes import renderer_of as _renderer
 
 #: Smallest type on a printed A4 sheet, points (common practice for figure labels in print: 7-8 pt and up;
 #: the issue names 5.5-6.5 pt as unreadable).

@@ -13,7 +13,8 @@ import pytest
 from matplotlib.text import Text
 
 from saed.crystal import builtin_phase
-from saed.report.render_pattern import _renderer, diagram_figure
+from saed.report.render_pattern import diagram_figure
+from saed.report.text_boxes import renderer_of as _renderer
 from saed.simulate.zone import zone_pattern
 
 

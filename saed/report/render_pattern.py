@@ -21,6 +21,7 @@ import numpy as np
 
 from saed.errors import InputError
 from saed.report.files import atomic_write_bytes, check_writable
+from saed.report.text_boxes import renderer_of as _renderer
 from saed.simulate.detector import FULL_WELL_COUNTS, DetectorImage
 from saed.simulate.zone import ZonePattern, rotate_xy
 
@@ -216,15 +217,6 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
         placer.place(np.zeros(2), 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
     ax._saed_labels = [p for p in placer.placed if p[0]]  # (text, bbox) of the labels drawn, for tests
 
-
-
-def _renderer(fig):
-    """A renderer to measure text with (an Agg canvas is attached to a bare Figure first)."""
-    if not hasattr(fig.canvas, "get_renderer"):
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-        FigureCanvasAgg(fig)
-    return fig.canvas.get_renderer()
 
 
 class _LabelPlacer:

@@ -12,6 +12,7 @@ from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.errors import InputError
 from saed.report.files import atomic_write_bytes, check_writable
 from saed.report.render_pattern import index_text
+from saed.report.text_boxes import TextBoxes
 from saed.simulate.zonemap import ZoneMap, great_circle_arc_xy
 
 __all__ = ["draw_zone_map", "render_zone_map"]
@@ -40,7 +41,7 @@ def draw_zone_map(ax, zm: ZoneMap, *, font_size: float = 7.0, show_rows: bool = 
     ax.apply_aspect()  # the axes box as it will be drawn, so that text boxes measured now stay true
     # Zone labels first (above the point, else below / beside), then the joints' angle and row along their
     # arc where they cover no other text; a joint label that fits nowhere is left out, and counted.
-    boxes = _TextBoxes(ax)
+    boxes = TextBoxes(ax)
     for (x, y), text in zip(zm.xy, lab):
         zl = "$[" + text.strip("$") + "]$"
         for dx, dy, ha, va in ((0, 1, "center", "bottom"), (0, -1, "center", "top"), (1, 0, "left", "center"),
@@ -65,26 +66,6 @@ def draw_zone_map(ax, zm: ZoneMap, *, font_size: float = 7.0, show_rows: bool = 
     ax.set_yticks([])
     for s in ax.spines.values():
         s.set_visible(False)
-
-
-class _TextBoxes:
-    """Texts on an axes that must not overlap each other: each is kept only where its box is free (display px)."""
-
-    def __init__(self, ax):
-        from saed.report.render_pattern import _renderer
-
-        self.ax = ax
-        self.renderer = _renderer(ax.figure)
-        self.boxes: list = []
-
-    def try_text(self, x, y, text, *, offset_pts=(0.0, 0.0), **kw) -> bool:
-        t = self.ax.annotate(text, (x, y), xytext=offset_pts, textcoords="offset points", annotation_clip=False, **kw)
-        bb = t.get_window_extent(self.renderer)
-        if any(bb.x0 < b.x1 and b.x0 < bb.x1 and bb.y0 < b.y1 and b.y0 < bb.y1 for b in self.boxes):
-            t.remove()
-            return False
-        self.boxes.append(bb)
-        return True
 
 
 def render_zone_map(zm: ZoneMap, path, *, size_in: float = 7.0, dpi: int = 150, title: str | None = None) -> None:
