@@ -57,12 +57,18 @@ def _parser_setup():
 
 
 def _run(state):
+    import resource
+
     _tmp, argv, env = state
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     done = subprocess.run(argv, env=env, capture_output=True, text=True)
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if done.returncode != 0:
         raise RuntimeError(f"{' '.join(argv[2:5])} failed: {done.stderr.strip()[-300:]}")
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
-    return {"load_1min": round(load, 2)}
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    # CPU seconds of the child: on a loaded machine the wall time waits for the cores, the CPU time does not
+    return {"child_cpu_s (last run)": round(cpu, 3), "load_1min": round(load, 2)}
 
 
 def cases():
