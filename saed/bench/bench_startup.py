@@ -12,13 +12,10 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
-import tempfile
 from pathlib import Path
 
 from saed.bench import Case
-
-#: The phases of the cold index case (the same 10 as the in-process index benchmark).
-TEN_PHASES = ("Co-fcc", "Co-hcp", "Cr", "Ni", "Ni3Al", "NiAl", "Fe-bcc", "Al", "Si", "Ti-hcp")
+from saed.bench.bench_index import TEN_PHASES  # the same 10 phases as the in-process index benchmark
 
 
 def _env() -> dict:
@@ -32,20 +29,9 @@ def _env() -> dict:
 
 
 def _index_setup():
-    import tifffile
+    from saed.bench.bench_index import speed_pattern_file
 
-    from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_image
-    from saed.synth.detector import BeamStop
-
-    size = 2048
-    scale = 13.0 / (0.46 * size)
-    pat, _ = synthetic_image(builtin_phase("Co-hcp"), [2, -1, -1, 0], scale_inv_nm_per_px=scale, in_plane_rotation_deg=23.0,
-                             tilt_deg=0.4, tilt_toward_hkl=[0, 1, 1], image_shape=(size, size), max_g_inv_nm=13.0,
-                             double_diffraction=0.004, beam_stop=BeamStop(angle_deg=225, width_px=40), rng=5)
-    tmp = tempfile.TemporaryDirectory()
-    path = Path(tmp.name) / "pattern.tif"
-    tifffile.imwrite(path, pat.image)
+    tmp, path, scale = speed_pattern_file()
     argv = [sys.executable, "-m", "saed", "index", str(path), "--scale", repr(scale), "--json", str(Path(tmp.name) / "r.json")]
     for name in TEN_PHASES:
         argv += ["--phase", name]
