@@ -6,6 +6,7 @@ recalled there).
 """
 
 import itertools
+import re
 
 import numpy as np
 import pytest
@@ -37,7 +38,7 @@ def mixture(tmp_path_factory):
 def test_terminal_has_one_row_per_ring_with_d_phase_and_hkl(mixture, capsys):
     path, _ = mixture
     assert main(["rings", str(path), "--scale", f"{SCALE:.7f}", "--phase", "Co"]) == 0
-    out = capsys.readouterr().out
+    out = re.sub("(\\d)\u0305", r"-\1", capsys.readouterr().out)  # overbars (UTF-8 terminal) -> minus signs
     lines = out.splitlines()
     head = next(i for i, line in enumerate(lines) if "d meas nm" in line and "hkl" in line)
     rows = {}

@@ -19,6 +19,8 @@ DESCRIPTION = (
 )
 USAGE = "saed ratio D1 D2 ANGLE [options]\n       saed ratio --radii R1 R2 ANGLE [--camera-constant NM_MM] [options]"
 ORDER = 25
+#: Inputs and outputs (argument names), checked before any work (saed.files.all_or_nothing).
+FILES = (("phase",), ("json",))
 
 #: Look-alike lines printed per solution (the JSON has them all).
 SHOWN_LOOKALIKES = 3

@@ -53,10 +53,10 @@ def _zone_text(phase: Phase, uvw) -> str:
     return "$[" + index_text(direction_to_4(uvw) if phase.is_hexagonal else uvw).strip("$") + "]$"
 
 
-def _caption_lines(phase: Phase, summ) -> list[str]:
+def _caption_lines(phase: Phase, summ, u) -> list[str]:
     """g1 / g2 with d, ratio and angle, and the DD spots (at most DD_SHOWN, the rest counted), each line short."""
-    lines = [f"g1 {_hkl_text(phase, summ.g1_hkl)}   d = {summ.d1_nm:.4f} nm",
-             f"g2 {_hkl_text(phase, summ.g2_hkl)}   d = {summ.d2_nm:.4f} nm",
+    lines = [f"g1 {_hkl_text(phase, summ.g1_hkl)}   d = {u.length_text(summ.d1_nm)} {u.label()}",
+             f"g2 {_hkl_text(phase, summ.g2_hkl)}   d = {u.length_text(summ.d2_nm)} {u.label()}",
              f"R2/R1 = {summ.ratio:.3f}   angle {summ.angle_deg:.1f}\N{DEGREE SIGN}"]
     dd = list(summ.double_diffraction_hkl)
     if dd:
@@ -67,7 +67,7 @@ def _caption_lines(phase: Phase, summ) -> list[str]:
 
 
 def atlas_pages(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
-                progress=None) -> list:
+                progress=None, units=None) -> list:
     """matplotlib Figures: the reference sheets of `phase`, PANELS_PER_PAGE patterns per page (module notes)."""
     from saed.simulate.families import shortest_allowed_g_inv_nm, standard_patterns
 
@@ -90,7 +90,7 @@ def atlas_pages(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, 
     for n, chunk in enumerate(chunks):
         rest = std[len(shown):] if n == len(chunks) - 1 else []
         figs.append(_page(phase, chunk, rest, ext=ext, max_index=max_index, voltage_kv=voltage_kv,
-                          thickness_nm=thickness_nm, page=(n + 1, len(chunks)), tick=tick))
+                          thickness_nm=thickness_nm, page=(n + 1, len(chunks)), tick=tick, units=units))
     return figs
 
 
@@ -100,8 +100,11 @@ def atlas_page(phase: Phase, **kw):
 
 
 def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv: float, thickness_nm: float,
-          page: tuple[int, int], tick):
+          page: tuple[int, int], tick, units=None):
     from matplotlib.figure import Figure
+
+    from saed.crystal.notation import UNITS
+    from saed.crystal.phase import space_group_in_cell
 
     from saed.simulate.families import zone_label
     from saed.simulate.zone import zone_pattern
@@ -109,11 +112,14 @@ def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv:
 
     fig = Figure(figsize=_PAGE_IN)
     lat = phase.lattice
-    cell = f"a = {lat.a_nm:.5f} nm" + (f", c = {lat.c_nm:.5f} nm" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
+    u = units or UNITS["nm"]
+    cell = f"a = {u.length_text(lat.a_nm, 5)} {u.label()}" + (
+        f", c = {u.length_text(lat.c_nm, 5)} {u.label()}" if abs(lat.c_nm - lat.a_nm) > 1e-9 else "")
     head = fig.text(0.015, 0.965, f"{phase.name}", fontsize=16, weight="bold", va="center")
     sheet = f"   sheet {page[0]} of {page[1]}" if page[1] > 1 else ""
-    fig.text(0.015, 0.925, f"{phase.structure_type or ''}   {phase.space_group_short} ({phase.space_group_number})   "
-             f"{cell}   kinematic, {voltage_kv:g} kV, foil {thickness_nm:g} nm, all patterns at one scale{sheet}",
+    fig.text(0.015, 0.925, f"{phase.structure_type or ''}   {space_group_in_cell(phase)} ({phase.space_group_number})   "
+             f"{cell}   kinematic, {voltage_kv:g} kV, foil {u.length(thickness_nm):g} {u.label()}, all patterns at one "
+             f"scale{sheet}",
              fontsize=CAPTION_PT + 1, va="center")
     del head
     fig.text(0.015, 0.045, "g1 points to the right in every pattern.   Filled disc: allowed (area grows with "
@@ -153,9 +159,9 @@ def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv:
         i1 = int(np.flatnonzero(np.all(zp.hkl == np.array(summ.g1_hkl), axis=1))[0])
         turn = -math.degrees(math.atan2(zp.xy_inv_nm[i1, 1], zp.xy_inv_nm[i1, 0]))  # g1 to the right
         draw_pattern(ax, zp, in_plane_rotation_deg=turn, extent_inv_nm=ext, label_max_g_inv_nm=1.02 * summ.g2_inv_nm,
-                     font_size=SPOT_PT, legend=False, scale_bar=(k == 0), marker_scale=0.7, label_centre=False)
+                     font_size=SPOT_PT, legend=False, scale_bar=(k == 0), marker_scale=0.7, label_centre=False, units=u)
         ax.set_title(_zone_text(phase, fam.representative), fontsize=TITLE_PT, pad=3)
-        fig.text(cx_in / page_w, (top_in - title_in - side_in - 0.05) / page_h, "\n".join(_caption_lines(phase, summ)),
+        fig.text(cx_in / page_w, (top_in - title_in - side_in - 0.05) / page_h, "\n".join(_caption_lines(phase, summ, u)),
                  fontsize=CAPTION_PT, ha="center", va="top", linespacing=1.25)
         tick(f"{phase.name} {zone_label(phase, fam.representative)}")
     if rest:
@@ -165,7 +171,7 @@ def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv:
 
 
 def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, thickness_nm: float = 50.0,
-                progress=None) -> int:
+                progress=None, units=None) -> int:
     """Write the sheets of every phase (one or two pages each) to the PDF `path` (atomically); returns the page count."""
     p = Path(path)
     if p.suffix.lower() != ".pdf":
@@ -181,7 +187,7 @@ def write_atlas(phases, path, *, max_index: int = 2, voltage_kv: float = 200.0, 
                 if progress:
                     progress(_i * 100 + int(100 * done / max(total, 1)), 100 * len(phases), text)
             for fig in atlas_pages(phase, max_index=max_index, voltage_kv=voltage_kv, thickness_nm=thickness_nm,
-                                   progress=sub):
+                                   progress=sub, units=units):
                 pdf.savefig(fig)
                 n += 1
     atomic_write_bytes(p, buf.getvalue())

@@ -78,19 +78,15 @@ def write_detector_image(det: DetectorImage, path) -> None:
 # ---------------------------------------------------------------------- labels
 def index_text(idx, *, math_text: bool = True) -> str:
     """Indices with overbars for negatives (mathtext), e.g. 1-1 1 -> 1 bar-1 1; plain '1-11' if not math."""
-    vals = [int(v) for v in np.asarray(idx).ravel()]
-    if not math_text:
-        sep = " " if any(abs(v) >= 10 for v in vals) else ""
-        return sep.join(str(v) for v in vals)
-    parts = [(r"\bar{%d}" % -v) if v < 0 else str(v) for v in vals]
-    sep = r"\,"
-    return "$" + sep.join(parts) + "$"
+    from saed.crystal.notation import indices_text
+
+    return indices_text(idx, "mathtext" if math_text else "plain")
 
 
-def pattern_title(zp: ZonePattern) -> str:
+def pattern_title(zp: ZonePattern, units=None) -> str:
     z = zp.zone_axis_4 if zp.is_hexagonal else zp.zone_axis
     t = f"{zp.phase.name}  [{index_text(z)}]"
-    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm:g} nm"
+    t += f"   {zp.voltage_kv:g} kV, t = {zp.thickness_nm * (units.per_nm if units else 1):g} {units.label() if units else 'nm'}"
     if zp.tilted:
         lab = index_text(_plane_shown(zp, zp.tilt_toward_hkl))
         t += f", beam tilted {zp.tilt_deg:g}\N{DEGREE SIGN} toward {lab}"
@@ -121,7 +117,7 @@ def nice_scale_bar_inv_nm(span_inv_nm: float) -> float:
 def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, extent_inv_nm: float | None = None,
                  label_max_g_inv_nm: float | None = None, font_size: float = 7.0, legend: bool = True,
                  scale_bar: bool = True, marker_scale: float = 1.0, label_centre: bool = True,
-                 first_labels=()) -> None:
+                 first_labels=(), units=None) -> None:
     """Draw the labelled diagram of `zp` on a matplotlib axes (detector frame, y downward).
 
     Parameters
@@ -169,11 +165,15 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     ax.set_yticks([])
 
     if scale_bar:
-        bar = nice_scale_bar_inv_nm(2 * ext)
+        from saed.crystal.notation import UNITS
+
+        u = units or UNITS["nm"]
+        bar_shown = nice_scale_bar_inv_nm(u.reciprocal(2 * ext))  # a round length in the display unit
+        bar = bar_shown * u.per_nm
         x0, y0 = -0.92 * ext, 0.9 * ext
         ax.plot([x0, x0 + bar], [y0, y0], color="black", lw=2.5, solid_capstyle="butt", zorder=6)
-        bar_text = ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar:g} nm$^{{-1}}$", ha="center", va="bottom",
-                           fontsize=font_size, zorder=6)
+        bar_text = ax.text(x0 + bar / 2, y0 - 0.045 * ext, f"{bar_shown:g} {u.label()}$^{{-1}}$", ha="center",
+                           va="bottom", fontsize=font_size, zorder=6)
     if legend:
         handles = [Line2D([], [], ls="", marker="o", color="#1f3b73", markeredgecolor="black", label="allowed (ZOLZ)")]
         if kind_dd.any():
@@ -214,7 +214,8 @@ def draw_pattern(ax, zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, ext
     for i in todo:
         placer.place(xy[i], float(r_marker[i]) + 1.5, index_text(hkls[i]), font_size, "#b2182b" if kind_dd[i] else "black")
     if label_centre:
-        placer.place(np.zeros(2), 0.5 * math.sqrt(2.2 * base) + 1.5, "000", font_size, "black")
+        placer.place(np.zeros(2), 0.5 * math.sqrt(2.2 * base) + 1.5, "0000" if zp.is_hexagonal else "000", font_size,
+                     "black")
     ax._saed_labels = [p for p in placer.placed if p[0]]  # (text, bbox) of the labels drawn, for tests
 
 
@@ -278,8 +279,8 @@ class _LabelPlacer:
 
 def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
                    extent_inv_nm: float | None = None, label_max_g_inv_nm: float | None = None,
-                   size_in: float = 7.0, dpi: int = 150) -> None:
-    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically).
+                   size_in: float = 7.0, dpi: int = 150, units=None) -> None:
+    """Write the labelled diagram of `zp` to PNG, PDF or SVG (atomically); lengths in `units` (nm).
 
     Every spot in view whose label fits is labelled (up to `label_max_g_inv_nm` if given); the +x / +y
     directions of the detector frame are marked, g1 and g2 drawn as arrows, and their d-spacings, the
@@ -290,16 +291,20 @@ def render_diagram(zp: ZonePattern, path, *, in_plane_rotation_deg: float = 0.0,
         raise InputError(f"{path}: the diagram must end in .png, .pdf or .svg")
     check_writable(p)
     fig = diagram_figure(zp, in_plane_rotation_deg=in_plane_rotation_deg, extent_inv_nm=extent_inv_nm,
-                         label_max_g_inv_nm=label_max_g_inv_nm, size_in=size_in)
+                         label_max_g_inv_nm=label_max_g_inv_nm, size_in=size_in, units=units)
     buf = io.BytesIO()
     fig.savefig(buf, format=p.suffix.lower()[1:], dpi=dpi)
     atomic_write_bytes(p, buf.getvalue())
 
 
 def diagram_figure(zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, extent_inv_nm: float | None = None,
-                   label_max_g_inv_nm: float | None = None, size_in: float = 7.0):
+                   label_max_g_inv_nm: float | None = None, size_in: float = 7.0, units=None):
     """The matplotlib Figure of :func:`render_diagram`."""
     from matplotlib.figure import Figure
+
+    from saed.crystal.notation import UNITS
+
+    u = units or UNITS["nm"]
 
     h = size_in + 0.9
     fig = Figure(figsize=(size_in, h))
@@ -319,17 +324,17 @@ def diagram_figure(zp: ZonePattern, *, in_plane_rotation_deg: float = 0.0, exten
             first.append((0.42 * xy[i], f"g{k}", "#b35806", (-xy[i][1], xy[i][0]) if k == 1 else (xy[i][1], -xy[i][0])))
     draw_pattern(ax, zp, in_plane_rotation_deg=in_plane_rotation_deg, extent_inv_nm=ext,
                  label_max_g_inv_nm=label_max_g_inv_nm if label_max_g_inv_nm is not None else ext * 1.5,
-                 font_size=8.0, first_labels=first)
+                 font_size=8.0, first_labels=first, units=u)
     _frame_arrows(ax)
-    fig.suptitle(pattern_title(zp), fontsize=11, y=1 - 0.2 / h)
+    fig.suptitle(pattern_title(zp, units), fontsize=11, y=1 - 0.2 / h)
     if pair is not None:
         i1, i2 = pair
         hk = zp.hkil if zp.is_hexagonal else zp.hkl
         v1, v2 = zp.xy_inv_nm[i1], zp.xy_inv_nm[i2]
         ang = math.degrees(math.acos(max(-1.0, min(1.0, float(v1 @ v2) / (np.linalg.norm(v1) * np.linalg.norm(v2))))))
         d1, d2 = 1.0 / float(zp.g_inv_nm[i1]), 1.0 / float(zp.g_inv_nm[i2])
-        fig.text(0.5, 0.5 / h, f"g1 = {index_text(hk[i1])}   d1 = {d1:.4f} nm        g2 = {index_text(hk[i2])}   "
-                 f"d2 = {d2:.4f} nm\nR2/R1 = d1/d2 = {d1 / d2:.3f}        angle between g1 and g2 = "
+        fig.text(0.5, 0.5 / h, f"g1 = {index_text(hk[i1])}   d1 = {u.length_text(d1)} {u.label()}        "
+                 f"g2 = {index_text(hk[i2])}   d2 = {u.length_text(d2)} {u.label()}\nR2/R1 = d1/d2 = {d1 / d2:.3f}        angle between g1 and g2 = "
                  f"{ang:.1f}\N{DEGREE SIGN}", ha="center", va="center", fontsize=9.5, linespacing=1.4)
     fig.text(0.5, 0.15 / h, "Spots are labelled where the label fits.   x: detector columns (right), y: rows "
              "(down), as on the recorded image.", ha="center", va="center", fontsize=8, color="#333333")
