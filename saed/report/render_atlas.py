@@ -55,8 +55,8 @@ def _zone_text(phase: Phase, uvw) -> str:
 
 def _caption_lines(phase: Phase, summ, u) -> list[str]:
     """g1 / g2 with d, ratio and angle, and the DD spots (at most DD_SHOWN, the rest counted), each line short."""
-    lines = [f"g1 {_hkl_text(phase, summ.g1_hkl)}   d = {u.length_text(summ.d1_nm)} {u.label()}",
-             f"g2 {_hkl_text(phase, summ.g2_hkl)}   d = {u.length_text(summ.d2_nm)} {u.label()}",
+    lines = [f"g1 {_hkl_text(phase, summ.g1_hkl)}   d {u.length_text(summ.d1_nm)} {u.label()}",
+             f"g2 {_hkl_text(phase, summ.g2_hkl)}   d {u.length_text(summ.d2_nm)} {u.label()}",
              f"R2/R1 = {summ.ratio:.3f}   angle {summ.angle_deg:.1f}\N{DEGREE SIGN}"]
     dd = list(summ.double_diffraction_hkl)
     if dd:
