@@ -1,21 +1,27 @@
 """Electron physics: wavelength, interaction constant, detector scale.
 
-All constants come from :mod:`scipy.constants` (CODATA). Units are in the
-names; radians never leave a function body.
+The constants are CODATA 2022, pinned here (the values :mod:`scipy.constants` 1.15+ carries; the
+tests compare them) rather than imported: importing scipy.constants loads scipy's array-API layer,
+a few tenths of a second of start-up for commands that need no other part of scipy. Units are in the names; radians never leave a function body.
 """
 
 from __future__ import annotations
 
 import math
 
-from scipy import constants as _c
+from types import SimpleNamespace
 
 from saed.errors import InputError
+
+#: CODATA version of the constants below.
+CODATA_VERSION = "2022"
+#: h, e and c are exact in the SI since 2019; m_e is CODATA 2022 (NIST, https://physics.nist.gov/cuu/Constants/).
+_c = SimpleNamespace(h=6.62607015e-34, e=1.602176634e-19, c=299792458.0, m_e=9.1093837139e-31)
 
 #: Highest accelerating voltage accepted, kV (the largest TEMs run at 3 MV).
 MAX_VOLTAGE_KV = 3000.0
 
-#: Electron rest energy m0 c^2 in keV (CODATA, scipy.constants).
+#: Electron rest energy m0 c^2 in keV (CODATA 2022).
 REST_ENERGY_KEV = _c.m_e * _c.c**2 / _c.e / 1e3
 
 

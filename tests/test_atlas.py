@@ -78,7 +78,7 @@ def test_zone_map_joins_only_neighbours():
 def test_atlas_pdf_one_page_per_phase(tmp_path, capsys):
     out = tmp_path / "sheets.pdf"
     rc = main(["atlas", "Co-fcc", "Co-hcp", "--max-index", "1", "--out", str(out)])
-    assert rc == 0 and "2 pages" in capsys.readouterr().out
+    assert rc == 0 and "2 pages" in capsys.readouterr().out  # one sheet each at --max-index 1
     data = out.read_bytes()
     assert data[:5] == b"%PDF-"
     assert data.count(b"/Type /Page\n") + data.count(b"/Type /Page ") + data.count(b"/Type /Page>") >= 2

@@ -22,3 +22,44 @@ def test_same_name_different_crystal_keeps_both(tmp_path):
     )
     names = [p.name for p in phases_from_args(argparse.Namespace(phase=["Co-hcp", str(cif)]))]
     assert len(names) == 2 and names[0] == "Co-hcp" and str(cif) in names[1]
+
+
+# ---------------------------------------------------------------------- issue 15.12: option spellings
+def _subparsers():
+    from saed.cli import build_parser
+
+    parser = build_parser()
+    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    return sub.choices
+
+
+def test_every_centre_option_takes_both_spellings():
+    # Outputs spell it "centre"; users type either. Every command with one spelling has the other, same dest.
+    seen = 0
+    for name, p in _subparsers().items():
+        opts = {o: a for a in p._actions for o in a.option_strings}
+        if "--center" in opts or "--centre" in opts:
+            seen += 1
+            assert opts.get("--center") is opts.get("--centre") is not None, name
+            args = p.parse_args(_minimal_argv(name) + ["--centre", "12", "34"])
+            assert list(args.center) == [12.0, 34.0], name
+    assert seen >= 5  # index, spots, calibrate, rings, batch, simulate at least take a centre
+
+
+def _minimal_argv(name):
+    return {"batch": ["x.npy", "--out", "o.csv"], "simulate": ["Cu", "--zone", "0", "0", "1"]}.get(name, ["x.tif"])
+
+
+def test_bare_element_phase_means_every_phase_of_it(capsys):
+    names = [p.name for p in phases_from_args(argparse.Namespace(phase=["Co"]))]
+    assert names == ["Co-fcc", "Co-hcp"]
+    err = capsys.readouterr().err
+    assert "Co-fcc, Co-hcp" in err and err.count("\n") == 1
+    # an exact built-in name is not expanded, and an unknown one is still refused by name
+    assert [p.name for p in phases_from_args(argparse.Namespace(phase=["Cu", "co"]))] == ["Cu", "Co-fcc", "Co-hcp"]
+    import pytest
+
+    from saed.errors import PhaseError
+
+    with pytest.raises(PhaseError, match="Qq"):
+        phases_from_args(argparse.Namespace(phase=["Qq"]))

@@ -115,12 +115,26 @@ def test_tilt_command_table_and_json(tmp_path, capsys):
     assert doc["target"]["angle_from_beam_deg"] == pytest.approx(math.degrees(math.acos(3 / math.sqrt(10))), abs=1e-3)
 
 
-def test_tilt_out_of_range_says_so_exit_2(capsys):
-    rc = _code(["tilt", "Co-fcc", "--zone", "0", "1", "1", "--target", "0", "0", "1", "--alpha-axis", "90"])
+def test_tilt_out_of_range_is_an_answer_exit_0(capsys, tmp_path):
+    # [011] -> [001] is 45 deg (cos = 1/sqrt2, written here), beyond a +/-30 / +/-25 deg holder.
+    argv = ["tilt", "Co-fcc", "--zone", "0", "1", "1", "--target", "0", "0", "1", "--alpha-axis", "90"]
+    rc = _code(argv)
     cap = capsys.readouterr()
-    assert rc == 2
-    assert "outside the holder range" in cap.err and "nearest reachable" in cap.err
-    assert cap.err.count("\n") == 1
+    assert rc == 0 and cap.err == ""
+    assert "OUT OF RANGE" in cap.out and "Not reachable" in cap.out
+    assert "outside the holder range" in cap.out and "nearest reachable" in cap.out
+    out_json = tmp_path / "plan.json"
+    assert _code(argv + ["--json", str(out_json)]) == 0
+    capsys.readouterr()
+    t = json.loads(out_json.read_text())["target"]
+    assert not t["reachable"] and t["angle_from_beam_deg"] == pytest.approx(45.0, abs=1e-3)
+    near = t["nearest_reachable"]
+    assert near["reachable"] and near["angle_from_beam_deg"] <= 30.0 + 25.0
+    # JSON on stdout stays parseable; the note goes to stderr, one line
+    assert _code(argv + ["--json", "-"]) == 0
+    cap = capsys.readouterr()
+    assert json.loads(cap.out)["target"]["reachable"] is False
+    assert "not reachable" in cap.err and cap.err.count("\n") == 1
 
 
 def test_tilt_from_index_json(tmp_path, capsys):

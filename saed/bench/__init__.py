@@ -31,7 +31,7 @@ class Case:
 
     ``target_s``: the goal for the median (None: no goal, report only); ``per``: a count the
     median is divided by for a rate (e.g. patterns per call); ``floor``: which floor the ratio
-    uses ('image2048' or 'image256').
+    uses ('image2048', 'image256', or 'python' for cold-process cases: ``python -c pass``).
     """
 
     name: str
@@ -95,7 +95,16 @@ def _floor_fn(state):
     ndimage.gaussian_filter(img, 2.0)
 
 
+def _python_floor_fn(_state):
+    import subprocess
+    import sys
+
+    subprocess.run([sys.executable, "-c", "pass"], check=True)
+
+
 def floor_case(kind: str = "image2048") -> Case:
+    if kind == "python":  # a cold interpreter that does nothing: the floor of every cold-process case
+        return Case("floor: cold process 'python -c pass'", lambda: None, _python_floor_fn, repeat=9)
     size = {"image2048": 2048, "image256": 256}[kind]
     return Case(f"floor: read {size}x{size} uint16 TIFF + 1 Gaussian pass", lambda: _floor_setup(size), _floor_fn,
                 repeat=9 if size > 1000 else 51)

@@ -255,10 +255,21 @@ def _speed_setup(phase_names):
     from saed.calibration import Calibration
     from saed.crystal import builtin_names, builtin_phase
     from saed.index import prepare_phases
+
+    names = builtin_names() if phase_names is None else phase_names
+    tmp, path, scale = speed_pattern_file()
+    tables = prepare_phases([builtin_phase(n) for n in names], max_g_inv_nm=16.0)
+    return tmp, path, tables, Calibration(scale, 200.0)
+
+
+def speed_pattern_file():
+    """(TemporaryDirectory, path, scale): the 2048 x 2048 16-bit TIFF of the speed cases (Co-hcp [2-1-10], beam stop)."""
+    import tifffile
+
+    from saed.crystal import builtin_phase
     from saed.index.synthetic import synthetic_image
     from saed.synth.detector import BeamStop
 
-    names = builtin_names() if phase_names is None else phase_names
     size = 2048
     scale = 13.0 / (0.46 * size)
     pat, _ = synthetic_image(builtin_phase("Co-hcp"), [2, -1, -1, 0], scale_inv_nm_per_px=scale, in_plane_rotation_deg=23.0,
@@ -267,8 +278,7 @@ def _speed_setup(phase_names):
     tmp = tempfile.TemporaryDirectory()
     path = Path(tmp.name) / "pattern.tif"
     tifffile.imwrite(path, pat.image)
-    tables = prepare_phases([builtin_phase(n) for n in names], max_g_inv_nm=16.0)
-    return tmp, path, tables, Calibration(scale, 200.0)
+    return tmp, path, scale
 
 
 def _speed_fn(state):

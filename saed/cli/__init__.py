@@ -29,23 +29,35 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
-def _commands():
+def _command_names() -> list[str]:
+    """Names of the subcommands, from the cmd_*.py file names (nothing imported)."""
     import saed.cli as pkg
 
-    mods = []
-    for info in pkgutil.iter_modules(pkg.__path__):
-        if info.name.startswith("cmd_"):
-            mods.append(importlib.import_module(f"saed.cli.{info.name}"))
+    return [info.name[4:] for info in pkgutil.iter_modules(pkg.__path__) if info.name.startswith("cmd_")]
+
+
+def _commands(only: str | None = None):
+    mods = [importlib.import_module(f"saed.cli.cmd_{name}") for name in _command_names() if only in (None, name)]
     return sorted(mods, key=lambda m: getattr(m, "ORDER", 50))
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _command_in(argv: list[str]) -> str | None:
+    """The subcommand named in `argv` (the first word that is not a global option), if it is one of ours."""
+    for word in argv:
+        if word in ("-v", "--verbose", "--debug") or (word.startswith("-v") and set(word[1:]) == {"v"}):
+            continue
+        return word if not word.startswith("-") and word in _command_names() else None
+    return None
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The whole parser; with `only`, just that subcommand (start-up imports only what the command needs)."""
     parser = _Parser(prog="saed", description="Index selected-area electron diffraction patterns: phase, zone axis, orientation.")
     parser.add_argument("--version", action="version", version=f"saed {__version__}")
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="more log messages on stderr")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    for mod in _commands():
+    for mod in _commands(only):
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP))
         p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show the full traceback on errors")
         mod.add_arguments(p)
@@ -100,8 +112,13 @@ def _stdout_broken() -> bool:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    words = sys.argv[1:] if argv is None else list(argv)
+    only = _command_in(words)
+    if only is None and words and words[0] == "--version":
+        print(f"saed {__version__}")
+        return 0
+    parser = build_parser(only)
+    args = parser.parse_args(words)
     logging.basicConfig(level=logging.WARNING - 10 * min(args.verbose, 2), format="saed: %(message)s", stream=sys.stderr)
     if not getattr(args, "command", None):
         parser.print_help(sys.stderr)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import sys
 
 from saed.cli.common import add_image_arguments, finite_float, positive_float, write_json
 from saed.cli.display import add_units_argument, units_from_args
@@ -35,7 +36,8 @@ def add_arguments(p):
     p.add_argument("--camera-length", type=positive_float, metavar="MM",
                    help="the microscope's nominal camera-length setting, mm: files the calibration under it and "
                         "reports the measured value beside it")
-    p.add_argument("--center", type=finite_float, nargs=2, metavar=("X", "Y"), help="pattern centre hint, pixels")
+    p.add_argument("--centre", "--center", dest="center", type=finite_float, nargs=2, metavar=("X", "Y"),
+                   help="pattern centre hint, pixels (either spelling)")
     add_image_arguments(p, positional=False)
     p.add_argument("--no-ellipse", action="store_true", help="assume circular rings (do not fit the ellipse)")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
@@ -180,6 +182,7 @@ def run(args) -> int:
                                    tol_rel=args.tolerance / 100, allow_spots=args.spotty)
     doc = result_json(res, image=args.image, zone=zone)
     cal = res.calibration
+    doc["warnings"] = _warnings(cal, args)
     extra = {"residual_pct": doc["residual_pct"], "scale_sigma_pct": doc["scale_sigma_pct"], "image": args.image,
              "kind": doc["kind"], "zone_axis": doc["zone_axis"], "n_rings_used": sum(r[1] is not None for r in res.ring_rows)}
     written = []
@@ -200,12 +203,29 @@ def run(args) -> int:
     if args.json:
         write_json(args.json, doc)
         if args.json == "-":
+            for w in doc["warnings"]:
+                print(f"saed calibrate: warning: {w}", file=sys.stderr)
             return 0
         written.append(("JSON", args.json))
     _print(res, doc, args)
+    for w in doc["warnings"]:
+        print(f"WARNING: {w}")
     for label, path in written:
         print(f"{label}: {path}")
     return 0
+
+
+def _warnings(cal, args) -> list[str]:
+    """Warnings against the nominal camera length and the history (read before this calibration is filed)."""
+    from saed.calibrate.checks import history_warning, nominal_warning
+    from saed.calibrate.history import history_folder, list_calibrations
+
+    out = [nominal_warning(cal, args.camera_length)]
+    folder = history_folder(args.history)
+    if folder.is_dir():
+        entries, _ = list_calibrations(folder)
+        out.append(history_warning(cal, entries, nominal_camera_length_mm=args.camera_length))
+    return [w for w in out if w]
 
 
 def _print(res, doc, args):

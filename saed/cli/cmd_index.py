@@ -36,7 +36,9 @@ def add_arguments(p):
                         "precipitate is indexed from the spots the best crystal leaves unexplained")
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write the solutions as JSON ('-' for stdout)")
-    out.add_argument("--overlay", metavar="PNG", help="draw spots, labels and the best solution's pattern on the image")
+    out.add_argument("--overlay", metavar="FILE", help="draw spots, labels and the best solution's pattern on the image: "
+                     ".png, or .pdf / .svg (vector, for print); an ambiguous answer also shows the runner-up")
+    out.add_argument("--dpi", type=int, default=150, metavar="N", help="resolution of a PNG overlay, dots per inch (default 150)")
     out.add_argument("--report", metavar="DIR", help="write a self-contained HTML report (index.html) into DIR")
     add_units_argument(out)
 
@@ -48,6 +50,8 @@ def check_outputs(args) -> None:
     matching_options_from_args(args)  # range checks before any work
     _max_crystals(args)
     check_frame_and_outputs(args)
+    if not 30 <= args.dpi <= 1200:
+        raise InputError(f"--dpi {args.dpi}: give 30 to 1200")
     if args.report:
         from saed.report.files import check_writable
 
@@ -102,7 +106,7 @@ def run(args) -> int:
         from saed.report.index_overlay import write_index_overlay
 
         write_index_overlay(insp.image, result, args.overlay, title=args.image, ignored=insp.ignored,
-                            units=units_from_args(args))
+                            units=units_from_args(args), dpi=args.dpi)
         print(f"overlay written to {args.overlay}", file=out)
     if args.report:
         from saed.report.index_html import ReportEntry, write_report

@@ -175,6 +175,26 @@ RING_SCORE_MEANING = ("score: how well the phase's ring list explains the measur
                       "agreement x position agreement x scale prior); it ranks solutions, it is not a probability")
 
 
+def _print_ring_table(sol, units, un) -> None:
+    """The best solution ring by ring: measured and calculated d, their difference, phase, and the hkl of
+    the lines on that ring (4-index on hexagonal axes); unexplained rings marked."""
+    from saed.cli.display import say
+
+    rows = []
+    for m in sol["rings_matched"]:
+        err = 100.0 * (m["d_nm"] / m["d_nm_calc"] - 1.0)
+        rows.append((m["ring"], units.length_text(m["d_nm"], 5), units.length_text(m["d_nm_calc"], 5), f"{err:+.2f}",
+                     m["phase"], "/".join(m["families"])))
+    rows += [(u["ring"], units.length_text(u["d_nm"], 5), "-", "-", "-", "not explained") for u in sol["rings_unexplained"]]
+    rows.sort(key=lambda r: r[0])
+    w_phase = max([len("phase")] + [len(r[4]) for r in rows])
+    dm, dc = f"d meas {un}", f"d calc {un}"
+    w_d = max(9, len(dm))
+    print(f"    {'ring':>4}  {dm:>{w_d}}  {dc:>{w_d}}  {'diff %':>6}  {'phase':<{w_phase}}  hkl")
+    for ring, d_meas, d_calc, err, ph, hkl in rows:
+        say(f"    {ring:>4}  {d_meas:>{w_d}}  {d_calc:>{w_d}}  {err:>6}  {ph:<{w_phase}}  {hkl}")
+
+
 def _print(doc, ident, units=None):
     import sys
 
@@ -201,16 +221,17 @@ def _print(doc, ident, units=None):
         frac = "" if len(sol["phases"]) == 1 else " (" + ", ".join(
             f"{p} {100 * f:.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
         extra = "" if s else f", implied scale {units.reciprocal(sol['scale_inv_nm_per_px']):.5g} {inv} per px"
+        unexpl = sol["rings_unexplained"]
         print(f"#{sol['rank']} {sol['phase']}{frac}: score {sol['score']:.3f}, {len(sol['rings_matched'])} of "
-              f"{len(doc['rings'])} rings{extra}")
-        parts = [f"{m['ring']}:{'/'.join(m['families'])}" + ("" if len(sol["phases"]) == 1 else f" {m['phase']}")
-                 for m in sol["rings_matched"]]
-        say("    " + ", ".join(parts))
-        if sol["rings_unexplained"]:
-            print("    unexplained rings: " + ", ".join(str(u["ring"]) for u in sol["rings_unexplained"]))
+              f"{len(doc['rings'])} rings{extra}" + ("" if sol["rank"] == 1 or not unexpl else
+                                                      "; not explained: rings " + ", ".join(str(u["ring"]) for u in unexpl)))
+        if sol["rank"] == 1:
+            _print_ring_table(sol, units, un)
         if sol["lines_missing"]:
             say("    expected but not seen: " + ", ".join(
                 f"{m['phase']} {indices_text(m['hkil'] or m['hkl'])} ({units.length_text(m['d_nm'])} {un})" for m in sol["lines_missing"][:6]))
+    if len(doc["solutions"]) > 1:
+        print("(every ring of every solution: --json)")
     for note in doc["notes"]:
         print(f"note: {note}")
     if doc["solutions"]:

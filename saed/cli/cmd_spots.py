@@ -39,13 +39,17 @@ def add_arguments(p):
     g.add_argument("--no-beam-stop", action="store_true", help="do not look for a beam-stop shadow")
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write centre, spots and basis as JSON ('-' for stdout)")
-    out.add_argument("--overlay", metavar="PNG", help="draw the spots, centre, g1/g2 and masked regions on the pattern")
+    out.add_argument("--overlay", metavar="FILE", help="draw the spots, centre, g1/g2 and masked regions on the pattern: "
+                     ".png, or .pdf / .svg (vector, for print)")
+    out.add_argument("--dpi", type=int, default=150, metavar="N", help="resolution of a PNG overlay, dots per inch (default 150)")
     out.add_argument("--all", action="store_true", help="list every spot in the summary, not only the strongest")
     add_units_argument(out)
 
 
 def _check_args(args):
     check_frame_and_outputs(args)
+    if not 30 <= args.dpi <= 1200:
+        raise InputError(f"--dpi {args.dpi}: give 30 to 1200")
     if args.json == "-" and args.overlay == "-":
         raise InputError("--overlay needs a file name")
 
@@ -199,7 +203,7 @@ def run(args) -> int:
     if args.overlay:
         from saed.image.overlay import write_spots_overlay
 
-        write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored,
+        write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored, dpi=args.dpi,
                             title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),
                             units=units_from_args(args))
     print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all,

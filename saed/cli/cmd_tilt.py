@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import sys
 
 import numpy as np
 
@@ -194,8 +195,10 @@ def run(args) -> int:
         write_json(args.json, doc)
     if args.json != "-":
         _print(phase, holder, rec, doc, reach, args.rows)
-    if problem:
-        raise InputError(problem)
+        if problem:  # an answer, not bad input: say it plainly and exit 0
+            print(f"Not reachable: {problem}")
+    elif problem:  # JSON on stdout: the note goes to stderr so the JSON stays parseable
+        print(f"saed tilt: not reachable: {problem}", file=sys.stderr)
     return 0
 
 

@@ -102,7 +102,8 @@ def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) 
     g.add_argument("--voltage", type=positive_float, metavar="KV", help="accelerating voltage in kV (default 200)")
     g.add_argument("--calibration", metavar="CAL.json", help="calibration file written by 'saed calibrate'")
     if center:
-        g.add_argument("--center", type=finite_float, nargs=2, metavar=("X", "Y"), help="pattern centre hint, pixels")
+        g.add_argument("--centre", "--center", dest="center", type=finite_float, nargs=2, metavar=("X", "Y"),
+                       help="pattern centre hint, pixels (either spelling)")
 
 
 def calibration_from_args(args) -> Calibration:
@@ -118,12 +119,15 @@ def calibration_from_args(args) -> Calibration:
 
 def add_phase_option(p: argparse.ArgumentParser, *, required: bool = False) -> None:
     p.add_argument("--phase", action="append", metavar="P", required=required,
-                   help="candidate phase: built-in name (see 'saed phases') or CIF path; repeatable "
+                   help="candidate phase: built-in name (see 'saed phases'), CIF path, or a bare element "
+                        "for all its built-in phases (Co = Co-fcc and Co-hcp); repeatable "
                         "(default: the whole built-in library)")
 
 
 def phases_from_args(args, *, default_all: bool = True) -> list[Phase]:
     specs = getattr(args, "phase", None) or (builtin_names() if default_all else [])
+    if getattr(args, "phase", None):
+        specs = _expand_groups(specs)
     phases: list[Phase] = []
     for spec in specs:
         ph = load_phase(spec)
@@ -135,6 +139,21 @@ def phases_from_args(args, *, default_all: bool = True) -> list[Phase]:
     if not phases:
         raise InputError("no candidate phases given (use --phase)")
     return phases
+
+
+def _expand_groups(specs: list[str]) -> list[str]:
+    """'--phase Co' -> Co-fcc, Co-hcp, with a note on stderr saying what it was taken as."""
+    from saed.crystal.phase_groups import expand_phase_spec
+
+    out: list[str] = []
+    for spec in specs:
+        group = expand_phase_spec(spec, builtin_names())
+        if group is None:
+            out.append(spec)
+            continue
+        print(f"saed: --phase {spec} taken as every built-in {spec} phase: {', '.join(group)}", file=sys.stderr)
+        out.extend(group)
+    return out
 
 
 def add_matching_options(p: argparse.ArgumentParser) -> None:

@@ -27,7 +27,6 @@ import math
 from dataclasses import replace
 
 import numpy as np
-from scipy import optimize
 
 from saed.index.values import Mistilt, Solution
 from saed.physics import electron_wavelength_nm
@@ -88,6 +87,8 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
 
     p0 = np.array([cx[best[1]], cy[best[1]], math.log(best[2])])
     try:
+        from scipy import optimize  # here, not at import: scipy.optimize costs a quarter second of start-up
+
         sol = optimize.least_squares(resid, p0, loss="soft_l1", f_scale=0.5, max_nfev=200)
         p = sol.x if np.all(np.isfinite(sol.x)) else p0
     except (ValueError, np.linalg.LinAlgError):

@@ -30,7 +30,6 @@ from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
-from scipy import stats
 
 from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.crystal.notation import projected_plane
@@ -207,7 +206,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         pi_ = np.round(np.log10(np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)), 2)
         mi = spots.intensity[idx_allowed]
         if len(np.unique(pi_)) >= 2 and np.ptp(mi) > 0:
-            rho = stats.spearmanr(mi, pi_).statistic
+            rho = spearman_rho(mi, pi_)
             rank = float(max(0.0, rho)) if np.isfinite(rho) else 0.5
     # kinematically strong spots measured far weaker than the rest (robust: only > 10x off the median ratio)
     misfit = 0.0
@@ -411,6 +410,34 @@ def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):
     dz = np.min(np.linalg.norm(q[:, None, :] - zolz[None, :, :], axis=2), axis=1)
     keep = dz > 1e-3
     return q[keep], pt.hkl[sel][keep]
+
+
+def _average_ranks(x: np.ndarray) -> np.ndarray:
+    """Ranks 1..n of `x`, ties given the mean of the ranks they span (as Spearman's rho needs)."""
+    x = np.asarray(x, dtype=float)
+    order = np.argsort(x, kind="mergesort")
+    xs = x[order]
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
+    ends = np.r_[starts[1:], len(xs)]
+    mean_rank = (starts + ends + 1) / 2.0  # ranks start+1 .. end, averaged
+    ranks = np.empty(len(x))
+    ranks[order] = np.repeat(mean_rank, ends - starts)
+    return ranks
+
+
+def spearman_rho(a, b) -> float:
+    """Spearman's rank correlation (Spearman 1904): Pearson's r of the tie-averaged ranks; nan if a side is constant.
+
+    Written with numpy so that indexing does not import scipy.stats (about a second of start-up).
+
+    >>> round(spearman_rho([1, 2, 3, 4, 5], [5, 6, 7, 8, 7]), 4)
+    0.8208
+    """
+    ra, rb = _average_ranks(a), _average_ranks(b)
+    ra -= ra.mean()
+    rb -= rb.mean()
+    den = math.sqrt(float(ra @ ra) * float(rb @ rb))
+    return float(ra @ rb) / den if den > 0 else float("nan")
 
 
 def _weighted_median(x: np.ndarray, w: np.ndarray) -> float:

@@ -2,11 +2,12 @@
 
 Left: the recorded pattern (logarithmic display) with every measured ring drawn as the fitted
 ellipse over the upper half of the pattern (the lower half is left bare to compare), solid in the colour of the phase that explains it in the best solution, dashed grey when
-unexplained; a cross marks the centre. Right, top: the azimuthally averaged profile (distortion
-undone) with the SNIP background and a triangle at each measured ring; below it one strip per
+unexplained, with a legend of the phase colours; a cross marks the centre. Right, top: the azimuthally
+averaged profile (distortion undone) with the SNIP background, a triangle at each measured ring and a
+d-spacing axis (nm) on top; below it one strip per
 candidate solution with a stick at every ring line of each phase (height: predicted intensity,
 shape of the tip tells the phases of a mixture apart), the stronger ones labelled with their hkl
-(4-index hkil for hexagonal phases).
+(4-index hkil for hexagonal phases) where the label covers no other; a g (1/nm) axis under the strips.
 """
 
 from __future__ import annotations
@@ -17,8 +18,9 @@ import math
 import numpy as np
 
 from saed.report.files import atomic_write_bytes, check_writable
+from saed.report.text_boxes import TextBoxes
 
-__all__ = ["plot_rings", "plot_calibration", "line_label"]
+__all__ = ["plot_rings", "plot_calibration", "line_label", "rings_figure"]
 
 #: Colours given to the phases in order of appearance (best solution first), and to unexplained rings.
 PHASE_COLOURS = ("#d62728", "#1f77b4", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")
@@ -38,6 +40,17 @@ def line_label(lines, j: int) -> str:
     return "".join(str(v) if v >= 0 else f"-{-v}" for v in idx)
 
 
+def _d_ticks_nm(g_lo: float, g_hi: float) -> list[float]:
+    """Round d values (nm) between 1/g_hi and 1/g_lo for the d-spacing axis: 0.5, 0.4, 0.3, 0.25, 0.2, 0.15, 0.1, ...
+
+    >>> _d_ticks_nm(4.0, 12.0)
+    [0.25, 0.2, 0.15, 0.12, 0.1, 0.09]
+    """
+    nice = [1.0, 0.8, 0.6, 0.5, 0.4, 0.3, 0.25, 0.2, 0.15, 0.12, 0.1, 0.09, 0.08, 0.07, 0.06, 0.05, 0.04, 0.03, 0.025, 0.02]
+    lo_d, hi_d = 1.0 / max(g_hi, 1e-9), 1.0 / max(g_lo, 1e-9)
+    return [d for d in nice if lo_d <= d <= hi_d]
+
+
 def _display(image) -> np.ndarray:
     img = np.asarray(image, dtype=np.float64)
     lo, hi = np.percentile(img[np.isfinite(img)], [1, 99.8])
@@ -46,17 +59,26 @@ def _display(image) -> np.ndarray:
 
 
 def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_strips=3):
+    check_writable(path)
+    fig = rings_figure(measured, solutions, image, scale_inv_nm_per_px=scale_inv_nm_per_px, title=title,
+                       max_strips=max_strips)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    atomic_write_bytes(path, buf.getvalue())
+
+
+def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title="", max_strips=3):
+    """The matplotlib Figure of the ring analysis (module notes)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     from matplotlib.patches import Arc
 
-    check_writable(path)
     sols = list(solutions)[:max_strips]
     n_strips = max(len(sols), 1)
-    fig = Figure(figsize=(15, 7.5), dpi=100)
+    fig = Figure(figsize=(15, 8.2), dpi=100)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(2 + n_strips, 2, width_ratios=[1, 1.35], height_ratios=[3, 0.15] + [1] * n_strips,
-                          hspace=0.08, wspace=0.12, left=0.04, right=0.98, top=0.88, bottom=0.08)
+                          hspace=0.08, wspace=0.12, left=0.04, right=0.98, top=0.87, bottom=0.14)
     ax_img = fig.add_subplot(gs[:, 0])
     ax_prof = fig.add_subplot(gs[0, 1])
     strips = [fig.add_subplot(gs[2 + k, 1], sharex=ax_prof) for k in range(n_strips)]
@@ -83,6 +105,15 @@ def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_s
                              theta1=180 - ell.major_axis_angle_deg, theta2=360 - ell.major_axis_angle_deg,
                              edgecolor=colour, linestyle=style, linewidth=0.8, alpha=0.9))
     ax_img.plot([cx], [cy], marker="+", color="yellow", markersize=14, mew=1.5)
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=PHASE_COLOURS[k], lw=1.6, marker=PHASE_MARKERS[k], ms=5, label=name)
+               for name, k in style_of.items() if best is not None and any(p.name == name for p in best.phases)]
+    if any(not lines for lines in (best.ring_lines if best is not None else [])) or best is None:
+        handles.append(Line2D([], [], color=UNEXPLAINED_COLOUR, lw=1.2, ls="--", label="not explained"))
+    if handles:
+        ax_img.legend(handles=handles, loc="lower right", fontsize=8.5, framealpha=0.9,
+                      title="rings (upper half), by the phase that explains them", title_fontsize=8.5)
     ax_img.set_xlim(-0.5, image.shape[1] - 0.5)
     ax_img.set_ylim(image.shape[0] - 0.5, -0.5)
     ax_img.set_title(f"centre ({cx:.1f}, {cy:.1f}) px, ellipse {ell.axis_ratio:.4f} at {ell.major_axis_angle_deg:.0f} deg",
@@ -100,23 +131,33 @@ def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_s
     peak_y = np.interp(rings.radius_px, prof.radius_px, np.nan_to_num(prof.mean))
     ax_prof.plot(rings.radius_px, peak_y, linestyle="none", marker="v", color="#ff7f0e", markersize=5,
                  label="measured rings")
-    for k, (r, yv) in enumerate(zip(rings.radius_px, peak_y), 1):
-        ax_prof.annotate(str(k), (r, yv), textcoords="offset points", xytext=(0, 5), ha="center", fontsize=6)
     ax_prof.set_yscale("log")
     ax_prof.set_ylabel("mean counts / px")
-    ax_prof.legend(fontsize=7, loc="upper right")
     ax_prof.tick_params(labelbottom=False)
     ax_prof.set_xlim(lo, hi)
+    leg = ax_prof.legend(fontsize=8, loc="upper right")
+    numbers = TextBoxes(ax_prof)
+    numbers.boxes.append(leg.get_window_extent(numbers.renderer))
+    for k, (r, yv) in enumerate(zip(rings.radius_px, peak_y), 1):  # ring numbers, where they fit
+        for dy in (5, 14, 23):
+            if numbers.try_text(r, yv, str(k), offset_pts=(0, dy), ha="center", va="bottom", fontsize=7.5):
+                break
     if scale_inv_nm_per_px:
         s = scale_inv_nm_per_px
-        top = ax_prof.secondary_xaxis("top", functions=(lambda r: r * s, lambda g: g / s))
-        top.set_xlabel("g (1/nm)", fontsize=8)
-        top.tick_params(labelsize=7)
+        top = ax_prof.secondary_xaxis("top", functions=(lambda r: np.where(r > 0, 1.0 / (np.maximum(r, 1e-9) * s), np.inf),
+                                                        lambda d: 1.0 / (np.maximum(d, 1e-9) * s)))
+        top.set_xlabel("d-spacing (nm)", fontsize=9)
+        ticks = []
+        for d in sorted(_d_ticks_nm(lo * s, hi * s)):  # from the outer (small d) end; ticks at least 4 % apart
+            if not ticks or abs(1.0 / (d * s) - 1.0 / (ticks[-1] * s)) >= 0.04 * (hi - lo):
+                ticks.append(d)
+        top.set_xticks(ticks)
+        top.tick_params(labelsize=8)
 
     # ---- one strip per candidate
     for k, ax in enumerate(strips):
         ax.set_yticks([])
-        ax.set_ylim(0, 1.55)
+        ax.set_ylim(0, 2.1)  # sticks reach 1; the room above is for their labels
         for r in rings.radius_px:
             ax.axvline(r, color="#ff7f0e", linewidth=0.5, alpha=0.5)
         if k >= len(sols):
@@ -124,6 +165,7 @@ def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_s
             continue
         m = sols[k]
         s = m.scale_inv_nm_per_px
+        boxes = TextBoxes(ax)
         tops = [max(float(a) * float(ln.intensity.max()), 1e-12) for a, ln in zip(m.amounts, m.lines)]
         ref = max(tops)
         for p, ln in enumerate(m.lines):
@@ -135,18 +177,21 @@ def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_s
             ax.vlines(rr[keep], 0, h[keep], color=colour, linewidth=1.2)
             ax.plot(rr[keep], h[keep], linestyle="none", marker=PHASE_MARKERS[k_style], color=colour, markersize=3)
             strong = np.nonzero(keep & (h >= 0.12))[0]
-            for j in strong[:28]:
-                ax.text(rr[j], h[j] + 0.04, line_label(ln, j), rotation=90, fontsize=6, ha="center", va="bottom",
-                        color=colour)
+            for j in strong[np.argsort(-h[strong], kind="stable")][:40]:  # strongest first; skip what would overprint
+                boxes.try_text(rr[j], h[j], line_label(ln, j), offset_pts=(0, 2), rotation=90, fontsize=7.5,
+                               ha="center", va="bottom", color=colour, inside=True)
         label = f"#{k + 1} {m.name}  score {m.score:.2f}"
-        ax.text(0.005, 0.95, label, transform=ax.transAxes, fontsize=8, va="top", ha="left",
-                bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+        ax.text(0.005, 0.95, label, transform=ax.transAxes, fontsize=8.5, va="top", ha="left", zorder=5,
+                bbox=dict(facecolor="white", edgecolor="none", alpha=0.9, pad=1))
         if k < n_strips - 1:
             ax.tick_params(labelbottom=False)
     strips[-1].set_xlabel("corrected radius (px)")
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    atomic_write_bytes(path, buf.getvalue())
+    if scale_inv_nm_per_px:
+        s = scale_inv_nm_per_px
+        bottom = strips[-1].secondary_xaxis(-0.55, functions=(lambda r: r * s, lambda g: g / s))
+        bottom.set_xlabel("g = 1/d (1/nm)", fontsize=9)
+        bottom.tick_params(labelsize=8)
+    return fig
 
 
 def plot_rings(measured, identification, image, path, *, scale_inv_nm_per_px=None, title="") -> None:

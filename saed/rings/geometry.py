@@ -337,7 +337,7 @@ def fit_ring_geometry(image, *, center_px, radii_px, widths_px, ellipse: Ellipse
                                     n_sectors=n_sectors, _coords=coords)
         if len(pts) < 12:
             raise ImageError(f"only {len(pts)} ring points could be traced around the azimuth: "
-                             "the rings are too weak or the centre is far off (give --center X Y)")
+                             "the rings are too weak or the centre is far off (give --centre X Y)")
         used = np.unique(idx)
         p, resid, err = _fit_points(pts, idx, n, cen, ell, radii, fit_ellipse and len(used) >= 1, fit_center)
         new_c = (float(p[0]), float(p[1]))

@@ -194,7 +194,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
         if not (-0.5 * img.shape[1] <= cen[0] <= 1.5 * img.shape[1] and -0.5 * img.shape[0] <= cen[1] <= 1.5 * img.shape[0]):
             raise InputError(f"centre hint ({cen[0]:g}, {cen[1]:g}) px lies far outside the {img.shape[1]}x{img.shape[0]} image")
         if fit_center:
-            # A hint (from --center or a calibration file of another exposure) only narrows the search.
+            # A hint (from --centre or a calibration file of another exposure) only narrows the search.
             cen = inversion_centre(img, mask=m, hint_px=cen, search_px=max(0.08 * min(img.shape), 16.0))
     do_ellipse = fit_ellipse and given_ellipse is None
 
@@ -230,7 +230,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
         cen, ell = geom.center_px, geom.ellipse
         if ell.axis_ratio > MAX_AXIS_RATIO - 1e-3:
             raise ImageError(f"the rings could not be traced reliably (the fitted distortion ran to the "
-                             f"{100 * (MAX_AXIS_RATIO - 1):.0f} % limit); give --center X Y, or --no-ellipse")
+                             f"{100 * (MAX_AXIS_RATIO - 1):.0f} % limit); give --centre X Y, or --no-ellipse")
         width = float(np.median(rings.width_px[k]))
         prof, rings = profile_and_rings(cen, ell, width)
         if len(rings) == 0:

@@ -1,0 +1,77 @@
+"""Issue 15.13, start-up: what a cold 'saed index' imports, and the numpy stand-ins for what it no longer imports.
+
+Speed itself is measured by 'saed bench --only start-up' (a cold process against 'python -c pass'),
+never by a timed assertion here.
+"""
+
+import json
+import math
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import constants, stats
+
+import saed
+from saed import physics
+from saed.index.score import spearman_rho
+
+ROOT = str(Path(saed.__file__).resolve().parent.parent)
+
+
+def _modules_after(code: str) -> set[str]:
+    env = dict(os.environ, PYTHONPATH=ROOT)
+    out = subprocess.run([sys.executable, "-c", code + "\nimport sys, json; print(json.dumps(sorted(sys.modules)))"],
+                         env=env, capture_output=True, text=True, check=True).stdout
+    return set(json.loads(out.splitlines()[-1]))
+
+
+def test_index_path_imports_neither_scipy_stats_nor_matplotlib():
+    mods = _modules_after("from saed.cli import build_parser; build_parser('index')\n"
+                          "import saed.index, saed.image.measure, saed.report.index_summary, saed.report.index_json")
+    assert "saed.cli.cmd_index" in mods and "saed.index.match" in mods  # the code did load
+    assert not {m for m in mods if m == "scipy.stats" or m.startswith("matplotlib")}
+    assert "saed.cli.cmd_simulate" not in mods  # only the command asked for is imported
+
+
+def test_phases_and_version_need_no_scipy():
+    mods = _modules_after("from saed.cli import build_parser; build_parser('phases')\nimport saed.physics, saed.calibration")
+    assert "saed.physics" in mods and not {m for m in mods if m.startswith("scipy")}
+
+
+def test_version_is_answered_without_numpy():
+    env = dict(os.environ, PYTHONPATH=ROOT)
+    code = "import sys; from saed.cli import main; rc = main(['--version']); print(sorted(sys.modules))"
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, check=True).stdout
+    assert out.startswith(f"saed {saed.__version__}") and "'numpy'" not in out
+
+
+def test_pinned_constants_are_codata_as_scipy_has_them():
+    # scipy.constants is the outside reference (CODATA 2018 in older scipy differs in m_e by 1.4e-9 relative)
+    for name, ours in (("h", physics._c.h), ("e", physics._c.e), ("c", physics._c.c), ("m_e", physics._c.m_e)):
+        assert ours == pytest.approx(getattr(constants, name), rel=1e-8), name
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.tuples(st.integers(-5, 5), st.floats(-1e3, 1e3, allow_nan=False)), min_size=2, max_size=40))
+def test_spearman_matches_scipy_with_ties(pairs):
+    a = np.array([p[0] for p in pairs], float)  # small integers: many ties
+    b = np.array([p[1] for p in pairs], float)
+    ours = spearman_rho(a, b)
+    if np.ptp(a) == 0 or np.ptp(b) == 0:
+        assert math.isnan(ours)
+        return
+    assert ours == pytest.approx(stats.spearmanr(a, b).statistic, abs=1e-9)
+
+
+def test_subcommand_parser_alone_parses_like_the_whole_one():
+    from saed.cli import build_parser
+
+    argv = ["ratio", "0.2", "0.1", "60", "--phase", "Cu", "--top", "3"]
+    whole, alone = build_parser().parse_args(argv), build_parser("ratio").parse_args(argv)
+    assert {k: v for k, v in vars(whole).items() if k != "_run"} == {k: v for k, v in vars(alone).items() if k != "_run"}
