@@ -13,7 +13,8 @@ import numpy as np
 
 from saed.errors import PhaseError
 
-__all__ = ["point_group_rotations", "laue_rotations", "plane_family", "direction_family", "space_group"]
+__all__ = ["point_group_rotations", "laue_rotations", "plane_family", "direction_family", "space_group",
+           "has_twofold_axis"]
 
 
 @lru_cache(maxsize=None)
@@ -80,3 +81,23 @@ def direction_family(uvw, space_group_name: str) -> np.ndarray:
     u = np.asarray(uvw, dtype=np.int64)
     out = np.einsum("nij,j->ni", laue_rotations(space_group_name), u)
     return np.unique(out, axis=0)
+
+
+def has_twofold_axis(uvw, space_group_name: str) -> bool:
+    """True when the Laue group has a two-fold rotation about the direction [uvw].
+
+    The kinematic pattern of a crystal and of the same crystal turned 180 deg about the beam are
+    the same (Friedel's law), so one zone-axis pattern fixes the orientation only up to that turn.
+    The two readings are equivalent exactly when the turn is a symmetry of the diffraction, i.e. a
+    two-fold axis of the Laue group lies along the zone (cubic <001>, <011>; hexagonal [0001],
+    <2-1-10>, <01-10>), and differ otherwise (cubic <111>, <112>, <123>; hexagonal <2-1-13>).
+    A two-fold axis is a proper rotation (det +1) of trace -1 that leaves [uvw] fixed.
+
+    >>> has_twofold_axis([0, 1, 1], "F m -3 m"), has_twofold_axis([1, 1, 2], "F m -3 m")
+    (True, False)
+    """
+    u = np.asarray(uvw, dtype=np.int64).reshape(3)
+    for r in laue_rotations(space_group_name):
+        if round(np.linalg.det(r)) == 1 and int(np.trace(r)) == -1 and np.array_equal(r @ u, u):
+            return True
+    return False

@@ -20,6 +20,7 @@ fcc and zinc blende vs diamond (200 allowed, or only by double diffraction).
 
 from __future__ import annotations
 
+import logging
 import math
 from dataclasses import dataclass, replace
 from functools import lru_cache
@@ -32,7 +33,9 @@ from saed.index.values import Lookalike, Solution, TiltAdvice
 from saed.simulate.geometry import rotation_about_axis
 from saed.simulate.zone import zone_pattern
 
-__all__ = ["annotate", "compare", "separating_tilt", "SAED_RATIO_ACCURACY_PCT"]
+logger = logging.getLogger(__name__)
+
+__all__ = ["annotate", "compare", "separating_tilt", "sense_ambiguous", "SAED_RATIO_ACCURACY_PCT"]
 
 #: Relative accuracy of spacing ratios from one SAED pattern, percent (Williams & Carter 2009, ch. 18;
 #: common practice: 1-2 %). Differences below this cannot separate two solutions.
@@ -46,6 +49,9 @@ MAX_SUGGESTED_TILT_DEG = 45.0
 
 #: Zone axes considered for tilts: indices up to this bound.
 TILT_ZONE_INDEX = 4
+
+#: Dissimilarity credited to a tilt where one phase reaches a zone pattern and the other none.
+NO_ZONE_DISSIMILARITY = 0.45
 
 
 @dataclass(frozen=True)
@@ -263,9 +269,23 @@ def _index_directions(n: int) -> np.ndarray:
     return uvw
 
 
+@lru_cache(maxsize=16)
+def _readable_directions(n: int, hexagonal: bool) -> np.ndarray:
+    """Directions [uvw] (one of each +-pair, 3-index) whose index as people read it is at most n.
+
+    The bound applies to the form it is stated in: for hexagonal axes the 4-index [UVTW] (u = U - T,
+    v = V - T, so 3-index values reach 2n: <20-2-1> = [4 2 -1]); else the 3-index [uvw].
+    """
+    cand = _index_directions(2 * n if hexagonal else n)
+    keep = np.array([_zone_index(u, hexagonal) <= n for u in cand], dtype=bool)
+    out = cand[keep]
+    out.flags.writeable = False
+    return out
+
+
 def _nearest_zone(phase, beam_crystal: np.ndarray, *, max_index: int, tol_deg: float):
-    """Lowest-index zone of `phase` within `tol_deg` of a beam direction (crystal Cartesian), or None."""
-    uvw = _index_directions(max_index)
+    """Lowest-index zone of `phase` (readable index <= max_index) within `tol_deg` of a beam direction, or None."""
+    uvw = _readable_directions(max_index, phase.is_hexagonal)
     r = phase.lattice.r_cartesian_nm(uvw)
     r /= np.linalg.norm(r, axis=1, keepdims=True)
     b = beam_crystal / np.linalg.norm(beam_crystal)
@@ -275,7 +295,8 @@ def _nearest_zone(phase, beam_crystal: np.ndarray, *, max_index: int, tol_deg: f
     if len(ok) == 0:
         j = int(np.argmin(ang))
         return None, float(ang[j]), uvw[j] * int(np.sign(cos[j]) or 1)
-    j = ok[np.argmin(np.abs(uvw[ok]).sum(axis=1) * 10 + ang[ok])]
+    size = np.abs(direction_to_4(uvw[ok]) if phase.is_hexagonal else uvw[ok]).sum(axis=1)
+    j = ok[np.argmin(size * 10 + ang[ok])]
     return uvw[j] * int(np.sign(cos[j]) or 1), float(ang[j]), None
 
 
@@ -331,15 +352,24 @@ def _zone_index(uvw, hexagonal: bool) -> int:
 
 def _zones_with_row(phase, hkl, max_index: int) -> np.ndarray:
     """Zone axes [uvw] (one of each +-pair) containing reflection `hkl`, readable index <= max_index."""
-    cand = _index_directions(max_index + 1)
-    cand = cand[(cand @ np.asarray(hkl, dtype=np.int64)) == 0]
-    keep = [i for i, u in enumerate(cand) if _zone_index(u, phase.is_hexagonal) <= max_index]
-    return cand[keep]
+    cand = _readable_directions(max_index, phase.is_hexagonal)
+    return cand[(cand @ np.asarray(hkl, dtype=np.int64)) == 0]
 
 
 def _tilt_to(z_lab: np.ndarray, axis: np.ndarray) -> float:
     """Signed right-handed rotation (deg) about `axis` that brings the unit vector z_lab onto +z."""
     return math.degrees(math.atan2(float(np.cross(z_lab, [0.0, 0.0, 1.0]) @ axis), float(z_lab[2])))
+
+
+def sense_ambiguous(phase, uvw) -> bool:
+    """True when one pattern of `phase` on zone [uvw] cannot tell the crystal from itself turned 180 deg about the beam.
+
+    See :func:`saed.crystal.symmetry.has_twofold_axis`: the readings are equivalent only when the
+    zone is a two-fold axis of the Laue group.
+    """
+    from saed.crystal.symmetry import has_twofold_axis
+
+    return not has_twofold_axis(uvw, phase.space_group)
 
 
 def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv: float,
@@ -348,15 +378,25 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
 
     Candidate tilts are those that bring either phase to a low-index zone containing the row;
     at each, the other phase's beam direction follows from the same rotation, and the two
-    kinematic patterns are compared (:func:`_dissimilarity`). The merit prefers decisive
-    differences, small tilts and low-index target zones.
+    kinematic patterns are compared (:func:`_dissimilarity`) on the detector, each solution with
+    its own (implied) scale. The merit prefers decisive differences, small tilts and low-index
+    target zones.
+
+    The 180-degree ambiguity: when either zone is not a two-fold axis of its crystal
+    (:func:`sense_ambiguous`), the pattern fits the reported orientation U and Rz(180) U equally.
+    Both solutions turn together (they were fitted to the same spots), and a tilt by +omega of
+    Rz(180) U is a tilt by -omega of U about the same detector axis. So both senses are evaluated;
+    a tilt that separates the phases in both senses is preferred, and the advice names what each
+    sense reaches under each reading.
     """
     pa, pb = fit_b.table.phase, fit_o.table.phase
     ua = np.asarray(best.orientation_matrix)
     ub = np.asarray(other.orientation_matrix)
+    # the other solution on the detector, in the best solution's 1/nm: its own implied scale
+    f_b = best.scale_inv_nm_per_px / other.scale_inv_nm_per_px
     za, zb = fit_b.zone, fit_o.zone
     ga = (pa.lattice.g_cartesian_inv_nm(za.hkl) @ ua.T)[:, :2]
-    gb = (pb.lattice.g_cartesian_inv_nm(zb.hkl) @ ub.T)[:, :2]
+    gb = (pb.lattice.g_cartesian_inv_nm(zb.hkl) @ ub.T)[:, :2] * f_b
     sel_a = np.flatnonzero((~za.kinematically_forbidden | za.double_diffraction) & (za.g_inv_nm <= g_max))
     sel_b = np.flatnonzero(~zb.kinematically_forbidden | zb.double_diffraction)
     rows = []
@@ -369,8 +409,39 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
                 continue
             rows.append((ia, ib, d))
     rows.sort(key=lambda t: za.g_inv_nm[t[0]])
-    best_choice = None
+    ambiguous = sense_ambiguous(pa, best.zone_axis) or sense_ambiguous(pb, other.zone_axis)
+    beam = np.array([0.0, 0.0, 1.0])
     zmax = 3
+
+    def outcome(axis, omega):
+        """(uvw_a, uvw_b, pat_a, pat_b, dis, miss_a, miss_b) after tilting the reported orientations by omega."""
+        rot = rotation_about_axis(axis, omega)
+        ua2, ub2 = rot @ ua, rot @ ub
+        uvw_a, _, _ = _nearest_zone(pa, ua2.T @ beam, max_index=zmax, tol_deg=0.5)
+        uvw_b, _, _ = _nearest_zone(pb, ub2.T @ beam, max_index=zmax, tol_deg=1.0)
+        pat_a = _lab_pattern(pa, uvw_a, ua2, voltage_kv=voltage_kv, g_max=g_max) if uvw_a is not None else None
+        pat_b = None
+        if uvw_b is not None:
+            xy, inten, allowed, dd, hkl = _lab_pattern(pb, uvw_b, ub2, voltage_kv=voltage_kv, g_max=g_max / f_b)
+            pat_b = (xy * f_b, inten, allowed, dd, hkl)
+        if pat_a is not None and not _two_rows(pat_a):
+            uvw_a, pat_a = None, None
+        if pat_b is not None and not _two_rows(pat_b):
+            uvw_b, pat_b = None, None
+        if uvw_a is None and uvw_b is None:
+            return None
+        if pat_a is not None and pat_b is not None:
+            dis, miss_a, miss_b = _dissimilarity(pat_a, pat_b, floor=0.05, g_max=0.95 * g_max)
+        else:
+            # one phase shows a zone pattern, the other none: separating, but an absence is weaker
+            # evidence at the microscope than two different zone patterns
+            dis, miss_a, miss_b = NO_ZONE_DISSIMILARITY, [], []
+        return uvw_a, uvw_b, pat_a, pat_b, dis, miss_a, miss_b
+
+    def index_of(o):
+        return min(_zone_index(u, p.is_hexagonal) for u, p in ((o[0], pa), (o[1], pb)) if u is not None)
+
+    best_choice = None
     for ia, ib, d in rows[:4]:
         axis = np.array([d[0], d[1], 0.0])
         omegas = set()
@@ -385,45 +456,38 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
                 if 3.0 <= abs(w) <= MAX_SUGGESTED_TILT_DEG:
                     omegas.add(round(w, 2))
         for omega in sorted(omegas, key=abs):
-            rot = rotation_about_axis(axis, omega)
-            ua2, ub2 = rot @ ua, rot @ ub
-            beam = np.array([0.0, 0.0, 1.0])
-            uvw_a, _, _ = _nearest_zone(pa, ua2.T @ beam, max_index=zmax + 1, tol_deg=0.5)
-            uvw_b, _, _ = _nearest_zone(pb, ub2.T @ beam, max_index=zmax + 1, tol_deg=1.0)
-            if uvw_a is not None and _zone_index(uvw_a, pa.is_hexagonal) > zmax:
-                uvw_a = None
-            if uvw_b is not None and _zone_index(uvw_b, pb.is_hexagonal) > zmax:
-                uvw_b = None
-            if uvw_a is None and uvw_b is None:
+            o1 = outcome(axis, omega)
+            if o1 is None and not ambiguous:
                 continue
-            pat_a = _lab_pattern(pa, uvw_a, ua2, voltage_kv=voltage_kv, g_max=g_max) if uvw_a is not None else None
-            pat_b = _lab_pattern(pb, uvw_b, ub2, voltage_kv=voltage_kv, g_max=g_max) if uvw_b is not None else None
-            if pat_a is not None and not _two_rows(pat_a):
-                uvw_a, pat_a = None, None
-            if pat_b is not None and not _two_rows(pat_b):
-                uvw_b, pat_b = None, None
-            if uvw_a is None and uvw_b is None:
+            o2 = outcome(axis, -omega) if ambiguous else None  # = +omega for the crystal turned 180 deg
+            if o1 is None and o2 is None:
                 continue
-            if pat_a is not None and pat_b is not None:
-                dis, miss_a, miss_b = _dissimilarity(pat_a, pat_b, floor=0.05, g_max=0.95 * g_max)
+            d1 = o1[4] if o1 is not None else 0.0
+            if ambiguous:
+                d2 = o2[4] if o2 is not None else 0.0
+                both = min(d1, d2)
+                # separating in both senses is worth much more than in one (the sense is unknown)
+                dis = both if both >= 0.2 else max(d1, d2) - 0.5
+                index = min(index_of(o) for o in (o1, o2) if o is not None)
             else:
-                dis, miss_a, miss_b = 1.0, [], []
-            index = min(_zone_index(u, p.is_hexagonal) for u, p in ((uvw_a, pa), (uvw_b, pb)) if u is not None)
+                dis, index = d1, index_of(o1)
             merit = dis - abs(omega) / 150.0 - 0.1 * (index - 1)
-            if dis >= 0.2 and (best_choice is None or merit > best_choice[0]):
-                best_choice = (merit, omega, ia, ib, d, uvw_a, uvw_b, miss_a, miss_b, pat_a, pat_b, ua2, ub2)
+            logger.debug("tilt %.2f: d1 %.2f d2 %s merit %.3f", omega, d1, None if o2 is None else round(o2[4], 2), merit)
+            if max(d1, o2[4] if o2 is not None else 0.0) >= 0.2 and (best_choice is None or merit > best_choice[0]):
+                best_choice = (merit, omega, ia, ib, d, o1, o2)
     if best_choice is None:
         return None
-    _, omega, ia, ib, d, uvw_a, uvw_b, miss_a, miss_b, pat_a, pat_b, ua2, ub2 = best_choice
+    _, omega, ia, ib, d, o1, o2 = best_choice
+    if ambiguous and o1 is None or (ambiguous and o2 is not None and o1[4] < 0.2 <= o2[4]):
+        # state the sense that separates under the reported reading first
+        omega, o1, o2 = -omega, o2, o1
     hexa, hexb = pa.is_hexagonal, pb.is_hexagonal
     row_a = _hkl_text(za.hkl[ia], hexa)
     row_b = _hkl_text(zb.hkl[ib], hexb)
     az = math.degrees(math.atan2(d[1], d[0])) % 360.0
-    beam = np.array([0.0, 0.0, 1.0])
-
     axis = np.array([d[0], d[1], 0.0])
 
-    def reach(name, phase, uvw, u_m, h, hexagonal):
+    def reach(name, phase, uvw, u_m, h, hexagonal, w_sense):
         if uvw is not None:
             return f"{name} reaches [{_zone_text(uvw, hexagonal)}]"
         # the zones this phase does meet on the same tilt arc (they contain the same row)
@@ -434,9 +498,9 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
             zl /= np.linalg.norm(zl, axis=1, keepdims=True)
             for z, uvw_z in zip(np.concatenate([zl, -zl]), np.concatenate([zs, -zs])):
                 w = _tilt_to(z, axis)
-                if abs(w) < 1.0 or w * omega < 0 or abs(w - omega) < 1.0:
+                if abs(w) < 1.0 or w * w_sense < 0 or abs(w - w_sense) < 1.0:
                     continue
-                if best_w is not None and abs(w - omega) >= abs(best_w - omega):
+                if best_w is not None and abs(w - w_sense) >= abs(best_w - w_sense):
                     continue
                 u_at = rotation_about_axis(axis, w) @ u_m
                 if _two_rows(_lab_pattern(phase, uvw_z, u_at, voltage_kv=voltage_kv, g_max=g_max)):
@@ -446,21 +510,45 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
             txt += f" (on this tilt arc its nearest zone pattern is [{_zone_text(best_z, hexagonal)}], at {abs(best_w):.1f} deg)"
         return txt
 
-    text = (f"tilt {abs(omega):.1f} deg about the {row_a} row ({row_b} in {other.phase_name}; detector azimuth "
-            f"{az:.0f} deg, {'+' if omega > 0 else '-'} sense): "
-            f"{reach(best.phase_name, pa, uvw_a, ua, za.hkl[ia], hexa)}, "
-            f"{reach(other.phase_name, pb, uvw_b, ub, zb.hkl[ib], hexb)}")
-    diffs = []
-    if miss_a:
-        diffs.append(f"{best.phase_name} shows {_hkl_text(pat_a[4][miss_a[0]], hexa)}")
-    if miss_b:
-        diffs.append(f"{other.phase_name} shows {_hkl_text(pat_b[4][miss_b[0]], hexb)}")
-    if diffs:
-        text += " (" + " and ".join(diffs) + " where the other has no spot)"
+    def both_reach(o, w_sense):
+        uvw_a = o[0] if o is not None else None
+        uvw_b = o[1] if o is not None else None
+        return (f"{reach(best.phase_name, pa, uvw_a, ua, za.hkl[ia], hexa, w_sense)}, "
+                f"{reach(other.phase_name, pb, uvw_b, ub, zb.hkl[ib], hexb, w_sense)}")
+
+    def diffs_of(o):
+        if o is None:
+            return ""
+        _, _, pat_a, pat_b, _, miss_a, miss_b = o
+        diffs = []
+        if miss_a:
+            diffs.append(f"{best.phase_name} shows {_hkl_text(pat_a[4][miss_a[0]], hexa)}")
+        if miss_b:
+            diffs.append(f"{other.phase_name} shows {_hkl_text(pat_b[4][miss_b[0]], hexb)}")
+        return (" (" + " and ".join(diffs) + " where the other has no spot)") if diffs else ""
+
+    sign = "+" if omega > 0 else "-"
+    other_sign = "-" if omega > 0 else "+"
+    head = (f"tilt {abs(omega):.1f} deg about the {row_a} row ({row_b} in {other.phase_name}; detector azimuth "
+            f"{az:.0f} deg")
+    if not ambiguous:
+        text = f"{head}, {sign} sense): {both_reach(o1, omega)}{diffs_of(o1)}"
+    else:
+        turned = [f"[{_sol_zone(s)}] is not a two-fold axis of {s.phase_name}" for s, p in ((best, pa), (other, pb))
+                  if sense_ambiguous(p, s.zone_axis)]
+        text = (f"{head}); this one pattern cannot tell the crystal from the same crystal turned 180 deg about the "
+                f"beam ({'; '.join(turned)}), so the sense that works is not known: "
+                f"{sign} sense: {both_reach(o1, omega)}{diffs_of(o1)} if the orientation is as reported, "
+                f"{both_reach(o2, -omega)} if it is turned 180 deg; {other_sign} sense: the other way round"
+                + (" (this tilt separates the phases in both senses)"
+                   if o1 is not None and o2 is not None and min(o1[4], o2[4]) >= 0.2 else
+                   " (if no zone pattern appears by then, tilt the same amount the other way)"))
+    tz = lambda o, k: None if o is None or o[k] is None else tuple(int(v) for v in o[k])  # noqa: E731
     return TiltAdvice(angle_deg=float(omega), about_hkl=tuple(int(v) for v in za.hkl[ia]),
                       about_hkl_other=tuple(int(v) for v in zb.hkl[ib]), about_azimuth_deg=float(az),
-                      target_zone=None if uvw_a is None else tuple(int(v) for v in uvw_a),
-                      other_target_zone=None if uvw_b is None else tuple(int(v) for v in uvw_b), text=text)
+                      target_zone=tz(o1, 0), other_target_zone=tz(o1, 1), text=text,
+                      sense_ambiguous=bool(ambiguous), turned_target_zone=tz(o2, 0) if ambiguous else None,
+                      turned_other_target_zone=tz(o2, 1) if ambiguous else None)
 
 
 # ---------------------------------------------------------------------- annotate ranked solutions
@@ -481,11 +569,12 @@ def _related(pa, pb) -> bool:
 
 
 def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, holder_alpha_axis_deg=None,
-             calibrated: bool, min_score: float, top: int) -> list[Solution]:
+             calibrated: bool, min_score: float, top: int, length_tol: float, rel_pos_tol: float) -> list[Solution]:
     """Mistilt, merged identical-geometry twins and look-alike notes for ranked solutions.
 
     `scored` holds (Solution, Fit) for every scored candidate, best first (including those below
-    `min_score`, which only serve as 'ruled out' look-alikes).
+    `min_score`, which only serve as 'ruled out' look-alikes). `length_tol` (fraction) and
+    `rel_pos_tol` are the matcher's own tolerances, passed on to the near-miss search.
     """
     good = [(s, f) for s, f in scored if s.score >= min_score]
     if not good:
@@ -517,7 +606,8 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
                          "(camera length) tells them apart")
         if rank == 0:
             looks += _lookalikes_of_best(s, f, kept[1:], scored, measured, tables, spots, g_max=g_max,
-                                         calibrated=calibrated, min_score=min_score)
+                                         calibrated=calibrated, min_score=min_score, length_tol=length_tol,
+                                         rel_pos_tol=rel_pos_tol)
             for lk in looks:
                 if lk.relation == "ambiguous":
                     notes.append(f"ambiguous with {lk.phase_name} [{_lk_zone(lk)}]: {lk.separating}"
@@ -590,7 +680,8 @@ def row_near_miss(phase_index: int, best: Solution, measured, tables, spots, *, 
     return best_fit
 
 
-def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *, g_max, calibrated, min_score):
+def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *, g_max, calibrated, min_score,
+                        length_tol, rel_pos_tol):
     looks = []
     seen_phases = {best.phase_name}
     for s, f, _ in others[:6]:
@@ -614,14 +705,12 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))
     # related phases with no candidate at all: the closest pattern that shares a row
-    from saed.index.match import DEFAULT_LENGTH_TOL_PCT, REL_POS_TOL
-
     for pi, pt in enumerate(tables.phases):
         if pt.name in seen_phases or not _related(pa, pt.phase) or len(looks) >= 5:
             continue
         seen_phases.add(pt.name)
         nm = row_near_miss(pi, best, measured, tables, spots, calibrated=calibrated,
-                           length_tol=DEFAULT_LENGTH_TOL_PCT / 100.0, rel_pos_tol=REL_POS_TOL)
+                           length_tol=length_tol, rel_pos_tol=rel_pos_tol)
         if nm is None:
             continue
         s, f = nm

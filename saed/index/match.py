@@ -173,11 +173,13 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         from saed.index.lookalike import annotate
 
         ranked = annotate(solutions, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg,
-                          calibrated=calibrated, min_score=MIN_SCORE, top=top)
+                          calibrated=calibrated, min_score=MIN_SCORE, top=top, length_tol=length_tol,
+                          rel_pos_tol=REL_POS_TOL)
     else:
         from saed.index.mistilt import with_mistilt
 
         ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good[:top]]
+    ranked = [_with_sense_flag(s, tables) for s in ranked[:top]]
     from saed.index.crystals import find_crystals
 
     multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), angle_tol=angle_tol,
@@ -185,6 +187,19 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes) + multi.notes, n_candidates=n_cand,
                        phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
                        cross_double_diffraction=multi.cross_double_diffraction)
+
+
+def _with_sense_flag(sol: Solution, tables) -> Solution:
+    """The solution with ``sense_ambiguous_180`` set (and a note when one pattern cannot fix the sense)."""
+    from dataclasses import replace
+
+    from saed.index.lookalike import sense_ambiguous
+
+    phase = next((pt.phase for pt in tables.phases if pt.name == sol.phase_name), None)
+    if phase is None:
+        return sol
+    amb = sense_ambiguous(phase, sol.zone_axis)
+    return replace(sol, sense_ambiguous_180=amb)
 
 
 def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_zone_index) -> tuple[list, int]:

@@ -93,6 +93,10 @@ class TiltAdvice:
     ``about_azimuth_deg`` on the detector; the best solution then reaches ``target_zone``, the other
     ``other_target_zone`` (either None when that phase reaches no low-index zone there).
     ``angle_deg`` is signed: right-handed about the row direction as drawn on the detector.
+    ``sense_ambiguous``: one pattern cannot tell the reported orientation from the same crystal
+    turned 180 deg about the beam (a zone that is not a two-fold axis); then the same tilt reaches
+    ``turned_target_zone`` / ``turned_other_target_zone`` under that other reading (equivalently,
+    the reported orientation reaches them with the opposite sense).
     """
 
     angle_deg: float
@@ -102,6 +106,9 @@ class TiltAdvice:
     target_zone: tuple[int, ...] | None
     other_target_zone: tuple[int, ...] | None
     text: str
+    sense_ambiguous: bool = False
+    turned_target_zone: tuple[int, ...] | None = None
+    turned_other_target_zone: tuple[int, ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -140,6 +147,9 @@ class Solution:
     mean_d_error_pct : mean |d_meas - d_calc| / d_calc over the allowed, indexed spots, percent
     mean_angle_error_deg : mean angle between measured and predicted spot directions, degrees
     mistilt : :class:`Mistilt` or None
+    sense_ambiguous_180 : True when this one pattern cannot tell the orientation from the same
+        crystal turned 180 deg about the beam (the zone is not a two-fold axis of the Laue group);
+        None when not determined
     notes : short sentences for the microscopist
     lookalikes : :class:`Lookalike` entries, most dangerous first
     implied_camera_length_mm : from the refined scale and the pixel pitch, when known
@@ -162,6 +172,7 @@ class Solution:
     mean_angle_error_deg: float
     mistilt: Mistilt | None = None
     notes: tuple[str, ...] = ()
+    sense_ambiguous_180: bool | None = None
     lookalikes: tuple[Lookalike, ...] = ()
     structure_type: str = ""
     implied_camera_length_mm: float | None = None

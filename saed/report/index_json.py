@@ -52,7 +52,9 @@ def _lookalike_json(lk: Lookalike) -> dict:
         "tilt": None if t is None else {
             "angle_deg": _num(t.angle_deg, 2), "about_hkl": _ints(t.about_hkl), "about_hkl_other": _ints(t.about_hkl_other),
             "about_azimuth_deg": _num(t.about_azimuth_deg, 1), "target_zone": _ints(t.target_zone),
-            "other_target_zone": _ints(t.other_target_zone), "text": t.text},
+            "other_target_zone": _ints(t.other_target_zone), "text": t.text,
+            "sense_ambiguous_180": t.sense_ambiguous, "turned_target_zone": _ints(t.turned_target_zone),
+            "turned_other_target_zone": _ints(t.turned_other_target_zone)},
     }
 
 
@@ -90,6 +92,7 @@ def solution_json(sol: Solution, rank: int) -> dict:
         "mean_angle_error_deg": _num(sol.mean_angle_error_deg, 4),
         "figure_of_merit": {k: _num(v, 4) for k, v in sol.terms},
         "mistilt": _mistilt_json(sol.mistilt),
+        "sense_ambiguous_180": sol.sense_ambiguous_180,
         "notes": list(sol.notes),
         "lookalikes": [_lookalike_json(lk) for lk in sol.lookalikes],
     }

@@ -27,10 +27,12 @@ Physics
   <sin^2(pi s t)> = 1/2 - [sin(2 pi s t2) - sin(2 pi s t1)] / (4 pi s (t2 - t1)), divided by
   (pi s t)^2; w = 0 gives the exact sinc^2 of a parallel-sided foil.
 * Laue zones: n = h u + k v + l w is the layer index of reflection hkl along [uvw]. With the zone
-  along the beam the sphere bends toward -b, so it meets the layers n < 0; ``laue_zone`` = -n,
-  so the first-order Laue zone (FOLZ) seen in a pattern has ``laue_zone`` = +1 x (layer order).
-  The reciprocal layers normal to the zone are 1/|r_uvw| apart, times p when r_uvw/p is itself a
-  lattice vector of the centred lattice (fcc [011]: p = 2); the FOLZ ring radius is
+  along the beam the sphere bends toward -b, so it meets the layers n < 0. The reciprocal layers
+  that hold reciprocal-lattice points are 1/|r_uvw| apart, times p when r_uvw/p is itself a
+  lattice vector of the centred lattice (fcc [011]: p = 2, so only n = 0, +-2, +-4 ... are
+  populated). Layers are numbered as the trade numbers them, counting populated layers only:
+  ``laue_zone`` = -n / p, so the first-order Laue zone (FOLZ), the first populated layer above
+  the ZOLZ, has ``laue_zone`` = 1 in every zone, fcc [011] included; the FOLZ ring radius is
   R = sqrt(2 k H - H^2) with H = p/|r_uvw| (the sphere at depth H below the ZOLZ plane).
 * Double diffraction: a kinematically forbidden ZOLZ reflection g is marked when g = g1 + g2 with
   g1, g2 allowed ZOLZ reflections of the same pattern (the shortest such route is kept). Positions
@@ -217,8 +219,8 @@ class ZonePattern:
     excitation_error_inv_nm : (N,) exact s_g, > 0 inside the Ewald sphere
     intensity : (N,) |F|^2 sinc^2(pi t s), strongest non-central reflection = 1, 0 if forbidden
     f_abs : (N,) |F| in nm
-    laue_zone : (N,) int, 0 for ZOLZ, +1, +2 ... for the layers the Ewald sphere reaches
-        (layer index n = h.uvw; laue_zone = -n)
+    laue_zone : (N,) int, 0 for ZOLZ, +1 (FOLZ), +2 (SOLZ) ... for the populated layers the Ewald
+        sphere reaches (layer index n = h.uvw; laue_zone = -n / p, p = ``layer_multiplicity``)
     kinematically_forbidden : (N,) bool, F = 0 (glide, screw or site); centring absences are not listed
     double_diffraction : (N,) bool, forbidden but reachable as g1 + g2 with both allowed, same zone
     dd_route : (N, 2) int, row indices (g1, g2) of that route, -1 where none
@@ -537,6 +539,7 @@ def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm,
     forbidden = ~allowed
     route_tbl = _dd_routes(tbl, rows, zolz[rows] & allowed, zolz[rows] & forbidden, keys, order, span, base)
 
+    p = layer_multiplicity(phase, uvw)
     f_abs = np.abs(tbl.f_nm[rows])
     shape = shape_factor(s[rows], thickness_nm, spread)
     inten = np.where(allowed, tbl.intensity[rows] * shape, 0.0)
@@ -551,7 +554,6 @@ def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm,
     dd_route = np.where(route_rows >= 0, pos[np.maximum(route_rows, 0)], -1)
     dd = np.all(dd_route >= 0, axis=1)
 
-    p = layer_multiplicity(phase, uvw)
     r_len = float(lat.length_nm(uvw))
     h_layer = p / r_len
     z_c = unit(lat.r_cartesian_nm(uvw))
@@ -563,7 +565,7 @@ def _build(phase, uvw, voltage_kv, max_g_inv_nm, tilt_deg, toward, thickness_nm,
         max_g_inv_nm=max_g_inv_nm, thickness_nm=thickness_nm, thickness_spread=spread, tilt_deg=tilt_deg,
         tilt_toward_hkl=None if toward is None else np.array(toward, dtype=np.int64), orientation_matrix=u,
         hkl=tbl.hkl[rows], g_inv_nm=tbl.g_inv_nm[rows], xy_inv_nm=q[rows, :2],
-        excitation_error_inv_nm=s[rows], intensity=inten, f_abs=f_abs, laue_zone=-n_layer[rows],
+        excitation_error_inv_nm=s[rows], intensity=inten, f_abs=f_abs, laue_zone=-(n_layer[rows] // p),
         kinematically_forbidden=forbidden, double_diffraction=dd, dd_route=dd_route,
         layer_spacing_inv_nm=h_layer, layer_multiplicity=p,
         folz_ring_radius_inv_nm=folz_ring_radius_inv_nm(wave_number_inv_nm=k, layer_spacing_inv_nm=h_layer),
