@@ -70,6 +70,9 @@ class Calibration:
     """What turns detector pixels into reciprocal-space lengths.
 
     ``scale_inv_nm_per_px`` is None for an uncalibrated pattern (index by ratios alone).
+    ``alpha_axis_deg``: direction of the holder's alpha tilt axis on the detector at this camera
+    length (deg from +x toward +y), when measured; the image rotates with the camera length, so it
+    belongs to the calibration of each one. It turns tilt advice into alpha/beta readings.
     """
 
     scale_inv_nm_per_px: float | None = None
@@ -82,6 +85,7 @@ class Calibration:
     date: str | None = None
     source: str = "options"
     extra: dict = field(default_factory=dict, compare=False, hash=False)
+    alpha_axis_deg: float | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "voltage_kv", physics.check_voltage_kv(self.voltage_kv))
@@ -96,6 +100,14 @@ class Calibration:
                     "check the unit (1/nm per pixel, not 1/Angstrom or nm)"
                 )
             object.__setattr__(self, "scale_inv_nm_per_px", s)
+        if self.alpha_axis_deg is not None:
+            try:
+                a = float(self.alpha_axis_deg)
+            except (TypeError, ValueError):
+                a = float("nan")
+            if not math.isfinite(a):
+                raise InputError(f"alpha-axis direction {self.alpha_axis_deg!r} must be a finite number of degrees")
+            object.__setattr__(self, "alpha_axis_deg", a % 360.0)
         if self.center_px is not None:
             c = tuple(float(v) for v in self.center_px)
             if len(c) != 2 or not all(math.isfinite(v) for v in c):
@@ -137,6 +149,7 @@ class Calibration:
             "pixel_pitch_um": self.pixel_pitch_um,
             "standard": self.standard,
             "date": self.date,
+            "alpha_axis_deg": self.alpha_axis_deg,
         }
         d.update(self.extra)
         return d
@@ -165,7 +178,8 @@ def calibration_from_options(*, scale_inv_nm_per_px=None, camera_length_mm=None,
             )
         if center_px is not None:
             return Calibration(base.scale_inv_nm_per_px, base.voltage_kv, tuple(center_px), base.ellipse,
-                               base.camera_length_mm, base.pixel_pitch_um, base.standard, base.date, base.source)
+                               base.camera_length_mm, base.pixel_pitch_um, base.standard, base.date, base.source,
+                               alpha_axis_deg=base.alpha_axis_deg)
         return base
     v = 200.0 if voltage_kv is None else voltage_kv
     scale = scale_inv_nm_per_px
@@ -202,6 +216,7 @@ _NUMBER_FIELDS = {
     "residual_pct": (0.0, 100.0, True),
     "scale_sigma_pct": (0.0, 100.0, True),
     "n_rings_used": (0.0, 1e4, True),
+    "alpha_axis_deg": (-3600.0, 3600.0, True),  # the holder's alpha axis on the detector (issue 15.11)
 }
 _TEXT_FIELDS = ("standard", "date", "image", "kind")
 
@@ -298,6 +313,7 @@ def validate_calibration_dict(d, *, where: str) -> Calibration:
             standard=d.get("standard"),
             date=d.get("date"),
             source=where,
+            alpha_axis_deg=nums["alpha_axis_deg"],
         )
     except InputError as exc:
         field_ = "voltage_kv" if "voltage" in str(exc) else "scale_inv_nm_per_px"

@@ -206,3 +206,49 @@ def test_length_tolerance_reaches_the_near_miss(monkeypatch, cobalt):
     m, _ = synthetic_measured(builtin_phase("Co-fcc"), [0, 0, 1], in_plane_rotation_deg=8.0, rng=4, max_g_inv_nm=13.0)
     index_pattern(m, cobalt, length_tol_pct=1.7)
     assert seen and all(v == pytest.approx(0.017) for v in seen)
+
+
+# ---------------------------------------------------------------- bug 4: the mistilt magnitude
+def _tilted_measured(phase, zone, tilt_deg, toward, thickness_nm, rotation_deg, *, scale=0.02, disorder=0.2, seed=0):
+    """Spots straight from saed's simulator (thickness-averaged sinc^2), as the image stage would measure them."""
+    from saed.calibration import Calibration
+    from saed.image.values import MeasuredPattern, Spots
+    from saed.simulate.zone import zone_pattern
+
+    zp = zone_pattern(phase, zone, max_g_inv_nm=9.0, include_holz=False, thickness_nm=thickness_nm,
+                      tilt_deg=tilt_deg, tilt_toward_hkl=toward)
+    rng = np.random.default_rng(seed)
+    keep = (np.asarray(zp.intensity) > 2e-4) & (np.asarray(zp.g_inv_nm) > 0)
+    xy = np.asarray(zp.xy_rotated_inv_nm(rotation_deg))[keep] / scale
+    inten = 1e4 * np.asarray(zp.intensity)[keep] * np.exp(rng.normal(0, disorder, keep.sum()))
+    c = (511.5, 511.5)
+    spots = Spots(c[0] + xy[:, 0], c[1] + xy[:, 1], inten, intensity_sigma=np.sqrt(inten),
+                  sigma_xy_px=np.full(len(inten), 0.1), snr=np.sqrt(inten))
+    return MeasuredPattern(image_shape=(1024, 1024), center_px=c, spots=spots, basis=None,
+                           calibration=Calibration(scale, 200.0, alpha_axis_deg=30.0), source="test"), zp
+
+
+@pytest.mark.parametrize("tilt,toward,thickness,constrained", [(0.5, (1, 1, -1), 60.0, True), (1.0, (2, 0, 0), 45.0, True),
+                                                                (1.0, (1, -1, 1), 90.0, False),
+                                                                (2.0, (0, 2, -2), 70.0, True)])
+def test_mistilt_magnitude_within_25_percent_when_marked_reliable(tilt, toward, thickness, constrained):
+    """The issue's failures were 1.0 -> 0.505 / 1.21 and 2.0 -> 3.07 deg, all marked reliable."""
+    co = builtin_phase("Co-fcc")
+    m, zp = _tilted_measured(co, [0, 1, 1], tilt, toward, thickness, 23.0)
+    mt = index_pattern(m, prepare_phases([co]), lookalikes=False).best.mistilt
+    assert mt is not None and mt.tilt_sigma_deg is not None
+    assert abs(mt.tilt_deg - tilt) <= 2 * mt.tilt_sigma_deg
+    if mt.reliable:
+        assert mt.tilt_deg == pytest.approx(tilt, rel=0.25)
+    # with spots on both sides of the Laue circle the fit is constrained and says so
+    assert mt.reliable is constrained
+    # the direction: the Laue-circle centre moves toward g (written here: U g projected, turned by 23 deg)
+    g = co.lattice.g_cartesian_inv_nm(toward) @ np.asarray(zp.orientation_matrix).T
+    want = (math.degrees(math.atan2(g[1], g[0])) + 23.0) % 360
+    assert abs((mt.laue_center_azimuth_deg - want + 180) % 360 - 180) < 10
+    # the calibration's alpha axis (30 deg) splits the correction: a rotation vector of length tilt about
+    # the axis at azimuth (centre - 90 deg), projected on the alpha axis and on the axis 90 deg further on
+    ax = math.radians(mt.correction_axis_deg)
+    ea = math.radians(30.0)
+    assert mt.alpha_deg == pytest.approx(mt.tilt_deg * math.cos(ax - ea), abs=1e-6)
+    assert mt.beta_deg == pytest.approx(mt.tilt_deg * math.sin(ax - ea), abs=1e-6)

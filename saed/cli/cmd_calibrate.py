@@ -38,6 +38,9 @@ def add_arguments(p):
                         "reports the measured value beside it")
     p.add_argument("--centre", "--center", dest="center", type=finite_float, nargs=2, metavar=("X", "Y"),
                    help="pattern centre hint, pixels (either spelling)")
+    p.add_argument("--alpha-axis", type=finite_float, metavar="DEG",
+                   help="direction of the holder's alpha tilt axis on the detector at this camera length (deg from +x "
+                        "toward +y), stored with the calibration so tilt advice comes as alpha/beta readings")
     add_image_arguments(p, positional=False)
     p.add_argument("--no-ellipse", action="store_true", help="assume circular rings (do not fit the ellipse)")
     p.add_argument("--spotty", action="store_true", help="accept spotty rings (coarse-grained film)")
@@ -119,7 +122,8 @@ def run_list(args) -> int:
             when = e.when.astimezone().strftime("%Y-%m-%d %H:%M%z") if e.when is not None else "-"
             print(f"{head:>7}{mark} {when:<22} {(c.standard or '-'):<10} {units.reciprocal(c.scale_inv_nm_per_px):>13.5g} "
                   f"{_fmt(c.implied_camera_length_mm, '9.2f'):>9} {_fmt(c.camera_constant_nm_mm, '.5f'):>14} "
-                  f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}")
+                  f"{ell:>14} {_fmt(e.residual_pct, '7.3f'):>7}  {e.path.name}"
+                  + (f"  (alpha axis {c.alpha_axis_deg:.1f} deg)" if c.alpha_axis_deg is not None else ""))
         print("* = the newest calibration of that camera length; lambda L = camera constant (wavelength x camera "
               "length), nm mm")
     for msg in problems:  # "unreadable: FILE: reason"; such a file is never chosen
@@ -147,6 +151,7 @@ def result_json(res, *, image: str, zone=None) -> dict:
         "pixel_pitch_um": cal.pixel_pitch_um,
         "scale_sigma_pct": round(100 * res.scale_sigma_rel, 5),
         "date": cal.date,
+        "alpha_axis_deg": cal.alpha_axis_deg,
         "notes": list(res.notes),
     }
     doc["rings"] = [{"radius_px": round(r[0], 3), "hkl": r[1], "d_nm_standard": r[2], "d_nm_measured": round(r[3], 6),
@@ -180,6 +185,10 @@ def run(args) -> int:
         res = calibrate_from_rings(image, standard, voltage_kv=voltage, pixel_pitch_um=args.pixel_pitch, mask=mask,
                                    center_px=args.center, fit_ellipse=not args.no_ellipse,
                                    tol_rel=args.tolerance / 100, allow_spots=args.spotty)
+    if args.alpha_axis is not None:
+        from dataclasses import replace as _replace
+
+        res = _replace(res, calibration=_replace(res.calibration, alpha_axis_deg=args.alpha_axis))
     doc = result_json(res, image=args.image, zone=zone)
     cal = res.calibration
     doc["warnings"] = _warnings(cal, args)
@@ -238,6 +247,8 @@ def _print(res, doc, args):
     kind = f"[{indices_text(doc['zone_axis'], st)}] zone pattern" if doc["zone_axis"] else "ring pattern"
     print(f"{cal.standard} {kind}, {cal.voltage_kv:g} kV (lambda = {wavelength_text(cal.wavelength_nm)})")
     print(f"  scale          {units.reciprocal(cal.scale_inv_nm_per_px):.5g} {inv} per px  (+-{doc['scale_sigma_pct']:.4f} %)")
+    if cal.alpha_axis_deg is not None:
+        print(f"  alpha axis     {cal.alpha_axis_deg:.1f} deg on the detector (stored for this camera length)")
     if cal.center_px:
         print(f"  centre         ({cal.center_px[0]:.2f}, {cal.center_px[1]:.2f}) px")
     if cal.ellipse:

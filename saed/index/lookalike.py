@@ -372,8 +372,17 @@ def sense_ambiguous(phase, uvw) -> bool:
     return not has_twofold_axis(uvw, phase.space_group)
 
 
+def _holder_text(phase, u_m, zone, alpha_axis_deg: float) -> tuple[str, tuple[float, float]]:
+    """Holder readings (from 0, 0) that put `zone` on the beam for orientation u_m, and their text."""
+    from saed.simulate.tilt import Holder, tilt_to_zone
+
+    st = tilt_to_zone(phase, u_m, zone, Holder(alpha_axis_deg=alpha_axis_deg, alpha_range_deg=(-90, 90),
+                                                beta_range_deg=(-90, 90)))
+    return f"alpha {st.alpha_deg:+.1f}, beta {st.beta_deg:+.1f} deg", (st.alpha_deg, st.beta_deg)
+
+
 def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv: float,
-                    g_max: float = 10.0) -> TiltAdvice | None:
+                    g_max: float = 10.0, holder_alpha_axis_deg: float | None = None) -> TiltAdvice | None:
     """The smallest tilt about a common row that reaches a zone where the two solutions differ.
 
     Candidate tilts are those that bring either phase to a low-index zone containing the row;
@@ -544,11 +553,29 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
                    if o1 is not None and o2 is not None and min(o1[4], o2[4]) >= 0.2 else
                    " (if no zone pattern appears by then, tilt the same amount the other way)"))
     tz = lambda o, k: None if o is None or o[k] is None else tuple(int(v) for v in o[k])  # noqa: E731
+    readings = turned_readings = None
+    if holder_alpha_axis_deg is not None:
+        # the same tilt as holder readings, counted from readings (0, 0) (approximate from others)
+        def via(o, u_a, u_b):
+            if o is None:
+                return None, ""
+            if o[0] is not None:
+                return _holder_text(pa, u_a, o[0], holder_alpha_axis_deg)[::-1]
+            return _holder_text(pb, u_b, o[1], holder_alpha_axis_deg)[::-1]
+
+        rz = np.diag([-1.0, -1.0, 1.0])  # 180 deg about the beam
+        readings, t1 = via(o1, ua, ub)
+        if ambiguous:
+            turned_readings, t2 = via(o2, rz @ ua, rz @ ub)
+        if t1:
+            text += (f"; as holder readings from (0, 0): {t1}" + (f" as reported, {t2} if turned 180 deg"
+                                                                  if ambiguous and turned_readings else ""))
     return TiltAdvice(angle_deg=float(omega), about_hkl=tuple(int(v) for v in za.hkl[ia]),
                       about_hkl_other=tuple(int(v) for v in zb.hkl[ib]), about_azimuth_deg=float(az),
                       target_zone=tz(o1, 0), other_target_zone=tz(o1, 1), text=text,
                       sense_ambiguous=bool(ambiguous), turned_target_zone=tz(o2, 0) if ambiguous else None,
-                      turned_other_target_zone=tz(o2, 1) if ambiguous else None)
+                      turned_other_target_zone=tz(o2, 1) if ambiguous else None, holder_readings_deg=readings,
+                      turned_holder_readings_deg=turned_readings)
 
 
 # ---------------------------------------------------------------------- annotate ranked solutions
@@ -607,7 +634,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
         if rank == 0:
             looks += _lookalikes_of_best(s, f, kept[1:], scored, measured, tables, spots, g_max=g_max,
                                          calibrated=calibrated, min_score=min_score, length_tol=length_tol,
-                                         rel_pos_tol=rel_pos_tol)
+                                         rel_pos_tol=rel_pos_tol, holder_alpha_axis_deg=holder_alpha_axis_deg)
             for lk in looks:
                 if lk.relation == "ambiguous":
                     notes.append(f"ambiguous with {lk.phase_name} [{_lk_zone(lk)}]: {lk.separating}"
@@ -681,14 +708,15 @@ def row_near_miss(phase_index: int, best: Solution, measured, tables, spots, *, 
 
 
 def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *, g_max, calibrated, min_score,
-                        length_tol, rel_pos_tol):
+                        length_tol, rel_pos_tol, holder_alpha_axis_deg=None):
     looks = []
     seen_phases = {best.phase_name}
     for s, f, _ in others[:6]:
         if s.score < best.score - 0.15 or len(looks) >= 3:
             continue
         rel, text, need_tilt = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-        tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots))
+        tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots),
+                                holder_alpha_axis_deg=holder_alpha_axis_deg)
                 if need_tilt else None)
         looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text, tilt,
                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))

@@ -66,7 +66,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         Tolerance of the calibrated scale, percent (default 3 %). Ignored when uncalibrated.
     holder_alpha_axis_deg : float, optional
         Direction of the holder's alpha tilt axis on the detector (deg from +x toward +y), to
-        express the mistilt correction as alpha/beta tilts.
+        express the mistilt correction and the separating tilts as alpha/beta tilts (default: the
+        calibration's ``alpha_axis_deg``, when it has one).
     lookalikes : bool
         Analyse look-alikes and suggest separating tilts (a few ms per solution).
     max_zone_index : int
@@ -116,6 +117,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         return IndexResult(measured, (), f"the {n} spots lie on one line: a single systematic row cannot fix a "
                            "zone axis (tilt to a zone where a second row is excited)", phases=names)
     pitch = cal.pixel_pitch_um if cal is not None else None
+    if holder_alpha_axis_deg is None and cal is not None:
+        holder_alpha_axis_deg = cal.alpha_axis_deg  # measured for this camera length, in the calibration file
     solutions, n_cand = _solve(measured, tables, spots, scale=scale, length_tol=length_tol, angle_tol=angle_tol,
                                pitch=pitch, max_zone_index=max_zone_index)
     notes: list[str] = []

@@ -7,18 +7,32 @@ vector, 1/nm) has the excitation error
     s_g = (2 c . g - |g|^2) / (2 k),      |c| = k sin(theta),
 
 where c is the centre of the Laue circle and k = 1/lambda (small-angle form of the exact
-geometry in :mod:`saed.simulate.zone`). Spots near the circle are bright. The fit models
-log I_g = log A + log |F_g|^2 - (s_g / w)^2 (a Gaussian stand-in for the rocking curve of width
-w) and minimises the absolute log residuals (robust: dynamical intensities differ from the
-kinematic ones), first on a polar grid of c, then locally.
+geometry in :mod:`saed.simulate.zone`). Spots near the circle are bright. The fit models the
+intensities with the same rocking curve saed's simulator uses, the foil shape factor
+sinc^2(pi t s) averaged over a thickness range t (1 +/- 0.5) (:func:`saed.simulate.zone.shape_factor`):
+
+    log I_g = log A + log |F_g|^2 + log <sinc^2(pi t s_g)>,
+
+with A, c and the thickness t free, and minimises the absolute log residuals (robust: dynamical
+intensities differ from the kinematic ones), first on a grid of (tilt, azimuth, t), then locally.
+An earlier version used a Gaussian rocking curve, which is much narrower in its tails than the
+thickness-averaged sinc^2 (a power law, ~1 / (pi s t)^2): it came back up to 50 % off.
+
+The uncertainty is the least-squares one (from the Jacobian at the optimum, robust residual
+scale), multiplied by :data:`SIGMA_CALIBRATION` and floored at :data:`SIGMA_FLOOR_DEG`, so that the
+truth falls within two sigma in about 95 % of the simulated tilts of :mod:`saed.bench.bench_mistilt`. The estimate is
+marked ``reliable`` only where that benchmark found it within 25 % of the truth: tilts in
+:data:`RELIABLE_TILT_RANGE_DEG`, at least eight spots in more than one direction, and a
+relative uncertainty of at most 25 %.
 
 The correction is the rotation of the specimen by theta about the in-plane axis
 perpendicular to c (right-handed about c x z), which moves the zone axis back onto the beam and
 the Laue-circle centre back into 000.
 
 References: Williams & Carter, *Transmission Electron Microscopy* (2009), ch. 12 and 17
-(Laue circle, excitation error); Edington, vol. 2 (1975), ch. 2 (centring a zone from the
-intensity distribution).
+(Laue circle, excitation error, the sinc^2 shape factor of a thin foil); Hirsch, Howie,
+Nicholson, Pashley & Whelan, *Electron Microscopy of Thin Crystals* (1965), ch. 4; Edington,
+vol. 2 (1975), ch. 2 (centring a zone from the intensity distribution).
 """
 
 from __future__ import annotations
@@ -30,14 +44,32 @@ import numpy as np
 
 from saed.index.values import Mistilt, Solution
 from saed.physics import electron_wavelength_nm
+from saed.simulate.zone import shape_factor
 
-__all__ = ["fit_laue_circle", "mistilt_of", "with_mistilt", "MAX_FIT_TILT_DEG"]
+__all__ = ["fit_laue_circle", "mistilt_of", "with_mistilt", "MAX_FIT_TILT_DEG", "RELIABLE_TILT_RANGE_DEG",
+           "SIGMA_CALIBRATION"]
 
 #: Largest tilt searched, degrees (beyond this the pattern no longer looks like a zone pattern).
 MAX_FIT_TILT_DEG = 3.0
 
 #: Below this tilt the pattern counts as on the zone (intensity fits cannot resolve less).
 ON_ZONE_DEG = 0.15
+
+#: Tilts (deg) for which the benchmark (saed/bench/bench_mistilt.py) found the estimate within 25 %.
+RELIABLE_TILT_RANGE_DEG = (0.35, 2.6)
+
+#: Factor on the least-squares uncertainty so that 2 sigma covers the truth in ~95 % of the benchmark.
+SIGMA_CALIBRATION = 3.0
+
+#: Floor of the uncertainty, deg + fraction of the tilt (the benchmark's scatter with intensity disorder).
+SIGMA_FLOOR_DEG = (0.05, 0.07)
+
+#: Thickness spread of the shape factor (as the simulator's default).
+THICKNESS_SPREAD = 0.5
+
+
+def _log_shape(s: np.ndarray, t_nm: float) -> np.ndarray:
+    return np.log(np.maximum(shape_factor(s, t_nm, THICKNESS_SPREAD), 1e-12))
 
 
 def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: np.ndarray, *, voltage_kv: float):
@@ -52,14 +84,15 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
 
     Returns
     -------
-    (c_xy_inv_nm, tilt_deg, gain) : the centre, the tilt angle and the fractional drop of the
-        robust residual against an on-zone fit (0: no evidence of tilt, 1: perfect).
+    (c_xy_inv_nm, tilt_deg, gain, tilt_sigma_deg, thickness_nm) : the centre, the tilt angle, the
+        fractional drop of the robust residual against an on-zone fit (0: no evidence of tilt,
+        1: perfect), the calibrated one-sigma uncertainty of the tilt and the fitted thickness.
     """
     g = np.asarray(g_xy_inv_nm, float).reshape(-1, 2)
     y = np.log(np.asarray(intensity, float)) - np.log(np.asarray(kinematic, float))
     k = 1.0 / electron_wavelength_nm(voltage_kv)
     g2 = np.sum(g * g, axis=1)
-    widths = np.geomspace(0.004, 0.3, 9)
+    thick = np.geomspace(12.0, 300.0, 10)
     th = np.radians(np.linspace(0.0, MAX_FIT_TILT_DEG, 31))
     az = np.radians(np.arange(0.0, 360.0, 6.0))
     cr = (k * np.sin(th))[:, None] * np.ones_like(az)[None, :]
@@ -67,41 +100,73 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
     cy = (cr * np.sin(az)[None, :]).ravel()
     s = (2.0 * (cx[:, None] * g[None, :, 0] + cy[:, None] * g[None, :, 1]) - g2[None, :]) / (2.0 * k)  # (m, n)
 
-    def cost_grid(w):  # least squares with a free offset (the robust fit follows)
-        r = y[None, :] + (s / w) ** 2
-        return np.sum((r - r.mean(axis=1, keepdims=True)) ** 2, axis=1)
+    def robust_cost(r):
+        return np.sum(np.abs(r - np.median(r, axis=-1, keepdims=True)), axis=-1)
 
-    best = (np.inf, 0, widths[0])
-    for w in widths:
-        c = cost_grid(w)
+    best = (np.inf, 0, thick[0])
+    for t in thick:
+        c = robust_cost(y[None, :] - _log_shape(s, t))
         i = int(np.argmin(c))
         if c[i] < best[0]:
-            best = (float(c[i]), i, w)
+            best = (float(c[i]), i, t)
 
     def resid(p):
-        c_vec, lw = p[:2], p[2]
+        c_vec, lt = p[:2], p[2]
         ss = (2.0 * (g @ c_vec) - g2) / (2.0 * k)
-        pred = -(ss / math.exp(lw)) ** 2
-        r = y - pred
+        r = y - _log_shape(ss, math.exp(lt))
         return r - np.median(r)
 
     p0 = np.array([cx[best[1]], cy[best[1]], math.log(best[2])])
+    sol = None
     try:
         from scipy import optimize  # here, not at import: scipy.optimize costs a quarter second of start-up
 
-        sol = optimize.least_squares(resid, p0, loss="soft_l1", f_scale=0.5, max_nfev=200)
-        p = sol.x if np.all(np.isfinite(sol.x)) else p0
+        sol = optimize.least_squares(resid, p0, loss="soft_l1", f_scale=0.5, max_nfev=300,
+                                     bounds=([-np.inf, -np.inf, math.log(5.0)], [np.inf, np.inf, math.log(600.0)]))
+        p = sol.x if np.all(np.isfinite(sol.x)) and robust_cost(resid(sol.x)) <= best[0] + 1e-9 else p0
     except (ValueError, np.linalg.LinAlgError):
         p = p0
     c_vec = p[:2]
     tilt = math.degrees(math.asin(min(1.0, float(np.linalg.norm(c_vec)) / k)))
     if tilt > MAX_FIT_TILT_DEG * 1.2:
+        p = p0
         c_vec = p0[:2]
         tilt = math.degrees(math.asin(min(1.0, float(np.linalg.norm(c_vec)) / k)))
-    cost_fit = float(np.sum(np.abs(resid(np.array([c_vec[0], c_vec[1], p[2]])))))
-    cost0 = min(float(np.sum(np.abs(resid(np.array([0.0, 0.0, math.log(w)]))))) for w in widths)
+    cost_fit = float(robust_cost(resid(p)))
+    zero = np.zeros(len(g)) - g2 / (2.0 * k)
+    cost0 = min(float(robust_cost(y - _log_shape(zero, t))) for t in thick)
     gain = 0.0 if cost0 <= 0 else max(0.0, 1.0 - cost_fit / cost0)
-    return c_vec, tilt, gain
+    sigma = _tilt_sigma_deg(resid, p, k)
+    return c_vec, tilt, gain, sigma, float(math.exp(p[2]))
+
+
+def _tilt_sigma_deg(resid, p: np.ndarray, k: float) -> float:
+    """Calibrated one-sigma uncertainty of the tilt from the Jacobian at the optimum (deg)."""
+    r0 = resid(p)
+    n = len(r0)
+    if n <= 4:
+        return float("inf")
+    jac = np.empty((n, 3))
+    for i in range(3):
+        dp = np.zeros(3)
+        h = 1e-4 * max(1.0, abs(p[i])) if i == 2 else 1e-3
+        dp[i] = h
+        jac[:, i] = (resid(p + dp) - resid(p - dp)) / (2 * h)
+    scale = 1.4826 * float(np.median(np.abs(r0 - np.median(r0))))  # robust sigma of the residuals
+    try:
+        cov = np.linalg.pinv(jac.T @ jac) * max(scale, 0.05) ** 2 * n / (n - 3)
+    except np.linalg.LinAlgError:
+        return float("inf")
+    c = p[:2]
+    rad = float(np.linalg.norm(c))
+    if rad > 1e-9:
+        u = c / rad
+        var_r = float(u @ cov[:2, :2] @ u)
+    else:
+        var_r = float(np.trace(cov[:2, :2]))
+    sigma_c = math.sqrt(max(var_r, 0.0))
+    tilt = math.degrees(math.asin(min(1.0, rad / k)))
+    return max(SIGMA_CALIBRATION * math.degrees(sigma_c / k), SIGMA_FLOOR_DEG[0] + SIGMA_FLOOR_DEG[1] * tilt)
 
 
 def mistilt_of(sol: Solution, *, voltage_kv: float, center_px, holder_alpha_axis_deg: float | None = None) -> Mistilt | None:
@@ -115,9 +180,14 @@ def mistilt_of(sol: Solution, *, voltage_kv: float, center_px, holder_alpha_axis
     ang = np.arctan2(v[:, 1], v[:, 0])
     spread = float(np.hypot(np.mean(np.cos(2 * ang)), np.mean(np.sin(2 * ang))))
     g = v * sol.scale_inv_nm_per_px
-    c_vec, tilt, gain = fit_laue_circle(g, np.array([r.intensity for r in recs]),
-                                        np.array([r.intensity_calc for r in recs]), voltage_kv=voltage_kv)
-    reliable = len(recs) >= 8 and spread < 0.9 and (gain >= 0.15 or tilt < ON_ZONE_DEG)
+    c_vec, tilt, gain, sigma, _ = fit_laue_circle(g, np.array([r.intensity for r in recs]),
+                                                  np.array([r.intensity_calc for r in recs]), voltage_kv=voltage_kv)
+    lo, hi = RELIABLE_TILT_RANGE_DEG
+    constrained = len(recs) >= 8 and spread < 0.9
+    if tilt < ON_ZONE_DEG:
+        reliable = constrained and sigma <= lo
+    else:
+        reliable = constrained and gain >= 0.15 and lo <= tilt <= hi and sigma <= 0.25 * tilt
     az = math.degrees(math.atan2(c_vec[1], c_vec[0])) % 360.0
     radius_px = float(np.linalg.norm(c_vec)) / sol.scale_inv_nm_per_px
     centre_px = (cx + c_vec[0] / sol.scale_inv_nm_per_px, cy + c_vec[1] / sol.scale_inv_nm_per_px)
@@ -130,20 +200,28 @@ def mistilt_of(sol: Solution, *, voltage_kv: float, center_px, holder_alpha_axis
         e_alpha = np.array([math.cos(ea), math.sin(ea)])
         e_beta = np.array([-math.sin(ea), math.cos(ea)])
         alpha, beta = float(omega @ e_alpha), float(omega @ e_beta)
+    sig_txt = f"+/- {sigma:.1f}" if math.isfinite(sigma) and sigma < 10 else "uncertain"
     if tilt < ON_ZONE_DEG and reliable:
         advice = f"on the zone (beam tilt below {ON_ZONE_DEG:.2f} deg)"
     elif not reliable:
-        advice = (f"beam tilt roughly {tilt:.1f} deg (uncertain: too few or too symmetric spot intensities to fit "
-                  "the Laue circle)")
+        why = ("too few or too symmetric spot intensities to fit the Laue circle" if not constrained else
+               f"outside {lo:g}-{hi:g} deg, where the intensity fit is checked" if not lo <= tilt <= hi else
+               "the spot intensities constrain it poorly")
+        advice = f"beam tilt roughly {tilt:.1f} deg ({sig_txt} deg; not reliable: {why})"
     else:
         side = _compass(az)
-        advice = (f"beam {tilt:.1f} deg off the zone, brightest toward {side} (azimuth {az:.0f} deg): tilt the "
-                  f"specimen {tilt:.1f} deg about the in-plane axis at {axis_az:.0f} deg to centre the Laue circle")
         if alpha is not None:
-            advice += f" (about alpha {alpha:+.1f} deg, beta {beta:+.1f} deg)"
+            advice = (f"beam {tilt:.1f} {sig_txt} deg off the zone, brightest toward {side}: tilt alpha {alpha:+.1f} deg "
+                      f"and beta {beta:+.1f} deg to centre the Laue circle (a right-handed turn of "
+                      f"{tilt:.1f} deg about the in-plane axis at {axis_az:.0f} deg; check the holder's signs once)")
+        else:
+            advice = (f"beam {tilt:.1f} {sig_txt} deg off the zone, brightest toward {side} (azimuth {az:.0f} deg): tilt "
+                      f"the specimen {tilt:.1f} deg about the in-plane axis at {axis_az:.0f} deg to centre the Laue "
+                      "circle (give the holder's alpha-axis direction, --alpha-axis or in the calibration, for alpha/beta)")
     return Mistilt(tilt_deg=float(tilt), laue_center_azimuth_deg=float(az), laue_center_px=(float(centre_px[0]),
                    float(centre_px[1])), laue_radius_px=radius_px, correction_axis_deg=float(axis_az),
-                   reliable=bool(reliable), advice=advice, alpha_deg=alpha, beta_deg=beta)
+                   reliable=bool(reliable), advice=advice, alpha_deg=alpha, beta_deg=beta,
+                   tilt_sigma_deg=float(sigma) if math.isfinite(sigma) else None)
 
 
 def _compass(az_deg: float) -> str:

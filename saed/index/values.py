@@ -70,7 +70,9 @@ class Mistilt:
     ``correction_axis_deg``: azimuth of the in-plane axis about which the specimen must turn by
     ``tilt_deg`` (right-handed) to bring the zone back onto the beam. ``alpha_deg``/``beta_deg``:
     the same correction split onto the holder axes, when the alpha axis direction is known.
-    ``reliable`` is False when too few spots constrain the fit (then only ``advice`` is shown).
+    ``tilt_sigma_deg``: one-sigma uncertainty of ``tilt_deg``, calibrated on simulated tilts.
+    ``reliable`` is True only where the benchmark found the estimate within 25 %
+    (:mod:`saed.index.mistilt`); otherwise only ``advice`` is shown.
     """
 
     tilt_deg: float
@@ -82,6 +84,7 @@ class Mistilt:
     advice: str
     alpha_deg: float | None = None
     beta_deg: float | None = None
+    tilt_sigma_deg: float | None = None
 
 
 @dataclass(frozen=True)
@@ -97,6 +100,8 @@ class TiltAdvice:
     turned 180 deg about the beam (a zone that is not a two-fold axis); then the same tilt reaches
     ``turned_target_zone`` / ``turned_other_target_zone`` under that other reading (equivalently,
     the reported orientation reaches them with the opposite sense).
+    ``holder_readings_deg`` (alpha, beta): the same tilt as holder readings counted from (0, 0), when
+    the alpha-axis direction is known (``turned_holder_readings_deg`` for the turned reading).
     """
 
     angle_deg: float
@@ -109,6 +114,8 @@ class TiltAdvice:
     sense_ambiguous: bool = False
     turned_target_zone: tuple[int, ...] | None = None
     turned_other_target_zone: tuple[int, ...] | None = None
+    holder_readings_deg: tuple[float, float] | None = None
+    turned_holder_readings_deg: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)

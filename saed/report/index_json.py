@@ -40,6 +40,7 @@ def _mistilt_json(m: Mistilt | None):
             "laue_center_px": [_num(m.laue_center_px[0], 2), _num(m.laue_center_px[1], 2)],
             "laue_radius_px": _num(m.laue_radius_px, 2), "correction_axis_deg": _num(m.correction_axis_deg, 1),
             "alpha_deg": _num(m.alpha_deg, 2), "beta_deg": _num(m.beta_deg, 2), "reliable": m.reliable,
+            "tilt_sigma_deg": _num(m.tilt_sigma_deg, 3),
             "advice": m.advice}
 
 
@@ -54,7 +55,10 @@ def _lookalike_json(lk: Lookalike) -> dict:
             "about_azimuth_deg": _num(t.about_azimuth_deg, 1), "target_zone": _ints(t.target_zone),
             "other_target_zone": _ints(t.other_target_zone), "text": t.text,
             "sense_ambiguous_180": t.sense_ambiguous, "turned_target_zone": _ints(t.turned_target_zone),
-            "turned_other_target_zone": _ints(t.turned_other_target_zone)},
+            "turned_other_target_zone": _ints(t.turned_other_target_zone),
+            "holder_readings_deg": None if t.holder_readings_deg is None else [_num(v, 2) for v in t.holder_readings_deg],
+            "turned_holder_readings_deg": (None if t.turned_holder_readings_deg is None
+                                           else [_num(v, 2) for v in t.turned_holder_readings_deg])},
     }
 
 
