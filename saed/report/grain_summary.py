@@ -1,0 +1,62 @@
+"""The terminal summary of ``saed grain``."""
+
+from __future__ import annotations
+
+from saed.crystal.miller import format_indices
+from saed.index.grain import GrainResult
+
+__all__ = ["format_grain_summary"]
+
+
+def _zone(p) -> str:
+    return "[" + format_indices(p.zone_axis_4 if p.zone_axis_4 is not None else p.zone_axis) + "]"
+
+
+def format_grain_summary(res: GrainResult, *, alpha_axis_note: str = "") -> str:
+    """Answer first, then each pattern's zone and misfit, the look-alikes and the next pattern to record."""
+    lines = []
+    names = ", ".join(f"{gp.image} (alpha {gp.tilt_deg[0]:+.1f}, beta {gp.tilt_deg[1]:+.1f} deg)" for gp in res.patterns)
+    lines.append(f"grain series: {names}")
+    if alpha_axis_note:
+        lines.append(alpha_axis_note)
+    full = [s for s in res.solutions if not s.missing]
+    if res.message:
+        lines.append(f"no joint solution: {res.message}" if not res.message.startswith("no joint") else res.message)
+    if full:
+        b = full[0]
+        undecided = [lk for lk in res.lookalikes if lk.relation == "undecided"]
+        lines.append("")
+        lines.append(f"answer: {b.phase_name}, one orientation for all {len(b.patterns)} patterns  "
+                     f"({'still open, see below' if undecided else 'settled by the series'}; joint score "
+                     f"{b.score:.2f}, 1 = every spot fits)")
+        lines.append("  Euler angles (Bunge Z X Z, deg): " + ", ".join(f"{v:.1f}" for v in b.euler_bunge_deg)
+                     + "   (detector frame of the first pattern at readings 0, 0)")
+        lines.append("  orientation matrix U0: " + "  ".join("[" + " ".join(f"{v:+.4f}" for v in row) + "]"
+                                                          for row in b.orientation_matrix))
+    shown = full[:1] if full else res.solutions[:1]
+    for s in shown:
+        lines.append("")
+        lines.append(f"  {'pattern':<28} {'alpha':>7} {'beta':>7}  {'zone':<14} {'misfit':>8}  {'spots':>5}  note")
+        for p in s.patterns:
+            note = "180-degree reading of the single-pattern answer" if p.turned else ""
+            lines.append(f"  {p.image[-28:]:<28} {p.tilt_deg[0]:+7.1f} {p.tilt_deg[1]:+7.1f}  {_zone(p):<14} "
+                         f"{p.misfit_deg:6.2f} deg  {p.n_spots:>5}  {note}")
+        for m in s.missing:
+            lines.append(f"  {m[-28:]:<28} fits no orientation the others share")
+    if res.lookalikes:
+        lines.append("")
+        lines.append("look-alikes one pattern could not separate:")
+        for lk in res.lookalikes:
+            lines.append(f"  {lk.phase_name}: {'ruled out' if lk.relation == 'decided' else 'NOT decided'} - {lk.evidence}")
+    if res.third_pattern is not None:
+        lines.append("")
+        lines.append(f"to settle it: {res.third_pattern.text}")
+    if not full:
+        lines.append("")
+        lines.append("per-pattern answers:")
+        for gp in res.patterns:
+            b = gp.result.best
+            z = (format_indices(b.zone_axis_4 if b.zone_axis_4 is not None else b.zone_axis)) if b else ""
+            lines.append(f"  {gp.image}: " + (f"{b.phase_name} [{z}] (score {b.score:.2f})" if b else
+                                                 (gp.result.message or "no solution")))
+    return "\n".join(lines)

@@ -1,0 +1,207 @@
+"""``saed grain``: one orientation from several patterns of one grain at recorded holder readings.
+
+Check values are worked out in the test: the holder rotation H = R(e_alpha, alpha) R(e_beta, beta)
+(e_alpha on the detector at the alpha-axis azimuth, e_beta = z x e_alpha; the convention stated in
+docs/conventions.md and saed/simulate/tilt.py) with Rodrigues' formula, the readings that put a
+zone on the beam from the geometry of that product, the 24 proper rotations of a cubic crystal as
+signed permutation matrices of determinant +1 (International Tables vol. A, point group 432), and
+Bunge's Euler-angle matrix (Bunge, *Texture Analysis in Materials Science*, 1982, eq. 2.37:
+g = Rz(phi2) Rx(Phi) Rz(phi1), passive). Co-fcc a = 0.35447 nm (built-in table; from memory).
+The patterns are drawn by saed's synthetic detector (the image generator, not the code under test).
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+import tifffile
+from hypothesis import given, settings, strategies as st
+
+from saed.crystal import builtin_phase
+from saed.errors import InputError
+from saed.index.synthetic import synthetic_image
+from saed.simulate.geometry import orientation_matrix
+
+SCALE = 13.0 / (0.46 * 512)
+
+
+def _rod(axis, deg):
+    k = np.asarray(axis, float) / np.linalg.norm(axis)
+    kx = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
+    a = math.radians(deg)
+    return np.eye(3) + math.sin(a) * kx + (1 - math.cos(a)) * (kx @ kx)
+
+
+def _holder(axis_deg, alpha, beta):
+    ea = np.array([math.cos(math.radians(axis_deg)), math.sin(math.radians(axis_deg)), 0.0])
+    eb = np.cross([0, 0, 1.0], ea)
+    return _rod(ea, alpha) @ _rod(eb, beta)
+
+
+def _readings(d, axis_deg):
+    """alpha, beta with H(alpha, beta) d = z: R(e_b, beta) d = R(e_a, -alpha) z; solved component-wise."""
+    ea = np.array([math.cos(math.radians(axis_deg)), math.sin(math.radians(axis_deg)), 0.0])
+    eb = np.cross([0, 0, 1.0], ea)
+    x, y, z = d @ ea, d @ eb, d[2]
+    alpha = math.degrees(math.asin(y))
+    beta = math.degrees(math.atan2(-x, z))
+    assert np.allclose(_holder(axis_deg, alpha, beta) @ d, [0, 0, 1], atol=1e-9)  # the test's own check
+    return alpha, beta
+
+
+CUBIC = [np.array(p) * np.array(s)[:, None] for p in itertools.permutations(np.eye(3))
+         for s in itertools.product((1, -1), repeat=3)]
+CUBIC = [m for m in CUBIC if round(np.linalg.det(m)) == 1]
+
+
+def _cubic_misorientation(u, v):
+    return min(math.degrees(math.acos(max(-1, min(1, (np.trace(u @ s @ v.T) - 1) / 2)))) for s in CUBIC)
+
+
+def _series(tmp_path, zones, *, axis=25.0, rot=40.0, noise=0.4, seed=3, first=(4.0, -3.0), phase="Co-fcc"):
+    """Images of one grain at the readings that put each zone on the beam; truth U0 at readings (0, 0)."""
+    ph = builtin_phase(phase)
+    rng = np.random.default_rng(seed)
+    u1 = orientation_matrix(ph.lattice, zones[0], rot)
+    u0 = _holder(axis, *first).T @ u1
+    paths, tilts = [], []
+    for k, z in enumerate(zones):
+        r = ph.lattice.r_cartesian_nm(z)
+        a, b = first if k == 0 else _readings(u0 @ (r / np.linalg.norm(r)), axis)
+        u = _holder(axis, a, b) @ u0
+        m = u @ orientation_matrix(ph.lattice, z, 0.0).T  # = Rz(phi) on the zone
+        assert abs(m[2, 2] - 1) < 1e-9
+        pat, _ = synthetic_image(ph, z, scale_inv_nm_per_px=SCALE, in_plane_rotation_deg=math.degrees(
+            math.atan2(m[1, 0], m[0, 0])), image_shape=(512, 512), max_g_inv_nm=13.0, rng=rng)
+        p = tmp_path / f"p{k + 1}.tif"
+        tifffile.imwrite(p, pat.image)
+        paths.append(str(p))
+        tilts.append((a + rng.uniform(-noise, noise), b + rng.uniform(-noise, noise)))
+    return paths, tilts, u0
+
+
+@dataclass
+class _Done:
+    returncode: int
+    stdout: str
+    stderr: str
+
+
+def _run(args, capsys):
+    """`saed grain ARGS` in this process (the command-line entry point, without a start-up per call)."""
+    from saed.cli import main
+
+    capsys.readouterr()
+    try:
+        code = main(["grain", *args])
+    except SystemExit as exc:  # argparse refusals
+        code = exc.code
+    out = capsys.readouterr()
+    return _Done(code, out.out, out.err)
+
+
+def _tilt_args(tilts):
+    out = []
+    for a, b in tilts:
+        out += ["--tilt", f"{a:.3f},{b:.3f}"]
+    return out
+
+
+def test_fcc_112_and_111_give_one_orientation_and_rule_out_hcp(tmp_path, capsys):
+    """The look-alike pair: fcc [112] alone fits hcp [01-10] too; with [111] at the recorded tilt only fcc fits."""
+    paths, tilts, u0 = _series(tmp_path, [(1, 1, 2), (1, 1, 1)])
+    # the tilt between them is the [112]-[111] angle, acos(4 / sqrt(18)) = 19.47 deg (cubic geometry)
+    out = tmp_path / "g.json"
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Co-fcc", "--phase", "Co-hcp", "--scale", f"{SCALE}",
+              "--alpha-axis", "25", "--json", str(out)], capsys)
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(out.read_text())
+    best = doc["solutions"][0]
+    assert best["phase"] == "Co-fcc" and best["joint"]
+    u = np.array(best["orientation_matrix"])
+    assert _cubic_misorientation(u, u0) < 2.0
+    # Bunge: g = U^T = Rz(phi2) Rx(Phi) Rz(phi1)
+    p1, pp, p2 = np.radians(best["euler_bunge_deg"])
+    rz = lambda t: np.array([[math.cos(t), math.sin(t), 0], [-math.sin(t), math.cos(t), 0], [0, 0, 1]])  # noqa: E731
+    rx = np.array([[1, 0, 0], [0, math.cos(pp), math.sin(pp)], [0, -math.sin(pp), math.cos(pp)]])
+    assert np.allclose(rz(p2) @ rx @ rz(p1), u.T, atol=1e-4)
+    zones = [sorted(map(abs, p["zone_axis"])) for p in best["patterns"]]
+    assert zones == [[1, 1, 2], [1, 1, 1]]
+    assert all(p["misfit_deg"] < 2.0 for p in best["patterns"])
+    hcp = [lk for lk in doc["lookalikes"] if lk["phase"] == "Co-hcp"]
+    assert hcp and hcp[0]["relation"] == "decided"
+    assert "Co-fcc" in r.stdout and "settled" in r.stdout
+
+
+def test_the_180_degree_reading_is_settled_by_the_second_pattern(tmp_path, capsys):
+    """fcc [111] is no two-fold axis: one pattern fits U and Rz(180) U (60 deg apart in cubic terms); two decide."""
+    paths, tilts, u0 = _series(tmp_path, [(1, 1, 1), (0, 1, 1)], rot=12.0, axis=-40.0, seed=5)
+    h1 = _holder(-40.0, 4.0, -3.0)  # the first pattern's readings: the turn is about the beam there
+    turned = h1.T @ _rod([0, 0, 1], 180) @ h1 @ u0
+    assert _cubic_misorientation(turned, u0) == pytest.approx(60.0, abs=1e-6)
+    from saed.calibration import Calibration, write_calibration_file
+
+    cal = tmp_path / "cal.json"
+    write_calibration_file(Calibration(SCALE, 200.0, alpha_axis_deg=-40.0), cal)
+    out = tmp_path / "g.json"
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Co-fcc", "--calibration", str(cal), "--json", str(out)],
+             capsys)
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(out.read_text())
+    u = np.array(doc["solutions"][0]["orientation_matrix"])
+    assert _cubic_misorientation(u, u0) < 2.0
+    assert doc["per_pattern"][0]["solutions"][0]["sense_ambiguous_180"] is True
+    assert doc["inputs"][0]["alpha_axis_deg"] == pytest.approx(320.0)  # from the calibration file (-40 = 320)
+
+
+def test_a_pattern_of_another_grain_is_named(tmp_path, capsys):
+    paths, tilts, _ = _series(tmp_path, [(1, 1, 2), (1, 1, 1), (0, 1, 1)], seed=7)
+    sub = tmp_path / "other"
+    sub.mkdir()
+    other, _, _ = _series(sub, [(0, 0, 1)], rot=71.0, seed=9, first=(-8.0, 6.0))  # a grain on [001] elsewhere
+    paths[2] = other[0]
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Co-fcc", "--scale", f"{SCALE}", "--alpha-axis", "25"],
+             capsys)
+    assert r.returncode == 0, r.stderr
+    assert "no joint solution" in r.stdout
+    assert other[0] in r.stdout.split("no joint solution")[1].splitlines()[0]
+
+
+@pytest.mark.parametrize("extra,needle", [
+    (["--tilt", "0,0"], "--tilt"),
+    (["--tilt", "0,0", "--tilt", "95,0"], "-90..90"),
+    (["--tilt", "0,0", "--tilt", "abc"], "ALPHA,BETA"),
+    (["--tilt", "1,2", "--tilt", "1,2"], "same holder readings"),
+])
+def test_bad_tilts_exit_2_with_one_line(tmp_path, extra, needle, capsys):
+    img = tmp_path / "a.tif"
+    tifffile.imwrite(img, np.zeros((64, 64), np.uint16))
+    r = _run([str(img), str(img), *extra, "--scale", "0.02"], capsys)
+    assert r.returncode == 2
+    assert needle in r.stderr and "Traceback" not in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_images_of_different_camera_lengths_need_their_own_calibrations(tmp_path, capsys):
+    a, b = tmp_path / "a.tif", tmp_path / "b.tif"
+    img = np.zeros((64, 64), np.uint16)
+    tifffile.imwrite(a, img, imagej=True, resolution=(1 / 0.02, 1 / 0.02), metadata={"unit": "1/nm"})
+    tifffile.imwrite(b, img, imagej=True, resolution=(1 / 0.03, 1 / 0.03), metadata={"unit": "1/nm"})
+    r = _run([str(a), str(b), "--tilt", "0,0", "--tilt", "10,0", "--scale", "0.02"], capsys)
+    assert r.returncode == 2 and "different camera lengths" in r.stderr and "Traceback" not in r.stderr
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.text(max_size=20))
+def test_tilt_parser_never_raises_anything_but_input_error(text):
+    from saed.cli.cmd_grain import parse_tilt
+
+    try:
+        a, b = parse_tilt(text)
+    except InputError:
+        return
+    assert abs(a) <= 90 and abs(b) <= 90
