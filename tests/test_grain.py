@@ -205,3 +205,27 @@ def test_tilt_parser_never_raises_anything_but_input_error(text):
     except InputError:
         return
     assert abs(a) <= 90 and abs(b) <= 90
+
+
+def test_a_third_pattern_is_named_when_the_recorded_zones_cannot_separate(tmp_path, capsys):
+    """Cr (bcc) vs NiAl (B2): the B2 superlattice spots (h+k+l odd) lie in no zone [uvw] with u, v, w all odd,
+    so [111] and [113] separate nothing; the third zone must hold such spots and be reached by the readings."""
+    paths, tilts, u0 = _series(tmp_path, [(1, 1, 1), (1, 1, 3)], phase="Cr", seed=11, noise=0.2)
+    out = tmp_path / "g.json"
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Cr", "--phase", "NiAl", "--scale", f"{SCALE}",
+              "--alpha-axis", "25", "--json", str(out)], capsys)
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(out.read_text())
+    assert {s["phase"] for s in doc["solutions"][:2]} == {"Cr", "NiAl"}
+    assert any(lk["relation"] == "undecided" for lk in doc["lookalikes"])
+    third = doc["third_pattern"]
+    assert third is not None and "to settle it" in r.stdout
+    z = third["zone_axis"]
+    # the test's own zone rule: some low-order hkl in that zone has h+k+l odd (a B2 superlattice spot)
+    assert any((h * z[0] + k * z[1] + l * z[2]) == 0 and (h + k + l) % 2 == 1
+               for h in range(-2, 3) for k in range(-2, 3) for l in range(-2, 3))
+    # and the readings bring it onto the beam for the joint orientation, within the holder's 1 deg or so
+    u = np.array(doc["solutions"][0]["orientation_matrix"])
+    a, b = third["tilt_deg"]
+    beam = _holder(25.0, a, b) @ u @ (np.array(z, float) / np.linalg.norm(z))  # cubic: [uvw] Cartesian || uvw
+    assert abs(abs(beam[2]) - 1) < 1e-3

@@ -181,7 +181,9 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     else:
         from saed.index.mistilt import with_mistilt
 
-        ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) for s in good[:top]]
+        # the mistilt of the first three, as annotate() does (a Laue-circle fit per solution costs time)
+        ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) if k < 3 else s
+                  for k, s in enumerate(good[:top])]
     ranked = [_with_sense_flag(s, tables) for s in ranked[:top]]
     from saed.index.crystals import find_crystals
 

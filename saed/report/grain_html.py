@@ -8,6 +8,7 @@ from pathlib import Path
 from saed.crystal.miller import format_indices
 from saed.index.grain import GrainResult
 from saed.report.files import atomic_write_text
+from saed.report.grain_summary import lookalike_word
 from saed.report.index_html import ReportEntry, report_html
 
 __all__ = ["grain_card_html", "write_grain_report"]
@@ -41,7 +42,7 @@ def grain_card_html(res: GrainResult) -> str:
     if res.message:
         parts.append(f"<div class='answer'>{_e(res.message)}</div>")
     if res.lookalikes:
-        items = "".join(f"<li><b>{_e(lk.phase_name)}</b>: {'ruled out' if lk.relation == 'decided' else 'not decided'}"
+        items = "".join(f"<li><b>{_e(lk.phase_name)}</b>: {_e(lookalike_word(lk, res))}"
                         f" &mdash; {_e(lk.evidence)}</li>" for lk in res.lookalikes)
         parts.append(f"<div><b>Look-alikes one pattern could not separate</b><ul>{items}</ul></div>")
     if res.third_pattern is not None:

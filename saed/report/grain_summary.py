@@ -5,7 +5,15 @@ from __future__ import annotations
 from saed.crystal.miller import format_indices
 from saed.index.grain import GrainResult
 
-__all__ = ["format_grain_summary"]
+__all__ = ["format_grain_summary", "lookalike_word"]
+
+
+def lookalike_word(lk, res: GrainResult) -> str:
+    """'ruled out' / 'NOT decided' for another phase; '180-degree sense settled' / 'NOT settled' for the answer's own."""
+    own = res.best is not None and lk.phase_name == res.best.phase_name
+    if own:
+        return "180-degree sense settled" if lk.relation == "decided" else "180-degree sense NOT settled"
+    return "ruled out" if lk.relation == "decided" else "NOT decided"
 
 
 def _zone(p) -> str:
@@ -47,7 +55,7 @@ def format_grain_summary(res: GrainResult, *, alpha_axis_note: str = "") -> str:
         lines.append("")
         lines.append("look-alikes one pattern could not separate:")
         for lk in res.lookalikes:
-            lines.append(f"  {lk.phase_name}: {'ruled out' if lk.relation == 'decided' else 'NOT decided'} - {lk.evidence}")
+            lines.append(f"  {lk.phase_name}: {lookalike_word(lk, res)} - {lk.evidence}")
     if res.third_pattern is not None:
         lines.append("")
         lines.append(f"to settle it: {res.third_pattern.text}")
