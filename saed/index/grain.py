@@ -211,6 +211,21 @@ def _candidates(patterns, holder: Holder) -> dict[str, list[list[_Cand]]]:
     return out
 
 
+#: Largest number of candidate combinations searched per phase (long series keep fewer per pattern).
+MAX_COMBINATIONS = 6000
+
+
+def _trimmed(lists: list[list[_Cand]]) -> list[list[_Cand]]:
+    """Drop the lowest-scoring candidates of the longest lists until the combinations are few enough."""
+    lists = [list(lst) for lst in lists]
+    while math.prod(max(len(lst), 1) for lst in lists) > MAX_COMBINATIONS:
+        k = max(range(len(lists)), key=lambda i: len(lists[i]))
+        if len(lists[k]) <= 2:
+            break
+        lists[k].pop()
+    return lists
+
+
 def _joint_combos(lists: list[list[_Cand]], syms: np.ndarray, tol_deg: float):
     """Every choice of one candidate per pattern whose orientations agree within tol (pairwise)."""
     n = len(lists)
@@ -349,7 +364,7 @@ def solve_grain(patterns, tables, *, alpha_sign: int = 1, beta_sign: int = 1,
         if phase is None:
             continue
         syms = _proper_symmetry_cartesian(phase)
-        lists = [sorted(lst, key=lambda c: -c.sol.score)[: 2 * MAX_PER_PHASE] for lst in lists]
+        lists = _trimmed([sorted(lst, key=lambda c: -c.sol.score)[: 2 * MAX_PER_PHASE] for lst in lists])
         present = [i for i, lst in enumerate(lists) if lst]
         found = []
         if len(present) == len(lists):

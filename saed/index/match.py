@@ -204,7 +204,14 @@ def _with_sense_flag(sol: Solution, tables) -> Solution:
     if phase is None:
         return sol
     amb = sense_ambiguous(phase, sol.zone_axis)
-    return replace(sol, sense_ambiguous_180=amb)
+    notes = sol.notes
+    if amb:
+        zone = _zone_text(sol)
+        notes = notes + (f"[{zone}] is no two-fold axis of {sol.phase_name}: this pattern cannot tell the orientation "
+                         "from the same crystal turned 180 deg about the beam, so a tilt plan from it ('saed tilt "
+                         "--from-index') holds for one of the two; a second pattern at a recorded tilt decides "
+                         "('saed grain')",)
+    return replace(sol, sense_ambiguous_180=amb, notes=notes)
 
 
 def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_zone_index) -> tuple[list, int]:
