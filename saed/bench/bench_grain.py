@@ -168,7 +168,7 @@ def accuracy_report(*, seed: int = 10, per_scenario: int = 5) -> dict:
     """Run every generated series; phase right, misorientation, per-scenario counts."""
     from saed.crystal import builtin_phase
     from saed.index import prepare_phases
-    from saed.index.grain import _proper_symmetry_cartesian, misorientation_deg
+    from saed.index.orientation import misorientation_deg, proper_symmetry_cartesian
 
     tables_cache = {}
     rows = []
@@ -183,7 +183,7 @@ def accuracy_report(*, seed: int = 10, per_scenario: int = 5) -> dict:
         res = _solve_series(images, readings, axis, tables)
         best = next((s for s in res.solutions if not s.missing), None)
         phase_ok = best is not None and best.phase_name == true
-        mis = (misorientation_deg(np.asarray(best.orientation_matrix), u0, _proper_symmetry_cartesian(ph))[0]
+        mis = (misorientation_deg(np.asarray(best.orientation_matrix), u0, proper_symmetry_cartesian(ph))[0]
                if phase_ok else float("nan"))
         undecided = [lk.phase_name for lk in res.lookalikes if lk.relation == "undecided"]
         rows.append({"scenario": name, "true": true, "found": best.phase_name if best else None,

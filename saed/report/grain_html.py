@@ -6,7 +6,7 @@ import html
 from pathlib import Path
 
 from saed.crystal.miller import format_indices
-from saed.index.grain import GrainResult
+from saed.index.grain_values import GrainResult
 from saed.report.files import atomic_write_text
 from saed.report.grain_summary import lookalike_word
 from saed.report.index_html import ReportEntry, report_html

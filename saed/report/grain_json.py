@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from saed.index.grain import GrainResult
+from saed.index.grain_values import GrainResult
 from saed.report.index_json import result_json
 
 __all__ = ["grain_json"]

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from saed.crystal.miller import format_indices
-from saed.index.grain import GrainResult
+from saed.index.grain_values import GrainResult
 
 __all__ = ["format_grain_summary", "lookalike_word"]
 
