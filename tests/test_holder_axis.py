@@ -32,7 +32,7 @@ def test_calibration_file_keeps_the_alpha_axis(tmp_path):
     d = json.loads(p.read_text())
     d["alpha_axis_deg"] = "north"
     p.write_text(json.dumps(d))
-    with pytest.raises(InputError, match="alpha-axis"):
+    with pytest.raises(InputError, match="alpha_axis_deg"):
         read_calibration_file(p)
 
 
