@@ -3,10 +3,10 @@
 Generated series (:func:`series_cases`): a grain of known phase and orientation U0 is put on a
 first zone at holder readings (alpha1, beta1); the other patterns are the zones the holder reaches
 from there (index <= 2, 4-index for hexagonal; 8-45 deg away, within alpha +-35, beta +-30 deg; only zones
-with at least six spots in two rows within 12 1/nm, as an operator would record), with readings worked out
-from the holder geometry written here (H = R(e_alpha, alpha) R(e_beta, beta), e_alpha at a random
-azimuth on the detector, e_beta = z x e_alpha). Each pattern is rendered at 512 x 512 by
-:func:`saed.index.synthetic.synthetic_image` (log-normal intensity disorder, Poisson noise) with a
+with at least six spots in two rows within 12 1/nm, as an operator would record), with readings from the
+holder geometry of ``saed tilt`` (H = R(e_alpha, alpha) R(e_beta, beta), e_alpha at a random azimuth on
+the detector, e_beta = z x e_alpha; the tests check that geometry independently). Each pattern is
+rendered at 512 x 512 by :func:`saed.index.synthetic.synthetic_image` (log-normal intensity disorder, Poisson noise) with a
 small mistilt (0.1-0.5 deg toward a random reflection). The readings handed to the solver carry
 uniform noise of +-0.5 deg. Candidate phases are the true one and its look-alikes.
 
@@ -51,26 +51,21 @@ READING_NOISE_DEG = 0.5
 SCALE = 13.0 / (0.46 * 512)
 
 
-def _rot(axis, deg):
-    k = np.asarray(axis, float) / np.linalg.norm(axis)
-    kx = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
-    a = math.radians(deg)
-    return np.eye(3) + math.sin(a) * kx + (1 - math.cos(a)) * (kx @ kx)
-
-
 def _holder(axis_deg, alpha, beta):
-    """H(alpha, beta) in the detector frame, alpha axis at `axis_deg` from +x toward +y."""
-    ea = np.array([math.cos(math.radians(axis_deg)), math.sin(math.radians(axis_deg)), 0.0])
-    eb = np.cross([0.0, 0.0, 1.0], ea)
-    return _rot(ea, alpha) @ _rot(eb, beta)
+    """H(alpha, beta) in the detector frame, alpha axis at `axis_deg` from +x toward +y (saed tilt's holder)."""
+    from saed.simulate.tilt import Holder, holder_rotation
+
+    return holder_rotation(Holder(alpha_axis_deg=axis_deg, alpha_range_deg=(-90, 90), beta_range_deg=(-90, 90)),
+                           alpha, beta)
 
 
 def _readings_for(d_lab0, axis_deg):
-    """Readings that bring the unit direction d (detector frame at readings 0, 0) onto +z."""
+    """Readings that bring the unit direction d (detector frame at readings 0, 0) onto +z: alpha = asin(d . e_beta),
+    beta = atan2(-d . e_alpha, d_z), as in saed.simulate.tilt."""
     ea = np.array([math.cos(math.radians(axis_deg)), math.sin(math.radians(axis_deg)), 0.0])
     eb = np.cross([0.0, 0.0, 1.0], ea)
-    x, y, z = float(d_lab0 @ ea), float(d_lab0 @ eb), float(d_lab0[2])
-    return math.degrees(math.asin(max(-1.0, min(1.0, y)))), math.degrees(math.atan2(-x, z))
+    return (math.degrees(math.asin(max(-1.0, min(1.0, float(d_lab0 @ eb))))),
+            math.degrees(math.atan2(-float(d_lab0 @ ea), float(d_lab0[2]))))
 
 
 def _in_plane(u, phase, uvw):

@@ -23,6 +23,10 @@ DESCRIPTION = (
 )
 ORDER = 15
 
+#: Inputs and outputs, checked against each other before any work (an output never names an input);
+#: the outputs are written all or nothing (saed.files.all_or_nothing).
+FILES = (("images", "mask", "calibration", "phase"), ("json", "report/index.html"))
+
 
 def add_arguments(p):
     import re
@@ -86,8 +90,6 @@ def _range(v, what):
 
 
 def _check(args):
-    from pathlib import Path
-
     from saed.report.files import check_writable
 
     n = len(args.images)
@@ -111,11 +113,9 @@ def _check(args):
     if args.json and args.json != "-":
         check_writable(args.json)
     if args.report:
-        d = Path(args.report)
-        if d.exists() and not d.is_dir():
-            raise InputError(f"--report {args.report}: exists and is not a folder")
-        if not d.exists() and not d.parent.is_dir():
-            raise InputError(f"--report {args.report}: folder {d.parent} does not exist")
+        from saed.cli.cmd_index import check_report_folder
+
+        check_report_folder(args.report)
     return tilts, ranges
 
 

@@ -45,22 +45,27 @@ def add_arguments(p):
 
 def check_outputs(args) -> None:
     """Fail before any work when an output cannot be written (nothing is lost later)."""
-    from pathlib import Path
-
     matching_options_from_args(args)  # range checks before any work
     _max_crystals(args)
     check_frame_and_outputs(args)
     if not 30 <= args.dpi <= 1200:
         raise InputError(f"--dpi {args.dpi}: give 30 to 1200")
     if args.report:
-        from saed.report.files import check_writable
+        check_report_folder(args.report)
 
-        d = Path(args.report)
-        if d.exists() and not d.is_dir():
-            raise InputError(f"--report {args.report}: exists and is not a folder")
-        if not d.exists() and not d.parent.is_dir():
-            raise InputError(f"--report {args.report}: folder {d.parent} does not exist")
-        check_writable(d / "index.html" if d.exists() else d)  # tried, not guessed
+
+def check_report_folder(report: str) -> None:
+    """--report DIR: a folder (or a new name in one) where index.html can be written; InputError if not."""
+    from pathlib import Path
+
+    from saed.report.files import check_writable
+
+    d = Path(report)
+    if d.exists() and not d.is_dir():
+        raise InputError(f"--report {report}: exists and is not a folder")
+    if not d.exists() and not d.parent.is_dir():
+        raise InputError(f"--report {report}: folder {d.parent} does not exist")
+    check_writable(d / "index.html" if d.exists() else d)  # tried, not guessed
 
 
 def _max_crystals(args) -> int:
