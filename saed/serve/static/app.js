@@ -403,7 +403,7 @@ function drawLegend(v, sv) {
   if (!v) { $("legend").innerHTML = ""; return; }
   const kinds = new Set((sv ? sv.spots : v.spots).map((p) => p.kind));
   const items = Object.entries(v.kind_style).filter(([k]) => kinds.has(k)).map(([k, st]) => `<span><i style="border-color:${st.colour}"></i>${esc(st.label)}</span>`);
-  if (sv) items.push(`<span><i style="border-color:${v.predicted_colour};border-radius:0"></i>simulated pattern (square ~ \u221aI)</span>`);
+  if (sv) items.push(`<span><i style="border-color:${v.predicted_colour};border-radius:0"></i>square: where this solution puts a spot (bigger = stronger)</span>`);
   items.push('<span><i style="border-color:#ff375f;border-radius:0;border-width:0 0 2px 0"></i>centre</span>');
   $("legend").innerHTML = items.join("");
 }
