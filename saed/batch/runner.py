@@ -19,6 +19,7 @@ filesystem the workers see (as on any shared-filesystem cluster).
 from __future__ import annotations
 
 import logging
+import os
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator
 
@@ -30,8 +31,11 @@ __all__ = ["Chunk", "plan_chunks", "count_todo", "chunk_size_for", "process_chun
 
 logger = logging.getLogger(__name__)
 
-#: The most frames one task holds (a task's rows are written together when it ends).
-MAX_CHUNK_FRAMES = 16
+#: The most frames one task holds (a task's rows are written together when it ends; a scan's warm
+#: start carries from frame to frame within a task).
+MAX_CHUNK_FRAMES = 64
+#: The most pixels one task reads at once (64 frames of 256 x 256; 4 frames of 1024 x 1024).
+MAX_CHUNK_PIXELS = 64 * 256 * 256
 #: How often a single frame whose worker died is run alone before it gets an error row.
 _SINGLE_FRAME_ATTEMPTS = 1
 
@@ -48,22 +52,30 @@ class Chunk:
     path: str
     frames: tuple[int, ...]
     context: object = None
+    file_id: str = ""
+    stack: bool = False
+
+    def single(self, k: int) -> "Chunk":
+        """The same source, frame `k` alone."""
+        return Chunk(self.name, self.path, (k,), self.context, self.file_id, self.stack)
 
 
 def count_todo(sources: Iterable[FrameSource], done) -> int:
-    """Frames of `sources` whose (path, frame) key is not in `done`."""
+    """Frames of `sources` whose (path, file_id, frame) key is not in `done`."""
     if not done:
         return sum(s.n_frames for s in sources)
-    return sum(1 for s in sources for k in range(s.n_frames) if (s.path, k) not in done)
+    return sum(1 for s in sources for k in range(s.n_frames) if (s.path, s.file_id, k) not in done)
 
 
-def chunk_size_for(n_todo: int, n_threads: int) -> int:
-    """Frames per task: about four tasks per worker thread, 1 to :data:`MAX_CHUNK_FRAMES`.
+def chunk_size_for(n_todo: int, n_threads: int, frame_pixels: int | None = None) -> int:
+    """Frames per task: about four tasks per worker thread, 1 to :data:`MAX_CHUNK_FRAMES` (and
+    :data:`MAX_CHUNK_PIXELS` when the frame size is known).
 
-    >>> chunk_size_for(4096, 2), chunk_size_for(40, 2), chunk_size_for(3, 8)
-    (16, 5, 1)
+    >>> chunk_size_for(4096, 2), chunk_size_for(40, 2), chunk_size_for(3, 8), chunk_size_for(4096, 2, 1024 * 1024)
+    (64, 5, 1, 4)
     """
-    return max(1, min(MAX_CHUNK_FRAMES, n_todo // max(1, 4 * n_threads)))
+    top = MAX_CHUNK_FRAMES if not frame_pixels else max(1, min(MAX_CHUNK_FRAMES, MAX_CHUNK_PIXELS // frame_pixels))
+    return max(1, min(top, n_todo // max(1, 4 * n_threads)))
 
 
 def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
@@ -72,25 +84,39 @@ def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
     for src in sources:
         ctx = context_of(src) if context_of else None
         run: list[int] = []
+
+        def chunk():
+            return Chunk(src.name, src.path, tuple(run), ctx, src.file_id, src.stack)
+
         for k in range(src.n_frames):
-            if (src.path, k) in done:
+            if (src.path, src.file_id, k) in done:
                 if run:
-                    yield Chunk(src.name, src.path, tuple(run), ctx)
+                    yield chunk()
                     run = []
                 continue
             run.append(k)
             if len(run) == chunk_frames:
-                yield Chunk(src.name, src.path, tuple(run), ctx)
+                yield chunk()
                 run = []
         if run:
-            yield Chunk(src.name, src.path, tuple(run), ctx)
+            yield chunk()
 
 
-def _frame_error(name: str, path: str, exc: BaseException) -> str:
+def _frame_error(name: str, path: str, frame: int, exc: BaseException) -> str:
+    """The message of `exc` without the file (and frame) it names: the row already says which, and
+    the summary groups equal messages.
+
+    >>> _frame_error("a.npy", "/d/a.npy", 3, ValueError("/d/a.npy frame 3: 12 pixels are NaN"))
+    '12 pixels are NaN'
+    """
     text = " ".join(str(exc).split())
-    for prefix in (f"{path}: ", f"{name}: "):
-        if text.startswith(prefix):
-            text = text[len(prefix):]
+    base = path.partition("::")[0]
+    for who in (path, name, base, os.path.basename(base)):
+        for prefix in (f"{who} frame {frame}: ", f"{who}: "):
+            if text.startswith(prefix):
+                return text[len(prefix):] or exc.__class__.__name__
+    for who in (path, base, name):
+        text = text.replace(who, os.path.basename(base))
     return text or exc.__class__.__name__
 
 
@@ -103,21 +129,37 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
     error (<class>: <message>)`` (its traceback is logged at debug level on the worker), so
     that a fault on one frame in ten thousand does not end the run.
     """
-    from saed.image.io import read_image
+    from dataclasses import replace
+
+    from saed.image.io import check_image, read_image
 
     shared = _resolve(shared)
+    images = None
+    if chunk.stack:
+        from saed.batch.stacks import read_frames
+
+        try:
+            images = read_frames(chunk.path, chunk.frames)
+        except SaedError as exc:
+            images = {k: exc for k in chunk.frames}
     rows = []
     for k in chunk.frames:
         try:
-            image = read_image(chunk.path, frame=k)
+            if images is None:
+                image = read_image(chunk.path, frame=k)
+            else:
+                got = images.pop(k)
+                if isinstance(got, BaseException):
+                    raise got
+                image = check_image(got, name=f"{chunk.name} frame {k}")
             row = frame_fn(image, shared, name=chunk.name, frame=k, context=chunk.context)
         except SaedError as exc:
-            row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, exc)))
+            row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, k, exc)))
         except Exception as exc:  # noqa: BLE001 - the frame boundary of a long run: record, log, go on
             logger.debug("%s frame %d: internal error", chunk.name, k, exc_info=True)
             row = Row(chunk.name, k, status=error_status(f"internal error ({exc.__class__.__name__}: "
-                                                         f"{_frame_error(chunk.name, chunk.path, exc)})"))
-        rows.append(row)
+                                                         f"{_frame_error(chunk.name, chunk.path, k, exc)})"))
+        rows.append(replace(row, file=chunk.path, file_id=chunk.file_id))
     return rows
 
 
@@ -227,11 +269,12 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
                 # one by one (and each alone once more) before blaming one.
                 logger.warning("%s frames %d-%d: a worker died; trying them one by one", chunk.name,
                                chunk.frames[0], chunk.frames[-1])
-                retry.extend((Chunk(chunk.name, chunk.path, (k,), chunk.context), attempt + (len(chunk.frames) == 1))
+                retry.extend((chunk.single(k), attempt + (len(chunk.frames) == 1))
                              for k in reversed(chunk.frames))
             else:
                 rows = [Row(chunk.name, chunk.frames[0],
-                            status=error_status("the worker process died on this frame (out of memory?)"))]
+                            status=error_status("the worker process died on this frame (out of memory?)"),
+                            file=chunk.path, file_id=chunk.file_id)]
         fut.release()
         if rows:
             on_rows(rows)

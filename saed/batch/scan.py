@@ -184,12 +184,13 @@ def _sequenced(rows, sources):
     """(sequence number over all frames of `sources`, row) for the rows that belong to `sources` (lazy)."""
     offset, start = {}, 0
     for s in sources:
-        offset.setdefault(s.path, (start, s.n_frames))
+        offset.setdefault((s.path, s.file_id), (start, s.n_frames))
         start += s.n_frames
     for r in rows:
-        path, k = r.key
-        if path in offset and 0 <= k < offset[path][1]:
-            yield offset[path][0] + k, r
+        path, fid, k = r.key
+        at = offset.get((path, fid))
+        if at is not None and 0 <= k < at[1]:
+            yield at[0] + k, r
 
 
 def rows_for_sources(rows, sources):

@@ -60,6 +60,17 @@ def add_arguments(p):
                    help="the frames (in input order) form a scan of NY rows by NX columns: draw a map")
     i.add_argument("--map", metavar="PNG", help="where to draw the scan map (default: next to --out, *_map.png)")
     i.add_argument("--summary", metavar="CSV", help="also write the phase / zone-family summary as CSV")
+    i.add_argument("--arrays", metavar="PATH.zarr|PATH.h5",
+                   help="also write the per-frame table as a Zarr store or HDF5 file of arrays (for notebooks)")
+    i.add_argument("--boundary-deg", type=positive_float, default=5.0, metavar="DEG",
+                   help="draw a grain boundary where neighbouring orientations differ by more than DEG (default 5)")
+    s = p.add_argument_group("search")
+    s.add_argument("--full-search", action="store_true",
+                   help="solve every frame by the full image stage and full search (no warm start from the "
+                        "previous frames; about 10 to 20 times slower on a scan)")
+    s.add_argument("--check-every", type=int, default=32, metavar="N",
+                   help="with the warm start, also solve every N-th frame by the full search and report how often "
+                        "the two agree (default 32; 0: never)")
 
 
 def _say(text: str) -> None:
@@ -108,16 +119,19 @@ def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
     if map_path is not None and map_path.suffix.lower() != ".png":
         raise InputError(f"--map {args.map}: the map is a PNG; give a name ending in .png")
     summary = Path(args.summary) if args.summary else None
-    given = {os.path.abspath(p) for p in inputs_raw}
-    for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary)):
+    arrays = Path(args.arrays) if args.arrays else None
+    if arrays is not None and arrays.suffix.lower() not in (".zarr", ".h5", ".hdf5"):
+        raise InputError(f"--arrays {args.arrays}: give a name ending in .zarr (a Zarr store) or .h5 (an HDF5 file)")
+    given = {os.path.abspath(p.partition("::")[0]) for p in inputs_raw}
+    for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary), ("--arrays", arrays)):
         if p is None:
             continue
         check_writable(p)
         if os.path.abspath(p) in given:
             raise InputError(f"{flag} {p} is also an input; give another file name")
-    names = [os.path.abspath(p) for p in (out, map_path, summary) if p is not None]
+    names = [os.path.abspath(p) for p in (out, map_path, summary, arrays) if p is not None]
     if len(set(names)) < len(names):
-        raise InputError("--out, --map and --summary must be different files")
+        raise InputError("--out, --map, --summary and --arrays must be different files")
     return out, map_path, summary
 
 
@@ -125,7 +139,10 @@ def run(args) -> int:
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client, default_workers
     from saed.batch.indexing import calibration_from_tags, index_frame, make_index_job
+    from saed.batch.inputs import check_frame_sizes
+    from saed.batch.record import check_run_record
     from saed.batch.results import ResultsFile
+    from saed.batch.scanindex import index_scan_frame
     from saed.batch.runner import count_todo
     from saed.batch.scan import check_scan_shape
 
@@ -141,9 +158,13 @@ def run(args) -> int:
     calibration = calibration_from_args(args)
     phases = phases_from_args(args)
 
+    from saed.batch.record import record_path
+
+    arrays_path = Path(args.arrays) if args.arrays else None
     default_map = out.with_name(out.stem + "_map.png")
     inputs = discover_inputs(args.inputs, recursive=args.recursive,
-                             exclude=[p for p in (out, map_path, summary_path, default_map) if p is not None])
+                             exclude=[p for p in (out, map_path, summary_path, default_map, record_path(out),
+                                                  arrays_path) if p is not None])
     for s in inputs.skipped:
         _say(str(s))
     if not inputs.sources:
@@ -154,8 +175,12 @@ def run(args) -> int:
         scan_shape = check_scan_shape(args.scan_shape, inputs.sources)
         map_path = map_path or default_map
 
+    if args.check_every < 0:
+        raise InputError(f"--check-every {args.check_every}: give 0 (never) or a positive number of frames")
+    frame_shape = check_frame_sizes(inputs.sources)
     mask, max_g = _frame_geometry(args, inputs.sources, calibration)
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
+        check_run_record(out, phases, has_rows=results.n_rows > 0)
         n_todo = count_todo(inputs.sources, results.done)
         n_files = len(inputs.sources)
         n_local = args.workers or default_workers()
@@ -171,9 +196,11 @@ def run(args) -> int:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,
                                     connect_timeout_s=args.connect_timeout) as client:
-                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask, **matching)
+                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask,
+                                         frame_shape=frame_shape, check_every=args.check_every, **matching)
+                    frame_fn = index_frame if args.full_search else index_scan_frame
                     with Progress(n_todo, "batch") as bar:
-                        outcome = run_batch(inputs, results, index_frame, job, client=client, progress=bar,
+                        outcome = run_batch(inputs, results, frame_fn, job, client=client, progress=bar,
                                             context_of=context_of)
             except KeyboardInterrupt:
                 _say(f"interrupted; {results.n_rows} rows are safe in {out}: run the same command again to go on")
@@ -190,12 +217,16 @@ def _report(out, inputs, outcome, phases) -> None:
     from saed.batch.scan import rows_for_sources, summarize
     from saed.report.scan_map import format_summary
 
+    from saed.batch.scanindex import CHECK_DIFFER, CHECK_SAME
+
     errors: Counter = Counter()
+    searches: Counter = Counter()
 
     def mine():
         for r in rows_for_sources(iter_rows(out), inputs.sources):
             if r.is_error:
                 errors[r.status] += 1
+            searches[r.search] += 1
             yield r
 
     summary = summarize(mine(), phases={p.name: p for p in phases})
@@ -207,6 +238,12 @@ def _report(out, inputs, outcome, phases) -> None:
     print(line)
     if summary.n_ok or summary.n_no_solution:
         print(format_summary(summary))
+    checked = searches[CHECK_SAME] + searches[CHECK_DIFFER]
+    if searches["warm"] or checked:
+        print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; of {checked} checked "
+              f"against the full search, {searches[CHECK_SAME]} agree"
+              + (f" ({100 * searches[CHECK_SAME] / checked:.1f} %)" if checked else "")
+              + (f"; {searches[CHECK_DIFFER]} differ (search column '{CHECK_DIFFER}')" if searches[CHECK_DIFFER] else ""))
     for status, n in errors.most_common(3):
         print(f"  {n} x {status}")
     if len(errors) > 3:
