@@ -15,8 +15,8 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
    tried most recent first, and a grain's solution is accepted only when it scores as well as a full
    search would:
 
-   * it explains every spot (no spot unindexed, none only as a forbidden reflection), so no other
-     solution can explain more;
+   * it leaves no more of the spot weight unexplained (unindexed, or only a forbidden reflection)
+     than the full search it came from did, plus :data:`UNEXPLAINED_MARGIN`;
    * it is the best solution of the full search it came from, and still scores above that search's
      runner-up (a look-alike that overtakes it is left for a full search to decide), and
    * its score is at most :data:`WARM_SCORE_TOLERANCE` below that full search's score, and
@@ -24,6 +24,7 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
 
    Otherwise the frame gets the full search (:func:`saed.index.index_pattern`), which then
    becomes a warm-start entry.
+   A frame in which the lean stage finds no spot is ``search`` = ``empty`` (status ``no-solution``).
 3. **Checked frames.** Every ``job.check_every``-th frame (flat index) is also measured by the
    full image stage and solved by the full search, the answer of ``saed index``; the row holds
    that answer and says whether the warm start agreed (``search`` = ``full+warm same`` or
@@ -47,14 +48,20 @@ from saed.batch.results import Row
 from saed.calibration import Calibration
 from saed.errors import ImageError
 
-__all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER"]
+__all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY"]
 
 #: How many distinct earlier solutions (grains) a worker thread keeps for the warm start.
 WARM_ENTRIES = 4
 #: A warm solution may score this much below the full search it came from (frame-to-frame noise).
 WARM_SCORE_TOLERANCE = 0.05
+#: A warm solution may leave this much more of the spot weight unexplained than its full search did.
+UNEXPLAINED_MARGIN = 0.03
+#: Grains whose lattice catches less than (1 - unexplained - this) of the spot weight are not refined.
+QUICK_MARGIN = 0.25
 #: ``search`` values of checked frames.
 CHECK_SAME, CHECK_DIFFER = "full+warm same", "full+warm differ"
+#: ``search`` of a frame where the lean stage found no spot (vacuum, amorphous film): nothing to search.
+EMPTY = "empty"
 
 
 @dataclass
@@ -65,6 +72,7 @@ class _Entry:
     key: tuple
     ref_score: float
     note: str
+    unexplained: float = 0.0
 
 
 class _State(threading.local):
@@ -94,14 +102,23 @@ def _candidate(tables, sol):
                      np.asarray(sol.orientation_matrix, float), float(sol.scale_inv_nm_per_px), 1.0)
 
 
+def _unexplained(sol, weight: np.ndarray) -> float:
+    """Fraction of the spot weight `sol` leaves unindexed or explains only as forbidden reflections."""
+    bad = np.array([s.kind in ("unindexed", "forbidden") for s in sol.indexed], bool)
+    return float(np.sum(weight[bad])) if len(bad) == len(weight) else 1.0
+
+
 def _remember(st: _State, tables, result) -> None:
+    from saed.index.candidates import spot_set
+
     if not result.solutions:
         return
     sols = result.solutions[:2]
     cands = tuple(_candidate(tables, s) for s in sols)
     key = (cands[0].phase_index, cands[0].canonical_zone)
     st.entries = [e for e in st.entries if e.key != key]
-    st.entries.insert(0, _Entry(cands, key, float(sols[0].score), lookalike_note(sols[0])))
+    left = _unexplained(sols[0], spot_set(result.measured).weight)
+    st.entries.insert(0, _Entry(cands, key, float(sols[0].score), lookalike_note(sols[0]), left))
     del st.entries[WARM_ENTRIES:]
 
 
@@ -117,7 +134,7 @@ def _options(job: IndexJob, measured):
 
 def _warm(measured, job: IndexJob, st: _State):
     """(best, second or None, entry) when a warm solution is accepted, else None."""
-    from saed.index.candidates import spot_set
+    from saed.index.candidates import quick_scores, spot_set
     from saed.index.match import MIN_SCORE, REL_POS_TOL
     from saed.index.score import score_candidate
 
@@ -133,8 +150,15 @@ def _warm(measured, job: IndexJob, st: _State):
     # the most recent grain first; the first whose best explains the frame is the answer, unless its own
     # runner-up (a look-alike) now scores higher: that is left to a full search
     for k, e in enumerate(st.entries):
-        best = score(e.cands[0])
-        if any(s.kind in ("unindexed", "forbidden") for s in best.indexed):
+        c = e.cands[0]
+        # a vectorised look first (the full search's own first filter): does this grain's lattice
+        # land on the frame's spots at all?
+        quick = quick_scores(job.tables.phases[c.phase_index], c.u_matrix[None], np.array([c.scale_inv_nm_per_px]),
+                             spots, rel_tol=REL_POS_TOL)[0]
+        if quick < 1.0 - e.unexplained - QUICK_MARGIN:
+            continue
+        best = score(c)
+        if _unexplained(best, spots.weight) > e.unexplained + UNEXPLAINED_MARGIN:
             continue
         if best.score < max(MIN_SCORE, e.ref_score - WARM_SCORE_TOLERANCE):
             continue
@@ -184,6 +208,8 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         measured = measure_pattern(image, cal, mask=job.mask, source=source)
     st.centre = measured.center_px
     check = job.check_every > 0 and frame % job.check_every == 0
+    if not full_stage and len(measured.spots) == 0 and not check:
+        return row_from_result(_full(measured, job), name=name, frame=frame, search=EMPTY)
     warm = None if full_stage else _warm(measured, job, st)
     if warm is not None and not check:
         best, second, entry = warm

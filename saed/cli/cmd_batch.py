@@ -62,6 +62,8 @@ def add_arguments(p):
     i.add_argument("--summary", metavar="CSV", help="also write the phase / zone-family summary as CSV")
     i.add_argument("--arrays", metavar="PATH.zarr|PATH.h5",
                    help="also write the per-frame table as a Zarr store or HDF5 file of arrays (for notebooks)")
+    i.add_argument("--scan-step", type=positive_float, metavar="NM",
+                   help="distance between neighbouring probe positions, nm (the maps' scale bar; default: in steps)")
     i.add_argument("--boundary-deg", type=positive_float, default=5.0, metavar="DEG",
                    help="draw a grain boundary where neighbouring orientations differ by more than DEG (default 5)")
     s = p.add_argument_group("search")
@@ -208,7 +210,7 @@ def run(args) -> int:
 
     _report(out, inputs, outcome, phases)
     if scan_shape is not None or summary_path is not None:
-        _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases)
+        _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args)
     return 0
 
 
@@ -250,7 +252,7 @@ def _report(out, inputs, outcome, phases) -> None:
         print(f"  ... and {len(errors) - 3} other error messages (see the status column of {out})")
 
 
-def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases) -> None:
+def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args) -> None:
     from saed.batch.results import iter_rows
     from saed.batch.scan import build_scan_map, rows_for_sources, summarize
     from saed.report.files import atomic_write_text
@@ -258,9 +260,10 @@ def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases) -> No
 
     lookup = {p.name: p for p in phases}
     if scan_shape is not None:
-        scan = build_scan_map(iter_rows(out), inputs.sources, scan_shape, phases=lookup, phase_order=[p.name for p in phases])
+        scan = build_scan_map(iter_rows(out), inputs.sources, scan_shape, phases=lookup,
+                              phase_order=[p.name for p in phases], boundary_deg=args.boundary_deg)
         title = inputs.sources[0].name if len(inputs.sources) == 1 else f"{len(inputs.sources)} files"
-        render_scan_map(scan, map_path, title=title)
+        render_scan_map(scan, map_path, title=title, step_nm=args.scan_step)
         print(f"map: {map_path}")
         summary = scan.summary
     else:
