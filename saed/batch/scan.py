@@ -199,7 +199,7 @@ def check_scan_shape(scan_shape, sources) -> tuple[int, int]:
     return ny, nx
 
 
-def _sequenced(rows, sources):
+def sequenced(rows, sources):
     """(sequence number over all frames of `sources`, row) for the rows that belong to `sources` (lazy)."""
     offset, start = {}, 0
     for s in sources:
@@ -214,7 +214,7 @@ def _sequenced(rows, sources):
 
 def rows_for_sources(rows, sources):
     """The rows that belong to frames of `sources` (a CSV may hold rows of earlier, other inputs); lazy."""
-    return (r for _, r in _sequenced(rows, sources))
+    return (r for _, r in sequenced(rows, sources))
 
 
 def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases: dict,
@@ -233,7 +233,7 @@ def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases
     score = np.full(ny * nx, np.nan)
     zones = np.zeros((ny * nx, 3), np.int64)
     phi = np.zeros(ny * nx)
-    for seq, r in _sequenced(rows, sources):
+    for seq, r in sequenced(rows, sources):
         pf = tally.add(r)
         if pf is None:
             status_grid[seq] = ERROR if r.is_error else NO_SOLUTION

@@ -211,6 +211,13 @@ def run(args) -> int:
     _report(out, inputs, outcome, phases)
     if scan_shape is not None or summary_path is not None:
         _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args)
+    if arrays_path is not None:
+        from saed.batch.arrays import write_array_set
+        from saed.batch.results import iter_rows
+
+        n = write_array_set(iter_rows(out), inputs.sources, arrays_path, phases={p.name: p for p in phases},
+                            phase_order=[p.name for p in phases], scan_shape=scan_shape)
+        print(f"arrays: {arrays_path} ({n} frames)")
     return 0
 
 
