@@ -80,7 +80,16 @@ def chunk_size_for(n_todo: int, n_threads: int, frame_pixels: int | None = None)
 
 def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
                 context_of: Callable[[FrameSource], object] | None = None) -> Iterator[Chunk]:
-    """Chunks of up to `chunk_frames` consecutive frames not in `done`, source by source (lazy)."""
+    """Chunks of up to `chunk_frames` consecutive frames not in `done`, source by source (lazy).
+
+    Chunks never cross a multiple of `chunk_frames` (frames 0-63, 64-127, ... for 64), so a run
+    cuts a file into the same tasks whichever frames are already done: a frame function that
+    carries work from frame to frame within a task (the scan's warm start) gives the same rows.
+
+    >>> from saed.batch.inputs import FrameSource
+    >>> [c.frames for c in plan_chunks([FrameSource("a", "/a", 10)], {("/a", "", 1)}, chunk_frames=4)]
+    [(0,), (2, 3), (4, 5, 6, 7), (8, 9)]
+    """
     for src in sources:
         ctx = context_of(src) if context_of else None
         run: list[int] = []
@@ -89,15 +98,15 @@ def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
             return Chunk(src.name, src.path, tuple(run), ctx, src.file_id, src.stack)
 
         for k in range(src.n_frames):
+            if run and k % chunk_frames == 0:
+                yield chunk()
+                run = []
             if (src.path, src.file_id, k) in done:
                 if run:
                     yield chunk()
                     run = []
                 continue
             run.append(k)
-            if len(run) == chunk_frames:
-                yield chunk()
-                run = []
         if run:
             yield chunk()
 
@@ -134,6 +143,9 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
     from saed.image.io import check_image, read_image
 
     shared = _resolve(shared)
+    new_task = getattr(frame_fn, "new_task", None)
+    if new_task is not None:
+        new_task(shared)                      # a frame function's per-task state starts afresh
     images = None
     if chunk.stack:
         from saed.batch.stacks import read_frames

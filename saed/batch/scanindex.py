@@ -3,14 +3,15 @@
 Neighbouring probe positions of a scan usually see the same grain, and the direct beam stays
 put. :func:`index_scan_frame` uses both, without changing what a frame is indexed as:
 
-1. **Image stage.** The first frame a worker thread sees is measured by the full stage
+1. **Image stage.** The first frame of a task is measured by the full stage
    (:func:`saed.image.measure.measure_pattern`); each later frame by
    :func:`saed.image.smallframe.measure_small_frame`, starting from the previous frame's centre
    (frames above :data:`~saed.image.smallframe.SMALL_FRAME_MAX_PIXELS`, and frames where the
    direct beam is not found near that centre, go through the full stage). A frame with no spots
    (vacuum, amorphous film) is decided there, in about a millisecond.
-2. **Warm start.** The solutions of the last :data:`WARM_ENTRIES` distinct grains this thread
-   solved by full search (the best and the runner-up of each) are refined against the frame's
+2. **Warm start.** The solutions of the last :data:`WARM_ENTRIES` distinct grains solved by full
+   search in this task (a task is up to 64 consecutive frames; each starts afresh, so the rows do not
+   depend on which worker ran which task) (the best and the runner-up of each) are refined against the frame's
    spots with the full search's own scoring (:func:`saed.index.score.score_candidate`). The grains are
    tried most recent first, and a grain's solution is accepted only when it scores as well as a full
    search would:
@@ -90,6 +91,14 @@ def _state_for(job) -> _State:
     if st.job_id != id(job):
         st.job_id, st.centre, st.entries = id(job), None, []
     return st
+
+
+def _new_task(job) -> None:
+    """Forget the previous task's centre and grains: a task's rows depend on its own frames only, so a
+    run gives the same rows whichever worker takes which task, and a resumed run the same as an
+    uninterrupted one wherever a task was not cut short."""
+    st = _STATE
+    st.job_id, st.centre, st.entries = id(job), None, []
 
 
 def _candidate(tables, sol):
@@ -224,3 +233,6 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         row = row_from_result(result, name=name, frame=frame)
         search = CHECK_SAME if _same(row, warm[0], job.tables) else CHECK_DIFFER
     return row_from_result(result, name=name, frame=frame, search=search)
+
+
+index_scan_frame.new_task = _new_task

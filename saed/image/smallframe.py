@@ -11,8 +11,9 @@ measured by the full stage :func:`saed.image.measure.inspect_pattern`):
 3. spots: pixels of the background-subtracted, lightly smoothed frame above `detect_snr` noise
    sigmas (the noise from the median absolute deviation) that are the maximum of their 5 x 5
    neighbourhood, checked for the few pixels above the threshold only (no full-frame maximum filter);
-4. each spot's position and intensity from its 5 x 5 window (centroid and sum above background),
-   all spots at once;
+4. each spot's position from a parabola through the logarithm of the smoothed frame at its peak
+   (exact for a Gaussian spot), and its intensity from its 5 x 5 window (sum above background), all
+   spots at once;
 5. a frame with no pixel above the threshold (vacuum, amorphous film) stops after step 3.
 
 No beam-stop search, no saturated-beam analysis and no 2-D lattice fit: the frame's MeasuredPattern
@@ -204,6 +205,20 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     cy_i, cx_i, peak, win, w, tot = cy_i[ok], cx_i[ok], peak[ok], win[ok], w[ok], tot[ok]
     x = cx_i + (w * ox).sum(axis=1) / tot
     y = cy_i + (w * oy).sum(axis=1) / tot
+    # sub-pixel peak: a parabola through the logarithm of the smoothed frame at the peak and its two
+    # neighbours, exact for a Gaussian spot (the window centroid is the fallback where it is not defined)
+    centre_v = np.log(np.maximum(peak, 1e-6))
+    for axis, (dy, dx) in enumerate(((0, 1), (1, 0))):
+        lo = np.log(np.maximum(sm[cy_i - dy, cx_i - dx], 1e-6))
+        hi = np.log(np.maximum(sm[cy_i + dy, cx_i + dx], 1e-6))
+        den = lo - 2.0 * centre_v + hi
+        with np.errstate(divide="ignore", invalid="ignore"):
+            off = 0.5 * (lo - hi) / den
+        fine = (den < 0) & (np.abs(off) <= 0.75)
+        if axis == 0:
+            x = np.where(fine, cx_i + off, x)
+        else:
+            y = np.where(fine, cy_i + off, y)
     inten = win.sum(axis=1)
     noise_at = noise_sm_r[geo.r_bin[cy_i * cols + cx_i]]
     snr = peak / noise_at
