@@ -14,7 +14,11 @@ Cartesian -> detector frame, :func:`saed.simulate.geometry.orientation_matrix`) 
 * **Misorientation** between two neighbours of one phase: the smallest rotation angle of
   U1^T U2 S over the proper rotations S of the Laue group (the disorientation angle;
   e.g. Randle & Engler, *Introduction to Texture Analysis*, 2000, ch. 2). Neighbours of different
-  phases are always separated by a (phase) boundary.
+  phases are always separated by a (phase) boundary. For boundaries, an orientation and its turn
+  by 180 deg about the beam count as one: a kinematic zone-axis pattern is centrosymmetric
+  (Friedel's law), so one pattern cannot tell them apart (where the zone axis is not a two-fold
+  axis they are different orientations; tilting to a second zone decides), and the indexer may
+  report either on neighbouring frames of one grain.
 """
 
 from __future__ import annotations
@@ -125,7 +129,7 @@ def orientations(phase, zone_axes: np.ndarray, phi_deg: np.ndarray) -> np.ndarra
     return rz @ r0
 
 
-def misorientation_deg(phase, u1: np.ndarray, u2: np.ndarray) -> np.ndarray:
+def misorientation_deg(phase, u1: np.ndarray, u2: np.ndarray, *, friedel: bool = False) -> np.ndarray:
     """Disorientation angles (n,) in degrees between orientation matrices u1[i] and u2[i] of `phase`.
 
     Examples
@@ -137,10 +141,15 @@ def misorientation_deg(phase, u1: np.ndarray, u2: np.ndarray) -> np.ndarray:
     >>> round(float(misorientation_deg(al, u, r)[0]), 6)
     5.0
     """
-    m = np.einsum("nji,njk->nik", np.asarray(u1, float), np.asarray(u2, float))      # U1^T U2
+    u1 = np.asarray(u1, float)
     ops = proper_rotations_cartesian(phase)
-    tr = np.einsum("nij,oji->no", m, ops)
-    cos = np.clip((tr.max(axis=1) - 1.0) / 2.0, -1.0, 1.0)
+    best = None
+    for flip in ((False, True) if friedel else (False,)):
+        a = np.einsum("ij,njk->nik", np.diag([-1.0, -1.0, 1.0]), u1) if flip else u1    # 180 deg about the beam
+        m = np.einsum("nji,njk->nik", a, np.asarray(u2, float))      # U1^T U2
+        tr = np.einsum("nij,oji->no", m, ops).max(axis=1)
+        best = tr if best is None else np.maximum(best, tr)
+    cos = np.clip((best - 1.0) / 2.0, -1.0, 1.0)
     return np.degrees(np.arccos(cos))
 
 
@@ -149,7 +158,8 @@ def boundaries(phase_index: np.ndarray, u: np.ndarray, phases: list, *, threshol
 
     `phase_index` (ny, nx): index into `phases` or negative (not indexed: no boundary drawn);
     `u` (ny, nx, 3, 3) orientation matrices. A boundary separates two indexed neighbours of
-    different phases, or of one phase misoriented by more than `threshold_deg`.
+    different phases, or of one phase misoriented by more than `threshold_deg` (an orientation and
+    its 180 deg turn about the beam counted as one, see the module notes).
     """
     pi = np.asarray(phase_index)
 
@@ -160,7 +170,7 @@ def boundaries(phase_index: np.ndarray, u: np.ndarray, phases: list, *, threshol
         for k, ph in enumerate(phases):
             same = both & (a_p == k) & (b_p == k)
             if same.any():
-                out[same] = misorientation_deg(ph, a_u[same], b_u[same]) > threshold_deg
+                out[same] = misorientation_deg(ph, a_u[same], b_u[same], friedel=True) > threshold_deg
         return out
 
     right = side(pi[:, :-1], pi[:, 1:], u[:, :-1], u[:, 1:])

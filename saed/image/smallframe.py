@@ -41,6 +41,8 @@ SMALL_FRAME_MAX_PIXELS = 512 * 512
 MAX_CENTRE_SHIFT_PX = 6.0
 
 _WIN = 2  # half-width of the spot window (5 x 5)
+#: A spot's 5 x 5 sum above background must reach this many of its noise sigmas.
+MIN_SUM_SNR = 4.0
 
 
 class _Geometry:
@@ -72,7 +74,11 @@ def _geometry(shape, centre_px) -> _Geometry:
 
 
 def _direct_beam(img: np.ndarray, hint_px, half: int = 8):
-    """Centroid (x, y) of the bright core near `hint_px` (pixels above half of the local maximum), or None."""
+    """Centroid (x, y) of the bright core near `hint_px` (pixels above half of the local maximum), or None.
+
+    The core must be the direct beam: at least half as bright as the brightest pixel of the frame,
+    and far above the counting noise of its surroundings.
+    """
     rows, cols = img.shape
     x0, y0 = int(round(hint_px[0])), int(round(hint_px[1]))
     r0, r1, c0, c1 = max(y0 - half, 0), min(y0 + half + 1, rows), max(x0 - half, 0), min(x0 + half + 1, cols)
@@ -81,7 +87,7 @@ def _direct_beam(img: np.ndarray, hint_px, half: int = 8):
     box = img[r0:r1, c0:c1].astype(np.float64)
     edge = float(np.median(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]])))
     top = float(box.max())
-    if top <= edge:
+    if top < 0.5 * float(img.max()) or top - edge < 10.0 * math.sqrt(max(edge, 1.0)):
         return None
     w = np.clip(box - (edge + 0.5 * (top - edge)), 0.0, None)
     s = float(w.sum())
@@ -224,9 +230,10 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     snr = peak / noise_at
     size = np.sqrt(np.maximum((w * ((ox - (x - cx_i)[:, None]) ** 2 + (oy - (y - cy_i)[:, None]) ** 2)).sum(axis=1)
                               / tot, 0.25))
-    good = (snr >= snr_min) & (inten > 0)
-    # noise of the 25-pixel sum: the smoothed noise scaled back to one pixel (sigma 1 Gaussian: x 2 sqrt(pi))
     inten_sigma = sd_r[geo.r_bin[cy_i * cols + cx_i]] * (2 * _WIN + 1) + np.sqrt(np.maximum(inten, 0.0))
+    # a spot is bright at its peak (smoothed) and in its window sum (a second, independent-ish look that
+    # turns away the odd noise peak of an empty frame)
+    good = (snr >= snr_min) & (inten >= MIN_SUM_SNR * inten_sigma)
     sig_xy = np.clip(size / np.maximum(snr, 1.0), 0.03, 2.0)
     spots = Spots(x[good], y[good], inten[good], inten_sigma[good], sig_xy[good], snr[good], size[good])
     return MeasuredPattern((rows, cols), centre, spots, None, calibration, center_sigma_px=0.3, source=source,
