@@ -71,10 +71,9 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
     done_before = results.done
     n_todo = count_todo(inputs.sources, done_before)
     n_before = inputs.n_frames - n_todo
-    threads = sum(client.nthreads().values()) or 1
     shapes = [src.frame_shape for src in inputs.sources[:1] if src.frame_shape is not None]
     # sized by the whole input, not by what is left, so a resumed run cuts the same tasks
-    size = chunk_frames or chunk_size_for(inputs.n_frames, threads, shapes[0][0] * shapes[0][1] if shapes else None)
+    size = chunk_frames or chunk_size_for(inputs.n_frames, shapes[0][0] * shapes[0][1] if shapes else None)
     written = 0
     if progress:
         progress(0, n_todo, "")

@@ -135,7 +135,7 @@ def inspect_source(name: str) -> FrameSource:
         n = math.prod(lead)
         if n == 0:
             raise ImageError(f"{name}: the .npy stack of shape {shape} holds no frames")
-        return FrameSource(name, path, n, lead, tuple(shape[-2:]), fid, True)
+        return FrameSource(name, path, n, lead, tuple(shape[-2:]), fid, bool(lead))
     with warnings.catch_warnings():
         # Pillow warns (then raises) on corrupt metadata; the file is reported as skipped, the warning adds nothing
         warnings.simplefilter("ignore", UserWarning)

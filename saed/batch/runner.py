@@ -67,15 +67,22 @@ def count_todo(sources: Iterable[FrameSource], done) -> int:
     return sum(1 for s in sources for k in range(s.n_frames) if (s.path, s.file_id, k) not in done)
 
 
-def chunk_size_for(n_todo: int, n_threads: int, frame_pixels: int | None = None) -> int:
-    """Frames per task: about four tasks per worker thread, 1 to :data:`MAX_CHUNK_FRAMES` (and
-    :data:`MAX_CHUNK_PIXELS` when the frame size is known).
+#: A run is cut into at least this many tasks where frames allow (work for 2 workers x 4 tasks).
+MIN_TASKS = 8
 
-    >>> chunk_size_for(4096, 2), chunk_size_for(40, 2), chunk_size_for(3, 8), chunk_size_for(4096, 2, 1024 * 1024)
+
+def chunk_size_for(n_frames: int, frame_pixels: int | None = None) -> int:
+    """Frames per task: 1 to :data:`MAX_CHUNK_FRAMES` (and :data:`MAX_CHUNK_PIXELS` when the frame size is
+    known), at least :data:`MIN_TASKS` tasks where there are frames enough.
+
+    It depends on the input alone, not on the cluster or on what is already done, so the same input
+    is always cut into the same tasks (the scan's warm start works within a task: same tasks, same rows).
+
+    >>> chunk_size_for(4096), chunk_size_for(40), chunk_size_for(3), chunk_size_for(4096, 1024 * 1024)
     (64, 5, 1, 4)
     """
     top = MAX_CHUNK_FRAMES if not frame_pixels else max(1, min(MAX_CHUNK_FRAMES, MAX_CHUNK_PIXELS // frame_pixels))
-    return max(1, min(top, n_todo // max(1, 4 * n_threads)))
+    return max(1, min(top, n_frames // MIN_TASKS))
 
 
 def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,

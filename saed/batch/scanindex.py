@@ -23,10 +23,13 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
    * its score is at most :data:`WARM_SCORE_TOLERANCE` below that full search's score, and
      above :data:`saed.index.match.MIN_SCORE`.
 
-   Otherwise the frame gets the full search (:func:`saed.index.index_pattern`), which then
-   becomes a warm-start entry.
+   Otherwise the frame gets the full search (:func:`saed.index.index_pattern`) on the lean
+   stage's spots (``search`` = ``search``), which then becomes a warm-start entry. Frames measured
+   by the full stage and solved by the full search -- exactly what ``saed index`` does -- are
+   ``search`` = ``full``.
    A frame in which the lean stage finds no spot is ``search`` = ``empty`` (status ``no-solution``).
-3. **Checked frames.** Every ``job.check_every``-th frame (flat index) is also measured by the
+3. **Checked frames.** Every ``job.check_every``-th frame (flat index ``k`` with ``k % N == N // 2``) is
+   also measured by the
    full image stage and solved by the full search, the answer of ``saed index``; the row holds
    that answer and says whether the warm start agreed (``search`` = ``full+warm same`` or
    ``full+warm differ``: same phase and same Laue-equivalent zone axis), so the agreement rate
@@ -49,7 +52,8 @@ from saed.batch.results import Row
 from saed.calibration import Calibration
 from saed.errors import ImageError
 
-__all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY"]
+__all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY", "FULL",
+           "LEAN_SEARCH"]
 
 #: How many distinct earlier solutions (grains) a worker thread keeps for the warm start.
 WARM_ENTRIES = 4
@@ -61,6 +65,10 @@ UNEXPLAINED_MARGIN = 0.03
 QUICK_MARGIN = 0.25
 #: ``search`` values of checked frames.
 CHECK_SAME, CHECK_DIFFER = "full+warm same", "full+warm differ"
+#: ``search`` of a frame measured by the full image stage and solved by the full search (as ``saed index``).
+FULL = "full"
+#: ``search`` of a frame solved by the full search on the spots of the lean image stage.
+LEAN_SEARCH = "search"
 #: ``search`` of a frame where the lean stage found no spot (vacuum, amorphous film): nothing to search.
 EMPTY = "empty"
 
@@ -216,7 +224,9 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
     if full_stage:
         measured = measure_pattern(image, cal, mask=job.mask, source=source)
     st.centre = measured.center_px
-    check = job.check_every > 0 and frame % job.check_every == 0
+    # checked frames sit mid-way between multiples of N, away from the task starts (tasks start at
+    # multiples of their size, where the full stage runs anyway)
+    check = job.check_every > 0 and frame % job.check_every == job.check_every // 2
     if not full_stage and len(measured.spots) == 0 and not check:
         return row_from_result(_full(measured, job), name=name, frame=frame, search=EMPTY)
     warm = None if full_stage else _warm(measured, job, st)
@@ -228,7 +238,7 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         measured = measure_pattern(image, cal, mask=job.mask, source=source)
     result = _full(measured, job)
     _remember(st, job.tables, result)
-    search = "full"
+    search = FULL if (full_stage or check) else LEAN_SEARCH
     if warm is not None:
         row = row_from_result(result, name=name, frame=frame)
         search = CHECK_SAME if _same(row, warm[0], job.tables) else CHECK_DIFFER

@@ -249,9 +249,10 @@ def _report(out, inputs, outcome, phases) -> None:
         print(format_summary(summary))
     checked = searches[CHECK_SAME] + searches[CHECK_DIFFER]
     if searches["warm"] or checked:
-        print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; of {checked} checked "
-              f"against the full search, {searches[CHECK_SAME]} agree"
-              + (f" ({100 * searches[CHECK_SAME] / checked:.1f} %)" if checked else "")
+        print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; "
+              + (f"of {checked} checked against the full search, {searches[CHECK_SAME]} agree "
+                 f"({100 * searches[CHECK_SAME] / checked:.1f} %)" if checked
+                 else "none checked against the full search (see --check-every)")
               + (f"; {searches[CHECK_DIFFER]} differ (search column '{CHECK_DIFFER}')" if searches[CHECK_DIFFER] else ""))
     for status, n in errors.most_common(3):
         print(f"  {n} x {status}")

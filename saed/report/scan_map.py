@@ -125,7 +125,7 @@ def _shade(colour: str, rank: int) -> tuple:
     if rank == 0:
         return tuple(c)
     step = (rank + 1) // 2
-    f = min(0.22 * step, 0.7)
+    f = min(0.35 * step, 0.8)
     return tuple(c + (1 - c) * f) if rank % 2 else tuple(c * (1 - 0.8 * f))
 
 

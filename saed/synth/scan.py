@@ -97,3 +97,22 @@ def write_scan_npy(path, shape=(32, 32), **kwargs) -> ScanTruth:
     out.flush()
     del out
     return truth
+
+
+def write_scan_hdf5(path, shape=(8, 8), *, dataset: str = "scan/frames", **kwargs) -> ScanTruth:
+    """Write a 4-D ``(ny, nx, size, size)`` uint16 scan of the coating to an HDF5 file (gzip, one chunk per
+    frame), with the truth beside it: ``scan/grain`` (ny, nx) and the grains as attributes."""
+    import h5py
+
+    patterns, pick, truth = coating_scan(shape, **kwargs)
+    ny, nx = shape
+    size = patterns[0][0].shape[0]
+    with h5py.File(path, "w") as f:
+        ds = f.create_dataset(dataset, shape=(ny, nx, size, size), dtype="uint16", chunks=(1, 1, size, size),
+                              compression="gzip", compression_opts=9, shuffle=True)
+        for iy in range(ny):
+            ds[iy] = np.stack([patterns[truth.grain[iy, ix]][pick[iy, ix]] for ix in range(nx)])
+        g = f.create_dataset("scan/grain", data=truth.grain)
+        g.attrs["grains"] = [f"{gr.phase or 'vacuum'} {list(gr.zone_axis) if gr.zone_axis else ''} "
+                             f"{gr.rotation_deg:g} deg" for gr in truth.grains]
+    return truth
