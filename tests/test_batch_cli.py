@@ -321,7 +321,7 @@ def test_hdf5_scan_gives_maps_and_an_array_set(scheduler, tmp_path, capsys):
 
     grains = (ScanGrain("Co-fcc", (0, 1, 1), 12.0), ScanGrain("Co-hcp", (0, 0, 1), 35.0), ScanGrain("", None))
     h5 = tmp_path / "coating.h5"
-    truth = write_scan_hdf5(h5, (3, 4), grains=grains, variants=1, size=SIZE, scale_inv_nm_per_px=SCALE, seed=2)
+    truth = write_scan_hdf5(h5, (4, 6), grains=grains, variants=1, size=SIZE, scale_inv_nm_per_px=SCALE, seed=2)
     nan_frame = tmp_path / "nan.npy"
     out, arrays = tmp_path / "scan.csv", tmp_path / "scan.zarr"
     assert main(["batch", str(h5), "--out", str(out), "--scale", str(SCALE), *PHASE_ARGS, "--scheduler", scheduler,
@@ -334,7 +334,7 @@ def test_hdf5_scan_gives_maps_and_an_array_set(scheduler, tmp_path, capsys):
     import zarr
 
     z = zarr.open_group(str(arrays), mode="r")
-    assert list(z.attrs["scan_shape"]) == [3, 4] and z["phase"].shape == (12,)
+    assert list(z.attrs["scan_shape"]) == [4, 6] and z["phase"].shape == (24,)
     assert (tmp_path / "scan_map.png").stat().st_size > 10_000
     # a NaN frame's error names the problem, not the file (so the summary can group equal errors)
     np.save(nan_frame, np.stack([np.full((SIZE, SIZE), np.nan, np.float32)] * 2))
@@ -345,4 +345,4 @@ def test_hdf5_scan_gives_maps_and_an_array_set(scheduler, tmp_path, capsys):
     assert "NaN" in status and "nan.npy" not in status and str(tmp_path) not in status
     assert "2 x error:" in capsys.readouterr().out
     with h5py.File(h5) as f:
-        assert f["scan/frames"].shape == (3, 4, SIZE, SIZE)
+        assert f["scan/frames"].shape == (4, 6, SIZE, SIZE)
