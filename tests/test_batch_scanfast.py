@@ -201,3 +201,27 @@ def test_array_set_holds_the_table(tmp_path):
         u = g["orientation"][4]
         assert np.allclose(u @ u.T, np.eye(3), atol=1e-5) and np.isnan(g["orientation"][0]).all()
         assert list(g.attrs["scan_shape"]) == [2, 3]
+
+
+def test_batch_row_names_hexagonal_runner_up_and_lookalike_zones_in_four_indices():
+    from saed.batch.indexing import row_from_result
+    from saed.index import index_pattern, prepare_phases
+    from saed.index.synthetic import synthetic_measured
+
+    # fcc [112] and hcp [2-1-10]-type zones give look-alike patterns (the close-packed stacking); the hcp
+    # one must be named in Miller-Bravais form, [10-10] for the 3-index direction [2 1 0]
+    # (U = (2u - v)/3, V = (2v - u)/3, T = -(U + V), W = w: International Tables A, 2016, sect. 1.2)
+    tables = prepare_phases([builtin_phase("Co-fcc"), builtin_phase("Co-hcp")])
+    m, _ = synthetic_measured(builtin_phase("Co-fcc"), (1, 1, 2), scale_inv_nm_per_px=SCALE, image_shape=(256, 256),
+                              position_noise_px=0.0, rng=1)
+    result = index_pattern(m, tables)
+    row = row_from_result(result, name="x", frame=0)
+    hex_sols = [s for s in result.solutions[1:2] if s.phase_name == "Co-hcp"]
+    assert hex_sols, "expected the hcp look-alike as runner-up"
+    assert row.runner_up_phase == "Co-hcp" and len(row.runner_up_zone_axis) == 4
+    u, v, w = hex_sols[0].zone_axis
+    assert row.runner_up_zone_axis == tuple(int(x) for x in np.array([2 * u - v, 2 * v - u, -(u + v), 3 * w]) //
+                                           np.gcd.reduce([2 * u - v, 2 * v - u, u + v, 3 * w]))
+    assert "ambiguous: Co-hcp [" in row.note                  # the look-alike caution names the hcp zone ...
+    zone_text = row.note.split("Co-hcp [")[1].split("]")[0]
+    assert tuple(int(t) for t in zone_text.split()) == row.runner_up_zone_axis    # ... in 4 indices
