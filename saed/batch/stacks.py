@@ -112,6 +112,23 @@ def _pick(name: str, dataset: str, arrays: list, what: str):
     return arrays[0]
 
 
+class _Slicer:
+    """An array-like view of a stack for Dask: shape, dtype and slicing only.
+
+    ``dask.array.from_array`` copies any input that has a ``copy`` method -- for a memory-mapped
+    ``.npy`` that is reading the whole scan -- so the file's array is handed over through this.
+    """
+
+    def __init__(self, array):
+        self._a = array
+        self.shape = tuple(array.shape)
+        self.dtype = array.dtype
+        self.ndim = len(self.shape)
+
+    def __getitem__(self, index):
+        return np.asarray(self._a[index])
+
+
 class _Opened:
     """An open stack: the array-like (h5py Dataset, zarr Array, or memmap) and what keeps it open."""
 
@@ -195,7 +212,9 @@ def open_stack(name: str):
         lead = shape[:-2]
         per = max(1, NPY_BLOCK_FRAMES // max(1, math.prod(lead[1:]) if len(lead) > 1 else 1))
         chunks = (per,) + tuple(lead[1:]) + tuple(shape[-2:])
-    return da.from_array(op.array, chunks=chunks, lock=False, asarray=True, fancy=False), op
+    # a fixed name: Dask would otherwise hash the whole array (read every byte) to name it
+    token = f"saed-stack-{abs(hash((name, tuple(shape), str(op.array.dtype)))):x}"
+    return da.from_array(_Slicer(op.array), chunks=chunks, name=token, lock=False, asarray=True, fancy=False), op
 
 
 def _runs(lead_shape: tuple[int, ...], frames) -> list[tuple[tuple[int, ...], int, int, list[int]]]:
