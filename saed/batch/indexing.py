@@ -37,7 +37,7 @@ class IndexJob:
     mask: np.ndarray | None = None
     options: tuple[tuple[str, object], ...] = ()
     frame_shape: tuple[int, int] | None = None
-    check_every: int = 32
+    check_every: int = 128
 
     def __post_init__(self):
         if self.mask is not None:
@@ -66,7 +66,7 @@ def max_g_for(frame_shape, scale_inv_nm_per_px: float | None) -> float | None:
 
 
 def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None,
-                   mask=None, frame_shape=None, check_every: int = 32, **options) -> IndexJob:
+                   mask=None, frame_shape=None, check_every: int = 128, **options) -> IndexJob:
     """Prepare `phases` once (at the calibration's voltage) for a batch; `options` go to index_pattern."""
     from saed.index import prepare_phases
 

@@ -33,9 +33,9 @@ logger = logging.getLogger(__name__)
 
 #: The most frames one task holds (a task's rows are written together when it ends; a scan's warm
 #: start carries from frame to frame within a task).
-MAX_CHUNK_FRAMES = 64
-#: The most pixels one task reads at once (64 frames of 256 x 256; 4 frames of 1024 x 1024).
-MAX_CHUNK_PIXELS = 64 * 256 * 256
+MAX_CHUNK_FRAMES = 256
+#: The most pixels one task reads at once (256 frames of 256 x 256, 32 MB of uint16; 16 of 1024 x 1024).
+MAX_CHUNK_PIXELS = 256 * 256 * 256
 #: How often a single frame whose worker died is run alone before it gets an error row.
 _SINGLE_FRAME_ATTEMPTS = 1
 
@@ -78,8 +78,8 @@ def chunk_size_for(n_frames: int, frame_pixels: int | None = None) -> int:
     It depends on the input alone, not on the cluster or on what is already done, so the same input
     is always cut into the same tasks (the scan's warm start works within a task: same tasks, same rows).
 
-    >>> chunk_size_for(4096), chunk_size_for(40), chunk_size_for(3), chunk_size_for(4096, 1024 * 1024)
-    (64, 5, 1, 4)
+    >>> chunk_size_for(65536), chunk_size_for(4096), chunk_size_for(40), chunk_size_for(3), chunk_size_for(4096, 1024 * 1024)
+    (256, 256, 5, 1, 16)
     """
     top = MAX_CHUNK_FRAMES if not frame_pixels else max(1, min(MAX_CHUNK_FRAMES, MAX_CHUNK_PIXELS // frame_pixels))
     return max(1, min(top, n_frames // MIN_TASKS))

@@ -10,7 +10,7 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
    direct beam is not found near that centre, go through the full stage). A frame with no spots
    (vacuum, amorphous film) is decided there, in about a millisecond.
 2. **Warm start.** The solutions of the last :data:`WARM_ENTRIES` distinct grains solved by full
-   search in this task (a task is up to 64 consecutive frames; each starts afresh, so the rows do not
+   search in this task (a task is up to 256 consecutive frames; each starts afresh, so the rows do not
    depend on which worker ran which task) (the best and the runner-up of each) are refined against the frame's
    spots with the full search's own scoring (:func:`saed.index.score.score_candidate`). The grains are
    tried most recent first, and a grain's solution is accepted only when it scores as well as a full

@@ -70,9 +70,9 @@ def add_arguments(p):
     s.add_argument("--full-search", action="store_true",
                    help="solve every frame by the full image stage and full search (no warm start from the "
                         "previous frames; about 10 to 20 times slower on a scan)")
-    s.add_argument("--check-every", type=int, default=32, metavar="N",
+    s.add_argument("--check-every", type=int, default=128, metavar="N",
                    help="with the warm start, also solve every N-th frame by the full search and report how often "
-                        "the two agree (default 32; 0: never)")
+                        "the two agree (default 128; 0: never)")
 
 
 def _say(text: str) -> None:
