@@ -225,3 +225,28 @@ def test_batch_row_names_hexagonal_runner_up_and_lookalike_zones_in_four_indices
     assert "ambiguous: Co-hcp [" in row.note                  # the look-alike caution names the hcp zone ...
     zone_text = row.note.split("Co-hcp [")[1].split("]")[0]
     assert tuple(int(t) for t in zone_text.split()) == row.runner_up_zone_axis    # ... in 4 indices
+
+
+def test_small_frame_stage_on_arbitrary_frames_never_fails_badly():
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+    from hypothesis.extra.numpy import arrays
+
+    from saed.image.smallframe import measure_small_frame
+
+    frames = st.one_of(arrays(np.uint16, st.tuples(st.integers(16, 48), st.integers(16, 48))),
+                       arrays(np.float32, st.tuples(st.integers(16, 48), st.integers(16, 48)),
+                              elements=st.floats(-1e4, 1e6, width=32)))
+
+    @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+    @given(frames, st.floats(0, 47), st.floats(0, 47))
+    def check(img, hx, hy):
+        m = measure_small_frame(img, Calibration(SCALE, 200.0), centre_hint_px=(hx, hy))
+        if m is None:
+            return
+        rows, cols = img.shape
+        assert np.all(np.isfinite(m.center_px)) and -1 <= m.center_px[0] <= cols and -1 <= m.center_px[1] <= rows
+        xy = m.spots.xy_px
+        assert np.all(np.isfinite(xy)) and np.all((xy >= 0) & (xy <= [cols - 1, rows - 1]))
+
+    check()
