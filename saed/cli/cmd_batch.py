@@ -181,8 +181,9 @@ def run(args) -> int:
         raise InputError(f"--check-every {args.check_every}: give 0 (never) or a positive number of frames")
     frame_shape = check_frame_sizes(inputs.sources)
     mask, max_g = _frame_geometry(args, inputs.sources, calibration)
+    # before the CSV is opened (--retry-errors rewrites it): a resume against other phases is refused untouched
+    check_run_record(out, phases, has_rows=_has_rows(out))
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
-        check_run_record(out, phases, has_rows=results.n_rows > 0)
         n_todo = count_todo(inputs.sources, results.done)
         n_files = len(inputs.sources)
         n_local = args.workers or default_workers()
@@ -219,6 +220,18 @@ def run(args) -> int:
                             phase_order=[p.name for p in phases], scan_shape=scan_shape)
         print(f"arrays: {arrays_path} ({n} frames)")
     return 0
+
+
+def _has_rows(path) -> bool:
+    """True when `path` exists and holds more than a header line."""
+    try:
+        with open(path, "rb") as fh:
+            fh.readline()
+            return bool(fh.readline().strip())
+    except FileNotFoundError:
+        return False
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the file ({exc.strerror})") from None
 
 
 def _report(out, inputs, outcome, phases) -> None:
