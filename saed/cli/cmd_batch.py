@@ -19,10 +19,13 @@ from saed.errors import InputError
 NAME = "batch"
 HELP = "index many patterns (files, folders, stacks) on this machine or a Dask cluster; resumable CSV"
 DESCRIPTION = (
-    "Index every frame of the inputs -- image files, folders of them, multi-page TIFF stacks and 3-D/4-D .npy "
-    "stacks (read frame by frame, never whole) -- and write one CSV row per frame as soon as it is done. "
+    "Index every frame of the inputs -- image files, folders of them, multi-page TIFF stacks and 3-D/4-D stacks "
+    "in .npy, HDF5 or Zarr (read a slice at a time, never whole) -- and write one CSV row per frame as soon as it "
+    "is done. On a scan, frames are solved from their neighbours' solutions where those score as well as a full "
+    "search would (the 'search' column says how each frame was solved). "
     "Run the same command again to resume: frames already in --out are skipped. "
-    "For a scan, --scan-shape NY NX (or a 4-D .npy) also draws a phase and zone-family map."
+    "For a scan, --scan-shape NY NX (or a 4-D stack) also draws phase, zone-family, orientation and "
+    "figure-of-merit maps with grain boundaries."
 )
 ORDER = 30
 
@@ -68,8 +71,8 @@ def add_arguments(p):
                    help="draw a grain boundary where neighbouring orientations differ by more than DEG (default 5)")
     s = p.add_argument_group("search")
     s.add_argument("--full-search", action="store_true",
-                   help="solve every frame by the full image stage and full search (no warm start from the "
-                        "previous frames; about 10 to 20 times slower on a scan)")
+                   help="solve every frame by the full image stage and full search, as 'saed index' does (no warm "
+                        "start from the previous frames; several times slower on a scan)")
     s.add_argument("--check-every", type=int, default=128, metavar="N",
                    help="with the warm start, also solve every N-th frame by the full search and report how often "
                         "the two agree (default 128; 0: never)")
