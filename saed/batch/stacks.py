@@ -235,22 +235,31 @@ def _runs(lead_shape: tuple[int, ...], frames) -> list[tuple[tuple[int, ...], in
 def read_frames(name: str, frames) -> dict[int, np.ndarray | ImageError]:
     """The frames `frames` (flat indices) of the stack `name`, each as a 2-D array, or the ImageError reading it.
 
-    Consecutive frames along the last scan axis are read as one slice of the lazy Dask array
-    (computed in this process, synchronously): a task of 16 frames costs one or two reads.
+    Consecutive frames along the last scan axis are read as one slice: of the lazy Dask array for an
+    HDF5 or Zarr stack (computed in this process, synchronously), of the memory map for a ``.npy``
+    (which has no chunks for Dask to follow; this also spares a worker that restarts the Dask-array
+    import). A task of 64 frames costs one or two reads.
     """
-    arr, op = open_stack(name)
+    path, dataset = split_dataset(name)
+    if _kind(path) == "npy":
+        op = _Opened(name, path, dataset)
+        arr, compute = _Slicer(op.array), False
+    else:
+        arr, op = open_stack(name)
+        compute = True
     out: dict = {}
     try:
         lead = tuple(arr.shape[:-2])
         n = math.prod(lead)
-        for outer, j0, j1, ks in _runs(lead, frames):
-            bad = [k for k in ks if not 0 <= k < n]
-            for k in bad:
+        inside = [k for k in frames if 0 <= k < n]
+        for k in frames:
+            if not 0 <= k < n:
                 out[k] = ImageError(f"frame {k} is out of range (the stack holds {n} frames)")
-            if bad:
-                continue
+        for outer, j0, j1, ks in _runs(lead, inside):
             try:
-                block = arr[outer + (slice(j0, j1),)].compute(scheduler="synchronous")
+                block = arr[outer + (slice(j0, j1),)]
+                if compute:
+                    block = block.compute(scheduler="synchronous")
             except (OSError, ValueError, RuntimeError) as exc:
                 err = ImageError(f"the stack cannot be read here ({exc.__class__.__name__}: "
                                  f"{' '.join(str(exc).split())[:80]})")
