@@ -54,10 +54,11 @@ class Chunk:
     context: object = None
     file_id: str = ""
     stack: bool = False
+    retried: bool = False
 
-    def single(self, k: int) -> "Chunk":
-        """The same source, frame `k` alone."""
-        return Chunk(self.name, self.path, (k,), self.context, self.file_id, self.stack)
+    def single(self, k: int, *, retried: bool = False) -> "Chunk":
+        """The same source, frame `k` alone (`retried`: after a worker died on a task holding it)."""
+        return Chunk(self.name, self.path, (k,), self.context, self.file_id, self.stack, retried)
 
 
 def count_todo(sources: Iterable[FrameSource], done) -> int:
@@ -267,11 +268,19 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     retry: list[tuple[Chunk, int]] = []
     ac = as_completed()
 
+    retries_out = [0]                       # single-frame retries in flight (at most one at a time)
+
     def top_up() -> None:
         while len(pending) < n:
-            item = retry.pop() if retry else next(((c, 0) for c in it), None)
+            if retry and retries_out[0] == 0:
+                # one suspect frame at a time: a frame that kills its worker must not take a frame
+                # queued on the same worker down with it (and get that one blamed)
+                item = retry.pop()
+                retries_out[0] += 1
+            else:
+                item = next(((c, 0) for c in it), None)
             if item is None:
-                return
+                return                        # (a waiting retry goes out when the one in flight ends)
             fut = client.submit(process_chunk, item[0], frame_fn, shared, pure=False)
             pending[fut.key] = item
             ac.add(fut)
@@ -279,6 +288,8 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     top_up()
     for fut in ac:
         chunk, attempt = pending.pop(fut.key)
+        if chunk.retried:
+            retries_out[0] -= 1
         try:
             rows = fut.result()
         except KilledWorker:
@@ -288,7 +299,7 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
                 # one by one (and each alone once more) before blaming one.
                 logger.warning("%s frames %d-%d: a worker died; trying them one by one", chunk.name,
                                chunk.frames[0], chunk.frames[-1])
-                retry.extend((chunk.single(k), attempt + (len(chunk.frames) == 1))
+                retry.extend((chunk.single(k, retried=True), attempt + (len(chunk.frames) == 1))
                              for k in reversed(chunk.frames))
             else:
                 rows = [Row(chunk.name, chunk.frames[0],
