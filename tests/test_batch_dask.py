@@ -58,9 +58,9 @@ def _stack(n, seed=0, shape=(24, 24)):
 
 def _rows_by_key(path):
     rows = read_rows(path)
-    keys = [r.key for r in rows]
+    keys = [(r.file, r.frame) for r in rows]
     assert len(keys) == len(set(keys)), "duplicate rows"
-    return {r.key: r for r in rows}
+    return {(r.file, r.frame): r for r in rows}
 
 
 def test_every_frame_of_files_and_stacks_gets_one_row(client, tmp_path):

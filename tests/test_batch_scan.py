@@ -95,7 +95,9 @@ def test_scan_map_png_shows_each_phase_colour(tmp_path):
     scan = build_scan_map(rows, (src,), None, phases=phases, phase_order=("Co-fcc", "Co-hcp"))
     out = tmp_path / "map.png"
     render_scan_map(scan, out, title="scan.npy")
-    img = imread(out)[..., :3]
+    full = imread(out)[..., :3]
+    h, w = full.shape[:2]
+    img = full[: int(0.45 * h), : int(0.7 * w)]      # the phase and zone-family maps (top row)
 
     def n_pixels(hex_colour):
         rgb = np.array([int(hex_colour[i:i + 2], 16) for i in (1, 3, 5)]) / 255
@@ -104,3 +106,13 @@ def test_scan_map_png_shows_each_phase_colour(tmp_path):
     fcc, hcp, unused = (n_pixels(PHASE_COLOURS[i]) for i in (0, 1, 2))
     assert fcc > 2 * hcp > 0           # Co-fcc covers 144 positions, Co-hcp 40
     assert unused == 0
+    # one colour per phase in both maps: every saturated pixel of the zone-family map has the hue of a
+    # phase colour (its families are lighter or darker shades of it)
+    from matplotlib.colors import rgb_to_hsv, to_rgb
+
+    zone = full[: int(0.45 * h), int(0.36 * w): int(0.68 * w)]
+    hsv = rgb_to_hsv(zone.reshape(-1, 3))
+    coloured = hsv[(hsv[:, 1] > 0.35) & (hsv[:, 2] > 0.3)]
+    phase_hues = [rgb_to_hsv(np.array(to_rgb(PHASE_COLOURS[i])))[0] for i in (0, 1)]
+    off = np.min([np.abs((coloured[:, 0] - ph + 0.5) % 1.0 - 0.5) for ph in phase_hues], axis=0)
+    assert len(coloured) > 1000 and np.mean(off < 0.03) > 0.98

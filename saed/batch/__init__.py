@@ -7,6 +7,9 @@ The pieces, each in its own module:
 * :mod:`saed.batch.cluster` -- a local Dask cluster or an existing scheduler;
 * :mod:`saed.batch.runner` -- tasks of consecutive frames, rows back as they finish;
 * :mod:`saed.batch.indexing` -- the per-frame function that calls the indexer;
+* :mod:`saed.batch.scanindex` -- the per-frame function for scans (lean image stage, warm start);
+* :mod:`saed.batch.stacks` -- ``.npy``, HDF5 and Zarr stacks as lazy Dask arrays;
+* :mod:`saed.batch.arrays` -- the per-frame table as a Zarr or HDF5 array set;
 * :mod:`saed.batch.scan` -- scan grids, zone families and the summary.
 
 :func:`run_batch` ties them together for any per-frame function.
@@ -68,8 +71,9 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
     done_before = results.done
     n_todo = count_todo(inputs.sources, done_before)
     n_before = inputs.n_frames - n_todo
-    threads = sum(client.nthreads().values()) or 1
-    size = chunk_frames or chunk_size_for(n_todo, threads)
+    shapes = [src.frame_shape for src in inputs.sources[:1] if src.frame_shape is not None]
+    # sized by the whole input, not by what is left, so a resumed run cuts the same tasks
+    size = chunk_frames or chunk_size_for(inputs.n_frames, shapes[0][0] * shapes[0][1] if shapes else None)
     written = 0
     if progress:
         progress(0, n_todo, "")

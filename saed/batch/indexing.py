@@ -16,7 +16,8 @@ import numpy as np
 from saed.batch.results import Row
 from saed.calibration import Calibration
 
-__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "calibration_from_tags"]
+__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "calibration_from_tags", "row_from_result",
+           "row_from_solutions", "lookalike_note"]
 
 
 @dataclass(frozen=True)
@@ -24,7 +25,10 @@ class IndexJob:
     """What every frame of a batch shares: the prepared phases, the calibration and the matching options.
 
     ``mask``: (rows, cols) bool, True where pixels are ignored (a beam stop that stays put), or
-    None; ``options``: keyword options of :func:`saed.index.index_pattern` as (name, value) pairs.
+    None; ``options``: keyword options of :func:`saed.index.index_pattern` as (name, value) pairs;
+    ``frame_shape``: (rows, cols) every frame must have (None: not checked); ``check_every``: on a
+    scan (:func:`saed.batch.scanindex.index_scan_frame`), every N-th frame is also solved by the
+    full image stage and full search, to measure how often the warm start agrees (0: never).
     """
 
     tables: object
@@ -32,6 +36,8 @@ class IndexJob:
     top: int = 5
     mask: np.ndarray | None = None
     options: tuple[tuple[str, object], ...] = ()
+    frame_shape: tuple[int, int] | None = None
+    check_every: int = 128
 
     def __post_init__(self):
         if self.mask is not None:
@@ -60,12 +66,13 @@ def max_g_for(frame_shape, scale_inv_nm_per_px: float | None) -> float | None:
 
 
 def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None,
-                   mask=None, **options) -> IndexJob:
+                   mask=None, frame_shape=None, check_every: int = 128, **options) -> IndexJob:
     """Prepare `phases` once (at the calibration's voltage) for a batch; `options` go to index_pattern."""
     from saed.index import prepare_phases
 
     tables = prepare_phases(phases, voltage_kv=calibration.voltage_kv, max_g_inv_nm=max_g_inv_nm)
-    return IndexJob(tables, calibration, int(top), mask, tuple(options.items()))
+    shape = None if frame_shape is None else (int(frame_shape[0]), int(frame_shape[1]))
+    return IndexJob(tables, calibration, int(top), mask, tuple(options.items()), shape, int(check_every))
 
 
 def calibration_from_tags(base: Calibration):
@@ -95,8 +102,44 @@ def _one_line(parts) -> str:
     return " | ".join(" ".join(str(p).split()) for p in parts if p)
 
 
+def _zone_of(zone_axis, zone_axis_4) -> tuple[int, ...]:
+    """The zone a person reads: 4-index for hexagonal axes, else 3-index."""
+    return tuple(zone_axis_4) if zone_axis_4 is not None else tuple(zone_axis)
+
+
+def lookalike_note(best) -> str:
+    """The look-alike cautions of `best` (ambiguous or close), hexagonal zones in 4-index form."""
+    close = [lk for lk in best.lookalikes if lk.relation in ("ambiguous", "close")]
+    return _one_line(f"{lk.relation}: {lk.phase_name} [{' '.join(map(str, _zone_of(lk.zone_axis, lk.zone_axis_4)))}]"
+                     for lk in close[:2])
+
+
+def row_from_result(result, *, name: str, frame: int, note: str | None = None, search: str = "") -> Row:
+    """The CSV row of an IndexResult: best solution, runner-up and message (`note` replaces the look-alike part)."""
+    measured = result.measured
+    n_spots = len(measured.spots) if measured is not None else None
+    if not result.solutions:
+        return Row(name, frame, status="no-solution", n_spots=n_spots, note=_one_line([result.message]), search=search)
+    best = result.solutions[0]
+    second = result.solutions[1] if len(result.solutions) > 1 else None
+    return row_from_solutions(best, second, name=name, frame=frame, n_spots=n_spots, search=search,
+                              note=_one_line([result.message, lookalike_note(best) if note is None else note]))
+
+
+def row_from_solutions(best, second, *, name: str, frame: int, n_spots, note: str, search: str) -> Row:
+    """A row for an indexed frame from its best and second-ranked Solution (or None)."""
+    return Row(
+        name, frame, status="ok", phase=best.phase_name, zone_axis=best.zone_axis, score=best.score,
+        in_plane_rotation_deg=best.in_plane_rotation_deg, scale_inv_nm_per_px=best.scale_inv_nm_per_px,
+        n_spots=n_spots, zone_axis_4=best.zone_axis_4,
+        runner_up_phase=second.phase_name if second else "",
+        runner_up_zone_axis=_zone_of(second.zone_axis, second.zone_axis_4) if second else None,
+        runner_up_score=second.score if second else None, note=note, search=search,
+    )
+
+
 def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, context=None) -> Row:
-    """Index one frame; the row carries the best solution, the runner-up and the indexer's message.
+    """Index one frame by a full search; the row carries the best solution, the runner-up and the indexer's message.
 
     `context` may be a :class:`~saed.calibration.Calibration` for this file (e.g. read from its
     TIFF tags), used instead of the job's. No solution is status ``no-solution`` (not an
@@ -107,20 +150,4 @@ def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, cont
     cal = context if isinstance(context, Calibration) else job.calibration
     result = index_image(image, job.tables, cal, top=job.top, mask=job.mask, source=f"{name} frame {frame}",
                          **dict(job.options))
-    measured = result.measured
-    n_spots = len(measured.spots) if measured is not None else None
-    if not result.solutions:
-        return Row(name, frame, status="no-solution", n_spots=n_spots, note=_one_line([result.message]))
-    best = result.solutions[0]
-    second = result.solutions[1] if len(result.solutions) > 1 else None
-    close = [lk for lk in best.lookalikes if lk.relation in ("ambiguous", "close")]
-    note = _one_line([result.message] + [f"{lk.relation}: {lk.phase_name} [{' '.join(map(str, lk.zone_axis))}]"
-                                         for lk in close[:2]])
-    return Row(
-        name, frame, status="ok", phase=best.phase_name, zone_axis=best.zone_axis, score=best.score,
-        in_plane_rotation_deg=best.in_plane_rotation_deg, scale_inv_nm_per_px=best.scale_inv_nm_per_px,
-        n_spots=n_spots, zone_axis_4=best.zone_axis_4,
-        runner_up_phase=second.phase_name if second else "",
-        runner_up_zone_axis=second.zone_axis if second else None,
-        runner_up_score=second.score if second else None, note=note,
-    )
+    return row_from_result(result, name=name, frame=frame, search="full")

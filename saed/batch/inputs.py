@@ -33,13 +33,14 @@ from pathlib import Path
 
 from saed.errors import ImageError, InputError
 
-__all__ = ["FrameSource", "Skipped", "Inputs", "discover_inputs", "inspect_source", "first_frame_shape", "IMAGE_SUFFIXES",
+__all__ = ["FrameSource", "Skipped", "Inputs", "discover_inputs", "inspect_source", "first_frame_shape", "check_frame_sizes",
+           "IMAGE_SUFFIXES",
            "MAX_STACK_AXES"]
 
 logger = logging.getLogger(__name__)
 
-#: File suffixes taken as images when a folder is searched.
-IMAGE_SUFFIXES = (".tif", ".tiff", ".png", ".jpg", ".jpeg", ".npy")
+#: File suffixes taken as images when a folder is searched (HDF5 files and Zarr stores as stacks).
+IMAGE_SUFFIXES = (".tif", ".tiff", ".png", ".jpg", ".jpeg", ".npy", ".h5", ".hdf5", ".hdf", ".nxs", ".zarr")
 #: A ``.npy`` stack has at most this many axes: (scan_y, scan_x, row, col).
 MAX_STACK_AXES = 4
 
@@ -49,8 +50,10 @@ class FrameSource:
     """One input file and how many frames it holds.
 
     ``name`` is the path as the user gave or the folder search found it (the CSV ``image``
-    column); ``path`` is its absolute form (what the workers open and what resume matches
-    on); ``stack_shape`` is the shape of the leading axes of a stack (``(n,)`` for a
+    column); ``path`` is its resolved form (symlinks followed; what the workers open and, with
+    ``file_id`` -- size and modification time, see :func:`saed.batch.results.file_identity` --
+    what resume matches on); ``stack`` is True for a ``.npy``, HDF5 or Zarr array whose frames are
+    read in slices (:func:`saed.batch.stacks.read_frames`); ``stack_shape`` is the shape of the leading axes of a stack (``(n,)`` for a
     3-axis ``.npy`` or a multi-page TIFF, ``(ny, nx)`` for a 4-axis ``.npy``, ``()`` for
     a single image); ``frame_shape`` is (rows, cols) when the header gives it (``.npy``).
     """
@@ -60,6 +63,8 @@ class FrameSource:
     n_frames: int
     stack_shape: tuple[int, ...] = ()
     frame_shape: tuple[int, int] | None = None
+    file_id: str = ""
+    stack: bool = False
 
     @property
     def scan_shape(self) -> tuple[int, int] | None:
@@ -106,9 +111,18 @@ def inspect_source(name: str) -> FrameSource:
     >>> s = inspect_source(p); s.n_frames, s.scan_shape
     (12, (3, 4))
     """
+    from saed.batch.results import file_identity
+    from saed.batch.stacks import inspect_stack, is_array_store
     from saed.image.io import MIN_SIDE_PX, count_frames
 
-    path = os.path.abspath(name)
+    try:
+        path, fid = file_identity(name)
+    except OSError as exc:
+        raise ImageError(f"{name}: cannot read the file ({exc.strerror or exc.__class__.__name__})") from None
+    if is_array_store(name):
+        info = inspect_stack(name)
+        full = path if "::" in path or not info.dataset else f"{path}::{info.dataset}"
+        return FrameSource(name, full, math.prod(info.lead_shape), info.lead_shape, info.frame_shape, fid, True)
     if Path(path).suffix.lower() == ".npy" or _starts_like_npy(path):
         shape = _npy_shape(name, path)
         if len(shape) < 2 or len(shape) > MAX_STACK_AXES:
@@ -121,14 +135,14 @@ def inspect_source(name: str) -> FrameSource:
         n = math.prod(lead)
         if n == 0:
             raise ImageError(f"{name}: the .npy stack of shape {shape} holds no frames")
-        return FrameSource(name, path, n, lead, tuple(shape[-2:]))
+        return FrameSource(name, path, n, lead, tuple(shape[-2:]), fid, bool(lead))
     with warnings.catch_warnings():
         # Pillow warns (then raises) on corrupt metadata; the file is reported as skipped, the warning adds nothing
         warnings.simplefilter("ignore", UserWarning)
         n = count_frames(path)
     if n < 1:
         raise ImageError(f"{name}: the file holds no image")
-    return FrameSource(name, path, n, (n,) if n > 1 else ())
+    return FrameSource(name, path, n, (n,) if n > 1 else (), None, fid)
 
 
 def _starts_like_npy(path: str) -> bool:
@@ -182,12 +196,14 @@ def discover_inputs(paths, *, recursive: bool = False, exclude=()) -> Inputs:
     """
     if not paths:
         raise InputError("no input given: name image files, stacks or folders")
+    from saed.batch.stacks import is_array_store, split_dataset
+
     excluded = {os.path.abspath(p) for p in exclude if p}
     sources, skipped, seen = [], [], set()
 
     def take(name: str, *, in_folder: bool) -> None:
-        path = os.path.abspath(name)
-        if path in seen or path in excluded:
+        path = os.path.realpath(split_dataset(name)[0]) + ("::" + split_dataset(name)[1] if "::" in name else "")
+        if path in seen or os.path.abspath(name) in excluded or path in excluded:
             return
         seen.add(path)
         if in_folder and Path(name).suffix.lower() not in IMAGE_SUFFIXES:
@@ -208,7 +224,7 @@ def discover_inputs(paths, *, recursive: bool = False, exclude=()) -> Inputs:
             if entry.startswith("."):
                 continue
             full = os.path.join(folder, entry)
-            if os.path.isdir(full):
+            if os.path.isdir(full) and not is_array_store(full):
                 if recursive:
                     walk(full)
                 else:
@@ -217,10 +233,11 @@ def discover_inputs(paths, *, recursive: bool = False, exclude=()) -> Inputs:
                 take(full, in_folder=True)
 
     for given in paths:
-        name = os.path.normpath(str(given))
-        if os.path.isdir(name):
+        file, ds = split_dataset(str(given))
+        name = os.path.normpath(file) + (f"::{ds}" if ds else "")
+        if os.path.isdir(file) and not is_array_store(file):
             walk(name)
-        elif os.path.exists(name):
+        elif os.path.exists(file):
             take(name, in_folder=False)
         else:
             raise InputError(f"{given}: no such file or folder")
@@ -250,3 +267,47 @@ def _strip_name(message: str, name: str) -> str:
         if message.startswith(prefix):
             return message[len(prefix):]
     return message
+
+
+def _header_shape(src: FrameSource) -> tuple[int, int] | None:
+    """(rows, cols) of a source's frames from its header (TIFF first page, PNG/JPEG size), or None."""
+    if src.frame_shape is not None:
+        return tuple(src.frame_shape)
+    suffix = Path(src.path).suffix.lower()
+    try:
+        if suffix in (".tif", ".tiff"):
+            import tifffile
+
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                with tifffile.TiffFile(src.path) as tif:
+                    shape = tif.pages[0].shape
+            return (int(shape[0]), int(shape[1])) if len(shape) >= 2 else None
+        from PIL import Image
+
+        with Image.open(src.path) as im:
+            return int(im.size[1]), int(im.size[0])
+    except Exception:  # noqa: BLE001 - a header that cannot be read: the frame's own row will say why
+        return None
+
+
+def check_frame_sizes(sources) -> tuple[int, int] | None:
+    """The one frame size of all `sources` (from headers; None if none can be read).
+
+    Raises
+    ------
+    InputError
+        A source whose frames have another size than the first's (one run needs one frame size:
+        the tables, the mask and the scan's image stage are sized for it).
+    """
+    first = None
+    for src in sources:
+        shape = _header_shape(src)
+        if shape is None:
+            continue
+        if first is None:
+            first = (src, shape)
+        elif shape != first[1]:
+            raise InputError(f"{src.name}: frames of {shape[0]}x{shape[1]} pixels, but {first[0].name} has "
+                             f"{first[1][0]}x{first[1][1]}; one run needs one frame size (index them in separate runs)")
+    return None if first is None else first[1]

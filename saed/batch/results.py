@@ -3,13 +3,21 @@
 Columns (CONTRACT.md), then saed's additions::
 
     image,frame,phase,zone_axis,score,in_plane_rotation_deg,scale_inv_nm_per_px,n_spots,status,
-    zone_axis_4,runner_up_phase,runner_up_zone_axis,runner_up_score,note
+    zone_axis_4,runner_up_phase,runner_up_zone_axis,runner_up_score,note,search,file,file_id
 
 ``zone_axis`` is "u v w" (3-index, the phase's conventional cell), ``zone_axis_4`` the
 Miller-Bravais "U V T W" for hexagonal axes (else empty); ``status`` is ``ok``,
 ``no-solution`` or ``error: <one line>``; ``runner_up_*`` describe the second-ranked
-solution; ``note`` carries the indexer's message (a look-alike caution, the closest
-near-miss).
+solution (its zone in 4-index form for a hexagonal phase); ``note`` carries the indexer's
+message (a look-alike caution, the closest near-miss; hexagonal zones in 4-index form);
+``search`` says how the frame was solved (``full``, ``warm``, or on a checked frame
+``full+warm same`` / ``full+warm differ``: see :mod:`saed.batch.scanindex`); ``file`` is the
+resolved path of the input and ``file_id`` its size and modification time (``SIZE:MTIME_NS``).
+
+A frame's identity for resuming is (``file``, ``file_id``, ``frame``): the same file typed
+differently, or from another working directory, is the same file; a file changed since its
+rows were written is a different one (its frames are done again). ``image`` keeps the path
+as typed, for people.
 
 Durability: rows are appended with one write per group, then flushed and fsync'ed, so a
 row that is in the file is complete and stays there. Reopening an existing file reads the
@@ -30,7 +38,8 @@ from dataclasses import dataclass, fields
 
 from saed.errors import InputError
 
-__all__ = ["CONTRACT_COLUMNS", "COLUMNS", "Row", "ResultsFile", "read_rows", "iter_rows", "frame_key", "error_status"]
+__all__ = ["CONTRACT_COLUMNS", "COLUMNS", "Row", "ResultsFile", "read_rows", "iter_rows", "frame_key", "file_identity",
+           "error_status"]
 
 logger = logging.getLogger(__name__)
 
@@ -38,12 +47,39 @@ logger = logging.getLogger(__name__)
 CONTRACT_COLUMNS = ("image", "frame", "phase", "zone_axis", "score", "in_plane_rotation_deg",
                     "scale_inv_nm_per_px", "n_spots", "status")
 #: Every column saed writes: the contract's, then additions.
-COLUMNS = CONTRACT_COLUMNS + ("zone_axis_4", "runner_up_phase", "runner_up_zone_axis", "runner_up_score", "note")
+COLUMNS = CONTRACT_COLUMNS + ("zone_axis_4", "runner_up_phase", "runner_up_zone_axis", "runner_up_score", "note",
+                               "search", "file", "file_id")
 
 
-def frame_key(image: str, frame: int) -> tuple[str, int]:
-    """The identity of a frame for resuming: (absolute path, flat frame index)."""
-    return os.path.abspath(image), int(frame)
+def frame_key(file: str, file_id: str, frame: int) -> tuple[str, str, int]:
+    """The identity of a frame for resuming: (resolved path, size:mtime of the file, flat frame index)."""
+    return file, file_id, int(frame)
+
+
+def file_identity(path: str) -> tuple[str, str]:
+    """(resolved path, ``SIZE:MTIME_NS``) of an input; for ``FILE::DATASET`` the file's, dataset kept.
+
+    A Zarr store is a folder: its identity is that of its array metadata and the folder itself.
+
+    >>> import tempfile, os
+    >>> d = tempfile.mkdtemp(); p = os.path.join(d, "a.npy")
+    >>> with open(p, "wb") as fh: _ = fh.write(b"x")
+    >>> os.symlink(p, os.path.join(d, "b.npy"))
+    >>> file_identity(os.path.join(d, "b.npy"))[0] == os.path.realpath(p)
+    True
+    """
+    base, sep, ds = str(path).partition("::")
+    real = os.path.realpath(base)
+    st = os.stat(real)
+    size, mtime = st.st_size, st.st_mtime_ns
+    if os.path.isdir(real):
+        for meta in ("zarr.json", ".zarray", ".zgroup"):
+            mp = os.path.join(real, ds.strip("/"), meta) if ds else os.path.join(real, meta)
+            if os.path.exists(mp):
+                m = os.stat(mp)
+                size, mtime = m.st_size, max(mtime, m.st_mtime_ns)
+                break
+    return real + (sep + ds if sep else ""), f"{size}:{mtime}"
 
 
 def error_status(message: str) -> str:
@@ -69,6 +105,9 @@ class Row:
     runner_up_zone_axis: tuple[int, ...] | None = None
     runner_up_score: float | None = None
     note: str = ""
+    search: str = ""
+    file: str = ""
+    file_id: str = ""
 
     def __post_init__(self):
         object.__setattr__(self, "frame", int(self.frame))
@@ -80,8 +119,9 @@ class Row:
         object.__setattr__(self, "note", " ".join(str(self.note).split()))
 
     @property
-    def key(self) -> tuple[str, int]:
-        return frame_key(self.image, self.frame)
+    def key(self) -> tuple[str, str, int]:
+        """(file, file_id, frame); a row written without ``file`` falls back to the absolute typed path."""
+        return frame_key(self.file or os.path.abspath(self.image), self.file_id, self.frame)
 
     @property
     def is_error(self) -> bool:
@@ -118,7 +158,7 @@ def _fmt(name: str, v) -> str:
 
 
 def _parse(name: str, text: str):
-    if name in ("image", "status", "phase", "runner_up_phase", "note"):
+    if name in ("image", "status", "phase", "runner_up_phase", "note", "search", "file", "file_id"):
         return text
     if text == "":
         return None
@@ -250,12 +290,13 @@ class ResultsFile:
     def _scan(self) -> tuple[int, int]:
         """Read the keys of the rows in the file; returns (bytes of complete lines, error rows)."""
         lines = _CompleteLines(self._fh)
-        paths: dict = {}
+        keys: dict = {}
         n_err = 0
         self.done, self.n_rows = set(), 0
         for r in _iter_parsed(self.path, lines):
-            path = paths.setdefault(r.image, os.path.abspath(r.image))    # one string per file
-            self.done.add((path, r.frame))
+            k = r.key
+            file, fid = keys.setdefault(k[:2], k[:2])    # one pair of strings per file
+            self.done.add((file, fid, k[2]))
             self.n_rows += 1
             n_err += r.is_error
         return lines.n_bytes, n_err

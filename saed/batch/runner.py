@@ -19,6 +19,7 @@ filesystem the workers see (as on any shared-filesystem cluster).
 from __future__ import annotations
 
 import logging
+import os
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator
 
@@ -30,8 +31,11 @@ __all__ = ["Chunk", "plan_chunks", "count_todo", "chunk_size_for", "process_chun
 
 logger = logging.getLogger(__name__)
 
-#: The most frames one task holds (a task's rows are written together when it ends).
-MAX_CHUNK_FRAMES = 16
+#: The most frames one task holds (a task's rows are written together when it ends; a scan's warm
+#: start carries from frame to frame within a task).
+MAX_CHUNK_FRAMES = 256
+#: The most pixels one task reads at once (256 frames of 256 x 256, 32 MB of uint16; 16 of 1024 x 1024).
+MAX_CHUNK_PIXELS = 256 * 256 * 256
 #: How often a single frame whose worker died is run alone before it gets an error row.
 _SINGLE_FRAME_ATTEMPTS = 1
 
@@ -48,49 +52,88 @@ class Chunk:
     path: str
     frames: tuple[int, ...]
     context: object = None
+    file_id: str = ""
+    stack: bool = False
+    retried: bool = False
+
+    def single(self, k: int, *, retried: bool = False) -> "Chunk":
+        """The same source, frame `k` alone (`retried`: after a worker died on a task holding it)."""
+        return Chunk(self.name, self.path, (k,), self.context, self.file_id, self.stack, retried)
 
 
 def count_todo(sources: Iterable[FrameSource], done) -> int:
-    """Frames of `sources` whose (path, frame) key is not in `done`."""
+    """Frames of `sources` whose (path, file_id, frame) key is not in `done`."""
     if not done:
         return sum(s.n_frames for s in sources)
-    return sum(1 for s in sources for k in range(s.n_frames) if (s.path, k) not in done)
+    return sum(1 for s in sources for k in range(s.n_frames) if (s.path, s.file_id, k) not in done)
 
 
-def chunk_size_for(n_todo: int, n_threads: int) -> int:
-    """Frames per task: about four tasks per worker thread, 1 to :data:`MAX_CHUNK_FRAMES`.
+#: A run is cut into at least this many tasks where frames allow (work for 2 workers x 4 tasks).
+MIN_TASKS = 8
 
-    >>> chunk_size_for(4096, 2), chunk_size_for(40, 2), chunk_size_for(3, 8)
-    (16, 5, 1)
+
+def chunk_size_for(n_frames: int, frame_pixels: int | None = None) -> int:
+    """Frames per task: 1 to :data:`MAX_CHUNK_FRAMES` (and :data:`MAX_CHUNK_PIXELS` when the frame size is
+    known), at least :data:`MIN_TASKS` tasks where there are frames enough.
+
+    It depends on the input alone, not on the cluster or on what is already done, so the same input
+    is always cut into the same tasks (the scan's warm start works within a task: same tasks, same rows).
+
+    >>> chunk_size_for(65536), chunk_size_for(4096), chunk_size_for(40), chunk_size_for(3), chunk_size_for(4096, 1024 * 1024)
+    (256, 256, 5, 1, 16)
     """
-    return max(1, min(MAX_CHUNK_FRAMES, n_todo // max(1, 4 * n_threads)))
+    top = MAX_CHUNK_FRAMES if not frame_pixels else max(1, min(MAX_CHUNK_FRAMES, MAX_CHUNK_PIXELS // frame_pixels))
+    return max(1, min(top, n_frames // MIN_TASKS))
 
 
 def plan_chunks(sources: Iterable[FrameSource], done, *, chunk_frames: int,
                 context_of: Callable[[FrameSource], object] | None = None) -> Iterator[Chunk]:
-    """Chunks of up to `chunk_frames` consecutive frames not in `done`, source by source (lazy)."""
+    """Chunks of up to `chunk_frames` consecutive frames not in `done`, source by source (lazy).
+
+    Chunks never cross a multiple of `chunk_frames` (frames 0-63, 64-127, ... for 64), so a run
+    cuts a file into the same tasks whichever frames are already done: a frame function that
+    carries work from frame to frame within a task (the scan's warm start) gives the same rows.
+
+    >>> from saed.batch.inputs import FrameSource
+    >>> [c.frames for c in plan_chunks([FrameSource("a", "/a", 10)], {("/a", "", 1)}, chunk_frames=4)]
+    [(0,), (2, 3), (4, 5, 6, 7), (8, 9)]
+    """
     for src in sources:
         ctx = context_of(src) if context_of else None
         run: list[int] = []
+
+        def chunk():
+            return Chunk(src.name, src.path, tuple(run), ctx, src.file_id, src.stack)
+
         for k in range(src.n_frames):
-            if (src.path, k) in done:
+            if run and k % chunk_frames == 0:
+                yield chunk()
+                run = []
+            if (src.path, src.file_id, k) in done:
                 if run:
-                    yield Chunk(src.name, src.path, tuple(run), ctx)
+                    yield chunk()
                     run = []
                 continue
             run.append(k)
-            if len(run) == chunk_frames:
-                yield Chunk(src.name, src.path, tuple(run), ctx)
-                run = []
         if run:
-            yield Chunk(src.name, src.path, tuple(run), ctx)
+            yield chunk()
 
 
-def _frame_error(name: str, path: str, exc: BaseException) -> str:
+def _frame_error(name: str, path: str, frame: int, exc: BaseException) -> str:
+    """The message of `exc` without the file (and frame) it names: the row already says which, and
+    the summary groups equal messages.
+
+    >>> _frame_error("a.npy", "/d/a.npy", 3, ValueError("/d/a.npy frame 3: 12 pixels are NaN"))
+    '12 pixels are NaN'
+    """
     text = " ".join(str(exc).split())
-    for prefix in (f"{path}: ", f"{name}: "):
-        if text.startswith(prefix):
-            text = text[len(prefix):]
+    base = path.partition("::")[0]
+    for who in (path, name, base, os.path.basename(base)):
+        for prefix in (f"{who} frame {frame}: ", f"{who}: "):
+            if text.startswith(prefix):
+                return text[len(prefix):] or exc.__class__.__name__
+    for who in (path, base, name):
+        text = text.replace(who, os.path.basename(base))
     return text or exc.__class__.__name__
 
 
@@ -103,21 +146,40 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
     error (<class>: <message>)`` (its traceback is logged at debug level on the worker), so
     that a fault on one frame in ten thousand does not end the run.
     """
-    from saed.image.io import read_image
+    from dataclasses import replace
+
+    from saed.image.io import check_image, read_image
 
     shared = _resolve(shared)
+    new_task = getattr(frame_fn, "new_task", None)
+    if new_task is not None:
+        new_task(shared)                      # a frame function's per-task state starts afresh
+    images = None
+    if chunk.stack:
+        from saed.batch.stacks import read_frames
+
+        try:
+            images = read_frames(chunk.path, chunk.frames)
+        except SaedError as exc:
+            images = {k: exc for k in chunk.frames}
     rows = []
     for k in chunk.frames:
         try:
-            image = read_image(chunk.path, frame=k)
+            if images is None:
+                image = read_image(chunk.path, frame=k)
+            else:
+                got = images.pop(k)
+                if isinstance(got, BaseException):
+                    raise got
+                image = check_image(got, name=f"{chunk.name} frame {k}")
             row = frame_fn(image, shared, name=chunk.name, frame=k, context=chunk.context)
         except SaedError as exc:
-            row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, exc)))
+            row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, k, exc)))
         except Exception as exc:  # noqa: BLE001 - the frame boundary of a long run: record, log, go on
             logger.debug("%s frame %d: internal error", chunk.name, k, exc_info=True)
             row = Row(chunk.name, k, status=error_status(f"internal error ({exc.__class__.__name__}: "
-                                                         f"{_frame_error(chunk.name, chunk.path, exc)})"))
-        rows.append(row)
+                                                         f"{_frame_error(chunk.name, chunk.path, k, exc)})"))
+        rows.append(replace(row, file=chunk.path, file_id=chunk.file_id))
     return rows
 
 
@@ -206,11 +268,19 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     retry: list[tuple[Chunk, int]] = []
     ac = as_completed()
 
+    retries_out = [0]                       # single-frame retries in flight (at most one at a time)
+
     def top_up() -> None:
         while len(pending) < n:
-            item = retry.pop() if retry else next(((c, 0) for c in it), None)
+            if retry and retries_out[0] == 0:
+                # one suspect frame at a time: a frame that kills its worker must not take a frame
+                # queued on the same worker down with it (and get that one blamed)
+                item = retry.pop()
+                retries_out[0] += 1
+            else:
+                item = next(((c, 0) for c in it), None)
             if item is None:
-                return
+                return                        # (a waiting retry goes out when the one in flight ends)
             fut = client.submit(process_chunk, item[0], frame_fn, shared, pure=False)
             pending[fut.key] = item
             ac.add(fut)
@@ -218,6 +288,8 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     top_up()
     for fut in ac:
         chunk, attempt = pending.pop(fut.key)
+        if chunk.retried:
+            retries_out[0] -= 1
         try:
             rows = fut.result()
         except KilledWorker:
@@ -227,11 +299,12 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
                 # one by one (and each alone once more) before blaming one.
                 logger.warning("%s frames %d-%d: a worker died; trying them one by one", chunk.name,
                                chunk.frames[0], chunk.frames[-1])
-                retry.extend((Chunk(chunk.name, chunk.path, (k,), chunk.context), attempt + (len(chunk.frames) == 1))
+                retry.extend((chunk.single(k, retried=True), attempt + (len(chunk.frames) == 1))
                              for k in reversed(chunk.frames))
             else:
                 rows = [Row(chunk.name, chunk.frames[0],
-                            status=error_status("the worker process died on this frame (out of memory?)"))]
+                            status=error_status("the worker process died on this frame (out of memory?)"),
+                            file=chunk.path, file_id=chunk.file_id)]
         fut.release()
         if rows:
             on_rows(rows)

@@ -144,7 +144,11 @@ class ScanMap:
     ``phase_index[iy, ix]`` indexes ``phases`` or is NOT_DONE / NO_SOLUTION / ERROR;
     ``family_index[iy, ix]`` indexes ``families`` (a FamilyCount each) or is -1.
     Position (iy, ix) holds the frame with sequence number ``iy * nx + ix`` over the inputs
-    in order.
+    in order. ``score`` is the figure of merit (NaN where not indexed); ``ipf_rgb`` the
+    inverse-pole-figure colour of the beam direction (NaN where not indexed; see
+    :mod:`saed.batch.orientmap`); ``boundary_right[iy, ix]`` is True where (iy, ix) and
+    (iy, ix + 1) are separated by a grain or phase boundary, ``boundary_down`` likewise for
+    (iy + 1, ix), at misorientations above ``boundary_deg``.
     """
 
     shape: tuple[int, int]
@@ -153,10 +157,25 @@ class ScanMap:
     phases: tuple[str, ...]
     families: tuple[FamilyCount, ...]
     summary: Summary
+    score: np.ndarray | None = None
+    ipf_rgb: np.ndarray | None = None
+    boundary_right: np.ndarray | None = None
+    boundary_down: np.ndarray | None = None
+    boundary_deg: float = 5.0
+    phase_objects: tuple = ()
 
     def __post_init__(self):
         for name in ("phase_index", "family_index"):
             a = np.array(getattr(self, name), dtype=np.int32)
+            a.flags.writeable = False
+            object.__setattr__(self, name, a)
+        ny, nx = self.shape
+        defaults = {"score": np.full((ny, nx), np.nan), "ipf_rgb": np.full((ny, nx, 3), np.nan),
+                    "boundary_right": np.zeros((ny, max(nx - 1, 0)), bool),
+                    "boundary_down": np.zeros((max(ny - 1, 0), nx), bool)}
+        for name, default in defaults.items():
+            v = getattr(self, name)
+            a = np.array(default if v is None else v, dtype=default.dtype)
             a.flags.writeable = False
             object.__setattr__(self, name, a)
 
@@ -180,43 +199,51 @@ def check_scan_shape(scan_shape, sources) -> tuple[int, int]:
     return ny, nx
 
 
-def _sequenced(rows, sources):
+def sequenced(rows, sources):
     """(sequence number over all frames of `sources`, row) for the rows that belong to `sources` (lazy)."""
     offset, start = {}, 0
     for s in sources:
-        offset.setdefault(s.path, (start, s.n_frames))
+        offset.setdefault((s.path, s.file_id), (start, s.n_frames))
         start += s.n_frames
     for r in rows:
-        path, k = r.key
-        if path in offset and 0 <= k < offset[path][1]:
-            yield offset[path][0] + k, r
+        path, fid, k = r.key
+        at = offset.get((path, fid))
+        if at is not None and 0 <= k < at[1]:
+            yield at[0] + k, r
 
 
 def rows_for_sources(rows, sources):
     """The rows that belong to frames of `sources` (a CSV may hold rows of earlier, other inputs); lazy."""
-    return (r for _, r in _sequenced(rows, sources))
+    return (r for _, r in sequenced(rows, sources))
 
 
 def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases: dict,
-                   phase_order=()) -> ScanMap:
+                   phase_order=(), boundary_deg: float = 5.0) -> ScanMap:
     """Place `rows` (any iterable, read once) on the scan grid of `sources` (frames in input order, row-major).
 
     Rows of frames not in `sources` are ignored; positions with no row are NOT_DONE.
     `phase_order` fixes the order (and so the colours) of the phases; phases found but not
-    listed follow, by name.
+    listed follow, by name. Grain boundaries are drawn above `boundary_deg` of misorientation.
     """
     ny, nx = check_scan_shape(scan_shape, sources)
     tally = _Tally(phases)
     status_grid = np.full(ny * nx, NOT_DONE, np.int32)
     found: dict = {}                           # (phase, family) -> id in the order first seen
     pf_grid = np.full(ny * nx, -1, np.int32)
-    for seq, r in _sequenced(rows, sources):
+    score = np.full(ny * nx, np.nan)
+    zones = np.zeros((ny * nx, 3), np.int64)
+    phi = np.zeros(ny * nx)
+    for seq, r in sequenced(rows, sources):
         pf = tally.add(r)
         if pf is None:
             status_grid[seq] = ERROR if r.is_error else NO_SOLUTION
         else:
             pf_grid[seq] = found.setdefault(pf, len(found))
             status_grid[seq] = 0
+            score[seq] = np.nan if r.score is None else r.score
+            if r.zone_axis is not None and len(r.zone_axis) == 3:
+                zones[seq] = r.zone_axis
+                phi[seq] = r.in_plane_rotation_deg or 0.0
     summary = tally.summary()
     names = [p for p in phase_order if p in dict(summary.phases)]
     names += sorted(q for q, _ in summary.phases if q not in names)
@@ -228,5 +255,29 @@ def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases
     indexed = pf_grid >= 0
     phase_grid = np.where(indexed, to_phase[np.maximum(pf_grid, 0)], status_grid)
     fam_grid = np.where(indexed, to_family[np.maximum(pf_grid, 0)], -1)
+    rgb, right, down, objs = _orientation_layers(phase_grid, zones, phi, names, phases, (ny, nx), boundary_deg)
     return ScanMap((ny, nx), phase_grid.reshape(ny, nx), fam_grid.reshape(ny, nx), tuple(names),
-                   summary.families, summary)
+                   summary.families, summary, score.reshape(ny, nx), rgb, right, down, float(boundary_deg), objs)
+
+
+def _orientation_layers(phase_grid, zones, phi, names, phases: dict, shape, boundary_deg: float):
+    """IPF colours (ny, nx, 3) and boundaries from the rows' zones and in-plane rotations."""
+    from saed.batch.orientmap import boundaries, ipf_colours, orientations
+
+    ny, nx = shape
+    rgb = np.full((ny * nx, 3), np.nan)
+    u = np.tile(np.eye(3), (ny * nx, 1, 1))
+    pidx = np.full(ny * nx, -1, np.int32)
+    objs = []
+    for k, name in enumerate(names):
+        ph = phases.get(name)
+        objs.append(ph)
+        sel = (phase_grid == k) & np.any(zones != 0, axis=1)
+        if ph is None or not sel.any():
+            continue
+        u[sel] = orientations(ph, zones[sel], phi[sel])
+        rgb[sel] = ipf_colours(ph, u[sel][:, 2, :])          # U^T z: the beam direction in the crystal
+        pidx[sel] = k
+    pidx = pidx.reshape(ny, nx)
+    right, down = boundaries(pidx, u.reshape(ny, nx, 3, 3), objs, threshold_deg=boundary_deg) if ny * nx else (None, None)
+    return rgb.reshape(ny, nx, 3), right, down, tuple(objs)

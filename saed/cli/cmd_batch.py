@@ -19,10 +19,13 @@ from saed.errors import InputError
 NAME = "batch"
 HELP = "index many patterns (files, folders, stacks) on this machine or a Dask cluster; resumable CSV"
 DESCRIPTION = (
-    "Index every frame of the inputs -- image files, folders of them, multi-page TIFF stacks and 3-D/4-D .npy "
-    "stacks (read frame by frame, never whole) -- and write one CSV row per frame as soon as it is done. "
+    "Index every frame of the inputs -- image files, folders of them, multi-page TIFF stacks and 3-D/4-D stacks "
+    "in .npy, HDF5 or Zarr (read a slice at a time, never whole) -- and write one CSV row per frame as soon as it "
+    "is done. On a scan, frames are solved from their neighbours' solutions where those score as well as a full "
+    "search would (the 'search' column says how each frame was solved). "
     "Run the same command again to resume: frames already in --out are skipped. "
-    "For a scan, --scan-shape NY NX (or a 4-D .npy) also draws a phase and zone-family map."
+    "For a scan, --scan-shape NY NX (or a 4-D stack) also draws phase, zone-family, orientation and "
+    "figure-of-merit maps with grain boundaries."
 )
 ORDER = 30
 
@@ -60,6 +63,19 @@ def add_arguments(p):
                    help="the frames (in input order) form a scan of NY rows by NX columns: draw a map")
     i.add_argument("--map", metavar="PNG", help="where to draw the scan map (default: next to --out, *_map.png)")
     i.add_argument("--summary", metavar="CSV", help="also write the phase / zone-family summary as CSV")
+    i.add_argument("--arrays", metavar="PATH.zarr|PATH.h5",
+                   help="also write the per-frame table as a Zarr store or HDF5 file of arrays (for notebooks)")
+    i.add_argument("--scan-step", type=positive_float, metavar="NM",
+                   help="distance between neighbouring probe positions, nm (the maps' scale bar; default: in steps)")
+    i.add_argument("--boundary-deg", type=positive_float, default=5.0, metavar="DEG",
+                   help="draw a grain boundary where neighbouring orientations differ by more than DEG (default 5)")
+    s = p.add_argument_group("search")
+    s.add_argument("--full-search", action="store_true",
+                   help="solve every frame by the full image stage and full search, as 'saed index' does (no warm "
+                        "start from the previous frames; several times slower on a scan)")
+    s.add_argument("--check-every", type=int, default=128, metavar="N",
+                   help="with the warm start, also solve every N-th frame by the full search and report how often "
+                        "the two agree (default 128; 0: never)")
 
 
 def _say(text: str) -> None:
@@ -108,16 +124,19 @@ def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
     if map_path is not None and map_path.suffix.lower() != ".png":
         raise InputError(f"--map {args.map}: the map is a PNG; give a name ending in .png")
     summary = Path(args.summary) if args.summary else None
-    given = {os.path.abspath(p) for p in inputs_raw}
-    for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary)):
+    arrays = Path(args.arrays) if args.arrays else None
+    if arrays is not None and arrays.suffix.lower() not in (".zarr", ".h5", ".hdf5"):
+        raise InputError(f"--arrays {args.arrays}: give a name ending in .zarr (a Zarr store) or .h5 (an HDF5 file)")
+    given = {os.path.abspath(p.partition("::")[0]) for p in inputs_raw}
+    for flag, p in (("--out", out), ("--map", map_path), ("--summary", summary), ("--arrays", arrays)):
         if p is None:
             continue
         check_writable(p)
         if os.path.abspath(p) in given:
             raise InputError(f"{flag} {p} is also an input; give another file name")
-    names = [os.path.abspath(p) for p in (out, map_path, summary) if p is not None]
+    names = [os.path.abspath(p) for p in (out, map_path, summary, arrays) if p is not None]
     if len(set(names)) < len(names):
-        raise InputError("--out, --map and --summary must be different files")
+        raise InputError("--out, --map, --summary and --arrays must be different files")
     return out, map_path, summary
 
 
@@ -125,7 +144,10 @@ def run(args) -> int:
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client, default_workers
     from saed.batch.indexing import calibration_from_tags, index_frame, make_index_job
+    from saed.batch.inputs import check_frame_sizes
+    from saed.batch.record import check_run_record
     from saed.batch.results import ResultsFile
+    from saed.batch.scanindex import index_scan_frame
     from saed.batch.runner import count_todo
     from saed.batch.scan import check_scan_shape
 
@@ -141,9 +163,13 @@ def run(args) -> int:
     calibration = calibration_from_args(args)
     phases = phases_from_args(args)
 
+    from saed.batch.record import record_path
+
+    arrays_path = Path(args.arrays) if args.arrays else None
     default_map = out.with_name(out.stem + "_map.png")
     inputs = discover_inputs(args.inputs, recursive=args.recursive,
-                             exclude=[p for p in (out, map_path, summary_path, default_map) if p is not None])
+                             exclude=[p for p in (out, map_path, summary_path, default_map, record_path(out),
+                                                  arrays_path) if p is not None])
     for s in inputs.skipped:
         _say(str(s))
     if not inputs.sources:
@@ -154,7 +180,12 @@ def run(args) -> int:
         scan_shape = check_scan_shape(args.scan_shape, inputs.sources)
         map_path = map_path or default_map
 
+    if args.check_every < 0:
+        raise InputError(f"--check-every {args.check_every}: give 0 (never) or a positive number of frames")
+    frame_shape = check_frame_sizes(inputs.sources)
     mask, max_g = _frame_geometry(args, inputs.sources, calibration)
+    # before the CSV is opened (--retry-errors rewrites it): a resume against other phases is refused untouched
+    check_run_record(out, phases, has_rows=_has_rows(out))
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
         n_todo = count_todo(inputs.sources, results.done)
         n_files = len(inputs.sources)
@@ -171,9 +202,11 @@ def run(args) -> int:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,
                                     connect_timeout_s=args.connect_timeout) as client:
-                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask, **matching)
+                    job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask,
+                                         frame_shape=frame_shape, check_every=args.check_every, **matching)
+                    frame_fn = index_frame if args.full_search else index_scan_frame
                     with Progress(n_todo, "batch") as bar:
-                        outcome = run_batch(inputs, results, index_frame, job, client=client, progress=bar,
+                        outcome = run_batch(inputs, results, frame_fn, job, client=client, progress=bar,
                                             context_of=context_of)
             except KeyboardInterrupt:
                 _say(f"interrupted; {results.n_rows} rows are safe in {out}: run the same command again to go on")
@@ -181,8 +214,27 @@ def run(args) -> int:
 
     _report(out, inputs, outcome, phases)
     if scan_shape is not None or summary_path is not None:
-        _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases)
+        _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args)
+    if arrays_path is not None:
+        from saed.batch.arrays import write_array_set
+        from saed.batch.results import iter_rows
+
+        n = write_array_set(iter_rows(out), inputs.sources, arrays_path, phases={p.name: p for p in phases},
+                            phase_order=[p.name for p in phases], scan_shape=scan_shape)
+        print(f"arrays: {arrays_path} ({n} frames)")
     return 0
+
+
+def _has_rows(path) -> bool:
+    """True when `path` exists and holds more than a header line."""
+    try:
+        with open(path, "rb") as fh:
+            fh.readline()
+            return bool(fh.readline().strip())
+    except FileNotFoundError:
+        return False
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the file ({exc.strerror})") from None
 
 
 def _report(out, inputs, outcome, phases) -> None:
@@ -190,12 +242,16 @@ def _report(out, inputs, outcome, phases) -> None:
     from saed.batch.scan import rows_for_sources, summarize
     from saed.report.scan_map import format_summary
 
+    from saed.batch.scanindex import CHECK_DIFFER, CHECK_SAME
+
     errors: Counter = Counter()
+    searches: Counter = Counter()
 
     def mine():
         for r in rows_for_sources(iter_rows(out), inputs.sources):
             if r.is_error:
                 errors[r.status] += 1
+            searches[r.search] += 1
             yield r
 
     summary = summarize(mine(), phases={p.name: p for p in phases})
@@ -207,13 +263,20 @@ def _report(out, inputs, outcome, phases) -> None:
     print(line)
     if summary.n_ok or summary.n_no_solution:
         print(format_summary(summary))
+    checked = searches[CHECK_SAME] + searches[CHECK_DIFFER]
+    if searches["warm"] or checked:
+        print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; "
+              + (f"of {checked} checked against the full search, {searches[CHECK_SAME]} agree "
+                 f"({100 * searches[CHECK_SAME] / checked:.1f} %)" if checked
+                 else "none checked against the full search (see --check-every)")
+              + (f"; {searches[CHECK_DIFFER]} differ (search column '{CHECK_DIFFER}')" if searches[CHECK_DIFFER] else ""))
     for status, n in errors.most_common(3):
         print(f"  {n} x {status}")
     if len(errors) > 3:
         print(f"  ... and {len(errors) - 3} other error messages (see the status column of {out})")
 
 
-def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases) -> None:
+def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args) -> None:
     from saed.batch.results import iter_rows
     from saed.batch.scan import build_scan_map, rows_for_sources, summarize
     from saed.report.files import atomic_write_text
@@ -221,9 +284,10 @@ def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases) -> No
 
     lookup = {p.name: p for p in phases}
     if scan_shape is not None:
-        scan = build_scan_map(iter_rows(out), inputs.sources, scan_shape, phases=lookup, phase_order=[p.name for p in phases])
+        scan = build_scan_map(iter_rows(out), inputs.sources, scan_shape, phases=lookup,
+                              phase_order=[p.name for p in phases], boundary_deg=args.boundary_deg)
         title = inputs.sources[0].name if len(inputs.sources) == 1 else f"{len(inputs.sources)} files"
-        render_scan_map(scan, map_path, title=title)
+        render_scan_map(scan, map_path, title=title, step_nm=args.scan_step)
         print(f"map: {map_path}")
         summary = scan.summary
     else:

@@ -1,15 +1,20 @@
-"""The picture of a scan: phase map and zone-family map, plus the text summary of a batch.
+"""The picture of a scan: phase, zone-family, orientation and figure-of-merit maps, and the text summary.
 
-Left panel: one fill colour *and* one hatch pattern per phase, so phases stay apart in
-greyscale print and for colour-blind readers. Right panel: one colour per (phase, zone
-family), still hatched by phase; the legend names each family with its frame count.
-Frames with no solution are plain light grey, errors near-black, frames not yet indexed
+Phase map: one fill colour *and* one hatch pattern per phase, so phases stay apart in
+greyscale print and for colour-blind readers. Zone-family map: each phase keeps its colour,
+its zone families are lighter and darker shades of it, still hatched by phase; the legend names
+each family with its frame count. Orientation map: inverse-pole-figure colours of the beam
+direction (:mod:`saed.batch.orientmap`) with one colour key per phase. Figure of merit: the
+score on a colour bar. Grain boundaries (misorientation above a threshold) and phase
+boundaries are drawn as black lines on the phase and orientation maps; every map has a scale
+bar. Frames with no solution are plain light grey, errors near-black, frames not yet indexed
 are left white.
 """
 
 from __future__ import annotations
 
 import io
+import math
 
 import numpy as np
 
@@ -28,9 +33,6 @@ MAX_FAMILIES_SHOWN = 12
 _NO_SOLUTION_STYLE = ("#cfcfcf", "", "#8a8a8a")
 _ERROR_STYLE = ("#262626", "", "#262626")
 _OTHER_ZONES = "#9e9e9e"
-#: Zone-family colours: matplotlib's tab20 without its two greys (kept for "other", "no solution", "error").
-_ZONE_COLOUR_ORDER = (0, 2, 4, 6, 8, 10, 12, 16, 18, 1, 3, 5, 7, 9, 11, 13, 17, 19)
-
 
 def _runs_path(mask: np.ndarray):
     """A compound Path of the cells where `mask` is True (one rectangle per horizontal run)."""
@@ -66,7 +68,9 @@ def _darker(colour: str, f: float = 0.55) -> tuple:
 
 
 def _tex_escape(text: str) -> str:
-    return text.replace("\\", "/").replace("$", r"\$").replace("_", r"\_")
+    """Text shown literally next to mathtext: only a dollar sign would start math (underscores outside
+    $...$ are printed as they are)."""
+    return text.replace("$", r"\$")
 
 
 def family_mathtext(family) -> str:
@@ -113,25 +117,111 @@ def _status_patches(ax, scan: ScanMap, counts):
     return handles
 
 
-def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120) -> None:
-    """Draw `scan` (phase map and zone-family map with legends) to a PNG at `path`, atomically."""
+def _shade(colour: str, rank: int) -> tuple:
+    """The phase colour itself (rank 0), then alternately lighter and darker versions of it."""
+    from matplotlib.colors import to_rgb
+
+    c = np.array(to_rgb(colour))
+    if rank == 0:
+        return tuple(c)
+    step = (rank + 1) // 2
+    f = min(0.35 * step, 0.8)
+    return tuple(c + (1 - c) * f) if rank % 2 else tuple(c * (1 - 0.8 * f))
+
+
+def _draw_boundaries(ax, scan: ScanMap, colour="black"):
+    """Grain and phase boundaries as line segments between the cells they separate."""
+    from matplotlib.collections import LineCollection
+
+    segs = []
+    iy, ix = np.nonzero(scan.boundary_right)
+    segs += [((x + 0.5, y - 0.5), (x + 0.5, y + 0.5)) for y, x in zip(iy.tolist(), ix.tolist())]
+    iy, ix = np.nonzero(scan.boundary_down)
+    segs += [((x - 0.5, y + 0.5), (x + 0.5, y + 0.5)) for y, x in zip(iy.tolist(), ix.tolist())]
+    if segs:
+        ax.add_collection(LineCollection(segs, colors=colour, linewidths=1.2))
+    return len(segs)
+
+
+def _scale_bar(ax, shape, step_nm: float | None):
+    """A bar of a round length in the lower left of a map (in nm with the scan step, else in positions)."""
+    ny, nx = shape
+    target = max(nx / 5.0, 1.0)
+    if step_nm:
+        length = target * step_nm
+        nice = 10 ** math.floor(math.log10(length))
+        nice *= max(m for m in (1, 2, 5) if m * nice <= length) if length >= nice else 1
+        cells, label = nice / step_nm, (f"{nice / 1000:g} µm" if nice >= 1000 else f"{nice:g} nm")
+    else:
+        nice = 10 ** math.floor(math.log10(target))
+        cells = nice * max(m for m in (1, 2, 5) if m * nice <= target)
+        label = f"{cells:g} steps"
+    x0, y0 = -0.5 + 0.04 * nx, ny - 0.5 - 0.05 * ny
+    ax.plot([x0, x0 + cells], [y0, y0], color="white", lw=5, solid_capstyle="butt")
+    ax.plot([x0, x0 + cells], [y0, y0], color="black", lw=2.5, solid_capstyle="butt")
+    ax.text(x0 + cells / 2, y0 - 0.03 * ny, label, ha="center", va="bottom", fontsize=8,
+            bbox=dict(facecolor="white", edgecolor="none", alpha=0.8, pad=1))
+
+
+def _ipf_key(fig, spec, phase, name: str):
+    """The colour key of the orientation map for one phase: its standard triangle, filled, corners named."""
+    from saed.batch.orientmap import triangle_key
+
+    key = triangle_key(phase) if phase is not None else None
+    ax = fig.add_subplot(spec)
+    ax.axis("off")
+    if key is None:
+        ax.text(0, 0.5, f"{_tex_escape(name)}: no colour key for this Laue class (grey)", fontsize=8)
+        return
+    xy, rgb, corners, labels = key
+    ax.scatter(xy[:, 0], xy[:, 1], c=rgb, s=9, marker="s", linewidths=0)
+    ax.set_aspect("equal")
+    for (x, y), lab in zip(corners, labels):
+        ax.annotate(family_mathtext(_parse_label(lab)).replace(r"\langle", "[").replace(r"\rangle", "]"),
+                    (x, y), fontsize=8, ha="center", va="top" if y <= corners[:, 1].mean() else "bottom",
+                    xytext=(0, -3 if y <= corners[:, 1].mean() else 3), textcoords="offset points")
+    ax.set_title(f"{_tex_escape(name)}: beam direction", fontsize=8)
+    pad = 0.12 * float(np.ptp(xy[:, 0]) or 1.0)
+    ax.set_xlim(xy[:, 0].min() - pad, xy[:, 0].max() + pad)
+    ax.set_ylim(xy[:, 1].min() - 2 * pad, xy[:, 1].max() + 2 * pad)
+
+
+def _parse_label(lab: str) -> tuple[int, ...]:
+    """'2-1-10' -> (2, -1, -1, 0)."""
+    import re
+
+    return tuple(int(t) for t in re.findall(r"-?\d", lab))
+
+
+def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120, step_nm: float | None = None) -> None:
+    """Draw `scan` to a PNG at `path`, atomically: phase, zone family, orientation and figure-of-merit maps.
+
+    Phase map and orientation map carry the grain boundaries (black lines, above
+    ``scan.boundary_deg`` or between phases); every map has a scale bar (in nm when `step_nm`,
+    the scan step, is given, else in steps). Legends: phases with counts, zone families (shades of
+    their phase's colour, hatched by phase), one inverse-pole-figure colour key per phase, and the
+    figure-of-merit colour bar.
+    """
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch
 
     from saed.report.files import atomic_write_bytes
 
     ny, nx = scan.shape
-    side = 5.2
+    side = 4.2
     aspect = ny / nx
     w, h = (side, side * aspect) if aspect <= 1 else (side / aspect, side)
     n_entries = len(scan.phases) + min(len(scan.families), MAX_FAMILIES_SHOWN + 1) + 3
-    fig = Figure(figsize=(2 * w + 5.4, max(h + 1.3, 0.32 * n_entries + 1.8)), dpi=dpi, layout="constrained")
-    ax_p, ax_z, ax_leg = fig.subplots(1, 3, width_ratios=[w, w, 3.6])
+    fig = Figure(figsize=(2 * w + 5.6, max(2 * h + 2.2, 0.3 * n_entries + 2.5 + 1.6 * len(scan.phases))), dpi=dpi,
+                 layout="constrained")
+    grid = fig.add_gridspec(2, 3, width_ratios=[w, w, 3.8])
+    ax_p, ax_z = fig.add_subplot(grid[0, 0]), fig.add_subplot(grid[0, 1])
+    ax_o, ax_f = fig.add_subplot(grid[1, 0]), fig.add_subplot(grid[1, 1])
     total = ny * nx
     counts = {NO_SOLUTION: int(np.count_nonzero(scan.phase_index == NO_SOLUTION)),
               ERROR: int(np.count_nonzero(scan.phase_index == ERROR))}
 
-    _setup_axes(ax_p, scan.shape, "phase")
+    _setup_axes(ax_p, scan.shape, "phase (lines: boundaries)")
     phase_handles = []
     for i, name in enumerate(scan.phases):
         face, hatch, hc = _phase_style(i)
@@ -141,21 +231,23 @@ def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120) -> 
         phase_handles.append(Patch(facecolor=face, hatch=hatch, edgecolor=hc,
                                    label=f"{_tex_escape(name)}  {n} ({100 * n / total:.0f} %)"))
     phase_handles += _status_patches(ax_p, scan, counts)
+    n_seg = _draw_boundaries(ax_p, scan)
 
     _setup_axes(ax_z, scan.shape, "zone axis family")
-    from matplotlib import colormaps
-
-    palette = colormaps["tab20"].colors
     fam_counts = [int(np.count_nonzero(scan.family_index == j)) for j in range(len(scan.families))]
     shown = sorted(range(len(scan.families)), key=lambda j: -fam_counts[j])[:MAX_FAMILIES_SHOWN]
     zone_handles = []
     pindex = {p: i for i, p in enumerate(scan.phases)}
-    for rank, j in enumerate(sorted(shown, key=lambda j: (pindex.get(scan.families[j].phase, 99), -fam_counts[j]))):
+    rank_in_phase: dict = {}
+    for j in sorted(shown, key=lambda j: (pindex.get(scan.families[j].phase, 99), -fam_counts[j])):
         fam = scan.families[j]
-        _, hatch, _ = _phase_style(pindex.get(fam.phase, 0))
-        face = palette[_ZONE_COLOUR_ORDER[rank % len(_ZONE_COLOUR_ORDER)]]
-        _fill(ax_z, scan.family_index == j, face=face, hatch=hatch, hatch_colour=_darker(face))
-        zone_handles.append(Patch(facecolor=face, hatch=hatch, edgecolor=_darker(face),
+        pi = pindex.get(fam.phase, 0)
+        base, hatch, _ = _phase_style(pi)
+        rank = rank_in_phase.setdefault(pi, [0])
+        face = _shade(base, rank[0])
+        rank[0] += 1
+        _fill(ax_z, scan.family_index == j, face=face, hatch=hatch, hatch_colour=_darker(base))
+        zone_handles.append(Patch(facecolor=face, hatch=hatch, edgecolor=_darker(base),
                                   label=f"{_tex_escape(fam.phase)} {family_mathtext(fam.family)}  {fam_counts[j]}"))
     rest = [j for j in range(len(scan.families)) if j not in shown]
     for j in rest:
@@ -167,21 +259,48 @@ def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120) -> 
                                   label=f"{len(rest)} other zone families  {n_rest}"))
     _status_patches(ax_z, scan, counts)
 
-    leg_spec = ax_leg.get_subplotspec()
-    ax_leg.remove()
+    _setup_axes(ax_o, scan.shape, "orientation (beam direction, colour key right)")
+    rgb = np.where(np.isnan(scan.ipf_rgb), 1.0, scan.ipf_rgb)
+    rgb[scan.phase_index == ERROR] = to_rgb_tuple(_ERROR_STYLE[0])
+    rgb[scan.phase_index == NO_SOLUTION] = to_rgb_tuple(_NO_SOLUTION_STYLE[0])
+    ax_o.imshow(rgb, interpolation="nearest", extent=(-0.5, nx - 0.5, ny - 0.5, -0.5))
+    _draw_boundaries(ax_o, scan)
+
+    _setup_axes(ax_f, scan.shape, "figure of merit (score, 0-1)")
+    from matplotlib import colormaps
+    cmap = colormaps["viridis"].with_extremes(bad="white")
+    im = ax_f.imshow(np.ma.masked_invalid(scan.score), cmap=cmap, vmin=0.0, vmax=1.0, interpolation="nearest",
+                     extent=(-0.5, nx - 0.5, ny - 0.5, -0.5))
+    fig.colorbar(im, ax=ax_f, shrink=0.8, label="score (white: not indexed)")
+    for ax in (ax_p, ax_z, ax_o, ax_f):
+        _scale_bar(ax, scan.shape, step_nm)
+
+    leg_spec = grid[:, 2]
     parts = [(phase_handles, "phase (frames)")] + ([(zone_handles, "zone family (frames)")] if zone_handles else [])
-    sub = leg_spec.subgridspec(len(parts), 1, height_ratios=[len(h) + 1.5 for h, _ in parts])
+    n_keys = len(scan.phases)
+    sub = leg_spec.subgridspec(len(parts) + n_keys, 1,
+                               height_ratios=[len(hh) + 1.5 for hh, _ in parts] + [4.5] * n_keys)
     for k, (handles, heading) in enumerate(parts):
         ax = fig.add_subplot(sub[k])
         ax.axis("off")
         ax.legend(handles=handles, title=heading, loc="upper left", fontsize=9, title_fontsize=10,
                   frameon=False, handlelength=2.4, handleheight=1.6, alignment="left")
+    objs = scan.phase_objects or (None,) * len(scan.phases)
+    for k, (name, ph) in enumerate(zip(scan.phases, objs)):
+        _ipf_key(fig, sub[len(parts) + k], ph, name)
     s = scan.summary
-    head = f"scan {ny} x {nx}: {s.n_ok} indexed, {s.n_no_solution} no solution, {s.n_error} errors"
-    fig.suptitle(f"{_tex_escape(title)}\n{head}" if title else head, fontsize=12)
+    head = (f"scan {ny} x {nx}: {s.n_ok} indexed, {s.n_no_solution} no solution, {s.n_error} errors; "
+            f"boundaries above {scan.boundary_deg:g} deg misorientation or between phases")
+    fig.suptitle(f"{_tex_escape(title)}\n{head}" if title else head, fontsize=11)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     atomic_write_bytes(path, buf.getvalue())
+
+
+def to_rgb_tuple(colour: str) -> tuple:
+    from matplotlib.colors import to_rgb
+
+    return to_rgb(colour)
 
 
 def format_summary(summary: Summary) -> str:

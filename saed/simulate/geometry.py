@@ -17,6 +17,7 @@ Conventions (docs/contract.md):
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -56,13 +57,22 @@ def zone_reference_frame(lattice: Lattice, uvw) -> np.ndarray:
     z = unit(r_uvw); x = the part of the crystal's Cartesian x axis (|| a) perpendicular to z, or
     of its y axis when a is within 8 deg of the zone; y = z cross x. det(R0) = +1.
     """
-    z = unit(lattice.r_cartesian_nm(check_zone_axis(uvw)))
+    z = check_zone_axis(uvw)
+    return _reference_frame(lattice, tuple(int(v) for v in z)).copy()
+
+
+@lru_cache(maxsize=4096)
+def _reference_frame(lattice: Lattice, uvw: tuple[int, int, int]) -> np.ndarray:
+    """zone_reference_frame for a checked integer zone, cached (a scan asks for the same few zones each frame)."""
+    z = unit(lattice.r_cartesian_nm(np.array(uvw)))
     ref = np.array([1.0, 0.0, 0.0])
     if abs(float(ref @ z)) > math.cos(math.radians(8.0)):
         ref = np.array([0.0, 1.0, 0.0])
     x = unit(ref - (ref @ z) * z)
     y = np.cross(z, x)
-    return np.array([x, y, z])
+    out = np.array([x, y, z])
+    out.flags.writeable = False
+    return out
 
 
 def in_plane_rotation(phi_deg: float) -> np.ndarray:

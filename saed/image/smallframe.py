@@ -1,0 +1,240 @@
+"""A lean image stage for the small frames of a scan (256 x 256 and the like), when the centre is known.
+
+In a scan the direct beam stays where it was on the previous frame (or moves by a pixel), the
+spots are sharp and few, and there are tens of thousands of frames. :func:`measure_small_frame`
+measures such a frame in a few milliseconds from a centre hint (the previous frame's centre,
+measured by the full stage :func:`saed.image.measure.inspect_pattern`):
+
+1. the centre: the intensity-weighted centroid of the direct beam near the hint;
+2. the background: the mean at each integer radius about the centre, after one pass that leaves
+   out pixels 3 sigma above it (spots), computed with ``numpy.bincount`` over the whole frame;
+3. spots: pixels of the background-subtracted, lightly smoothed frame above `detect_snr` noise
+   sigmas (the noise from the median absolute deviation) that are the maximum of their 5 x 5
+   neighbourhood, checked for the few pixels above the threshold only (no full-frame maximum filter);
+4. each spot's position from a parabola through the logarithm of the smoothed frame at its peak
+   (exact for a Gaussian spot), and its intensity from its 5 x 5 window (sum above background), all
+   spots at once;
+5. a frame with no pixel above the threshold (vacuum, amorphous film) stops after step 3.
+
+No beam-stop search, no saturated-beam analysis and no 2-D lattice fit: the frame's MeasuredPattern
+has ``basis`` None. Use the full stage for the first frame of a scan and whenever this one reports
+that it cannot see the direct beam near the hint.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import ndimage as ndi
+
+from saed.calibration import Calibration
+from saed.errors import ImageError
+from saed.image.values import MeasuredPattern, Spots
+
+__all__ = ["measure_small_frame", "SMALL_FRAME_MAX_PIXELS"]
+
+#: Frames up to this many pixels are measured by this stage in a scan (larger ones: the full stage).
+SMALL_FRAME_MAX_PIXELS = 512 * 512
+
+#: How far the direct beam may move from the hint between frames before the full stage is needed, px.
+MAX_CENTRE_SHIFT_PX = 6.0
+
+_WIN = 2  # half-width of the spot window (5 x 5)
+#: A spot's 5 x 5 sum above background must reach this many of its noise sigmas.
+MIN_SUM_SNR = 4.0
+
+
+class _Geometry:
+    """Integer radius of every pixel about a centre rounded to a pixel (kept while the centre stays)."""
+
+    def __init__(self, shape, centre_px):
+        rows, cols = shape
+        self.key = (shape, int(round(centre_px[0])), int(round(centre_px[1])))
+        y, x = np.ogrid[:rows, :cols]
+        r = np.hypot(x - self.key[1], y - self.key[2])
+        self.r_bin = r.astype(np.int32).ravel()
+        self.n_bins = int(self.r_bin.max()) + 1
+        # the background statistics use every second pixel in each direction (a quarter of the work)
+        self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32).ravel()
+        self.count_sub = np.bincount(self.r_sub, minlength=self.n_bins).astype(np.float64)
+
+
+_GEOMETRY_CACHE: dict = {}
+
+
+def _geometry(shape, centre_px) -> _Geometry:
+    key = (tuple(shape), int(round(centre_px[0])), int(round(centre_px[1])))
+    g = _GEOMETRY_CACHE.get(key)
+    if g is None:
+        if len(_GEOMETRY_CACHE) > 16:
+            _GEOMETRY_CACHE.clear()
+        g = _GEOMETRY_CACHE[key] = _Geometry(shape, centre_px)
+    return g
+
+
+def _direct_beam(img: np.ndarray, hint_px, half: int = 8):
+    """Centroid (x, y) of the bright core near `hint_px` (pixels above half of the local maximum), or None.
+
+    The core must be the direct beam: at least half as bright as the brightest pixel of the frame,
+    and far above the counting noise of its surroundings.
+    """
+    rows, cols = img.shape
+    x0, y0 = int(round(hint_px[0])), int(round(hint_px[1]))
+    r0, r1, c0, c1 = max(y0 - half, 0), min(y0 + half + 1, rows), max(x0 - half, 0), min(x0 + half + 1, cols)
+    if r1 - r0 < 3 or c1 - c0 < 3:
+        return None
+    box = img[r0:r1, c0:c1].astype(np.float64)
+    edge = float(np.median(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]])))
+    top = float(box.max())
+    if top < 0.5 * float(img.max()) or top - edge < 10.0 * math.sqrt(max(edge, 1.0)):
+        return None
+    w = np.clip(box - (edge + 0.5 * (top - edge)), 0.0, None)
+    s = float(w.sum())
+    if s <= 0:
+        return None
+    yy, xx = np.mgrid[r0:r1, c0:c1]
+    return float((w * xx).sum() / s), float((w * yy).sum() / s)
+
+
+def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_hint_px, mask=None, source: str = "",
+                        detect_snr: float = 5.0, snr_min: float = 3.0, direct_beam_radius_px: float = 6.0,
+                        smooth_sigma_px: float = 1.0) -> MeasuredPattern | None:
+    """Measure a small frame of a scan whose centre is near `centre_hint_px`; None when the hint does not hold.
+
+    Parameters
+    ----------
+    image : (rows, cols) array
+        The frame as recorded (counts).
+    calibration : Calibration
+        Scale, voltage and ellipse, as for the full stage.
+    centre_hint_px : (x, y)
+        Where the direct beam was (the previous frame's centre).
+    mask : (rows, cols) bool, optional
+        True where pixels are ignored (a beam stop that stays put).
+    detect_snr, snr_min : float
+        Detection threshold of the smoothed frame and the smallest peak signal-to-noise ratio kept
+        (in noise sigmas; the full stage's defaults).
+    direct_beam_radius_px : float
+        Peaks closer than this to the centre belong to the direct beam.
+
+    Returns
+    -------
+    MeasuredPattern or None
+        None when no direct beam is seen within :data:`MAX_CENTRE_SHIFT_PX` of the hint (the
+        caller then runs the full stage). An empty frame gives a pattern with no spots.
+
+    Raises
+    ------
+    ImageError
+        NaN or infinite pixels.
+    """
+    img = np.asarray(image)
+    name = source or "frame"
+    if img.dtype.kind == "f" and not np.isfinite(img.sum(dtype=np.float64)):
+        raise ImageError(f"{name}: some pixels are NaN or infinite; replace them (e.g. by 0) or mask them")
+    img = img.astype(np.float32, copy=False)
+    rows, cols = img.shape
+    db = _direct_beam(img, centre_hint_px)
+    if db is None or math.hypot(db[0] - centre_hint_px[0], db[1] - centre_hint_px[1]) > MAX_CENTRE_SHIFT_PX:
+        return None
+    geo = _geometry(img.shape, db)
+    sub = img[::2, ::2].ravel().astype(np.float64)
+    rb = geo.r_sub
+    valid = None if mask is None else ~np.asarray(mask, bool)[::2, ::2].ravel()
+    if valid is None:
+        n_r = np.maximum(geo.count_sub, 1.0)
+        s1 = np.bincount(rb, weights=sub, minlength=geo.n_bins)
+        s2 = np.bincount(rb, weights=sub * sub, minlength=geo.n_bins)
+    else:
+        wv = valid.astype(np.float64)
+        n_r = np.maximum(np.bincount(rb, weights=wv, minlength=geo.n_bins), 1.0)
+        s1 = np.bincount(rb, weights=sub * wv, minlength=geo.n_bins)
+        s2 = np.bincount(rb, weights=sub * sub * wv, minlength=geo.n_bins)
+    mean = s1 / n_r
+    sd = np.sqrt(np.maximum(s2 / n_r - mean * mean, 0.0))
+    keep = sub <= (mean + 3.0 * sd)[rb]
+    if valid is not None:
+        keep &= valid
+    kw = keep.astype(np.float64)
+    n_k = np.bincount(rb, weights=kw, minlength=geo.n_bins)
+    fk = sub * kw
+    mean_k = np.where(n_k > 0, np.bincount(rb, weights=fk, minlength=geo.n_bins) / np.maximum(n_k, 1), mean)
+    var_k = np.bincount(rb, weights=fk * sub, minlength=geo.n_bins) / np.maximum(n_k, 1) - mean_k ** 2
+    # radii the subsample misses (a few at the very centre) take their neighbours' values
+    hole = n_k <= 0
+    if hole.any() and not hole.all():
+        idx = np.flatnonzero(~hole)
+        pos = np.clip(np.searchsorted(idx, np.arange(geo.n_bins)), 0, len(idx) - 1)
+        mean_k = np.where(hole, mean_k[idx[pos]], mean_k)
+        var_k = np.where(hole, var_k[idx[pos]], var_k)
+    resid = img - mean_k.astype(np.float32)[geo.r_bin].reshape(rows, cols)
+    if mask is not None:
+        resid[np.asarray(mask, bool)] = 0.0
+    sm = ndi.gaussian_filter(resid, smooth_sigma_px, mode="constant", truncate=3.0)
+    # noise per radius (shot noise grows toward the centre); over 3 neighbouring radii for a steadier estimate,
+    # and never below the median over radii: white noise of sigma s smoothed by a Gaussian of width w
+    # has sigma s / (2 sqrt(pi) w)
+    sd_r = np.sqrt(np.maximum(ndi.uniform_filter1d(var_k, 3, mode="nearest"), 0.0))
+    sd_r = np.maximum(sd_r, 0.5 * float(np.median(sd_r[n_k > 0])) if np.any(n_k > 0) else 0.0)
+    sd_r = np.where(sd_r > 0, sd_r, 1.0)
+    smooth_gain = 1.0 / (2.0 * math.sqrt(math.pi) * smooth_sigma_px)
+    noise_sm_r = sd_r * smooth_gain
+    thr_map = (detect_snr * noise_sm_r)[geo.r_bin]
+    cand = np.flatnonzero(sm.ravel() > thr_map)
+    cx, cy = db
+    empty = Spots(np.zeros(0), np.zeros(0), np.zeros(0))
+    centre = (float(cx), float(cy))
+    if len(cand):
+        cy_i, cx_i = np.divmod(cand, cols)
+        inner = (cy_i >= _WIN) & (cy_i < rows - _WIN) & (cx_i >= _WIN) & (cx_i < cols - _WIN)
+        far = np.hypot(cx_i - cx, cy_i - cy) > direct_beam_radius_px
+        cy_i, cx_i = cy_i[inner & far], cx_i[inner & far]
+    else:
+        cy_i = cx_i = np.zeros(0, np.intp)
+    if len(cy_i) == 0:
+        return MeasuredPattern((rows, cols), centre, empty, None, calibration, center_sigma_px=0.3, source=source,
+                               notes=("centre from the direct beam near the previous frame's", "no spots above the noise"))
+    d = np.arange(-_WIN, _WIN + 1)
+    oy, ox = np.meshgrid(d, d, indexing="ij")
+    oy, ox = oy.ravel(), ox.ravel()
+    nb = sm[cy_i[:, None] + oy[None, :], cx_i[:, None] + ox[None, :]]
+    peak = sm[cy_i, cx_i]
+    # the maximum of its window; ties (flat tops) go to the first pixel in raster order
+    is_max = (peak >= nb.max(axis=1)) & ~np.any((nb == peak[:, None]) & ((oy < 0) | ((oy == 0) & (ox < 0)))[None, :],
+                                                 axis=1)
+    cy_i, cx_i, peak = cy_i[is_max], cx_i[is_max], peak[is_max]
+    win = resid[cy_i[:, None] + oy[None, :], cx_i[:, None] + ox[None, :]].astype(np.float64)
+    w = np.clip(win, 0.0, None)
+    tot = w.sum(axis=1)
+    ok = tot > 0
+    cy_i, cx_i, peak, win, w, tot = cy_i[ok], cx_i[ok], peak[ok], win[ok], w[ok], tot[ok]
+    x = cx_i + (w * ox).sum(axis=1) / tot
+    y = cy_i + (w * oy).sum(axis=1) / tot
+    # sub-pixel peak: a parabola through the logarithm of the smoothed frame at the peak and its two
+    # neighbours, exact for a Gaussian spot (the window centroid is the fallback where it is not defined)
+    centre_v = np.log(np.maximum(peak, 1e-6))
+    for axis, (dy, dx) in enumerate(((0, 1), (1, 0))):
+        lo = np.log(np.maximum(sm[cy_i - dy, cx_i - dx], 1e-6))
+        hi = np.log(np.maximum(sm[cy_i + dy, cx_i + dx], 1e-6))
+        den = lo - 2.0 * centre_v + hi
+        with np.errstate(divide="ignore", invalid="ignore"):
+            off = 0.5 * (lo - hi) / den
+        fine = (den < 0) & (np.abs(off) <= 0.75)
+        if axis == 0:
+            x = np.where(fine, cx_i + off, x)
+        else:
+            y = np.where(fine, cy_i + off, y)
+    inten = win.sum(axis=1)
+    noise_at = noise_sm_r[geo.r_bin[cy_i * cols + cx_i]]
+    snr = peak / noise_at
+    size = np.sqrt(np.maximum((w * ((ox - (x - cx_i)[:, None]) ** 2 + (oy - (y - cy_i)[:, None]) ** 2)).sum(axis=1)
+                              / tot, 0.25))
+    inten_sigma = sd_r[geo.r_bin[cy_i * cols + cx_i]] * (2 * _WIN + 1) + np.sqrt(np.maximum(inten, 0.0))
+    # a spot is bright at its peak (smoothed) and in its window sum (a second, independent-ish look that
+    # turns away the odd noise peak of an empty frame)
+    good = (snr >= snr_min) & (inten >= MIN_SUM_SNR * inten_sigma)
+    sig_xy = np.clip(size / np.maximum(snr, 1.0), 0.03, 2.0)
+    spots = Spots(x[good], y[good], inten[good], inten_sigma[good], sig_xy[good], snr[good], size[good])
+    return MeasuredPattern((rows, cols), centre, spots, None, calibration, center_sigma_px=0.3, source=source,
+                           notes=("centre from the direct beam near the previous frame's",))
