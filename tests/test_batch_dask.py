@@ -52,7 +52,7 @@ def client():
             yield c
 
 
-def _stack(n, seed=0, shape=(24, 24)):
+def _stack(n, seed=0, shape=(32, 32)):
     return np.random.default_rng(seed).poisson(30, (n,) + shape).astype(np.float32)
 
 
@@ -69,7 +69,7 @@ def test_every_frame_of_files_and_stacks_gets_one_row(client, tmp_path):
     np.save(tmp_path / "tilt.npy", npy)
     tif = _stack(4, seed=1).astype(np.uint16)
     tifffile.imwrite(tmp_path / "series.tif", tif, photometric="minisblack")
-    scan = _stack(6, seed=2).reshape(2, 3, 24, 24)
+    scan = _stack(6, seed=2).reshape(2, 3, 32, 32)
     np.save(tmp_path / "scan.npy", scan)
     (tmp_path / "readme.txt").write_text("not an image")
     inputs = discover_inputs([str(tmp_path)])
@@ -80,7 +80,7 @@ def test_every_frame_of_files_and_stacks_gets_one_row(client, tmp_path):
     assert (outcome.n_frames, outcome.n_written, outcome.n_before) == (22, 22, 0)
     rows = _rows_by_key(out)
     assert len(rows) == 22
-    truth = {"tilt.npy": npy, "series.tif": tif.astype(np.float32), "scan.npy": scan.reshape(6, 24, 24)}
+    truth = {"tilt.npy": npy, "series.tif": tif.astype(np.float32), "scan.npy": scan.reshape(6, 32, 32)}
     for fname, frames in truth.items():
         for k, img in enumerate(frames):
             r = rows[(str(tmp_path / fname), k)]

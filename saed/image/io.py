@@ -1,4 +1,4 @@
-"""Reading recorded patterns: TIFF, PNG, JPEG and ``.npy``, as 2-D float32 arrays, never rescaled.
+"""Reading recorded patterns: TIFF, PNG, JPEG, ``.npy`` and microscope formats, as 2-D float32 arrays, never rescaled.
 
 Every problem with a file (missing, truncated, not an image, colour, NaN, empty, all zero, one pixel
 wide, a frame that does not exist) is raised as one :class:`saed.errors.ImageError` whose message
@@ -15,6 +15,12 @@ Formats
 * ``.npy`` (numpy, no pickles): a 2-D array, or a stack whose last two axes are the detector
   (``frame`` is the flat index over the leading axes). Read through a memory map, so a large stack
   costs only the frame asked for.
+* Microscope formats (DM3/DM4, EMD, SER/EMI, MRC and the others rosettasciio reads): through
+  :mod:`saed.image.microscope`, lazily (only the frame asked for is decoded).
+
+The format is told by the file's first bytes (a TIFF named ``.npy`` is read as a TIFF), then by
+the suffix. Before a frame is decoded its memory need is estimated and refused with the numbers when
+it will not fit (:mod:`saed.image.memory`).
 
 Pixel convention (CONTRACT.md): the array is indexed ``[row, column]``, i.e. ``[y, x]``.
 """
@@ -35,42 +41,45 @@ import numpy as np
 
 from saed.calibration import PLAUSIBLE_SCALE_INV_NM_PER_PX
 from saed.errors import ImageError
+from saed.image.memory import check_frame_memory
+from saed.image.metadata import FileMetadata
+from saed.units import RECIPROCAL_UNITS_INV_NM, normalise_unit
 
-__all__ = ["read_image", "read_image_calibration", "count_frames", "read_mask_image", "check_image", "MIN_SIDE_PX", "MAX_PIXELS",
-           "RECIPROCAL_UNITS_INV_NM"]
+__all__ = ["read_image", "read_pattern", "read_image_calibration", "count_frames", "read_mask_image", "check_image",
+           "MIN_SIDE_PX", "MAX_PIXELS", "RECIPROCAL_UNITS_INV_NM", "readable_formats"]
 
 logger = logging.getLogger(__name__)
 
-#: The smallest image side that can hold a diffraction pattern (pixels).
-MIN_SIDE_PX = 16
+#: The smallest image side that can hold a diffraction pattern (pixels): below 32 the border and
+#: beam-stop masks leave too little to measure (a 16x16 frame fails after reading, 24x24 finds no spots).
+MIN_SIDE_PX = 32
 #: The largest frame read (pixels): 16384 x 16384. Larger is almost surely a corrupt header.
 MAX_PIXELS = 16384 * 16384
 
-#: Reciprocal-length units accepted in a TIFF's ImageJ ``unit=`` entry, with their size in 1/nm.
-RECIPROCAL_UNITS_INV_NM = {
-    "1/nm": 1.0, "nm^-1": 1.0, "nm-1": 1.0, "1/nanometer": 1.0, "nm⁻¹": 1.0,
-    "1/a": 10.0, "a^-1": 10.0, "a-1": 10.0, "1/å": 10.0, "å^-1": 10.0, "å-1": 10.0, "å⁻¹": 10.0,
-    "1/angstrom": 10.0, "1/um": 1e-3, "um^-1": 1e-3, "1/µm": 1e-3, "µm^-1": 1e-3, "1/pm": 1e3,
-}
 
 _TIFF_SUFFIXES = (".tif", ".tiff")
 _PIL_SUFFIXES = (".png", ".jpg", ".jpeg")
 _NPY_SUFFIXES = (".npy",)
 # What third-party decoders raise on corrupt bytes (Pillow raises SyntaxError for broken PNG chunks,
 # numpy's .npy header parser SyntaxError or tokenize.TokenError); found by fuzzing (tests/test_image_io.py).
+_FLOAT32_MAX = float(np.finfo(np.float32).max)
 _DECODE_ERRORS = (ValueError, OSError, EOFError, KeyError, IndexError, TypeError, AttributeError,
                   struct.error, zlib.error, SyntaxError, OverflowError, RuntimeError, ZeroDivisionError,
                   NotImplementedError, UnicodeDecodeError, tokenize.TokenError)
 
 
+def readable_formats() -> str:
+    """The formats saed reads, for messages."""
+    from saed.image.microscope import microscope_format_names
+
+    return f"TIFF, PNG, JPEG, .npy, {microscope_format_names()}"
+
+
 def _kind(path: Path) -> str:
+    """'tiff', 'pil', 'npy' or 'microscope': by the first bytes, then by the suffix."""
+    from saed.image.microscope import MICROSCOPE_SUFFIXES, is_microscope_file
+
     suffix = path.suffix.lower()
-    if suffix in _TIFF_SUFFIXES:
-        return "tiff"
-    if suffix in _PIL_SUFFIXES:
-        return "pil"
-    if suffix in _NPY_SUFFIXES:
-        return "npy"
     try:
         with open(path, "rb") as fh:
             head = fh.read(8)
@@ -82,7 +91,16 @@ def _kind(path: Path) -> str:
         return "pil"
     if head.startswith(b"\x93NUMPY"):
         return "npy"
-    raise ImageError(f"{path}: not a TIFF, PNG, JPEG or .npy image (unknown suffix {suffix or 'none'!r})")
+    if suffix in MICROSCOPE_SUFFIXES or is_microscope_file(path, head):
+        return "microscope"
+    if suffix in _TIFF_SUFFIXES:
+        return "tiff"
+    if suffix in _PIL_SUFFIXES:
+        return "pil"
+    if suffix in _NPY_SUFFIXES:
+        return "npy"
+    raise ImageError(f"{path}: not an image format saed reads (suffix {suffix or 'none'!r}; it reads "
+                     f"{readable_formats()})")
 
 
 def _check_file(path) -> Path:
@@ -167,6 +185,7 @@ def _tiff_frame(path: Path, frame, *, colour_ok: bool = False) -> np.ndarray:
             end = max(int(o) + int(c) for o, c in zip(offsets, counts))
             if end > size:
                 raise ImageError(f"{path}: the TIFF is truncated (image data runs to byte {end}, the file has {size})")
+            check_frame_memory(path, page.shape[:2], np.dtype(page.dtype).itemsize if page.dtype else 4)
             data = page.asarray()
             photometric = int(page.photometric) if page.photometric is not None else 1
             planar_first = page.planarconfig == 2
@@ -198,6 +217,7 @@ def _pil_frame(path: Path, frame, *, colour_ok: bool = False) -> np.ndarray:
                 if k:
                     im.seek(k)
                 _check_shape(path, (im.height, im.width))
+                check_frame_memory(path, (im.height, im.width), 4)
                 mode = im.mode
                 if mode == "P":
                     im = im.convert("RGBA")
@@ -251,6 +271,7 @@ def _npy_frame(path: Path, frame) -> np.ndarray:
         raise ImageError(f"{path}: the .npy stack is empty (shape {arr.shape})")
     k = _check_frame(path, frame, n)
     _check_shape(path, arr.shape[-2:])
+    check_frame_memory(path, arr.shape[-2:], arr.dtype.itemsize)
     try:
         data = np.array(arr.reshape((-1,) + arr.shape[-2:])[k])
     except (*_DECODE_ERRORS, MemoryError) as exc:
@@ -298,12 +319,16 @@ def _finish(path, data: np.ndarray) -> np.ndarray:
     if min(rows, cols) < MIN_SIDE_PX:
         raise ImageError(f"{path}: the image is {rows}x{cols} pixels; a pattern needs at least "
                          f"{MIN_SIDE_PX} pixels in each direction")
-    img = np.ascontiguousarray(data, dtype=np.float32)
     if data.dtype.kind == "f":
-        finite = np.isfinite(img)
+        finite = np.isfinite(data)
         if not finite.all():
-            bad = img.size - int(np.count_nonzero(finite))
+            bad = data.size - int(np.count_nonzero(finite))
             raise ImageError(f"{path}: {bad} pixels are NaN or infinite; replace them (e.g. by 0) or mask them")
+        big = float(np.max(np.abs(data)))
+        if big > _FLOAT32_MAX:  # checked before the cast, which would overflow (with a numpy warning)
+            raise ImageError(f"{path}: pixel values up to {big:.3g} exceed the range of an intensity image "
+                             f"({_FLOAT32_MAX:.3g}); rescale the pattern before saving it")
+    img = np.ascontiguousarray(data, dtype=np.float32)
     lo, hi = float(img.min()), float(img.max())
     if hi == 0.0 and lo == 0.0:
         raise ImageError(f"{path}: every pixel is zero (an empty exposure?)")
@@ -331,6 +356,10 @@ def count_frames(path) -> int:
     """
     p = _check_file(path)
     kind = _kind(p)
+    if kind == "microscope":
+        from saed.image.microscope import count_microscope_frames
+
+        return count_microscope_frames(p)
     if kind == "tiff":
         import tifffile
 
@@ -360,7 +389,8 @@ def read_image(path, *, frame: int | None = None) -> np.ndarray:
     Parameters
     ----------
     path : str or Path
-        TIFF, PNG, JPEG or ``.npy`` file (the format is taken from the suffix, else from the first bytes).
+        TIFF, PNG, JPEG, ``.npy`` or a microscope format (:mod:`saed.image.microscope`); the format
+        is told by the first bytes, then by the suffix.
     frame : int, optional
         Which frame of a multi-page TIFF, animated PNG or ``.npy`` stack (flat index over the leading
         axes); default the first. Asking for a frame that does not exist is an error.
@@ -374,28 +404,62 @@ def read_image(path, *, frame: int | None = None) -> np.ndarray:
     ------
     ImageError
         One line naming the file and the problem: missing, empty, truncated, not an image, colour,
-        complex, smaller than 16 pixels in a direction, NaN or infinite pixels, every pixel zero or
-        equal, or a frame out of range.
+        complex, smaller than 32 pixels in a direction, NaN, infinite or out-of-range pixels, every
+        pixel zero or equal, a frame out of range, or a frame too large for the memory available.
 
     Examples
     --------
     >>> import tempfile, os
     >>> d = tempfile.mkdtemp(); p = os.path.join(d, "p.npy")
-    >>> np.save(p, np.arange(400, dtype=np.uint16).reshape(20, 20))
-    >>> img = read_image(p); img.dtype, img.shape, float(img[19, 19])
-    (dtype('float32'), (20, 20), 399.0)
+    >>> np.save(p, np.arange(1024, dtype=np.uint16).reshape(32, 32))
+    >>> img = read_image(p); img.dtype, img.shape, float(img[31, 31])
+    (dtype('float32'), (32, 32), 1023.0)
     """
     return _finish(path, _read_raw(path, frame))
 
 
 def _read_raw(path, frame, *, colour_ok: bool = False) -> np.ndarray:
+    return _read_raw_and_metadata(path, frame, colour_ok=colour_ok)[0]
+
+
+def _read_raw_and_metadata(path, frame, *, colour_ok: bool = False, metadata: bool = False):
     p = _check_file(path)
     kind = _kind(p)
+    if kind == "microscope":
+        from saed.image.microscope import read_frame
+
+        return read_frame(p, frame)
     if kind == "tiff":
-        return _tiff_frame(p, frame, colour_ok=colour_ok)
-    if kind == "npy":
-        return _npy_frame(p, frame)
-    return _pil_frame(p, frame, colour_ok=colour_ok)
+        data = _tiff_frame(p, frame, colour_ok=colour_ok)
+    elif kind == "npy":
+        data = _npy_frame(p, frame)
+    else:
+        data = _pil_frame(p, frame, colour_ok=colour_ok)
+    if not metadata:
+        return data, None
+    n = count_frames(p)
+    fmt = {"tiff": "TIFF", "npy": ".npy"}.get(kind, "PNG/JPEG")
+    scale = read_image_calibration(p) if kind == "tiff" else None
+    return data, FileMetadata(format=fmt, frame_shape=data.shape[:2], n_frames=n, scan_shape=(n,) if n > 1 else (),
+                              scale_inv_nm_per_px=scale, scale_unit="TIFF resolution tags" if scale else None,
+                              mode="diffraction" if scale else None)
+
+
+def read_pattern(path, *, frame: int | None = None) -> tuple[np.ndarray, FileMetadata]:
+    """:func:`read_image` and what the file says about itself: ``(image, FileMetadata)``.
+
+    For microscope formats the metadata are the file's own (scale, voltage, camera length, pixel
+    pitch, binning, exposure...); for a TIFF, the reciprocal scale of its resolution tags
+    (:func:`read_image_calibration`); PNG, JPEG and ``.npy`` carry none.
+
+    >>> import tempfile, os
+    >>> p = os.path.join(tempfile.mkdtemp(), "p.npy")
+    >>> np.save(p, np.arange(1024, dtype=np.uint16).reshape(32, 32))
+    >>> img, meta = read_pattern(p); img.shape, meta.format, meta.scale_inv_nm_per_px
+    ((32, 32), '.npy', None)
+    """
+    data, meta = _read_raw_and_metadata(path, frame, metadata=True)
+    return _finish(path, data), meta
 
 
 def read_mask_image(path, *, shape: tuple[int, int]) -> np.ndarray:
@@ -421,12 +485,6 @@ def read_mask_image(path, *, shape: tuple[int, int]) -> np.ndarray:
 
 
 _UNIT_RE = re.compile(r"^\s*unit\s*=\s*(.+?)\s*$", re.MULTILINE)
-
-
-def _normalise_unit(text: str) -> str:
-    t = text.strip().lower().replace(" ", "").replace("\\u00c5", "å").replace("\\u00b5", "µ")
-    t = t.replace("angstroms", "a").replace("angstrom", "a").replace("micron", "um").replace("μ", "µ")
-    return t.replace("^(-1)", "^-1").replace("**-1", "^-1")
 
 
 def read_image_calibration(path) -> float | None:
@@ -470,7 +528,7 @@ def read_image_calibration(path) -> float | None:
         unit = m.group(1) if m else None
     if unit is None or xres is None:
         return None
-    factor = RECIPROCAL_UNITS_INV_NM.get(_normalise_unit(str(unit)))
+    factor = RECIPROCAL_UNITS_INV_NM.get(normalise_unit(str(unit)))
     if factor is None:
         logger.debug("%s: resolution unit %r is not a reciprocal length; no calibration taken", path, unit)
         return None
