@@ -70,7 +70,7 @@ def test_uncalibrated_with_pixel_pitch_reports_the_implied_camera_length(example
     img, cal = example
     side = json.loads(cal.read_text())  # the demo was made at L = 120 mm, 15 um pixels
     out = tmp_path / "u.json"
-    assert main(["index", str(img), "--pixel-pitch", "15", "--phase", "Co-hcp", "--phase", "Co-fcc",
+    assert main(["index", str(img), "--pixel-pitch", "15", "--uncalibrated", "--phase", "Co-hcp", "--phase", "Co-fcc",
                  "--json", str(out)]) == 0
     sol = json.loads(out.read_text())["solutions"][0]
     assert sol["phase"] == "Co-hcp"

@@ -39,8 +39,10 @@ __all__ = ["FrameSource", "Skipped", "Inputs", "discover_inputs", "inspect_sourc
 
 logger = logging.getLogger(__name__)
 
-#: File suffixes taken as images when a folder is searched (HDF5 files and Zarr stores as stacks).
-IMAGE_SUFFIXES = (".tif", ".tiff", ".png", ".jpg", ".jpeg", ".npy", ".h5", ".hdf5", ".hdf", ".nxs", ".zarr")
+#: File suffixes taken as images when a folder is searched (HDF5 files and Zarr stores as stacks; microscope
+#: formats through saed.image.microscope; an .emi in a folder is left out: its .ser files are taken instead).
+IMAGE_SUFFIXES = (".tif", ".tiff", ".png", ".jpg", ".jpeg", ".npy", ".h5", ".hdf5", ".hdf", ".nxs", ".zarr",
+                  ".dm3", ".dm4", ".emd", ".ser", ".mrc", ".hspy", ".blo", ".mib", ".tvips", ".de5")
 #: A ``.npy`` stack has at most this many axes: (scan_y, scan_x, row, col).
 MAX_STACK_AXES = 4
 

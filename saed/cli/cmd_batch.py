@@ -99,8 +99,8 @@ def _terminate_as_interrupt():
         signal.signal(signal.SIGTERM, old)
 
 
-def _frame_geometry(args, sources, calibration):
-    """The mask (read once) and the tables' max |g|, from the frames' size."""
+def _frame_geometry(args, sources, scale_inv_nm_per_px):
+    """The mask (read once) and the tables' max |g|, from the frames' size and the (first) scale."""
     from saed.batch.indexing import max_g_for
     from saed.batch.inputs import first_frame_shape
     from saed.image.io import read_mask_image
@@ -113,7 +113,46 @@ def _frame_geometry(args, sources, calibration):
         mask = read_mask_image(args.mask, shape=shape)
     if args.max_g is not None or shape is None:
         return mask, args.max_g
-    return mask, max_g_for(shape, calibration.scale_inv_nm_per_px)
+    return mask, max_g_for(shape, scale_inv_nm_per_px)
+
+
+def _per_file_calibrations(args, sources, base):
+    """Each file's calibration by the resolution order (sidecar, file metadata, calibration history);
+    says where each came from. Returns (context_of for the runner, the first scale found or None)."""
+    from saed.cli.common import resolve_args_calibration
+    from saed.errors import ImageError
+    from saed.image.io import read_metadata
+
+    found, counts, lines = {}, Counter(), []
+    for src in sources:
+        try:
+            meta = read_metadata(src.path)
+        except ImageError:  # its frames report the problem
+            meta = None
+        try:
+            res = resolve_args_calibration(args, src.path, meta)
+        except InputError as exc:
+            _say(f"{src.name}: {exc}; indexed uncalibrated")
+            counts["none (uncalibrated)"] += 1
+            continue
+        counts[res.source] += 1
+        lines.append(f"  {src.name}: {res.line()}")
+        lines.extend(f"    warning: {w}" for w in res.warnings)
+        if res.calibration.is_calibrated:
+            if abs(res.calibration.voltage_kv - base.voltage_kv) > 0.5:
+                _say(f"{src.name}: its calibration is at {res.calibration.voltage_kv:g} kV but the batch runs at "
+                     f"{base.voltage_kv:g} kV (give --voltage)")
+            found[src.path] = res.calibration
+    if len(lines) <= 20:
+        for line in lines:
+            _say(line)
+    _say("calibration per file: " + ", ".join(f"{n} from {k}" for k, n in counts.most_common()))
+    first = next(iter(found.values())).scale_inv_nm_per_px if found else None
+
+    def context_of(source):
+        return found.get(source.path)
+
+    return context_of, first
 
 
 def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
@@ -143,7 +182,7 @@ def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
 def run(args) -> int:
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client, default_workers
-    from saed.batch.indexing import calibration_from_tags, index_frame, make_index_job
+    from saed.batch.indexing import index_frame, make_index_job
     from saed.batch.inputs import check_frame_sizes
     from saed.batch.record import check_run_record
     from saed.batch.results import ResultsFile
@@ -183,7 +222,13 @@ def run(args) -> int:
     if args.check_every < 0:
         raise InputError(f"--check-every {args.check_every}: give 0 (never) or a positive number of frames")
     frame_shape = check_frame_sizes(inputs.sources)
-    mask, max_g = _frame_geometry(args, inputs.sources, calibration)
+    context_of, table_scale = None, calibration.scale_inv_nm_per_px
+    if not calibration.is_calibrated and args.calibration is None:
+        context_of, table_scale = _per_file_calibrations(args, inputs.sources, calibration)
+    else:
+        _say(f"calibration: {calibration.scale_inv_nm_per_px:.5g} 1/nm per px for every file "
+             f"({'calibration file: ' + args.calibration if args.calibration else 'option'})")
+    mask, max_g = _frame_geometry(args, inputs.sources, table_scale)
     # before the CSV is opened (--retry-errors rewrites it): a resume against other phases is refused untouched
     check_run_record(out, phases, has_rows=_has_rows(out))
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
@@ -197,7 +242,6 @@ def run(args) -> int:
              + (f" on {where}" if n_todo else ""))
         outcome = None
         if n_todo:
-            context_of = None if calibration.is_calibrated else calibration_from_tags(calibration)
             try:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,

@@ -26,7 +26,8 @@ FILES = (("image", "mask", "standard"), ("json", "out", "plot"))
 
 
 def add_arguments(p):
-    p.add_argument("image", nargs="?", metavar="IMAGE", help="pattern of the standard (TIFF, PNG, JPEG or .npy)")
+    p.add_argument("image", nargs="?", metavar="IMAGE",
+                   help="pattern of the standard (TIFF, PNG, JPEG, .npy, DM3/DM4, EMD, SER/EMI, MRC)")
     p.add_argument("--standard", metavar="PHASE", help="the standard: built-in phase name (Au, Al, Si, ...) or CIF path")
     p.add_argument("--zone", nargs="+", metavar="U",
                    help="the pattern is a single crystal on this zone axis [uvw] (default: a ring pattern)")
@@ -165,11 +166,19 @@ def run(args) -> int:
         return run_list(args)
     from saed.calibrate.history import history_folder, store_calibration
     from saed.crystal.phase import load_phase
-    from saed.image.io import read_image, read_mask_image
+    from saed.calibrate.resolve import resolve_calibration
+    from saed.image.io import read_mask_image, read_pattern
 
     standard = load_phase(args.standard)
-    voltage = 200.0 if args.voltage is None else args.voltage
-    image = read_image(args.image, frame=args.frame)
+    image, meta = read_pattern(args.image, frame=args.frame)
+    # What the file records fills what was not typed (voltage, binned pixel pitch, nominal camera length);
+    # the calibration the other commands would have used is the one the measured scale is compared with.
+    prior = resolve_calibration(args.image, meta, voltage_kv=args.voltage, history_folder=args.history)
+    voltage = prior.calibration.voltage_kv
+    if args.pixel_pitch is None and meta.effective_pixel_pitch_um is not None:
+        args.pixel_pitch = meta.effective_pixel_pitch_um
+    if args.camera_length is None and meta.camera_length_mm is not None:
+        args.camera_length = meta.camera_length_mm
     mask = read_mask_image(args.mask, shape=image.shape) if args.mask else None
     zone = None
     if args.zone is not None:
@@ -190,8 +199,16 @@ def run(args) -> int:
 
         res = _replace(res, calibration=_replace(res.calibration, alpha_axis_deg=args.alpha_axis))
     doc = result_json(res, image=args.image, zone=zone)
+    doc.update(prior.to_json())
     cal = res.calibration
     doc["warnings"] = _warnings(cal, args)
+    before = prior.calibration.scale_inv_nm_per_px
+    if before is not None:
+        diff = 100 * abs(cal.scale_inv_nm_per_px / before - 1)
+        doc["scale_change_from_source_pct"] = round(100 * (cal.scale_inv_nm_per_px / before - 1), 4)
+        if diff > 1.0:
+            doc["notes"].append(f"the measured scale differs by {diff:.1f} % from the {prior.source} "
+                                f"({before:.6g} 1/nm per px, {prior.detail})")
     extra = {"residual_pct": doc["residual_pct"], "scale_sigma_pct": doc["scale_sigma_pct"], "image": args.image,
              "kind": doc["kind"], "zone_axis": doc["zone_axis"], "n_rings_used": sum(r[1] is not None for r in res.ring_rows)}
     written = []
@@ -216,6 +233,9 @@ def run(args) -> int:
                 print(f"saed calibrate: warning: {w}", file=sys.stderr)
             return 0
         written.append(("JSON", args.json))
+    from saed.cli.common import print_calibration
+
+    print_calibration(prior)
     _print(res, doc, args)
     for w in doc["warnings"]:
         print(f"WARNING: {w}")

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import sys
 
-from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option, calibration_from_args,
-                             matching_options_from_args, phases_from_args, write_json)
+from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, add_matching_options, add_phase_option,
+                             matching_options_from_args, phases_from_args, print_calibration, read_and_calibrate,
+                             write_json)
 from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.errors import InputError
 
@@ -96,17 +97,20 @@ def run(args) -> int:
     from saed.report.index_summary import format_summary
 
     check_outputs(args)
-    cal = calibration_from_args(args)
+    image, resolved = read_and_calibrate(args)
     phases = phases_from_args(args)
-    insp = inspect_file(args.image, cal, frame=args.frame, mask_path=args.mask)
+    insp = inspect_file(args.image, resolved.calibration, frame=args.frame, mask_path=args.mask, image=image)
     measured = insp.measured
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
     result = index_pattern(measured, tables, top=args.top, max_crystals=_max_crystals(args),
                            **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
+    print_calibration(resolved, file=out)
     print(format_summary(result, image=args.image, frame=args.frame, top=args.top, **display_options(args, out)), file=out)
     if args.json:
-        write_json(args.json, result_json(result, image=args.image, frame=args.frame))
+        doc = result_json(result, image=args.image, frame=args.frame)
+        doc.update(resolved.to_json())
+        write_json(args.json, doc)
     if args.overlay:
         from saed.report.index_overlay import write_index_overlay
 

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import math
 
-from saed.cli.common import add_image_arguments, add_calibration_options, add_phase_option, calibration_from_args, phases_from_args, \
-    positive_float, write_json
+from saed.cli.common import add_image_arguments, add_calibration_options, add_phase_option, phases_from_args, \
+    positive_float, print_calibration, read_and_calibrate, write_json
 from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
 
@@ -106,14 +106,14 @@ def solution_json(rank: int, m, obs, scale) -> dict:
 def run(args) -> int:
     _check_args(args)
     from saed.cli.progress import Progress
-    from saed.image.io import read_image, read_mask_image
+    from saed.image.io import read_mask_image
     from saed.rings.identify import identify_phases
     from saed.rings.match import ObservedRings
     from saed.rings.measure import measure_rings
 
-    cal = calibration_from_args(args)
+    image, resolved = read_and_calibrate(args)
+    cal = resolved.calibration
     phases = phases_from_args(args)
-    image = read_image(args.image, frame=args.frame)
     mask = read_mask_image(args.mask, shape=image.shape) if args.mask else None
     center = cal.center_px
     measured = measure_rings(image, mask=mask, center_px=center, ellipse=cal.ellipse, allow_spots=args.spotty)
@@ -125,7 +125,8 @@ def run(args) -> int:
     obs = ObservedRings.from_profile_rings(rings, radius_px_of_bins=measured.profile.radius_px)
     tolerance_pct = args.scale_tolerance
     if tolerance_pct is None:
-        tolerance_pct = DEFAULT_SCALE_TOLERANCE_PCT["file" if args.calibration else "options"]
+        measured_cal = resolved.source in ("calibration file", "sidecar", "calibration history")
+        tolerance_pct = DEFAULT_SCALE_TOLERANCE_PCT["file" if measured_cal else "options"]
     with Progress(len(phases), "rings") as bar:
         ident = identify_phases(obs, phases, scale_inv_nm_per_px=cal.scale_inv_nm_per_px,
                                 scale_sigma_rel=tolerance_pct / 100, tol_rel=args.tolerance / 100, top=args.top,
@@ -143,6 +144,7 @@ def run(args) -> int:
         "rings": [],
         "solutions": [solution_json(k + 1, m, obs, s) for k, m in enumerate(ident.solutions)],
         "notes": list(measured.notes) + list(ident.notes),
+        **resolved.to_json(),
     }
     for i in range(len(rings)):
         r = float(rings.radius_px[i])
@@ -163,6 +165,7 @@ def run(args) -> int:
         write_json(args.json, doc)
         if args.json == "-":
             return 0
+    print_calibration(resolved)
     _print(doc, ident, units_from_args(args))
     if args.plot:
         print(f"plot: {args.plot}")

@@ -5,7 +5,8 @@ from __future__ import annotations
 import math
 import sys
 
-from saed.cli.common import add_image_arguments, check_frame_and_outputs, add_calibration_options, calibration_from_args, positive_float, write_json
+from saed.cli.common import (add_image_arguments, check_frame_and_outputs, add_calibration_options, positive_float,
+                             print_calibration, read_and_calibrate, write_json)
 from saed.cli.display import add_units_argument, display_options, units_from_args
 from saed.crystal.notation import UNITS, table_lines
 from saed.errors import InputError
@@ -129,8 +130,7 @@ def _summary(measured, *, image: str, frame, show_all: bool, units=UNITS["nm"], 
     lines.append(f"  centre   x {measured.center_px[0]:.2f}  y {measured.center_px[1]:.2f} px"
                  + (f"  (+- {cs:.2f} px)" if math.isfinite(cs) else ""))
     if cal.is_calibrated:
-        origin = " (from the TIFF resolution tags)" if "TIFF resolution tags" in (cal.source or "") else ""
-        lines.append(f"  scale    {units.reciprocal(scale):.5g} {units.inverse_label(style)} per px at {cal.voltage_kv:g} kV{origin}"
+        lines.append(f"  scale    {units.reciprocal(scale):.5g} {units.inverse_label(style)} per px at {cal.voltage_kv:g} kV"
                      + ("  (ellipse corrected)" if cal.ellipse is not None else ""))
     else:
         lines.append("  scale    uncalibrated (lengths in px; give --scale, --camera-length with --pixel-pitch, "
@@ -190,12 +190,13 @@ def run(args) -> int:
     from saed.image.measure import DEFAULT_SNR_MIN, inspect_file
 
     _check_args(args)
-    cal = calibration_from_args(args)
-    insp = inspect_file(args.image, cal, frame=args.frame, mask_path=args.mask,
+    image, resolved = read_and_calibrate(args)
+    insp = inspect_file(args.image, resolved.calibration, frame=args.frame, mask_path=args.mask, image=image,
                         snr_min=args.snr_min if args.snr_min is not None else DEFAULT_SNR_MIN,
                         spot_sigma_px=args.spot_width, find_stop=not args.no_beam_stop)
     mp = insp.measured
     doc = spots_json(mp, image=args.image, frame=args.frame)
+    doc.update(resolved.to_json())
     out = sys.stderr if args.json == "-" else sys.stdout
     # Files first: a closed terminal pipe (e.g. '| head') must not lose them.
     if args.json:
@@ -206,6 +207,7 @@ def run(args) -> int:
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored, dpi=args.dpi,
                             title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),
                             units=units_from_args(args))
+    print_calibration(resolved, file=out)
     print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all,
                    **display_options(args, out)), file=out)
     if args.overlay:

@@ -14,7 +14,8 @@ from saed.errors import InputError
 from saed.report.files import atomic_write_text
 
 __all__ = ["add_image_arguments", "check_frame_and_outputs", "check_outputs_not_inputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
-           "write_json", "int_at_least", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args"]
+           "write_json", "int_at_least", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args",
+           "read_and_calibrate", "resolve_args_calibration", "print_calibration", "scale_value"]
 
 
 def finite_float(text: str) -> float:
@@ -52,8 +53,10 @@ def add_image_arguments(p: argparse.ArgumentParser, *, what: str = "recorded pat
                         positional: bool = True) -> None:
     """The IMAGE argument with --frame and --mask, as every single-pattern command takes them."""
     if positional:
-        p.add_argument("image", metavar="IMAGE", help=f"{what} (TIFF, PNG, JPEG or .npy)")
-    p.add_argument("--frame", type=int, metavar="N", help="frame of a multi-frame TIFF or .npy stack (from 0; default 0)")
+        p.add_argument("image", metavar="IMAGE", help=f"{what} (TIFF, PNG, JPEG, .npy, DM3/DM4, EMD, SER/EMI, MRC)")
+    p.add_argument("--frame", type=int, metavar="N",
+                   help="frame of a multi-frame file (TIFF pages, .npy or DM/EMD/SER/MRC stack or scan, flat index; "
+                        "from 0; default 0)")
     p.add_argument("--mask", metavar="IMAGE", help="mask image of the same size: non-zero pixels are ignored")
 
 
@@ -96,14 +99,81 @@ def check_outputs_not_inputs(args, inputs, outputs) -> None:
 
 def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) -> None:
     g = p.add_argument_group("calibration")
-    g.add_argument("--scale", type=positive_float, metavar="S", help="detector scale, 1/nm per pixel")
+    g.add_argument("--scale", type=scale_value, metavar="S",
+                   help="detector scale per pixel: 1/nm by default, or with a unit ('0.005 1/Å', '5e7 1/m', "
+                        "'0.05 nm^-1'); overrides the image's sidecar, metadata and the calibration history")
     g.add_argument("--camera-length", type=positive_float, metavar="MM", help="camera length in mm (needs --pixel-pitch)")
     g.add_argument("--pixel-pitch", type=positive_float, metavar="UM", help="detector pixel pitch in um")
     g.add_argument("--voltage", type=positive_float, metavar="KV", help="accelerating voltage in kV (default 200)")
     g.add_argument("--calibration", metavar="CAL.json", help="calibration file written by 'saed calibrate'")
+    g.add_argument("--uncalibrated", action="store_true",
+                   help="use no calibration: ignore the image's sidecar NAME.json, its metadata and the calibration "
+                        "history (index by spacing ratios and angles)")
     if center:
         g.add_argument("--centre", "--center", dest="center", type=finite_float, nargs=2, metavar=("X", "Y"),
                        help="pattern centre hint, pixels (either spelling)")
+
+
+def scale_value(text: str) -> float:
+    """--scale: a positive number of 1/nm per pixel, or a number with a reciprocal-length unit."""
+    from saed.units import parse_scale_text
+
+    try:
+        v, _unit = parse_scale_text(text)
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    if not math.isfinite(v) or v <= 0:
+        raise argparse.ArgumentTypeError(f"{text!r} must be positive")
+    return v
+
+
+def resolve_args_calibration(args, image, metadata, *, use_history: bool = True):
+    """The calibration of `image` by the resolution order (saed.calibrate.resolve) from the command's options."""
+    from saed.calibrate.resolve import resolve_calibration
+
+    if getattr(args, "uncalibrated", False):
+        given = [f for f, v in (("--scale", "scale"), ("--camera-length", "camera_length"), ("--calibration", "calibration"))
+                 if getattr(args, v, None) is not None]
+        if given:
+            raise InputError(f"--uncalibrated contradicts {given[0]}")
+        return resolve_calibration(image, None, voltage_kv=getattr(args, "voltage", None),
+                                   pixel_pitch_um=getattr(args, "pixel_pitch", None),
+                                   center_px=getattr(args, "center", None), use_sidecar=False, use_history=False)
+    return resolve_calibration(
+        image, metadata,
+        scale_inv_nm_per_px=getattr(args, "scale", None),
+        camera_length_mm=getattr(args, "camera_length", None),
+        pixel_pitch_um=getattr(args, "pixel_pitch", None),
+        voltage_kv=getattr(args, "voltage", None),
+        calibration_file=getattr(args, "calibration", None),
+        center_px=getattr(args, "center", None),
+        history_folder=getattr(args, "history", None),
+        use_history=use_history,
+    )
+
+
+def read_and_calibrate(args):
+    """Read IMAGE (--frame) with what the file says about itself and resolve its calibration.
+
+    Returns (image float32 array, ResolvedCalibration).
+    """
+    from saed.image.io import read_pattern
+
+    if not (getattr(args, "camera_length", None) is not None and getattr(args, "pixel_pitch", None) is None):
+        calibration_from_args(args)  # contradicting options and a bad calibration file fail before any reading
+    # (--camera-length alone may take the pixel pitch from the file's metadata: checked after reading)
+    image, meta = read_pattern(args.image, frame=args.frame)
+    return image, resolve_args_calibration(args, args.image, meta)
+
+
+def print_calibration(resolved, *, file=None) -> None:
+    """The calibration line, with its source, then its warnings and notes."""
+    out = file if file is not None else sys.stdout
+    print(resolved.line(), file=out)
+    for w in resolved.warnings:
+        print(f"  warning: {w}", file=out)
+    for n in resolved.notes:
+        print(f"  note: {n}", file=out)
 
 
 def calibration_from_args(args) -> Calibration:

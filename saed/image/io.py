@@ -45,7 +45,7 @@ from saed.image.memory import check_frame_memory
 from saed.image.metadata import FileMetadata
 from saed.units import RECIPROCAL_UNITS_INV_NM, normalise_unit
 
-__all__ = ["read_image", "read_pattern", "read_image_calibration", "count_frames", "read_mask_image", "check_image",
+__all__ = ["read_image", "read_pattern", "read_metadata", "read_image_calibration", "count_frames", "read_mask_image", "check_image",
            "MIN_SIDE_PX", "MAX_PIXELS", "RECIPROCAL_UNITS_INV_NM", "readable_formats"]
 
 logger = logging.getLogger(__name__)
@@ -443,6 +443,36 @@ def _read_raw_and_metadata(path, frame, *, colour_ok: bool = False, metadata: bo
     return data, FileMetadata(format=fmt, frame_shape=data.shape[:2], n_frames=n, scan_shape=(n,) if n > 1 else (),
                               scale_inv_nm_per_px=scale, scale_unit="TIFF resolution tags" if scale else None,
                               mode="diffraction" if scale else None)
+
+
+def read_metadata(path) -> FileMetadata:
+    """What a file says about itself, without decoding its pixels (microscope formats, TIFF tags).
+
+    The frame shape of a PNG/JPEG/TIFF is read from its header; ``.npy`` from its header too.
+    """
+    p = _check_file(path)
+    kind = _kind(p)
+    if kind == "microscope":
+        from saed.image.microscope import read_frames
+
+        return read_frames(p)[1]
+    n = count_frames(p)
+    if kind == "npy":
+        shape = _open_npy(p).shape[-2:]
+        return FileMetadata(format=".npy", frame_shape=shape, n_frames=n, scan_shape=_open_npy(p).shape[:-2])
+    if kind == "tiff":
+        import tifffile
+
+        with _quiet_tifffile(), _open_tiff(p) as tif:
+            try:
+                shape = tif.pages[0].shape[:2]
+            except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
+                raise ImageError(f"{path}: the TIFF cannot be decoded ({_short(exc)})") from None
+        scale = read_image_calibration(p)
+        return FileMetadata(format="TIFF", frame_shape=shape, n_frames=n, scan_shape=(n,) if n > 1 else (),
+                            scale_inv_nm_per_px=scale, scale_unit="TIFF resolution tags" if scale else None,
+                            mode="diffraction" if scale else None)
+    return FileMetadata(format="PNG/JPEG", frame_shape=(0, 0), n_frames=n)
 
 
 def read_pattern(path, *, frame: int | None = None) -> tuple[np.ndarray, FileMetadata]:

@@ -328,13 +328,14 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
 
 
 def inspect_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
-                 **options) -> Inspection:
+                 image=None, **options) -> Inspection:
     """Read `path` (frame `frame`) and inspect it; the calibration falls back to the TIFF's reciprocal-scale tags.
 
-    `mask_path`: an image of the same size whose non-zero pixels are ignored. Other keyword options
-    go to :func:`inspect_pattern`.
+    `mask_path`: an image of the same size whose non-zero pixels are ignored. `image`: the frame
+    already read (:func:`saed.image.io.read_pattern`), so the file is not read twice. Other keyword
+    options go to :func:`inspect_pattern`.
     """
-    img = read_image(path, frame=frame)
+    img = read_image(path, frame=frame) if image is None else image
     cal = calibration if calibration is not None else Calibration()
     if not cal.is_calibrated:
         scale = read_image_calibration(path)

@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import functools
 import logging
 import math
 import re
@@ -386,8 +387,25 @@ def _rsciio_entries(path: Path, fmt: str, plugin: str) -> tuple[list[dict], bool
 
 
 def _open(path: Path) -> tuple[list[_Dataset], str]:
+    """The file's image datasets (lazy), cached per (path, modification time, size): a batch reading
+    frame after frame of one stack decodes the header once."""
+    st = path.stat()
+    resolved = str(path.resolve())
+    try:
+        datasets, fmt = _open_cached(resolved, st.st_mtime_ns, st.st_size)
+    except ImageError as exc:  # name the file as the user typed it
+        raise ImageError(str(exc).replace(resolved, str(path), 1)) from None
+    return list(datasets), fmt
+
+
+@functools.lru_cache(maxsize=4)
+def _open_cached(resolved: str, _mtime_ns: int, size: int) -> tuple[tuple[_Dataset, ...], str]:
+    datasets, fmt = _open_uncached(Path(resolved), size)
+    return tuple(datasets), fmt
+
+
+def _open_uncached(path: Path, size: int) -> tuple[list[_Dataset], str]:
     fmt, plugin = _format_of(path)
-    size = path.stat().st_size
     if plugin == "rsciio.tia":
         avail = available_memory_bytes()
         if avail is not None and size > avail:  # the library reads a series whole
