@@ -37,6 +37,7 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import functools
+import gc
 import logging
 import math
 import re
@@ -107,7 +108,7 @@ def _decode_errors() -> tuple[type[BaseException], ...]:
     errs: list[type[BaseException]] = [ValueError, OSError, EOFError, KeyError, IndexError, TypeError,
                                        AttributeError, struct.error, zlib.error, NotImplementedError,
                                        UnicodeDecodeError, OverflowError, RuntimeError, ZeroDivisionError,
-                                       RecursionError, SyntaxError, LookupError, AssertionError]
+                                       RecursionError, SyntaxError, LookupError, AssertionError, UnboundLocalError]
     import rsciio.exceptions as rx
 
     errs += [rx.DM3TagError, rx.DM3DataTypeError, rx.DM3TagTypeError, rx.DM3TagIDError, rx.DM3FileVersionError,
@@ -376,8 +377,8 @@ def _rsciio_entries(path: Path, fmt: str, plugin: str) -> tuple[list[dict], bool
 
     reader = importlib.import_module(plugin).file_reader
     units_stated = plugin != "rsciio.mrc"
-    if plugin == "rsciio.tia" and path.suffix.lower() != ".emi":
-        emi = path.with_name(re.sub(r"_\d+$", "", path.stem) + ".emi")
+    emi = _emi_of(path)
+    if plugin == "rsciio.tia" and emi is not None:
         if emi.is_file():
             entries = reader(str(emi), lazy=True)
             mine = [e for e in entries if _get(e.get("metadata") or {}, "General", "original_filename") == path.name]
@@ -391,15 +392,24 @@ def _open(path: Path) -> tuple[list[_Dataset], str]:
     frame after frame of one stack decodes the header once."""
     st = path.stat()
     resolved = str(path.resolve())
+    emi = _emi_of(path)  # a SER's metadata live in the EMI beside it: its appearance changes what is read
+    emi_stamp = emi.stat().st_mtime_ns if emi is not None and emi.is_file() else None
     try:
-        datasets, fmt = _open_cached(resolved, st.st_mtime_ns, st.st_size)
+        datasets, fmt = _open_cached(resolved, st.st_mtime_ns, st.st_size, emi_stamp)
     except ImageError as exc:  # name the file as the user typed it
         raise ImageError(str(exc).replace(resolved, str(path), 1)) from None
     return list(datasets), fmt
 
 
+def _emi_of(path: Path) -> Path | None:
+    """``NAME.emi`` for ``NAME_1.ser`` (TIA numbers the series files of one acquisition)."""
+    if path.suffix.lower() != ".ser":
+        return None
+    return path.with_name(re.sub(r"_\d+$", "", path.stem) + ".emi")
+
+
 @functools.lru_cache(maxsize=4)
-def _open_cached(resolved: str, _mtime_ns: int, size: int) -> tuple[tuple[_Dataset, ...], str]:
+def _open_cached(resolved: str, _mtime_ns: int, size: int, _emi_stamp) -> tuple[tuple[_Dataset, ...], str]:
     datasets, fmt = _open_uncached(Path(resolved), size)
     return tuple(datasets), fmt
 
@@ -411,16 +421,21 @@ def _open_uncached(path: Path, size: int) -> tuple[list[_Dataset], str]:
         if avail is not None and size > avail:  # the library reads a series whole
             raise ImageError(f"{path}: a {format_bytes(size)} SER series does not fit in the {format_bytes(avail)} "
                              "of memory available")
-    try:
-        with _quiet(), address_space_guard(max(1 << 30, 4 * size)):
-            entries, units_stated = _rsciio_entries(path, fmt, plugin)
-    except ImportError as exc:
-        raise ImageError(f"{path}: reading {fmt} files needs a library that is not installed ({_short(exc)})") from None
-    except MemoryError:
-        raise ImageError(f"{path}: the {fmt} header declares more data than can be held in memory "
-                         "(a corrupt or truncated file?)") from None
-    except _decode_errors() as exc:
-        raise ImageError(f"{path}: not a readable {fmt} file ({_short(exc)})") from None
+    err = None
+    with _quiet():  # the decoder's complaints, and files it leaves open on errors, stay inside
+        try:
+            with address_space_guard(max(1 << 30, 4 * size)):
+                entries, units_stated = _rsciio_entries(path, fmt, plugin)
+        except ImportError as exc:
+            err = f"{path}: reading {fmt} files needs a library that is not installed ({_short(exc)})"
+        except MemoryError:
+            err = f"{path}: the {fmt} header declares more data than can be held in memory (a corrupt or truncated file?)"
+        except _decode_errors() as exc:
+            err = f"{path}: not a readable {fmt} file ({_short(exc)})"
+        if err is not None:
+            gc.collect()  # close what the failed decoder left open, while its warnings are still caught
+    if err is not None:
+        raise ImageError(err)
     images = []
     for e in entries or []:
         data = e.get("data")
