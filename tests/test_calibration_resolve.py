@@ -1,0 +1,188 @@
+"""The calibration resolution order, unit spellings and conversions, checked against hand-worked values.
+
+Hand-worked values (wavelength at 200 kV 0.0025079 nm: CONTRACT.md; relativistic formula in
+saed.physics, checked against scipy.constants in tests/test_physics.py):
+- 200 kV, L = 100 mm, 14 um pixels: lambda L = 0.25079 nm mm; scale = 0.014 mm / 0.25079 nm mm
+  = 0.055823 1/nm per px (reference/check-values.md section 8, worked example, convention [C]).
+- 200 kV, L = 120 mm, 15 um pixels: 0.015 / (0.0025079 x 120) = 0.049842 1/nm per px (the demo).
+- 1/Å = 10 1/nm; 1/m = 1e-9 1/nm (1 m = 1e9 nm); Å cm = 1e-1 nm x 1e1 mm = 1 nm mm.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import tifffile
+
+import microscope_writers as w
+from saed.calibrate.history import store_calibration
+from saed.calibrate.resolve import SOURCES, resolve_calibration
+from saed.calibration import Calibration
+from saed.cli import main
+from saed.errors import InputError
+from saed.image.io import read_pattern
+from saed.image.metadata import FileMetadata
+from saed.units import (camera_constant_factor_nm_mm, parse_scale_text, reciprocal_factor_inv_nm,
+                        scale_from_camera_constant_inv_nm_per_px, unit_kind)
+
+DEMO_SCALE = 0.015 / (0.0025079 * 120)   # hand-worked above
+
+
+# ----------------------------------------------------------------------------- units
+@pytest.mark.parametrize("unit,factor", [("1/nm", 1.0), ("nm^-1", 1.0), ("nm⁻¹", 1.0), ("1 / nm", 1.0),
+                                         ("1/Å", 10.0), ("1/A", 10.0), ("Å^-1", 10.0), ("1/m", 1e-9),
+                                         ("1 / m", 1e-9), ("1/meters", 1e-9), ("1/um", 1e-3), ("1/pm", 1e3)])
+def test_reciprocal_spellings(unit, factor):
+    assert reciprocal_factor_inv_nm(unit) == pytest.approx(factor, rel=1e-12)
+    assert unit_kind(unit) == "reciprocal"
+
+
+@pytest.mark.parametrize("text,expected", [("0.0498", 0.0498), ("0.00498 1/Å", 0.0498), ("4.98e7 1/m", 0.0498),
+                                           ("0.0498 nm^-1", 0.0498), ("0.0498 nm⁻¹", 0.0498),
+                                           ("0.0498 1/nm per px", 0.0498)])
+def test_scale_text_in_any_reciprocal_unit(text, expected):
+    assert parse_scale_text(text)[0] == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize("text,what", [("0.12 nm", "real-space pixel size"), ("2.5 Å", "real-space"),
+                                       ("0.25 nm mm", "camera constant"), ("3 furlongs", "unknown unit")])
+def test_scale_text_refuses_real_space_and_camera_constants(text, what):
+    with pytest.raises(InputError, match=what):
+        parse_scale_text(text)
+
+
+def test_camera_constant_is_told_from_a_per_pixel_scale():
+    assert unit_kind("nm mm") == unit_kind("Å cm") == "camera constant"
+    assert camera_constant_factor_nm_mm("Å cm") == pytest.approx(1.0)    # 0.1 nm x 10 mm
+    assert camera_constant_factor_nm_mm("Å mm") == pytest.approx(0.1)
+    # worked example: lambda L = 0.25079 nm mm with 14 um pixels -> 0.055823 1/nm per px
+    assert scale_from_camera_constant_inv_nm_per_px(0.25079, 14.0) == pytest.approx(0.055823, rel=2e-5)
+
+
+def test_binning_is_applied_once():
+    # 7 um sensor pixels binned 2 are 14 um stored pixels: the worked example's 0.055823
+    m = FileMetadata("DM4", (512, 512), voltage_kv=200, camera_length_mm=100, pixel_pitch_um=7, binning=2)
+    assert m.effective_pixel_pitch_um == 14
+    assert m.nominal_scale_inv_nm_per_px == pytest.approx(0.055823, rel=1e-4)
+    # a stored reciprocal scale is already per binned pixel: used as it is
+    m2 = FileMetadata("DM4", (512, 512), scale_inv_nm_per_px=0.05, pixel_pitch_um=7, binning=2)
+    r = resolve_calibration("x.dm4", m2, history_folder="/nonexistent")
+    assert r.calibration.scale_inv_nm_per_px == 0.05 and r.calibration.pixel_pitch_um == 14
+
+
+# ----------------------------------------------------------------------------- the order
+@pytest.fixture()
+def dm_pattern(tmp_path):
+    """A DM4 'pattern' with a stored scale of 0.05 1/nm (the pixels do not matter to the resolution)."""
+    p = tmp_path / "p.dm4"
+    w.write_dm(p, np.random.default_rng(1).integers(1, 100, (64, 64)).astype(np.uint16), version=4, scale=0.05,
+               units="1/nm", voltage_v=200000, mode="DIFFRACTION", camera_length_mm=120)
+    return p
+
+
+def _cal_file(path, scale, voltage=200.0):
+    path.write_text(json.dumps({"format": "saed-calibration-1", "scale_inv_nm_per_px": scale, "voltage_kv": voltage}))
+    return path
+
+
+def test_each_level_beats_the_ones_below(tmp_path, dm_pattern):
+    meta = read_pattern(dm_pattern)[1]
+    hist = tmp_path / "hist"
+    store_calibration(Calibration(0.0502, 200.0, date="2026-11-30T10:00:00", standard="Au"), hist,
+                      nominal_camera_length_mm=120)
+
+    def res(**kw):
+        return resolve_calibration(dm_pattern, meta, history_folder=hist, **kw)
+
+    r = res()
+    assert (r.source, r.calibration.scale_inv_nm_per_px) == ("file metadata", pytest.approx(0.05, rel=1e-6))
+    assert any("agrees within 0.40 %" in n for n in r.notes)   # 0.0502 vs 0.05: 0.4 %
+    _cal_file(tmp_path / "p.json", 0.051)
+    r = res()
+    assert (r.source, r.calibration.scale_inv_nm_per_px) == ("sidecar", 0.051)
+    assert any("2.0 % from the sidecar" in x for x in r.warnings)   # |0.05 - 0.051| / 0.051 = 1.96 %
+    r = res(calibration_file=_cal_file(tmp_path / "cal.json", 0.052))
+    assert (r.source, r.calibration.scale_inv_nm_per_px) == ("calibration file", 0.052)
+    r = res(scale_inv_nm_per_px=0.053)
+    assert (r.source, r.calibration.scale_inv_nm_per_px) == ("option", 0.053)
+    assert any("5.7 % from the --scale" in x for x in r.warnings)   # |0.05 - 0.053| / 0.053 = 5.66 %
+    assert set(SOURCES) >= {r.source}
+
+
+def test_history_by_camera_length_and_voltage_and_the_one_percent_warning(tmp_path):
+    hist = tmp_path / "hist"
+    store_calibration(Calibration(0.0498, 200.0, pixel_pitch_um=15.0, date="2026-11-01T10:00:00", standard="Au"), hist,
+                      nominal_camera_length_mm=120)
+    store_calibration(Calibration(0.0700, 200.0, pixel_pitch_um=15.0, date="2026-11-02T10:00:00", standard="Au"), hist,
+                      nominal_camera_length_mm=80)
+    store_calibration(Calibration(0.0400, 300.0, pixel_pitch_um=15.0, date="2026-11-03T10:00:00", standard="Au"), hist,
+                      nominal_camera_length_mm=120)
+    # the file gives L and voltage but no pixel pitch: nothing to compute a scale from -> the history
+    meta = FileMetadata("EMD", (512, 512), voltage_kv=200, camera_length_mm=120)
+    r = resolve_calibration("x.emd", meta, history_folder=hist)
+    assert r.source == "calibration history" and r.calibration.scale_inv_nm_per_px == pytest.approx(0.0498)
+    # binned 2 now (30 um stored pixels) against a calibration made at 15 um: twice the scale per pixel
+    meta2 = FileMetadata("EMD", (256, 256), voltage_kv=200, camera_length_mm=120, scale_inv_nm_per_px=0.0996,
+                         pixel_pitch_um=15, binning=2)
+    r2 = resolve_calibration("x.emd", meta2, history_folder=hist)
+    assert r2.source == "file metadata" and not r2.warnings   # 0.0996 vs 2 x 0.0498: equal
+    meta3 = FileMetadata("EMD", (512, 512), voltage_kv=200, camera_length_mm=120, scale_inv_nm_per_px=0.0510,
+                         pixel_pitch_um=15)
+    r3 = resolve_calibration("x.emd", meta3, history_folder=hist)
+    assert r3.source == "file metadata" and r3.calibration.scale_inv_nm_per_px == 0.0510
+    assert any("2.4 % from the file's metadata" in x and "--calibration" in x for x in r3.warnings)  # 0.0012/0.0498
+
+
+def test_real_space_pixel_size_is_refused_as_a_diffraction_calibration(tmp_path):
+    p = tmp_path / "img.dm4"
+    w.write_dm(p, np.random.default_rng(2).integers(1, 100, (64, 64)).astype(np.uint16), version=4, scale=0.12,
+               units="nm", voltage_v=200000, mode="IMAGING")
+    meta = read_pattern(p)[1]
+    assert meta.mode == "image" and meta.real_pixel_size_nm == pytest.approx(0.12)
+    with pytest.raises(InputError, match=r"calibrated in real space \(0\.12 nm per px, image mode\)"):
+        resolve_calibration(p, meta, history_folder=tmp_path)
+    r = resolve_calibration(p, meta, scale_inv_nm_per_px=0.05)   # an explicit calibration wins, with a warning
+    assert r.source == "option" and any("image mode" in x for x in r.warnings)
+
+
+def test_a_json_beside_the_image_that_is_no_calibration_is_passed_over(tmp_path):
+    img = tmp_path / "g.tif"
+    tifffile.imwrite(img, np.random.default_rng(3).integers(1, 100, (64, 64)).astype(np.uint16))
+    (tmp_path / "g.json").write_text(json.dumps({"image": "g.tif", "solutions": []}))   # an earlier --json
+    r = resolve_calibration(img, read_pattern(img)[1], history_folder=tmp_path)
+    assert r.source == "none (uncalibrated)" and any("not a saed calibration file" in n for n in r.notes)
+    (tmp_path / "g.json").write_text('{"format": "saed-calibration-1", "scale_inv_nm_per_px": "x"}')
+    with pytest.raises(InputError, match="sidecar"):
+        resolve_calibration(img, None)
+
+
+def test_voltage_option_against_the_file(tmp_path, dm_pattern):
+    meta = read_pattern(dm_pattern)[1]
+    r = resolve_calibration(dm_pattern, meta, voltage_kv=300, history_folder=tmp_path)
+    assert r.calibration.voltage_kv == 300 and any("300 kV differs from the 200 kV" in x for x in r.warnings)
+
+
+# ----------------------------------------------------------------------------- the commands
+def test_index_and_spots_say_where_the_calibration_came_from(tmp_path, dm_pattern, capsys):
+    out = tmp_path / "s.json"
+    assert main(["spots", str(dm_pattern), "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert doc["calibration_source"] == "file metadata" and doc["scale_inv_nm_per_px"] == pytest.approx(0.05)
+    assert "(file metadata: DM4 scale 0.05 1/nm per px)" in capsys.readouterr().out
+    assert main(["spots", str(dm_pattern), "--scale", "0.0006 1/Å", "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert doc["calibration_source"] == "option" and doc["scale_inv_nm_per_px"] == pytest.approx(0.006)
+    assert "warning: the file's metadata give 0.05 1/nm per px" in capsys.readouterr().out
+    assert main(["spots", str(dm_pattern), "--uncalibrated", "--json", str(out)]) == 0
+    assert json.loads(out.read_text())["calibration_source"] == "none (uncalibrated)"
+
+
+def test_image_mode_file_is_refused_in_one_line(tmp_path, capsys):
+    p = tmp_path / "img.dm3"
+    w.write_dm(p, np.random.default_rng(2).integers(1, 100, (64, 64)).astype(np.uint16), version=3, scale=0.3,
+               units="nm", voltage_v=200000, mode="IMAGING")
+    assert main(["index", str(p), "--phase", "Co-fcc"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "real space" in err and "--scale or --calibration" in err
