@@ -546,7 +546,7 @@ def read_frame(path, frame=None) -> tuple[np.ndarray, FileMetadata]:
             block = ds.data[tuple(int(i) for i in index)]
             if hasattr(block, "compute"):
                 block = block.compute(scheduler="synchronous")
-            arr = np.array(block)
+            arr = np.asarray(block)  # a memory-map view for DM/MRC: no copy before the float32 conversion
     except MemoryError:
         raise ImageError(f"{path}: the frame is too large to read into memory") from None
     except _decode_errors() as exc:
