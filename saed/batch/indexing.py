@@ -16,7 +16,7 @@ import numpy as np
 from saed.batch.results import Row
 from saed.calibration import Calibration
 
-__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "calibration_from_tags", "row_from_result",
+__all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "row_from_result",
            "row_from_solutions", "lookalike_note"]
 
 
@@ -75,28 +75,6 @@ def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_
     return IndexJob(tables, calibration, int(top), mask, tuple(options.items()), shape, int(check_every))
 
 
-def calibration_from_tags(base: Calibration):
-    """A ``context_of(source)`` for runs given no scale: a file's TIFF resolution tags calibrate its frames.
-
-    As ``saed index`` does for one file (:func:`saed.image.measure.inspect_file`); the voltage,
-    centre hint, ellipse and pixel pitch come from `base`. Files without usable tags (and files
-    that cannot be read: their frames report that) get None, i.e. `base`.
-    """
-    from saed.errors import ImageError
-    from saed.image.io import read_image_calibration
-
-    def context_of(source):
-        try:
-            scale = read_image_calibration(source.path)
-        except ImageError:
-            return None
-        if scale is None:
-            return None
-        return Calibration(scale, base.voltage_kv, center_px=base.center_px, ellipse=base.ellipse,
-                           pixel_pitch_um=base.pixel_pitch_um, source=f"{source.name} (TIFF resolution tags)")
-
-    return context_of
-
 
 def _one_line(parts) -> str:
     return " | ".join(" ".join(str(p).split()) for p in parts if p)
@@ -141,8 +119,8 @@ def row_from_solutions(best, second, *, name: str, frame: int, n_spots, note: st
 def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, context=None) -> Row:
     """Index one frame by a full search; the row carries the best solution, the runner-up and the indexer's message.
 
-    `context` may be a :class:`~saed.calibration.Calibration` for this file (e.g. read from its
-    TIFF tags), used instead of the job's. No solution is status ``no-solution`` (not an
+    `context` may be a :class:`~saed.calibration.Calibration` for this file (its sidecar, metadata
+    or history calibration: saed.calibrate.resolve), used instead of the job's. No solution is status ``no-solution`` (not an
     error); errors raised by the indexer propagate to the runner, which records them.
     """
     from saed.index import index_image

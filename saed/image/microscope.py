@@ -37,7 +37,6 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import functools
-import gc
 import logging
 import math
 import re
@@ -432,8 +431,8 @@ def _open_uncached(path: Path, size: int) -> tuple[list[_Dataset], str]:
             err = f"{path}: the {fmt} header declares more data than can be held in memory (a corrupt or truncated file?)"
         except _decode_errors() as exc:
             err = f"{path}: not a readable {fmt} file ({_short(exc)})"
-        if err is not None:
-            gc.collect()  # close what the failed decoder left open, while its warnings are still caught
+        # (the error is held as text only: the failed decoder's frames, and a file it left open, are
+        # released here, while its warnings are still caught)
     if err is not None:
         raise ImageError(err)
     images = []
