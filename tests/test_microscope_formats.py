@@ -175,7 +175,8 @@ def _fixture_bytes() -> dict[str, bytes]:
         w.write_dm(tmp / "a.dm4", STACK, version=4, scale=0.05, units="1/nm", voltage_v=2e5)
         w.write_ser(tmp / "a_1.ser", STACK, delta=5e7)
         w.write_mrc(tmp / "a.mrc", PIX.astype(np.int16))
-        for k in ("a.dm3", "a.dm4", "a_1.ser", "a.mrc"):
+        w.write_emd_maker(tmp / "a.emd", STACK, pixel_size=5e7, camera_length_m=0.12)
+        for k in ("a.dm3", "a.dm4", "a_1.ser", "a.mrc", "a.emd"):
             out[Path(k).suffix] = (tmp / k).read_bytes()
     return out
 

@@ -440,9 +440,10 @@ def _read_raw_and_metadata(path, frame, *, colour_ok: bool = False, metadata: bo
     n = count_frames(p)
     fmt = {"tiff": "TIFF", "npy": ".npy"}.get(kind, "PNG/JPEG")
     scale = read_image_calibration(p) if kind == "tiff" else None
+    notes = (f"frame {frame if frame is not None else 0} of {n} (choose with --frame)",) if n > 1 else ()
     return data, FileMetadata(format=fmt, frame_shape=data.shape[:2], n_frames=n, scan_shape=(n,) if n > 1 else (),
                               scale_inv_nm_per_px=scale, scale_unit="TIFF resolution tags" if scale else None,
-                              mode="diffraction" if scale else None)
+                              mode="diffraction" if scale else None, notes=notes)
 
 
 def read_metadata(path) -> FileMetadata:

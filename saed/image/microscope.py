@@ -554,7 +554,7 @@ def read_frame(path, frame=None) -> tuple[np.ndarray, FileMetadata]:
         raise ImageError(f"{path}: the {fmt} frame has shape {arr.shape}, not the declared {rows}x{cols}")
     if meta.n_frames > 1 or len(datasets) > 1:
         meta = replace(meta, notes=meta.notes + (f"frame {frame if frame is not None else 0} of "
-                                                 f"{sum(d.metadata.n_frames for d in datasets)}",))
+                                                 f"{sum(d.metadata.n_frames for d in datasets)} (choose with --frame)",))
     return arr, meta
 
 
