@@ -139,17 +139,8 @@ def resolve_args_calibration(args, image, metadata, *, use_history: bool = True)
         return resolve_calibration(image, None, voltage_kv=getattr(args, "voltage", None),
                                    pixel_pitch_um=getattr(args, "pixel_pitch", None),
                                    center_px=getattr(args, "center", None), use_sidecar=False, use_history=False)
-    return resolve_calibration(
-        image, metadata,
-        scale_inv_nm_per_px=getattr(args, "scale", None),
-        camera_length_mm=getattr(args, "camera_length", None),
-        pixel_pitch_um=getattr(args, "pixel_pitch", None),
-        voltage_kv=getattr(args, "voltage", None),
-        calibration_file=getattr(args, "calibration", None),
-        center_px=getattr(args, "center", None),
-        history_folder=getattr(args, "history", None),
-        use_history=use_history,
-    )
+    return resolve_calibration(image, metadata, **_calibration_option_values(args),
+                               history_folder=getattr(args, "history", None), use_history=use_history)
 
 
 def read_and_calibrate(args):
@@ -176,15 +167,15 @@ def print_calibration(resolved, *, file=None) -> None:
         print(f"  note: {n}", file=out)
 
 
+def _calibration_option_values(args) -> dict:
+    """The calibration options of a command line, as keyword arguments (None: not given)."""
+    return {"scale_inv_nm_per_px": getattr(args, "scale", None), "camera_length_mm": getattr(args, "camera_length", None),
+            "pixel_pitch_um": getattr(args, "pixel_pitch", None), "voltage_kv": getattr(args, "voltage", None),
+            "calibration_file": getattr(args, "calibration", None), "center_px": getattr(args, "center", None)}
+
+
 def calibration_from_args(args) -> Calibration:
-    return calibration_from_options(
-        scale_inv_nm_per_px=getattr(args, "scale", None),
-        camera_length_mm=getattr(args, "camera_length", None),
-        pixel_pitch_um=getattr(args, "pixel_pitch", None),
-        voltage_kv=getattr(args, "voltage", None),
-        calibration_file=getattr(args, "calibration", None),
-        center_px=getattr(args, "center", None),
-    )
+    return calibration_from_options(**_calibration_option_values(args))
 
 
 def add_phase_option(p: argparse.ArgumentParser, *, required: bool = False) -> None:

@@ -37,26 +37,24 @@ def format_bytes(n: float) -> str:
     return f"{int(n)} bytes"
 
 
-def _meminfo_available() -> int | None:
+def _proc_kb(path: str, key: str) -> int | None:
+    """A 'Key:  N kB' line of a Linux /proc file, in bytes (None where there is none)."""
     try:
-        with open("/proc/meminfo", encoding="ascii") as fh:
+        with open(path, encoding="ascii") as fh:
             for line in fh:
-                if line.startswith("MemAvailable:"):
+                if line.startswith(key):
                     return int(line.split()[1]) * 1024
     except (OSError, ValueError, IndexError):
         return None
     return None
+
+
+def _meminfo_available() -> int | None:
+    return _proc_kb("/proc/meminfo", "MemAvailable:")
 
 
 def _vm_size() -> int | None:
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("VmSize:"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        return None
-    return None
+    return _proc_kb("/proc/self/status", "VmSize:")
 
 
 def _address_space_left() -> int | None:
