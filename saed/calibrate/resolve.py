@@ -228,7 +228,7 @@ def resolve_calibration(image, metadata: FileMetadata | None, *, scale_inv_nm_pe
     # 2. calibration file
     if calibration_file is not None:
         cal = calibration_from_options(voltage_kv=voltage_kv, calibration_file=calibration_file, center_px=center)
-        note_voltage(cal.voltage_kv, f"the calibration file's")
+        note_voltage(cal.voltage_kv, "the calibration file's")
         note_metadata_differs(cal.scale_inv_nm_per_px, "calibration file")
         mode_note()
         return ResolvedCalibration(cal, "calibration file", str(calibration_file), tuple(notes), tuple(warns), meta)

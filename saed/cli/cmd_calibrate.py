@@ -173,7 +173,11 @@ def run(args) -> int:
     image, meta = read_pattern(args.image, frame=args.frame)
     # What the file records fills what was not typed (voltage, binned pixel pitch, nominal camera length);
     # the calibration the other commands would have used is the one the measured scale is compared with.
-    prior = resolve_calibration(args.image, meta, voltage_kv=args.voltage, history_folder=args.history)
+    try:
+        prior = resolve_calibration(args.image, meta, voltage_kv=args.voltage, history_folder=args.history)
+    except InputError as exc:  # an image-mode file: the fix differs here (calibrate has no --scale)
+        raise InputError(str(exc).replace("if it is a pattern, give --scale or --calibration",
+                                          "record the standard's diffraction pattern")) from None
     voltage = prior.calibration.voltage_kv
     if args.pixel_pitch is None and meta.effective_pixel_pitch_um is not None:
         args.pixel_pitch = meta.effective_pixel_pitch_um
