@@ -186,3 +186,22 @@ def test_image_mode_file_is_refused_in_one_line(tmp_path, capsys):
     assert main(["index", str(p), "--phase", "Co-fcc"]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "real space" in err and "--scale or --calibration" in err
+
+
+def test_calibrate_takes_voltage_pitch_and_camera_length_from_the_file(tmp_path, capsys):
+    from saed.crystal import builtin_phase
+    from saed.synth.rings import ring_pattern
+
+    # worked example above: 200 kV, L = 100 mm, 7 um sensor pixels binned 2 = 14 um -> 0.055823 1/nm per px
+    pat = ring_pattern([builtin_phase("Au")], shape_px=(384, 384), scale_inv_nm_per_px=0.055823, rng=4)
+    p = tmp_path / "au.dm4"
+    w.write_dm(p, np.clip(pat.image, 0, 65535).astype(np.uint16), version=4, voltage_v=200000, mode="DIFFRACTION",
+               camera_length_mm=100, pixel_size_um=7, binning=2)
+    out = tmp_path / "c.json"
+    assert main(["calibrate", str(p), "--standard", "Au", "--no-history", "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert doc["voltage_kv"] == 200 and doc["pixel_pitch_um"] == 14        # binned pitch, from the file
+    assert doc["camera_length_mm"] == pytest.approx(100.0, rel=2e-3)
+    assert doc["calibration_source"] == "file metadata"                       # the nominal L, pitch and voltage
+    assert abs(doc["scale_change_from_source_pct"]) < 0.2
+    assert "nominal 100 mm" in capsys.readouterr().out
