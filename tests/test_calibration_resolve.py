@@ -158,6 +158,12 @@ def test_a_json_beside_the_image_that_is_no_calibration_is_passed_over(tmp_path)
         resolve_calibration(img, None)
 
 
+def test_an_implausible_scale_in_the_file_is_not_used(tmp_path):
+    meta = FileMetadata("DM4", (512, 512), scale_inv_nm_per_px=5.0, voltage_kv=200)   # 1/Å taken as 1/nm?
+    r = resolve_calibration("x.dm4", meta, history_folder=tmp_path)
+    assert r.source == "none (uncalibrated)" and any("outside the plausible" in x for x in r.warnings)
+
+
 def test_voltage_option_against_the_file(tmp_path, dm_pattern):
     meta = read_pattern(dm_pattern)[1]
     r = resolve_calibration(dm_pattern, meta, voltage_kv=300, history_folder=tmp_path)
@@ -170,6 +176,7 @@ def test_index_and_spots_say_where_the_calibration_came_from(tmp_path, dm_patter
     assert main(["spots", str(dm_pattern), "--json", str(out)]) == 0
     doc = json.loads(out.read_text())
     assert doc["calibration_source"] == "file metadata" and doc["scale_inv_nm_per_px"] == pytest.approx(0.05)
+    assert doc["file_metadata"]["format"] == "DM4" and doc["file_metadata"]["camera_length_mm"] == 120
     assert "(file metadata: DM4 scale 0.05 1/nm per px)" in capsys.readouterr().out
     assert main(["spots", str(dm_pattern), "--scale", "0.0006 1/Å", "--json", str(out)]) == 0
     doc = json.loads(out.read_text())

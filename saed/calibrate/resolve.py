@@ -26,7 +26,8 @@ import logging
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from saed.calibration import Calibration, calibration_from_options, read_calibration_file, CALIBRATION_FORMAT
+from saed.calibration import (CALIBRATION_FORMAT, PLAUSIBLE_SCALE_INV_NM_PER_PX, Calibration, calibration_from_options,
+                              read_calibration_file)
 from saed.errors import InputError
 from saed.image.metadata import FileMetadata
 
@@ -68,8 +69,10 @@ class ResolvedCalibration:
         return f"calibration  {cal.scale_inv_nm_per_px:.5g} 1/nm per px at {cal.voltage_kv:g} kV  ({where})"
 
     def to_json(self) -> dict:
+        """``calibration_source``, its detail and notes, and ``file_metadata`` (what the file says, saed units)."""
         return {"calibration_source": self.source, "calibration_source_detail": self.detail,
-                "calibration_notes": list(self.notes) + list(self.warnings)}
+                "calibration_notes": list(self.warnings) + list(self.notes),
+                "file_metadata": self.metadata.to_json() if self.metadata is not None else None}
 
 
 def sidecar_path(image_path) -> Path:
@@ -85,18 +88,26 @@ def _pct(a: float, b: float) -> float:
     return 100.0 * abs(a - b) / b
 
 
-def _metadata_scale(meta: FileMetadata | None) -> tuple[float | None, str]:
-    """The scale the file's metadata give, and how: stored reciprocal scale, else camera length + pitch."""
+def _metadata_scale(meta: FileMetadata | None, notes: list[str]) -> tuple[float | None, str]:
+    """The scale the file's metadata give, and how: stored reciprocal scale, else camera length + pitch.
+
+    A scale outside the plausible range (a unit mix-up in the file) is not used; `notes` says so.
+    """
     if meta is None:
         return None, ""
+    scale, how = None, ""
     if meta.scale_inv_nm_per_px is not None:
-        return meta.scale_inv_nm_per_px, f"{meta.format} scale {meta.scale_inv_nm_per_px:.5g} 1/nm per px"
-    nominal = meta.nominal_scale_inv_nm_per_px
-    if nominal is not None:
+        scale, how = meta.scale_inv_nm_per_px, f"{meta.format} scale {meta.scale_inv_nm_per_px:.5g} 1/nm per px"
+    elif meta.nominal_scale_inv_nm_per_px is not None:
         bin_text = f" binned {meta.binning}" if meta.binning and meta.binning > 1 else ""
-        return nominal, (f"{meta.format} L = {meta.camera_length_mm:g} mm, {meta.voltage_kv:g} kV, "
-                         f"{meta.pixel_pitch_um:g} um pixels{bin_text}")
-    return None, ""
+        scale, how = meta.nominal_scale_inv_nm_per_px, (f"{meta.format} L = {meta.camera_length_mm:g} mm, "
+                                                        f"{meta.voltage_kv:g} kV, {meta.pixel_pitch_um:g} um pixels{bin_text}")
+    lo, hi = PLAUSIBLE_SCALE_INV_NM_PER_PX
+    if scale is not None and not lo <= scale <= hi:
+        notes.append(f"the file's metadata give {scale:.4g} 1/nm per px ({how}), outside the plausible {lo:g}-{hi:g}; "
+                     "not used")
+        return None, ""
+    return scale, how
 
 
 def _refuse_real_space(image, meta: FileMetadata) -> None:
@@ -186,7 +197,7 @@ def resolve_calibration(image, metadata: FileMetadata | None, *, scale_inv_nm_pe
     meta = metadata
     notes: list[str] = []
     warns: list[str] = []
-    meta_scale, meta_how = _metadata_scale(meta)
+    meta_scale, meta_how = _metadata_scale(meta, warns)
     center = tuple(center_px) if center_px is not None else None
     if meta is not None:
         notes.extend(meta.notes)
