@@ -102,9 +102,9 @@ def add_calibration_options(p: argparse.ArgumentParser, *, center: bool = True) 
     g.add_argument("--scale", type=scale_value, metavar="S",
                    help="detector scale per pixel: 1/nm by default, or with a unit ('0.005 1/Å', '5e7 1/m', "
                         "'0.05 nm^-1'); overrides the image's sidecar, metadata and the calibration history")
-    g.add_argument("--camera-length", type=positive_float, metavar="MM", help="camera length in mm (needs --pixel-pitch)")
+    g.add_argument("--camera-length", type=positive_float, metavar="MM", help="camera length in mm (needs --pixel-pitch, or a pixel size in the image file)")
     g.add_argument("--pixel-pitch", type=positive_float, metavar="UM", help="detector pixel pitch in um")
-    g.add_argument("--voltage", type=positive_float, metavar="KV", help="accelerating voltage in kV (default 200)")
+    g.add_argument("--voltage", type=positive_float, metavar="KV", help="accelerating voltage in kV (default: the image file's, else 200)")
     g.add_argument("--calibration", metavar="CAL.json", help="calibration file written by 'saed calibrate'")
     g.add_argument("--uncalibrated", action="store_true",
                    help="use no calibration: ignore the image's sidecar NAME.json, its metadata and the calibration "
