@@ -556,17 +556,3 @@ def read_frame(path, frame=None) -> tuple[np.ndarray, FileMetadata]:
         meta = replace(meta, notes=meta.notes + (f"frame {frame if frame is not None else 0} of "
                                                  f"{sum(d.metadata.n_frames for d in datasets)} (choose with --frame)",))
     return arr, meta
-
-
-def describe(meta: FileMetadata) -> str:
-    """One line: format, size and the calibration-relevant values found."""
-    parts = [meta.format, f"{meta.frame_shape[1]}x{meta.frame_shape[0]} px"]
-    if meta.n_frames > 1:
-        parts.append(f"{meta.n_frames} frames")
-    if meta.voltage_kv:
-        parts.append(f"{meta.voltage_kv:g} kV")
-    if meta.camera_length_mm:
-        parts.append(f"L = {meta.camera_length_mm:g} mm")
-    if meta.binning and meta.binning > 1:
-        parts.append(f"binning {meta.binning}")
-    return ", ".join(parts)
