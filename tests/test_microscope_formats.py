@@ -277,7 +277,10 @@ def test_batch_takes_each_files_own_calibration(tmp_path, hcp_pattern, capsys):
     w.write_dm(d / "plain.dm3", image, version=3)                       # nothing calibrates this one
     np.save(d / "side.npy", image)
     (d / "side.json").write_text(json.dumps({"format": "saed-calibration-1", "scale_inv_nm_per_px": 0.05}))
+    w.write_dm(d / "scan.dm4", RNG.integers(0, 4000, (2, 3, 40, 48)).astype(np.uint16), version=4)
     inputs = discover_inputs([str(d)])
+    scan = next(s for s in inputs.sources if s.name.endswith("scan.dm4"))
+    assert (scan.n_frames, scan.scan_shape, scan.frame_shape) == (6, (2, 3), (40, 48))   # a scan, for the map
     args = argparse.Namespace(scale=None, camera_length=None, pixel_pitch=None, voltage=None, calibration=None,
                               center=None, uncalibrated=False)
     context_of, table_scale = _per_file_calibrations(args, inputs.sources, Calibration())
@@ -286,4 +289,4 @@ def test_batch_takes_each_files_own_calibration(tmp_path, hcp_pattern, capsys):
     assert by_name["side.npy"].scale_inv_nm_per_px == 0.05 and by_name["plain.dm3"] is None
     err = capsys.readouterr().err
     assert "stack.dm4: calibration  0.049842 1/nm per px at 200 kV  (file metadata: DM4 scale" in err
-    assert "1 from file metadata" in err and "1 from sidecar" in err and "1 from none (uncalibrated)" in err
+    assert "1 from file metadata" in err and "1 from sidecar" in err and "2 from none (uncalibrated)" in err

@@ -138,6 +138,19 @@ def inspect_source(name: str) -> FrameSource:
         if n == 0:
             raise ImageError(f"{name}: the .npy stack of shape {shape} holds no frames")
         return FrameSource(name, path, n, lead, tuple(shape[-2:]), fid, bool(lead))
+    from saed.image.microscope import MICROSCOPE_SUFFIXES
+
+    if Path(path).suffix.lower() in MICROSCOPE_SUFFIXES:  # its scan axes and frame size, from the header
+        from saed.image.io import read_metadata
+
+        meta = read_metadata(path)
+        n = count_frames(path)  # over every image of the file
+        if min(meta.frame_shape) < MIN_SIDE_PX:
+            raise ImageError(f"{name}: its {meta.frame_shape[0]}x{meta.frame_shape[1]} frames are smaller than "
+                             f"{MIN_SIDE_PX} pixels in a direction")
+        if n != meta.n_frames or len(meta.scan_shape) > 2:  # several images, or more than two scan axes
+            return FrameSource(name, path, n, (n,) if n > 1 else (), None, fid)
+        return FrameSource(name, path, n, meta.scan_shape, meta.frame_shape, fid)
     with warnings.catch_warnings():
         # Pillow warns (then raises) on corrupt metadata; the file is reported as skipped, the warning adds nothing
         warnings.simplefilter("ignore", UserWarning)
