@@ -87,6 +87,30 @@ def test_emd_instrument_maker_stack(tmp_path):
     np.testing.assert_array_equal(read_image(p, frame=2), STACK[2].astype(np.float32))
 
 
+def test_a_file_with_a_survey_image_and_a_pattern_opens_on_the_pattern(tmp_path):
+    import h5py
+
+    p = tmp_path / "two.emd"
+    survey, pattern = PIX, PIX[::-1].copy()
+    with h5py.File(p, "w") as f:   # Berkeley layout, two groups: a real-space survey image, then the pattern
+        f.attrs["version_major"], f.attrs["version_minor"] = 0, 2
+        for name, data, units, step in (("a_survey", survey, "[n_m]", 0.5), ("b_pattern", pattern, "[n_m^-1]", 0.05)):
+            g = f.create_group(f"data/{name}")
+            g.attrs["emd_group_type"] = 1
+            g.create_dataset("data", data=data.T)
+            for k, n in enumerate(data.T.shape):
+                d = g.create_dataset(f"dim{k + 1}", data=np.arange(n) * step)
+                d.attrs["name"], d.attrs["units"] = "xy"[k], units
+    assert count_frames(p) == 2
+    img, meta = read_pattern(p)
+    np.testing.assert_array_equal(img, pattern.astype(np.float32))
+    assert meta.image_name == "b_pattern" and meta.scale_inv_nm_per_px == pytest.approx(0.05)
+    assert "the file holds 2 images; this is 'b_pattern'" in meta.notes and "frame 1 of 2 (choose with --frame)" in meta.notes
+    img0, meta0 = read_pattern(p, frame=0)
+    np.testing.assert_array_equal(img0, survey.astype(np.float32))
+    assert meta0.mode == "image" and meta0.real_pixel_size_nm == pytest.approx(0.5)
+
+
 def test_ser_with_and_without_its_emi(tmp_path):
     p = tmp_path / "run_1.ser"
     w.write_ser(p, STACK, delta=5e7)

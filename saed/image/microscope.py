@@ -468,12 +468,23 @@ def _check_dtype(path, dtype) -> None:
         raise ImageError(f"{path}: data of type {dt} is not an intensity image")
 
 
+def _default_frame(datasets: list[_Dataset]) -> int:
+    """Without --frame: the first frame of the first image recorded in diffraction, else frame 0
+    (a file from a scanning session may hold a real-space survey image before the pattern)."""
+    start = 0
+    for d in datasets:
+        if d.metadata.mode == "diffraction":
+            return start
+        start += d.metadata.n_frames
+    return 0
+
+
 def _locate(path, datasets: list[_Dataset], frame) -> tuple[_Dataset, int]:
     total = sum(d.metadata.n_frames for d in datasets)
     if frame is None:
+        frame = _default_frame(datasets)
         if total > 1:
-            logger.info("%s holds %d frames; reading frame 0 (choose with --frame)", path, total)
-        return datasets[0], 0
+            logger.info("%s holds %d frames; reading frame %d (choose with --frame)", path, total, frame)
     f = int(frame)
     if not 0 <= f < total:
         what = "1 frame" if total == 1 else f"{total} frames (0-{total - 1})"
@@ -493,7 +504,8 @@ def read_frames(path, *, image: int | None = None):
     path : str or Path
         A file in one of :data:`MICROSCOPE_SUFFIXES` (or HDF5 / SER by content).
     image : int, optional
-        Which image of a file that holds several (default the first).
+        Which image of a file that holds several (default: the first recorded in diffraction, else the
+        first).
 
     Returns
     -------
@@ -508,7 +520,13 @@ def read_frames(path, *, image: int | None = None):
     """
     p = Path(path)
     datasets, _fmt = _open(p)
-    k = 0 if image is None else int(image)
+    if image is None:  # the image holding the default frame (the first recorded in diffraction)
+        k, start, first = 0, 0, _default_frame(datasets)
+        while start + datasets[k].metadata.n_frames <= first:
+            start += datasets[k].metadata.n_frames
+            k += 1
+    else:
+        k = int(image)
     if not 0 <= k < len(datasets):
         raise ImageError(f"{path}: image {k} does not exist; the file holds {len(datasets)}")
     return datasets[k].data, datasets[k].metadata
@@ -553,6 +571,7 @@ def read_frame(path, frame=None) -> tuple[np.ndarray, FileMetadata]:
     if arr.shape != (rows, cols):
         raise ImageError(f"{path}: the {fmt} frame has shape {arr.shape}, not the declared {rows}x{cols}")
     if meta.n_frames > 1 or len(datasets) > 1:
-        meta = replace(meta, notes=meta.notes + (f"frame {frame if frame is not None else 0} of "
-                                                 f"{sum(d.metadata.n_frames for d in datasets)} (choose with --frame)",))
+        shown = frame if frame is not None else _default_frame(datasets)
+        meta = replace(meta, notes=meta.notes + (f"frame {shown} of {sum(d.metadata.n_frames for d in datasets)} "
+                                                 "(choose with --frame)",))
     return arr, meta
