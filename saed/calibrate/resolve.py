@@ -60,13 +60,15 @@ class ResolvedCalibration:
     warnings: tuple[str, ...] = ()
     metadata: FileMetadata | None = None
 
-    def line(self) -> str:
-        """'calibration  0.04984 1/nm per px at 200 kV  (sidecar: p.json)'."""
+    def line(self, *, per_nm: float = 1.0, inverse_label: str = "1/nm") -> str:
+        """'calibration  0.04984 1/nm per px at 200 kV  (sidecar: p.json)'; `per_nm` and `inverse_label`
+        give the scale in another display unit (10 and '1/Å' for Ångström)."""
         cal = self.calibration
         where = f"{self.source}: {self.detail}" if self.detail else self.source
         if cal.scale_inv_nm_per_px is None:
             return f"calibration  none: uncalibrated, indexed by spacing ratios and angles at {cal.voltage_kv:g} kV ({where})"
-        return f"calibration  {cal.scale_inv_nm_per_px:.5g} 1/nm per px at {cal.voltage_kv:g} kV  ({where})"
+        return (f"calibration  {cal.scale_inv_nm_per_px / per_nm:.5g} {inverse_label} per px at {cal.voltage_kv:g} kV"
+                f"  ({where})")
 
     def to_json(self) -> dict:
         """``calibration_source``, its detail and notes, and ``file_metadata`` (what the file says, saed units)."""

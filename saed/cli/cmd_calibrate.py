@@ -239,7 +239,7 @@ def run(args) -> int:
         written.append(("JSON", args.json))
     from saed.cli.common import print_calibration
 
-    print_calibration(prior)
+    print_calibration(prior, units=units_from_args(args))
     _print(res, doc, args)
     for w in doc["warnings"]:
         print(f"WARNING: {w}")

@@ -105,7 +105,7 @@ def run(args) -> int:
     result = index_pattern(measured, tables, top=args.top, max_crystals=_max_crystals(args),
                            **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
-    print_calibration(resolved, file=out)
+    print_calibration(resolved, file=out, units=units_from_args(args))
     print(format_summary(result, image=args.image, frame=args.frame, top=args.top, **display_options(args, out)), file=out)
     if args.json:
         doc = result_json(result, image=args.image, frame=args.frame)

@@ -165,7 +165,7 @@ def run(args) -> int:
         write_json(args.json, doc)
         if args.json == "-":
             return 0
-    print_calibration(resolved)
+    print_calibration(resolved, units=units_from_args(args))
     _print(doc, ident, units_from_args(args))
     if args.plot:
         print(f"plot: {args.plot}")

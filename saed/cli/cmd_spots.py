@@ -207,7 +207,7 @@ def run(args) -> int:
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored, dpi=args.dpi,
                             title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),
                             units=units_from_args(args))
-    print_calibration(resolved, file=out)
+    print_calibration(resolved, file=out, units=units_from_args(args))
     print(_summary(mp, image=args.image, frame=args.frame, show_all=args.all,
                    **display_options(args, out)), file=out)
     if args.overlay:

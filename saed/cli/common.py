@@ -157,10 +157,14 @@ def read_and_calibrate(args):
     return image, resolve_args_calibration(args, args.image, meta)
 
 
-def print_calibration(resolved, *, file=None) -> None:
-    """The calibration line, with its source, then its warnings and notes."""
+def print_calibration(resolved, *, file=None, units=None) -> None:
+    """The calibration line, with its source (in `units`, a saed.crystal.notation.Units; default nm),
+    then its warnings and notes."""
     out = file if file is not None else sys.stdout
-    print(resolved.line(), file=out)
+    if units is None:
+        print(resolved.line(), file=out)
+    else:
+        print(resolved.line(per_nm=units.per_nm, inverse_label=units.inverse_label()), file=out)
     for w in resolved.warnings:
         print(f"  warning: {w}", file=out)
     for n in resolved.notes:
