@@ -314,3 +314,16 @@ def test_batch_takes_each_files_own_calibration(tmp_path, hcp_pattern, capsys):
     err = capsys.readouterr().err
     assert "stack.dm4: calibration  0.049842 1/nm per px at 200 kV  (file metadata: DM4 scale" in err
     assert "1 from file metadata" in err and "1 from sidecar" in err and "2 from none (uncalibrated)" in err
+
+
+def test_serve_indexes_a_dm4_from_the_acquisition_folder_with_its_own_calibration(tmp_path, hcp_pattern):
+    from saed.serve.engine import TableCache, index_file
+    from saed.serve.settings import PhaseBook, Settings
+
+    image, scale = hcp_pattern
+    p = tmp_path / "acq.dm4"
+    w.write_dm(p, image, version=4, scale=scale, units="1/nm", voltage_v=200000, mode="DIFFRACTION")
+    done = index_file(p, Settings(phases=("Co-hcp", "Co-fcc")), TableCache(PhaseBook()))
+    assert done.doc["calibration_source"] == "file metadata"
+    assert done.doc["scale_inv_nm_per_px"] == pytest.approx(TRUE_SCALE, rel=1e-3)
+    assert done.doc["solutions"][0]["phase"] == "Co-hcp"

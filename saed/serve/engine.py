@@ -222,19 +222,30 @@ def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, nam
     index); the holder's alpha-axis direction comes from `settings`. `max_g_inv_nm` fixes the tables'
     reach (``--max-g``); default :func:`max_g_for_pattern`.
     """
+    from saed.calibrate.resolve import resolve_calibration
+    from saed.image.io import read_pattern
     from saed.image.measure import inspect_file
     from saed.index import index_pattern
     from saed.report.index_json import result_json
 
-    cal = settings.calibration()
-    insp = inspect_file(path, cal)
+    settings.calibration()  # contradicting settings fail first
+    image, meta = read_pattern(path)
+    # the resolution order of every image command (docs/calibration.md): the page's settings, else the
+    # file's sidecar, its own metadata (a DM4 from the acquisition folder), the calibration history
+    resolved = resolve_calibration(path, meta, scale_inv_nm_per_px=settings.scale_inv_nm_per_px,
+                                   camera_length_mm=settings.camera_length_mm, pixel_pitch_um=settings.pixel_pitch_um,
+                                   voltage_kv=None if settings.calibration_file else settings.voltage_kv,
+                                   calibration_file=settings.calibration_file)
+    insp = inspect_file(path, resolved.calibration, image=image)
     measured = insp.measured
     reach = float(max_g_inv_nm) if max_g_inv_nm is not None else max_g_for_pattern(measured)
     tables = cache.get(settings.phases, measured.calibration.voltage_kv, reach)
     opts = {k: v for k, v in (options or {}).items() if v is not None}
     result = index_pattern(measured, tables, top=top, holder_alpha_axis_deg=settings.alpha_axis_deg, **opts)
     doc = result_json(result, image=name or str(path))
-    doc["calibration_source"] = describe_source(measured.calibration)
+    doc.update(resolved.to_json())  # calibration_source: one of the contract's values
+    if resolved.source == "option":
+        doc["calibration_source_detail"] = describe_source(settings.calibration())
     grey, shape, factor = display_grey(insp.image)
     view = view_of(result, factor=factor)
     view["display_shape"] = list(shape)
