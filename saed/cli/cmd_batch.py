@@ -222,6 +222,8 @@ def run(args) -> int:
     if args.check_every < 0:
         raise InputError(f"--check-every {args.check_every}: give 0 (never) or a positive number of frames")
     frame_shape = check_frame_sizes(inputs.sources)
+    # before the CSV is opened (--retry-errors rewrites it): a resume against other phases is refused untouched
+    check_run_record(out, phases, has_rows=_has_rows(out))
     context_of, table_scale = None, calibration.scale_inv_nm_per_px
     if not calibration.is_calibrated and args.calibration is None:
         context_of, table_scale = _per_file_calibrations(args, inputs.sources, calibration)
@@ -229,8 +231,6 @@ def run(args) -> int:
         _say(f"calibration: {calibration.scale_inv_nm_per_px:.5g} 1/nm per px for every file "
              f"({'calibration file: ' + args.calibration if args.calibration else 'option'})")
     mask, max_g = _frame_geometry(args, inputs.sources, table_scale)
-    # before the CSV is opened (--retry-errors rewrites it): a resume against other phases is refused untouched
-    check_run_record(out, phases, has_rows=_has_rows(out))
     with ResultsFile(out, retry_errors=args.retry_errors) as results:
         n_todo = count_todo(inputs.sources, results.done)
         n_files = len(inputs.sources)
