@@ -229,3 +229,21 @@ def test_a_third_pattern_is_named_when_the_recorded_zones_cannot_separate(tmp_pa
     a, b = third["tilt_deg"]
     beam = _holder(25.0, a, b) @ u @ (np.array(z, float) / np.linalg.norm(z))  # cubic: [uvw] Cartesian || uvw
     assert abs(abs(beam[2]) - 1) < 1e-3
+
+
+def test_sidecar_calibrations_are_read_without_options(tmp_path, capsys):
+    """The calibration order of every image command holds for grain too: each image's NAME.json sidecar
+    (saed's calibration-file format) is used when no option is given, and the JSON names the source."""
+    from saed.calibration import Calibration, write_calibration_file
+
+    paths, tilts, u0 = _series(tmp_path, [(1, 1, 2), (1, 1, 1)], seed=5)
+    for p in paths:
+        write_calibration_file(Calibration(SCALE, 200.0, alpha_axis_deg=25.0), p[:-4] + ".json")
+    out = tmp_path / "g.json"
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Co-fcc", "--phase", "Co-hcp", "--json", str(out)], capsys)
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(out.read_text())
+    assert [c["calibration_source"] for c in doc["calibrations"]] == ["sidecar", "sidecar"]
+    assert "(sidecar" in r.stdout
+    best = doc["solutions"][0]
+    assert best["phase"] == "Co-fcc" and _cubic_misorientation(np.array(best["orientation_matrix"]), u0) < 2.0

@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import argparse
 import math
 import sys
 
-from saed.cli.common import (add_image_arguments, add_matching_options, add_phase_option, finite_float,
+from saed.cli.common import (add_image_arguments, print_calibration, add_matching_options, add_phase_option, finite_float,
                              matching_options_from_args, phases_from_args, positive_float, write_json)
 from saed.errors import InputError
 
@@ -120,31 +121,34 @@ def _check(args):
 
 
 def _calibrations(args) -> list:
-    """One Calibration per image; refuse images of different scales that share one calibration."""
-    from saed.calibration import calibration_from_options
-    from saed.image.io import read_image_calibration
+    """Each image read and calibrated by saed's resolution order (saed.calibrate.resolve): an option, then
+    --calibration (one for all images, or one per image in order), then the image's sidecar, its metadata,
+    the calibration history. Returns [(image array, ResolvedCalibration)] in image order.
+
+    One calibration shared by all images is refused when the files themselves say they were recorded at
+    different detector scales (different camera lengths)."""
+    from saed.cli.common import resolve_args_calibration
+    from saed.image.io import read_metadata, read_pattern
 
     n = len(args.images)
     files = args.calibration or []
-    if len(files) == n and n > 1:
-        cals = [calibration_from_options(calibration_file=f, voltage_kv=args.voltage) for f in files]
-        return cals
-    cal = calibration_from_options(scale_inv_nm_per_px=args.scale, camera_length_mm=args.camera_length,
-                                   pixel_pitch_um=args.pixel_pitch, voltage_kv=args.voltage,
-                                   calibration_file=files[0] if files else None)
-    own = []
-    for path in args.images:
-        try:
-            own.append(read_image_calibration(path))
-        except InputError:
-            own.append(None)
-    known = [(p, s) for p, s in zip(args.images, own) if s is not None]
-    for p, s in known[1:]:
-        p0, s0 = known[0]
-        if abs(s / s0 - 1.0) > 0.01:
-            raise InputError(f"{p0} and {p} carry different detector scales ({s0:.5g} and {s:.5g} 1/nm per px): they "
-                             "were recorded at different camera lengths; give one --calibration per image, in order")
-    return [cal] * n
+    if len(files) < 2 and (files or args.scale is not None or args.camera_length is not None):
+        # one calibration for every image: the files must not say they were recorded at different scales
+        known = [(p, m.scale_inv_nm_per_px) for p, m in ((p, read_metadata(p)) for p in args.images)
+                 if m.scale_inv_nm_per_px is not None]
+        for p, s in known[1:]:
+            p0, s0 = known[0]
+            if abs(s / s0 - 1.0) > 0.01:
+                raise InputError(f"{p0} and {p} carry different detector scales ({s0:.5g} and {s:.5g} 1/nm per px): "
+                                 "they were recorded at different camera lengths; give one --calibration per image, "
+                                 "in order")
+    out = []
+    for k, path in enumerate(args.images):
+        image, meta = read_pattern(path, frame=args.frame)
+        own = files[k] if len(files) == n and n > 1 else (files[0] if files else None)
+        per_image = argparse.Namespace(**{**vars(args), "calibration": own})
+        out.append((image, resolve_args_calibration(per_image, path, meta)))
+    return out
 
 
 def run(args) -> int:
@@ -156,11 +160,12 @@ def run(args) -> int:
     from saed.report.grain_summary import format_grain_summary
 
     tilts, ranges = _check(args)
-    cals = _calibrations(args)
+    read = _calibrations(args)
     phases = phases_from_args(args)
     opts = matching_options_from_args(args)
     given_axis = opts.pop("holder_alpha_axis_deg")
-    insps = [inspect_file(path, cal, frame=args.frame, mask_path=args.mask) for path, cal in zip(args.images, cals)]
+    insps = [inspect_file(path, r.calibration, frame=args.frame, mask_path=args.mask, image=image)
+             for path, (image, r) in zip(args.images, read)]
     volts = {round(i.measured.calibration.voltage_kv, 6) for i in insps}
     if len(volts) > 1:
         raise InputError(f"the calibrations give different voltages ({', '.join(f'{v:g}' for v in sorted(volts))} kV): "
@@ -190,9 +195,13 @@ def run(args) -> int:
                          tolerance_deg=args.holder_tol, holder_range_deg=ranges,
                          voltage_kv=insps[0].measured.calibration.voltage_kv)
     out = sys.stderr if args.json == "-" else sys.stdout
+    for path, (_, r) in zip(args.images, read):
+        print(f"{path}:", file=out)
+        print_calibration(r, file=out)
     print(format_grain_summary(result, alpha_axis_note=note), file=out)
     if args.json:
         doc = grain_json(result)
+        doc["calibrations"] = [{"image": str(path), **r.to_json()} for path, (_, r) in zip(args.images, read)]
         if note:
             doc["notes"] = [note]
         write_json(args.json, doc)
