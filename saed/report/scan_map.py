@@ -155,7 +155,7 @@ def _scale_bar(ax, shape, step_nm: float | None):
     else:
         nice = 10 ** math.floor(math.log10(target))
         cells = nice * max(m for m in (1, 2, 5) if m * nice <= target)
-        label = f"{cells:g} steps"
+        label = f"{cells:g} step" + ("" if cells == 1 else "s")
     x0, y0 = -0.5 + 0.04 * nx, ny - 0.5 - 0.05 * ny
     ax.plot([x0, x0 + cells], [y0, y0], color="white", lw=5, solid_capstyle="butt")
     ax.plot([x0, x0 + cells], [y0, y0], color="black", lw=2.5, solid_capstyle="butt")
