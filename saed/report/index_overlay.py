@@ -121,7 +121,7 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
     fig.text(0.01, 1.0 - 0.45 / fh, line2[:150 * n], fontsize=8.5, va="top")
     if best is not None:
         legend = SCORE_SHORT + (f"   {word}: {CONFIDENCE_MEANING[word]}" if word in CONFIDENCE_MEANING else "")
-        fig.text(0.01, 1.0 - 0.66 / fh, legend if len(legend) <= 170 else SCORE_SHORT, fontsize=7.5, va="top",
+        fig.text(0.01, 1.0 - 0.66 / fh, legend if len(legend) <= 140 * n else SCORE_SHORT, fontsize=7.5, va="top",
                  color="#444444")
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)
