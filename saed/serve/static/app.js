@@ -141,10 +141,15 @@ $("grains").addEventListener("click", async (ev) => {
     $("grainanswer").textContent = `grain ${name}: ${r.body.error || "HTTP " + r.status}`; return;
   }
   const d = r.body, best = (d.solutions || []).find((s) => s.joint);
-  $("grainanswer").className = "answer small " + (best ? "st-ok" : "st-no-solution");
+  // what the series could not decide stays in the headline: never a bare answer when a look-alike remains
+  const open = best ? (d.lookalikes || []).filter((lk) => lk.relation === "undecided") : [];
+  const others = open.filter((lk) => lk.phase !== best.phase).map((lk) => lk.phase);
+  const doubt = (others.length ? `; ${others.join(", ")} not ruled out` : "")
+    + (open.some((lk) => lk.phase === best.phase) ? "; 180\u00b0 sense not settled" : "");
+  $("grainanswer").className = "answer small " + (best && !open.length ? "st-ok" : "st-no-solution");
   $("grainanswer").textContent = best
-    ? `grain ${name}: ${best.phase}, Euler (Bunge) ${best.euler_bunge_deg.map((v) => fmt(v, 1)).join(", ")}°`
-    : `grain ${name}: no joint solution – ${d.message}`;
+    ? `grain ${name}: ${best.phase}, Euler (Bunge) ${best.euler_bunge_deg.map((v) => fmt(v, 1)).join(", ")}\u00b0${doubt}` + (open.length ? " (see below)" : "")
+    : `grain ${name}: no joint solution \u2013 ${d.message}`;
   $("grainresult").textContent = d.summary; $("grainresult").hidden = false;
 });
 
