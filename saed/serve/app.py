@@ -182,6 +182,10 @@ def create_app(service: Service, *, hosts, token: str | None, max_upload_mb: flo
             doc = await run_in_threadpool(grain_index, service, request.path_params["grain"])
         except SaedError as exc:
             return _bad(str(exc))
+        except Exception as exc:  # noqa: BLE001 - the server outlives any one request; the page says what broke
+            logger.exception("joint indexing of grain %r failed", request.path_params["grain"])
+            return _bad(f"internal error while indexing the grain jointly ({exc.__class__.__name__}: {exc}); "
+                        "please report it with these patterns", 500)
         return JSONResponse(doc, headers={"cache-control": "no-store"})
 
     async def api_save(request: Request):

@@ -10,7 +10,7 @@ calibration, else +x with a note), on the server's warm tables; then
 
 from __future__ import annotations
 
-from saed.errors import InputError
+from saed.errors import InputError, SaedError
 
 __all__ = ["grain_index"]
 
@@ -24,6 +24,7 @@ def grain_index(service, grain: str) -> dict:
     """The ``saed grain`` document of the patterns marked `grain`; InputError (one line) on bad input."""
     from saed.index import index_pattern
     from saed.index.grain import GrainPattern, solve_grain
+    from saed.index.grain_inputs import series_alpha_axes
     from saed.report.grain_json import grain_json
     from saed.report.grain_summary import format_grain_summary
     from saed.serve.engine import max_g_for_pattern, measure_file
@@ -51,25 +52,10 @@ def grain_index(service, grain: str) -> dict:
         for r in recs:
             try:
                 insps.append(measure_file(r.path, settings)[0])
-            except InputError as exc:
+            except SaedError as exc:  # the page knows the pattern by name, not by its server path
                 raise InputError(str(exc).replace(str(r.path), r.image)) from None
-        volts = {round(i.measured.calibration.voltage_kv, 6) for i in insps}
-        if len(volts) > 1:
-            raise InputError(f"the patterns of grain {grain!r} have different voltages "
-                             f"({', '.join(f'{v:g}' for v in sorted(volts))} kV): a grain series is recorded at one")
-        calibrated = [i.measured.calibration.is_calibrated for i in insps]
-        if any(calibrated) and not all(calibrated):
-            raise InputError(f"some patterns of grain {grain!r} are calibrated and others not: calibrate every one")
-        axes, missing = [], []
-        for r, i in zip(recs, insps):
-            a = settings.alpha_axis_deg if settings.alpha_axis_deg is not None else i.measured.calibration.alpha_axis_deg
-            if a is None:
-                missing.append(r.image)
-            axes.append(0.0 if a is None else float(a))
-        note = ""
-        if missing:
-            note = (f"alpha axis: not known for {', '.join(missing)}; taken along +x (0 deg). Set the holder alpha-axis "
-                    "direction in the settings (a wrong axis leaves no joint solution)")
+        axes, note = series_alpha_axes([r.image for r in recs], [i.measured for i in insps], settings.alpha_axis_deg,
+                                       "Set the holder alpha-axis direction in the page's settings")
         voltage = insps[0].measured.calibration.voltage_kv
         reach = (service.max_g_inv_nm if service.max_g_inv_nm is not None
                  else max(max_g_for_pattern(i.measured) for i in insps))
