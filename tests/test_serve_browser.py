@@ -182,10 +182,11 @@ def test_marking_two_patterns_and_indexing_the_grain_jointly(page, tmp_path):
             el.send_keys(value)
         driver.find_element("id", "mark").click()
         wait_for(lambda: "marked as grain GB" in _text(driver, "grainnote"), what="the grain mark")
-    button = wait_for(lambda: [b for b in driver.find_elements("css selector", "#grains button[data-grain='GB']")
-                               if b.is_enabled()], what="the joint-indexing button")[0]
-    assert button.text == "index this grain jointly"
-    button.click()
+    # found and clicked in one script call: the grains table is redrawn while the page follows the results
+    clicked = wait_for(lambda: driver.execute_script(
+        "const b = document.querySelector(\"#grains button[data-grain='GB']\");"
+        "if (!b || b.disabled) return ''; const t = b.textContent; b.click(); return t;"), what="the joint-indexing button")
+    assert clicked == "index this grain jointly"
     wait_for(lambda: "Euler" in _text(driver, "grainanswer") or "no joint" in _text(driver, "grainanswer"),
              what="the joint answer")
     headline = _text(driver, "grainanswer")
