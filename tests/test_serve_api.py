@@ -8,11 +8,15 @@ from __future__ import annotations
 
 import hashlib
 import http.client
+import itertools
 import json
+import math
 import os
 import shutil
+import urllib.parse
 
 import httpx
+import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -20,7 +24,7 @@ from hypothesis import strategies as st
 from saed.cli import main
 from saed.serve.settings import FILE_NAME, PhaseBook, load_settings
 
-from serve_helpers import example, settings_dir, start_server, wait_for
+from serve_helpers import example, grain_pair, holder_matrix, settings_dir, start_server, wait_for
 
 
 @pytest.fixture(scope="module")
@@ -355,6 +359,79 @@ def test_grain_marks_and_settings_are_remembered(served):
              what="tables of the three new phases")
     client.post("/api/settings", data={"phase": ["Co-fcc", "Co-hcp", "Ni", "Cr"], "scale": str(side["scale_inv_nm_per_px"]),
                                        "camera_length": "", "pixel_pitch": ""})
+
+
+# ---------------------------------------------------------------- joint indexing of a marked grain
+# the 24 proper rotations of a cubic crystal: signed permutation matrices of determinant +1
+# (International Tables vol. A, point group 432)
+CUBIC = [np.array(p) * np.array(s)[:, None] for p in itertools.permutations(np.eye(3))
+         for s in itertools.product((1, -1), repeat=3)]
+CUBIC = [m for m in CUBIC if round(np.linalg.det(m)) == 1]
+
+
+def _cubic_misorientation_deg(u, v):
+    return min(math.degrees(math.acos(max(-1, min(1, (np.trace(u @ c @ v.T) - 1) / 2)))) for c in CUBIC)
+
+
+def test_grain_index_of_two_marked_patterns_gives_the_zones_at_their_readings(served, tmp_path):
+    """Co-fcc [011] at (5, -4) deg, then tilted to [112] (30 deg away: cos = 3 / sqrt(2 * 6)): one orientation."""
+    _, service, client, _, _ = served
+    scale = service.settings.scale_inv_nm_per_px
+    paths, tilts, u0 = grain_pair(tmp_path, [(0, 1, 1), (1, 1, 2)], axis_deg=25.0, scale=scale)
+    assert client.post("/api/settings", data={"alpha_axis": "25"}).status_code == 200
+    try:
+        ids = []
+        for p, (a, b) in zip(paths, tilts):
+            rid = _upload(client, p).json()["id"]
+            assert client.post(f"/api/grain/{rid}", data={"grain": "J1", "alpha": f"{a}", "beta": f"{b}"}).status_code == 200
+            ids.append(rid)
+        r = client.post("/api/grain-index/J1")
+    finally:
+        client.post("/api/settings", data={"alpha_axis": ""})
+    assert r.status_code == 200, r.text
+    doc = r.json()
+    assert doc["solutions"], doc["summary"]
+    best = doc["solutions"][0]
+    assert best["phase"] == "Co-fcc" and best["joint"], doc["summary"]
+    assert [p["image"] for p in best["patterns"]] == [p.name for p in paths]  # oldest mark first
+    assert doc["inputs"][0]["alpha_axis_deg"] == pytest.approx(25.0)
+    u = np.array(best["orientation_matrix"])
+    assert _cubic_misorientation_deg(u, u0) < 2.0
+    # the zone on the beam at each reading, from the test's own holder matrix: U_i^T z in crystal axes
+    for p, (a, b) in zip(best["patterns"], tilts):
+        beam = (holder_matrix(25.0, a, b) @ u).T @ [0, 0, 1.0]
+        z = np.array(p["zone_axis"], float)
+        assert math.degrees(math.acos(min(1.0, abs(beam @ z) / np.linalg.norm(z)))) < 2.0, (p, beam)
+        assert p["misfit_deg"] < 2.0
+    assert sorted(map(abs, best["patterns"][0]["zone_axis"])) == [0, 1, 1]
+    assert sorted(map(abs, best["patterns"][1]["zone_axis"])) == [1, 1, 2]
+    assert "Co-fcc" in doc["summary"] and doc["grain"] == "J1" and doc["patterns_disagreeing"] == []
+    # still marked: a third pattern that failed makes the grain refuse, with one line
+    bad = client.post("/api/index", files={"file": ("broken.tif", b"II*\x00garbage", "image/tiff")})
+    assert bad.status_code == 400
+    assert client.post(f"/api/grain/{bad.json()['id']}", data={"grain": "J1", "alpha": "1", "beta": "1"}).status_code == 200
+    r = client.post("/api/grain-index/J1")
+    assert r.status_code == 400 and "broken.tif" in r.json()["error"] and "\n" not in r.json()["error"]
+
+
+def test_grain_index_refuses_unknown_and_single_pattern_grains(served):
+    _, _, client, _, _ = served
+    path, _ = example("grain_A_fcc")
+    rid = _upload(client, path).json()["id"]
+    assert client.post(f"/api/grain/{rid}", data={"grain": "lonely", "alpha": "3", "beta": "0"}).status_code == 200
+    r = client.post("/api/grain-index/lonely")
+    assert r.status_code == 400 and "at least two" in r.json()["error"]
+    r = client.post("/api/grain-index/G-nobody")
+    assert r.status_code == 400 and "no pattern is marked" in r.json()["error"]
+    assert client.get("/api/grain-index/lonely").status_code == 405
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(name=st.text(min_size=1, max_size=80))
+def test_hostile_grain_names_never_500(served, name):
+    _, _, client, _, _ = served
+    r = client.post("/api/grain-index/" + urllib.parse.quote(name, safe=""))
+    assert r.status_code in (400, 404, 405) and "\n" not in r.json()["error"]
 
 
 # ---------------------------------------------------------------- pieces without a server

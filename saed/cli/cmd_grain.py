@@ -156,6 +156,7 @@ def run(args) -> int:
     from saed.image.measure import inspect_file
     from saed.index import index_pattern, prepare_phases
     from saed.index.grain import GrainPattern, solve_grain
+    from saed.index.grain_inputs import series_alpha_axes
     from saed.report.grain_json import grain_json
     from saed.report.grain_summary import format_grain_summary
 
@@ -166,24 +167,8 @@ def run(args) -> int:
     given_axis = opts.pop("holder_alpha_axis_deg")
     insps = [inspect_file(path, r.calibration, frame=args.frame, mask_path=args.mask, image=image)
              for path, (image, r) in zip(args.images, read)]
-    volts = {round(i.measured.calibration.voltage_kv, 6) for i in insps}
-    if len(volts) > 1:
-        raise InputError(f"the calibrations give different voltages ({', '.join(f'{v:g}' for v in sorted(volts))} kV): "
-                         "a grain series is recorded at one voltage")
-    calibrated = [i.measured.calibration.is_calibrated for i in insps]
-    if any(calibrated) and not all(calibrated):
-        raise InputError("some images are calibrated and others not: give a calibration for every image")
-    axes, missing = [], []
-    for path, i in zip(args.images, insps):
-        a = given_axis if given_axis is not None else i.measured.calibration.alpha_axis_deg
-        if a is None:
-            missing.append(path)
-            a = 0.0
-        axes.append(float(a))
-    note = ""
-    if missing:
-        note = (f"alpha axis: not known for {', '.join(missing)}; taken along +x (0 deg). Give --alpha-axis DEG or "
-                "store it with 'saed calibrate --alpha-axis' (a wrong axis leaves no joint solution)")
+    axes, note = series_alpha_axes(args.images, [i.measured for i in insps], given_axis,
+                                   "Give --alpha-axis DEG or store it with 'saed calibrate --alpha-axis'")
     tables = prepare_phases(phases, voltage_kv=insps[0].measured.calibration.voltage_kv,
                             max_g_inv_nm=max((_max_g(args, i.measured) or 0.0) for i in insps) or None)
     pats = []

@@ -8,6 +8,7 @@ Layers (each module one job):
   indexing one file into a :class:`~saed.serve.records.Record`;
 * :mod:`saed.serve.records` - the thread-safe list of results the page shows, and grain marks;
 * :mod:`saed.serve.watch` - the watched (acquisition) folder: each new file once completely written;
+* :mod:`saed.serve.grain_index` - the joint indexing of the patterns marked as one grain (``saed grain``'s solver);
 * :mod:`saed.serve.saving` - the HTML report and JSON beside the pattern, never overwriting;
 * :mod:`saed.serve.service` - the state of one server and the work behind each route;
 * :mod:`saed.serve.guard` - the request guards: Host header, same origin, token, upload size;

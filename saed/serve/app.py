@@ -12,6 +12,8 @@ Routes (docs/contract.md, section ``saed serve``):
   bytes, shape in ``X-Saed-Shape``, rows x cols);
 * ``GET /api/status``, ``POST /api/settings`` tables, settings (remembered), watch folder;
 * ``POST /api/grain/{id}`` mark a pattern as one grain with its holder readings; ``GET /api/grains``;
+* ``POST /api/grain-index/{grain}`` index the patterns marked as one grain jointly (the solver of
+  ``saed grain``); returns the ``saed grain`` JSON with its summary text;
 * ``POST /api/save/{id}`` save the HTML report and JSON beside the pattern;
 * ``GET /files/{name}`` a report saved by this server (only those, only inside the watched folder
   or the uploads).
@@ -173,6 +175,19 @@ def create_app(service: Service, *, hosts, token: str | None, max_upload_mb: flo
     async def api_grains(request: Request):
         return JSONResponse(service.grains(), headers={"cache-control": "no-store"})
 
+    async def api_grain_index(request: Request):
+        from saed.serve.grain_index import grain_index
+
+        try:
+            doc = await run_in_threadpool(grain_index, service, request.path_params["grain"])
+        except SaedError as exc:
+            return _bad(str(exc))
+        except Exception as exc:  # noqa: BLE001 - the server outlives any one request; the page says what broke
+            logger.exception("joint indexing of grain %r failed", request.path_params["grain"])
+            return _bad(f"internal error while indexing the grain jointly ({exc.__class__.__name__}: {exc}); "
+                        "please report it with these patterns", 500)
+        return JSONResponse(doc, headers={"cache-control": "no-store"})
+
     async def api_save(request: Request):
         try:
             paths = await run_in_threadpool(service.save_report, request.path_params["rid"])
@@ -215,6 +230,7 @@ def create_app(service: Service, *, hosts, token: str | None, max_upload_mb: flo
         Route("/api/settings", api_settings, methods=["POST"]),
         Route("/api/grain/{rid:str}", api_grain, methods=["POST"]),
         Route("/api/grains", api_grains),
+        Route("/api/grain-index/{grain:str}", api_grain_index, methods=["POST"]),
         Route("/api/save/{rid:str}", api_save, methods=["POST"]),
         Route("/files/{kind:str}/{rel:path}", files),
         Mount("/static", StaticFiles(packages=[("saed.serve", "static")]), name="static"),

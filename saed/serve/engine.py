@@ -26,7 +26,8 @@ from saed.errors import InputError
 from saed.index.tables import DEFAULT_MAX_G_INV_NM, IndexTables, prepare_phases
 from saed.serve.settings import PhaseBook, Settings
 
-__all__ = ["TableCache", "Indexed", "index_file", "view_of", "display_grey", "max_g_for_pattern", "DISPLAY_MAX_SIDE"]
+__all__ = ["TableCache", "Indexed", "index_file", "measure_file", "view_of", "display_grey", "max_g_for_pattern",
+           "DISPLAY_MAX_SIDE"]
 
 logger = logging.getLogger(__name__)
 
@@ -214,19 +215,14 @@ def describe_source(cal) -> str:
     return src or "options"
 
 
-def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, name: str = "",
-               options: dict | None = None, max_g_inv_nm: float | None = None) -> Indexed:
-    """Read and index one file with warm tables; raises SaedError (one line) on bad input.
+def measure_file(path, settings: Settings):
+    """Read one file and measure its pattern with the page's calibration: (inspection, resolved calibration).
 
-    `options`: further keyword options of :func:`saed.index.index_pattern` (tolerances, largest zone
-    index); the holder's alpha-axis direction comes from `settings`. `max_g_inv_nm` fixes the tables'
-    reach (``--max-g``); default :func:`max_g_for_pattern`.
+    Raises SaedError (one line) on bad input.
     """
     from saed.calibrate.resolve import resolve_calibration
     from saed.image.io import read_pattern
     from saed.image.measure import inspect_file
-    from saed.index import index_pattern
-    from saed.report.index_json import result_json
 
     settings.calibration()  # contradicting settings fail first
     image, meta = read_pattern(path)
@@ -236,7 +232,21 @@ def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, nam
                                    camera_length_mm=settings.camera_length_mm, pixel_pitch_um=settings.pixel_pitch_um,
                                    voltage_kv=None if settings.calibration_file else settings.voltage_kv,
                                    calibration_file=settings.calibration_file)
-    insp = inspect_file(path, resolved.calibration, image=image)
+    return inspect_file(path, resolved.calibration, image=image), resolved
+
+
+def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, name: str = "",
+               options: dict | None = None, max_g_inv_nm: float | None = None) -> Indexed:
+    """Read and index one file with warm tables; raises SaedError (one line) on bad input.
+
+    `options`: further keyword options of :func:`saed.index.index_pattern` (tolerances, largest zone
+    index); the holder's alpha-axis direction comes from `settings`. `max_g_inv_nm` fixes the tables'
+    reach (``--max-g``); default :func:`max_g_for_pattern`.
+    """
+    from saed.index import index_pattern
+    from saed.report.index_json import result_json
+
+    insp, resolved = measure_file(path, settings)
     measured = insp.measured
     reach = float(max_g_inv_nm) if max_g_inv_nm is not None else max_g_for_pattern(measured)
     tables = cache.get(settings.phases, measured.calibration.voltage_kv, reach)

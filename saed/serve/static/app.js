@@ -101,6 +101,7 @@ function showRows(rows) {
     return `<tr data-id="${esc(r.id)}" class="row-${esc(r.status)}${state.current === r.id ? " on" : ""}"><td class="l">${esc(r.image)}${r.origin === "upload" ? ' <span class="sub">(opened)</span>' : ""}</td>` +
       `<td class="l st-${esc(r.status)}">${esc(r.status)}</td>${ans}<td>${t}</td><td class="l">${g}</td></tr>`;
   }).join("");
+  showGrains(rows);
   // follow: show the newest finished pattern as soon as it is done
   const newest = rows.find((r) => r.status !== "indexing" && r.status !== "waiting");
   const cur = rows.find((r) => r.id === state.current);
@@ -114,6 +115,43 @@ function showRows(rows) {
   if (cur && state.data && state.data.id === cur.id && state.data.status !== cur.status) show(cur.id);
   else if (cur) showMeta(cur);
 }
+
+// ------------------------------------------------------------------ grains: joint indexing (saed grain)
+function showGrains(rows) {
+  const by = new Map();
+  for (const r of rows.slice().reverse()) if (r.grain) { if (!by.has(r.grain.grain)) by.set(r.grain.grain, []); by.get(r.grain.grain).push(r); }
+  const body = $("grains").tBodies[0];
+  const html = !by.size ? '<tr><td class="l sub" colspan="3">none marked yet: open a pattern and mark it under "One grain"</td></tr>' : [...by.entries()].map(([name, rs]) => {
+    const pats = rs.map((r) => `${esc(r.image)} (${fmt(r.grain.alpha_deg, 1)}, ${fmt(r.grain.beta_deg, 1)})`).join("; ");
+    const why = rs.length < 2 ? "mark a second pattern of this grain first" : "index the marked patterns together to one phase and orientation";
+    return `<tr><td class="l">${esc(name)}</td><td class="l">${pats}</td><td><button type="button" class="jointbtn" data-grain="${esc(name)}" title="${why}"${rs.length < 2 ? " disabled" : ""}>index this grain jointly</button></td></tr>`;
+  }).join("");
+  if (body.innerHTML !== html) body.innerHTML = html;
+}
+
+$("grains").addEventListener("click", async (ev) => {
+  const b = ev.target.closest("button[data-grain]");
+  if (!b || b.disabled) return;
+  const name = b.dataset.grain;
+  $("grainanswer").hidden = false; $("grainanswer").className = "answer small";
+  $("grainanswer").textContent = `indexing grain ${name} jointly…`; $("grainresult").hidden = true;
+  const r = await api(`/api/grain-index/${encodeURIComponent(name)}`, { method: "POST" });
+  if (!r.ok) {
+    $("grainanswer").className = "answer small st-error";
+    $("grainanswer").textContent = `grain ${name}: ${r.body.error || "HTTP " + r.status}`; return;
+  }
+  const d = r.body, best = (d.solutions || []).find((s) => s.joint);
+  // what the series could not decide stays in the headline: never a bare answer when a look-alike remains
+  const open = best ? (d.lookalikes || []).filter((lk) => lk.relation === "undecided") : [];
+  const others = open.filter((lk) => lk.phase !== best.phase).map((lk) => lk.phase);
+  const doubt = (others.length ? `; ${others.join(", ")} not ruled out` : "")
+    + (open.some((lk) => lk.phase === best.phase) ? "; 180\u00b0 sense not settled" : "");
+  $("grainanswer").className = "answer small " + (best && !open.length ? "st-ok" : "st-no-solution");
+  $("grainanswer").textContent = best
+    ? `grain ${name}: ${best.phase}, Euler (Bunge) ${best.euler_bunge_deg.map((v) => fmt(v, 1)).join(", ")}\u00b0${doubt}` + (open.length ? " (see below)" : "")
+    : `grain ${name}: no joint solution \u2013 ${d.message}`;
+  $("grainresult").textContent = d.summary; $("grainresult").hidden = false;
+});
 
 $("history").addEventListener("click", (ev) => {
   const tr = ev.target.closest("tr[data-id]");
