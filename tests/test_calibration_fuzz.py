@@ -16,7 +16,7 @@ import tempfile
 from pathlib import Path
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from saed.calibration import read_calibration_file
@@ -99,6 +99,8 @@ COMMANDS = {
 
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(data=mangled_file(), command=st.sampled_from(sorted(COMMANDS)))
+# a record separator quoted from the file into the message once split it into two lines
+@example(data=json.dumps({**GOOD, "center_px": "\x1e"}).encode(), command="index")
 def test_every_command_reading_a_calibration_gives_a_result_or_one_line(data, command, capsys):
     with tempfile.TemporaryDirectory() as d:
         cal = Path(d) / "cal.json"

@@ -26,7 +26,17 @@ class _Parser(argparse.ArgumentParser):
     """An ArgumentParser whose errors are one line and exit status 2."""
 
     def error(self, message):  # noqa: D401 - argparse API
-        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+        self.exit(2, f"{self.prog}: error: {one_line(message)} (see {self.prog} --help)\n")
+
+
+def one_line(text: str) -> str:
+    r"""`text` with every non-printable character escaped (a value quoted from a file may hold a line
+    break, a record separator or a control code): an error message stays one line.
+
+    >>> one_line("center_px 'a\x1eb' is not a number")
+    "center_px 'a\\x1eb' is not a number"
+    """
+    return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
 
 
 def _command_names() -> list[str]:
@@ -128,7 +138,7 @@ def main(argv: list[str] | None = None) -> int:
     except SaedError as exc:
         if args.debug:
             raise
-        print(f"saed {args.command}: error: {exc}", file=sys.stderr)
+        print(f"saed {args.command}: error: {one_line(str(exc))}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print(f"saed {args.command}: interrupted", file=sys.stderr)
@@ -144,7 +154,7 @@ def main(argv: list[str] | None = None) -> int:
             f"cannot write the output ({exc.strerror or exc})"
         if _stdout_broken():
             _silence_stdout()
-        print(f"saed {args.command}: error: {what}", file=sys.stderr)
+        print(f"saed {args.command}: error: {one_line(what)}", file=sys.stderr)
         return 2
     except MemoryError:
         if args.debug:
