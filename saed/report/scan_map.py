@@ -19,6 +19,7 @@ import math
 import numpy as np
 
 from saed.batch.scan import ERROR, NO_SOLUTION, NOT_DONE, ScanMap, Summary
+from saed.crystal.notation import zone_text
 
 __all__ = ["render_scan_map", "format_summary", "summary_csv", "PHASE_COLOURS", "PHASE_HATCHES",
            "MAX_FAMILIES_SHOWN"]
@@ -74,12 +75,10 @@ def _tex_escape(text: str) -> str:
 
 
 def family_mathtext(family) -> str:
-    """``<2-1-10>`` as mathtext with overbars: ``$\\langle 2\\bar{1}\\bar{1}0\\rangle$``."""
+    """``<2-1-10>`` as mathtext with overbars (saed.crystal.notation, as every picture writes them)."""
     if family is None:
         return "(zone ?)"
-    sep = r"\," if any(abs(int(v)) >= 10 for v in family) else ""
-    parts = [rf"\bar{{{-int(v)}}}" if int(v) < 0 else str(int(v)) for v in family]
-    return r"$\langle " + sep.join(parts) + r"\rangle$"
+    return zone_text(family, style="mathtext", family=True)
 
 
 def _phase_style(i: int):
@@ -177,7 +176,7 @@ def _ipf_key(fig, spec, phase, name: str):
     ax.scatter(xy[:, 0], xy[:, 1], c=rgb, s=9, marker="s", linewidths=0)
     ax.set_aspect("equal")
     for (x, y), lab in zip(corners, labels):
-        ax.annotate(family_mathtext(_parse_label(lab)).replace(r"\langle", "[").replace(r"\rangle", "]"),
+        ax.annotate(zone_text(_parse_label(lab), style="mathtext"),
                     (x, y), fontsize=8, ha="center", va="top" if y <= corners[:, 1].mean() else "bottom",
                     xytext=(0, -3 if y <= corners[:, 1].mean() else 3), textcoords="offset points")
     ax.set_title(f"{_tex_escape(name)}: beam direction", fontsize=8)
