@@ -2,7 +2,7 @@
 
 The example patterns (example_images/) are synthetic cobalt grains of the Co-Cr coating; their
 truth (phase, zone axis) and calibration are in the sidecar JSON written by
-saed.index.demo_set, independent of the server under test.
+saed.synth.demo_set, independent of the server under test.
 """
 
 from __future__ import annotations
@@ -105,7 +105,7 @@ def grain_pair(folder: Path, zones, *, axis_deg: float, scale: float, first=(5.0
     import tifffile
 
     from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.simulate.geometry import orientation_matrix
 
     ph = builtin_phase("Co-fcc")

@@ -1,6 +1,6 @@
 """`saed batch` end to end with the real indexer: stacks, scans, bad input, and kill-and-resume.
 
-Patterns are drawn from the kinematic simulation (saed.index.synthetic.synthetic_measured for spot
+Patterns are drawn from the kinematic simulation (saed.synth.kinematic.synthetic_measured for spot
 positions and intensities) through the detector model of saed.synth (noise, haze, direct beam),
 so every frame has a known phase and zone axis.
 """
@@ -32,7 +32,7 @@ PHASE_ARGS = [a for p in PHASES for a in ("--phase", p)]
 
 
 def _pattern(phase_name, zone, rot_deg, seed):
-    from saed.index.synthetic import synthetic_measured
+    from saed.synth.kinematic import synthetic_measured
     from saed.synth import Detector, Scene, render_pattern
 
     m, _ = synthetic_measured(builtin_phase(phase_name), zone, scale_inv_nm_per_px=SCALE,

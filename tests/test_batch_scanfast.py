@@ -15,7 +15,7 @@ SCALE = 0.08
 
 
 def _render(phase, zone, rot_deg, seed, centre=(127.6, 128.3), size=256):
-    from saed.index.synthetic import synthetic_measured
+    from saed.synth.kinematic import synthetic_measured
     from saed.synth.detector import Detector, Scene, render_pattern
 
     m, _ = synthetic_measured(builtin_phase(phase), zone, scale_inv_nm_per_px=SCALE, in_plane_rotation_deg=rot_deg,
@@ -206,7 +206,7 @@ def test_array_set_holds_the_table(tmp_path):
 def test_batch_row_names_hexagonal_runner_up_and_lookalike_zones_in_four_indices():
     from saed.batch.indexing import row_from_result
     from saed.index import index_pattern, prepare_phases
-    from saed.index.synthetic import synthetic_measured
+    from saed.synth.kinematic import synthetic_measured
 
     # fcc [112] and hcp [2-1-10]-type zones give look-alike patterns (the close-packed stacking); the hcp
     # one must be named in Miller-Bravais form, [10-10] for the 3-index direction [2 1 0]

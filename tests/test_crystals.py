@@ -314,7 +314,7 @@ def test_a_tie_between_phases_of_the_second_crystal_is_reported_as_a_tie():
     about 2 % by Ni (a 0.35238 nm) and by hcp Co along <01-10> (c / 2 = 0.203 nm, a / 2 = 0.125 nm), and
     crystal 2's scale is fixed only through crystal 1's to about 1 %: a tie, named as one."""
     from saed.index.orientation_relationships import standard_relationships, standard_rotation
-    from saed.index.synthetic_overlap import overlap_measured
+    from saed.synth.overlap import overlap_measured
 
     tables = prepare_phases([builtin_phase(n) for n in ("Fe-fcc", "Fe-bcc", "Ni", "Co-hcp")], max_g_inv_nm=12.0)
     (nw,) = [s for s in standard_relationships() if s.name == "Nishiyama-Wassermann"]

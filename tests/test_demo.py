@@ -31,7 +31,7 @@ def _same_zone(phase_name, a, b) -> bool:
 def test_bundled_examples_are_small_16_bit_frames_with_valid_sidecars(tmp_path):
     import tifffile
 
-    from saed.index.demo_set import DEMO_PATTERNS
+    from saed.synth.demo_set import DEMO_PATTERNS
 
     for spec in DEMO_PATTERNS:
         img = tifffile.imread(_copy(EXAMPLES.joinpath(spec.name + ".tif"), tmp_path))

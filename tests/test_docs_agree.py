@@ -55,7 +55,7 @@ def test_indexing_doc_grain_d_row_matches_the_printed_tilt(grain_d, capsys):
 
 
 def test_demo_caption_names_the_zone_the_answer_prints(grain_d, capsys):
-    from saed.index.demo_set import DEMO_PATTERNS
+    from saed.synth.demo_set import DEMO_PATTERNS
 
     spec = next(s for s in DEMO_PATTERNS if s.name == "grain_D_fcc_or_hcp")
     caption_zone = re.search(r"hcp cobalt (\[[-\d]+\])", spec.description).group(1)

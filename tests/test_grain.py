@@ -24,7 +24,7 @@ from hypothesis import given, settings, strategies as st
 
 from saed.crystal import builtin_phase
 from saed.errors import InputError
-from saed.index.synthetic import synthetic_image
+from saed.synth.kinematic import synthetic_image
 from saed.simulate.geometry import orientation_matrix
 
 SCALE = 13.0 / (0.46 * 512)

@@ -48,7 +48,7 @@ def test_history_keeps_one_alpha_axis_per_camera_length(tmp_path):
 
 def test_calibrate_stores_the_alpha_axis_and_index_uses_it(tmp_path, capsys):
     from saed.cli import main
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
 
     scale = physics.scale_from_camera_inv_nm_per_px(100.0, 14.0, 200.0)
     pat = ring_pattern([builtin_phase("Au")], shape_px=(448, 448), scale_inv_nm_per_px=scale, graininess=0.2, rng=4)

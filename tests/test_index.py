@@ -22,7 +22,7 @@ from saed.crystal import builtin_phase
 from saed.crystal.lattice import Lattice
 from saed.image.values import MeasuredPattern, Spots
 from saed.index import IndexResult, index_pattern, prepare_phases
-from saed.index.synthetic import synthetic_measured
+from saed.synth.kinematic import synthetic_measured
 from saed.simulate.zone import zone_pattern
 
 

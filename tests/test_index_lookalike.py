@@ -22,7 +22,7 @@ import pytest
 
 from saed.crystal import builtin_phase
 from saed.index import index_pattern, prepare_phases
-from saed.index.synthetic import synthetic_measured
+from saed.synth.kinematic import synthetic_measured
 
 
 @pytest.fixture(scope="module")

@@ -21,7 +21,7 @@ import scipy.constants as sc
 
 from saed.crystal import builtin_phase
 from saed.index import index_pattern, prepare_phases
-from saed.index.synthetic import synthetic_measured
+from saed.synth.kinematic import synthetic_measured
 
 
 def _rodrigues(axis, angle_deg):

@@ -148,8 +148,8 @@ TRUE_SCALE = 0.0498418  # 200 kV, L = 120 mm, 15 um pixels: 0.015 mm / (0.002507
 @pytest.fixture(scope="module")
 def hcp_pattern():
     from saed.crystal import builtin_phase
-    from saed.index.demo_set import demo_scale_inv_nm_per_px
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.demo_set import demo_scale_inv_nm_per_px
+    from saed.synth.kinematic import synthetic_image
 
     scale = demo_scale_inv_nm_per_px()
     assert scale == pytest.approx(TRUE_SCALE, rel=1e-5)

@@ -76,7 +76,7 @@ def test_page_has_a_file_input(served):
 def test_index_upload_returns_the_index_json_and_finds_the_truth(served, tmp_path):
     _, _, client, _, _ = served
     path, side = example("grain_B_hcp")
-    truth = side["synthetic"]  # written by saed.index.demo_set when the pattern was made
+    truth = side["synthetic"]  # written by saed.synth.demo_set when the pattern was made
     r = _upload(client, path, phase=["Co-fcc", "Co-hcp"], scale=str(side["scale_inv_nm_per_px"]), voltage="200")
     assert r.status_code == 200, r.text
     doc = r.json()

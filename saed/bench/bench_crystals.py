@@ -81,7 +81,7 @@ def two_crystal_frames(*, seed: int = 13):
     """[(MeasuredPattern, OverlapTruth, confounded)] for every zone pair and share."""
     from saed.crystal import builtin_phase
     from saed.index.orientation_relationships import standard_relationships, standard_rotation
-    from saed.index.synthetic_overlap import overlap_image
+    from saed.synth.overlap import overlap_image
 
     rng = np.random.default_rng(seed)
     stds = {s.name: s for s in standard_relationships()}
@@ -104,7 +104,7 @@ def two_crystal_frames(*, seed: int = 13):
 def single_crystal_frames(*, seed: int = 31, n: int = 48):
     """[(MeasuredPattern, (phase, zone), confounded)] of single crystals."""
     from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.synth.confounders import add_confounders
 
     rng = np.random.default_rng(seed)

@@ -6,7 +6,7 @@ from there (index <= 2, 4-index for hexagonal; 8-45 deg away, within alpha +-35,
 with at least six spots in two rows within 12 1/nm, as an operator would record), with readings from the
 holder geometry of ``saed tilt`` (H = R(e_alpha, alpha) R(e_beta, beta), e_alpha at a random azimuth on
 the detector, e_beta = z x e_alpha; the tests check that geometry independently). Each pattern is
-rendered at 512 x 512 by :func:`saed.index.synthetic.synthetic_image` (log-normal intensity disorder, Poisson noise) with a
+rendered at 512 x 512 by :func:`saed.synth.kinematic.synthetic_image` (log-normal intensity disorder, Poisson noise) with a
 small mistilt (0.1-0.5 deg toward a random reflection). The readings handed to the solver carry
 uniform noise of +-0.5 deg. Candidate phases are the true one and its look-alikes.
 
@@ -129,7 +129,7 @@ def series_cases(*, seed: int = 10, per_scenario: int = 5):
 
 
 def _render(phase, uvw, u_lab, rng):
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.simulate.zone import zone_pattern
 
     phi, cz = _in_plane(u_lab, phase, uvw)
@@ -223,7 +223,7 @@ def _speed_setup():
     from saed.calibration import Calibration
     from saed.crystal import builtin_phase
     from saed.index import prepare_phases
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.simulate.geometry import orientation_matrix
 
     size = 2048

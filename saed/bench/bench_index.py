@@ -2,7 +2,7 @@
 
 Accuracy set (:func:`accuracy_cases`): for one or two phases of every built-in structure type,
 zone axes up to index 5 (cubic) and comparable ones for hexagonal and tetragonal cells, each
-rendered as a 512 x 512 detector frame by :func:`saed.index.synthetic.synthetic_image` with a
+rendered as a 512 x 512 detector frame by :func:`saed.synth.kinematic.synthetic_image` with a
 random in-plane rotation, a mistilt up to 1.5 deg toward a random reflection, log-normal
 ("dynamical-like") intensity disorder, weak double-diffraction spots, a beam stop in half of the
 frames and one of three elliptical distortions (axis ratio 1, 1.01, 1.025). Two frames in three
@@ -95,7 +95,7 @@ def accuracy_cases(*, seed: int = 2024, per_phase: int = ZONES_PER_PHASE):
     """The generated frames: a list of dicts (truth, image, calibration, candidate phase names)."""
     from saed.calibration import Calibration, Ellipse
     from saed.crystal import builtin_names, builtin_phase
-    from saed.index.synthetic import synthetic_image, zone_spots
+    from saed.synth.kinematic import synthetic_image, zone_spots
     from saed.simulate.zone import zone_pattern
     from saed.synth.detector import BeamStop
 
@@ -267,7 +267,7 @@ def speed_pattern_file():
     import tifffile
 
     from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.synth.detector import BeamStop
 
     size = 2048

@@ -2,7 +2,7 @@
 
 A real server (127.0.0.1, ephemeral port) with 10 candidate phases and warm tables, and a real
 browser (headless Chromium through Selenium) showing the page. Each call moves one more complete
-2048 x 2048 uint16 TIFF (a Co-hcp [2-1-10] pattern made by :func:`saed.index.synthetic.synthetic_image`,
+2048 x 2048 uint16 TIFF (a Co-hcp [2-1-10] pattern made by :func:`saed.synth.kinematic.synthetic_image`,
 as in the indexing benchmark) into the watched folder by a rename, the way acquisition programs put
 finished files in place, and waits until the page has drawn that pattern's result. The timed
 interval therefore contains the folder poll, reading and indexing, the picture for the page, the
@@ -40,7 +40,7 @@ class _State:
     def __init__(self):
         import tifffile
         from saed.crystal import builtin_phase
-        from saed.index.synthetic import synthetic_image
+        from saed.synth.kinematic import synthetic_image
         from saed.serve.service import Service
         from saed.serve.browser import headless_chromium
         from saed.serve.guard import allowed_hosts

@@ -30,7 +30,7 @@ def add_arguments(p):
 
 def example_files() -> list[tuple[str, object, object]]:
     """(name, image resource, sidecar resource) of the bundled examples, in order."""
-    from saed.index.demo_set import DEMO_PATTERNS
+    from saed.synth.demo_set import DEMO_PATTERNS
 
     root = resources.files("saed").joinpath("data/examples")
     out = []
@@ -47,7 +47,7 @@ def example_files() -> list[tuple[str, object, object]]:
 def make_examples(folder) -> list[Path]:
     import tifffile
 
-    from saed.index.demo_set import DEMO_PATTERNS, make_demo_pattern
+    from saed.synth.demo_set import DEMO_PATTERNS, make_demo_pattern
     from saed.report.files import atomic_write_bytes, atomic_write_text
 
     d = Path(folder)
@@ -78,7 +78,7 @@ def run(args) -> int:
     from saed.crystal import builtin_phase
     from saed.image.measure import inspect_file
     from saed.index import index_pattern, prepare_phases
-    from saed.index.demo_set import DEMO_PATTERNS, DEMO_PHASES, DEMO_VOLTAGE_KV
+    from saed.synth.demo_set import DEMO_PATTERNS, DEMO_PHASES, DEMO_VOLTAGE_KV
     from saed.report.files import atomic_write_bytes, atomic_write_text
     from saed.report.index_html import ReportEntry, write_report
     from saed.report.index_json import result_json

@@ -55,7 +55,7 @@ def _grain_map(shape, n_grains: int, rng) -> np.ndarray:
 
 def _render(grain: ScanGrain, *, size: int, scale: float, rng) -> np.ndarray:
     from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_measured
+    from saed.synth.kinematic import synthetic_measured
     from saed.synth.detector import Detector, Scene, render_pattern
 
     centre = (size / 2 - 0.2, size / 2 - 0.7)

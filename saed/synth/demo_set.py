@@ -1,6 +1,6 @@
 """The demo patterns: a Co-Cr wear-resistant coating whose cobalt grains are fcc or hcp, at 200 kV.
 
-Invented data for the demo only (synthetic patterns from :mod:`saed.index.synthetic`): 512 x 512
+Invented data for the demo only (synthetic patterns from :mod:`saed.synth.kinematic`): 512 x 512
 16-bit frames at a camera length of 120 mm with 15 um pixels, each with a calibration sidecar.
 The set is chosen to show what the indexer does with the cases a microscopist meets in such a
 coating: a clear fcc grain, a clear hcp grain with a double-diffraction spot, the basal hcp
@@ -67,7 +67,7 @@ def demo_scale_inv_nm_per_px() -> float:
 def make_demo_pattern(spec: DemoPattern) -> tuple[np.ndarray, dict]:
     """The 16-bit image and the calibration sidecar (a saed calibration document) of one demo pattern."""
     from saed.crystal import builtin_phase
-    from saed.index.synthetic import synthetic_image
+    from saed.synth.kinematic import synthetic_image
     from saed.synth.detector import BeamStop
 
     scale = demo_scale_inv_nm_per_px()
@@ -88,7 +88,7 @@ def make_demo_pattern(spec: DemoPattern) -> tuple[np.ndarray, dict]:
         "date": None,
         "description": f"Synthetic demo pattern (invented data): {spec.description}. Co-Cr wear coating, 200 kV.",
         "synthetic": {"phase": spec.phase, "zone_axis": list(spec.zone_axis), "in_plane_rotation_deg": spec.rotation_deg,
-                      "tilt_deg": spec.tilt_deg, "seed": spec.seed, "generator": "saed.index.demo_set"},
+                      "tilt_deg": spec.tilt_deg, "seed": spec.seed, "generator": "saed.synth.demo_set"},
     }
     del truth
     return np.asarray(pat.image), sidecar

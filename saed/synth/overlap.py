@@ -4,7 +4,7 @@ Crystal 1 is put along `zone_axis` with in-plane rotation `phi`; every further c
 placed by a rotation R (crystal-1 Cartesian -> its Cartesian, e.g. a standard orientation
 relationship from :mod:`saed.index.orientation_relationships`), U_k = U_1 R^T, and must then
 also lie along a zone axis (the pairs that occur in practice: twin [1-10] / [-110], fcc [111] ||
-bcc [011] ...). Spot intensities are each crystal's kinematic pattern (:func:`saed.index.synthetic.zone_spots`)
+bcc [011] ...). Spot intensities are each crystal's kinematic pattern (:func:`saed.synth.kinematic.zone_spots`)
 times its area share; double diffraction across the crystals adds weak spots at g1 + g2; spots
 closer than the spot size merge, as on a detector. The image version renders through
 :func:`saed.synth.detector.render_pattern` and can add Kikuchi bands, a diffuse halo and streaks
@@ -21,7 +21,7 @@ import numpy as np
 from saed.calibration import Calibration
 from saed.errors import InputError
 from saed.image.values import MeasuredPattern, Spots
-from saed.index.synthetic import zone_spots
+from saed.synth.kinematic import zone_spots
 from saed.simulate.geometry import orientation_matrix
 
 __all__ = ["OverlapTruth", "zone_after_rotation", "overlap_spots", "overlap_measured", "overlap_image"]
