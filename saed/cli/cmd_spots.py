@@ -202,7 +202,7 @@ def run(args) -> int:
     if args.json:
         write_json(args.json, doc)
     if args.overlay:
-        from saed.image.overlay import write_spots_overlay
+        from saed.report.spots_overlay import write_spots_overlay
 
         write_spots_overlay(insp.image, mp, args.overlay, ignored=insp.ignored, dpi=args.dpi,
                             title=args.image + (f" (frame {args.frame})" if args.frame is not None else ""),

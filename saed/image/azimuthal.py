@@ -18,14 +18,9 @@ import numpy as np
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
+from saed.readonly import frozen_array
 
 __all__ = ["RadialProfile", "SectorProfiles", "polar_coordinates", "radial_profile", "sector_profiles"]
-
-
-def _frozen(a, dtype=np.float64) -> np.ndarray:
-    out = np.array(a, dtype=dtype)
-    out.flags.writeable = False
-    return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -46,8 +41,8 @@ class RadialProfile:
 
     def __post_init__(self):
         for name in ("radius_px", "mean", "sem"):
-            object.__setattr__(self, name, _frozen(getattr(self, name)))
-        object.__setattr__(self, "count", _frozen(self.count, np.int64))
+            object.__setattr__(self, name, frozen_array(getattr(self, name), np.float64))
+        object.__setattr__(self, "count", frozen_array(self.count, np.int64))
 
 
 @dataclass(frozen=True, eq=False)
@@ -66,10 +61,10 @@ class SectorProfiles:
     bin_px: float
 
     def __post_init__(self):
-        object.__setattr__(self, "mean", _frozen(self.mean))
-        object.__setattr__(self, "count", _frozen(self.count, np.int64))
-        object.__setattr__(self, "sector_deg", _frozen(self.sector_deg))
-        object.__setattr__(self, "radius_px", _frozen(self.radius_px))
+        object.__setattr__(self, "mean", frozen_array(self.mean, np.float64))
+        object.__setattr__(self, "count", frozen_array(self.count, np.int64))
+        object.__setattr__(self, "sector_deg", frozen_array(self.sector_deg, np.float64))
+        object.__setattr__(self, "radius_px", frozen_array(self.radius_px, np.float64))
 
 
 def _check_image(image) -> np.ndarray:

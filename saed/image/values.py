@@ -12,14 +12,9 @@ import numpy as np
 
 from saed.calibration import Calibration
 from saed.errors import InputError
+from saed.readonly import frozen_array
 
 __all__ = ["Spots", "LatticeBasis", "MeasuredPattern"]
-
-
-def _frozen_array(a, dtype=np.float64) -> np.ndarray:
-    out = np.array(a, dtype=dtype)
-    out.flags.writeable = False
-    return out
 
 
 @dataclass(frozen=True)
@@ -44,12 +39,12 @@ class Spots:
         n = len(np.atleast_1d(self.x_px))
         for name in ("x_px", "y_px", "intensity", "intensity_sigma", "sigma_xy_px", "snr", "size_px"):
             v = getattr(self, name)
-            a = _frozen_array(np.zeros(n) if v is None else np.atleast_1d(v))
+            a = frozen_array(np.zeros(n) if v is None else np.atleast_1d(v), np.float64)
             if a.shape != (n,):
                 raise InputError(f"Spots: {name} has {a.shape} values, expected {n}")
             object.__setattr__(self, name, a)
         sat = np.zeros(n, bool) if self.saturated is None else np.atleast_1d(self.saturated)
-        object.__setattr__(self, "saturated", _frozen_array(sat, bool))
+        object.__setattr__(self, "saturated", frozen_array(sat, bool))
 
     def __len__(self) -> int:
         return len(self.x_px)
@@ -83,10 +78,10 @@ class LatticeBasis:
     rms_residual_px: float = 0.0
 
     def __post_init__(self):
-        object.__setattr__(self, "g1_px", _frozen_array(self.g1_px))
-        object.__setattr__(self, "g2_px", _frozen_array(self.g2_px))
-        object.__setattr__(self, "indices", _frozen_array(np.reshape(self.indices, (-1, 2)), np.int64))
-        object.__setattr__(self, "on_lattice", _frozen_array(self.on_lattice, bool))
+        object.__setattr__(self, "g1_px", frozen_array(self.g1_px, np.float64))
+        object.__setattr__(self, "g2_px", frozen_array(self.g2_px, np.float64))
+        object.__setattr__(self, "indices", frozen_array(np.reshape(self.indices, (-1, 2)), np.int64))
+        object.__setattr__(self, "on_lattice", frozen_array(self.on_lattice, bool))
 
     @property
     def angle_deg(self) -> float:

@@ -24,6 +24,7 @@ from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
 from saed.physics import check_voltage_kv
+from saed.readonly import frozen_array
 
 __all__ = ["PhaseIndexTable", "IndexTables", "prepare_phases", "DEFAULT_MAX_G_INV_NM", "hkl_keys"]
 
@@ -44,12 +45,6 @@ def hkl_keys(hkl: np.ndarray, span: int) -> np.ndarray:
     base = 2 * span + 1
     h = np.asarray(hkl, dtype=np.int64) + span
     return (h[..., 0] * base + h[..., 1]) * base + h[..., 2]
-
-
-def _ro(a):
-    a = np.ascontiguousarray(a)
-    a.flags.writeable = False
-    return a
 
 
 @dataclass(frozen=True, eq=False)
@@ -214,11 +209,13 @@ def _phase_table(phase: Phase, max_g_inv_nm: float) -> PhaseIndexTable:
     by_ratio = np.argsort(ratio, kind="stable")
     f32 = np.float32
     return PhaseIndexTable(
-        phase=phase, max_g_inv_nm=float(max_g_inv_nm), hkl=_ro(hkl), g_cart_inv_nm=_ro(g_cart), g_inv_nm=_ro(g),
-        f_rel=_ro(f_rel), allowed=_ro(allowed), keys_sorted=_ro(keys_sorted), key_order=_ro(key_order), span=span,
-        pair_i1=_ro(i1.astype(np.int32)), pair_i2=_ro(i2.astype(np.int32)), pair_g1=_ro(g1.astype(f32)),
-        pair_g2=_ro(g2.astype(f32)), pair_angle_deg=_ro(ang.astype(f32)),
-        by_ratio=_ro(by_ratio.astype(np.int32)), ratio_sorted=_ro(ratio[by_ratio].astype(f32)), laue=_ro(laue),
+        phase=phase, max_g_inv_nm=float(max_g_inv_nm), hkl=frozen_array(hkl), g_cart_inv_nm=frozen_array(g_cart),
+        g_inv_nm=frozen_array(g), f_rel=frozen_array(f_rel), allowed=frozen_array(allowed),
+        keys_sorted=frozen_array(keys_sorted), key_order=frozen_array(key_order), span=span,
+        pair_i1=frozen_array(i1, np.int32), pair_i2=frozen_array(i2, np.int32), pair_g1=frozen_array(g1, f32),
+        pair_g2=frozen_array(g2, f32), pair_angle_deg=frozen_array(ang, f32),
+        by_ratio=frozen_array(by_ratio, np.int32), ratio_sorted=frozen_array(ratio[by_ratio], f32),
+        laue=frozen_array(laue),
     )
 
 

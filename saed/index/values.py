@@ -12,17 +12,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from saed.image.values import MeasuredPattern
+from saed.readonly import frozen_array
 
 __all__ = ["IndexedSpot", "Mistilt", "TiltAdvice", "Lookalike", "Solution", "IndexResult", "SPOT_KINDS"]
 
 #: What a measured spot was explained as (``IndexedSpot.kind``).
 SPOT_KINDS = ("allowed", "double-diffraction", "forbidden", "holz-projection", "unindexed")
-
-
-def _ro(a, dtype=float) -> np.ndarray:
-    out = np.array(a, dtype=dtype)
-    out.flags.writeable = False
-    return out
 
 
 @dataclass(frozen=True)
@@ -185,16 +180,16 @@ class Solution:
     implied_camera_length_mm: float | None = None
     scale_error_pct: float | None = None
     terms: tuple[tuple[str, float], ...] = ()
-    predicted_xy_px: np.ndarray = field(default_factory=lambda: _ro(np.zeros((0, 2))))
-    predicted_hkl: np.ndarray = field(default_factory=lambda: _ro(np.zeros((0, 3)), np.int64))
-    predicted_intensity: np.ndarray = field(default_factory=lambda: _ro(np.zeros(0)))
+    predicted_xy_px: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros((0, 2)), float))
+    predicted_hkl: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros((0, 3)), np.int64))
+    predicted_intensity: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros(0), float))
     predicted_kind: tuple[str, ...] = ()
 
     def __post_init__(self):
-        object.__setattr__(self, "orientation_matrix", _ro(self.orientation_matrix))
-        object.__setattr__(self, "predicted_xy_px", _ro(np.reshape(self.predicted_xy_px, (-1, 2))))
-        object.__setattr__(self, "predicted_hkl", _ro(np.reshape(self.predicted_hkl, (-1, 3)), np.int64))
-        object.__setattr__(self, "predicted_intensity", _ro(self.predicted_intensity))
+        object.__setattr__(self, "orientation_matrix", frozen_array(self.orientation_matrix, float))
+        object.__setattr__(self, "predicted_xy_px", frozen_array(np.reshape(self.predicted_xy_px, (-1, 2)), float))
+        object.__setattr__(self, "predicted_hkl", frozen_array(np.reshape(self.predicted_hkl, (-1, 3)), np.int64))
+        object.__setattr__(self, "predicted_intensity", frozen_array(self.predicted_intensity, float))
         object.__setattr__(self, "zone_axis", tuple(int(v) for v in self.zone_axis))
         if self.zone_axis_4 is not None:
             object.__setattr__(self, "zone_axis_4", tuple(int(v) for v in self.zone_axis_4))

@@ -1,6 +1,6 @@
 """The overlay of an indexed pattern: what was measured, what the best solution predicts, the labels.
 
-Drawn on the recorded pattern (asinh stretch, :func:`saed.image.overlay.display_stretch`):
+Drawn on the recorded pattern (asinh stretch, :func:`saed.report.spots_overlay.display_stretch`):
 
 * measured spots as circles, by what they were explained as: allowed reflection (green),
   double diffraction (yellow, dashed), projected higher-order Laue-zone reflection (violet, dotted),
@@ -22,7 +22,7 @@ import math
 
 import numpy as np
 
-from saed.image.overlay import display_stretch
+from saed.report.spots_overlay import display_stretch
 from saed.index.values import IndexResult
 from saed.report.files import atomic_write_bytes, check_writable
 from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_SHORT, confidence_word, spot_label, zone_text

@@ -8,7 +8,7 @@ can show the progress. Indexing a file is then the image stage and the matcher o
 The page draws the overlay itself (zoom, pan, hover), from :func:`view_of`: per solution the
 measured spots with their labels and errors and the simulated zero-order pattern, in the colours
 of :data:`saed.report.index_overlay.KIND_STYLE`; the picture underneath is the pattern on the
-display stretch of :func:`saed.image.overlay.display_stretch`, reduced to at most
+display stretch of :func:`saed.report.spots_overlay.display_stretch`, reduced to at most
 :data:`DISPLAY_MAX_SIDE` pixels per side and sent as raw 8-bit grey bytes.
 """
 
@@ -110,7 +110,7 @@ def display_grey(image: np.ndarray) -> tuple[bytes, tuple[int, int], int]:
     Returns (bytes, (rows, cols) of the reduced picture, factor). Sent raw: on the loopback a
     megabyte costs less than any image encoding (a PNG of 1024 x 1024 takes ~0.1-0.2 s to write).
     """
-    from saed.image.overlay import display_stretch
+    from saed.report.spots_overlay import display_stretch
 
     img = np.asarray(image, np.float32)
     f = max(1, math.ceil(max(img.shape) / DISPLAY_MAX_SIDE))
