@@ -28,7 +28,7 @@ from scipy import fft, ndimage, optimize
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError
-from saed.image.azimuthal import polar_coordinates, sector_profiles
+from saed.rings.profile import polar_coordinates, sector_profiles
 
 __all__ = ["RingGeometry", "inversion_centre", "trace_rings", "fit_ring_geometry", "ellipse_from_s"]
 
