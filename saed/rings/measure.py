@@ -25,9 +25,10 @@ from scipy import ndimage
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
-from saed.rings.profile import RadialProfile, polar_coordinates, radial_profile
+from saed.rings.profile import RadialProfile, radial_profile
 from saed.rings.peaks import ProfileRings, find_profile_rings
 from saed.rings.geometry import MAX_AXIS_RATIO, RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
+from saed.simulate.rings import polar_coordinates
 
 __all__ = ["RingMeasurement", "ring_mask", "measure_rings", "SINGLE_CRYSTAL_COVERAGE"]
 

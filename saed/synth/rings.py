@@ -27,8 +27,7 @@ import numpy as np
 from saed.calibration import Ellipse
 from saed.crystal.phase import Phase
 from saed.errors import InputError
-from saed.rings.profile import polar_coordinates
-from saed.simulate.rings import ring_lines
+from saed.simulate.rings import polar_coordinates, ring_lines
 
 __all__ = ["RingPatternTruth", "SyntheticRings", "ring_pattern"]
 
