@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from saed.crystal import Lattice, Phase, Site, builtin_phase
-from saed.rings.lines import ring_lines
+from saed.simulate.rings import ring_lines
 
 # Polycrystalline Au and Al ring d-spacings, nm: ICDD PDF 04-0784 (Au) and 04-0787 (Al), card numbers and
 # values from memory, as listed in the project's check-value sheet, section 8. Four significant figures on

@@ -10,8 +10,8 @@ from hypothesis import strategies as st
 from saed.calibration import Ellipse
 from saed.crystal import builtin_phase
 from saed.errors import ImageError
-from saed.image.azimuthal import radial_profile
-from saed.image.rings import find_profile_rings
+from saed.rings.profile import radial_profile
+from saed.rings.peaks import find_profile_rings
 from saed.rings.measure import measure_rings
 from saed.synth.rings import ring_pattern
 

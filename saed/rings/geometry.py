@@ -28,7 +28,8 @@ from scipy import fft, ndimage, optimize
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError
-from saed.image.azimuthal import polar_coordinates, sector_profiles
+from saed.rings.profile import sector_profiles
+from saed.simulate.rings import polar_coordinates
 
 __all__ = ["RingGeometry", "inversion_centre", "trace_rings", "fit_ring_geometry", "ellipse_from_s"]
 

@@ -33,7 +33,7 @@ from scipy import optimize
 from saed.calibration import PLAUSIBLE_SCALE_INV_NM_PER_PX
 from saed.errors import InputError
 from saed.crystal.phase import Phase
-from saed.rings.lines import RingLines, ring_lines
+from saed.simulate.rings import RingLines, ring_lines
 
 __all__ = ["ObservedRings", "RingMatch", "evaluate", "match_scale", "POSITION_FLOOR_REL"]
 
@@ -81,7 +81,7 @@ class ObservedRings:
 
     @classmethod
     def from_profile_rings(cls, rings, *, radius_px_of_bins, snr_min: float = 5.0) -> "ObservedRings":
-        """From :class:`saed.image.rings.ProfileRings` and the profile's bin radii."""
+        """From :class:`saed.rings.peaks.ProfileRings` and the profile's bin radii."""
         area = rings.area
         top = float(area.max())
         width = float(np.median(rings.width_px))

@@ -5,7 +5,7 @@
 1. mask: the caller's mask plus pixels far darker than their ring neighbourhood (beam stop and its
    rod, dead areas) and saturated pixels;
 2. centre from inversion symmetry (or the caller's hint);
-3. a radial profile and its rings (:mod:`saed.image.rings`); the strongest rings traced around the
+3. a radial profile and its rings (:mod:`saed.rings.peaks`); the strongest rings traced around the
    azimuth give centre and ellipse (:mod:`saed.rings.geometry`);
 4. the profile again with the fitted geometry, all rings, a final geometry fit over all strong rings,
    and the final profile and rings.
@@ -25,9 +25,10 @@ from scipy import ndimage
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
-from saed.image.azimuthal import RadialProfile, polar_coordinates, radial_profile
-from saed.image.rings import ProfileRings, find_profile_rings
+from saed.rings.profile import RadialProfile, radial_profile
+from saed.rings.peaks import ProfileRings, find_profile_rings
 from saed.rings.geometry import MAX_AXIS_RATIO, RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
+from saed.simulate.rings import polar_coordinates
 
 __all__ = ["RingMeasurement", "ring_mask", "measure_rings", "SINGLE_CRYSTAL_COVERAGE"]
 

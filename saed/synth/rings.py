@@ -3,7 +3,7 @@
 What a recorded ring pattern of an evaporated standard or a nanocrystalline film looks like, so the
 ring pipeline can be tested and benchmarked against a known truth:
 
-* rings at |g| of every allowed ring of each phase (:func:`saed.rings.lines.ring_lines`), Gaussian
+* rings at |g| of every allowed ring of each phase (:func:`saed.simulate.rings.ring_lines`), Gaussian
   profile, intensity m |F|^2 d^2 times a random texture factor per ring (log-normal, so measured
   intensities never match the model exactly);
 * optional graininess: a film with few grains per ring gives spotty rings (azimuthal modulation);
@@ -27,8 +27,7 @@ import numpy as np
 from saed.calibration import Ellipse
 from saed.crystal.phase import Phase
 from saed.errors import InputError
-from saed.image.azimuthal import polar_coordinates
-from saed.rings.lines import ring_lines
+from saed.simulate.rings import polar_coordinates, ring_lines
 
 __all__ = ["RingPatternTruth", "SyntheticRings", "ring_pattern"]
 

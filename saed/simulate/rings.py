@@ -1,4 +1,5 @@
-"""The rings a phase gives in a polycrystalline pattern: |g|, d, the families on each ring, intensities.
+"""The rings a phase gives in a polycrystalline pattern: |g|, d, the families on each ring, intensities;
+and where a ring of corrected radius R lies on the detector (:func:`polar_coordinates`).
 
 A ring collects every allowed reflection of one |g| (one or more families: 333 and 511 of a cubic
 phase share a ring). Its relative intensity, as measured in an azimuthally averaged radial profile
@@ -18,17 +19,19 @@ B. K. Vainshtein, *Structure Analysis by Electron Diffraction*, Pergamon, Oxford
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 
+from saed.calibration import Ellipse
 from saed.crystal.phase import Phase
 from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
 
-__all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM"]
+__all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM", "polar_coordinates", "check_center_px"]
 
 #: Default outer limit of ring lists (1/nm): d = 0.067 nm, past the last ring of most recorded patterns.
 DEFAULT_MAX_G_INV_NM = 15.0
@@ -137,3 +140,34 @@ def ring_lines(phase: Phase, max_g_inv_nm: float = DEFAULT_MAX_G_INV_NM) -> Ring
     for a in arrays.values():
         a.flags.writeable = False
     return RingLines(phase=phase, max_g_inv_nm=g_max, families=tuple(rings_fams), **arrays)
+
+
+def check_center_px(center_px) -> tuple[float, float]:
+    """(x, y) of a pattern centre as floats, or InputError when it is not two finite numbers."""
+    try:
+        cx, cy = (float(v) for v in center_px)
+    except (TypeError, ValueError):
+        raise InputError(f"centre {center_px!r} must be two pixel coordinates x y") from None
+    if not (math.isfinite(cx) and math.isfinite(cy)):
+        raise InputError(f"centre {center_px!r} must be finite")
+    return cx, cy
+
+
+def polar_coordinates(shape, center_px, ellipse: Ellipse | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Corrected radius (px) and raw azimuth (deg, 0..360 from +x toward +y) of every pixel.
+
+    Examples
+    --------
+    >>> r, phi = polar_coordinates((3, 5), (2.0, 1.0))
+    >>> float(r[1, 4]), float(phi[2, 2])
+    (2.0, 90.0)
+    """
+    cx, cy = check_center_px(center_px)
+    ny, nx = int(shape[0]), int(shape[1])
+    dx = np.arange(nx, dtype=np.float64)[None, :] - cx
+    dy = np.arange(ny, dtype=np.float64)[:, None] - cy
+    dx, dy = np.broadcast_arrays(dx, dy)
+    phi = np.degrees(np.arctan2(dy, dx)) % 360.0
+    if ellipse is not None and ellipse.axis_ratio != 1.0:
+        dx, dy = ellipse.corrected_px(dx, dy)
+    return np.hypot(dx, dy), phi

@@ -19,8 +19,9 @@ import numpy as np
 from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
 from saed.readonly import frozen_array
+from saed.simulate.rings import check_center_px, polar_coordinates
 
-__all__ = ["RadialProfile", "SectorProfiles", "polar_coordinates", "radial_profile", "sector_profiles"]
+__all__ = ["RadialProfile", "SectorProfiles", "radial_profile", "sector_profiles"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,36 +73,6 @@ def _check_image(image) -> np.ndarray:
     if img.ndim != 2:
         raise ImageError(f"expected a 2-D image, got an array of shape {img.shape}")
     return img
-
-
-def _check_center(center_px) -> tuple[float, float]:
-    try:
-        cx, cy = (float(v) for v in center_px)
-    except (TypeError, ValueError):
-        raise InputError(f"centre {center_px!r} must be two pixel coordinates x y") from None
-    if not (math.isfinite(cx) and math.isfinite(cy)):
-        raise InputError(f"centre {center_px!r} must be finite")
-    return cx, cy
-
-
-def polar_coordinates(shape, center_px, ellipse: Ellipse | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Corrected radius (px) and raw azimuth (deg, 0..360 from +x toward +y) of every pixel.
-
-    Examples
-    --------
-    >>> r, phi = polar_coordinates((3, 5), (2.0, 1.0))
-    >>> float(r[1, 4]), float(phi[2, 2])
-    (2.0, 90.0)
-    """
-    cx, cy = _check_center(center_px)
-    ny, nx = int(shape[0]), int(shape[1])
-    dx = np.arange(nx, dtype=np.float64)[None, :] - cx
-    dy = np.arange(ny, dtype=np.float64)[:, None] - cy
-    dx, dy = np.broadcast_arrays(dx, dy)
-    phi = np.degrees(np.arctan2(dy, dx)) % 360.0
-    if ellipse is not None and ellipse.axis_ratio != 1.0:
-        dx, dy = ellipse.corrected_px(dx, dy)
-    return np.hypot(dx, dy), phi
 
 
 def _valid(img: np.ndarray, mask) -> np.ndarray:
@@ -156,7 +127,7 @@ def radial_profile(image, *, center_px, ellipse: Ellipse | None = None, mask=Non
         sem = np.sqrt(np.maximum(var, 0.0) / np.maximum(count, 1))
     sem = np.where(count > 1, sem, np.nan)
     centres = (np.arange(n_bins) + 0.5) * bin_px
-    return RadialProfile(centres, mean, sem, count, float(bin_px), _check_center(center_px), ellipse)
+    return RadialProfile(centres, mean, sem, count, float(bin_px), check_center_px(center_px), ellipse)
 
 
 def sector_profiles(image, *, center_px, ellipse: Ellipse | None = None, mask=None, n_sectors: int = 72,

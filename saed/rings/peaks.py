@@ -26,7 +26,7 @@ import numpy as np
 from scipy import ndimage, optimize, signal
 
 from saed.errors import InputError
-from saed.image.azimuthal import RadialProfile
+from saed.rings.profile import RadialProfile
 
 __all__ = ["ProfileRings", "snip_background", "find_profile_rings"]
 
@@ -153,7 +153,7 @@ def find_profile_rings(profile: RadialProfile, *, r_min_px: float, r_max_px: flo
 
     Parameters
     ----------
-    profile : from :func:`saed.image.azimuthal.radial_profile`
+    profile : from :func:`saed.rings.profile.radial_profile`
     r_min_px, r_max_px : corrected-radius range searched (inside r_min: beam stop, direct beam)
     snr_min : a ring's peak must stand this many local-noise sigmas above the background
     width_guess_px : expected ring sigma (default: measured from the strongest peak)
