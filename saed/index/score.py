@@ -20,12 +20,23 @@ weighted median ratio (kinematically strong spots that are all but missing), S t
 agreement of the refined scale with the calibration (1 when uncalibrated) and Z a faint
 preference for low-index zones (0.4 % per index step, 1 % more per step above 3), which breaks
 ties between patterns of identical geometry in favour of the zone a microscopist records.
+
+:func:`score_candidate` runs these steps, each a function below: the cached zone facts
+(:func:`_zone_facts`), the refinement of the detector map (:func:`_refine`), the spot kinds
+(:func:`_classify`), the terms of the figure of merit (:func:`_absent_share`,
+:func:`_intensity_terms`, :func:`_scale_term`, :func:`_zone_prior`) and the per-spot records
+(:func:`_spot_records`). Every step works on whole arrays: the scan path calls the scorer about
+once per frame, so there is no Python loop over spots or reflections in it. Nearest predicted
+reflections come from one broadcast distance matrix: for 10-60 spots and 50-300 reflections that
+measured 10-180 us against 130-400 us for building and querying a ``scipy.spatial.cKDTree``
+(2 Dec 2026, loaded 2-core machine), so the tree does not pay here.
 """
 
 from __future__ import annotations
 
 import logging
 import math
+import weakref
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -34,18 +45,33 @@ import numpy as np
 from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.crystal.notation import projected_plane
 from saed.index.candidates import Candidate, SpotSet
-from saed.index.tables import IndexTables, PhaseIndexTable
-from saed.index.values import IndexedSpot, Solution
-from saed.simulate.geometry import orientation_matrix
+from saed.index.tables import IndexTables, PhaseIndexTable, hkl_keys
+from saed.index.values import IndexedSpot, Solution, SpotKind
+from saed.simulate.geometry import in_plane_rotation, orientation_matrix
 from saed.simulate.zone import zone_pattern
 
 __all__ = ["Fit", "score_candidate", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_NM"]
 
 logger = logging.getLogger(__name__)
 
-#: Kind factor of a measured spot in the agreement term M.
-KIND_WEIGHT = {"allowed": 1.0, "double-diffraction": 0.95, "holz-weak": 0.9, "holz-strong": 0.15,
-               "forbidden": 0.0, "unindexed": 0.0}
+# --- kind factors of the agreement term M (docs/indexing.md, table of k_i) -------------------------
+#: An allowed zero-order reflection: the evidence the figure of merit is built on.
+WEIGHT_ALLOWED = 1.0
+#: Forbidden but reachable as g1 + g2 inside the zone: real, but a route any phase with those g1, g2 shares.
+WEIGHT_DOUBLE_DIFFRACTION = 0.95
+#: A faint spot on a projected higher-order Laue-zone position: what thin foils and faults show.
+WEIGHT_HOLZ_WEAK = 0.9
+#: A bright spot there is more likely a reflection of another zone or phase than a projection.
+WEIGHT_HOLZ_STRONG = 0.15
+#: Forbidden with no double-diffraction route: the candidate cannot explain it.
+WEIGHT_FORBIDDEN = 0.0
+#: Nothing predicted near the spot.
+WEIGHT_UNINDEXED = 0.0
+
+#: Kind factor of a measured spot in the agreement term M (HOLZ projections split by brightness).
+KIND_WEIGHT = {SpotKind.ALLOWED: WEIGHT_ALLOWED, SpotKind.DOUBLE_DIFFRACTION: WEIGHT_DOUBLE_DIFFRACTION,
+               "holz-weak": WEIGHT_HOLZ_WEAK, "holz-strong": WEIGHT_HOLZ_STRONG,
+               SpotKind.FORBIDDEN: WEIGHT_FORBIDDEN, SpotKind.UNINDEXED: WEIGHT_UNINDEXED}
 
 #: Projections of higher-order Laue-zone reflections are considered only when the reciprocal
 #: layers are this close (1/nm): the stacking-direction zones (fcc <111>: 1.6 1/nm for Co) where
@@ -58,6 +84,90 @@ INTENSITY_MISFIT_FACTOR = 10.0
 #: A HOLZ-projection spot counts as weak below this fraction of the median indexed intensity.
 HOLZ_WEAK_FRACTION = 0.1
 
+#: HOLZ projections are a net worth scoring only when the first-layer shift is 1/2 or 1/3 of a zero-layer
+#: lattice vector (fcc <111>: 1/3{422}); other fractions give a dense, meaningless net.
+HOLZ_LATTICE_FRACTIONS = (2, 3)
+
+#: Two reciprocal positions closer than this (1/nm, relative above 1 1/nm) are the same position.
+HOLZ_COINCIDENCE_INV_NM = 1e-3
+
+# --- factors of the figure of merit ----------------------------------------------------------------
+#: Cost of missing predicted intensity A: a pattern missing all of it keeps half its score (thickness,
+#: mistilt and the beam stop dim real reflections, so absence is evidence, not proof).
+ABSENT_PENALTY = 0.5
+#: The intensity-rank term is INTENSITY_RANK_FLOOR + INTENSITY_RANK_SPAN * T (the two sum to 1): dynamical
+#: scattering reorders intensities, so total disagreement costs 15 % at most.
+INTENSITY_RANK_FLOOR = 0.85
+INTENSITY_RANK_SPAN = 0.15
+#: Cost of the intensity misfit D: strong reflections measured all but missing point to another phase.
+MISFIT_PENALTY = 0.3
+#: T when the kinematic intensities of the indexed spots do not discriminate (too few spots, all equal).
+RANK_NEUTRAL = 0.75
+#: T when the rank correlation is undefined (a constant side after rounding).
+RANK_UNDEFINED = 0.5
+#: Fewest allowed indexed spots for the intensity terms T and D: fewer ranks say nothing.
+INTENSITY_TERMS_MIN_SPOTS = 5
+#: Kinematic intensities are compared as log10 rounded to this many decimals, so reflections of
+#: (nearly) equal kinematic intensity tie instead of ranking by rounding noise.
+LOG_INTENSITY_DECIMALS = 2
+#: Floor of intensities and weights before logarithms and divisions (keeps zeros finite).
+TINY = 1e-12
+#: The scale term S is a Gaussian of the scale error with sigma = tolerance / SCALE_TOLERANCE_SIGMAS.
+SCALE_TOLERANCE_SIGMAS = 1.5
+#: Smallest sigma of the scale term (a zero tolerance must not divide by zero).
+SCALE_SIGMA_FLOOR = 1e-6
+#: Zone prior Z: cost per index step of the largest zone index, and the extra cost per step above
+#: ZONE_PRIOR_KNEE_INDEX (faint: it breaks ties of identical geometry only).
+ZONE_PRIOR_PER_INDEX = 0.004
+ZONE_PRIOR_KNEE_INDEX = 3
+ZONE_PRIOR_PER_INDEX_ABOVE_KNEE = 0.01
+
+# --- assignment and refinement ---------------------------------------------------------------------
+#: A spot is assigned to a predicted reflection within this many sigma of its position.
+MATCH_SIGMAS = 3.0
+#: Position uncertainty added to every spot (px): sub-pixel centring and rounding of the detector grid.
+POSITION_FLOOR_PX = 0.5
+#: Refinement rounds (assign, fit): the assignment settles in two or three.
+REFINE_ROUNDS = 4
+#: The refinement has converged when the map changes by less than this (relative, absolute).
+REFINE_RTOL, REFINE_ATOL = 1e-9, 1e-12
+#: The fitted centre shift is at most max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS x the centre's sigma).
+CENTRE_SHIFT_MIN_PX = 3.0
+CENTRE_SHIFT_SIGMAS = 3.0
+#: Largest elliptical distortion (axis ratio - 1) the refinement absorbs when the calibration states none.
+MAX_FITTED_DISTORTION = 0.03
+#: The general (distorted) map is fitted only from this many assigned spots (4 parameters + margin).
+DISTORTION_MIN_SPOTS = 4
+#: The centre shift is fitted only from this many assigned spots (two fix rotation and scale alone).
+SHIFT_MIN_SPOTS = 3
+#: Normal matrices worse conditioned than this (spots nearly on one row) keep the similarity.
+DISTORTION_MAX_CONDITION = 1e6
+
+# --- observed region (term A) ----------------------------------------------------------------------
+#: Predicted reflections count as observable between these fractions of the shortest and longest
+#: measured spot radius: inside, the beam stop and the direct beam's tail hide spots; outside, the
+#: spot finder's threshold does.
+REGION_INNER_FRACTION = 0.35
+REGION_OUTER_FRACTION = 1.02
+#: ... and at least this many pixels inside the frame (the spot finder's border).
+REGION_EDGE_PX = 3
+
+# --- notes -----------------------------------------------------------------------------------------
+#: A fitted centre shift of at least this (px) is worth telling the microscopist.
+CENTRE_NOTE_PX = 1.0
+#: A fitted distortion of at least this (percent) from at least DISTORTION_NOTE_MIN_SPOTS spots is reported.
+DISTORTION_NOTE_PCT = 0.6
+DISTORTION_NOTE_MIN_SPOTS = 6
+
+#: Foil thickness of the cached zone patterns (nm): only the kinematic |F| and the geometry are used.
+ZONE_THICKNESS_NM = 50.0
+
+_NO_ROW = -1
+#: Spot kinds in the order of the integer codes :func:`_classify` computes.
+_KIND_BY_CODE = np.array([SpotKind.UNINDEXED, SpotKind.ALLOWED, SpotKind.DOUBLE_DIFFRACTION, SpotKind.FORBIDDEN,
+                          SpotKind.HOLZ_PROJECTION], dtype=object)
+_UNINDEXED, _ALLOWED, _DOUBLE, _FORBIDDEN, _HOLZ = range(5)
+
 
 @dataclass(frozen=True, eq=False)
 class Fit:
@@ -69,7 +179,7 @@ class Fit:
     phi_deg: float
     scale: float
     assigned: np.ndarray  # (n_spots,) row into zone pattern, -1 none
-    kinds: tuple[str, ...]
+    kinds: tuple[SpotKind, ...]
     predicted_px: np.ndarray  # (n_zone, 2) vectors from the centre, px
     seen: np.ndarray  # (n_zone,) bool, predicted row has a measured spot (or its Friedel mate does)
     in_region: np.ndarray  # (n_zone,) bool
@@ -77,36 +187,51 @@ class Fit:
     holz_xy_inv_nm: np.ndarray  # (m, 2) projected HOLZ positions in the detector frame, 1/nm
 
 
-def _rot2(phi_rad: float) -> np.ndarray:
-    c, s = math.cos(phi_rad), math.sin(phi_rad)
-    return np.array([[c, -s], [s, c]])
+@dataclass(frozen=True, eq=False)
+class _ZoneFacts:
+    """What scoring needs of one zone, computed once per (phase table, zone, voltage, max g)."""
+
+    zp: object  # ZonePattern
+    u0: np.ndarray  # (3, 3) orientation matrix at in-plane rotation 0
+    xy_inv_nm: np.ndarray  # (m, 2) zone-frame positions
+    allowed: np.ndarray  # (m,) bool, kinematically allowed
+    double: np.ndarray  # (m,) bool, forbidden but reachable by double diffraction
+    f_rel: np.ndarray  # (m,) |F| / strongest allowed |F|
+    strength: np.ndarray  # (m,) kinematic intensity f_rel**2, 0 where forbidden
+    d_nm: np.ndarray  # (m,) 1/|g|
+    mate: np.ndarray  # (m,) row of the Friedel mate, -1 where absent
+    holz_xy_inv_nm: np.ndarray  # (k, 2) projected first/second-layer positions
+    holz_hkl: np.ndarray  # (k, 3)
+    holz_d_nm: np.ndarray  # (k,) 1/|projected g|, nan for a zero projection
+    holz_proj_hkl: np.ndarray  # (k, 3) integers of the projected position
+    holz_proj_den: np.ndarray  # (k,) their denominator
 
 
-def _assign(spots: SpotSet, pred_px: np.ndarray, scale: float, rel_tol: float):
-    """Nearest predicted row for every spot and the position likelihood."""
-    if len(pred_px) == 0:
-        n = len(spots.r_px)
-        return np.full(n, -1), np.full(n, np.inf), np.ones(n)
-    d = np.linalg.norm(spots.v_px[:, None, :] - pred_px[None, :, :], axis=2)
-    j = np.argmin(d, axis=1)
-    dmin = d[np.arange(len(j)), j]
-    sigma = np.sqrt(spots.sigma_px ** 2 + (rel_tol * spots.r_px) ** 2 + 0.5 ** 2)
-    return j, dmin, sigma
+@dataclass(frozen=True, eq=False)
+class _Map:
+    """The refined detector map v = lin p + shift (p in 1/nm, v in px) and what derives from it."""
+
+    lin: np.ndarray
+    shift: np.ndarray
+    scale: float
+    phi_rad: float
+    aniso_pct: float
+    aniso_deg: float
+    pred_px: np.ndarray  # (m, 2)
 
 
-def _observed_region(measured, spots: SpotSet, pred_px: np.ndarray) -> np.ndarray:
-    """Predicted positions a detector could have recorded: inside the image and the spot radius range."""
-    if len(spots.r_px) == 0:
-        return np.zeros(len(pred_px), bool)
-    r = np.linalg.norm(pred_px, axis=1)
-    r_lo, r_hi = 0.35 * spots.r_px.min(), 1.02 * spots.r_px.max()
-    cx, cy = measured.center_px
-    h, w = measured.image_shape[:2]
-    x, y = cx + pred_px[:, 0], cy + pred_px[:, 1]
-    inside = (x >= 3) & (x <= w - 4) & (y >= 3) & (y <= h - 4)
-    xm, ym = cx - pred_px[:, 0], cy - pred_px[:, 1]
-    inside_mate = (xm >= 3) & (xm <= w - 4) & (ym >= 3) & (ym <= h - 4)
-    return (r >= r_lo) & (r <= r_hi) & (inside | inside_mate)
+@dataclass(frozen=True, eq=False)
+class _Assignment:
+    """Every spot's explanation: predicted row, distance, sigma, kind code and weighted kind factor."""
+
+    j: np.ndarray  # (n,) nearest zero-order row (-1 when there are no rows)
+    dmin: np.ndarray  # (n,) distance to it, px
+    sigma: np.ndarray  # (n,) position sigma, px
+    ok: np.ndarray  # (n,) assigned to a zero-order row
+    holz_j: np.ndarray  # (n,) row into the HOLZ projections, -1 none
+    holz_res: np.ndarray  # (n,) distance to that projection, px (nan where none)
+    code: np.ndarray  # (n,) kind code (_UNINDEXED ...)
+    kind_w: np.ndarray  # (n,) kind factor times the position likelihood
 
 
 def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
@@ -115,28 +240,112 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     """Refine and score one candidate against all spots; returns the Solution and its Fit."""
     pt = tables.phases[cand.phase_index]
     phase = pt.phase
-    lat = phase.lattice
     uvw = cand.zone_axis
-    zp, mate, holz_xy, holz_hkl = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
-    u0 = orientation_matrix(lat, uvw, 0.0)
-    m = cand.u_matrix @ u0.T
-    phi = math.atan2(m[1, 0], m[0, 0])
-    scale = cand.scale_inv_nm_per_px
-    allowed = ~zp.kinematically_forbidden
-    dd = zp.double_diffraction
-    f_rel = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
-    xy = np.asarray(zp.xy_inv_nm, float)
-
-    n = len(spots.r_px)
+    zf = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
     fit_distortion = allow_distortion and measured.calibration.ellipse is None
-    lin = _rot2(phi) / scale  # detector px per 1/nm: pred_px = xy @ lin.T + shift
+    fmap = _refine(cand, zf, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
+                   rel_pos_tol=rel_pos_tol, fit_distortion=fit_distortion)
+    asg = _classify(zf, spots, fmap, rel_pos_tol)
+
+    agreement = float(np.sum(spots.weight * asg.kind_w))
+    region = _observed_region(measured, spots, fmap.pred_px)
+    seen_pair, absent = _absent_share(zf, asg, region)
+    rank, misfit = _intensity_terms(zf, spots, asg)
+    scale_term, scale_err = _scale_term(fmap.scale, calibrated_scale, length_tol)
+    zone_term = _zone_prior(uvw)
+    score = (agreement * (1.0 - ABSENT_PENALTY * absent) * (INTENSITY_RANK_FLOOR + INTENSITY_RANK_SPAN * rank)
+             * (1.0 - MISFIT_PENALTY * misfit) * scale_term * zone_term)
+
+    use_scale = calibrated_scale if calibrated_scale is not None else fmap.scale
+    recs, d_err, a_err = _spot_records(zf, spots, measured, fmap, asg, use_scale=use_scale, phase=phase)
+    kinds = tuple(_KIND_BY_CODE[asg.code])
+    notes = _notes(measured, fmap, fit_distortion, int(np.count_nonzero(asg.ok)))
+    phi_deg = math.degrees(fmap.phi_rad)
+    u = in_plane_rotation(phi_deg) @ zf.u0  # orientation_matrix(lattice, uvw, phi_deg), with the cached frame
+    cam = None
+    if pixel_pitch_um is not None:
+        from saed.physics import camera_length_from_scale_mm
+
+        cam = camera_length_from_scale_mm(fmap.scale, pixel_pitch_um, tables.voltage_kv)
+    show = (zf.allowed | zf.double) & (zf.zp.g_inv_nm <= tables.max_g_inv_nm)
+    cx, cy = measured.center_px
+    shift = fmap.shift
+    sol = Solution(
+        phase_name=phase.name, zone_axis=uvw,
+        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if phase.is_hexagonal else None,
+        orientation_matrix=u, in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
+        score=float(score), indexed=recs,
+        mean_d_error_pct=float(np.mean(d_err)) if len(d_err) else float("nan"),
+        mean_angle_error_deg=float(np.mean(a_err)) if len(a_err) else float("nan"),
+        structure_type=phase.structure_type, implied_camera_length_mm=cam, notes=notes,
+        scale_error_pct=None if scale_err is None else 100.0 * scale_err,
+        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
+               ("scale", scale_term), ("zone_prior", zone_term), ("distortion_pct", fmap.aniso_pct),
+               ("distortion_axis_deg", fmap.aniso_deg), ("center_shift_x_px", float(shift[0])),
+               ("center_shift_y_px", float(shift[1]))),
+        predicted_xy_px=fmap.pred_px[show] + np.array([cx, cy])[None, :], predicted_hkl=zf.zp.hkl[show],
+        predicted_intensity=zf.strength[show],
+        predicted_kind=tuple(_KIND_BY_CODE[np.where(zf.allowed[show], _ALLOWED, _DOUBLE)]),
+    )
+    holz_rows = np.where(asg.holz_j[:, None] >= 0, zf.holz_hkl[np.maximum(asg.holz_j, 0)], 0) if len(zf.holz_hkl) \
+        else np.zeros((len(asg.j), 3))
+    fit = Fit(table=pt, zone=zf.zp, uvw=uvw, phi_deg=phi_deg, scale=float(fmap.scale),
+              assigned=np.where(asg.ok, asg.j, _NO_ROW), kinds=kinds, predicted_px=fmap.pred_px, seen=seen_pair,
+              in_region=region, holz_hkl=np.asarray(holz_rows, np.int64).reshape(-1, 3),
+              holz_xy_inv_nm=(zf.holz_xy_inv_nm @ fmap.lin.T) * fmap.scale)
+    return sol, fit
+
+
+# --- step 1: the refined map -----------------------------------------------------------------------
+
+def _rot2(phi_rad: float) -> np.ndarray:
+    c, s = math.cos(phi_rad), math.sin(phi_rad)
+    return np.array([[c, -s], [s, c]])
+
+
+def _nearest(v: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Row of the nearest point of `p` (m, 2) for every vector of `v` (n, 2), and the distance.
+
+    One broadcast (n, m) matrix of squared distances, built in place (see the module notes on why not
+    a KD-tree). Needs m >= 1.
+    """
+    d2 = np.subtract.outer(v[:, 0], p[:, 0])
+    d2 *= d2
+    dy = np.subtract.outer(v[:, 1], p[:, 1])
+    dy *= dy
+    d2 += dy
+    j = np.argmin(d2, axis=1)
+    return j, np.sqrt(d2[np.arange(len(j)), j])
+
+
+def _sigma_px(spots: SpotSet, rel_tol: float) -> np.ndarray:
+    """Position sigma of every spot: its own, a share of its radius (residual distortion) and a floor."""
+    return np.sqrt(spots.sigma_px ** 2 + (rel_tol * spots.r_px) ** 2 + POSITION_FLOOR_PX ** 2)
+
+
+def _assign(spots: SpotSet, pred_px: np.ndarray, rel_tol: float):
+    """Nearest predicted row for every spot, its distance and the position sigma."""
+    n = len(spots.r_px)
+    if len(pred_px) == 0:
+        return np.full(n, _NO_ROW), np.full(n, np.inf), np.ones(n)
+    j, dmin = _nearest(spots.v_px, pred_px)
+    return j, dmin, _sigma_px(spots, rel_tol)
+
+
+def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol, rel_pos_tol,
+            fit_distortion: bool) -> _Map:
+    """Refine v = lin p + shift from the candidate's start: assign, fit, repeat (at most REFINE_ROUNDS)."""
+    m = cand.u_matrix @ zf.u0.T
+    scale = cand.scale_inv_nm_per_px
+    xy = zf.xy_inv_nm
+    lin = _rot2(math.atan2(m[1, 0], m[0, 0])) / scale  # detector px per 1/nm
     shift = np.zeros(2)
-    t_max = max(3.0, 3.0 * float(measured.center_sigma_px or 0.0))
-    for _ in range(4):
-        pred_px = xy @ lin.T + shift
-        j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
-        ok = (j >= 0) & (dmin <= 3.0 * sigma)
-        use = ok & (allowed[np.maximum(j, 0)] | dd[np.maximum(j, 0)]) if len(xy) else ok
+    t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
+    explains = zf.allowed | zf.double
+    for _ in range(REFINE_ROUNDS):
+        j, dmin, sigma = _assign(spots, xy @ lin.T + shift, rel_pos_tol)
+        ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
+        use = ok & explains[np.maximum(j, 0)] if len(xy) else ok
         if np.count_nonzero(use) < 2:
             break
         wt = spots.weight[use] / sigma[use] ** 2
@@ -147,179 +356,206 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
             clamped = min(max(new_scale, lo), hi)
             new_lin = new_lin * (new_scale / clamped)
             new_scale = clamped
-        done = np.allclose(new_lin, lin, rtol=1e-9, atol=1e-12)
+        done = bool(np.all(np.abs(new_lin - lin) <= REFINE_ATOL + REFINE_RTOL * np.abs(lin)))  # np.allclose, cheaper
         lin, scale = new_lin, new_scale
         if done:
             break
     phi = math.atan2(lin[1, 0] - lin[0, 1], lin[0, 0] + lin[1, 1])  # rotation part of the polar decomposition
     aniso_pct, aniso_deg = _anisotropy(lin)
-    pred_px = xy @ lin.T + shift
-    j, dmin, sigma = _assign(spots, pred_px, scale, rel_pos_tol)
-    ok = (j >= 0) & (dmin <= 3.0 * sigma)
+    return _Map(lin=lin, shift=shift, scale=scale, phi_rad=phi, aniso_pct=aniso_pct, aniso_deg=aniso_deg,
+                pred_px=xy @ lin.T + shift)
+
+
+# --- step 2: what every spot is --------------------------------------------------------------------
+
+def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, rel_pos_tol: float) -> _Assignment:
+    """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none."""
+    n = len(spots.r_px)
+    j, dmin, sigma = _assign(spots, fmap.pred_px, rel_pos_tol)
+    ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
+    holz_j = np.full(n, _NO_ROW)
+    holz_res = np.full(n, np.nan)
+    if len(zf.holz_xy_inv_nm) and n:
+        jh, dh = _nearest(spots.v_px, zf.holz_xy_inv_nm @ fmap.lin.T + fmap.shift)
+        holz_j = np.where((dh <= MATCH_SIGMAS * sigma) & ~ok, jh, _NO_ROW)
+        near = holz_j >= 0
+        diff = spots.v_px[near] - zf.holz_xy_inv_nm[holz_j[near]] @ fmap.lin.T - fmap.shift
+        holz_res[near] = np.sqrt(diff[:, 0] ** 2 + diff[:, 1] ** 2)
+    jj = np.maximum(j, 0)
+    if len(zf.allowed):
+        allowed, double = ok & zf.allowed[jj], ok & ~zf.allowed[jj] & zf.double[jj]
+    else:
+        allowed = double = np.zeros(n, bool)
+    holz = ~ok & (holz_j >= 0)
+    code = np.full(n, _UNINDEXED)
+    code[ok] = _FORBIDDEN
+    code[double] = _DOUBLE
+    code[allowed] = _ALLOWED
+    code[holz] = _HOLZ
+    factor = np.where(allowed, WEIGHT_ALLOWED, np.where(double, WEIGHT_DOUBLE_DIFFRACTION, np.where(
+        ok, WEIGHT_FORBIDDEN, WEIGHT_UNINDEXED)))
+    kind_w = factor * like
+    if np.any(holz):
+        med = float(np.median(spots.intensity[allowed])) if np.any(allowed) else float(np.median(spots.intensity))
+        weak = spots.intensity[holz] < HOLZ_WEAK_FRACTION * med
+        kind_w[holz] = np.where(weak, WEIGHT_HOLZ_WEAK, WEIGHT_HOLZ_STRONG) * np.exp(
+            -0.5 * (holz_res[holz] / sigma[holz]) ** 2)
+    return _Assignment(j=j, dmin=dmin, sigma=sigma, ok=ok, holz_j=holz_j, holz_res=holz_res, code=code, kind_w=kind_w)
 
-    # HOLZ projections for spots not on a ZOLZ position
-    holz_j = np.full(n, -1)
-    if len(holz_xy) and n:
-        hp = holz_xy @ lin.T + shift
-        dh = np.linalg.norm(spots.v_px[:, None, :] - hp[None, :, :], axis=2)
-        jh = np.argmin(dh, axis=1)
-        hit = dh[np.arange(n), jh] <= 3.0 * sigma
-        holz_j = np.where(hit & ~ok, jh, -1)
 
-    kinds = []
-    kind_w = np.zeros(n)
-    indexed_int = [spots.intensity[i] for i in range(n) if ok[i] and allowed[j[i]]]
-    med_int = float(np.median(indexed_int)) if indexed_int else float(np.median(spots.intensity)) if n else 1.0
-    for i in range(n):
-        if ok[i]:
-            if allowed[j[i]]:
-                k = "allowed"
-            elif dd[j[i]]:
-                k = "double-diffraction"
-            else:
-                k = "forbidden"
-            kinds.append(k)
-            kind_w[i] = KIND_WEIGHT[k] * like[i]
-        elif holz_j[i] >= 0:
-            kinds.append("holz-projection")
-            weak = spots.intensity[i] < HOLZ_WEAK_FRACTION * med_int
-            kind_w[i] = KIND_WEIGHT["holz-weak" if weak else "holz-strong"] * math.exp(
-                -0.5 * (float(np.linalg.norm(spots.v_px[i] - holz_xy[holz_j[i]] @ lin.T - shift)) / sigma[i]) ** 2)
-        else:
-            kinds.append("unindexed")
-    agreement = float(np.sum(spots.weight * kind_w))
+# --- step 3: the terms of the figure of merit ------------------------------------------------------
 
-    # predicted intensity that is missing inside the observed region
-    region = _observed_region(measured, spots, pred_px)
-    seen = np.zeros(len(xy), bool)
-    seen[j[ok]] = True
-    seen_pair = seen | np.where(mate >= 0, seen[np.maximum(mate, 0)], False)
-    strength = np.where(allowed, f_rel ** 2, 0.0) * region
+def _observed_region(measured, spots: SpotSet, pred_px: np.ndarray) -> np.ndarray:
+    """Predicted positions a detector could have recorded: inside the image and the spot radius range."""
+    if len(spots.r_px) == 0:
+        return np.zeros(len(pred_px), bool)
+    r = np.linalg.norm(pred_px, axis=1)
+    r_lo, r_hi = REGION_INNER_FRACTION * spots.r_px.min(), REGION_OUTER_FRACTION * spots.r_px.max()
+    cx, cy = measured.center_px
+    h, w = measured.image_shape[:2]
+    e = REGION_EDGE_PX
+
+    def inside(x, y):
+        return (x >= e) & (x <= w - 1 - e) & (y >= e) & (y <= h - 1 - e)
+
+    return ((r >= r_lo) & (r <= r_hi)
+            & (inside(cx + pred_px[:, 0], cy + pred_px[:, 1]) | inside(cx - pred_px[:, 0], cy - pred_px[:, 1])))
+
+
+def _absent_share(zf: _ZoneFacts, asg: _Assignment, region: np.ndarray) -> tuple[np.ndarray, float]:
+    """Rows seen (or their Friedel mate seen) and A, the share of kinematic intensity in the region not seen."""
+    seen = np.zeros(len(zf.xy_inv_nm), bool)
+    seen[asg.j[asg.ok]] = True
+    seen_pair = seen | np.where(zf.mate >= 0, seen[np.maximum(zf.mate, 0)], False)
+    strength = zf.strength * region
     total = float(strength.sum())
-    absent = float(strength[~seen_pair].sum() / total) if total > 0 else 0.0
+    return seen_pair, float(strength[~seen_pair].sum() / total) if total > 0 else 0.0
 
-    # intensity agreement (rank correlation; dynamical intensities differ, so it weighs little)
-    idx_allowed = np.flatnonzero(ok & np.array([k == "allowed" for k in kinds], bool))
-    rank = 0.75  # neutral when the kinematic intensities do not discriminate
-    if len(idx_allowed) >= 5:
-        pi_ = np.round(np.log10(np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)), 2)
-        mi = spots.intensity[idx_allowed]
-        if len(np.unique(pi_)) >= 2 and np.ptp(mi) > 0:
-            rho = spearman_rho(mi, pi_)
-            rank = float(max(0.0, rho)) if np.isfinite(rho) else 0.5
-    # kinematically strong spots measured far weaker than the rest (robust: only > 10x off the median ratio)
-    misfit = 0.0
-    if len(idx_allowed) >= 5:
-        pred = np.maximum(f_rel[j[idx_allowed]] ** 2, 1e-12)
-        ratio = np.log(np.maximum(spots.intensity[idx_allowed], 1e-12) / pred)
-        off = ratio < _weighted_median(ratio, spots.weight[idx_allowed]) - math.log(INTENSITY_MISFIT_FACTOR)
-        misfit = float(np.sum(spots.weight[idx_allowed][off]) / max(np.sum(spots.weight[idx_allowed]), 1e-12))
-    scale_term = 1.0
-    scale_err = None
-    if calibrated_scale is not None:
-        scale_err = scale / calibrated_scale - 1.0
-        scale_term = math.exp(-0.5 * (scale_err / max(length_tol / 1.5, 1e-6)) ** 2)
+
+def _intensity_terms(zf: _ZoneFacts, spots: SpotSet, asg: _Assignment) -> tuple[float, float]:
+    """T (rank agreement of measured and kinematic intensities) and D (strong reflections all but missing)."""
+    idx = np.flatnonzero(asg.code == _ALLOWED)
+    if len(idx) < INTENSITY_TERMS_MIN_SPOTS:
+        return RANK_NEUTRAL, 0.0
+    kin = np.maximum(zf.f_rel[asg.j[idx]] ** 2, TINY)
+    meas = spots.intensity[idx]
+    rank = RANK_NEUTRAL
+    kin_log = np.round(np.log10(kin), LOG_INTENSITY_DECIMALS)
+    if len(np.unique(kin_log)) >= 2 and np.ptp(meas) > 0:
+        rho = spearman_rho(meas, kin_log)
+        rank = float(max(0.0, rho)) if np.isfinite(rho) else RANK_UNDEFINED
+    w = spots.weight[idx]
+    ratio = np.log(np.maximum(meas, TINY) / kin)
+    off = ratio < weighted_median(ratio, w) - math.log(INTENSITY_MISFIT_FACTOR)
+    return rank, float(np.sum(w[off]) / max(np.sum(w), TINY))
+
+
+def _scale_term(scale: float, calibrated_scale: float | None, length_tol: float) -> tuple[float, float | None]:
+    """S and the relative scale error (1 and None when uncalibrated)."""
+    if calibrated_scale is None:
+        return 1.0, None
+    err = scale / calibrated_scale - 1.0
+    return math.exp(-0.5 * (err / max(length_tol / SCALE_TOLERANCE_SIGMAS, SCALE_SIGMA_FLOOR)) ** 2), err
+
+
+def _zone_prior(uvw) -> float:
+    """Z: a faint preference for the low-index zone among patterns of identical geometry."""
     idx = max(abs(v) for v in uvw)
-    zone_term = 1.0 - 0.004 * (idx - 1) - 0.01 * max(0, idx - 3)
-    score = agreement * (1.0 - 0.5 * absent) * (0.85 + 0.15 * rank) * (1.0 - 0.3 * misfit) * scale_term * zone_term
+    return 1.0 - ZONE_PRIOR_PER_INDEX * (idx - 1) - ZONE_PRIOR_PER_INDEX_ABOVE_KNEE * max(0, idx - ZONE_PRIOR_KNEE_INDEX)
 
-    # per-spot records
-    use_scale = calibrated_scale if calibrated_scale is not None else scale
-    cx0, cy0 = measured.center_px
-    hex_axes = phase.is_hexagonal
-    recs = []
-    d_err, a_err = [], []
-    for i in range(n):
-        k = kinds[i]
-        x_px = float(measured.spots.x_px[i])
-        y_px = float(measured.spots.y_px[i])
-        vc = spots.v_px[i] - shift  # from the refined centre
-        r = float(np.hypot(vc[0], vc[1]))
-        d_meas = 1.0 / (use_scale * r) if r > 0 else float("inf")
-        if k in ("allowed", "double-diffraction", "forbidden"):
-            h = tuple(int(v) for v in zp.hkl[j[i]])
-            d_calc = float(1.0 / zp.g_inv_nm[j[i]])
-            res = float(dmin[i])
-            ic = float(f_rel[j[i]] ** 2) if allowed[j[i]] else 0.0
-            if k == "allowed":
-                d_err.append(abs(d_meas - d_calc) / d_calc * 100.0)
-                pv = pred_px[j[i]] - shift
-                cosang = float(vc @ pv) / (r * float(np.linalg.norm(pv)))
-                a_err.append(math.degrees(math.acos(max(-1.0, min(1.0, cosang)))))
-        elif k == "holz-projection":
-            h = tuple(int(v) for v in holz_hkl[holz_j[i]])
-            gp = float(np.linalg.norm(holz_xy[holz_j[i]]))
-            d_calc = 1.0 / gp if gp > 0 else None
-            res = float(np.linalg.norm(spots.v_px[i] - holz_xy[holz_j[i]] @ lin.T - shift))
-            ic = None
-            proj_den, proj = projected_plane(lat.metric_tensor_nm2, h, uvw)
-        else:
-            h, d_calc, res, ic = None, None, None, None
-        if k != "holz-projection":
-            proj_den, proj = 1, None
-        hkil = tuple(int(v) for v in plane_to_4(np.array(h))) if (h is not None and hex_axes) else None
-        recs.append(IndexedSpot(i, x_px, y_px, float(spots.intensity[i]), h, hkil, k, d_meas, d_calc, res, ic,
-                                None if proj is None else tuple(int(v) for v in proj), int(proj_den)))
 
+# --- step 4: what leaves the scorer ----------------------------------------------------------------
+
+def _spot_records(zf: _ZoneFacts, spots: SpotSet, measured, fmap: _Map, asg: _Assignment, *, use_scale: float,
+                  phase) -> tuple[tuple[IndexedSpot, ...], np.ndarray, np.ndarray]:
+    """One IndexedSpot per measured spot, and the d-spacing (%) and angle (deg) errors of the allowed ones."""
+    n = len(asg.j)
+    code, jj = asg.code, np.maximum(asg.j, 0)
+    vc = spots.v_px - fmap.shift  # from the refined centre
+    r = np.hypot(vc[:, 0], vc[:, 1])
+    d_meas = np.divide(1.0, use_scale * r, out=np.full(n, np.inf), where=r > 0)
+    zolz = asg.ok  # allowed, double diffraction or forbidden
+    holz = code == _HOLZ
+    hj = np.maximum(asg.holz_j, 0)
+    has_holz = len(zf.holz_hkl) > 0
+    hkl = np.zeros((n, 3), np.int64)
+    hkl[zolz] = zf.zp.hkl[jj[zolz]]
+    d_calc = np.full(n, np.nan)
+    d_calc[zolz] = zf.d_nm[jj[zolz]]
+    res = np.where(zolz, asg.dmin, asg.holz_res)
+    ic = np.where(zf.allowed[jj], zf.strength[jj], 0.0) if len(zf.allowed) else np.zeros(n)
+    proj = np.zeros((n, 3), np.int64)
+    den = np.ones(n, np.int64)
+    if has_holz:
+        hkl[holz] = zf.holz_hkl[hj[holz]]
+        d_calc[holz] = zf.holz_d_nm[hj[holz]]
+        proj[holz] = zf.holz_proj_hkl[hj[holz]]
+        den[holz] = zf.holz_proj_den[hj[holz]]
+    has_hkl = zolz | holz
+    hkil = plane_to_4(hkl).tolist() if phase.is_hexagonal else None
+    allowed = code == _ALLOWED
+    d_err = np.abs(d_meas[allowed] - d_calc[allowed]) / d_calc[allowed] * 100.0
+    pv = fmap.pred_px[jj[allowed]] - fmap.shift
+    cosang = np.sum(vc[allowed] * pv, axis=1) / (r[allowed] * np.sqrt(pv[:, 0] ** 2 + pv[:, 1] ** 2))
+    a_err = np.degrees(np.arccos(np.clip(cosang, -1.0, 1.0)))
+    kinds = _KIND_BY_CODE[code]
+    rows = zip(range(n), measured.spots.x_px.tolist(), measured.spots.y_px.tolist(), spots.intensity.tolist(), hkl.tolist(),
+               hkil if hkil is not None else [None] * n, kinds, d_meas.tolist(), d_calc.tolist(), res.tolist(),
+               ic.tolist(), proj.tolist(), den.tolist(), has_hkl.tolist(), zolz.tolist(), holz.tolist())
+    recs = tuple(
+        IndexedSpot(i, x, y, inten, tuple(h) if has else None, tuple(h4) if (has and h4 is not None) else None, k, dm,
+                    (dc if dc == dc else None) if has else None, rs if has else None, icv if z else None,
+                    tuple(p) if hz else None, pd if hz else 1)
+        for i, x, y, inten, h, h4, k, dm, dc, rs, icv, p, pd, has, z, hz in rows)
+    return recs, d_err, a_err
+
+
+def _notes(measured, fmap: _Map, fit_distortion: bool, n_assigned: int) -> tuple[str, ...]:
+    """Sentences for the microscopist about the refined centre and a fitted projector ellipse."""
     notes = []
-    if float(np.hypot(*shift)) >= 1.0:
+    cx0, cy0 = measured.center_px
+    shift = fmap.shift
+    if float(np.hypot(*shift)) >= CENTRE_NOTE_PX:
         notes.append(f"the spots fit best about a centre {float(np.hypot(*shift)):.1f} px from the measured one "
                      f"(at {cx0 + shift[0]:.1f}, {cy0 + shift[1]:.1f} px)")
-    if fit_distortion and aniso_pct >= 0.6 and np.count_nonzero(ok) >= 6:
-        notes.append(f"the spot lattice is stretched {aniso_pct:.1f} % along {aniso_deg:.0f} deg (a projector "
-                     "ellipse?): a ring calibration ('saed calibrate') measures and then corrects it")
-    u = orientation_matrix(lat, uvw, math.degrees(phi))
-    cam = None
-    if pixel_pitch_um is not None:
-        from saed.physics import camera_length_from_scale_mm
+    if fit_distortion and fmap.aniso_pct >= DISTORTION_NOTE_PCT and n_assigned >= DISTORTION_NOTE_MIN_SPOTS:
+        notes.append(f"the spot lattice is stretched {fmap.aniso_pct:.1f} % along {fmap.aniso_deg:.0f} deg (a "
+                     "projector ellipse?): a ring calibration ('saed calibrate') measures and then corrects it")
+    return tuple(notes)
 
-        cam = camera_length_from_scale_mm(scale, pixel_pitch_um, tables.voltage_kv)
-    show = (allowed | dd) & (zp.g_inv_nm <= tables.max_g_inv_nm)
-    cx, cy = measured.center_px
-    pred_abs = pred_px[show] + np.array([cx, cy])[None, :]
-    sol = Solution(
-        phase_name=phase.name, zone_axis=uvw,
-        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if hex_axes else None,
-        orientation_matrix=u, in_plane_rotation_deg=float(math.degrees(phi) % 360.0), scale_inv_nm_per_px=float(scale),
-        score=float(score), indexed=tuple(recs),
-        mean_d_error_pct=float(np.mean(d_err)) if d_err else float("nan"),
-        mean_angle_error_deg=float(np.mean(a_err)) if a_err else float("nan"),
-        structure_type=phase.structure_type, implied_camera_length_mm=cam, notes=tuple(notes),
-        scale_error_pct=None if scale_err is None else 100.0 * scale_err,
-        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
-               ("scale", scale_term), ("zone_prior", zone_term), ("distortion_pct", aniso_pct),
-               ("distortion_axis_deg", aniso_deg), ("center_shift_x_px", float(shift[0])),
-               ("center_shift_y_px", float(shift[1]))),
-        predicted_xy_px=pred_abs, predicted_hkl=zp.hkl[show], predicted_intensity=np.where(allowed, f_rel ** 2, 0.0)[show],
-        predicted_kind=tuple("allowed" if a else "double-diffraction" for a in allowed[show]),
-    )
-    fit = Fit(table=pt, zone=zp, uvw=uvw, phi_deg=math.degrees(phi), scale=float(scale), assigned=np.where(ok, j, -1),
-              kinds=tuple(kinds), predicted_px=pred_px, seen=seen_pair, in_region=region,
-              holz_hkl=np.array([holz_hkl[x] if x >= 0 else [0, 0, 0] for x in holz_j], np.int64).reshape(-1, 3),
-              holz_xy_inv_nm=(holz_xy @ lin.T) * scale)
-    return sol, fit
 
+# --- cached zone facts -----------------------------------------------------------------------------
 
 @lru_cache(maxsize=4096)
-def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: float):
+def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: float) -> _ZoneFacts:
     pt = pt_ref()
     zp = zone_pattern(pt.phase, uvw, voltage_kv=voltage_kv, max_g_inv_nm=max_g_inv_nm, include_holz=False,
-                      thickness_nm=50.0)
+                      thickness_nm=ZONE_THICKNESS_NM)
     u0 = orientation_matrix(pt.phase.lattice, uvw, 0.0)
     holz_xy, holz_hkl = _holz_projections(pt, zp, uvw, u0)
-    return zp, _friedel_rows(zp.hkl), holz_xy, holz_hkl
+    allowed = ~zp.kinematically_forbidden
+    f_rel = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
+    holz_g = np.linalg.norm(holz_xy, axis=1)
+    metric = pt.phase.lattice.metric_tensor_nm2
+    proj = [projected_plane(metric, h, uvw) for h in holz_hkl.tolist()]  # once per zone, a few rows
+    return _ZoneFacts(
+        zp=zp, u0=u0, xy_inv_nm=np.asarray(zp.xy_inv_nm, float), allowed=allowed, double=np.asarray(zp.double_diffraction),
+        f_rel=f_rel, strength=np.where(allowed, f_rel ** 2, 0.0), d_nm=_inverse(np.asarray(zp.g_inv_nm, float)),
+        mate=_friedel_rows(zp.hkl), holz_xy_inv_nm=holz_xy, holz_hkl=holz_hkl,
+        holz_d_nm=_inverse(holz_g),
+        holz_proj_hkl=np.array([p for _, p in proj], np.int64).reshape(-1, 3),
+        holz_proj_den=np.array([d for d, _ in proj], np.int64))
 
 
-def _zone_facts(pt: PhaseIndexTable, uvw: tuple, voltage_kv: float, max_g_inv_nm: float):
+def _inverse(g: np.ndarray) -> np.ndarray:
+    """1/g, nan where g is 0 (the direct beam has no spacing)."""
+    return np.divide(1.0, g, out=np.full(len(g), np.nan), where=g > 0)
+
+
+def _zone_facts(pt: PhaseIndexTable, uvw: tuple, voltage_kv: float, max_g_inv_nm: float) -> _ZoneFacts:
     """The zone pattern of a candidate zone plus what scoring derives from it (cached per zone)."""
-    import weakref
-
     return _zone_facts_cached(weakref.ref(pt), uvw, voltage_kv, max_g_inv_nm)  # a weak key: tables are not pinned
-
-
-#: Largest elliptical distortion (axis ratio - 1) the refinement absorbs when the calibration states none.
-MAX_FITTED_DISTORTION = 0.03
 
 
 def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool,
@@ -340,7 +576,7 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
     rows[n:, 0], rows[n:, 1], rows[n:, 3] = p[:, 1], p[:, 0], 1.0
     rhs = np.concatenate([v[:, 0], v[:, 1]])
     ww = np.concatenate([sw, sw])
-    use_shift = n >= 3 and t_max_px > 0
+    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
     cols = [0, 1, 2, 3] if use_shift else [0, 1]
     sol, *_ = np.linalg.lstsq(rows[:, cols] * ww[:, None], rhs * ww, rcond=None)
     a, b = sol[0], sol[1]
@@ -350,11 +586,11 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
         sol, *_ = np.linalg.lstsq(rows[:, :2] * ww[:, None], (rhs - np.repeat(t, n)) * ww, rcond=None)
         a, b = sol
     sim = np.array([[a, -b], [b, a]])
-    if not distortion or n < 4:
+    if not distortion or n < DISTORTION_MIN_SPOTS:
         return sim, t
     q = v - t
     m = (p * w[:, None]).T @ p
-    if np.linalg.cond(m) > 1e6:
+    if _condition_2x2(m) > DISTORTION_MAX_CONDITION:
         return sim, t
     lin = ((q * w[:, None]).T @ p) @ np.linalg.inv(m)
     if np.linalg.det(lin) <= 0:
@@ -367,6 +603,17 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
     lim = math.sqrt(1.0 + MAX_FITTED_DISTORTION)
     ev = np.clip(ev / mean, 1.0 / lim, lim) * mean
     return rot @ (qv @ np.diag(ev) @ qv.T), t
+
+
+def _condition_2x2(m: np.ndarray) -> float:
+    """Condition number of a symmetric positive semi-definite 2x2 matrix (ratio of its eigenvalues).
+
+    np.linalg.cond in closed form (an SVD per refinement round is a tenth of the scorer's time).
+    """
+    half_trace = 0.5 * (m[0, 0] + m[1, 1])
+    root = math.hypot(0.5 * (m[0, 0] - m[1, 1]), m[0, 1])
+    lo = half_trace - root
+    return (half_trace + root) / lo if lo > 0 else math.inf
 
 
 def _anisotropy(lin: np.ndarray) -> tuple[float, float]:
@@ -399,16 +646,17 @@ def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):
         return empty
     shift = q[first[np.argmin(np.linalg.norm(q[first], axis=1))]]
     lattice_like = False
-    for m in (2, 3):
+    for m in HOLZ_LATTICE_FRACTIONS:
         d = np.min(np.linalg.norm(zolz - m * shift[None, :], axis=1))
-        if d < 1e-3 * max(1.0, float(np.linalg.norm(m * shift))) or np.linalg.norm(m * shift) < 1e-9:
+        reach = float(np.linalg.norm(m * shift))
+        if d < HOLZ_COINCIDENCE_INV_NM * max(1.0, reach) or reach < 1e-9:  # 1e-9: a zero shift
             lattice_like = True
             break
     if not lattice_like:
         return empty
     # drop projections that coincide with zero-layer reflections
-    dz = np.min(np.linalg.norm(q[:, None, :] - zolz[None, :, :], axis=2), axis=1)
-    keep = dz > 1e-3
+    _, dz = _nearest(q, zolz)
+    keep = dz > HOLZ_COINCIDENCE_INV_NM
     return q[keep], pt.hkl[sel][keep]
 
 
@@ -417,8 +665,8 @@ def _average_ranks(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     order = np.argsort(x, kind="mergesort")
     xs = x[order]
-    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
-    ends = np.r_[starts[1:], len(xs)]
+    starts = np.flatnonzero(np.concatenate(([True], xs[1:] != xs[:-1])))
+    ends = np.append(starts[1:], len(xs))
     mean_rank = (starts + ends + 1) / 2.0  # ranks start+1 .. end, averaged
     ranks = np.empty(len(x))
     ranks[order] = np.repeat(mean_rank, ends - starts)
@@ -440,13 +688,31 @@ def spearman_rho(a, b) -> float:
     return float(ra @ rb) / den if den > 0 else float("nan")
 
 
-def _weighted_median(x: np.ndarray, w: np.ndarray) -> float:
+def weighted_median(x: np.ndarray, w: np.ndarray) -> float:
+    """The weighted median: the smallest x whose cumulative weight reaches half the total.
+
+    This is numpy's ``np.quantile(x, 0.5, weights=w, method="inverted_cdf")`` (the inverted
+    empirical CDF, Hyndman & Fan 1996, definition 1), which tests/test_score_steps.py checks it
+    against; written out because the library call costs about ten times as much on the 5-60 values
+    of a pattern, once per scored candidate. With no weight at all it returns the smallest x.
+
+    >>> weighted_median(np.array([1.0, 2.0, 10.0]), np.array([0.2, 0.2, 0.6]))
+    10.0
+    """
+    x, w = np.asarray(x, float), np.asarray(w, float)
     order = np.argsort(x)
     c = np.cumsum(w[order])
     return float(x[order][np.searchsorted(c, 0.5 * c[-1])])
 
 
 def _friedel_rows(hkl: np.ndarray) -> np.ndarray:
-    """Row of -hkl for every row (-1 where absent)."""
-    lookup = {tuple(r): i for i, r in enumerate(np.asarray(hkl).tolist())}
-    return np.array([lookup.get(tuple(-v for v in r), -1) for r in np.asarray(hkl).tolist()], dtype=np.int64)
+    """Row of -hkl for every row (-1 where absent), by a sorted-key lookup."""
+    h = np.asarray(hkl, np.int64).reshape(-1, 3)
+    if len(h) == 0:
+        return np.zeros(0, np.int64)
+    span = int(np.abs(h).max())
+    keys = hkl_keys(h, span)
+    order = np.argsort(keys, kind="stable")
+    mate_keys = hkl_keys(-h, span)
+    at = np.minimum(np.searchsorted(keys[order], mate_keys), len(h) - 1)
+    return np.where(keys[order][at] == mate_keys, order[at], _NO_ROW).astype(np.int64)

@@ -8,16 +8,42 @@ detector frame (x || columns, y || rows, z along the beam), and U . [uvw] is par
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from enum import StrEnum
 
 import numpy as np
 
 from saed.image.values import MeasuredPattern
 from saed.readonly import frozen_array
 
-__all__ = ["IndexedSpot", "Mistilt", "TiltAdvice", "Lookalike", "Solution", "IndexResult", "SPOT_KINDS"]
+__all__ = ["IndexedSpot", "Mistilt", "TiltAdvice", "Lookalike", "Solution", "IndexResult", "SpotKind", "SPOT_KINDS",
+           "INDEXED_KINDS", "EXPLAINED_KINDS"]
 
-#: What a measured spot was explained as (``IndexedSpot.kind``).
-SPOT_KINDS = ("allowed", "double-diffraction", "forbidden", "holz-projection", "unindexed")
+
+class SpotKind(StrEnum):
+    """What a measured spot was explained as (``IndexedSpot.kind``).
+
+    A :class:`enum.StrEnum`: every member *is* its text, so JSON output, CSS class names and
+    comparisons such as ``kind == "allowed"`` see the same strings as before the Enum.
+    """
+
+    #: a kinematically allowed zero-order Laue-zone reflection
+    ALLOWED = "allowed"
+    #: kinematically forbidden, but reachable as g1 + g2 of two allowed reflections of the zone
+    DOUBLE_DIFFRACTION = "double-diffraction"
+    #: kinematically forbidden with no double-diffraction route
+    FORBIDDEN = "forbidden"
+    #: the projection of a higher-order Laue-zone reflection (thin foils, faults)
+    HOLZ_PROJECTION = "holz-projection"
+    #: nothing predicted there
+    UNINDEXED = "unindexed"
+
+
+#: Every spot kind, in declaration order.
+SPOT_KINDS = tuple(SpotKind)
+#: Kinds that count as indexed reflections of the solution (``Solution.n_indexed``).
+INDEXED_KINDS = frozenset({SpotKind.ALLOWED, SpotKind.DOUBLE_DIFFRACTION})
+#: Kinds with any explanation (``Solution.n_explained``).
+EXPLAINED_KINDS = INDEXED_KINDS | {SpotKind.HOLZ_PROJECTION}
 
 
 @dataclass(frozen=True)
@@ -25,7 +51,7 @@ class IndexedSpot:
     """One measured spot and the reflection it was assigned to.
 
     ``hkl`` is the 3-index reflection of the conventional cell (``hkil`` the 4-index form for
-    hexagonal axes, else None); ``kind`` is one of :data:`SPOT_KINDS`: a kinematically allowed
+    hexagonal axes, else None); ``kind`` is a :class:`SpotKind`: a kinematically allowed
     zero-order reflection, a forbidden one reachable by double diffraction, a forbidden one with
     no route, the projection of a higher-order Laue-zone reflection (thin foils, faults), or
     nothing at all (``hkl`` None). For a projection ``hkl`` is the 3-D reflection and ``projected_hkl``
@@ -38,7 +64,7 @@ class IndexedSpot:
     intensity: float
     hkl: tuple[int, int, int] | None
     hkil: tuple[int, int, int, int] | None
-    kind: str
+    kind: SpotKind
     d_nm_measured: float
     d_nm_calc: float | None
     residual_px: float | None
@@ -47,6 +73,10 @@ class IndexedSpot:
     #: ``projected_denominator`` (fcc [111]: -200 -> (-4 2 2) / 3, a 1/3{422} position; d_nm_calc is its spacing)
     projected_hkl: tuple[int, int, int] | None = None
     projected_denominator: int = 1
+
+    def __post_init__(self):
+        if type(self.kind) is not SpotKind:  # a plain string from older callers: checked, then the member
+            object.__setattr__(self, "kind", SpotKind(self.kind))
 
     @property
     def d_error_pct(self) -> float | None:
@@ -183,7 +213,7 @@ class Solution:
     predicted_xy_px: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros((0, 2)), float))
     predicted_hkl: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros((0, 3)), np.int64))
     predicted_intensity: np.ndarray = field(default_factory=lambda: frozen_array(np.zeros(0), float))
-    predicted_kind: tuple[str, ...] = ()
+    predicted_kind: tuple[SpotKind, ...] = ()
 
     def __post_init__(self):
         object.__setattr__(self, "orientation_matrix", frozen_array(self.orientation_matrix, float))
@@ -200,12 +230,12 @@ class Solution:
     @property
     def n_indexed(self) -> int:
         """Spots explained as allowed or double-diffraction reflections."""
-        return sum(1 for s in self.indexed if s.kind in ("allowed", "double-diffraction"))
+        return sum(1 for s in self.indexed if s.kind in INDEXED_KINDS)
 
     @property
     def n_explained(self) -> int:
         """Spots with any explanation (also projected higher-order Laue-zone spots)."""
-        return sum(1 for s in self.indexed if s.kind in ("allowed", "double-diffraction", "holz-projection"))
+        return sum(1 for s in self.indexed if s.kind in EXPLAINED_KINDS)
 
     def term(self, name: str) -> float | None:
         return dict(self.terms).get(name)
