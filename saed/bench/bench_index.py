@@ -147,11 +147,9 @@ def accuracy_cases(*, seed: int = 2024, per_phase: int = ZONES_PER_PHASE):
 
 
 def _indexable(v: np.ndarray) -> bool:
-    if len(v) < 6:
-        return False
-    u = v / np.linalg.norm(v, axis=1, keepdims=True)
-    cross = np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0])
-    return bool(np.any(cross > 0.2))
+    from saed.vectors2d import spans_plane
+
+    return len(v) >= 6 and spans_plane(v)  # the matcher's own test of a second row
 
 
 def _is_truth(sol, truth, tables) -> bool:

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from saed.index.tables import IndexTables, PhaseIndexTable
+from saed.vectors2d import spans_plane
 
 __all__ = ["SpotSet", "Candidate", "spot_set", "seed_pairs", "find_candidates"]
 
@@ -120,25 +121,18 @@ def seed_pairs(spots: SpotSet, *, max_seeds: int = 5, max_pairs: int = 8) -> lis
                 break
         if not dup:
             seeds.append(int(i))
-        if len(seeds) >= max_seeds and _spans_plane(spots.v_seed_px[seeds]):
+        if len(seeds) >= max_seeds and spans_plane(spots.v_seed_px[seeds]):
             break
     pairs = []
     for ai in range(len(seeds)):
         for bi in range(ai + 1, len(seeds)):
             a, b = spots.v_seed_px[seeds[ai]], spots.v_seed_px[seeds[bi]]
-            s = abs(a[0] * b[1] - a[1] * b[0]) / (np.linalg.norm(a) * np.linalg.norm(b))
-            if s < math.sin(math.radians(12.0)):
+            if not spans_plane((a, b)):
                 continue
             n_weak = int(not spots.strong[seeds[ai]]) + int(not spots.strong[seeds[bi]])
             pairs.append((n_weak, np.linalg.norm(a) + np.linalg.norm(b), ai, bi, a.copy(), b.copy()))
     pairs.sort(key=lambda t: (t[0], t[1], t[2], t[3]))  # strong pairs first, then the shortest
     return [(a, b) for _, _, _, _, a, b in pairs[:max_pairs]]
-
-
-def _spans_plane(v: np.ndarray) -> bool:
-    u = v / np.linalg.norm(v, axis=1, keepdims=True)
-    cross = np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0])
-    return bool(np.any(cross > math.sin(math.radians(12.0))))
 
 
 def _range(sorted_vals: np.ndarray, lo: float, hi: float) -> tuple[int, int]:

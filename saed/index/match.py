@@ -8,15 +8,15 @@ The public entry points are :func:`index_pattern` (a :class:`MeasuredPattern` in
 from __future__ import annotations
 
 import logging
-import math
 import numpy as np
 
 from saed.errors import InputError
 from saed.image.values import MeasuredPattern
-from saed.index.candidates import find_candidates, spot_set
+from saed.index.candidates import find_candidates, seed_pairs, spot_set
 from saed.index.score import score_candidate
 from saed.index.tables import IndexTables
 from saed.index.values import IndexResult, Solution
+from saed.vectors2d import MIN_SPAN_ANGLE_DEG
 
 __all__ = ["index_pattern", "index_image", "MIN_SCORE", "DEFAULT_LENGTH_TOL_PCT", "DEFAULT_ANGLE_TOL_DEG"]
 
@@ -113,9 +113,10 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         angle_tol = max(angle_tol, 3.0 * float(measured.basis.sigma_angle_deg))
     if not 0 < angle_tol < 30:
         raise InputError(f"angle tolerance {angle_tol:g} deg must lie between 0 and 30 deg")
-    if not _non_collinear(spots.v_px):
-        return IndexResult(measured, (), f"the {n} spots lie on one line: a single systematic row cannot fix a "
-                           "zone axis (tilt to a zone where a second row is excited)", phases=names)
+    if not seed_pairs(spots):  # the seeds' own test (saed.vectors2d.spans_plane): passing it, a pair exists
+        return IndexResult(measured, (), f"the {n} spots lie on one line (no two directions {MIN_SPAN_ANGLE_DEG:g} deg "
+                           "apart): a single systematic row cannot fix a zone axis (tilt to a zone where a second "
+                           "row is excited)", phases=names)
     pitch = cal.pixel_pitch_um if cal is not None else None
     if holder_alpha_axis_deg is None and cal is not None:
         holder_alpha_axis_deg = cal.alpha_axis_deg  # measured for this camera length, in the calibration file
@@ -228,17 +229,6 @@ def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_
             best[key] = (sol, fit)
     ranked = sorted(best.values(), key=lambda t: (-t[0].score, t[0].phase_name, t[0].zone_axis))
     return ranked, n_hits
-
-
-def _non_collinear(v: np.ndarray) -> bool:
-    r = np.linalg.norm(v, axis=1)
-    keep = r > 1e-9
-    v, r = v[keep], r[keep]
-    if len(v) < 2:
-        return False
-    u = v / r[:, None]
-    cross = np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0])
-    return bool(np.any(cross > math.sin(math.radians(8.0))))
 
 
 def _zone_text(sol: Solution) -> str:
