@@ -323,13 +323,13 @@ def _sigma_px(spots: SpotSet, rel_tol: float) -> np.ndarray:
     return np.sqrt(spots.sigma_px ** 2 + (rel_tol * spots.r_px) ** 2 + POSITION_FLOOR_PX ** 2)
 
 
-def _assign(spots: SpotSet, pred_px: np.ndarray, rel_tol: float):
-    """Nearest predicted row for every spot, its distance and the position sigma."""
+def _assign(spots: SpotSet, pred_px: np.ndarray, sigma: np.ndarray):
+    """Nearest predicted row for every spot, its distance and the position sigma (`sigma`: from _sigma_px)."""
     n = len(spots.r_px)
     if len(pred_px) == 0:
         return np.full(n, _NO_ROW), np.full(n, np.inf), np.ones(n)
     j, dmin = _nearest(spots.v_px, pred_px)
-    return j, dmin, _sigma_px(spots, rel_tol)
+    return j, dmin, sigma
 
 
 def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol, rel_pos_tol,
@@ -342,8 +342,9 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
     shift = np.zeros(2)
     t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
     explains = zf.allowed | zf.double
+    spot_sigma = _sigma_px(spots, rel_pos_tol)
     for _ in range(REFINE_ROUNDS):
-        j, dmin, sigma = _assign(spots, xy @ lin.T + shift, rel_pos_tol)
+        j, dmin, sigma = _assign(spots, xy @ lin.T + shift, spot_sigma)
         ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
         use = ok & explains[np.maximum(j, 0)] if len(xy) else ok
         if np.count_nonzero(use) < 2:
@@ -371,7 +372,7 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
 def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, rel_pos_tol: float) -> _Assignment:
     """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none."""
     n = len(spots.r_px)
-    j, dmin, sigma = _assign(spots, fmap.pred_px, rel_pos_tol)
+    j, dmin, sigma = _assign(spots, fmap.pred_px, _sigma_px(spots, rel_pos_tol))
     ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
     holz_j = np.full(n, _NO_ROW)
