@@ -463,7 +463,8 @@ def _scale_term(scale: float, calibrated_scale: float | None, length_tol: float)
 def _zone_prior(uvw) -> float:
     """Z: a faint preference for the low-index zone among patterns of identical geometry."""
     idx = max(abs(v) for v in uvw)
-    return 1.0 - ZONE_PRIOR_PER_INDEX * (idx - 1) - ZONE_PRIOR_PER_INDEX_ABOVE_KNEE * max(0, idx - ZONE_PRIOR_KNEE_INDEX)
+    above_knee = max(0, idx - ZONE_PRIOR_KNEE_INDEX)
+    return 1.0 - ZONE_PRIOR_PER_INDEX * (idx - 1) - ZONE_PRIOR_PER_INDEX_ABOVE_KNEE * above_knee
 
 
 # --- step 4: what leaves the scorer ----------------------------------------------------------------
@@ -501,12 +502,12 @@ def _spot_records(zf: _ZoneFacts, spots: SpotSet, measured, fmap: _Map, asg: _As
     cosang = np.sum(vc[allowed] * pv, axis=1) / (r[allowed] * np.sqrt(pv[:, 0] ** 2 + pv[:, 1] ** 2))
     a_err = np.degrees(np.arccos(np.clip(cosang, -1.0, 1.0)))
     kinds = _KIND_BY_CODE[code]
-    rows = zip(range(n), measured.spots.x_px.tolist(), measured.spots.y_px.tolist(), spots.intensity.tolist(), hkl.tolist(),
-               hkil if hkil is not None else [None] * n, kinds, d_meas.tolist(), d_calc.tolist(), res.tolist(),
-               ic.tolist(), proj.tolist(), den.tolist(), has_hkl.tolist(), zolz.tolist(), holz.tolist())
+    rows = zip(range(n), measured.spots.x_px.tolist(), measured.spots.y_px.tolist(), spots.intensity.tolist(),
+               hkl.tolist(), hkil if hkil is not None else [None] * n, kinds, d_meas.tolist(), d_calc.tolist(),
+               res.tolist(), ic.tolist(), proj.tolist(), den.tolist(), has_hkl.tolist(), zolz.tolist(), holz.tolist())
     recs = tuple(
         IndexedSpot(i, x, y, inten, tuple(h) if has else None, tuple(h4) if (has and h4 is not None) else None, k, dm,
-                    (dc if dc == dc else None) if has else None, rs if has else None, icv if z else None,
+                    None if (not has or math.isnan(dc)) else dc, rs if has else None, icv if z else None,
                     tuple(p) if hz else None, pd if hz else 1)
         for i, x, y, inten, h, h4, k, dm, dc, rs, icv, p, pd, has, z, hz in rows)
     return recs, d_err, a_err
@@ -541,7 +542,8 @@ def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: floa
     metric = pt.phase.lattice.metric_tensor_nm2
     proj = [projected_plane(metric, h, uvw) for h in holz_hkl.tolist()]  # once per zone, a few rows
     return _ZoneFacts(
-        zp=zp, u0=u0, xy_inv_nm=np.asarray(zp.xy_inv_nm, float), allowed=allowed, double=np.asarray(zp.double_diffraction),
+        zp=zp, u0=u0, xy_inv_nm=np.asarray(zp.xy_inv_nm, float), allowed=allowed,
+        double=np.asarray(zp.double_diffraction),
         f_rel=f_rel, strength=np.where(allowed, f_rel ** 2, 0.0), d_nm=_inverse(np.asarray(zp.g_inv_nm, float)),
         mate=_friedel_rows(zp.hkl), holz_xy_inv_nm=holz_xy, holz_hkl=holz_hkl,
         holz_d_nm=_inverse(holz_g),
