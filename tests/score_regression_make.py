@@ -27,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from saed.calibration import Calibration, Ellipse
+from saed.calibration import Calibration
 from saed.crystal import builtin_phase
 from saed.image.values import MeasuredPattern, Spots
 from saed.index.candidates import find_candidates, spot_set
