@@ -82,3 +82,39 @@ def test_a_misspelt_spot_kind_is_refused():
 
     with pytest.raises(ValueError):
         IndexedSpot(0, 1.0, 2.0, 3.0, None, None, "allowd", 0.2, None, None)
+
+
+@settings(max_examples=200, deadline=None)
+@given(arrays(np.int64, st.tuples(st.integers(1, 30), st.integers(1, 5)), elements=st.integers(-3, 3)))
+def test_first_lexicographic_min_is_pythons_min_over_tuples(keys):
+    from saed.index.tables import first_lexicographic_min
+
+    assert first_lexicographic_min(keys) == min(range(len(keys)), key=lambda i: tuple(keys[i].tolist()))
+
+
+def test_canonical_zone_and_orientation_as_written_with_tuples():
+    """The readable zone of every zone up to index 3 of cubic, hexagonal and tetragonal phases, as the tuple rule
+    (fewest negative indices then ascending; hexagonal: largest [UVTW] with W >= 0) picks it, written out here."""
+    from saed.crystal import builtin_phase
+    from saed.crystal.miller import direction_to_4
+    from saed.index.tables import prepare_phases
+
+    tables = prepare_phases([builtin_phase(n) for n in ("Co-fcc", "Co-hcp", "TiO2-rutile")], max_g_inv_nm=8.0)
+    zones = [(u, v, w) for u in range(-3, 4) for v in range(-3, 4) for w in range(-3, 4) if (u, v, w) != (0, 0, 0)]
+    rng = np.random.default_rng(7)
+    for pt in tables.phases:
+        rots = pt.laue[np.rint(np.linalg.det(pt.laue)).astype(int) == 1]
+        for uvw in zones:
+            cand = np.einsum("nij,j->ni", rots, np.array(uvw))
+            if pt.phase.is_hexagonal:
+                four = direction_to_4(cand)
+                best = max(range(len(cand)), key=lambda k: (int(four[k][3] >= 0), tuple(int(v) for v in four[k])))
+            else:
+                best = min(range(len(cand)), key=lambda k: (int(np.sum(cand[k] < 0)), tuple(int(v) for v in cand[k])))
+            u_in = rng.normal(size=(3, 3))
+            zone, u_out = pt.canonical_orientation(uvw, u_in)
+            assert zone == tuple(int(v) for v in cand[best])
+            a = pt.phase.lattice.direct_matrix_nm
+            assert np.allclose(u_out, u_in @ (a @ np.linalg.inv(rots[best].astype(float)) @ np.linalg.inv(a)))
+            fam = np.einsum("nij,j->ni", pt.laue, np.array(uvw))
+            assert pt.canonical_zone(uvw) == tuple(int(v) for v in max(map(tuple, fam.tolist())))

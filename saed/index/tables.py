@@ -16,6 +16,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -26,7 +27,8 @@ from saed.errors import InputError
 from saed.physics import check_voltage_kv
 from saed.readonly import frozen_array
 
-__all__ = ["PhaseIndexTable", "IndexTables", "prepare_phases", "DEFAULT_MAX_G_INV_NM", "hkl_keys"]
+__all__ = ["PhaseIndexTable", "IndexTables", "prepare_phases", "DEFAULT_MAX_G_INV_NM", "hkl_keys",
+           "first_lexicographic_min"]
 
 logger = logging.getLogger(__name__)
 
@@ -109,17 +111,17 @@ class PhaseIndexTable:
         matrix, so U' A uvw' = U A uvw stays on +z and every reflection lands where it did.
         """
         u = np.asarray(uvw, dtype=np.int64)
-        rots = self.laue[np.rint(np.linalg.det(self.laue)).astype(int) == 1]
+        rots = self.proper_laue
         cand = np.einsum("nij,j->ni", rots, u)
         if self.phase.is_hexagonal:
             from saed.crystal.miller import direction_to_4
 
             four = direction_to_4(cand)
             # [2-1-10], [10-10], [0001]: the largest 4-index tuple with W >= 0
-            best = max(range(len(cand)), key=lambda k: (int(four[k][3] >= 0), tuple(int(v) for v in four[k])))
+            best = first_lexicographic_min(-np.column_stack([four[:, 3] >= 0, four]))
         else:
             # [001], [011], [112], [123]: fewest negative indices, then ascending order
-            best = min(range(len(cand)), key=lambda k: (int(np.sum(cand[k] < 0)), tuple(int(v) for v in cand[k])))
+            best = first_lexicographic_min(np.column_stack([np.sum(cand < 0, axis=1), cand]))
         s_mat = rots[best].astype(float)
         a = self.phase.lattice.direct_matrix_nm
         m_inv = a @ np.linalg.inv(s_mat) @ np.linalg.inv(a)
@@ -129,7 +131,24 @@ class PhaseIndexTable:
         """The representative of the Laue-group family <uvw> (largest tuple), for merging duplicates."""
         u = np.asarray(uvw, dtype=np.int64)
         fam = np.einsum("nij,j->ni", self.laue, u)
-        return tuple(int(v) for v in max(map(tuple, fam.tolist())))
+        return tuple(int(v) for v in fam[first_lexicographic_min(-fam)])
+
+    @cached_property
+    def proper_laue(self) -> np.ndarray:
+        """The proper rotations (det +1) of the Laue group, (n, 3, 3) integer matrices."""
+        return frozen_array(self.laue[np.rint(np.linalg.det(self.laue)).astype(int) == 1])
+
+
+def first_lexicographic_min(keys: np.ndarray) -> int:
+    """Row of the lexicographically smallest row of integer `keys` (n, k); the first of equal rows.
+
+    ``np.lexsort`` (stable, last key primary) in place of ``min(range(n), key=lambda i: tuple(keys[i]))``.
+
+    >>> first_lexicographic_min(np.array([[1, 2], [0, 5], [0, 3], [0, 3]]))
+    2
+    """
+    k = np.asarray(keys).reshape(len(keys), -1)
+    return int(np.lexsort(k.T[::-1])[0])
 
 
 @dataclass(frozen=True, eq=False)
