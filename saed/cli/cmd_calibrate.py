@@ -219,7 +219,8 @@ def run(args) -> int:
     if args.plot:
         from saed.report.rings_plot import plot_calibration
 
-        plot_calibration(res, image, args.plot, title=f"{args.image}: {standard.name} standard")
+        plot_calibration(res, image, args.plot, title=f"{args.image}: {standard.name} standard",
+                         units=units_from_args(args))
         written.append(("plot", args.plot))
     if args.out:
         from saed.calibration import write_calibration_file

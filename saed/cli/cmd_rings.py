@@ -160,7 +160,8 @@ def run(args) -> int:
     if args.plot:
         from saed.report.rings_plot import plot_rings
 
-        plot_rings(measured, ident, image, args.plot, scale_inv_nm_per_px=s, title=args.image)
+        plot_rings(measured, ident, image, args.plot, scale_inv_nm_per_px=s, title=args.image,
+                   units=units_from_args(args))
     if args.json:
         write_json(args.json, doc)
         if args.json == "-":

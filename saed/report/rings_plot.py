@@ -4,10 +4,15 @@ Left: the recorded pattern (logarithmic display) with every measured ring drawn 
 ellipse over the upper half of the pattern (the lower half is left bare to compare), solid in the colour of the phase that explains it in the best solution, dashed grey when
 unexplained, with a legend of the phase colours; a cross marks the centre. Right, top: the azimuthally
 averaged profile (distortion undone) with the SNIP background, a triangle at each measured ring and a
-d-spacing axis (nm) on top; below it one strip per
+d-spacing axis on top; below it one strip per
 candidate solution with a stick at every ring line of each phase (height: predicted intensity,
 shape of the tip tells the phases of a mixture apart), the stronger ones labelled with their hkl
-(4-index hkil for hexagonal phases) where the label covers no other; a g (1/nm) axis under the strips.
+(4-index hkil for hexagonal phases, overbars for negative indices) where the label covers no other;
+a g = 1/d axis under the strips. Lengths are in the display units (:class:`saed.crystal.notation.Units`,
+``--units``: nm by default, or Å), as in every other output.
+
+The ring outlines come from :func:`saed.simulate.rings.ring_outline_px` and the index labels from
+:mod:`saed.crystal.notation`: this module draws, it holds no ring geometry or index format of its own.
 """
 
 from __future__ import annotations
@@ -17,10 +22,12 @@ import math
 
 import numpy as np
 
+from saed.crystal.notation import UNITS, degrees_text, indices_text, plane_text
 from saed.report.files import atomic_write_bytes, check_writable
 from saed.report.text_boxes import TextBoxes
+from saed.simulate.rings import ring_outline_px
 
-__all__ = ["plot_rings", "plot_calibration", "line_label", "rings_figure"]
+__all__ = ["plot_rings", "plot_calibration", "line_label", "rings_figure", "zone_calibration_figure"]
 
 #: Colours given to the phases in order of appearance (best solution first), and to unexplained rings.
 PHASE_COLOURS = ("#d62728", "#1f77b4", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")
@@ -29,15 +36,15 @@ UNEXPLAINED_COLOUR = "#7f7f7f"
 PHASE_MARKERS = ("o", "^", "s", "D", "v", "P")
 
 
-def line_label(lines, j: int) -> str:
-    """hkl of ring line j: '311', '10-11' for hexagonal phases (strongest family only)."""
-    from saed.crystal.miller import plane_to_4
+def line_label(lines, j: int, style: str = "mathtext") -> str:
+    """hkl of ring line j (strongest family only), 4-index on hexagonal axes, through the one formatter.
 
-    hkl = [int(v) for v in lines.families[j][0]]
-    idx = [int(v) for v in plane_to_4(hkl)] if lines.phase.is_hexagonal else hkl
-    if all(0 <= v < 10 for v in idx):
-        return "".join(str(v) for v in idx)
-    return "".join(str(v) if v >= 0 else f"-{-v}" for v in idx)
+    >>> from saed.crystal import builtin_phase
+    >>> from saed.simulate.rings import ring_lines
+    >>> line_label(ring_lines(builtin_phase("Co-hcp"), 6.0), 2, "plain")
+    '10-11'
+    """
+    return plane_text(lines.families[j][0], lines.phase.is_hexagonal, style)
 
 
 def _d_ticks_nm(g_lo: float, g_hi: float) -> list[float]:
@@ -58,21 +65,24 @@ def _display(image) -> np.ndarray:
     return np.clip(v, 0, 1)
 
 
-def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_strips=3):
+def _draw(measured, solutions, image, path, *, scale_inv_nm_per_px, title, max_strips=3, units=None):
     check_writable(path)
     fig = rings_figure(measured, solutions, image, scale_inv_nm_per_px=scale_inv_nm_per_px, title=title,
-                       max_strips=max_strips)
+                       max_strips=max_strips, units=units)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     atomic_write_bytes(path, buf.getvalue())
 
 
-def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title="", max_strips=3):
-    """The matplotlib Figure of the ring analysis (module notes)."""
+def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title="", max_strips=3, units=None):
+    """The matplotlib Figure of the ring analysis (module notes); `units` (:class:`Units`, nm default) for
+    the d-spacing and g axes."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     from matplotlib.patches import Arc
 
+    units = units or UNITS["nm"]
+    per_nm = units.per_nm
     sols = list(solutions)[:max_strips]
     n_strips = max(len(sols), 1)
     fig = Figure(figsize=(15, 8.2), dpi=100)
@@ -88,7 +98,6 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
     ax_img.imshow(_display(image), cmap="gray", interpolation="nearest")
     cx, cy = measured.center_px
     ell = measured.ellipse
-    q = math.sqrt(ell.axis_ratio)
     rings = measured.rings
     best = sols[0] if sols else None
     style_of = {}
@@ -101,8 +110,8 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
             phases = {p for p, _ in best.ring_lines[i]}
             colour, style = PHASE_COLOURS[style_of[best.phases[min(phases)].name]], "-"
         # Upper half only (detector rows above the centre), so the recorded rings show in the other half.
-        ax_img.add_patch(Arc((cx, cy), 2 * r * q, 2 * r / q, angle=ell.major_axis_angle_deg,
-                             theta1=180 - ell.major_axis_angle_deg, theta2=360 - ell.major_axis_angle_deg,
+        width, height, angle = ring_outline_px(r, ell)
+        ax_img.add_patch(Arc((cx, cy), width, height, angle=angle, theta1=180 - angle, theta2=360 - angle,
                              edgecolor=colour, linestyle=style, linewidth=0.8, alpha=0.9))
     ax_img.plot([cx], [cy], marker="+", color="yellow", markersize=14, mew=1.5)
     from matplotlib.lines import Line2D
@@ -116,7 +125,8 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
                       title="rings (upper half), by the phase that explains them", title_fontsize=8.5)
     ax_img.set_xlim(-0.5, image.shape[1] - 0.5)
     ax_img.set_ylim(image.shape[0] - 0.5, -0.5)
-    ax_img.set_title(f"centre ({cx:.1f}, {cy:.1f}) px, ellipse {ell.axis_ratio:.4f} at {ell.major_axis_angle_deg:.0f} deg",
+    ax_img.set_title(f"centre ({cx:.1f}, {cy:.1f}) px, ellipse {ell.axis_ratio:.4f} at "
+                     f"{degrees_text(ell.major_axis_angle_deg, '.0f', 'mathtext')}",
                      fontsize=9)
     ax_img.set_xticks([])
     ax_img.set_yticks([])
@@ -144,14 +154,16 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
                 break
     if scale_inv_nm_per_px:
         s = scale_inv_nm_per_px
-        top = ax_prof.secondary_xaxis("top", functions=(lambda r: np.where(r > 0, 1.0 / (np.maximum(r, 1e-9) * s), np.inf),
-                                                        lambda d: 1.0 / (np.maximum(d, 1e-9) * s)))
-        top.set_xlabel("d-spacing (nm)", fontsize=9)
+        # d in the display unit: d = per_nm / (r s) with s in 1/nm per px, and back r = per_nm / (d s).
+        top = ax_prof.secondary_xaxis("top", functions=(
+            lambda r: np.where(r > 0, per_nm / (np.maximum(r, 1e-9) * s), np.inf),
+            lambda d: per_nm / (np.maximum(d, 1e-9) * s)))
+        top.set_xlabel(f"d-spacing ({units.label('mathtext')})", fontsize=9)
         ticks = []
         for d in sorted(_d_ticks_nm(lo * s, hi * s)):  # from the outer (small d) end; ticks at least 4 % apart
             if not ticks or abs(1.0 / (d * s) - 1.0 / (ticks[-1] * s)) >= 0.04 * (hi - lo):
                 ticks.append(d)
-        top.set_xticks(ticks)
+        top.set_xticks([d * per_nm for d in ticks])
         top.tick_params(labelsize=8)
 
     # ---- one strip per candidate
@@ -188,32 +200,37 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
     strips[-1].set_xlabel("corrected radius (px)")
     if scale_inv_nm_per_px:
         s = scale_inv_nm_per_px
-        bottom = strips[-1].secondary_xaxis(-0.55, functions=(lambda r: r * s, lambda g: g / s))
-        bottom.set_xlabel("g = 1/d (1/nm)", fontsize=9)
+        bottom = strips[-1].secondary_xaxis(-0.55, functions=(lambda r: r * s / per_nm, lambda g: g * per_nm / s))
+        bottom.set_xlabel(f"g = 1/d ({units.inverse_label('mathtext')})", fontsize=9)
         bottom.tick_params(labelsize=8)
     return fig
 
 
-def plot_rings(measured, identification, image, path, *, scale_inv_nm_per_px=None, title="") -> None:
+def plot_rings(measured, identification, image, path, *, scale_inv_nm_per_px=None, title="", units=None) -> None:
     """Write the ring-analysis picture (module notes) of `measured` with the top candidates of `identification`."""
-    _draw(measured, identification.solutions, image, path, scale_inv_nm_per_px=scale_inv_nm_per_px, title=title)
+    _draw(measured, identification.solutions, image, path, scale_inv_nm_per_px=scale_inv_nm_per_px, title=title,
+          units=units)
 
 
-def plot_calibration(result, image, path, *, title="") -> None:
+def plot_calibration(result, image, path, *, title="", units=None) -> None:
     """Write the picture of a calibration: for rings the standard's lines at the fitted scale, for a zone
-    pattern the lattice spots used with their hkl."""
+    pattern the lattice spots used with their hkl; lengths in `units` (nm default)."""
     if hasattr(result, "match"):
         _draw(result.measurement, [result.match], image, path,
-              scale_inv_nm_per_px=result.calibration.scale_inv_nm_per_px, title=title)
+              scale_inv_nm_per_px=result.calibration.scale_inv_nm_per_px, title=title, units=units)
     else:
-        _draw_zone(result, image, path, title=title)
+        check_writable(path)
+        buf = io.BytesIO()
+        zone_calibration_figure(result, image, title=title, units=units).savefig(buf, format="png")
+        atomic_write_bytes(path, buf.getvalue())
 
 
-def _draw_zone(result, image, path, *, title=""):
+def zone_calibration_figure(result, image, *, title="", units=None):
+    """The matplotlib Figure of a zone-pattern calibration: the lattice spots used, with their hkl."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    check_writable(path)
+    units = units or UNITS["nm"]
     fig = Figure(figsize=(8, 8.4), dpi=100)
     FigureCanvasAgg(fig)
     ax = fig.add_axes([0.02, 0.02, 0.96, 0.9])
@@ -228,14 +245,13 @@ def _draw_zone(result, image, path, *, title=""):
             markeredgecolor=PHASE_COLOURS[0], mew=1.0)
     for (x, y), (m, n) in zip(xy, idx):
         lab = m * h1 + n * h2
-        ax.annotate("".join(str(int(v)) if v >= 0 else f"-{-int(v)}" for v in lab), (x, y), textcoords="offset points",
+        ax.annotate(indices_text(lab, "mathtext"), (x, y), textcoords="offset points",
                     xytext=(0, 9), ha="center", fontsize=7, color="yellow")
     ax.plot([cx], [cy], marker="+", color="yellow", markersize=14, mew=1.5)
     c = result.calibration
-    ax.set_title(f"{title}\nscale {c.scale_inv_nm_per_px:.6f} 1/nm/px, ellipse {c.ellipse.axis_ratio:.4f} at "
-                 f"{c.ellipse.major_axis_angle_deg:.0f} deg, residual {result.residual_pct:.3f} %", fontsize=9)
+    ax.set_title(f"{title}\nscale {units.reciprocal_text(c.scale_inv_nm_per_px, 6)} {units.inverse_label('mathtext')}/px, "
+                 f"ellipse {c.ellipse.axis_ratio:.4f} at {degrees_text(c.ellipse.major_axis_angle_deg, '.0f', 'mathtext')}, "
+                 f"residual {result.residual_pct:.3f} %", fontsize=9)
     ax.set_xticks([])
     ax.set_yticks([])
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    atomic_write_bytes(path, buf.getvalue())
+    return fig

@@ -1,5 +1,9 @@
 """The rings a phase gives in a polycrystalline pattern: |g|, d, the families on each ring, intensities;
-and where a ring of corrected radius R lies on the detector (:func:`polar_coordinates`).
+and where a ring of corrected radius R lies on the detector (:func:`polar_coordinates`,
+:func:`ring_outline_px`; the ellipse convention is :meth:`saed.calibration.Ellipse.corrected_px`).
+
+This is the one copy of ring geometry: the generator (:mod:`saed.synth.rings`), the measurement and
+identification (:mod:`saed.rings`) and the picture (:mod:`saed.report.rings_plot`) all use it.
 
 A ring collects every allowed reflection of one |g| (one or more families: 333 and 511 of a cubic
 phase share a ring). Its relative intensity, as measured in an azimuthally averaged radial profile
@@ -31,7 +35,8 @@ from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
 
-__all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM", "polar_coordinates", "check_center_px"]
+__all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM", "polar_coordinates", "check_center_px",
+           "ring_outline_px"]
 
 #: Default outer limit of ring lists (1/nm): d = 0.067 nm, past the last ring of most recorded patterns.
 DEFAULT_MAX_G_INV_NM = 15.0
@@ -171,3 +176,23 @@ def polar_coordinates(shape, center_px, ellipse: Ellipse | None = None) -> tuple
     if ellipse is not None and ellipse.axis_ratio != 1.0:
         dx, dy = ellipse.corrected_px(dx, dy)
     return np.hypot(dx, dy), phi
+
+
+def ring_outline_px(radius_px, ellipse: Ellipse | None = None) -> tuple[float, float, float]:
+    """The ellipse a ring of corrected radius `radius_px` draws on the detector: (width_px, height_px,
+    angle_deg), full axes along and across the long axis and the long axis from +x toward +y.
+
+    The inverse of :func:`polar_coordinates`: every point of this outline has corrected radius
+    `radius_px` (area-preserving convention of :meth:`saed.calibration.Ellipse.corrected_px`).
+
+    >>> w, h, a = ring_outline_px(100.0, Ellipse(1.04, 30.0))
+    >>> round(w / 2, 4), round(h / 2, 4), a
+    (101.9804, 98.0581, 30.0)
+    >>> t = math.radians(a)
+    >>> round(float(math.hypot(*Ellipse(1.04, 30.0).corrected_px(w / 2 * math.cos(t), w / 2 * math.sin(t)))), 9)
+    100.0
+    """
+    ell = ellipse or Ellipse()
+    q = math.sqrt(ell.axis_ratio)
+    r = float(radius_px)
+    return 2.0 * r * q, 2.0 * r / q, ell.major_axis_angle_deg
