@@ -62,7 +62,7 @@ def _measure_with(cal, pat):
     from saed.rings.measure import measure_rings
 
     m = measure_rings(pat.image, ellipse=cal.ellipse)
-    return m, ObservedRings.from_profile_rings(m.rings, radius_px_of_bins=m.profile.radius_px)
+    return m, ObservedRings.from_measurement(m)
 
 
 def _accuracy_calibration(n: int = 16, seed: int = 2024) -> dict:
@@ -179,7 +179,7 @@ def _identify_fn(state):
 
     std, spec, library = state
     m = measure_rings(spec.image, ellipse=std.truth.ellipse)
-    obs = ObservedRings.from_profile_rings(m.rings, radius_px_of_bins=m.profile.radius_px)
+    obs = ObservedRings.from_measurement(m)
     identify_phases(obs, library, scale_inv_nm_per_px=std.truth.scale_inv_nm_per_px)
 
 

@@ -70,7 +70,7 @@ def fit_standard(measured: RingMeasurement, standard: Phase, *, tol_rel: float =
     if n == 1:
         raise InputError(f"only one ring found (r = {rings.radius_px[0]:.1f} px): a calibration needs at least two "
                          f"rings of {standard.name} to fix the scale and tell its lines apart")
-    obs = ObservedRings.from_profile_rings(rings, radius_px_of_bins=measured.profile.radius_px)
+    obs = ObservedRings.from_measurement(measured)
     res = match_scale(obs, [standard], tol_rel=tol_rel, n_best=2)
     if not res:
         raise InputError(f"the rings do not fit {standard.name} at any plausible scale")

@@ -122,7 +122,7 @@ def run(args) -> int:
         r = rings.radius_px[0]
         d = f", d = {1 / (r * cal.scale_inv_nm_per_px):.4f} nm" if cal.is_calibrated else ""
         raise InputError(f"only one ring found (r = {r:.1f} px{d}): phase identification needs at least two rings")
-    obs = ObservedRings.from_profile_rings(rings, radius_px_of_bins=measured.profile.radius_px)
+    obs = ObservedRings.from_measurement(measured)
     tolerance_pct = args.scale_tolerance
     if tolerance_pct is None:
         measured_cal = resolved.source in ("calibration file", "sidecar", "calibration history")

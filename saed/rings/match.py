@@ -91,6 +91,11 @@ class ObservedRings:
         return cls(rings.radius_px, np.maximum(rings.radius_sigma_px, 0.01), rings.width_px, area / top,
                    np.asarray(radius_px_of_bins)[ok], floor, rings.r_min_px, rings.r_max_px)
 
+    @classmethod
+    def from_measurement(cls, measured, *, snr_min: float = 5.0) -> "ObservedRings":
+        """From a :class:`saed.rings.measure.RingMeasurement`: its rings and its profile's bin radii."""
+        return cls.from_profile_rings(measured.rings, radius_px_of_bins=measured.profile.radius_px, snr_min=snr_min)
+
     def floor_at(self, r_px) -> np.ndarray:
         if len(self.floor_radius_px) == 0:
             return np.zeros_like(np.asarray(r_px, float))
