@@ -115,3 +115,17 @@ def test_cli_plot_follows_units_angstrom(au, command, tmp_path, monkeypatch, cap
     assert top.transData.transform((ANGSTROM_PER_NM * AU_D111_NM, 1.0))[0] == pytest.approx(
         bottom.transData.transform((1 / (ANGSTROM_PER_NM * AU_D111_NM), 1.0))[0], abs=0.5)
     assert not any("nm" in t for t in _texts(fig))
+
+
+def test_every_family_on_a_shared_ring_gets_its_overbars(monkeypatch, capsys):
+    """Co-hcp 10-15 and 21-32 share a ring (d = 0.0762 nm): both are written with overbars on a UTF-8
+    terminal, not only the first (issue 15.2)."""
+    import saed.cli.cmd_rings as cmd_rings
+    import saed.crystal.notation as notation
+
+    monkeypatch.setattr(notation, "terminal_style", lambda stream=None: "unicode")
+    sol = {"rings_matched": [{"ring": 14, "d_nm": 0.07611, "d_nm_calc": 0.07621, "phase": "Co-hcp",
+                              "families": ["10-15", "21-32"]}], "rings_unexplained": []}
+    cmd_rings._print_ring_table(sol, UNITS["nm"], "nm")
+    row = capsys.readouterr().out.splitlines()[-1]
+    assert row.split()[-1] == "101\u03055/213\u03052"
