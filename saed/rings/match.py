@@ -31,8 +31,9 @@ import numpy as np
 from scipy import optimize
 
 from saed.calibration import PLAUSIBLE_SCALE_INV_NM_PER_PX
-from saed.errors import InputError
 from saed.crystal.phase import Phase
+from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.simulate.rings import RingLines, ring_lines
 
 __all__ = ["ObservedRings", "RingMatch", "evaluate", "match_scale", "POSITION_FLOOR_REL"]
@@ -70,9 +71,7 @@ class ObservedRings:
 
     def __post_init__(self):
         for name in ("radius_px", "radius_sigma_px", "width_px", "intensity", "floor_radius_px", "floor_intensity"):
-            a = np.array(getattr(self, name), dtype=np.float64)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name), np.float64))
         if len(self.radius_px) == 0:
             raise InputError("no rings to match")
 
@@ -317,10 +316,8 @@ def evaluate(obs: ObservedRings, lines: Sequence[RingLines], scale_inv_nm_per_px
             p_i = int(np.argmax(contrib))
             unique[p_i] += 1
             unique_signal[p_i] += float(sq_i[i] / sq_i.sum())
-    share.flags.writeable = False
     score = (1.0 - r_factor) * pos * prior_f
-    delta.flags.writeable = False
-    pred.flags.writeable = False
+    share, delta, pred = frozen_array(share), frozen_array(delta), frozen_array(pred)
     return RingMatch(tuple(ln.phase for ln in lines), lines, s, float(scale_sigma_rel), tuple(float(a) for a in amounts),
                      ring_assign, delta, pred, share, tuple(missing), tuple(unique), tuple(unique_signal), r_factor,
                      pos, prior_f, explained, score)

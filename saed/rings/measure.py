@@ -25,6 +25,7 @@ from scipy import ndimage
 
 from saed.calibration import Ellipse
 from saed.errors import ImageError, InputError
+from saed.readonly import frozen_array
 from saed.rings.profile import RadialProfile, radial_profile
 from saed.rings.peaks import ProfileRings, find_profile_rings
 from saed.rings.geometry import MAX_AXIS_RATIO, RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
@@ -254,5 +255,4 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
                      "intensities are less reliable")
     if math.hypot(cen[0] - (img.shape[1] - 1) / 2, cen[1] - (img.shape[0] - 1) / 2) > 0.3 * min(img.shape):
         notes.append(f"the pattern centre ({cen[0]:.1f}, {cen[1]:.1f}) px is far from the image centre")
-    m.flags.writeable = False
-    return RingMeasurement(img.shape, geom, prof, rings, coverage, m, tuple(notes))
+    return RingMeasurement(img.shape, geom, prof, rings, coverage, frozen_array(m), tuple(notes))

@@ -26,6 +26,7 @@ import numpy as np
 from scipy import ndimage, optimize, signal
 
 from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.rings.profile import RadialProfile
 
 __all__ = ["ProfileRings", "snip_background", "find_profile_rings"]
@@ -61,9 +62,7 @@ class ProfileRings:
 
     def __post_init__(self):
         for name in ("radius_px", "radius_sigma_px", "width_px", "amplitude", "area", "snr", "background", "noise"):
-            a = np.array(getattr(self, name), dtype=np.float64)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name), np.float64))
 
     def __len__(self) -> int:
         return len(self.radius_px)

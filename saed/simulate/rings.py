@@ -34,6 +34,7 @@ from saed.crystal.phase import Phase
 from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
+from saed.readonly import frozen_array
 
 __all__ = ["RingLines", "ring_lines", "DEFAULT_MAX_G_INV_NM", "polar_coordinates", "check_center_px",
            "ring_outline_px"]
@@ -142,8 +143,7 @@ def ring_lines(phase: Phase, max_g_inv_nm: float = DEFAULT_MAX_G_INV_NM) -> Ring
         w = w / w.max()
     arrays = dict(g_inv_nm=g_arr, d_nm=d_arr, hkl=np.array([f[0] for f in rings_fams], np.int64).reshape(-1, 3),
                   multiplicity=count.astype(np.int64), f2_nm2=f2_arr, intensity=w)
-    for a in arrays.values():
-        a.flags.writeable = False
+    arrays = {k: frozen_array(v) for k, v in arrays.items()}
     return RingLines(phase=phase, max_g_inv_nm=g_max, families=tuple(rings_fams), **arrays)
 
 

@@ -27,6 +27,7 @@ import numpy as np
 from saed.calibration import Ellipse
 from saed.crystal.phase import Phase
 from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.simulate.rings import polar_coordinates, ring_lines
 
 __all__ = ["RingPatternTruth", "SyntheticRings", "ring_pattern"]
@@ -171,8 +172,7 @@ def ring_pattern(phases: Sequence[Phase], *, fractions: Sequence[float] | None =
         total = np.where(covered, 0.02 * total, total)
     counts = rng.poisson(np.clip(total, 0, None)).astype(np.float64)
     counts += DARK_OFFSET_COUNTS + rng.normal(0.0, read_noise_counts, counts.shape)
-    image = np.clip(counts, 0, 65535).astype(np.float32)
-    image.flags.writeable = False
+    image = frozen_array(np.clip(counts, 0, 65535), np.float32)
     truth = RingPatternTruth(tuple(p.name for p in phases), tuple(float(v) for v in frac), s, (cx, cy), ellipse,
                              float(ring_sigma_px), stop_angle, tuple(ring_g), tuple(ring_peaks))
     return SyntheticRings(image, truth)
