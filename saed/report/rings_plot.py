@@ -155,9 +155,10 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
     if scale_inv_nm_per_px:
         s = scale_inv_nm_per_px
         # d in the display unit: d = per_nm / (r s) with s in 1/nm per px, and back r = per_nm / (d s).
+        # (s bound now: the strips below reuse the name for each candidate's own scale)
         top = ax_prof.secondary_xaxis("top", functions=(
-            lambda r: np.where(r > 0, per_nm / (np.maximum(r, 1e-9) * s), np.inf),
-            lambda d: per_nm / (np.maximum(d, 1e-9) * s)))
+            lambda r, s=s: np.where(r > 0, per_nm / (np.maximum(r, 1e-9) * s), np.inf),
+            lambda d, s=s: per_nm / (np.maximum(d, 1e-9) * s)))
         top.set_xlabel(f"d-spacing ({units.label('mathtext')})", fontsize=9)
         ticks = []
         for d in sorted(_d_ticks_nm(lo * s, hi * s)):  # from the outer (small d) end; ticks at least 4 % apart
@@ -178,6 +179,10 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
         m = sols[k]
         s = m.scale_inv_nm_per_px
         boxes = TextBoxes(ax)
+        # The candidate's name first, so that no line label is drawn over it.
+        name = ax.text(0.005, 0.95, f"#{k + 1} {m.name}  score {m.score:.2f}", transform=ax.transAxes, fontsize=8.5,
+                       va="top", ha="left", zorder=5, bbox=dict(facecolor="white", edgecolor="none", alpha=0.9, pad=1))
+        boxes.boxes.append(name.get_window_extent(boxes.renderer))
         tops = [max(float(a) * float(ln.intensity.max()), 1e-12) for a, ln in zip(m.amounts, m.lines)]
         ref = max(tops)
         for p, ln in enumerate(m.lines):
@@ -192,15 +197,12 @@ def rings_figure(measured, solutions, image, *, scale_inv_nm_per_px=None, title=
             for j in strong[np.argsort(-h[strong], kind="stable")][:40]:  # strongest first; skip what would overprint
                 boxes.try_text(rr[j], h[j], line_label(ln, j), offset_pts=(0, 2), rotation=90, fontsize=7.5,
                                ha="center", va="bottom", color=colour, inside=True)
-        label = f"#{k + 1} {m.name}  score {m.score:.2f}"
-        ax.text(0.005, 0.95, label, transform=ax.transAxes, fontsize=8.5, va="top", ha="left", zorder=5,
-                bbox=dict(facecolor="white", edgecolor="none", alpha=0.9, pad=1))
         if k < n_strips - 1:
             ax.tick_params(labelbottom=False)
     strips[-1].set_xlabel("corrected radius (px)")
     if scale_inv_nm_per_px:
         s = scale_inv_nm_per_px
-        bottom = strips[-1].secondary_xaxis(-0.55, functions=(lambda r: r * s / per_nm, lambda g: g * per_nm / s))
+        bottom = strips[-1].secondary_xaxis(-0.55, functions=(lambda r, s=s: r * s / per_nm, lambda g, s=s: g * per_nm / s))
         bottom.set_xlabel(f"g = 1/d ({units.inverse_label('mathtext')})", fontsize=9)
         bottom.tick_params(labelsize=8)
     return fig
