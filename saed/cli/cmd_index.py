@@ -59,7 +59,7 @@ def check_report_folder(report: str) -> None:
     """--report DIR: a folder (or a new name in one) where index.html can be written; InputError if not."""
     from pathlib import Path
 
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     d = Path(report)
     if d.exists() and not d.is_dir():

@@ -17,7 +17,7 @@ import numpy as np
 from saed.crystal.miller import plane_to_4
 from saed.crystal.phase import Phase
 from saed.errors import InputError
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.render_pattern import draw_pattern, index_text
 from saed.report.render_zonemap import draw_zone_map
 
