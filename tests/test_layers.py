@@ -41,8 +41,6 @@ UPWARD_EXCEPTIONS = {
     # issue 16.5 removes it; allowed until that lands (the only module-level exception).
     ("saed.report.scan_map", "saed.batch.scan"): "scan map reads the batch's ScanMap and status codes",
     ("saed.report.scan_map", "saed.batch.orientmap"): "scan map colours by the batch's orientation key",
-    # The `gen` helper of issue 16.1 moves index/synthetic*.py into synth/: until it lands.
-    ("saed.synth.scan", "saed.index.synthetic"): "scan generator draws frames with the index test generator",
 }
 
 #: Module pairs that import each other, allowed because one side imports lazily (inside a function).
