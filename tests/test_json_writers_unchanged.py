@@ -1,4 +1,4 @@
-"""The JSON documents of ``saed spots``, ``saed simulate`` and ``saed tilt`` stay field for field as they were.
+"""The JSON documents of ``saed spots``, ``simulate``, ``tilt`` and ``phases`` stay field for field as they were.
 
 Issue 16.3 moved these writers out of the command modules into report/ (one schema module per
 command). The reference documents in tests/data/json_before/ were written by the commands as they
@@ -52,6 +52,7 @@ CASES = {
                             "--tilt", "1.5", "--tilt-toward", "0", "1", "-1", "0", "--thickness", "80"],
     "tilt_reachable": ["tilt", "Co-fcc", "--zone", "0", "0", "1", "--rotation", "20", "--target", "0", "1", "2",
                        "--max-index", "2"],
+    "phases_cobalt": ["phases", "Co"],
     "tilt_out_of_range": ["tilt", "Co-hcp", "--zone", "0", "0", "0", "1", "--target", "2", "-1", "-1", "0",
                           "--alpha-range", "20", "--beta-range", "-10", "15", "--recorded-at", "5", "-3",
                           "--max-index", "2"],
