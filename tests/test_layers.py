@@ -21,7 +21,7 @@ ROOT = Path(__file__).resolve().parent.parent / "saed"
 #: Packages (and top-level modules) of saed, lowest tier first.
 TIERS = (
     {"saed", "errors"},  # ``saed`` itself: the version string only
-    {"units", "files", "readonly", "physics"},  # bottom-layer plumbing and constants
+    {"units", "files", "readonly", "physics", "vectors2d"},  # bottom-layer plumbing, constants, plane geometry
     {"calibration"},
     {"crystal"},
     {"simulate", "image"},
