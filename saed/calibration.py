@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
 from saed import physics
@@ -84,7 +84,6 @@ class Calibration:
     standard: str | None = None
     date: str | None = None
     source: str = "options"
-    extra: dict = field(default_factory=dict, compare=False, hash=False)
     alpha_axis_deg: float | None = None
 
     def __post_init__(self):
@@ -137,7 +136,7 @@ class Calibration:
         return None
 
     def to_json(self) -> dict:
-        d = {
+        return {
             "format": CALIBRATION_FORMAT,
             "scale_inv_nm_per_px": self.scale_inv_nm_per_px,
             "voltage_kv": self.voltage_kv,
@@ -151,8 +150,6 @@ class Calibration:
             "date": self.date,
             "alpha_axis_deg": self.alpha_axis_deg,
         }
-        d.update(self.extra)
-        return d
 
 
 def calibration_from_options(*, scale_inv_nm_per_px=None, camera_length_mm=None, pixel_pitch_um=None,
@@ -177,9 +174,7 @@ def calibration_from_options(*, scale_inv_nm_per_px=None, camera_length_mm=None,
                 f"--voltage {float(voltage_kv):g} kV contradicts the calibration file's {base.voltage_kv:g} kV"
             )
         if center_px is not None:
-            return Calibration(base.scale_inv_nm_per_px, base.voltage_kv, tuple(center_px), base.ellipse,
-                               base.camera_length_mm, base.pixel_pitch_um, base.standard, base.date, base.source,
-                               alpha_axis_deg=base.alpha_axis_deg)
+            return replace(base, center_px=tuple(center_px))
         return base
     v = 200.0 if voltage_kv is None else voltage_kv
     scale = scale_inv_nm_per_px

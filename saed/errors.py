@@ -2,7 +2,8 @@
 
 Every message is a single line meant for a microscopist: it names the thing,
 the value and, where there is one, the fix. Only :mod:`saed.cli` turns these
-into exit status 2.
+into exit status 2. A pattern that nothing fits is an answer, not an error: the
+matcher returns a result saying so (and what came closest), and the CLI exits 0.
 """
 
 
@@ -21,6 +22,3 @@ class PhaseError(InputError):
 class ImageError(InputError):
     """An image that cannot be used: unreadable, empty, NaN, saturated, wrong shape."""
 
-
-class NoSolutionError(SaedError):
-    """Nothing fits within tolerance (not a user error: exit status 0 in the CLI)."""

@@ -9,6 +9,7 @@ import pytest
 from saed.cli import main
 from saed.cli import cmd_phases
 from saed.crystal import builtin_names, builtin_phase
+from saed.report.phases_json import phase_json
 
 # The names the issue requires (also checked in test_phases.py) and the JSON fields of CONTRACT.md.
 REQUIRED = ["Al", "Cu", "Ni", "Ag", "Au", "Pt", "Pb", "Fe-fcc", "Co-fcc", "Fe-bcc", "Cr", "Mo", "W", "Nb", "Ta", "V",
@@ -139,7 +140,7 @@ class _Terminal(io.StringIO):
 def test_terminal_table_fits_the_window(columns, monkeypatch):
     # On a terminal no line may run past the window (as long as the fixed columns fit at all).
     monkeypatch.setattr(cmd_phases.shutil, "get_terminal_size", lambda fallback=None: os.terminal_size((columns, 40)))
-    rows = [cmd_phases._row(builtin_phase(n)) for n in builtin_names()]
+    rows = [phase_json(builtin_phase(n)) for n in builtin_names()]
     out = _Terminal()
     cmd_phases._print_table(rows, out)
     lines = out.getvalue().splitlines()

@@ -8,7 +8,6 @@ an :class:`IndexJob`, and sent to each worker once; :func:`index_frame` then onl
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -56,13 +55,9 @@ def max_g_for(frame_shape, scale_inv_nm_per_px: float | None) -> float | None:
     >>> max_g_for((256, 256), 0.08), max_g_for((2048, 2048), 0.0558)
     (16.0, 30.0)
     """
-    from saed.index.tables import DEFAULT_MAX_G_INV_NM
+    from saed.index.reach import reach_for_frame
 
-    if scale_inv_nm_per_px is None:
-        return None
-    rows, cols = frame_shape
-    reach = 1.05 * 0.5 * math.hypot(rows, cols) * scale_inv_nm_per_px
-    return float(min(max(DEFAULT_MAX_G_INV_NM, reach), 30.0))
+    return reach_for_frame(frame_shape, scale_inv_nm_per_px)
 
 
 def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None,

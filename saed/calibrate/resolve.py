@@ -154,10 +154,6 @@ def _history_scale(entry, meta: FileMetadata) -> tuple[float, str]:
     return scale, text
 
 
-def _with(cal: Calibration, **changes) -> Calibration:
-    return replace(cal, **changes)
-
-
 def _read_sidecar(path: Path) -> Calibration | None:
     """The sidecar's calibration; None (with a log note) for a JSON that is not a calibration file."""
     try:
@@ -236,7 +232,7 @@ def resolve_calibration(image, metadata: FileMetadata | None, *, scale_inv_nm_pe
         mode_note()
         detail = (f"--scale {scale_inv_nm_per_px:g}" if scale_inv_nm_per_px is not None
                   else f"--camera-length {camera_length_mm:g} mm, {pitch:g} um pixels")
-        return ResolvedCalibration(_with(cal, source=f"option {detail}"), "option", detail, tuple(notes), tuple(warns), meta)
+        return ResolvedCalibration(replace(cal, source=f"option {detail}"), "option", detail, tuple(notes), tuple(warns), meta)
 
     # 2. calibration file
     if calibration_file is not None:
@@ -256,7 +252,7 @@ def resolve_calibration(image, metadata: FileMetadata | None, *, scale_inv_nm_pe
             if voltage_kv is not None and abs(float(voltage_kv) - base.voltage_kv) > 1e-6:
                 raise InputError(f"--voltage {float(voltage_kv):g} kV contradicts the sidecar {side}'s "
                                  f"{base.voltage_kv:g} kV")
-            cal = _with(base, center_px=center) if center is not None else base
+            cal = replace(base, center_px=center) if center is not None else base
             note_voltage(cal.voltage_kv, "the sidecar's")
             note_metadata_differs(cal.scale_inv_nm_per_px, "sidecar")
             mode_note()

@@ -9,7 +9,10 @@ correspondence that needs the least distortion wins. Then the linear map A with 
 by least squares to every lattice spot p (px from the centre). Its polar decomposition A = R S
 gives the scale sqrt(det S) (area-preserving convention of :class:`saed.calibration.Ellipse`) and
 the projector ellipse (axis ratio = ratio of the eigenvalues of S; the long axis of a ring on the
-detector along the eigenvector of the smaller one).
+detector along the eigenvector of the smaller one). The decomposition is :func:`scipy.linalg.polar`.
+
+Fractions are named ``_frac`` (0.01 = 1 %) and percentages ``_pct``; the public ``tol_rel`` and
+``scale_sigma_rel`` are fractions too (the name the ring calibration shares).
 """
 
 from __future__ import annotations
@@ -20,6 +23,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from scipy.linalg import polar
+
 from saed import physics
 from saed.calibration import Calibration, Ellipse
 from saed.crystal.phase import Phase
@@ -28,8 +33,18 @@ from saed.errors import InputError
 __all__ = ["ZoneCalibration", "calibrate_from_zone", "zone_lattice_basis"]
 
 #: Largest misfit of |g2|/|g1| (relative) and of the angle (deg) between the measured and the zone's basis.
-RATIO_TOL = 0.03
+RATIO_TOL_FRAC = 0.03
 ANGLE_TOL_DEG = 3.0
+#: Reach of the standard's simulated zone, 1/nm: the lattice spots of a calibration pattern lie within it.
+ZONE_MAX_G_INV_NM = 20.0
+#: Shortest reflections of the zone tried as basis vectors (pairs of them are the candidate bases).
+N_SHORT_REFLECTIONS = 24
+#: A candidate basis must span a whole number of the zone's primitive cells, to this fraction.
+CELL_AREA_TOL_FRAC = 0.02
+#: Largest axis ratio accepted for the projector ellipse: beyond it the standard or zone is wrong.
+MAX_AXIS_RATIO = 1.5
+#: Median fraction of the circle each ring covers above which the image is a ring pattern.
+RING_PATTERN_COVERAGE_FRAC = 0.7
 
 
 @dataclass(frozen=True)
@@ -86,7 +101,7 @@ def _refuse_ring_pattern(image, mask) -> None:
     except SaedError:
         return
     cov = m.coverage[np.isfinite(m.coverage)]
-    if len(cov) and float(np.median(cov)) > 0.7:
+    if len(cov) and float(np.median(cov)) > RING_PATTERN_COVERAGE_FRAC:
         raise InputError(f"this is a ring pattern ({len(m.rings)} rings, each seen all round): drop --zone to "
                          "calibrate from the rings")
 
@@ -119,19 +134,19 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
                          "pattern with at least two independent reflections (a ring pattern? drop --zone)")
     g1, g2 = np.asarray(mp.basis.g1_px, float), np.asarray(mp.basis.g2_px, float)
     ratio_m, angle_m = _ratio_angle(g1, g2)
-    zp = zone_pattern(standard, zone_axis, voltage_kv=v, max_g_inv_nm=20.0, include_holz=False)
+    zp = zone_pattern(standard, zone_axis, voltage_kv=v, max_g_inv_nm=ZONE_MAX_G_INV_NM, include_holz=False)
     xy, hkl, i1, i2 = zone_lattice_basis(zp)
     zone_str = " ".join(str(int(u)) for u in zp.zone_axis)
     # Candidate bases of the zone lattice: short vectors pairs with the measured ratio and angle.
     g = np.hypot(xy[:, 0], xy[:, 1])
-    short = np.argsort(g)[: min(len(g), 24)]
+    short = np.argsort(g)[: min(len(g), N_SHORT_REFLECTIONS)]
     cands = []
     for a in short:
         for b in short:
             if a == b:
                 continue
             r, ang = _ratio_angle(xy[a], xy[b])
-            if abs(r / ratio_m - 1) <= RATIO_TOL and abs(ang - angle_m) <= ANGLE_TOL_DEG:
+            if abs(r / ratio_m - 1) <= RATIO_TOL_FRAC and abs(ang - angle_m) <= ANGLE_TOL_DEG:
                 cands.append((a, b))
     if not cands:
         _refuse_ring_pattern(image, mask)
@@ -152,14 +167,14 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
     best = None
     for a, b in cands:
         area = abs(xy[a, 0] * xy[b, 1] - xy[a, 1] * xy[b, 0]) / cell
-        if abs(area - round(area)) > 0.02 * area:
+        if abs(area - round(area)) > CELL_AREA_TOL_FRAC * area:
             continue
         h = idx[:, :1] * xy[a][None, :] + idx[:, 1:] * xy[b][None, :]
         a_map, *_ = np.linalg.lstsq(p, h, rcond=None)  # h = p @ a_map, i.e. A = a_map.T
         a_mat = a_map.T
         if np.linalg.det(a_mat) <= 0:
             continue
-        u, s_vals, vt = np.linalg.svd(a_mat)
+        s_vals = np.linalg.svd(a_mat, compute_uv=False)
         distortion = s_vals[0] / s_vals[1]
         resid = np.linalg.norm(p @ a_map - h, axis=1) / np.maximum(np.linalg.norm(h, axis=1), 1e-12)
         key = (int(round(area)), round(distortion, 4), float(np.sqrt(np.mean(resid**2))))
@@ -169,25 +184,24 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
         raise InputError(f"no basis of {standard.name} [{zone_str}] maps onto the pattern without a mirror: "
                          "is the image flipped?")
     _, a, b, a_mat, resid, h = best
-    # Polar decomposition A = R S, S symmetric positive-definite.
-    u, s_vals, vt = np.linalg.svd(a_mat)
-    s_sym = vt.T @ np.diag(s_vals) @ vt
+    _, s_sym = polar(a_mat, side="right")  # A = R S, S symmetric positive-definite
     evals, evecs = np.linalg.eigh(s_sym)
     scale = float(math.sqrt(evals[0] * evals[1]))
     q = float(evals[1] / evals[0])
     major = evecs[:, 0]  # smallest eigenvalue: fewest 1/nm per px, the ring's long axis
     angle = math.degrees(math.atan2(major[1], major[0])) % 180.0
     notes = []
-    if q > 1.5:
+    if q > MAX_AXIS_RATIO:
         raise InputError(f"the pattern is distorted by {100 * (q - 1):.0f} % against {standard.name} [{zone_str}]: "
                          "wrong standard or zone?")
     ellipse = Ellipse(q, angle)
-    residual_pct = 100.0 * float(np.sqrt(np.mean(resid**2)))
-    if residual_pct > 100 * tol_rel:
+    residual_frac = float(np.sqrt(np.mean(resid**2)))
+    residual_pct = 100.0 * residual_frac
+    if residual_frac > tol_rel:
         notes.append(f"spot misfit {residual_pct:.2f} % exceeds the tolerance {100 * tol_rel:.2f} %: a tilted or bent "
                      "crystal, or a poor centre")
     n = len(p)
-    scale_sigma = residual_pct / 100 / math.sqrt(max(n - 4, 1)) if n > 4 else residual_pct / 100
+    scale_sigma_frac = residual_frac / math.sqrt(n - 4) if n > 4 else residual_frac
     if n < 8:
         notes.append(f"only {n} lattice spots: the ellipse from a single crystal is uncertain")
     rows = []
@@ -204,5 +218,5 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
     cal = Calibration(scale_inv_nm_per_px=scale, voltage_kv=v, center_px=mp.center_px, ellipse=ellipse,
                       pixel_pitch_um=pixel_pitch_um, standard=standard.name, date=date, source="zone")
     basis = (tuple(int(x) for x in hkl[a]), tuple(int(x) for x in hkl[b]))
-    return ZoneCalibration(cal, mp, tuple(int(u) for u in zp.zone_axis), basis, residual_pct, scale_sigma,
+    return ZoneCalibration(cal, mp, tuple(int(u) for u in zp.zone_axis), basis, residual_pct, scale_sigma_frac,
                            tuple(rows), tuple(notes))

@@ -33,7 +33,7 @@ def add_arguments(p):
 def run(args) -> int:
     from saed.crystal.phase import load_phase
     from saed.errors import InputError
-    from saed.report.files import check_writable
+    from saed.files import check_writable
     from saed.report.render_atlas import write_atlas
     from saed.simulate.families import MAX_INDEX
 

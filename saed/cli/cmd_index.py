@@ -59,7 +59,7 @@ def check_report_folder(report: str) -> None:
     """--report DIR: a folder (or a new name in one) where index.html can be written; InputError if not."""
     from pathlib import Path
 
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     d = Path(report)
     if d.exists() and not d.is_dir():
@@ -77,17 +77,10 @@ def _max_crystals(args) -> int:
 
 
 def _max_g(args, measured) -> float | None:
-    import numpy as np
+    """--max-g when given, else the reach the measured spots need (saed.index.reach)."""
+    from saed.index.reach import reach_for_pattern
 
-    from saed.index.tables import DEFAULT_MAX_G_INV_NM
-
-    if args.max_g is not None:
-        return args.max_g
-    scale = measured.calibration.scale_inv_nm_per_px
-    if scale is None or len(measured.spots) == 0:
-        return None
-    g = float(np.max(np.linalg.norm(measured.corrected_spot_vectors_px(), axis=1))) * scale
-    return min(max(DEFAULT_MAX_G_INV_NM, 1.05 * g), 30.0)
+    return args.max_g if args.max_g is not None else reach_for_pattern(measured)
 
 
 def run(args) -> int:

@@ -7,9 +7,10 @@ import sys
 import textwrap
 
 from saed.cli.common import write_json
-from saed.crystal.phase import builtin_names, builtin_phase, cell_atoms, space_group_in_cell, suggest_builtin
+from saed.crystal.phase import builtin_names, builtin_phase, suggest_builtin
 from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
+from saed.report.phases_json import phase_json
 
 NAME = "phases"
 HELP = "list the built-in phases (name, structure type, space group, lattice parameters, source)"
@@ -27,25 +28,6 @@ def add_arguments(p):
                         "(e.g. 'Co', 'hcp', 'rock salt', '225')")
     p.add_argument("--json", metavar="PATH", help="write the list as JSON ('-' for stdout)")
     add_units_argument(p)
-
-
-def _row(ph):
-    lat = ph.lattice
-    return {
-        "name": ph.name,
-        "structure_type": ph.structure_type,
-        "space_group": ph.space_group_short,
-        "space_group_number": ph.space_group_number,
-        "space_group_setting": ph.space_group,
-        "space_group_in_cell": space_group_in_cell(ph),
-        "a_nm": lat.a_nm, "b_nm": lat.b_nm, "c_nm": lat.c_nm,
-        "alpha_deg": lat.alpha_deg, "beta_deg": lat.beta_deg, "gamma_deg": lat.gamma_deg,
-        "crystal_system": lat.crystal_system,
-        "n_atoms_cell": len(cell_atoms(ph).elements),
-        "elements": sorted({s.element for s in ph.sites}),
-        "source": ph.source,
-        "note": ph.note,
-    }
 
 
 def _words(row) -> set[str]:
@@ -96,7 +78,7 @@ def _cell_text(r, per_nm: float = 1.0) -> tuple[str, str]:
 
 
 def run(args) -> int:
-    rows = [_row(builtin_phase(name)) for name in builtin_names()]
+    rows = [phase_json(builtin_phase(name)) for name in builtin_names()]
     if args.match:
         rows = [r for r in rows if _matches(r, args.match)]
         if not rows:

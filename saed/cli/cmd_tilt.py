@@ -5,8 +5,6 @@ from __future__ import annotations
 import math
 import sys
 
-import numpy as np
-
 from saed.cli.common import finite_float, write_json
 from saed.errors import InputError
 
@@ -108,47 +106,14 @@ def _setup(args):
     return phase, u, holder
 
 
-def _setting_json(phase, s) -> dict:
-    from saed.crystal.miller import direction_to_4
-    from saed.simulate.tilt import family_text
-
-    return {"zone_axis": list(s.zone_axis),
-            "zone_axis_4": direction_to_4(s.zone_axis).tolist() if phase.is_hexagonal else None,
-            "family": family_text(phase, s.zone_axis), "alpha_deg": round(s.alpha_deg, 3),
-            "beta_deg": round(s.beta_deg, 3), "reachable": s.reachable,
-            "angle_from_beam_deg": round(s.angle_from_beam_deg, 3),
-            "in_plane_rotation_deg": round(s.in_plane_rotation_deg, 3)}
-
-
-def closest_setting(phase, u, holder, uvw, recorded_at) -> tuple[float, float, float]:
-    """(alpha, beta, angle left) of the holder setting within range that brings the beam closest to `uvw`."""
-    from scipy.optimize import minimize
-
-    from saed.simulate.geometry import unit
-    from saed.simulate.tilt import beam_direction_crystal, orientation_at
-
-    d = unit(phase.lattice.r_cartesian_nm(uvw))
-
-    def off(x):
-        b = beam_direction_crystal(orientation_at(u, holder, x[0], x[1], recorded_at_deg=recorded_at))
-        return -abs(float(b @ d))
-
-    (a0, a1), (b0, b1) = holder.alpha_range_deg, holder.beta_range_deg
-    grid = [(a, b) for a in np.linspace(a0, a1, 13) for b in np.linspace(b0, b1, 11)]
-    start = min(grid, key=off)
-    res = minimize(off, start, bounds=[(a0, a1), (b0, b1)], method="L-BFGS-B")
-    ang = math.degrees(math.acos(min(1.0, -float(res.fun))))
-    return float(res.x[0]), float(res.x[1]), ang
-
-
 def run(args) -> int:
     from saed.cli.cmd_simulate import parse_indices
-    from saed.simulate.families import zone_label
-    from saed.simulate.tilt import beam_direction_crystal, family_text, reachable_zones, tilt_to_zone
+    from saed.report.tilt_json import tilt_json
+    from saed.simulate.tilt import plan_tilt, reachable_zones
     from saed.simulate.zone import zone_axis_3
 
     if args.json and args.json != "-":
-        from saed.report.files import check_writable
+        from saed.files import check_writable
 
         check_writable(args.json)
     if args.rows < 1:
@@ -156,41 +121,12 @@ def run(args) -> int:
     phase, u, holder = _setup(args)
     rec = tuple(args.recorded_at)
     reach = reachable_zones(phase, u, holder, max_index=args.max_index, recorded_at_deg=rec)
-    doc = {"phase": phase.name, "orientation_matrix": [[round(float(v), 9) for v in r] for r in u],
-           "beam_direction_cart": [round(float(v), 9) for v in beam_direction_crystal(u)],
-           "holder": {"alpha_axis_deg": holder.alpha_axis_deg, "alpha_range_deg": list(holder.alpha_range_deg),
-                      "beta_range_deg": list(holder.beta_range_deg), "recorded_at_deg": list(rec),
-                      "alpha_sign": holder.alpha_sign, "beta_sign": holder.beta_sign},
-           "target": None, "reachable_zones": [_setting_json(phase, s) for s in reach]}
-    problem = None
+    plan = None
     if args.target is not None:
         uvw = zone_axis_3(phase, parse_indices(args.target, "--target"))
-        t = tilt_to_zone(phase, u, uvw, holder, recorded_at_deg=rec)
-        doc["target"] = _setting_json(phase, t)
-        if not t.reachable:
-            fam = family_text(phase, uvw)
-            same = [s for s in reach if family_text(phase, s.zone_axis) == fam]
-            a, b, left = closest_setting(phase, u, holder, uvw, rec)
-            doc["target"]["closest_setting"] = {"alpha_deg": round(a, 3), "beta_deg": round(b, 3),
-                                                "angle_left_deg": round(left, 3)}
-            if same:
-                s = same[0]
-                doc["target"]["nearest_reachable"] = _setting_json(phase, s)
-                hint = (f"nearest reachable of the same family: {zone_label(phase, s.zone_axis)} at alpha "
-                        f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
-            elif reach:
-                from saed.simulate.families import interzone_angle_deg
-
-                s = min(reach, key=lambda r: interzone_angle_deg(phase.lattice, r.zone_axis, uvw))
-                doc["target"]["nearest_reachable"] = _setting_json(phase, s)
-                hint = (f"nearest reachable zone: {zone_label(phase, s.zone_axis)} "
-                        f"({interzone_angle_deg(phase.lattice, s.zone_axis, uvw):.1f} deg from it) at alpha "
-                        f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
-            else:
-                hint = "no zone up to the index bound is within reach"
-            problem = (f"target {zone_label(phase, t.zone_axis)} needs alpha {t.alpha_deg:+.1f}, beta {t.beta_deg:+.1f} "
-                       f"deg, outside the holder range ({holder.range_text()}); the holder gets within {left:.1f} deg "
-                       f"at alpha {a:+.1f}, beta {b:+.1f}; {hint}")
+        plan = plan_tilt(phase, u, uvw, holder, reach, recorded_at_deg=rec)
+    doc = tilt_json(phase, u, holder, rec, reach, plan)
+    problem = None if plan is None or plan.target.reachable else _out_of_range_text(phase, holder, plan, uvw)
     if args.json:
         write_json(args.json, doc)
     if args.json != "-":
@@ -200,6 +136,25 @@ def run(args) -> int:
     elif problem:  # JSON on stdout: the note goes to stderr so the JSON stays parseable
         print(f"saed tilt: not reachable: {problem}", file=sys.stderr)
     return 0
+
+
+def _out_of_range_text(phase, holder, plan, uvw) -> str:
+    """One line: what the target needs, how close the holder gets, and the zone within reach instead."""
+    from saed.simulate.families import interzone_angle_deg, zone_label
+
+    t, c, s = plan.target, plan.closest, plan.nearest_reachable
+    if s is None:
+        hint = "no zone up to the index bound is within reach"
+    elif plan.same_family:
+        hint = (f"nearest reachable of the same family: {zone_label(phase, s.zone_axis)} at alpha "
+                f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
+    else:
+        hint = (f"nearest reachable zone: {zone_label(phase, s.zone_axis)} "
+                f"({interzone_angle_deg(phase.lattice, s.zone_axis, uvw):.1f} deg from it) at alpha "
+                f"{s.alpha_deg:+.1f}, beta {s.beta_deg:+.1f}")
+    return (f"target {zone_label(phase, t.zone_axis)} needs alpha {t.alpha_deg:+.1f}, beta {t.beta_deg:+.1f} "
+            f"deg, outside the holder range ({holder.range_text()}); the holder gets within {c.angle_left_deg:.1f} "
+            f"deg at alpha {c.alpha_deg:+.1f}, beta {c.beta_deg:+.1f}; {hint}")
 
 
 def _print(phase, holder, rec, doc, reach, rows) -> None:

@@ -11,7 +11,7 @@ import sys
 from saed.calibration import Calibration, calibration_from_options
 from saed.crystal.phase import Phase, builtin_names, load_phase
 from saed.errors import InputError
-from saed.report.files import atomic_write_text
+from saed.files import atomic_write_text
 
 __all__ = ["add_image_arguments", "check_frame_and_outputs", "check_outputs_not_inputs", "add_calibration_options", "calibration_from_args", "add_phase_option", "phases_from_args",
            "write_json", "int_at_least", "positive_float", "finite_float", "add_matching_options", "matching_options_from_args",
@@ -62,7 +62,7 @@ def add_image_arguments(p: argparse.ArgumentParser, *, what: str = "recorded pat
 
 def check_frame_and_outputs(args) -> None:
     """Before any work: a valid --frame, and --json / --overlay files that can be written (nothing is lost later)."""
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     if args.frame is not None and args.frame < 0:
         raise InputError(f"--frame {args.frame}: frames are numbered from 0")

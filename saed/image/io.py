@@ -518,6 +518,13 @@ def read_mask_image(path, *, shape: tuple[int, int]) -> np.ndarray:
 _UNIT_RE = re.compile(r"^\s*unit\s*=\s*(.+?)\s*$", re.MULTILINE)
 
 
+def _zero_denominator(value) -> bool:
+    try:
+        return float(value[1]) == 0.0
+    except (TypeError, ValueError, IndexError):
+        return True
+
+
 def read_image_calibration(path) -> float | None:
     """The detector scale (1/nm per pixel) stored in a TIFF's resolution tags, or None.
 
@@ -547,34 +554,30 @@ def read_image_calibration(path) -> float | None:
             page = tif.pages[0]
             meta = tif.imagej_metadata or {}
             desc = page.description or ""
-            xres = page.tags.get("XResolution")
-            yres = page.tags.get("YResolution")
-            xres = None if xres is None else xres.value
-            yres = None if yres is None else yres.value
+            tags = {name: page.tags.get(name) for name in ("XResolution", "YResolution")}
+            # tifffile's own reader turns the rationals into pixels per unit (a missing tag reads as 1)
+            px_per_unit_x, px_per_unit_y = page.get_resolution()
         except (tifffile.TiffFileError, *_DECODE_ERRORS) as exc:
             raise ImageError(f"{path}: the TIFF cannot be decoded ({_short(exc)})") from None
     unit = meta.get("unit")
     if unit is None:
         m = _UNIT_RE.search(desc)
         unit = m.group(1) if m else None
-    if unit is None or xres is None:
+    if unit is None or tags["XResolution"] is None:
         return None
     factor = RECIPROCAL_UNITS_INV_NM.get(normalise_unit(str(unit)))
     if factor is None:
         logger.debug("%s: resolution unit %r is not a reciprocal length; no calibration taken", path, unit)
         return None
-
-    def _rational(v):
-        try:
-            num, den = v
-            return float(num) / float(den) if float(den) else float("nan")
-        except (TypeError, ValueError):
-            return float("nan")
-
-    px_per_unit_x = _rational(xres)
-    px_per_unit_y = _rational(yres) if yres is not None else px_per_unit_x
-    if not (math.isfinite(px_per_unit_x) and px_per_unit_x > 0 and math.isfinite(px_per_unit_y) and px_per_unit_y > 0):
-        logger.warning("%s: unusable resolution tags (%r, %r); no calibration taken", path, xres, yres)
+    if tags["YResolution"] is None:
+        px_per_unit_y = px_per_unit_x
+    # a zero denominator is a broken tag (tifffile would read n/0 as n): refused like any unusable value
+    broken = any(t is not None and _zero_denominator(t.value) for t in tags.values())
+    px_per_unit_x, px_per_unit_y = float(px_per_unit_x), float(px_per_unit_y)
+    if broken or not (math.isfinite(px_per_unit_x) and px_per_unit_x > 0
+                      and math.isfinite(px_per_unit_y) and px_per_unit_y > 0):
+        logger.warning("%s: unusable resolution tags (%r, %r); no calibration taken", path,
+                       *(None if t is None else t.value for t in tags.values()))
         return None
     if abs(px_per_unit_x - px_per_unit_y) > 1e-3 * max(px_per_unit_x, px_per_unit_y):
         logger.warning("%s: X and Y resolutions differ (%g, %g px per %s); no calibration taken",

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from saed.crystal.miller import direction_to_4, plane_to_4
-from saed.report.index_json import _ints, _num
+from saed.report.json_numbers import json_float as _num, json_ints as _ints
 
 __all__ = ["crystals_json", "relationships_json", "cross_double_diffraction_json"]
 

@@ -17,7 +17,7 @@ import numpy as np
 from saed.crystal.notation import UNITS, Units, person_text, signed_text
 from saed.errors import InputError
 from saed.index.values import IndexResult
-from saed.report.files import atomic_write_text
+from saed.files import atomic_write_text
 from saed.report.index_overlay import overlay_figure_bytes
 from saed.report.index_summary import (CONFIDENCE_MEANING, SCORE_MEANING, confidence_word, kind_text, other_lookalikes,
                                       plain_notes, spot_label, zone_text)

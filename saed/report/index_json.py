@@ -10,27 +10,15 @@ separating tilt, the mistilt, the parts of the figure of merit and the spots lef
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from saed.index.values import IndexResult, Lookalike, Mistilt, Solution
+from saed.report.json_numbers import json_float as _num, json_ints as _ints
 
 __all__ = ["result_json", "solution_json", "FORMAT"]
 
 #: Identifies the document (``"format"`` field); the contract fields never change within it.
 FORMAT = "saed-index-1"
-
-
-def _num(v, nd: int = 6):
-    if v is None:
-        return None
-    v = float(v)
-    return round(v, nd) if math.isfinite(v) else None
-
-
-def _ints(v):
-    return None if v is None else [int(x) for x in v]
 
 
 def _mistilt_json(m: Mistilt | None):

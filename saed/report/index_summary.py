@@ -26,11 +26,18 @@ SCORE_MEANING = ("score: how well the simulated pattern explains the measured sp
                  "probability")
 #: The same in a few words, for pictures.
 SCORE_SHORT = "score: how well the simulated pattern explains the spots, 0 to 1; a ranking, not a probability"
+#: Confidence tags (:func:`confidence_word`): "clear" needs at least this score ...
+CLEAR_MIN_SCORE = 0.80
+#: ... and at least this lead over the runner-up's score;
+CLEAR_MIN_LEAD = 0.05
+#: "likely" needs at least this score; below it the answer is "weak".
+LIKELY_MIN_SCORE = 0.60
 #: What each confidence tag means (the rule in :func:`confidence_word`).
 CONFIDENCE_MEANING = {
-    "clear": "score at least 0.80, at least 0.05 above the runner-up, and no look-alike that fits as well",
-    "likely": "score at least 0.60, but close to the runner-up or below 0.80",
-    "weak": "score below 0.60: check the calibration and the phase list",
+    "clear": (f"score at least {CLEAR_MIN_SCORE:.2f}, at least {CLEAR_MIN_LEAD:.2f} above the runner-up, and no "
+              "look-alike that fits as well"),
+    "likely": f"score at least {LIKELY_MIN_SCORE:.2f}, but close to the runner-up or below {CLEAR_MIN_SCORE:.2f}",
+    "weak": f"score below {LIKELY_MIN_SCORE:.2f}: check the calibration and the phase list",
     "ambiguous": "a look-alike fits as well: this one pattern cannot decide (the note says what would)",
     "none": "nothing fits within the tolerances",
 }
@@ -95,9 +102,9 @@ def confidence_word(result: IndexResult) -> str:
     if any(lk.relation == "ambiguous" for lk in best.lookalikes):
         return "ambiguous"
     second = result.solutions[1].score if len(result.solutions) > 1 else 0.0
-    if best.score >= 0.8 and best.score - second >= 0.05:
+    if best.score >= CLEAR_MIN_SCORE and best.score - second >= CLEAR_MIN_LEAD:
         return "clear"
-    if best.score >= 0.6:
+    if best.score >= LIKELY_MIN_SCORE:
         return "likely"
     return "weak"
 

@@ -17,11 +17,11 @@ import numpy as np
 from saed.crystal.miller import plane_to_4
 from saed.crystal.phase import Phase
 from saed.errors import InputError
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.render_pattern import draw_pattern, index_text
 from saed.report.render_zonemap import draw_zone_map
 
-__all__ = ["atlas_page", "atlas_pages", "write_atlas", "MAX_PANELS", "PANELS_PER_PAGE", "CAPTION_PT", "SPOT_PT"]
+__all__ = ["atlas_pages", "write_atlas", "MAX_PANELS", "PANELS_PER_PAGE", "CAPTION_PT", "SPOT_PT"]
 
 #: Patterns per phase (on up to two sheets); families beyond these are on the zone map only.
 MAX_PANELS = 9
@@ -92,11 +92,6 @@ def atlas_pages(phase: Phase, *, max_index: int = 2, voltage_kv: float = 200.0, 
         figs.append(_page(phase, chunk, rest, ext=ext, max_index=max_index, voltage_kv=voltage_kv,
                           thickness_nm=thickness_nm, page=(n + 1, len(chunks)), tick=tick, units=units))
     return figs
-
-
-def atlas_page(phase: Phase, **kw):
-    """The first reference sheet of `phase` (a matplotlib Figure); see :func:`atlas_pages`."""
-    return atlas_pages(phase, **kw)[0]
 
 
 def _page(phase: Phase, panels, rest, *, ext: float, max_index: int, voltage_kv: float, thickness_nm: float,

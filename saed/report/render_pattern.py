@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from saed.errors import InputError
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.text_boxes import renderer_of as _renderer
 from saed.simulate.detector import FULL_WELL_COUNTS, DetectorImage
 from saed.simulate.zone import ZonePattern, rotate_xy

@@ -10,7 +10,7 @@ import numpy as np
 
 from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.errors import InputError
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.render_pattern import index_text
 from saed.report.text_boxes import TextBoxes
 from saed.simulate.zonemap import ZoneMap, great_circle_arc_xy

@@ -14,7 +14,7 @@ import io
 import numpy as np
 
 from saed.image.values import MeasuredPattern
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 
 __all__ = ["display_stretch", "write_spots_overlay"]
 

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from saed.errors import InputError
+from saed.index.reach import reach_for_pattern
 from saed.index.tables import DEFAULT_MAX_G_INV_NM, IndexTables, prepare_phases
 from saed.serve.settings import PhaseBook, Settings
 
@@ -33,20 +34,15 @@ logger = logging.getLogger(__name__)
 
 #: The page's picture of a pattern has at most this many pixels per side (block means beyond).
 DISPLAY_MAX_SIDE = 1024
-#: Largest |g| ever prepared, 1/nm (as ``saed index``).
-MAX_G_CAP_INV_NM = 30.0
 
 
 def max_g_for_pattern(measured) -> float:
-    """Table reach for a measured pattern, as ``saed index`` sizes it: 1.05 x the farthest spot, 16-30 1/nm.
+    """Table reach for a measured pattern, as ``saed index`` sizes it (:mod:`saed.index.reach`).
 
     Rounded up to a whole 1/nm so that patterns of one session share tables.
     """
-    scale = measured.calibration.scale_inv_nm_per_px if measured.calibration is not None else None
-    if scale is None or len(measured.spots) == 0:
-        return DEFAULT_MAX_G_INV_NM
-    g = float(np.max(np.linalg.norm(measured.corrected_spot_vectors_px(), axis=1))) * scale
-    return float(min(max(DEFAULT_MAX_G_INV_NM, math.ceil(1.05 * g)), MAX_G_CAP_INV_NM))
+    reach = reach_for_pattern(measured, whole_inv_nm=True)
+    return DEFAULT_MAX_G_INV_NM if reach is None else reach
 
 
 class TableCache:

@@ -215,7 +215,7 @@ class Service:
         return rec
 
     def _write_grains(self) -> None:
-        from saed.report.files import atomic_write_text
+        from saed.files import atomic_write_text
         from saed.serve.settings import settings_folder
 
         if not self.remember:

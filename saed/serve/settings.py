@@ -25,7 +25,7 @@ from pathlib import Path
 from saed.calibration import Calibration, calibration_from_options
 from saed.crystal.phase import Phase, builtin_names, builtin_phase
 from saed.errors import InputError, PhaseError
-from saed.report.files import atomic_write_text
+from saed.files import atomic_write_text
 
 __all__ = ["Settings", "PhaseBook", "settings_folder", "load_settings", "save_settings", "settings_from_fields",
            "ENV_VAR", "DEFAULT_PHASES"]

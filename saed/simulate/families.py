@@ -28,6 +28,7 @@ from saed.crystal.miller import direction_to_4, format_indices, plane_to_4
 from saed.crystal.phase import Phase
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.simulate.zone import ZonePattern, zone_axis_3, zone_pattern
 
 __all__ = ["ZoneFamily", "zone_families", "all_zone_axes", "interzone_angle_deg", "family_angles_deg",
@@ -60,9 +61,7 @@ class ZoneFamily:
 
     def __post_init__(self):
         for name in ("representative", "members"):
-            a = np.array(getattr(self, name), dtype=np.int64)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name), np.int64))
 
     @property
     def multiplicity(self) -> int:

@@ -29,12 +29,19 @@ import numpy as np
 
 from saed.crystal.phase import Phase
 from saed.errors import InputError
-from saed.simulate.families import canonical_zone, zone_families, zone_label
+from saed.simulate.families import canonical_zone, interzone_angle_deg, zone_families, zone_label
 from saed.simulate.geometry import orientation_matrix, rotation_about_axis, unit
 from saed.simulate.zone import zone_axis_3
 
 __all__ = ["Holder", "TiltSetting", "holder_rotation", "orientation_at", "tilt_to_zone", "reachable_zones",
-           "check_orientation_matrix", "beam_direction_crystal", "in_plane_rotation_of"]
+           "check_orientation_matrix", "beam_direction_crystal", "in_plane_rotation_of", "ClosestSetting",
+           "closest_setting", "TiltPlan", "plan_tilt"]
+
+#: Start points of the closest-setting search: a grid over the holder's alpha x beta ranges. The
+#: bounded optimiser only finds the minimum of the basin it starts in, so it starts from the best
+#: grid point; 13 x 11 points are 5 deg apart on the default +-30 / +-25 deg ranges.
+CLOSEST_START_ALPHA_POINTS = 13
+CLOSEST_START_BETA_POINTS = 11
 
 
 def _pair(value, what: str) -> tuple[float, float]:
@@ -209,3 +216,69 @@ def reachable_zones(phase: Phase, u_matrix, holder: Holder, *, max_index: int = 
 def family_text(phase: Phase, uvw) -> str:
     """'<011>'-style family label of a zone."""
     return "<" + zone_label(phase, canonical_zone(phase, uvw))[1:-1] + ">"
+
+
+@dataclass(frozen=True)
+class ClosestSetting:
+    """The holder readings within range that bring the beam closest to a zone out of reach."""
+
+    alpha_deg: float
+    beta_deg: float
+    angle_left_deg: float
+
+
+def closest_setting(phase: Phase, u_matrix, holder: Holder, uvw,
+                    recorded_at_deg: tuple[float, float] = (0.0, 0.0)) -> ClosestSetting:
+    """(alpha, beta, angle left) of the holder setting within range that brings the beam closest to `uvw`.
+
+    Either sign of the zone counts (the angle is to the line of the zone). A grid over the ranges
+    gives the start, scipy's bounded L-BFGS-B refines it.
+    """
+    from scipy.optimize import minimize
+
+    d = unit(phase.lattice.r_cartesian_nm(uvw))
+
+    def off(x):
+        b = beam_direction_crystal(orientation_at(u_matrix, holder, x[0], x[1], recorded_at_deg=recorded_at_deg))
+        return -abs(float(b @ d))
+
+    (a0, a1), (b0, b1) = holder.alpha_range_deg, holder.beta_range_deg
+    grid = [(a, b) for a in np.linspace(a0, a1, CLOSEST_START_ALPHA_POINTS)
+            for b in np.linspace(b0, b1, CLOSEST_START_BETA_POINTS)]
+    start = min(grid, key=off)
+    res = minimize(off, start, bounds=[(a0, a1), (b0, b1)], method="L-BFGS-B")
+    ang = math.degrees(math.acos(min(1.0, -float(res.fun))))
+    return ClosestSetting(float(res.x[0]), float(res.x[1]), ang)
+
+
+@dataclass(frozen=True)
+class TiltPlan:
+    """How to reach a target zone with the holder.
+
+    ``target``: the readings that put the zone on the beam (they may lie out of range). When out of
+    range: ``closest`` is the best the holder can do, and ``nearest_reachable`` a zone within reach
+    instead (``same_family`` True when it is of the target's own family, else the reachable zone at
+    the smallest angle to the target), or None when no zone up to the index bound is within reach.
+    """
+
+    target: TiltSetting
+    closest: ClosestSetting | None = None
+    nearest_reachable: TiltSetting | None = None
+    same_family: bool = False
+
+
+def plan_tilt(phase: Phase, u_matrix, uvw, holder: Holder, reachable: list[TiltSetting], *,
+              recorded_at_deg: tuple[float, float] = (0.0, 0.0)) -> TiltPlan:
+    """The plan to reach zone `uvw` (3-index), given the zones within reach (:func:`reachable_zones`)."""
+    t = tilt_to_zone(phase, u_matrix, uvw, holder, recorded_at_deg=recorded_at_deg)
+    if t.reachable:
+        return TiltPlan(t)
+    closest = closest_setting(phase, u_matrix, holder, uvw, recorded_at_deg)
+    fam = family_text(phase, uvw)
+    same = [s for s in reachable if family_text(phase, s.zone_axis) == fam]
+    if same:
+        return TiltPlan(t, closest, same[0], True)
+    if reachable:
+        s = min(reachable, key=lambda r: interzone_angle_deg(phase.lattice, r.zone_axis, uvw))
+        return TiltPlan(t, closest, s, False)
+    return TiltPlan(t, closest)

@@ -56,6 +56,7 @@ from saed.crystal.reflections import ReflectionTable, reflection_table
 from saed.crystal.symmetry import space_group
 from saed.errors import InputError
 from saed.physics import check_voltage_kv, electron_wavelength_nm
+from saed.readonly import frozen_array
 from saed.simulate.geometry import check_zone_axis, orientation_matrix, unit
 
 __all__ = ["ZonePattern", "zone_pattern", "zone_axis_3", "plane_3", "centring_translations",
@@ -266,9 +267,7 @@ class ZonePattern:
             a = getattr(self, name)
             if a is None:
                 continue
-            a = np.array(a)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(a))
 
         n = len(self.hkl)
         for name in ("g_inv_nm", "xy_inv_nm", "excitation_error_inv_nm", "intensity", "f_abs", "laue_zone",

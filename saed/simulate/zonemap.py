@@ -26,6 +26,7 @@ from saed.crystal.lattice import reduce_indices
 from saed.crystal.phase import Phase
 from saed.crystal.structure_factor import ZERO_F_RELATIVE, scattering_sum_nm, structure_factors_nm
 from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.simulate.families import family_angles_deg, interzone_angle_deg, shortest_allowed_g_inv_nm, zone_families
 
 __all__ = ["ZoneMap", "zone_map", "stereographic_xy", "great_circle_arc_xy"]
@@ -61,9 +62,7 @@ class ZoneMap:
 
     def __post_init__(self):
         for name in ("zones", "directions", "xy", "joints", "joint_hkl", "joint_angle_deg"):
-            a = np.array(getattr(self, name))
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name)))
 
 
 def stereographic_xy(d: np.ndarray) -> np.ndarray:

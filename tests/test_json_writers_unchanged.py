@@ -1,0 +1,94 @@
+"""The JSON documents of ``saed spots``, ``simulate``, ``tilt`` and ``phases`` stay field for field as they were.
+
+Issue 16.3 moved these writers out of the command modules into report/ (one schema module per
+command). The reference documents in tests/data/json_before/ were written by the commands as they
+were before that move (commit f6ba33b), on the fixed inputs below; CONTRACT.md says "keep every
+field, add freely", so every recorded field must still be there with the same value, and new
+fields may be added. Floats are compared to 1e-9 relative (they are written rounded, so a real
+change shows up far above that).
+
+To record a new reference after a deliberate change of a value: run this file with
+``SAED_RECORD_JSON=1`` and say why in the commit.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+import pytest
+import tifffile
+
+from saed.cli import main
+
+BEFORE = Path(__file__).parent / "data" / "json_before"
+
+
+def _spot_image(path: Path) -> None:
+    """A 256 x 256 pattern written here, not by saed's generators: Gaussian spots (sigma 1.8 px) on a
+    centred rectangular lattice g1 = (21, 3) px, g2 = (-4, 27) px about (129.3, 126.8), a bright
+    direct beam, flat background 40 counts and Poisson noise with a fixed seed."""
+    rng = np.random.default_rng(16)
+    yy, xx = np.mgrid[0:256, 0:256].astype(float)
+    img = np.full((256, 256), 40.0)
+    c = np.array([129.3, 126.8])
+    for m in range(-4, 5):
+        for n in range(-4, 5):
+            x, y = c + m * np.array([21.0, 3.0]) + n * np.array([-4.0, 27.0])
+            if not (8 < x < 248 and 8 < y < 248):
+                continue
+            peak = 9000.0 if (m, n) == (0, 0) else 1500.0 / (1.0 + 0.15 * (m * m + n * n))
+            img += peak * np.exp(-((xx - x) ** 2 + (yy - y) ** 2) / (2 * 1.8**2))
+    tifffile.imwrite(path, rng.poisson(img).astype(np.uint16), photometric="minisblack")
+
+
+CASES = {
+    "spots": ["spots", "{image}", "--scale", "0.021", "--voltage", "200"],
+    "simulate_fcc": ["simulate", "Co-fcc", "--zone", "0", "1", "1", "--max-g", "12", "--rotation", "12.5"],
+    "simulate_hcp_tilted": ["simulate", "Co-hcp", "--zone", "2", "-1", "-1", "0", "--max-g", "10",
+                            "--tilt", "1.5", "--tilt-toward", "0", "1", "-1", "0", "--thickness", "80"],
+    "tilt_reachable": ["tilt", "Co-fcc", "--zone", "0", "0", "1", "--rotation", "20", "--target", "0", "1", "2",
+                       "--max-index", "2"],
+    "phases_cobalt": ["phases", "Co"],
+    "tilt_out_of_range": ["tilt", "Co-hcp", "--zone", "0", "0", "0", "1", "--target", "2", "-1", "-1", "0",
+                          "--alpha-range", "20", "--beta-range", "-10", "15", "--recorded-at", "5", "-3",
+                          "--max-index", "2"],
+}
+
+
+def _same(before, now, where: str) -> None:
+    if isinstance(before, dict):
+        assert isinstance(now, dict), where
+        missing = set(before) - set(now)
+        assert not missing, f"{where}: fields dropped: {sorted(missing)}"
+        for k, v in before.items():
+            _same(v, now[k], f"{where}.{k}")
+    elif isinstance(before, list):
+        assert isinstance(now, list) and len(now) == len(before), f"{where}: {len(before)} items before"
+        for i, (a, b) in enumerate(zip(before, now)):
+            _same(a, b, f"{where}[{i}]")
+    elif isinstance(before, float) and not isinstance(now, bool) and isinstance(now, (int, float)):
+        assert math.isclose(before, now, rel_tol=1e-9, abs_tol=1e-12), f"{where}: {before!r} before, {now!r} now"
+    else:
+        assert type(before) is type(now) and before == now, f"{where}: {before!r} before, {now!r} now"
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_json_document_keeps_every_field_and_value(case, tmp_path, capsys):
+    image = tmp_path / "pattern.tif"
+    _spot_image(image)
+    out = tmp_path / "out.json"
+    argv = [a.format(image=image) for a in CASES[case]] + ["--json", str(out)]
+    assert main(argv) == 0
+    capsys.readouterr()
+    now = json.loads(out.read_text())
+    if case == "spots":  # the temporary path differs from run to run
+        assert now["image"] == str(image)
+        now["image"] = "pattern.tif"
+    ref = BEFORE / f"{case}.json"
+    if os.environ.get("SAED_RECORD_JSON"):
+        ref.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
+    _same(json.loads(ref.read_text()), now, case)
