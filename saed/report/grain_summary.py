@@ -57,7 +57,7 @@ def format_grain_summary(res: GrainResult, *, alpha_axis_note: str = "", style: 
     shown = full[:1] if full else res.solutions[:1]
     for s in shown:
         lines.append("")
-        lines.append(f"  {'pattern':<28} {'alpha':>7} {'beta':>7}  {'zone':<14} {'misfit':>8}  {'spots':>5}  note")
+        lines.append(f"  {'pattern':<28} {'alpha':>7} {'beta':>7}  {'zone':<14} {'misfit':>10}  {'spots':>5}  note")
         for p in s.patterns:
             note = "180-degree reading of the single-pattern answer" if p.turned else ""
             lines.append((f"  {p.image[-28:]:<28} {p.tilt_deg[0]:+7.1f} {p.tilt_deg[1]:+7.1f}  {pad(_zone(p, style), 14)} "
