@@ -15,6 +15,7 @@ from __future__ import annotations
 import itertools
 import json
 import math
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -247,3 +248,52 @@ def test_sidecar_calibrations_are_read_without_options(tmp_path, capsys):
     assert "(sidecar" in r.stdout
     best = doc["solutions"][0]
     assert best["phase"] == "Co-fcc" and _cubic_misorientation(np.array(best["orientation_matrix"]), u0) < 2.0
+
+
+def _hcp_series(tmp_path):
+    """Co-hcp on [2-1-10] then [10-11] (3-index [100], [211]): zones with negative 4-index components."""
+    return _series(tmp_path, [(1, 0, 0), (2, 1, 1)], phase="Co-hcp", first=(-3.0, 2.0))
+
+
+def test_terminal_summary_has_overbars_and_stays_aligned_and_honours_units(tmp_path, capsys):
+    from saed.crystal.notation import text_width
+
+    paths, tilts, _ = _hcp_series(tmp_path)
+    r = _run([*paths, *_tilt_args(tilts), "--phase", "Co-hcp", "--scale", f"{SCALE}", "--alpha-axis", "25",
+              "--units", "angstrom", "--report", str(tmp_path / "rep")], capsys)
+    assert r.returncode == 0, r.stderr
+    lines = r.stdout.splitlines()
+    k = next(i for i, line in enumerate(lines) if line.strip().startswith("pattern"))
+    head, rows = lines[k], lines[k + 1:k + 3]
+    # [2-1-10] (3-index [100], Miller-Bravais U = (2u - v)/3 ..., common practice) with overbars, no minus sign
+    assert "[21\u03051\u03050]" in rows[0], rows[0]
+    zones = re.findall(r"\[[^\]]*\]", "\n".join(rows))
+    assert len(zones) == 2 and all("-" not in z and len(z.replace("\u0305", "")) == 6 for z in zones), zones
+    # the columns after the zone stay put: 'misfit' ends with each 'N.NN deg', 'spots' with each count
+    misfit_end = text_width(head[:head.index("misfit") + len("misfit")])
+    spots_end = text_width(head[:head.index("spots") + len("spots")])
+    for row in rows:
+        m = re.search(r"\d+\.\d\d deg +(\d+)", row)
+        assert text_width(row[:m.start() + len("0.00 deg")]) == misfit_end, row
+        assert text_width(row[:m.end()]) == spots_end, row
+    assert "1/Å per px" in r.stdout and "1/nm" not in r.stdout  # the calibration lines follow --units
+    page = (tmp_path / "rep" / "index.html").read_text()
+    card = page.split("<h2")[0]  # the grain card comes before the per-pattern sections
+    assert '[2<span class="ob">1</span><span class="ob">1</span>0]' in card and "[2-1-10]" not in card
+    assert "1/Å per px" in page
+
+
+def test_terminal_summary_falls_back_to_minus_signs_on_a_plain_stream(tmp_path, monkeypatch):
+    import io
+    import sys
+
+    from saed.cli import main
+
+    paths, tilts, _ = _hcp_series(tmp_path)
+    buf = io.TextIOWrapper(io.BytesIO(), encoding="ascii")
+    monkeypatch.setattr(sys, "stdout", buf)
+    assert main(["grain", *map(str, paths), *_tilt_args(tilts), "--phase", "Co-hcp", "--scale", f"{SCALE}",
+                 "--alpha-axis", "25"]) == 0
+    buf.flush()
+    out = buf.buffer.getvalue().decode("ascii")  # nothing the stream cannot encode
+    assert "[2-1-10]" in out and "\u0305" not in out

@@ -169,6 +169,36 @@ def test_the_check_would_catch_three_index_forms():
     assert _three_index([r"$[2\,\bar{1}\,0]$", '(1<span class="ob">1</span>0)', "[1\u03050 0]"]) != []
 
 
+def test_ratio_and_grain_print_no_three_index_hexagonal_zone(tmp_path, capsys):
+    """The same check on the two commands that index by hand or by series: 'ratio' (d-spacings, radii with and
+    without the camera constant) and 'grain' (terminal and HTML card), on Co-hcp alone (every zone is hexagonal)."""
+    from test_grain import SCALE, _tilt_args, _hcp_series
+
+    texts, labels = [], []
+    # Co-hcp d(0002) = c/2 = 0.2035 nm, d(2-1-10) = a/2 = 0.1254 nm at 90 deg (a, c: data/phases.json, checked
+    # against ASE in tests/test_phases.py); radii 10 and 16.23 mm are in the same ratio (camera constant 2.035 nm mm)
+    for argv in (["0.2035", "0.1254", "90"], ["--radii", "10", "16.23", "90", "--camera-constant", "2.035"],
+                 ["--radii", "10", "16.23", "90"]):
+        assert main(["ratio", *argv, "--phase", "Co-hcp", "--top", "6"]) == 0
+        out = capsys.readouterr().out
+        texts.append(out)
+        # g1, g2 (after the zone) and g1+g2 (third cell from the end) of every Co-hcp row of the table
+        rows = [(m, line.split()) for line in out.splitlines()
+                if (m := re.match(r"\s*\d+\s+Co-hcp\s+\[[^\]]*\]\s+(\S+)\s+(\S+)", line))]
+        assert rows, out
+        labels += [c.rstrip("*") for m, cells in rows for c in (m.group(1), m.group(2), cells[-3])]
+    paths, tilts, _ = _hcp_series(tmp_path)
+    rep = tmp_path / "rep"
+    assert main(["grain", *map(str, paths), *_tilt_args(tilts), "--phase", "Co-hcp", "--scale", f"{SCALE}",
+                 "--alpha-axis", "25", "--report", str(rep)]) == 0
+    texts.append(capsys.readouterr().out)
+    texts.append(re.sub(r'src="data:[^"]+"', "", (rep / "index.html").read_text()))
+    four = [g for t in texts for g in bracketed_groups(t) if len(g) == 4]
+    assert len(four) >= 8 and sum(1 for t in labels if (g := bare_label(t)) and len(g) == 4) >= 9, labels
+    bad = _three_index(texts, labels=labels)
+    assert bad == [], "\n".join(bad)
+
+
 def test_html_report_uses_overbars_and_explains_score_and_tags(hcp_example, tmp_path):
     img, cal = hcp_example
     assert main(["index", str(img), "--calibration", str(cal), "--phase", "Co-hcp", "--phase", "Co-fcc",
@@ -360,7 +390,8 @@ def test_atlas_and_diagram_in_angstrom(tmp_path, capsys, figure_texts):
 
 @pytest.mark.parametrize("argv", [["index", "x.tif"], ["spots", "x.tif"], ["rings", "x.tif"], ["demo"],
                                   ["simulate", "Co-fcc", "--zone", "0", "0", "1"], ["phases"],
-                                  ["calibrate", "x.tif", "--standard", "Au"], ["atlas", "Co-fcc", "--out", "a.pdf"]])
+                                  ["calibrate", "x.tif", "--standard", "Au"], ["atlas", "Co-fcc", "--out", "a.pdf"],
+                                  ["ratio", "0.2", "0.1", "60"], ["grain", "a.tif", "b.tif", "--tilt", "0,0"]])
 def test_a_unit_that_is_not_offered_is_refused_in_one_line(argv, capsys):
     try:
         rc = main(argv + ["--units", "furlong"])

@@ -19,6 +19,7 @@ Check values (each with its source):
 
 import json
 import math
+import re
 
 import numpy as np
 import pytest
@@ -220,3 +221,75 @@ def test_one_row_per_zone_family_with_the_other_pairs_in_that_zone():
     for h1, h2 in ((s.hkl1, s.hkl2),) + s.other_pairs:
         assert np.dot(h1, s.zone_axis) == 0 and np.dot(h2, s.zone_axis) == 0  # every listed pair lies in the zone
         assert _angle(h1, h2) == pytest.approx(82.39, abs=0.01)
+
+
+# ---------------------------------------------------------------------------------- units and overbars (issue 15)
+def _minus_index_groups(text: str) -> list[str]:
+    """Index groups written with a minus sign ('1-210', '[10-10]', '-1-11'); signed numbers (-0.1) are not."""
+    tokens = re.split(r"[\s/\[\]()<>{},;:*]+", text)
+    return [t for t in tokens if re.fullmatch(r"(?:-?\d){3,4}", t) and "-" in t]
+
+
+def test_units_angstrom_shows_every_length_in_angstrom_and_the_json_keeps_nm(capsys, tmp_path):
+    # Si [011]: d(111) = a/sqrt 3, d(220) = a/sqrt 8, a = scipy.constants' lattice parameter of silicon (CODATA)
+    a_ang = constants.physical_constants["lattice parameter of silicon"][0] * 1e10
+    js = tmp_path / "r.json"
+    assert main(["ratio", "0.31356", "0.19202", "35.26", "--phase", "Si", "--units", "angstrom",
+                 "--json", str(js)]) == 0
+    out = capsys.readouterr().out
+    assert "d1 3.136 Å, d2 1.920 Å" in out  # the measurement, typed in nm, echoed in Å
+    head = next(line for line in out.splitlines() if line.startswith("rank"))
+    assert "d1 Å" in head and "d2 Å" in head and "d Å" in head
+    row = next(line for line in out.splitlines() if line.split()[:2] == ["1", "Si"]).split()
+    d1, d2, d_sum = float(row[5]), float(row[7]), float(row[12])
+    assert d1 == pytest.approx(a_ang / math.sqrt(3), abs=6e-4) and d2 == pytest.approx(a_ang / math.sqrt(8), abs=6e-4)
+    # |g1 + g2|^2 = (3 + 8 + 2 sqrt(3 * 8) cos 35.26 deg) / a^2 = 19 / a^2 (cos 35.26 deg = sqrt(2/3)): a 133 spot
+    assert d_sum == pytest.approx(a_ang / math.sqrt(19), abs=6e-4)
+    assert " nm" not in out
+    best = json.loads(js.read_text())["solutions"][0]  # the JSON contract stays in nm
+    assert best["d1_nm_calc"] == pytest.approx(a_ang / 10 / math.sqrt(3), rel=1e-4)
+
+
+def test_look_alike_lines_follow_the_units(capsys):
+    # Co-fcc 111 / 220 at 90 deg vs Co-hcp 0002 / 2-1-10: 0.6 % apart (sheet section 7)
+    assert main(["ratio", "0.20465", "0.12532", "90", "--phase", "Co-fcc", "--phase", "Co-hcp",
+                 "--units", "angstrom"]) == 0
+    out = capsys.readouterr().out
+    line = next(t for t in out.splitlines() if t.startswith("rank 1 ambiguous with Co-hcp"))
+    assert re.search(r"at d 1\.06\d Å vs .* at d 1\.06\d Å", line) and "nm" not in line
+
+
+def test_terminal_overbars_on_utf8_and_minus_signs_on_a_plain_stream(capsys, monkeypatch):
+    import io
+    import sys
+
+    argv = ["ratio", "0.2035", "0.1254", "90", "--phase", "Co-hcp", "--phase", "Co-fcc"]
+    assert main(argv) == 0  # pytest's capture is UTF-8
+    out = capsys.readouterr().out
+    assert "\u0305" in out and _minus_index_groups(out) == [], _minus_index_groups(out)
+    # hcp [10-10] holds (0002) and (1-210): Weiss zone law in 4 indices, hU + kV + iT + lW = 0 (common practice)
+    row = next(line for line in out.splitlines() if line.split()[:2] == ["1", "Co-hcp"])
+    assert "[101\u03050]" in row and "0002" in row and "12\u030510" in row
+    buf = io.TextIOWrapper(io.BytesIO(), encoding="ascii")
+    monkeypatch.setattr(sys, "stdout", buf)
+    assert main(argv) == 0
+    buf.flush()
+    plain = buf.buffer.getvalue().decode("ascii")  # nothing the stream cannot encode
+    assert "[10-10]" in plain and "1-210" in plain and "\u0305" not in plain
+
+
+def test_table_columns_stay_aligned_with_overbars(capsys):
+    from saed.crystal.notation import text_width
+
+    assert main(["ratio", "0.2035", "0.1254", "90", "--phase", "Co-hcp", "--phase", "Co-fcc", "--top", "5"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    k = next(i for i, line in enumerate(lines) if line.startswith("rank"))
+    rows = [line for line in lines[k + 1:] if line[:6].strip().isdigit()]
+    assert len(rows) >= 2 and any("\u0305" in r for r in rows)
+    head = lines[k]
+    # the right-aligned last column ends in the same terminal column in every row
+    assert {text_width(r) for r in rows} == {text_width(head)}
+    g1_col = text_width(head[:head.index("g1 ")])
+    for r in rows:
+        cells = r.split()
+        assert text_width(r[:r.index(" " + cells[3] + " ") + 1]) == g1_col, r

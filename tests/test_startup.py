@@ -39,6 +39,65 @@ def test_index_path_imports_neither_scipy_stats_nor_matplotlib():
     assert "saed.cli.cmd_simulate" not in mods  # only the command asked for is imported
 
 
+#: Never on the start-up path of the commands checked below (each costs 0.1-1 s to import, or is only for
+#: plots, scans, microscope formats and the web page).
+NEVER_AT_START = ("matplotlib", "scipy.stats", "dask", "distributed", "rsciio", "skimage", "h5py", "zarr",
+                  "starlette", "fastapi", "uvicorn", "PIL", "pandas", "ase", "xraylib", "mrcfile")
+
+
+def _imported(argv: list[str], tmp_path) -> set[str]:
+    """Every module in sys.modules when a fresh interpreter running `saed ARGV` (or `-c CODE`) exits.
+
+    (sys.modules, not ``-X importtime``: the interpreter does not log modules loaded by
+    importlib.import_module, which is how the command modules are found.)"""
+    out = tmp_path / "modules.json"
+    hook = f"import atexit, json, sys; atexit.register(lambda: open({str(out)!r}, 'w').write(json.dumps(sorted(sys.modules))))"
+    if argv[0] == "-c":
+        code = hook + "\n" + argv[1]
+    else:
+        code = hook + f"\nimport runpy; sys.argv = ['saed', *{argv!r}]; runpy.run_module('saed', run_name='__main__')"
+    env = dict(os.environ, PYTHONPATH=ROOT)
+    done = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr[-2000:]
+    return set(json.loads(out.read_text()))
+
+
+def _banned(names: set[str]) -> set[str]:
+    return {n for n in names if any(n == b or n.startswith(b + ".") for b in NEVER_AT_START)}
+
+
+def test_help_builds_every_command_parser_without_a_heavy_library(tmp_path):
+    names = _imported(["--help"], tmp_path)
+    assert {"saed.cli.cmd_index", "saed.cli.cmd_batch", "saed.cli.cmd_serve"} <= names  # the whole parser was built
+    assert _banned(names) == set()
+    assert not {n for n in names if n.split(".")[0] in ("scipy", "gemmi", "tifffile")}
+
+
+def test_importing_the_cli_imports_no_numpy(tmp_path):
+    names = _imported(["-c", "import saed.cli"], tmp_path)
+    assert "saed.cli" in names and "numpy" not in names and _banned(names) == set()
+
+
+def test_a_real_index_run_imports_only_what_indexing_needs(tmp_path):
+    """The cold 'saed index' call itself (not just its modules): the libraries it loads are the ones the
+    start-up benchmark names, and none of the heavy ones it has no use for."""
+    from saed.bench.bench_startup import INDEX_LIBRARIES
+
+    ex = __import__("importlib.resources").resources.files("saed").joinpath("data/examples")
+    img, cal = tmp_path / "b.tif", tmp_path / "b.json"
+    img.write_bytes(ex.joinpath("grain_B_hcp.tif").read_bytes())
+    cal.write_bytes(ex.joinpath("grain_B_hcp.json").read_bytes())
+    names = _imported(["index", str(img), "--calibration", str(cal), "--phase", "Co-hcp", "--phase", "Co-fcc",
+                       "--json", str(tmp_path / "r.json")], tmp_path)
+    assert json.loads((tmp_path / "r.json").read_text())["solutions"]  # it did index
+    assert _banned(names) == set(), sorted(_banned(names))
+    assert set(INDEX_LIBRARIES) <= names  # the benchmark's list is what the call really loads ...
+    third_party = {n.split(".")[0] for n in names} & {"numpy", "scipy", "tifffile", "gemmi", "matplotlib", "PIL",
+                                                      "skimage", "dask", "rsciio", "h5py", "zarr", "pandas"}
+    assert third_party == {"numpy", "scipy", "tifffile", "gemmi"}  # ... and nothing more of weight
+    assert not {n for n in names if n.startswith("saed.cli.cmd_") and n != "saed.cli.cmd_index"}
+
+
 def test_phases_and_version_need_no_scipy():
     mods = _modules_after("from saed.cli import build_parser; build_parser('phases')\nimport saed.physics, saed.calibration")
     assert "saed.physics" in mods and not {m for m in mods if m.startswith("scipy")}

@@ -8,6 +8,7 @@ import sys
 
 from saed.cli.common import (add_image_arguments, print_calibration, add_matching_options, add_phase_option, finite_float,
                              matching_options_from_args, phases_from_args, positive_float, write_json)
+from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
 
 NAME = "grain"
@@ -62,6 +63,7 @@ def add_arguments(p):
     out = p.add_argument_group("output")
     out.add_argument("--json", metavar="PATH", help="write the joint result as JSON ('-' for stdout)")
     out.add_argument("--report", metavar="DIR", help="write a self-contained HTML report (index.html) into DIR")
+    add_units_argument(out)
 
 
 def parse_tilt(text: str) -> tuple[float, float]:
@@ -153,6 +155,7 @@ def _calibrations(args) -> list:
 
 def run(args) -> int:
     from saed.cli.cmd_index import _max_g
+    from saed.crystal.notation import terminal_style
     from saed.image.measure import inspect_file
     from saed.index import index_pattern, prepare_phases
     from saed.index.grain import GrainPattern, solve_grain
@@ -182,8 +185,8 @@ def run(args) -> int:
     out = sys.stderr if args.json == "-" else sys.stdout
     for path, (_, r) in zip(args.images, read):
         print(f"{path}:", file=out)
-        print_calibration(r, file=out)
-    print(format_grain_summary(result, alpha_axis_note=note), file=out)
+        print_calibration(r, file=out, units=units_from_args(args))
+    print(format_grain_summary(result, alpha_axis_note=note, style=terminal_style(out)), file=out)
     if args.json:
         doc = grain_json(result)
         doc["calibrations"] = [{"image": str(path), **r.to_json()} for path, (_, r) in zip(args.images, read)]
@@ -194,7 +197,7 @@ def run(args) -> int:
         from saed.report.grain_html import write_grain_report
 
         path = write_grain_report(args.report, result, [i.image for i in insps], ignored=[i.ignored for i in insps],
-                                  title="saed grain: " + ", ".join(args.images))
+                                  title="saed grain: " + ", ".join(args.images), units=units_from_args(args))
         print(f"report written to {path}", file=out)
     if not [s for s in result.solutions if not s.missing]:
         print(f"saed grain: {result.message}", file=sys.stderr)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 
 from saed.cli.common import add_phase_option, finite_float, phases_from_args, positive_float, write_json
+from saed.cli.display import add_units_argument, display_options
 from saed.errors import InputError
 
 NAME = "ratio"
@@ -29,7 +30,8 @@ SHOWN_LOOKALIKES = 3
 def add_arguments(p):
     p.usage = USAGE
     p.add_argument("values", nargs="*", type=finite_float, metavar="D1 D2 ANGLE",
-                   help="two d-spacings in nm and the angle between the reflections in deg (with --radii: ANGLE only)")
+                   help="two d-spacings in nm (also with --units angstrom, which sets the output) and the angle between the "
+                        "reflections in deg (with --radii: ANGLE only)")
     p.add_argument("--radii", nargs=2, type=finite_float, metavar=("R1", "R2"),
                    help="distances of the two spots from the centre, mm on the print or screen")
     p.add_argument("--camera-constant", type=finite_float, metavar="NM_MM",
@@ -43,6 +45,7 @@ def add_arguments(p):
                    help="largest zone-axis index considered, 3-index conventional cell (default 7)")
     p.add_argument("--top", type=int, default=10, metavar="N", help="solutions to show (default 10)")
     p.add_argument("--json", metavar="OUT", help="write the ranked solutions as JSON ('-' for stdout)")
+    add_units_argument(p)
 
 
 def measurement_from_args(args):
@@ -119,13 +122,27 @@ def run(args) -> int:
 
 
 def _print(meas, sols, phases, args) -> None:
-    from saed.simulate.families import reflection_label, zone_label
+    """The terminal answer: lengths in --units, indices with overbars where stdout can show them."""
+    from saed.crystal.notation import plane_text, signed_text, table_lines, zone_text
+    from saed.index.ratio_method import lookalike_text
+
+    opts = display_options(args)
+    style, units = opts["style"], opts["units"]
+    u = units.label(style)
+
+    def length(x_nm) -> str:
+        return units.length_text(x_nm)
+
+    def hkl(s, h) -> str:
+        return plane_text(h, s.phase.is_hexagonal, style)
 
     if meas.calibrated:
-        src = (f"R1 {meas.radii_mm[0]:g} mm, R2 {meas.radii_mm[1]:g} mm with lambda L {args.camera_constant:g} nm mm: "
-               if meas.radii_mm else "")
-        print(f"measured: {src}d1 {meas.d1_nm:.4f} nm, d2 {meas.d2_nm:.4f} nm, angle {meas.angle_deg:.1f} deg "
-              f"(ratio d1/d2 = {meas.ratio:.3f})")
+        src = ""
+        if meas.radii_mm:
+            k = units.length(args.camera_constant)
+            src = (f"R1 {meas.radii_mm[0]:g} mm, R2 {meas.radii_mm[1]:g} mm with lambda L {k:g} {u} mm: ")
+        print(f"measured: {src}d1 {length(meas.d1_nm)} {u}, d2 {length(meas.d2_nm)} {u}, "
+              f"angle {meas.angle_deg:.1f} deg (ratio d1/d2 = {meas.ratio:.3f})")
     else:
         print(f"measured: R1 {meas.radii_mm[0]:g}, R2 {meas.radii_mm[1]:g} mm (ratio R2/R1 = {meas.ratio:.3f}), "
               f"angle {meas.angle_deg:.1f} deg; no camera constant, so the ratio and angle alone decide")
@@ -137,26 +154,25 @@ def _print(meas, sols, phases, args) -> None:
         return
     rows = []
     for s in sols:
-        z = zone_label(s.phase, s.zone_axis)
-        h1, h2 = reflection_label(s.phase, s.hkl1), reflection_label(s.phase, s.hkl2)
-        hs = reflection_label(s.phase, s.hkl_sum) + ("" if s.sum_allowed else "*")
+        z = zone_text(s.zone_axis, s.phase.is_hexagonal, style)
+        hs = hkl(s, s.hkl_sum) + ("" if s.sum_allowed else "*")
         if meas.calibrated:
-            vals = [f"{s.d1_nm_calc:.4f}", f"{s.d1_diff_pct:+.1f}", f"{s.d2_nm_calc:.4f}", f"{s.d2_diff_pct:+.1f}"]
-            sum_at = f"{s.d_sum_nm:.4f}"
+            vals = [length(s.d1_nm_calc), signed_text(s.d1_diff_pct, 1),
+                    length(s.d2_nm_calc), signed_text(s.d2_diff_pct, 1)]
+            sum_at = length(s.d_sum_nm)
         else:
-            vals = [f"{s.ratio_calc:.3f}", f"{s.ratio_diff_pct:+.1f}"]
+            vals = [f"{s.ratio_calc:.3f}", signed_text(s.ratio_diff_pct, 1)]
             sum_at = f"{s.d1_nm_calc / s.d_sum_nm:.3f}"
-        rows.append([str(s.rank), s.phase.name, z, h1, h2, *vals, f"{s.angle_deg_calc:.1f}",
-                     f"{s.angle_diff_deg:+.1f}", hs, sum_at, f"{s.misfit:.2f}"])
+        rows.append([str(s.rank), s.phase.name, z, hkl(s, s.hkl1), hkl(s, s.hkl2), *vals, f"{s.angle_deg_calc:.1f}",
+                     signed_text(s.angle_diff_deg, 1), hs, sum_at, f"{s.misfit:.2f}"])
     if meas.calibrated:
-        head = ["rank", "phase", "zone", "g1", "g2", "d1 nm", "diff %", "d2 nm", "diff %", "angle", "diff",
-                "g1+g2", "d nm", "misfit"]
+        head = ["rank", "phase", "zone", "g1", "g2", f"d1 {u}", "diff %", f"d2 {u}", "diff %", "angle", "diff",
+                "g1+g2", f"d {u}", "misfit"]
     else:
         head = ["rank", "phase", "zone", "g1", "g2", "R2/R1", "diff %", "angle", "diff", "g1+g2", "R/R1", "misfit"]
-    widths = [max(len(r[k]) for r in rows + [head]) for k in range(len(head))]
     left = {1, 2, 3, 4}
-    for r in [head] + rows:
-        print("  ".join(c.ljust(w) if k in left else c.rjust(w) for k, (c, w) in enumerate(zip(r, widths))).rstrip())
+    for line in table_lines([(h, "<" if k in left else ">") for k, h in enumerate(head)], rows):
+        print(line)
     print("angles in degrees; diff = calculated - measured; misfit = RMS of the differences in units of the "
           "tolerances (0 exact, 1 at the tolerance); g1+g2 = the third spot the solution predicts"
           + (" (* kinematically forbidden: it may still appear by double diffraction)"
@@ -167,13 +183,14 @@ def _print(meas, sols, phases, args) -> None:
             print(f"rank {s.rank}: {names} give the same ratio and angle (same lattice geometry); only the absolute "
                   "scale (a camera constant) tells them apart")
         if s.other_pairs:
-            pairs = ", ".join(f"{reflection_label(s.phase, a)}/{reflection_label(s.phase, b)}" for a, b in s.other_pairs[:4])
+            pairs = ", ".join(f"{hkl(s, a)}/{hkl(s, b)}" for a, b in s.other_pairs[:4])
             print(f"rank {s.rank}: other spot pairs of the same pattern fit as well: {pairs}"
                   + (" ..." if len(s.other_pairs) > 4 else ""))
     best = sols[0]
-    for text in best.lookalikes[:SHOWN_LOOKALIKES]:
+    looks = [lookalike_text(best, sols[r - 1], meas.calibrated, style=style, units=units) for r in best.lookalike_ranks]
+    for text in looks[:SHOWN_LOOKALIKES]:
         print(f"rank 1 {text}")
-    if len(best.lookalikes) > SHOWN_LOOKALIKES:
-        print(f"rank 1 is ambiguous with {len(best.lookalikes) - SHOWN_LOOKALIKES} more solutions (see --json)")
+    if len(looks) > SHOWN_LOOKALIKES:
+        print(f"rank 1 is ambiguous with {len(looks) - SHOWN_LOOKALIKES} more solutions (see --json)")
     print("two spots are weak evidence: confirm on a third spot of the same pattern (g1+g2), with 'saed index' on the "
           "recorded pattern, or on a second zone axis")

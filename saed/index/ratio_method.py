@@ -20,13 +20,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from saed.crystal.notation import UNITS, Units, plane_text, zone_text
 from saed.crystal.phase import Phase
 from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
 
 __all__ = ["RatioMeasurement", "RatioSolution", "measurement_from_d", "measurement_from_radii", "solve_ratio",
-           "RATIO_LOOKALIKE_PCT", "RATIO_LOOKALIKE_DEG"]
+           "solution_label", "lookalike_text", "RATIO_LOOKALIKE_PCT", "RATIO_LOOKALIKE_DEG"]
 
 #: Two solutions whose calculated d's (or ratio) differ by less than this, percent, cannot be separated by one
 #: SAED pattern without an internal standard (Williams & Carter 2009, ch. 18; common practice: 1-2 %).
@@ -123,6 +124,8 @@ class RatioSolution:
     g1 + g2 that the pattern must also show (kinematically allowed or not: ``sum_allowed``).
     ``other_pairs`` are further (hkl1, hkl2) of the same phase and zone that fit as well (other spots of
     the same pattern); ``same_geometry`` other phases with the same pair, ratio and angle (ratio only).
+    ``lookalikes`` says, in plain text and nm (as in the JSON), which solutions this measurement cannot
+    separate from it; ``lookalike_ranks`` are their ranks, for :func:`lookalike_text` in another style or unit.
     """
 
     phase: Phase
@@ -145,6 +148,7 @@ class RatioSolution:
     same_geometry: tuple[str, ...] = ()
     other_pairs: tuple = ()
     lookalikes: tuple[str, ...] = field(default=())
+    lookalike_ranks: tuple[int, ...] = ()
 
     @property
     def phase_name(self) -> str:
@@ -261,40 +265,53 @@ def _allowed(phase: Phase, hkl) -> bool:
     return bool(abs(structure_factors_nm(phase, h)[0]) > ZERO_F_RELATIVE * scattering_sum_nm(phase, h)[0])
 
 
-def _label(s: RatioSolution) -> str:
-    from saed.simulate.families import reflection_label, zone_label
+def solution_label(s: RatioSolution, style: str = "plain") -> str:
+    """'Co-hcp [01-10] 0002/2-1-10': phase, zone and the hkl pair, 4-index on hexagonal axes; `style` as in
+    :mod:`saed.crystal.notation` ('plain' minus signs, 'unicode' overbars)."""
+    hexa = s.phase.is_hexagonal
+    return (f"{s.phase.name} {zone_text(s.zone_axis, hexa, style)} "
+            f"{plane_text(s.hkl1, hexa, style)}/{plane_text(s.hkl2, hexa, style)}")
 
-    return (f"{s.phase.name} {zone_label(s.phase, s.zone_axis)} "
-            f"{reflection_label(s.phase, s.hkl1)}/{reflection_label(s.phase, s.hkl2)}")
 
-
-def _lookalike_text(s: RatioSolution, o: RatioSolution, calibrated: bool) -> str | None:
-    """'ambiguous with ...' when `o` cannot be separated from `s` by this measurement, else None.
-
-    Without d-spacings, solutions of the same geometry were merged already (``same_geometry``).
-    """
+def _separable(s: RatioSolution, o: RatioSolution, calibrated: bool) -> tuple[float, float] | None:
+    """(length difference %, angle difference deg) when `o` cannot be separated from `s` by this
+    measurement, else None. Without d-spacings, solutions of the same geometry were merged already
+    (``same_geometry``)."""
     if calibrated:
         dd = max(abs(o.d1_nm_calc / s.d1_nm_calc - 1.0), abs(o.d2_nm_calc / s.d2_nm_calc - 1.0)) * 100.0
-        what = "d-spacings"
     else:
         dd = abs(o.ratio_calc / s.ratio_calc - 1.0) * 100.0
-        what = "ratios"
     da = abs(o.angle_deg_calc - s.angle_deg_calc)
     if dd >= RATIO_LOOKALIKE_PCT or da >= RATIO_LOOKALIKE_DEG:
         return None
-    from saed.simulate.families import reflection_label
+    return dd, da
 
+
+def lookalike_text(s: RatioSolution, o: RatioSolution, calibrated: bool, *, style: str = "plain",
+                   units: Units = UNITS["nm"]) -> str | None:
+    """'ambiguous with ...' when `o` cannot be separated from `s` by this measurement, else None.
+
+    Lengths in `units` (the JSON keeps nm), indices in `style` (:mod:`saed.crystal.notation`).
+    """
+    diff = _separable(s, o, calibrated)
+    if diff is None:
+        return None
+    dd, da = diff
+    what = "d-spacings" if calibrated else "ratios"
     if o.phase.name == s.phase.name:
         decide = "another zone axis decides"
     else:
         decide = "the other spots of the pattern ('saed index') or a second zone axis decide"
+
     def at(x: RatioSolution) -> str:
-        where = f"d {x.d_sum_nm:.4f} nm" if calibrated else f"{x.d1_nm_calc / x.d_sum_nm:.3f} x R1"
-        return f"{reflection_label(x.phase, x.hkl_sum)} at {where}" + ("" if x.sum_allowed else " (forbidden)")
+        where = (f"d {units.length_text(x.d_sum_nm)} {units.label(style)}" if calibrated
+                 else f"{x.d1_nm_calc / x.d_sum_nm:.3f} x R1")
+        return (f"{plane_text(x.hkl_sum, x.phase.is_hexagonal, style)} at {where}"
+                + ("" if x.sum_allowed else " (forbidden)"))
 
     sums = f"g1+g2: {at(s)} vs {at(o)}"
-    return (f"ambiguous with {_label(o)}: {what} differ by {dd:.1f} %, angles by {da:.1f} deg, below SAED accuracy "
-            f"(about 1-2 %, 1 deg); {sums}; {decide}")
+    return (f"ambiguous with {solution_label(o, style)}: {what} differ by {dd:.1f} %, angles by {da:.1f} deg, below "
+            f"SAED accuracy (about 1-2 %, 1 deg); {sums}; {decide}")
 
 
 def solve_ratio(meas: RatioMeasurement, phases: list[Phase], *, length_tol_pct: float = 2.0,
@@ -350,10 +367,12 @@ def solve_ratio(meas: RatioMeasurement, phases: list[Phase], *, length_tol_pct: 
         sols = merged
     sols = sols[:top]
     out = []
-    for r, s in enumerate(sols, start=1):
-        looks = tuple(t for t in (_lookalike_text(s, o, meas.calibrated) for o in sols if o is not s
-                                  and (o.phase.name != s.phase.name or o.zone_axis != s.zone_axis)) if t)
-        out.append(_with(s, rank=r, lookalikes=looks))
+    ranked = [_with(s, rank=r) for r, s in enumerate(sols, start=1)]
+    for s in ranked:
+        others = [o for o in ranked if o is not s and (o.phase.name != s.phase.name or o.zone_axis != s.zone_axis)
+                  and _separable(s, o, meas.calibrated) is not None]
+        out.append(_with(s, lookalikes=tuple(lookalike_text(s, o, meas.calibrated) for o in others),
+                         lookalike_ranks=tuple(o.rank for o in others)))
     return out
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
-from saed.crystal.miller import format_indices
+from saed.crystal.notation import UNITS, Units, person_text, zone_text
 from saed.index.grain_values import GrainResult
 from saed.report.files import atomic_write_text
 from saed.report.grain_summary import lookalike_word
@@ -19,7 +19,13 @@ def _e(t) -> str:
 
 
 def _zone(p) -> str:
-    return "[" + format_indices(p.zone_axis_4 if p.zone_axis_4 is not None else p.zone_axis) + "]"
+    """The zone with overbars (4-index when it has one), as HTML."""
+    return zone_text(p.zone_axis_4 if p.zone_axis_4 is not None else p.zone_axis, False, "html")
+
+
+def _text(t) -> str:
+    """A stored plain note as HTML: escaped, index groups with overbars, 'deg' as a degree sign."""
+    return person_text(str(t), "html")
 
 
 def grain_card_html(res: GrainResult) -> str:
@@ -35,31 +41,32 @@ def grain_card_html(res: GrainResult) -> str:
         parts.append("<div>Euler angles (Bunge Z X Z): " + ", ".join(f"{v:.1f}&deg;" for v in b.euler_bunge_deg)
                      + " &mdash; detector frame of the first pattern at holder readings 0, 0</div>")
         rows = "".join(f"<tr><td class='l'>{_e(p.image)}</td><td>{p.tilt_deg[0]:+.1f}</td><td>{p.tilt_deg[1]:+.1f}</td>"
-                       f"<td class='l'>{_e(_zone(p))}</td><td>{p.misfit_deg:.2f}&deg;</td><td>{p.n_spots}</td></tr>"
+                       f"<td class='l'>{_zone(p)}</td><td>{p.misfit_deg:.2f}&deg;</td><td>{p.n_spots}</td></tr>"
                        for p in b.patterns)
         parts.append("<table><tr><th class='l'>pattern</th><th>&alpha; (&deg;)</th><th>&beta; (&deg;)</th>"
                      f"<th class='l'>zone</th><th>misfit</th><th>spots</th></tr>{rows}</table>")
     if res.message:
-        parts.append(f"<div class='answer'>{_e(res.message)}</div>")
+        parts.append(f"<div class='answer'>{_text(res.message)}</div>")
     if res.lookalikes:
         items = "".join(f"<li><b>{_e(lk.phase_name)}</b>: {_e(lookalike_word(lk, res))}"
-                        f" &mdash; {_e(lk.evidence)}</li>" for lk in res.lookalikes)
+                        f" &mdash; {_text(lk.evidence)}</li>" for lk in res.lookalikes)
         parts.append(f"<div><b>Look-alikes one pattern could not separate</b><ul>{items}</ul></div>")
     if res.third_pattern is not None:
-        parts.append(f"<div><b>To settle it:</b> {_e(res.third_pattern.text)}</div>")
+        parts.append(f"<div><b>To settle it:</b> {_text(res.third_pattern.text)}</div>")
     parts.append("</div>")
     return "".join(parts)
 
 
-def write_grain_report(folder, res: GrainResult, images, *, ignored=None, title: str = "saed grain") -> Path:
-    """Write ``index.html`` into `folder`: the grain card, then one section per pattern."""
+def write_grain_report(folder, res: GrainResult, images, *, ignored=None, title: str = "saed grain",
+                       units: Units = UNITS["nm"]) -> Path:
+    """Write ``index.html`` into `folder`: the grain card, then one section per pattern (lengths in `units`)."""
     d = Path(folder)
     d.mkdir(parents=True, exist_ok=True)
     ign = ignored or [None] * len(images)
     entries = [ReportEntry(gp.image, img, gp.result, ignored=ig,
                            caption=f"holder alpha {gp.tilt_deg[0]:+.1f}, beta {gp.tilt_deg[1]:+.1f} deg")
                for gp, img, ig in zip(res.patterns, images, ign)]
-    text = report_html(entries, title=title)
+    text = report_html(entries, title=title, units=units)
     text = text.replace("</h1>", "</h1>" + grain_card_html(res), 1)
     path = d / "index.html"
     atomic_write_text(path, text)
