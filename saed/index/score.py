@@ -705,7 +705,11 @@ def weighted_median(x: np.ndarray, w: np.ndarray) -> float:
     x, w = np.asarray(x, float), np.asarray(w, float)
     order = np.argsort(x)
     c = np.cumsum(w[order])
-    return float(x[order][np.searchsorted(c, 0.5 * c[-1])])
+    if not c[-1] > 0:
+        return float(x[order][0])
+    # the CDF itself, as numpy forms it: half of a subnormal total would round to 0 and pick a
+    # zero-weight value
+    return float(x[order][np.searchsorted(c / c[-1], 0.5)])
 
 
 def _friedel_rows(hkl: np.ndarray) -> np.ndarray:
