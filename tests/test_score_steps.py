@@ -8,8 +8,7 @@ definitions are written out here in plain Python.
 from __future__ import annotations
 
 import numpy as np
-from hypothesis import given, settings
-from hypothesis import example
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
