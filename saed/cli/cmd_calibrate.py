@@ -263,7 +263,7 @@ def _warnings(cal, args) -> list[str]:
 
 
 def _print(res, doc, args):
-    from saed.crystal.notation import indices_text, person_text, table_lines, terminal_style, wavelength_text
+    from saed.crystal.notation import indices_text, label_text, table_lines, terminal_style, wavelength_text
 
     cal = res.calibration
     units = units_from_args(args)
@@ -285,7 +285,7 @@ def _print(res, doc, args):
     else:
         print("  camera length  - (give --pixel-pitch UM for camera length and camera constant)")
     print(f"  residual       {res.residual_pct:.3f} % (RMS misfit of the {'spots' if doc['zone_axis'] else 'rings'} used)")
-    rows = [[f"{r[0]:.2f}", person_text(r[1], st) if r[1] else "(none)", units.length_text(r[2], 5), units.length_text(r[3], 5), _fmt(r[4], "+.3f")]
+    rows = [[f"{r[0]:.2f}", label_text(r[1], st) if r[1] else "(none)", units.length_text(r[2], 5), units.length_text(r[3], 5), _fmt(r[4], "+.3f")]
             for r in res.ring_rows]
     for line in table_lines([("r px", ">"), ("hkl", ">"), (f"d std {un}", ">"), (f"d meas {un}", ">"),
                              ("misfit %", ">")], rows, indent="  "):

@@ -31,7 +31,7 @@ from saed.errors import InputError
 
 __all__ = ["STYLES", "indices_text", "zone_text", "plane_text", "shown_zone", "shown_plane", "projected_plane",
            "fraction_text", "terminal_style", "text_width", "pad", "table_lines", "person_text", "Units", "UNITS",
-           "units_named", "wavelength_text", "degrees_text", "signed_text"]
+           "units_named", "wavelength_text", "degrees_text", "signed_text", "label_text"]
 
 #: Media an index can be written for.
 STYLES = ("plain", "unicode", "html", "mathtext")
@@ -260,6 +260,25 @@ def person_text(text: str, style: str = "plain") -> str:
     if style == "unicode":
         return text
     return _DEG.sub(lambda m: m.group(1) + ("&deg;" if style == "html" else "°"), text)
+
+
+def label_text(label: str, style: str = "plain") -> str:
+    """A stored reflection label known to hold indices ('-400', '1-11', '533/622', '10-10') in the
+    medium's form. Unlike :func:`person_text`, a group with a leading minus is indices here, not a
+    signed number. Groups that are not 3 or 4 single-digit indices are left as they are.
+
+    >>> label_text("-400/1-11", "unicode") == "4\u030500/11\u03051"
+    True
+    >>> label_text("533/622")
+    '533/622'
+    """
+    _check_style(style)
+    parts = []
+    for g in label.split("/"):
+        if _INDEX_GROUP.fullmatch(g):
+            g = indices_text([int(v) for v in re.findall(r"-?\d", g)], style).strip("$")
+        parts.append(g)
+    return "/".join(parts)
 
 
 def signed_text(value, decimals: int = 2) -> str:
