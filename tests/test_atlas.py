@@ -11,7 +11,7 @@ from saed.cli import main
 from saed.crystal import builtin_phase
 from saed.crystal.miller import format_indices
 from saed.errors import InputError
-from saed.simulate.detector import detector_image
+from saed.synth.zone import detector_image
 from saed.simulate.families import family_angles_deg, zone_families
 from saed.simulate.zone import zone_pattern
 from saed.simulate.zonemap import zone_map

@@ -122,7 +122,7 @@ def test_rings_refuses_a_file_that_is_not_a_calibration(files, tmp_path, capsys)
 
 
 def test_rings_refuses_a_single_crystal_pattern(tmp_path, capsys):
-    from saed.simulate.detector import detector_image
+    from saed.synth.zone import detector_image
     from saed.simulate.zone import zone_pattern
 
     det = detector_image(zone_pattern(builtin_phase("Si"), [0, 1, 1]), shape_px=(512, 512),

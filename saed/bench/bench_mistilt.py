@@ -2,7 +2,7 @@
 
 Each case is a kinematic pattern of :func:`saed.simulate.zone.zone_pattern` with the beam tilted
 by a known angle toward a random zero-order reflection (thickness-averaged sinc^2 shape factor,
-a random foil thickness 30-120 nm), rendered by :func:`saed.simulate.detector.detector_image`
+a random foil thickness 30-120 nm), rendered by :func:`saed.synth.zone.detector_image`
 with Poisson noise, a log-normal intensity disorder of 0.3 on every reflection (dynamical-like
 departures from the kinematic intensities) and a random in-plane rotation, then measured by the image stage and indexed
 against the true phase. The estimate is compared with the truth: the
@@ -37,7 +37,7 @@ def _one(phase, zone, tilt_deg, rng, *, scale=0.02, size=1024, disorder=0.3):
     from saed.calibration import Calibration
     from saed.image.measure import measure_pattern
     from saed.index import index_pattern, prepare_phases
-    from saed.simulate.detector import detector_image
+    from saed.synth.zone import detector_image
     from saed.simulate.zone import zone_pattern
 
     z0 = zone_pattern(phase, zone, max_g_inv_nm=9.0, include_holz=False)

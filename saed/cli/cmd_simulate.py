@@ -163,7 +163,7 @@ def run(args) -> int:
         write_json(args.json, doc)
     if args.image:
         from saed.report.render_pattern import write_detector_image
-        from saed.simulate.detector import detector_image
+        from saed.synth.zone import detector_image
 
         det = detector_image(zp, shape_px=(args.image_size, args.image_size),
                              scale_inv_nm_per_px=cal.scale_inv_nm_per_px, center_px=cal.center_px,

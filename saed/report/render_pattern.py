@@ -22,7 +22,7 @@ import numpy as np
 from saed.errors import InputError
 from saed.files import atomic_write_bytes, check_writable
 from saed.report.text_boxes import renderer_of as _renderer
-from saed.simulate.detector import FULL_WELL_COUNTS, DetectorImage
+from saed.synth.zone import FULL_WELL_COUNTS, DetectorImage
 from saed.simulate.zone import ZonePattern, rotate_xy
 
 __all__ = ["write_detector_image", "display_8bit", "render_diagram", "diagram_figure", "draw_pattern", "index_text",

@@ -1,4 +1,13 @@
-"""Synthetic recorded patterns with their ground truth, for the tests and benchmarks of the image stage.
+"""Synthetic recorded patterns with their ground truth: the one detector forward model of saed.
+
+Every picture saed makes of a pattern (tests, benchmarks, the demo's example images and
+``saed simulate --image``) goes through :func:`saed.synth.detector.render_pattern`: centre, camera
+constant (scale), ellipse, spot shape, direct beam, haze, beam stop and counting noise live there
+and nowhere else. The model sits in synth/ and not in simulate/ because it is instrument, not
+physics: simulate/ computes where reflections are in reciprocal space (1/nm); synth/ turns that into
+detector pixels, and synth/ already held the fuller model (counting statistics, beam stop, ellipse)
+that the image-stage tests were built on. :func:`saed.synth.zone.zone_offsets_px` is the one mapping
+from a zone pattern to pixel offsets.
 
 :mod:`saed.synth.detector` renders spots through a detector model (haze, noise, saturation, beam
 stop, ellipse, mistilt, hot pixels); :mod:`saed.synth.lattice` makes plain 2-D lattices;

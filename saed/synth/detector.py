@@ -41,7 +41,8 @@ class Detector:
 
     gain_counts_per_electron: mean counts one electron gives; read_noise_counts: Gaussian 1-sigma;
     dark_offset_counts: the level of an unexposed pixel; saturation_counts: the clipping level
-    (the largest value of ``dtype`` by default).
+    (the largest value of ``dtype`` by default); counting_noise: False records the expected counts
+    (no Poisson or read noise), as for a picture of a simulation.
     """
 
     shape: tuple[int, int] = (1024, 1024)
@@ -50,6 +51,7 @@ class Detector:
     dark_offset_counts: float = 50.0
     saturation_counts: float | None = None
     dtype: str = "uint16"
+    counting_noise: bool = True
 
     @property
     def full_scale_counts(self) -> float:
@@ -255,8 +257,11 @@ def render_pattern(spot_xy_px, spot_electrons, *, center_px, detector: Detector 
         stop_mask = trans < 0.5
 
     g = detector.gain_counts_per_electron
-    counts = rng.poisson(expected).astype(np.float64) * g
-    counts += detector.dark_offset_counts + rng.normal(0.0, detector.read_noise_counts, size=counts.shape)
+    if detector.counting_noise:
+        counts = rng.poisson(expected).astype(np.float64) * g
+        counts += detector.dark_offset_counts + rng.normal(0.0, detector.read_noise_counts, size=counts.shape)
+    else:
+        counts = expected * g + detector.dark_offset_counts
     if scene.hot_pixels:
         hr = rng.integers(0, rows, scene.hot_pixels)
         hc = rng.integers(0, cols, scene.hot_pixels)

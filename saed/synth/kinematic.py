@@ -7,6 +7,10 @@ an elliptical projector distortion and a mistilt. Intensities are |F|^2 exp(-(s/
 exact excitation error and w = ``excitation_width_inv_nm`` (a stand-in for a thin bent foil and a
 convergent beam). The full image route (render, detect, index)
 is exercised by the demo and the benchmark through :mod:`saed.synth`.
+
+Positions come from :func:`saed.synth.zone.zone_offsets_px` and images from
+:func:`saed.synth.detector.render_pattern`: the one detector model of saed; only the intensity rule
+(|F|^2 with the excitation-error weight above, log-normal disorder) is this module's own.
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from saed.calibration import Calibration, Ellipse
 from saed.image.values import MeasuredPattern, Spots
 from saed.simulate.geometry import in_plane_rotation
 from saed.simulate.zone import zone_pattern
+from saed.synth.zone import zone_offsets_px
 
 __all__ = ["SyntheticTruth", "synthetic_measured"]
 
@@ -58,7 +63,7 @@ def zone_spots(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_
         inten = np.where(zp.double_diffraction, double_diffraction, inten)
     keep = (zp.laue_zone == 0) & (inten >= min_intensity)
     u = in_plane_rotation(in_plane_rotation_deg) @ zp.orientation_matrix
-    v = np.asarray(zp.xy_rotated_inv_nm(in_plane_rotation_deg))[keep] / scale_inv_nm_per_px
+    v = zone_offsets_px(zp, scale_inv_nm_per_px=scale_inv_nm_per_px, rotation_deg=in_plane_rotation_deg)[keep]
     inten, hkl = inten[keep], np.asarray(zp.hkl)[keep]
     if holz_projection_intensity > 0:
         # thin foils, surface steps and faults: weak spots where the first layers project (fcc <111>: 1/3{422})

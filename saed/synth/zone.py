@@ -2,13 +2,21 @@
 
 Positions follow :mod:`saed.simulate.geometry`: a reflection at ``xy_inv_nm`` (in-plane rotation 0)
 lands at ``centre + Rz(phi) xy / scale`` pixels (before the ellipse of the scene), Rz turning from
-+x toward +y. Intensities are the pattern's kinematic intensities (strongest = 1) times
-``electrons_max``.
++x toward +y (:func:`zone_offsets_px`, the one place that maps a zone pattern onto detector pixels).
+Intensities are the pattern's kinematic intensities (strongest = 1) times ``electrons_max``.
+
+Two entry points, one model (:func:`saed.synth.detector.render_pattern`):
+
+* :func:`render_zone` for tests and benchmarks: electrons, counting noise, beam stop, ellipse, and the
+  ground truth of the spot lattice;
+* :func:`detector_image` for ``saed simulate --image``: a noise-free (or Poisson) picture in counts,
+  every reflection row of the pattern located on the frame.
 """
 
 from __future__ import annotations
 
 import itertools
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,7 +24,18 @@ import numpy as np
 from saed.errors import InputError
 from saed.synth.detector import Detector, Scene, SynthPattern, render_pattern
 
-__all__ = ["ZoneRender", "render_zone", "spot_lattice_basis"]
+__all__ = ["ZoneRender", "render_zone", "spot_lattice_basis", "zone_offsets_px", "DetectorImage", "detector_image",
+           "default_scale_inv_nm_per_px", "FULL_WELL_COUNTS"]
+
+#: Full well of a 16-bit detector, counts.
+FULL_WELL_COUNTS = 65535.0
+
+
+def zone_offsets_px(zp, *, scale_inv_nm_per_px: float, rotation_deg: float = 0.0) -> np.ndarray:
+    """(N, 2) offsets (x = column, y = row; pixels from the centre, before any ellipse) of every row of `zp`."""
+    if not scale_inv_nm_per_px > 0:
+        raise InputError(f"zone pattern on the detector: scale {scale_inv_nm_per_px!r} must be positive")
+    return np.asarray(zp.xy_rotated_inv_nm(rotation_deg), float) / float(scale_inv_nm_per_px)
 
 
 @dataclass(frozen=True, eq=False)
@@ -90,9 +109,7 @@ def render_zone(zp, *, scale_inv_nm_per_px: float, center_px, rotation_deg: floa
     include_holz : also draw higher-order Laue-zone reflections (they are off the ZOLZ lattice)
     rng : None, int or numpy Generator
     """
-    if not scale_inv_nm_per_px > 0:
-        raise InputError(f"render_zone: scale {scale_inv_nm_per_px!r} must be positive")
-    xy = zp.xy_rotated_inv_nm(rotation_deg) / float(scale_inv_nm_per_px)
+    xy = zone_offsets_px(zp, scale_inv_nm_per_px=scale_inv_nm_per_px, rotation_deg=rotation_deg)
     keep = (np.asarray(zp.intensity) >= min_intensity) & (np.hypot(xy[:, 0], xy[:, 1]) > 1e-9)
     if not include_holz:
         keep &= np.asarray(zp.zolz)
@@ -107,3 +124,100 @@ def render_zone(zp, *, scale_inv_nm_per_px: float, center_px, rotation_deg: floa
     g1, g2 = spot_lattice_basis(np.stack([d @ g1u, d @ g2u, d @ (g1u + g2u)]))
     return ZoneRender(pattern=pat, rows=rows_idx, hkl=np.asarray(zp.hkl)[rows_idx], g1_px=g1, g2_px=g2,
                       g1_undistorted_px=g1u, g2_undistorted_px=g2u)
+
+
+@dataclass(frozen=True, eq=False)
+class DetectorImage:
+    """A picture of a zone pattern (float32 counts, rows x columns) and where the reflections fell.
+
+    ``spot_xy_px`` (N, 2) holds (x = column, y = row) of each row of the pattern, NaN where it
+    falls off the detector; ``spot_peak_counts`` (N,) the peak each row was drawn with.
+    """
+
+    image: np.ndarray
+    center_px: tuple[float, float]
+    scale_inv_nm_per_px: float
+    in_plane_rotation_deg: float
+    spot_xy_px: np.ndarray
+    spot_peak_counts: np.ndarray
+
+    def __post_init__(self):
+        for name in ("image", "spot_xy_px", "spot_peak_counts"):
+            a = np.asarray(getattr(self, name))
+            a.flags.writeable = False
+            object.__setattr__(self, name, a)
+
+
+def default_scale_inv_nm_per_px(zp, size_px: int) -> float:
+    """A scale that puts max_g at 46 % of the frame width from the centre."""
+    return zp.max_g_inv_nm / (0.46 * size_px)
+
+
+def _gaussian_electrons(peak_counts, sigma_px: float):
+    """Electrons of a 2-D Gaussian spot of width `sigma_px` whose peak is `peak_counts` (gain 1): 2 pi sigma^2 peak."""
+    return 2.0 * math.pi * sigma_px**2 * np.asarray(peak_counts, float)
+
+
+def detector_image(zp, *, shape_px: tuple[int, int] = (1024, 1024), scale_inv_nm_per_px: float | None = None,
+                   center_px: tuple[float, float] | None = None, in_plane_rotation_deg: float = 0.0,
+                   spot_sigma_px: float = 2.0, peak_counts: float = 20000.0, central_beam_ratio: float = 50.0,
+                   halo_counts: float = 150.0, halo_width_inv_nm: float = 1.0, dark_counts: float = 20.0,
+                   double_diffraction_strength: float = 0.0, noise: bool = False, rng=None) -> DetectorImage:
+    """Render `zp` to counts through the detector model (:func:`saed.synth.detector.render_pattern`).
+
+    Parameters
+    ----------
+    shape_px : (rows, columns)
+    scale_inv_nm_per_px : 1/nm per pixel (default: :func:`default_scale_inv_nm_per_px`)
+    center_px : (x, y) of 000 (default: the frame centre)
+    in_plane_rotation_deg : turn of the pattern from +x toward +y
+    spot_sigma_px : Gaussian width of a spot, pixels
+    peak_counts : peak of the strongest reflection (intensity 1), counts
+    central_beam_ratio : central-beam peak / `peak_counts` (clipped at the 16-bit full well)
+    halo_counts, halo_width_inv_nm : diffuse halo I = halo / (1 + (g / width)^2) around 000
+    dark_counts : flat offset
+    double_diffraction_strength : fraction of sqrt(I_g1 I_g2) given to double-diffraction spots (0: none)
+    noise : Poisson counting noise (no read noise); rng seeds it. Without it the frame holds the
+        expected counts (pixel-integrated spots), clipped at the full well.
+    """
+    rows, cols = (int(v) for v in shape_px)
+    if rows < 16 or cols < 16 or rows > 8192 or cols > 8192:
+        raise InputError(f"image size {rows}x{cols} px must lie between 16 and 8192 pixels a side")
+    scale = default_scale_inv_nm_per_px(zp, min(rows, cols)) if scale_inv_nm_per_px is None else float(scale_inv_nm_per_px)
+    if not math.isfinite(scale) or scale <= 0:
+        raise InputError(f"image scale {scale_inv_nm_per_px!r} 1/nm per pixel must be a positive number")
+    sigma = float(spot_sigma_px)
+    if not math.isfinite(sigma) or not 0.3 <= sigma <= 50:
+        raise InputError(f"spot size {spot_sigma_px!r} px must lie between 0.3 and 50 pixels")
+    if not 0.0 <= float(double_diffraction_strength) <= 1.0:
+        raise InputError("double-diffraction strength must lie between 0 and 1")
+    cx, cy = ((cols - 1) / 2.0, (rows - 1) / 2.0) if center_px is None else (float(center_px[0]), float(center_px[1]))
+    if not (math.isfinite(cx) and math.isfinite(cy) and -cols <= cx <= 2 * cols and -rows <= cy <= 2 * rows):
+        # Farther out than one frame, nothing of a pattern scaled to the frame reaches it: a blank image.
+        raise InputError(f"centre ({cx:g}, {cy:g}) px lies far outside the {cols}x{rows} px image: give a centre "
+                         f"within x {-cols} to {2 * cols}, y {-rows} to {2 * rows} (the frame centre is "
+                         f"{(cols - 1) / 2:g}, {(rows - 1) / 2:g})")
+
+    xy = zone_offsets_px(zp, scale_inv_nm_per_px=scale, rotation_deg=in_plane_rotation_deg) + np.array([cx, cy])
+    peaks = np.asarray(zp.intensity, float) * float(peak_counts)
+    if double_diffraction_strength > 0:
+        r = zp.dd_route
+        dd = zp.double_diffraction
+        peaks = peaks.copy()
+        peaks[dd] = double_diffraction_strength * np.sqrt(peaks[r[dd, 0]] * peaks[r[dd, 1]])
+    half = int(math.ceil(4.5 * sigma))
+    on = (xy[:, 0] > -half) & (xy[:, 0] < cols + half) & (xy[:, 1] > -half) & (xy[:, 1] < rows + half)
+    drawn = on & (peaks > 0)
+    central_peak = min(central_beam_ratio * peak_counts, 4.0 * FULL_WELL_COUNTS)
+    beam_sigma = 2.5 * sigma
+    scene = Scene(spot_sigma_px=sigma, direct_beam_electrons=float(_gaussian_electrons(central_peak, beam_sigma)),
+                  direct_beam_sigma_px=beam_sigma, haze_electrons=float(halo_counts),
+                  haze_core_px=float(halo_width_inv_nm) / scale, haze_power=2.0, floor_electrons=0.0)
+    detector = Detector(shape=(rows, cols), gain_counts_per_electron=1.0, read_noise_counts=0.0,
+                        dark_offset_counts=float(dark_counts), saturation_counts=FULL_WELL_COUNTS, dtype="float32",
+                        counting_noise=bool(noise))
+    pat = render_pattern(xy[drawn], _gaussian_electrons(peaks[drawn], sigma), center_px=(cx, cy), detector=detector,
+                         scene=scene, rng=rng)
+    spot_xy = np.where(on[:, None], xy, np.nan)
+    return DetectorImage(np.asarray(pat.image, np.float32), (cx, cy), scale, float(in_plane_rotation_deg), spot_xy,
+                         peaks)
