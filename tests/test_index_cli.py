@@ -133,4 +133,9 @@ def test_any_spot_list_gives_a_result_never_an_exception(few_tables, xy, calibra
     m = MeasuredPattern((256, 256), (127.5, 127.5), spots, None, Calibration(0.05 if calibrated else None, 200.0))
     res = index_pattern(m, few_tables)
     assert isinstance(res, IndexResult)
-    assert res.solutions or res.message
+    if res.solutions:
+        for sol in res.solutions:  # every spot accounted for, once, and a score in 0..1
+            assert sorted(s.spot_index for s in sol.indexed) == list(range(len(a)))
+            assert 0.0 <= sol.score <= 1.0
+    else:  # no answer: a one-line reason instead
+        assert res.message.strip() and "\n" not in res.message
