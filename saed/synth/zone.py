@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from saed.errors import InputError
+from saed.readonly import frozen_array
 from saed.synth.detector import Detector, Scene, SynthPattern, render_pattern
 
 __all__ = ["ZoneRender", "render_zone", "spot_lattice_basis", "zone_offsets_px", "DetectorImage", "detector_image",
@@ -143,9 +144,7 @@ class DetectorImage:
 
     def __post_init__(self):
         for name in ("image", "spot_xy_px", "spot_peak_counts"):
-            a = np.asarray(getattr(self, name))
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name)))
 
 
 def default_scale_inv_nm_per_px(zp, size_px: int) -> float:
