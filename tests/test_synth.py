@@ -90,3 +90,35 @@ def test_zone_adapter_follows_the_geometry_convention():
 def test_spot_lattice_basis_brute_force():
     g1, g2 = spot_lattice_basis(np.array([[2.0, 0.0], [0.0, 3.0], [2.0, 3.0], [4.0, 3.0], [-2.0, 6.0]]))
     assert sorted([np.hypot(*g1), np.hypot(*g2)]) == pytest.approx([2.0, 3.0])
+
+
+def test_without_counting_noise_a_frame_holds_the_expected_counts():
+    # counting_noise=False (the picture of a simulation): no Poisson or read noise, so the frame does not
+    # depend on the seed, and a spot of N electrons sums to g N counts above the dark level (the pixel-
+    # integrated Gaussian integrates to 1; common practice)
+    det = Detector(shape=(96, 96), gain_counts_per_electron=2.0, read_noise_counts=5.0, dark_offset_counts=30.0,
+                   dtype="float64", counting_noise=False)
+    scene = Scene(haze_electrons=0.0, floor_electrons=0.0, direct_beam_electrons=0.0, spot_sigma_px=1.7)
+    a = render_pattern([[40.3, 51.8]], [1234.5], center_px=(48, 48), detector=det, scene=scene, rng=1).image
+    b = render_pattern([[40.3, 51.8]], [1234.5], center_px=(48, 48), detector=det, scene=scene, rng=2).image
+    assert np.array_equal(a, b)
+    assert float(np.sum(a - 30.0)) == pytest.approx(2.0 * 1234.5, rel=1e-6)
+    assert float(a.min()) == pytest.approx(30.0)
+
+
+def test_simulate_picture_and_the_zone_renderer_share_one_pixel_mapping():
+    # saed simulate --image (detector_image) and render_zone place a reflection at the same pixel:
+    # centre + Rz(phi) xy / scale (saed.simulate.geometry), here Al 200 at |g| = 2/a = 4.939 1/nm (a = 0.40495 nm,
+    # ICDD 04-0787 from memory) turned by 30 deg
+    from saed.crystal import builtin_phase
+    from saed.simulate.zone import zone_pattern
+    from saed.synth.zone import detector_image, zone_offsets_px
+
+    zp = zone_pattern(builtin_phase("Al"), [0, 0, 1])
+    det = detector_image(zp, shape_px=(256, 256), scale_inv_nm_per_px=0.05, center_px=(120.0, 130.0),
+                         in_plane_rotation_deg=30.0)
+    i = int(np.flatnonzero(np.all(zp.hkl == [2, 0, 0], axis=1))[0])
+    off = zone_offsets_px(zp, scale_inv_nm_per_px=0.05, rotation_deg=30.0)[i]
+    assert np.hypot(*off) == pytest.approx(2 / 0.40495 / 0.05, rel=1e-4)
+    assert det.spot_xy_px[i] == pytest.approx(np.array([120.0, 130.0]) + off)
+    assert not det.image.flags.writeable
