@@ -171,7 +171,12 @@ def test_zinc_blende_and_diamond_are_ambiguous_along_011_with_a_tilt():
     other = "GaAs" if best.phase_name == "Ge" else "Ge"
     lk = _look(best, other)
     assert lk is not None and lk.relation == "ambiguous"
-    assert lk.tilt is not None and "200" in lk.tilt.text
+    # the tilt turns about a row that both index alike, toward a zone where the 200 spots differ: the
+    # axis is a reflection of the zone (Weiss zone law) and the targets are named for both phases
+    t = lk.tilt
+    assert t is not None and t.target_zone is not None and t.other_target_zone is not None
+    assert sum(h * u for h, u in zip(t.about_hkl, best.zone_axis)) == 0
+    assert "200" in t.text
 
 
 def test_diamond_011_is_told_from_fcc_011_by_the_200_spots_uncalibrated():
