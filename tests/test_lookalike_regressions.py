@@ -47,7 +47,7 @@ def _hcp_cartesian(uvw, a=0.25071, c=0.40695):
 
 
 # ---------------------------------------------------------------- bug 1: hexagonal targets were missed
-def test_hexagonal_zone_02_21_is_a_tilt_target():
+def test_bug1_hexagonal_targets_missed_zone_02_21_is_a_tilt_target():
     """<20-2-1> needs 3-index values up to 4: it must be among the zones of 4-index bound 2."""
     from saed.index.lookalike import _nearest_zone, _readable_directions
 
@@ -66,7 +66,7 @@ def test_hexagonal_zone_02_21_is_a_tilt_target():
     assert uvw is not None and abs(int(np.dot(uvw, (4, 2, -1)))) == 21 and ang < 1e-6
 
 
-def test_hcp_arc_names_20_2_1_at_25_deg():
+def test_bug1_hexagonal_targets_missed_hcp_arc_names_20_2_1_at_25_deg():
     """hcp [10-10] tilted about the 1-210 row meets <20-2-1> at 25.1 deg (docs/indexing.md's case), not [10-1-1] at 43."""
     from saed.index.lookalike import _zones_with_row
 
@@ -100,7 +100,7 @@ def _reached(u, axis, angle_deg, candidates):
     return hits
 
 
-def test_rotation_17_and_197_give_the_same_spots_and_advice_right_for_both(cobalt):
+def test_bug2_180_degree_sense_advice_right_for_rotation_17_and_197(cobalt):
     m17, r17 = _fcc_cobalt(cobalt, 17.0)
     m197, r197 = _fcc_cobalt(cobalt, 197.0)
     a = np.column_stack([m17.spots.x_px, m17.spots.y_px])
@@ -135,7 +135,7 @@ def test_rotation_17_and_197_give_the_same_spots_and_advice_right_for_both(cobal
                 assert any(_angle_deg(h, claim) < 1e-3 for h in hits), (hits, claim, t.text)
 
 
-def test_two_fold_axes_decide_the_flag():
+def test_bug2_180_degree_sense_flag_decided_by_two_fold_axes():
     """The flag follows the test's own check: is 2 n n^T - I a signed permutation (a symmetry of m-3m)?"""
     tables = prepare_phases([builtin_phase("Cu")])
     for zone in ((0, 0, 1), (0, 1, 1), (1, 1, 1), (1, 1, 2), (1, 2, 3)):
@@ -149,7 +149,7 @@ def test_two_fold_axes_decide_the_flag():
 
 
 # ---------------------------------------------------------------- bug 3: uncalibrated look-alikes on the detector
-def test_uncalibrated_si_and_cu_are_compared_on_the_detector():
+def test_bug3_uncalibrated_lookalikes_not_compared_on_the_detector_si_cu():
     tables = prepare_phases([builtin_phase("Si"), builtin_phase("Cu")])
     m, _ = synthetic_measured(builtin_phase("Si"), [1, 1, 2], in_plane_rotation_deg=11.0, rng=3, calibrated=False,
                               scale_inv_nm_per_px=0.02, max_g_inv_nm=9.0, double_diffraction=0.3,
@@ -172,7 +172,7 @@ def test_uncalibrated_si_and_cu_are_compared_on_the_detector():
 
 
 # ---------------------------------------------------------------- bug 5: Laue-zone numbering
-def test_fcc_011_first_populated_layer_is_the_folz():
+def test_bug5_laue_zone_numbering_fcc_011_first_populated_layer_is_folz():
     from saed.simulate.zone import zone_pattern
 
     a = 0.36149
@@ -192,7 +192,7 @@ def test_fcc_011_first_populated_layer_is_the_folz():
 
 
 # ---------------------------------------------------------------- bug 6: --length-tol reaches the near miss
-def test_length_tolerance_reaches_the_near_miss(monkeypatch, cobalt):
+def test_bug6_length_tol_did_not_reach_the_near_miss(monkeypatch, cobalt):
     import saed.index.lookalike as lookalike
 
     seen = []
@@ -231,7 +231,7 @@ def _tilted_measured(phase, zone, tilt_deg, toward, thickness_nm, rotation_deg, 
 @pytest.mark.parametrize("tilt,toward,thickness,constrained", [(0.5, (1, 1, -1), 60.0, True), (1.0, (2, 0, 0), 45.0, True),
                                                                 (1.0, (1, -1, 1), 90.0, False),
                                                                 (2.0, (0, 2, -2), 70.0, None)])
-def test_mistilt_magnitude_within_25_percent_when_marked_reliable(tilt, toward, thickness, constrained):
+def test_bug4_mistilt_magnitude_wrong_while_marked_reliable(tilt, toward, thickness, constrained):
     """The issue's failures were 1.0 -> 0.505 / 1.21 and 2.0 -> 3.07 deg, all marked reliable."""
     co = builtin_phase("Co-fcc")
     m, zp = _tilted_measured(co, [0, 1, 1], tilt, toward, thickness, 23.0)
