@@ -112,6 +112,62 @@ def _beam_stop_blocked(v: np.ndarray, azimuth_deg: float | None, size: float) ->
     return (side > 0) & (perp < 0.5 * size)
 
 
+#: Default pattern centres: a fraction of a pixel off the frame centre, so that no spot sits on the pixel grid
+#: by construction (spot lists and rendered images use different offsets, as they always have).
+SPOT_LIST_CENTRE_OFFSET_PX = (0.3, -0.2)
+IMAGE_CENTRE_OFFSET_PX = (0.37, -0.41)
+#: Spots closer than this to the frame edge are not in a measured spot list (a detector finds no peak there).
+_EDGE_PX = 4
+
+
+def default_centre_px(image_shape, offset_px) -> tuple[float, float]:
+    """(x, y) of the frame centre of `image_shape` (rows, cols) moved by `offset_px`."""
+    h, w = image_shape
+    return (w - 1) / 2.0 + offset_px[0], (h - 1) / 2.0 + offset_px[1]
+
+
+def measured_spot_list(v, inten, *, center_px, image_shape, position_noise_px: float, intensity_noise: float, rng):
+    """Spot offsets `v` (px) and relative intensities as a detector would report them.
+
+    Gaussian position noise, log-normal intensity disorder (1e4 counts for intensity 1), spots near the
+    frame edge dropped. Returns x, y, intensities and the mask of the kept input rows.
+    """
+    h, w = image_shape
+    cx, cy = center_px
+    x = cx + v[:, 0] + rng.normal(0, position_noise_px, len(v))
+    y = cy + v[:, 1] + rng.normal(0, position_noise_px, len(v))
+    inside = (x > _EDGE_PX) & (x < w - 1 - _EDGE_PX) & (y > _EDGE_PX) & (y < h - 1 - _EDGE_PX)
+    x, y, inten = x[inside], y[inside], inten[inside]
+    return x, y, 1e4 * inten * np.exp(rng.normal(0, intensity_noise, len(inten))), inside
+
+
+def spots_of(x, y, counts, position_noise_px: float) -> Spots:
+    """A :class:`Spots` with Poisson-like intensity sigmas and the position noise as position sigma."""
+    return Spots(x, y, counts, intensity_sigma=np.sqrt(counts), sigma_xy_px=np.full(len(x), max(position_noise_px, 0.05)),
+                 snr=np.sqrt(counts))
+
+
+def image_scene():
+    """The scene of the generated zone-pattern images: defaults with a direct beam of 3e7 electrons."""
+    from saed.synth.detector import Scene
+
+    return Scene(direct_beam_electrons=3e7)
+
+
+def render_spot_image(v, inten, *, center_px, image_shape, electrons_max: float, intensity_noise: float, scene, rng):
+    """Spots at offsets `v` (px) with log-normal intensity disorder through the detector model.
+
+    Returns the :class:`~saed.synth.detector.SynthPattern` and the electrons given to each spot.
+    """
+    from saed.synth.detector import Detector, render_pattern
+
+    el = electrons_max * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
+    c = np.array([float(center_px[0]), float(center_px[1])])
+    pat = render_pattern(v + c, el, center_px=(c[0], c[1]), detector=Detector(shape=tuple(image_shape)), scene=scene,
+                         rng=rng)
+    return pat, el
+
+
 def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm_per_px: float = 0.05,
                        in_plane_rotation_deg: float = 0.0, tilt_deg: float = 0.0, tilt_toward_hkl=None,
                        image_shape=(512, 512), center_px=None, max_g_inv_nm: float = 12.0,
@@ -129,24 +185,22 @@ def synthetic_measured(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv
     """
     rng = np.random.default_rng(rng)
     h, w = image_shape
-    cx, cy = ((w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2) if center_px is None else center_px
+    cx, cy = default_centre_px(image_shape, SPOT_LIST_CENTRE_OFFSET_PX) if center_px is None else center_px
     v, inten, hkl, u, zone = zone_spots(phase, zone_axis, **_spot_options(locals()))
     v = _distort(v, ellipse)
     blocked = _beam_stop_blocked(v, beam_stop_azimuth_deg, max(h, w))
     v, hkl, inten = v[~blocked], hkl[~blocked], inten[~blocked]
-    x = cx + v[:, 0] + rng.normal(0, position_noise_px, len(v))
-    y = cy + v[:, 1] + rng.normal(0, position_noise_px, len(v))
-    inside = (x > 4) & (x < w - 5) & (y > 4) & (y < h - 5)
-    x, y, hkl, inten = x[inside], y[inside], hkl[inside], inten[inside]
-    meas_i = 1e4 * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
+    x, y, meas_i, inside = measured_spot_list(v, inten, center_px=(cx, cy), image_shape=image_shape,
+                                              position_noise_px=position_noise_px, intensity_noise=intensity_noise,
+                                              rng=rng)
+    hkl = hkl[inside]
     if extra_spots_xy_px is not None and len(extra_spots_xy_px):
         e = np.asarray(extra_spots_xy_px, float).reshape(-1, 3)
         x = np.concatenate([x, e[:, 0]])
         y = np.concatenate([y, e[:, 1]])
         meas_i = np.concatenate([meas_i, e[:, 2]])
         hkl = np.concatenate([hkl, np.zeros((len(e), 3), np.int64)])
-    spots = Spots(x, y, meas_i, intensity_sigma=np.sqrt(meas_i), sigma_xy_px=np.full(len(x), max(position_noise_px, 0.05)),
-                  snr=np.sqrt(meas_i))
+    spots = spots_of(x, y, meas_i, position_noise_px)
     cal = Calibration(scale_inv_nm_per_px if calibrated else None, voltage_kv, ellipse=ellipse if calibrated else None,
                       pixel_pitch_um=pixel_pitch_um)
     measured = MeasuredPattern(image_shape=(h, w), center_px=(cx, cy), spots=spots, basis=None, calibration=cal,
@@ -171,17 +225,12 @@ def synthetic_image(phase, zone_axis, *, voltage_kv: float = 200.0, scale_inv_nm
     """
     from dataclasses import replace as _replace
 
-    from saed.synth.detector import Detector, Scene, render_pattern
-
     rng = np.random.default_rng(rng)
-    h, w = image_shape
-    cx, cy = ((w - 1) / 2.0 + 0.37, (h - 1) / 2.0 - 0.41) if center_px is None else center_px
+    centre = default_centre_px(image_shape, IMAGE_CENTRE_OFFSET_PX) if center_px is None else center_px
     v, inten, hkl, u, zone = zone_spots(phase, zone_axis, **_spot_options(locals()))
-    el = electrons_max * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
-    sc = scene if scene is not None else Scene(direct_beam_electrons=3e7)
-    sc = _replace(sc, ellipse=ellipse, beam_stop=beam_stop)
-    pat = render_pattern(v + np.array([cx, cy]), el, center_px=(cx, cy), detector=Detector(shape=(h, w)), scene=sc,
-                         rng=rng)
+    sc = _replace(scene if scene is not None else image_scene(), ellipse=ellipse, beam_stop=beam_stop)
+    pat, _ = render_spot_image(v, inten, center_px=centre, image_shape=image_shape, electrons_max=electrons_max,
+                               intensity_noise=intensity_noise, scene=sc, rng=rng)
     truth = SyntheticTruth(phase.name, zone, float(in_plane_rotation_deg), float(scale_inv_nm_per_px), u,
                            float(tilt_deg), hkl)
     return pat, truth

@@ -20,8 +20,9 @@ import numpy as np
 
 from saed.calibration import Calibration
 from saed.errors import InputError
-from saed.image.values import MeasuredPattern, Spots
-from saed.synth.kinematic import zone_spots
+from saed.image.values import MeasuredPattern
+from saed.synth.kinematic import (IMAGE_CENTRE_OFFSET_PX, SPOT_LIST_CENTRE_OFFSET_PX, default_centre_px,
+                                  image_scene, measured_spot_list, render_spot_image, spots_of, zone_spots)
 from saed.simulate.geometry import orientation_matrix
 
 __all__ = ["OverlapTruth", "zone_after_rotation", "overlap_spots", "overlap_measured", "overlap_image"]
@@ -132,20 +133,16 @@ def overlap_measured(phase1, zone_axis, crystals, *, in_plane_rotation_deg: floa
     """A MeasuredPattern (spot list) of overlapping crystals (see :func:`overlap_spots`)."""
     rng = np.random.default_rng(rng)
     h, w = image_shape
-    cx, cy = (w - 1) / 2.0 + 0.3, (h - 1) / 2.0 - 0.2
+    cx, cy = default_centre_px(image_shape, SPOT_LIST_CENTRE_OFFSET_PX)
     v, inten, own, info = overlap_spots(phase1, zone_axis, crystals, in_plane_rotation_deg=in_plane_rotation_deg,
                                         scale_inv_nm_per_px=scale_inv_nm_per_px, voltage_kv=voltage_kv,
                                         max_g_inv_nm=max_g_inv_nm, cross_dd=cross_dd, rng=rng)
     v, inten, own = _merge(v, inten, own, merge_px)
     keep = inten >= min_intensity
     v, inten = v[keep], inten[keep]
-    x = cx + v[:, 0] + rng.normal(0, position_noise_px, len(v))
-    y = cy + v[:, 1] + rng.normal(0, position_noise_px, len(v))
-    inside = (x > 4) & (x < w - 5) & (y > 4) & (y < h - 5)
-    x, y, inten = x[inside], y[inside], inten[inside]
-    meas = 1e4 * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
-    spots = Spots(x, y, meas, intensity_sigma=np.sqrt(meas), sigma_xy_px=np.full(len(x), max(position_noise_px, 0.05)),
-                  snr=np.sqrt(meas))
+    x, y, meas, _ = measured_spot_list(v, inten, center_px=(cx, cy), image_shape=image_shape,
+                                       position_noise_px=position_noise_px, intensity_noise=intensity_noise, rng=rng)
+    spots = spots_of(x, y, meas, position_noise_px)
     stated = scale_inv_nm_per_px * (1.0 + stated_scale_error)
     cal = Calibration(stated, voltage_kv)
     measured = MeasuredPattern(image_shape=(h, w), center_px=(cx, cy), spots=spots, basis=None, calibration=cal,
@@ -163,23 +160,19 @@ def overlap_image(phase1, zone_axis, crystals, *, in_plane_rotation_deg: float =
     thin plate or the faulted lamella.
     """
     from saed.synth.confounders import add_confounders
-    from saed.synth.detector import Detector, Scene, render_pattern
 
     rng = np.random.default_rng(rng)
-    h, w = image_shape
-    cx, cy = (w - 1) / 2.0 + 0.37, (h - 1) / 2.0 - 0.41
+    cx, cy = default_centre_px(image_shape, IMAGE_CENTRE_OFFSET_PX)
     v, inten, own, info = overlap_spots(phase1, zone_axis, crystals, in_plane_rotation_deg=in_plane_rotation_deg,
                                         scale_inv_nm_per_px=scale_inv_nm_per_px, voltage_kv=voltage_kv,
                                         max_g_inv_nm=max_g_inv_nm, cross_dd=cross_dd, rng=rng)
-    el = electrons_max * inten * np.exp(rng.normal(0, intensity_noise, len(inten)))
-    det = Detector(shape=(h, w))
-    pat = render_pattern(v + np.array([cx, cy]), el, center_px=(cx, cy), detector=det,
-                         scene=Scene(direct_beam_electrons=3e7), rng=rng)
+    pat, el = render_spot_image(v, inten, center_px=(cx, cy), image_shape=image_shape, electrons_max=electrons_max,
+                                intensity_noise=intensity_noise, scene=image_scene(), rng=rng)
     img = pat.image
     if confounders is not None:
         last = own == len(info) - 1
         img = add_confounders(img, (cx, cy), confounders, spot_xy_px=v[last] + np.array([cx, cy]), spot_electrons=el[last],
-                              gain=det.gain_counts_per_electron, rng=rng)
+                              gain=pat.detector.gain_counts_per_electron, rng=rng)
     return img, _truth(info, crystals, scale_inv_nm_per_px, None, relationship)
 
 
