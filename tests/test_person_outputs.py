@@ -399,3 +399,29 @@ def test_a_unit_that_is_not_offered_is_refused_in_one_line(argv, capsys):
         rc = e.code
     err = capsys.readouterr().err
     assert rc == 2 and "--units" in err and "furlong" in err and "Traceback" not in err
+
+
+def test_calibrate_table_overbars_labels_with_a_leading_minus(tmp_path, monkeypatch):
+    # Si [011] standard: its {111} spots include 1-11-type labels with a leading minus ('-11-1');
+    # the terminal table must overbar every negative index, the leading one included (common practice).
+    import io
+    import sys
+
+    from saed.simulate.zone import zone_pattern
+    from saed.synth.zone import detector_image
+
+    scale = physics.scale_from_camera_inv_nm_per_px(100.0, 14.0, 200.0)
+    det = detector_image(zone_pattern(builtin_phase("Si"), [0, 1, 1]), shape_px=(768, 768),
+                         scale_inv_nm_per_px=scale, center_px=(390.4, 377.7), in_plane_rotation_deg=23.0,
+                         noise=True, rng=2)
+    tifffile.imwrite(tmp_path / "si.tif", np.round(det.image).astype(np.uint16))
+    buf = io.TextIOWrapper(io.BytesIO(), encoding="utf-8")
+    monkeypatch.setattr(sys, "stdout", buf)
+    assert main(["calibrate", str(tmp_path / "si.tif"), "--standard", "Si", "--zone", "0", "1", "1",
+                 "--pixel-pitch", "14", "--no-history"]) == 0
+    buf.flush()
+    out = buf.buffer.getvalue().decode("utf-8")
+    labels = [line.split()[1] for line in out.splitlines() if re.match(r"\s+\d+\.\d\d\s+\S*\d", line)]
+    assert len(labels) >= 4, out
+    assert not any("-" in lab for lab in labels), labels  # no minus sign left in an index label
+    assert any(lab.startswith("1\u0305") for lab in labels), labels  # a leading negative index overbarred
