@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage as ndi
@@ -29,12 +29,12 @@ from scipy.spatial import cKDTree
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
-from saed.image.binning import bin_image
-from saed.image.centre import find_direct_beam, friedel_center, near_symmetry_peak, symmetric_center
+from saed.image.binning import Binned, bin_image
+from saed.image.centre import DirectBeam, find_direct_beam, friedel_center, near_symmetry_peak, symmetric_center
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
-from saed.image.spots import _adaptive_width, estimate_spot_sigma, find_spots
+from saed.image.spots import SpotSearch, _adaptive_width, estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
 
 __all__ = ["measure_pattern", "measure_file", "inspect_pattern", "inspect_file", "Inspection", "DEFAULT_SNR_MIN",
@@ -42,23 +42,92 @@ __all__ = ["measure_pattern", "measure_file", "inspect_pattern", "inspect_file",
 
 logger = logging.getLogger(__name__)
 
-#: Smallest peak signal-to-noise ratio of a reported spot.
+#: Smallest peak signal-to-noise ratio of a reported spot: 3 sigma is the usual detection limit
+#: for a single peak (common practice).
 DEFAULT_SNR_MIN = 3.0
-#: Detection threshold, in noise sigmas of the matched-filtered image.
+#: Detection threshold, in noise sigmas of the matched-filtered image: over the ~1e5 independent
+#: positions of a frame, 5 sigma keeps Gaussian noise below one false candidate (common practice).
 DEFAULT_DETECT_SNR = 5.0
-#: Above this fraction of saturated pixels the exposure is unusable.
+#: Above this fraction of saturated pixels the exposure is unusable: half the frame clipped leaves no
+#: haze to model and no spot profile to fit.
 MAX_SATURATED_FRACTION = 0.5
 
+#: Fewest pixels left after masking for a measurement: the larger of this count (a 16 x 16 patch,
+#: enough for a noise estimate) and this fraction of the frame (below it the background model has
+#: too few blocks).
+MIN_VALID_PX = 256
+MIN_VALID_FRACTION = 0.05
 
 #: How far a --center hint may be off and still be replaced by the saturated direct beam or the
 #: centre of symmetry found near it: the larger of this many pixels and this fraction of the frame.
 HINT_REACH_PX = 30.0
 HINT_REACH_FRACTION = 0.08
 
+#: The rough centre and the beam stop are found on blocks of about 256 per side: a block image
+#: whose short side is at least this long is coarsened 2 x 2 more (the block image is ~512 px).
+COARSEN_ABOVE_PX = 400
+#: A saturated region counts as the direct beam when within this fraction of the frame's short
+#: side of the centre of symmetry (the beam is never at the very edge of a usable pattern).
+DIRECT_BEAM_REACH_FRACTION = 0.15
+#: A rough centre more than this fraction of the frame outside the image is refused: the pattern
+#: would show less than a quarter of its spots on one side.
+CENTRE_OUTSIDE_FRACTION = 0.25
+
+#: Spot width (Gaussian sigma, px) used when none can be measured: a focused spot on a 1-4k
+#: camera (set by hand on the bench patterns).
+DEFAULT_SPOT_SIGMA_PX = 1.5
+#: The spot width is held in this range (px): below 0.7 a spot is a single pixel (hot pixels are
+#: refused as that); above 12 px the "spots" are discs of convergent-beam size and the search
+#: window would swallow neighbours.
+SPOT_SIGMA_MIN_PX, SPOT_SIGMA_MAX_PX = 0.7, 12.0
+#: RMS radius of a 2-D Gaussian spot per sigma: sqrt(<x^2 + y^2>) = sqrt(2) sigma (exact).
+RMS_RADIUS_PER_SIGMA = math.sqrt(2.0)
+
+#: Half-size (px) of the window in which the direct beam's width is measured: room for a beam
+#: several times wider than a spot (the direct beam carries the halo of the condenser aperture).
+DIRECT_BEAM_WINDOW_HALF_PX = 24
+#: The direct beam's width is held between one spot width and the larger of this many spot widths
+#: and this many pixels; when it cannot be measured it is taken as DIRECT_BEAM_FALLBACK_SIGMAS spot
+#: widths (the beam is broader than the diffracted spots; set by hand on the bench patterns).
+DIRECT_BEAM_MAX_SIGMAS, DIRECT_BEAM_MAX_WIDTH_PX = 3.0, 6.0
+DIRECT_BEAM_FALLBACK_SIGMAS = 2.0
+#: How far (px) the fitted direct beam may move from its start: the larger of this many pixels and
+#: this many spot widths (the rough centre is good to a few pixels).
+DIRECT_BEAM_MAX_SHIFT_PX, DIRECT_BEAM_MAX_SHIFT_SIGMAS = 5.0, 1.5
+#: An unsaturated blob at the centre is the direct beam only when at least this fraction of the
+#: brightest spot: the transmitted beam outshines every diffracted one in SAED (weaker: a haze peak).
+DIRECT_BEAM_MIN_RELATIVE_INTENSITY = 0.5
+#: Spots within the larger of this many pixels, this many direct-beam widths and the saturated
+#: core's side are parts of the direct beam (its tail and ring), not reflections.
+DIRECT_BEAM_EXCLUSION_PX, DIRECT_BEAM_EXCLUSION_WIDTHS = 3.0, 2.0
+#: Floor (px) of the direct beam's position uncertainty: the fit's formal error is smaller than the
+#: pixel-response systematics at high signal.
+CENTRE_SIGMA_FLOOR_PX = 0.02
+
+#: Spots used for the Friedel-pair centre: peak SNR at least this (and at least snr_min), where the
+#: positions are good to a tenth of a pixel; at least FRIEDEL_MIN_SPOTS of them (two pairs).
+FRIEDEL_MIN_SNR = 5.0
+FRIEDEL_MIN_SPOTS = 4
+#: Without a direct beam the rough centre may be off by up to this fraction of the smallest spot
+#: spacing (under half, so no pair is mistaken for another), held within this range of pixels.
+FRIEDEL_SEARCH_FRACTION_OF_SPACING = 0.4
+FRIEDEL_SEARCH_MIN_PX, FRIEDEL_SEARCH_MAX_PX = 8.0, 30.0
+#: First pairing tolerance (px) of |p_i + p_j - 2 c|: tighter when a fitted direct beam gives the start.
+FRIEDEL_TOL_WITH_BEAM_PX, FRIEDEL_TOL_PX = 4.0, 8.0
+#: Spots nearer the start than this many spot widths plus this many pixels are not paired (the
+#: direct beam's tail).
+FRIEDEL_MIN_RADIUS_SIGMAS, FRIEDEL_MIN_RADIUS_PX = 2.0, 2.0
+
+#: Lattice tolerance (px): the largest of this floor, this many median position uncertainties and
+#: this fraction of the spot width (a spot on the lattice lies within its own size of the node).
+LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS, LATTICE_TOL_SPOT_WIDTHS = 1.5, 3.0, 0.6
+#: Extra centre tolerance (px) when the centre is still the rough one (no direct beam, no pairs).
+ROUGH_CENTRE_EXTRA_TOL_PX = 2.0
+
 
 def _check_enough_left(name: str, valid: np.ndarray) -> None:
     n = int(np.count_nonzero(valid))
-    if n < max(256, 0.05 * valid.size):
+    if n < max(MIN_VALID_PX, MIN_VALID_FRACTION * valid.size):
         raise ImageError(f"{name}: only {n} of {valid.size} pixels are left after masking (border, blank frame, "
                          "saturation, beam stop, mask image); nothing to measure")
 
@@ -107,6 +176,225 @@ class Inspection:
     direct_beam_px: tuple[float, float] | None = None
     direct_beam_saturated: bool = False
     image: np.ndarray | None = None
+
+
+# ----------------------------------------------------------------------------- steps
+# Values between the steps of inspect_pattern (frozen; the arrays are not written after construction).
+
+@dataclass(frozen=True, eq=False)
+class _Masked:
+    """Step 1: the checked float32 image and what is left out of it.
+
+    masked: border, mask image and (after step 3) the beam stop; saturated: clipped pixels;
+    fit_valid: neither; binned: the block-averaged copy of the valid pixels.
+    """
+
+    image: np.ndarray
+    masked: np.ndarray
+    saturated: np.ndarray
+    saturation_level: float
+    fit_valid: np.ndarray
+    binned: Binned
+
+
+@dataclass(frozen=True)
+class _RoughCentre:
+    """Step 2: the rough centre (x, y) px, how it was found, and the saturated direct-beam region near it."""
+
+    xy_px: tuple[float, float]
+    how: str
+    beam_region: tuple[tuple[float, float], float] | None  # ((x, y) px, area px) or None
+
+
+@dataclass(frozen=True, eq=False)
+class _DirectBeamCut:
+    """Step 5: the direct beam fitted at the rough centre (or None) and the spots that are not part of it."""
+
+    beam: DirectBeam | None
+    spots: Spots
+
+
+@dataclass(frozen=True)
+class _Centre:
+    """Step 6: the centre before the lattice fit, its sigma, how it was found, and the direct-beam observation."""
+
+    xy_px: np.ndarray
+    sigma_px: float
+    how: str
+    observed_px: np.ndarray | None  # the unsaturated direct beam, a datum of the lattice fit
+    observed_sigma_px: float
+
+
+def _mask_image(image, mask, *, name: str, saturation_level: float | None) -> _Masked:
+    """Step 1: check the image, combine the border, the mask image and saturation; refuse what cannot be measured."""
+    img = check_image(image, name=name)
+    rows, cols = img.shape
+    user_mask = None
+    if mask is not None:
+        user_mask = np.asarray(mask, bool)
+        if user_mask.shape != img.shape:
+            raise ImageError(f"{name}: the mask is {user_mask.shape[0]}x{user_mask.shape[1]} pixels but the pattern is "
+                             f"{rows}x{cols}")
+    masked = border_mask(img)
+    if user_mask is not None:
+        masked |= user_mask
+    sat_mask, sat_level = saturation_mask(img, level=saturation_level)
+    sat_frac = float(sat_mask.mean())
+    if sat_frac > MAX_SATURATED_FRACTION:
+        raise ImageError(f"{name}: {100 * sat_frac:.0f}% of the pixels are saturated at {sat_level:g}; "
+                         "record a shorter exposure")
+    if masked.all():
+        raise ImageError(f"{name}: every pixel is masked")
+    fit_valid = ~masked & ~sat_mask
+    _check_enough_left(name, fit_valid)
+    return _Masked(img, masked, sat_mask, sat_level, fit_valid, bin_image(img, fit_valid))
+
+
+def _coarse(binned: Binned) -> Binned:
+    """The block image for the rough centre and the beam stop (about 256 blocks per side)."""
+    return binned.coarsened(2) if min(binned.image.shape) >= COARSEN_ABOVE_PX else binned
+
+
+def _rough_centre(m: _Masked, coarse: Binned, calibration: Calibration, *, name: str) -> _RoughCentre:
+    """Step 2: the hint, or the saturated direct beam, or point symmetry; refused far outside the image."""
+    rows, cols = m.image.shape
+    sat_free = m.saturated & ~m.masked
+    c_sym = symmetric_center(coarse)
+    db_region = _direct_beam_region(sat_free, c_sym, DIRECT_BEAM_REACH_FRACTION * min(rows, cols))
+    if calibration.center_px is not None:
+        # A hint is a rough guess: a saturated direct beam or the centre of symmetry near it is
+        # better (the radial background and the spot width are measured about this centre, and 20 px
+        # off on a 256 px frame spoils both); far from both, the hint stands (e.g. an asymmetric pattern).
+        hint = tuple(float(v) for v in calibration.center_px)
+        reach = max(HINT_REACH_PX, HINT_REACH_FRACTION * min(rows, cols))
+        db_hint = _direct_beam_region(sat_free, hint, reach)
+        if db_hint is not None:
+            db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
+        elif (math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach
+              and not near_symmetry_peak(coarse, hint)):  # a hint on a centre of symmetry of its own stands
+            c0, how = tuple(c_sym), "point symmetry near the given centre"
+        else:
+            c0, how = hint, "the given centre"
+    elif db_region is not None:
+        c0, how = db_region[0], "the saturated direct beam"
+    else:
+        c0, how = c_sym, "point symmetry"
+    logger.debug("rough centre (%.1f, %.1f) from %s", c0[0], c0[1], how)
+    out = CENTRE_OUTSIDE_FRACTION
+    if not (-out * cols <= c0[0] <= (1 + out) * cols and -out * rows <= c0[1] <= (1 + out) * rows):
+        raise InputError(f"{name}: the centre ({c0[0]:.0f}, {c0[1]:.0f}) is far outside the image")
+    return _RoughCentre(c0, how, db_region)
+
+
+def _mask_beam_stop(m: _Masked, stop: BeamStopShadow, *, name: str) -> _Masked:
+    """Step 3: the beam-stop shadow left out, and the block image made again without it."""
+    fit_valid = m.fit_valid & ~stop.mask
+    _check_enough_left(name, fit_valid)
+    return replace(m, masked=m.masked | stop.mask, fit_valid=fit_valid, binned=bin_image(m.image, fit_valid))
+
+
+def _spot_width(m: _Masked, bg: Background, c0, spot_sigma_px: float | None) -> float:
+    """Step 4: the Gaussian-equivalent spot width (px): given, or measured from the strongest blobs."""
+    sigma = spot_sigma_px if spot_sigma_px is not None else estimate_spot_sigma(m.image, m.fit_valid, bg, m.binned, c0)
+    if sigma is None:
+        sigma = DEFAULT_SPOT_SIGMA_PX
+    return float(np.clip(sigma, SPOT_SIGMA_MIN_PX, SPOT_SIGMA_MAX_PX))
+
+
+def _cut_direct_beam(m: _Masked, bg: Background, search: SpotSearch, rough: _RoughCentre,
+                     stop: BeamStopShadow | None, sigma: float) -> _DirectBeamCut:
+    """Step 5: fit the direct beam on its own at the rough centre and drop the spots on top of it.
+
+    The radial background hides the direct beam from the spot search, so it is fitted here; an
+    unsaturated blob weaker than the spots is haze, not the beam.
+    """
+    rows, cols = m.image.shape
+    fits = search.fits
+    db = None
+    core_area = rough.beam_region[1] if rough.beam_region is not None else 0.0
+    start_db = rough.beam_region[0] if rough.beam_region is not None else rough.xy_px
+    ix, iy = int(round(start_db[0])), int(round(start_db[1]))
+    if 0 <= ix < cols and 0 <= iy < rows and not (stop is not None and stop.mask[iy, ix]):
+        w_db = _adaptive_width(m.image, m.fit_valid | m.saturated, np.array([float(start_db[0])]),
+                               np.array([float(start_db[1])]), half=DIRECT_BEAM_WINDOW_HALF_PX)[0]
+        w_db = (float(np.clip(w_db, sigma, max(DIRECT_BEAM_MAX_SIGMAS * sigma, DIRECT_BEAM_MAX_WIDTH_PX)))
+                if np.isfinite(w_db) else DIRECT_BEAM_FALLBACK_SIGMAS * sigma)
+        db = find_direct_beam(m.image, m.fit_valid, bg, start_db, width_px=w_db, saturated_area_px=core_area,
+                              max_shift_px=max(DIRECT_BEAM_MAX_SHIFT_PX, DIRECT_BEAM_MAX_SHIFT_SIGMAS * sigma))
+        if (db is not None and len(fits) and core_area <= 0
+                and db.intensity < DIRECT_BEAM_MIN_RELATIVE_INTENSITY * float(np.max(fits.intensity))):
+            logger.debug("bright blob at the centre is weaker than the spots: not taken as the direct beam")
+            db = None
+    keep = np.ones(len(fits), bool)
+    if db is not None and len(fits):
+        d = np.hypot(fits.x_px - db.xy_px[0], fits.y_px - db.xy_px[1])
+        keep &= d > max(DIRECT_BEAM_EXCLUSION_PX, DIRECT_BEAM_EXCLUSION_WIDTHS * db.width_px, core_area ** 0.5)
+    spots = Spots(fits.x_px[keep], fits.y_px[keep], fits.intensity[keep], fits.intensity_sigma[keep],
+                  fits.sigma_xy_px[keep], search.snr[keep], RMS_RADIUS_PER_SIGMA * fits.width_px[keep],
+                  search.saturated[keep])
+    return _DirectBeamCut(db, spots)
+
+
+def _centre_before_lattice(spots: Spots, beam: DirectBeam | None, rough: _RoughCentre, *, sigma: float,
+                           snr_min: float) -> _Centre:
+    """Step 6: the unsaturated direct beam is the centre; else Friedel pairs of the strong spots refine the rough one."""
+    db_xy = None if beam is None else np.asarray(beam.xy_px, float)
+    start = db_xy if db_xy is not None else np.asarray(rough.xy_px, float)
+    centre = _Centre(np.asarray(start, float), float("nan"), rough.how, None, 1.0)
+    if db_xy is not None and not beam.saturated:
+        c_sigma = float(max(beam.sigma_px, CENTRE_SIGMA_FLOOR_PX))
+        centre = _Centre(db_xy.copy(), c_sigma, "the direct beam", db_xy.copy(), c_sigma)
+    sxy = spots.xy_px
+    strong = spots.snr >= max(FRIEDEL_MIN_SNR, snr_min)
+    search_px = None
+    if db_xy is None and strong.sum() >= FRIEDEL_MIN_SPOTS:
+        # how far off the rough centre may be: under half the smallest spot spacing, within a range
+        nn = cKDTree(sxy[strong]).query(sxy[strong], k=2)[0][:, 1]
+        search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * np.median(nn), FRIEDEL_SEARCH_MIN_PX,
+                                  FRIEDEL_SEARCH_MAX_PX))
+    fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
+                        tol_px=FRIEDEL_TOL_WITH_BEAM_PX if db_xy is not None else FRIEDEL_TOL_PX,
+                        min_radius_px=FRIEDEL_MIN_RADIUS_SIGMAS * sigma + FRIEDEL_MIN_RADIUS_PX, search_px=search_px)
+    if fr is not None and centre.observed_px is None:
+        centre = replace(centre, xy_px=np.asarray(fr.center_px), sigma_px=fr.sigma_px,
+                         how=f"{fr.n_pairs} Friedel pairs")
+    return centre
+
+
+def _lattice_notes(fit) -> list[str]:
+    """Notes on a lattice fit: spots off it, and a basis vector with no spot of its own."""
+    notes = []
+    off = int((~fit.on_lattice).sum())
+    if off:
+        notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
+    idx_on = fit.indices[fit.on_lattice]
+    for label, unit in (("g1", (1, 0)), ("g2", (0, 1))):
+        if not any(tuple(v) in (unit, (-unit[0], -unit[1])) for v in idx_on.tolist()):
+            notes.append(f"no spot at +-{label}: the net's basis vector is itself a missing (absent or "
+                         "forbidden) reflection")
+    return notes
+
+
+def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: float):
+    """Step 7: the 2-D lattice refined together with the centre over all spots.
+
+    Returns (basis or None, centre (x, y) px, its sigma, how the centre was found, notes).
+    """
+    order = np.argsort(-spots.snr)
+    tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * np.median(spots.sigma_xy_px),
+                    LATTICE_TOL_SPOT_WIDTHS * sigma))
+    fit = fit_spot_lattice(spots.xy_px, spots.sigma_xy_px, centre.xy_px, tol_px=tol, order=order,
+                           center_tol_px=tol + (0.0 if centre.how != rough.how else ROUGH_CENTRE_EXTRA_TOL_PX),
+                           center_obs=centre.observed_px, center_sigma_px=centre.observed_sigma_px)
+    if fit is None:
+        return None, centre.xy_px, centre.sigma_px, centre.how, ["no 2-D lattice found (needs three or more spots "
+                                                                 "not all on one line)"]
+    sc, s1, s2, sa = fit.sigmas()
+    basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
+                         sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
+    how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
+        " and the direct beam" if centre.observed_px is not None else "")
+    return basis, fit.center_px, sc, how, _lattice_notes(fit)
 
 
 def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, source: str = "",
@@ -164,167 +452,58 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     ------
     ImageError
         A NaN, constant, too small or mostly saturated image, or a mask of the wrong shape.
+
+    Notes
+    -----
+    The steps, in order: masks (:func:`_mask_image`), rough centre (:func:`_rough_centre`), beam
+    stop (:func:`_mask_beam_stop`), background and spot width (:func:`_spot_width`), spot search,
+    the direct beam (:func:`_cut_direct_beam`), the centre before the lattice
+    (:func:`_centre_before_lattice`) and the lattice with the centre (:func:`_fit_lattice`). The
+    thresholds are the module constants, each with its reason.
     """
     name = source or "image"
-    img = check_image(image, name=name)
-    rows, cols = img.shape
+    m = _mask_image(image, mask, name=name, saturation_level=saturation_level)
+    rows, cols = m.image.shape
     notes: list[str] = []
-    user_mask = None
-    if mask is not None:
-        user_mask = np.asarray(mask, bool)
-        if user_mask.shape != img.shape:
-            raise ImageError(f"{name}: the mask is {user_mask.shape[0]}x{user_mask.shape[1]} pixels but the pattern is "
-                             f"{rows}x{cols}")
-    masked = border_mask(img)
-    if user_mask is not None:
-        masked |= user_mask
-    sat_mask, sat_level = saturation_mask(img, level=saturation_level)
-    sat_frac = float(sat_mask.mean())
-    if sat_frac > MAX_SATURATED_FRACTION:
-        raise ImageError(f"{name}: {100 * sat_frac:.0f}% of the pixels are saturated at {sat_level:g}; "
-                         "record a shorter exposure")
-    if masked.all():
-        raise ImageError(f"{name}: every pixel is masked")
-    fit_valid = ~masked & ~sat_mask
-    _check_enough_left(name, fit_valid)
-    binned = bin_image(img, fit_valid)
-
-    # Rough centre: the hint, or the saturated direct beam, or point symmetry.
-    # Coarse work (rough centre, beam stop) on blocks of about 256 per side.
-    coarse = binned.coarsened(2) if min(binned.image.shape) >= 400 else binned
-    c_sym = symmetric_center(coarse)
-    db_region = _direct_beam_region(sat_mask & ~masked, c_sym, 0.15 * min(rows, cols))
-    if calibration.center_px is not None:
-        # A hint is a rough guess: a saturated direct beam or the centre of symmetry near it is
-        # better (the radial background and the spot width are measured about this centre, and 20 px
-        # off on a 256 px frame spoils both); far from both, the hint stands (e.g. an asymmetric pattern).
-        hint = tuple(float(v) for v in calibration.center_px)
-        reach = max(HINT_REACH_PX, HINT_REACH_FRACTION * min(rows, cols))
-        db_hint = _direct_beam_region(sat_mask & ~masked, hint, reach)
-        if db_hint is not None:
-            db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
-        elif (math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach
-              and not near_symmetry_peak(coarse, hint)):  # a hint on a centre of symmetry of its own stands
-            c0, how = tuple(c_sym), "point symmetry near the given centre"
-        else:
-            c0, how = hint, "the given centre"
-    elif db_region is not None:
-        c0 = db_region[0]
-        how = "the saturated direct beam"
-    else:
-        c0 = c_sym
-        how = "point symmetry"
-    logger.debug("rough centre (%.1f, %.1f) from %s", c0[0], c0[1], how)
-    if not (-0.25 * cols <= c0[0] <= 1.25 * cols and -0.25 * rows <= c0[1] <= 1.25 * rows):
-        raise InputError(f"{name}: the centre ({c0[0]:.0f}, {c0[1]:.0f}) is far outside the image")
+    coarse = _coarse(m.binned)
+    rough = _rough_centre(m, coarse, calibration, name=name)
+    c0 = rough.xy_px
 
     stop = find_beam_stop(coarse, c0) if find_stop else None
     if stop is not None:
-        masked |= stop.mask
-        fit_valid &= ~stop.mask
-        _check_enough_left(name, fit_valid)
-        binned = bin_image(img, fit_valid)
+        m = _mask_beam_stop(m, stop, name=name)
         notes.append(f"beam stop masked (towards {stop.angle_deg:.0f} deg, {stop.width_px:.0f} px wide)")
-    if sat_mask.any():
-        notes.append(f"{int(sat_mask.sum())} saturated pixels (at {sat_level:g}) ignored in the fits")
+    if m.saturated.any():
+        notes.append(f"{int(m.saturated.sum())} saturated pixels (at {m.saturation_level:g}) ignored in the fits")
 
-    bg = estimate_background(img, binned, c0, valid=fit_valid)
-    sigma = spot_sigma_px if spot_sigma_px is not None else estimate_spot_sigma(img, fit_valid, bg, binned, c0)
-    if sigma is None:
-        sigma = 1.5
-    sigma = float(np.clip(sigma, 0.7, 12.0))
-    search = find_spots(img, fit_valid, bg, sigma_px=sigma, snr_min=snr_min, detect_snr=detect_snr,
-                        saturated_mask=sat_mask & ~masked)
-    fits = search.fits
-    xy = np.stack([fits.x_px, fits.y_px], axis=1) if len(fits) else np.zeros((0, 2))
+    bg = estimate_background(m.image, m.binned, c0, valid=m.fit_valid)
+    sigma = _spot_width(m, bg, c0, spot_sigma_px)
+    search = find_spots(m.image, m.fit_valid, bg, sigma_px=sigma, snr_min=snr_min, detect_snr=detect_snr,
+                        saturated_mask=m.saturated & ~m.masked)
     if search.n_hot:
         notes.append(f"{search.n_hot} single-pixel peaks (hot pixels, X-ray hits) ignored")
-
-    # The direct beam: fitted on its own at the rough centre (the radial background hides it from the
-    # spot search); spots on top of it are dropped.
-    db = None
-    core_area = db_region[1] if db_region is not None else 0.0
-    start_db = db_region[0] if db_region is not None else c0
-    ix, iy = int(round(start_db[0])), int(round(start_db[1]))
-    if 0 <= ix < cols and 0 <= iy < rows and not (stop is not None and stop.mask[iy, ix]):
-        w_db = _adaptive_width(img, fit_valid | sat_mask, np.array([float(start_db[0])]), np.array([float(start_db[1])]),
-                               half=24)[0]
-        w_db = float(np.clip(w_db, sigma, max(3.0 * sigma, 6.0))) if np.isfinite(w_db) else 2.0 * sigma
-        db = find_direct_beam(img, fit_valid, bg, start_db, width_px=w_db, saturated_area_px=core_area,
-                              max_shift_px=max(5.0, 1.5 * sigma))
-        if db is not None and len(fits) and core_area <= 0 and db.intensity < 0.5 * float(np.max(fits.intensity)):
-            logger.debug("bright blob at the centre is weaker than the spots: not taken as the direct beam")
-            db = None
-    keep = np.ones(len(fits), bool)
-    if db is not None and len(fits):
-        d = np.hypot(xy[:, 0] - db.xy_px[0], xy[:, 1] - db.xy_px[1])
-        keep &= d > max(3.0, 2.0 * db.width_px, core_area ** 0.5)
-    db_xy = None if db is None else np.asarray(db.xy_px, float)
-    db_saturated = bool(db is not None and db.saturated)
-    spots = Spots(fits.x_px[keep], fits.y_px[keep], fits.intensity[keep], fits.intensity_sigma[keep],
-                  fits.sigma_xy_px[keep], search.snr[keep], np.sqrt(2.0) * fits.width_px[keep], search.saturated[keep])
+    cut = _cut_direct_beam(m, bg, search, rough, stop, sigma)
+    db, spots = cut.beam, cut.spots
+    ignored = m.masked | m.saturated
     if len(spots) == 0:
-        reason = "no spots above the noise" + (f" (peak signal-to-noise >= {snr_min:g})" if search.n_candidates else "")
-        notes.append(reason)
+        notes.append("no spots above the noise" + (f" (peak signal-to-noise >= {snr_min:g})"
+                                                    if search.n_candidates else ""))
         mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(c0[0]), float(c0[1])), spots=spots,
                              basis=None, calibration=calibration, center_sigma_px=float("nan"), source=source,
                              notes=tuple(notes))
-        return Inspection(mp, masked | sat_mask, sat_mask, stop, bg, sigma, None, False, img)
+        return Inspection(mp, ignored, m.saturated, stop, bg, sigma, None, False, m.image)
 
-    # Centre: unsaturated direct beam, else Friedel pairs; then the lattice fit over all spots.
-    sxy = spots.xy_px
-    start = db_xy if db_xy is not None else np.asarray(c0, float)
-    center = np.asarray(start, float)
-    center_sigma = float("nan")
-    center_how = how
-    center_obs, center_obs_sigma = None, 1.0
-    if db_xy is not None and not db_saturated:
-        center, center_sigma = db_xy.copy(), float(max(db.sigma_px, 0.02))
-        center_obs, center_obs_sigma = center.copy(), center_sigma
-        center_how = "the direct beam"
-    strong = spots.snr >= max(5.0, snr_min)
-    search = None
-    if db_xy is None and strong.sum() >= 4:
-        # how far off the rough centre may be: under half the smallest spot spacing, at most 30 px
-        nn = cKDTree(sxy[strong]).query(sxy[strong], k=2)[0][:, 1]
-        search = float(np.clip(0.4 * np.median(nn), 8.0, 30.0))
-    fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
-                        tol_px=4.0 if db_xy is not None else 8.0, min_radius_px=2.0 * sigma + 2.0, search_px=search)
-    if fr is not None and center_obs is None:
-        center, center_sigma = np.asarray(fr.center_px), fr.sigma_px
-        center_how = f"{fr.n_pairs} Friedel pairs"
-
-    basis = None
-    order = np.argsort(-spots.snr)
-    tol = float(max(1.5, 3.0 * np.median(spots.sigma_xy_px), 0.6 * sigma))
-    fit = fit_spot_lattice(sxy, spots.sigma_xy_px, center, tol_px=tol, order=order,
-                           center_tol_px=tol + (0.0 if center_how != how else 2.0),
-                           center_obs=center_obs, center_sigma_px=center_obs_sigma)
-    if fit is not None:
-        sc, s1, s2, sa = fit.sigmas()
-        basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
-                             sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
-        center, center_sigma = fit.center_px, sc
-        center_how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
-            " and the direct beam" if center_obs is not None else "")
-        off = int((~fit.on_lattice).sum())
-        if off:
-            notes.append(f"{off} spot(s) off the lattice (another grain, double diffraction or noise)")
-        idx_on = fit.indices[fit.on_lattice]
-        for name, unit in (("g1", (1, 0)), ("g2", (0, 1))):
-            if not any(tuple(v) in (unit, (-unit[0], -unit[1])) for v in idx_on.tolist()):
-                notes.append(f"no spot at +-{name}: the net's basis vector is itself a missing (absent or "
-                             "forbidden) reflection")
-    if basis is None:
-        notes.append("no 2-D lattice found (needs three or more spots not all on one line)")
+    centre = _centre_before_lattice(spots, db, rough, sigma=sigma, snr_min=snr_min)
+    basis, center, center_sigma, center_how, lattice_notes = _fit_lattice(spots, centre, rough, sigma=sigma)
+    notes += lattice_notes
     notes.insert(0, f"centre from {center_how}")
-    if db is None and stop is None and not sat_mask.any():
+    if db is None and stop is None and not m.saturated.any():
         notes.append("no direct beam seen at the centre")
     mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
                          basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
                          notes=tuple(notes))
-    return Inspection(mp, masked | sat_mask, sat_mask, stop, bg, sigma,
-                      None if db_xy is None else (float(db_xy[0]), float(db_xy[1])), db_saturated, img)
+    db_px = None if db is None else (float(db.xy_px[0]), float(db.xy_px[1]))
+    return Inspection(mp, ignored, m.saturated, stop, bg, sigma, db_px, bool(db is not None and db.saturated), m.image)
 
 
 def inspect_file(path, calibration: Calibration | None = None, *, frame: int | None = None, mask_path=None,
