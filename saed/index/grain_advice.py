@@ -120,7 +120,7 @@ def difference_at(a: GrainSolution, b: GrainSolution, phases, holder: Holder, pa
     from saed.crystal.miller import plane_to_4
 
     def hkl(p, pat, k):
-        v = pat[4][k]
+        v = pat.hkl[k]
         return format_indices(plane_to_4(v) if p.is_hexagonal else v)
 
     parts = []

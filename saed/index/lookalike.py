@@ -20,6 +20,7 @@ fcc and zinc blende vs diamond (200 allowed, or only by double diffraction).
 
 from __future__ import annotations
 
+import enum
 import logging
 import math
 from dataclasses import dataclass, replace
@@ -35,20 +36,79 @@ from saed.simulate.zone import zone_pattern
 
 logger = logging.getLogger(__name__)
 
-__all__ = ["annotate", "compare", "separating_tilt", "sense_ambiguous", "SAED_RATIO_ACCURACY_PCT"]
+__all__ = ["annotate", "compare", "separating_tilt", "sense_ambiguous", "Relation", "SAED_RATIO_ACCURACY_PCT"]
+
+
+class Relation(enum.StrEnum):
+    """How a look-alike stands to the best solution (``Lookalike.relation``; a str, so JSON is unchanged)."""
+
+    #: the patterns cannot be told apart here (a tilt or another technique decides)
+    AMBIGUOUS = "ambiguous"
+    #: a few spots decide
+    CLOSE = "close"
+    #: what this phase would show is missing from the pattern
+    RULED_OUT = "ruled out"
+    #: uncalibrated: an isostructural phase fits by ratios and angles just as well (the scale decides)
+    IDENTICAL_GEOMETRY = "identical geometry"
+
+
+class _Counterpart(enum.StrEnum):
+    """What the other solution has where a separating spot of one solution lies."""
+
+    NOTHING = "nothing"
+    HOLZ_PROJECTION = "holz-projection"  # a projected higher-order Laue-zone position (thin or faulted foils)
 
 #: Relative accuracy of spacing ratios from one SAED pattern, percent (Williams & Carter 2009, ch. 18;
 #: common practice: 1-2 %). Differences below this cannot separate two solutions.
 SAED_RATIO_ACCURACY_PCT = 1.0
 
-#: Kinematic |F|^2 (strongest = 1) below which a predicted spot is "weak".
+#: Kinematic |F|^2 (strongest = 1) below which a predicted spot is "weak": 2 % of the strongest is about
+#: where a spot stops standing out of the haze on a normal exposure (common practice).
 WEAK_I = 0.02
-
+#: Kinematic |F|^2 above which a predicted spot counts in the tilt comparison (faint superlattice
+#: spots of ordered alloys, |F|^2 ~ 1e-3 of the fundamentals, must count) ...
+COUNTED_I = 2e-4
+#: ... and above which it makes a row visible when deciding whether a tilt reaches a zone pattern.
+VISIBLE_I = 1e-3
+#: Two spot directions are independent rows when the sine of their angle exceeds this (about 11.5 deg).
+TWO_ROWS_MIN_SINE = 0.2
+#: Two predicted spots are the same spot when within this fraction of |g| (or the floor) of each
+#: other: 1.2 %, about the SAED ratio accuracy (SAED_RATIO_ACCURACY_PCT), so differences the
+#: pattern cannot measure do not separate.
+SAME_SPOT_REL = 0.012
+#: Relative distance within which a spot of one solution lies on a row of the other (tilt axis
+#: search): looser than SAME_SPOT_REL, since the tilt only needs the row the operator follows.
+COMMON_ROW_REL, COMMON_ROW_FLOOR_INV_NM = 0.02, 0.05
+#: Rows closer than this in direction are one tilt axis.
+SAME_ROW_DIRECTION_DEG = 3.0
+#: Rows tried as tilt axes, shortest |g| first (the short rows are the strong ones the operator sees).
+TILT_ROWS_TRIED = 4
+#: Zone axes a tilt may aim at: readable index up to this (low-index zones have patterns an operator
+#: recognises); the arc of a phase that reaches none is searched up to ARC_ZONE_MAX_INDEX.
+TILT_TARGET_MAX_INDEX = 3
+ARC_ZONE_MAX_INDEX = 2
+#: The beam is on a zone of the best solution within this angle (deg; the tilt is computed to reach
+#: it exactly), and on one of the other within OTHER_ON_ZONE_TOL_DEG (it is carried along, not aimed at).
+ON_ZONE_TOL_DEG, OTHER_ON_ZONE_TOL_DEG = 0.5, 1.0
+#: Floor (1/nm) of the spot coincidence in the tilt comparison, and the fraction of the recorded |g|
+#: range compared (the edge of the detector is left out: spots there come and go with small errors).
+TILT_SPOT_FLOOR_INV_NM, TILT_COMPARED_G_FRACTION = 0.05, 0.95
+#: Smallest tilt suggested, degrees: below this the operator cannot tell it from the mistilt.
+MIN_SUGGESTED_TILT_DEG = 3.0
 #: Largest tilt suggested, degrees (typical double-tilt holders reach +-25..30 deg per axis).
 MAX_SUGGESTED_TILT_DEG = 45.0
-
-#: Zone axes considered for tilts: indices up to this bound.
-TILT_ZONE_INDEX = 4
+#: Fraction of spots that must differ for a tilt to separate two solutions (one spot in five).
+DECISIVE_DISSIMILARITY = 0.2
+#: Merit lost by a tilt that separates in one sense only when the sense is unknown (180-degree
+#: ambiguity): more than any dissimilarity gain, so a tilt that works both ways always wins.
+ONE_SENSE_PENALTY = 0.5
+#: Merit costs: one unit of dissimilarity per TILT_COST_DEG of tilt, and ZONE_INDEX_COST per step of
+#: the target zone's index (small tilts to low-index zones first; weights set by hand on the cases
+#: of docs/indexing.md).
+TILT_COST_DEG = 150.0
+ZONE_INDEX_COST = 0.1
+#: A zone on the tilt arc this close (deg) to the tilt itself or to no tilt is not a different one.
+ARC_MIN_DISTINCT_DEG = 1.0
 
 #: Dissimilarity credited to a tilt where one phase reaches a zone pattern and the other none.
 NO_ZONE_DISSIMILARITY = 0.45
@@ -56,7 +116,11 @@ NO_ZONE_DISSIMILARITY = 0.45
 
 @dataclass(frozen=True)
 class _Pattern:
-    """A predicted pattern in the detector frame: vectors (1/nm), |F|^2 relative, flags, indices."""
+    """A predicted pattern in the detector frame: vectors (1/nm), |F|^2 relative, flags, indices.
+
+    The one pattern representation of this module: of a fitted solution (:func:`_pattern_of`) and
+    of a tilted orientation (:func:`_lab_pattern`, no HOLZ positions).
+    """
 
     xy: np.ndarray
     inten: np.ndarray
@@ -120,7 +184,7 @@ class _Extra:
     intensity: float  # kinematic, relative
     observed: int  # how many have a measured spot
     observed_strength: float  # median measured intensity / median indexed intensity
-    other_kind: str  # what the other solution has there: 'nothing', 'holz-projection'
+    other_kind: _Counterpart  # what the other solution has there
 
 
 def _extras(p: _Pattern, q: _Pattern, meas_xy: np.ndarray, meas_i: np.ndarray, ref_i: float, *,
@@ -145,7 +209,7 @@ def _extras(p: _Pattern, q: _Pattern, meas_xy: np.ndarray, meas_i: np.ndarray, r
         rows = miss[ks]
         obs = [k for k in ks if seen[k]]
         strength = float(np.median(meas_i[jm[obs]]) / ref_i) if obs and ref_i > 0 else 0.0
-        other = "holz-projection" if all(holz_kind[int(x)] for x in rows) else "nothing"
+        other = _Counterpart.HOLZ_PROJECTION if all(holz_kind[int(x)] for x in rows) else _Counterpart.NOTHING
         best = rows[np.argmax(p.inten[rows])]
         out.append(_Extra(g, tuple(int(v) for v in p.hkl[best]), len(rows), float(np.max(p.inten[rows])), len(obs),
                           strength, other))
@@ -179,8 +243,8 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     region = (0.35 * float(r_meas.min()), 1.02 * float(r_meas.max())) if len(r_meas) else (0.0, 0.0)
     # "strong" is judged against the strong spots of the pattern (90th percentile), not the median
     ref_i = float(np.percentile(spots.intensity, 90)) if len(spots.intensity) else 1.0
-    ex_o = _extras(po, pb, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
-    ex_b = _extras(pb, po, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=0.012, floor=floor)
+    ex_o = _extras(po, pb, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=SAME_SPOT_REL, floor=floor)
+    ex_b = _extras(pb, po, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=SAME_SPOT_REL, floor=floor)
     ratio_pct = _ratio_difference_pct(pb, po, floor=floor)
     hexb, hexo = pb.hexagonal, po.hexagonal
     name_b = f"{best.phase_name} [{_sol_zone(best)}]"
@@ -197,7 +261,7 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     for ex, who, whom, hx, mine in ((ex_o, name_o, name_b, hexo, False), (ex_b, name_b, name_o, hexb, True)):
         plain = []
         for e in ex:
-            holz_weak = e.other_kind == "holz-projection" and e.observed and e.observed_strength < 0.1
+            holz_weak = e.other_kind is _Counterpart.HOLZ_PROJECTION and e.observed and e.observed_strength < 0.1
             if holz_weak:
                 caution = caution or (f"the {_hkl_text(e.hkl, hx)} spots of {who} are weak here, and weak spots at those "
                            f"positions also arise in thin or faulted foils of {whom.split(' [')[0]} (projected "
@@ -224,11 +288,11 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
                 strong = [e for e in seen if e.observed_strength >= 0.1]
                 parts.append(f"{who} explains {listing(seen, hx)} seen here ({'strong' if strong else 'weak'}), "
                              f"which {whom} lacks")
-    relation = "close"
+    relation = Relation.CLOSE
     need_tilt = False
     if not ex_o and not ex_b:
         if ratio_pct < 0.3:
-            relation = "identical geometry" if not calibrated else "ambiguous"
+            relation = Relation.IDENTICAL_GEOMETRY if not calibrated else Relation.AMBIGUOUS
             if best.structure_type == other.structure_type and best.phase_name != other.phase_name:
                 d_pct = 100.0 * abs(best.scale_inv_nm_per_px / other.scale_inv_nm_per_px - 1.0)
                 parts.append(f"same structure and spot pattern; the cells differ by {d_pct:.2f} % in scale"
@@ -240,12 +304,12 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
                 parts.append("the same spots at the same positions in this zone")
                 need_tilt = True
         else:
-            relation = "ambiguous" if ratio_pct < SAED_RATIO_ACCURACY_PCT else "close"
+            relation = Relation.AMBIGUOUS if ratio_pct < SAED_RATIO_ACCURACY_PCT else Relation.CLOSE
             parts.append(f"no spot differs; spacing ratios differ by {ratio_pct:.1f} %"
                          + (" (below SAED accuracy, about 1-2 %)" if ratio_pct < SAED_RATIO_ACCURACY_PCT else ""))
-            need_tilt = relation == "ambiguous"
+            need_tilt = relation is Relation.AMBIGUOUS
     elif caution:
-        relation = "ambiguous"
+        relation = Relation.AMBIGUOUS
         parts.append(caution)
         need_tilt = True
     elif not strong_evidence and weak_evidence:
@@ -300,41 +364,40 @@ def _nearest_zone(phase, beam_crystal: np.ndarray, *, max_index: int, tol_deg: f
     return uvw[j] * int(np.sign(cos[j]) or 1), float(ang[j]), None
 
 
-def _lab_pattern(phase, uvw, u_lab: np.ndarray, *, voltage_kv: float, g_max: float):
+def _lab_pattern(phase, uvw, u_lab: np.ndarray, *, voltage_kv: float, g_max: float) -> _Pattern:
+    """The kinematic pattern of `phase` on zone `uvw` in orientation `u_lab`, in the detector frame (1/nm)."""
     zp = zone_pattern(phase, uvw, voltage_kv=voltage_kv, max_g_inv_nm=g_max, include_holz=False)
     allowed = ~zp.kinematically_forbidden
     f = zp.f_abs / max(float(zp.f_abs[allowed].max()) if np.any(allowed) else 1.0, 1e-30)
     xy = (phase.lattice.g_cartesian_inv_nm(zp.hkl) @ u_lab.T)[:, :2]
-    return xy, np.where(allowed, f * f, 0.0), allowed, zp.double_diffraction, zp.hkl
+    return _Pattern(xy, np.where(allowed, f * f, 0.0), allowed, zp.double_diffraction, zp.hkl, np.zeros((0, 2)),
+                    phase.is_hexagonal, np.asarray(zp.g_inv_nm))
 
 
-def _two_rows(pat) -> bool:
+def _two_rows(pat: _Pattern) -> bool:
     """True when a lab pattern has visible spots in two independent directions (a real zone pattern)."""
-    xy, inten, allowed = pat[0], pat[1], pat[2]
-    v = xy[allowed & (inten >= 1e-3)]
+    v = pat.xy[pat.allowed & (pat.inten >= VISIBLE_I)]
     if len(v) < 2:
         return False
     u = v / np.linalg.norm(v, axis=1, keepdims=True)
-    return bool(np.any(np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0]) > 0.2))
+    return bool(np.any(np.abs(u[:, None, 0] * u[None, :, 1] - u[:, None, 1] * u[None, :, 0]) > TWO_ROWS_MIN_SINE))
 
 
-def _dissimilarity(a, b, *, floor: float, g_max: float) -> tuple[float, list, list]:
+def _dissimilarity(a: _Pattern, b: _Pattern, *, floor: float, g_max: float) -> tuple[float, list, list]:
     """Fraction of visible spots of either pattern without a counterpart, and the separating rows.
 
     Spots are counted, not weighted by intensity, so weak superlattice spots count fully; a spot
     the other pattern has only by double diffraction counts half.
     """
-    def side(p, q):
-        xy, inten, allowed, dd, hkl = p
-        sel = allowed & (inten >= 2e-4) & (np.linalg.norm(xy, axis=1) <= g_max)
+    def side(p: _Pattern, q: _Pattern):
+        sel = p.allowed & (p.inten >= COUNTED_I) & (np.linalg.norm(p.xy, axis=1) <= g_max)
         if not np.any(sel):
             return 0, 0, []
-        qxy, _, qa, qdd, _ = q
-        present = qa | qdd
-        _, hit = _near(xy[sel], qxy[present], rel=0.012, floor=floor)
-        _, hit_dd = _near(xy[sel], qxy[qdd & ~qa], rel=0.012, floor=floor)
+        present = q.allowed | q.dd
+        _, hit = _near(p.xy[sel], q.xy[present], rel=SAME_SPOT_REL, floor=floor)
+        _, hit_dd = _near(p.xy[sel], q.xy[q.dd & ~q.allowed], rel=SAME_SPOT_REL, floor=floor)
         miss = np.flatnonzero(sel)[~hit]
-        miss = miss[np.argsort(-inten[miss], kind="stable")]
+        miss = miss[np.argsort(-p.inten[miss], kind="stable")]
         part = np.count_nonzero(~hit) + 0.5 * np.count_nonzero(hit & hit_dd)
         return part, np.count_nonzero(sel), miss
 
@@ -381,6 +444,77 @@ def _holder_text(phase, u_m, zone, alpha_axis_deg: float) -> tuple[str, tuple[fl
     return f"alpha {st.alpha_deg:+.1f}, beta {st.beta_deg:+.1f} deg", (st.alpha_deg, st.beta_deg)
 
 
+@dataclass(frozen=True, eq=False)
+class _CommonRow:
+    """A reflection row both solutions share on the detector: its row in each table and its unit direction."""
+
+    index_a: int  # row of the best solution's zone pattern
+    index_b: int  # row of the other solution's zone pattern
+    direction: np.ndarray  # (2,) unit vector on the detector
+
+
+@dataclass(frozen=True, eq=False)
+class _TiltOutcome:
+    """What a tilt by some angle shows: each phase's zone (None: no low-index zone), patterns, separation.
+
+    ``dissimilarity``: :func:`_dissimilarity` of the two patterns, or NO_ZONE_DISSIMILARITY when
+    only one phase reaches a zone; ``miss_a`` / ``miss_b``: rows of ``pattern_a`` / ``pattern_b``
+    (strongest first) with no counterpart in the other pattern.
+    """
+
+    zone_a: np.ndarray | None
+    zone_b: np.ndarray | None
+    pattern_a: _Pattern | None
+    pattern_b: _Pattern | None
+    dissimilarity: float
+    miss_a: list
+    miss_b: list
+
+    @property
+    def separates(self) -> bool:
+        return self.dissimilarity >= DECISIVE_DISSIMILARITY
+
+
+@dataclass(frozen=True, eq=False)
+class _TiltChoice:
+    """The best tilt found so far: its merit, angle, row, and the outcome in each sense of the 180-degree reading."""
+
+    merit: float
+    omega_deg: float
+    row: _CommonRow
+    reported: _TiltOutcome | None  # the orientation as reported
+    turned: _TiltOutcome | None  # the crystal turned 180 deg about the beam (same as tilting by -omega)
+
+
+def _dissimilarity_of(o: _TiltOutcome | None) -> float:
+    return o.dissimilarity if o is not None else 0.0
+
+
+def _common_rows(best: Solution, fit_b, other: Solution, fit_o, *, g_max: float) -> list[_CommonRow]:
+    """Reflection rows both solutions put at the same place on the detector, one per direction, shortest first."""
+    pa, pb = fit_b.table.phase, fit_o.table.phase
+    ua, ub = np.asarray(best.orientation_matrix), np.asarray(other.orientation_matrix)
+    # the other solution on the detector, in the best solution's 1/nm: its own implied scale
+    f_b = best.scale_inv_nm_per_px / other.scale_inv_nm_per_px
+    za, zb = fit_b.zone, fit_o.zone
+    ga = (pa.lattice.g_cartesian_inv_nm(za.hkl) @ ua.T)[:, :2]
+    gb = (pb.lattice.g_cartesian_inv_nm(zb.hkl) @ ub.T)[:, :2] * f_b
+    sel_a = np.flatnonzero((~za.kinematically_forbidden | za.double_diffraction) & (za.g_inv_nm <= g_max))
+    sel_b = np.flatnonzero(~zb.kinematically_forbidden | zb.double_diffraction)
+    rows: list[_CommonRow] = []
+    if len(sel_a) and len(sel_b):
+        j, hit = _near(ga[sel_a], gb[sel_b], rel=COMMON_ROW_REL, floor=COMMON_ROW_FLOOR_INV_NM)
+        same_direction = math.cos(math.radians(SAME_ROW_DIRECTION_DEG))
+        for k in np.flatnonzero(hit):
+            ia, ib = sel_a[k], sel_b[j[k]]
+            d = ga[ia] / np.linalg.norm(ga[ia])
+            if any(abs(float(d @ r.direction)) > same_direction for r in rows):
+                continue
+            rows.append(_CommonRow(int(ia), int(ib), d))
+    rows.sort(key=lambda r: za.g_inv_nm[r.index_a])
+    return rows
+
+
 def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv: float,
                     g_max: float = 10.0, holder_alpha_axis_deg: float | None = None) -> TiltAdvice | None:
     """The smallest tilt about a common row that reaches a zone where the two solutions differ.
@@ -401,38 +535,23 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
     pa, pb = fit_b.table.phase, fit_o.table.phase
     ua = np.asarray(best.orientation_matrix)
     ub = np.asarray(other.orientation_matrix)
-    # the other solution on the detector, in the best solution's 1/nm: its own implied scale
     f_b = best.scale_inv_nm_per_px / other.scale_inv_nm_per_px
     za, zb = fit_b.zone, fit_o.zone
-    ga = (pa.lattice.g_cartesian_inv_nm(za.hkl) @ ua.T)[:, :2]
-    gb = (pb.lattice.g_cartesian_inv_nm(zb.hkl) @ ub.T)[:, :2] * f_b
-    sel_a = np.flatnonzero((~za.kinematically_forbidden | za.double_diffraction) & (za.g_inv_nm <= g_max))
-    sel_b = np.flatnonzero(~zb.kinematically_forbidden | zb.double_diffraction)
-    rows = []
-    if len(sel_a) and len(sel_b):
-        j, hit = _near(ga[sel_a], gb[sel_b], rel=0.02, floor=0.05)
-        for k in np.flatnonzero(hit):
-            ia, ib = sel_a[k], sel_b[j[k]]
-            d = ga[ia] / np.linalg.norm(ga[ia])
-            if any(abs(float(d @ e)) > math.cos(math.radians(3.0)) for _, _, e in rows):
-                continue
-            rows.append((ia, ib, d))
-    rows.sort(key=lambda t: za.g_inv_nm[t[0]])
+    rows = _common_rows(best, fit_b, other, fit_o, g_max=g_max)
     ambiguous = sense_ambiguous(pa, best.zone_axis) or sense_ambiguous(pb, other.zone_axis)
     beam = np.array([0.0, 0.0, 1.0])
-    zmax = 3
 
-    def outcome(axis, omega):
-        """(uvw_a, uvw_b, pat_a, pat_b, dis, miss_a, miss_b) after tilting the reported orientations by omega."""
+    def outcome(axis, omega) -> _TiltOutcome | None:
+        """What the reported orientations show after a tilt by omega about `axis`; None when neither reaches a zone."""
         rot = rotation_about_axis(axis, omega)
         ua2, ub2 = rot @ ua, rot @ ub
-        uvw_a, _, _ = _nearest_zone(pa, ua2.T @ beam, max_index=zmax, tol_deg=0.5)
-        uvw_b, _, _ = _nearest_zone(pb, ub2.T @ beam, max_index=zmax, tol_deg=1.0)
+        uvw_a, _, _ = _nearest_zone(pa, ua2.T @ beam, max_index=TILT_TARGET_MAX_INDEX, tol_deg=ON_ZONE_TOL_DEG)
+        uvw_b, _, _ = _nearest_zone(pb, ub2.T @ beam, max_index=TILT_TARGET_MAX_INDEX, tol_deg=OTHER_ON_ZONE_TOL_DEG)
         pat_a = _lab_pattern(pa, uvw_a, ua2, voltage_kv=voltage_kv, g_max=g_max) if uvw_a is not None else None
         pat_b = None
         if uvw_b is not None:
-            xy, inten, allowed, dd, hkl = _lab_pattern(pb, uvw_b, ub2, voltage_kv=voltage_kv, g_max=g_max / f_b)
-            pat_b = (xy * f_b, inten, allowed, dd, hkl)
+            lab_b = _lab_pattern(pb, uvw_b, ub2, voltage_kv=voltage_kv, g_max=g_max / f_b)
+            pat_b = replace(lab_b, xy=lab_b.xy * f_b)
         if pat_a is not None and not _two_rows(pat_a):
             uvw_a, pat_a = None, None
         if pat_b is not None and not _two_rows(pat_b):
@@ -440,29 +559,31 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
         if uvw_a is None and uvw_b is None:
             return None
         if pat_a is not None and pat_b is not None:
-            dis, miss_a, miss_b = _dissimilarity(pat_a, pat_b, floor=0.05, g_max=0.95 * g_max)
+            dis, miss_a, miss_b = _dissimilarity(pat_a, pat_b, floor=TILT_SPOT_FLOOR_INV_NM,
+                                                 g_max=TILT_COMPARED_G_FRACTION * g_max)
         else:
             # one phase shows a zone pattern, the other none: separating, but an absence is weaker
             # evidence at the microscope than two different zone patterns
             dis, miss_a, miss_b = NO_ZONE_DISSIMILARITY, [], []
-        return uvw_a, uvw_b, pat_a, pat_b, dis, miss_a, miss_b
+        return _TiltOutcome(uvw_a, uvw_b, pat_a, pat_b, dis, miss_a, miss_b)
 
-    def index_of(o):
-        return min(_zone_index(u, p.is_hexagonal) for u, p in ((o[0], pa), (o[1], pb)) if u is not None)
+    def index_of(o: _TiltOutcome) -> int:
+        return min(_zone_index(u, p.is_hexagonal) for u, p in ((o.zone_a, pa), (o.zone_b, pb)) if u is not None)
 
-    best_choice = None
-    for ia, ib, d in rows[:4]:
+    best_choice: _TiltChoice | None = None
+    for row in rows[:TILT_ROWS_TRIED]:
+        d = row.direction
         axis = np.array([d[0], d[1], 0.0])
         omegas = set()
-        for phase, u_m, h in ((pa, ua, za.hkl[ia]), (pb, ub, zb.hkl[ib])):
-            zs = _zones_with_row(phase, h, zmax)
+        for phase, u_m, h in ((pa, ua, za.hkl[row.index_a]), (pb, ub, zb.hkl[row.index_b])):
+            zs = _zones_with_row(phase, h, TILT_TARGET_MAX_INDEX)
             if len(zs) == 0:
                 continue
             zl = phase.lattice.r_cartesian_nm(zs) @ u_m.T
             zl /= np.linalg.norm(zl, axis=1, keepdims=True)
             for z in np.concatenate([zl, -zl]):
                 w = _tilt_to(z, axis)
-                if 3.0 <= abs(w) <= MAX_SUGGESTED_TILT_DEG:
+                if MIN_SUGGESTED_TILT_DEG <= abs(w) <= MAX_SUGGESTED_TILT_DEG:
                     omegas.add(round(w, 2))
         for omega in sorted(omegas, key=abs):
             o1 = outcome(axis, omega)
@@ -471,23 +592,26 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
             o2 = outcome(axis, -omega) if ambiguous else None  # = +omega for the crystal turned 180 deg
             if o1 is None and o2 is None:
                 continue
-            d1 = o1[4] if o1 is not None else 0.0
+            d1 = _dissimilarity_of(o1)
             if ambiguous:
-                d2 = o2[4] if o2 is not None else 0.0
+                d2 = _dissimilarity_of(o2)
                 both = min(d1, d2)
                 # separating in both senses is worth much more than in one (the sense is unknown)
-                dis = both if both >= 0.2 else max(d1, d2) - 0.5
+                dis = both if both >= DECISIVE_DISSIMILARITY else max(d1, d2) - ONE_SENSE_PENALTY
                 index = min(index_of(o) for o in (o1, o2) if o is not None)
             else:
                 dis, index = d1, index_of(o1)
-            merit = dis - abs(omega) / 150.0 - 0.1 * (index - 1)
-            logger.debug("tilt %.2f: d1 %.2f d2 %s merit %.3f", omega, d1, None if o2 is None else round(o2[4], 2), merit)
-            if max(d1, o2[4] if o2 is not None else 0.0) >= 0.2 and (best_choice is None or merit > best_choice[0]):
-                best_choice = (merit, omega, ia, ib, d, o1, o2)
+            merit = dis - abs(omega) / TILT_COST_DEG - ZONE_INDEX_COST * (index - 1)
+            logger.debug("tilt %.2f: d1 %.2f d2 %s merit %.3f", omega, d1,
+                         None if o2 is None else round(o2.dissimilarity, 2), merit)
+            if (max(d1, _dissimilarity_of(o2)) >= DECISIVE_DISSIMILARITY
+                    and (best_choice is None or merit > best_choice.merit)):
+                best_choice = _TiltChoice(merit, omega, row, o1, o2)
     if best_choice is None:
         return None
-    _, omega, ia, ib, d, o1, o2 = best_choice
-    if ambiguous and o1 is None or (ambiguous and o2 is not None and o1[4] < 0.2 <= o2[4]):
+    omega, row, o1, o2 = best_choice.omega_deg, best_choice.row, best_choice.reported, best_choice.turned
+    ia, ib, d = row.index_a, row.index_b, row.direction
+    if ambiguous and o1 is None or (ambiguous and o2 is not None and not o1.separates and o2.separates):
         # state the sense that separates under the reported reading first
         omega, o1, o2 = -omega, o2, o1
     hexa, hexb = pa.is_hexagonal, pb.is_hexagonal
@@ -500,14 +624,14 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
         if uvw is not None:
             return f"{name} reaches [{_zone_text(uvw, hexagonal)}]"
         # the zones this phase does meet on the same tilt arc (they contain the same row)
-        zs = _zones_with_row(phase, h, 2)
+        zs = _zones_with_row(phase, h, ARC_ZONE_MAX_INDEX)
         best_z, best_w = None, None
         if len(zs):
             zl = phase.lattice.r_cartesian_nm(zs) @ u_m.T
             zl /= np.linalg.norm(zl, axis=1, keepdims=True)
             for z, uvw_z in zip(np.concatenate([zl, -zl]), np.concatenate([zs, -zs])):
                 w = _tilt_to(z, axis)
-                if abs(w) < 1.0 or w * w_sense < 0 or abs(w - w_sense) < 1.0:
+                if abs(w) < ARC_MIN_DISTINCT_DEG or w * w_sense < 0 or abs(w - w_sense) < ARC_MIN_DISTINCT_DEG:
                     continue
                 if best_w is not None and abs(w - w_sense) >= abs(best_w - w_sense):
                     continue
@@ -519,21 +643,20 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
             txt += f" (on this tilt arc its nearest zone pattern is [{_zone_text(best_z, hexagonal)}], at {abs(best_w):.1f} deg)"
         return txt
 
-    def both_reach(o, w_sense):
-        uvw_a = o[0] if o is not None else None
-        uvw_b = o[1] if o is not None else None
+    def both_reach(o: _TiltOutcome | None, w_sense):
+        uvw_a = o.zone_a if o is not None else None
+        uvw_b = o.zone_b if o is not None else None
         return (f"{reach(best.phase_name, pa, uvw_a, ua, za.hkl[ia], hexa, w_sense)}, "
                 f"{reach(other.phase_name, pb, uvw_b, ub, zb.hkl[ib], hexb, w_sense)}")
 
-    def diffs_of(o):
+    def diffs_of(o: _TiltOutcome | None):
         if o is None:
             return ""
-        _, _, pat_a, pat_b, _, miss_a, miss_b = o
         diffs = []
-        if miss_a:
-            diffs.append(f"{best.phase_name} shows {_hkl_text(pat_a[4][miss_a[0]], hexa)}")
-        if miss_b:
-            diffs.append(f"{other.phase_name} shows {_hkl_text(pat_b[4][miss_b[0]], hexb)}")
+        if o.miss_a:
+            diffs.append(f"{best.phase_name} shows {_hkl_text(o.pattern_a.hkl[o.miss_a[0]], hexa)}")
+        if o.miss_b:
+            diffs.append(f"{other.phase_name} shows {_hkl_text(o.pattern_b.hkl[o.miss_b[0]], hexb)}")
         return (" (" + " and ".join(diffs) + " where the other has no spot)") if diffs else ""
 
     sign = "+" if omega > 0 else "-"
@@ -550,18 +673,22 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
                 f"{sign} sense: {both_reach(o1, omega)}{diffs_of(o1)} if the orientation is as reported, "
                 f"{both_reach(o2, -omega)} if it is turned 180 deg; {other_sign} sense: the other way round"
                 + (" (this tilt separates the phases in both senses)"
-                   if o1 is not None and o2 is not None and min(o1[4], o2[4]) >= 0.2 else
+                   if o1 is not None and o2 is not None and o1.separates and o2.separates else
                    " (if no zone pattern appears by then, tilt the same amount the other way)"))
-    tz = lambda o, k: None if o is None or o[k] is None else tuple(int(v) for v in o[k])  # noqa: E731
+
+    def zone_of(o: _TiltOutcome | None, which: str):
+        z = None if o is None else getattr(o, which)
+        return None if z is None else tuple(int(v) for v in z)
+
     readings = turned_readings = None
     if holder_alpha_axis_deg is not None:
         # the same tilt as holder readings, counted from readings (0, 0) (approximate from others)
-        def via(o, u_a, u_b):
+        def via(o: _TiltOutcome | None, u_a, u_b):
             if o is None:
                 return None, ""
-            if o[0] is not None:
-                return _holder_text(pa, u_a, o[0], holder_alpha_axis_deg)[::-1]
-            return _holder_text(pb, u_b, o[1], holder_alpha_axis_deg)[::-1]
+            if o.zone_a is not None:
+                return _holder_text(pa, u_a, o.zone_a, holder_alpha_axis_deg)[::-1]
+            return _holder_text(pb, u_b, o.zone_b, holder_alpha_axis_deg)[::-1]
 
         rz = np.diag([-1.0, -1.0, 1.0])  # 180 deg about the beam
         readings, t1 = via(o1, ua, ub)
@@ -572,10 +699,10 @@ def separating_tilt(best: Solution, fit_b, other: Solution, fit_o, *, voltage_kv
                                                                   if ambiguous and turned_readings else ""))
     return TiltAdvice(angle_deg=float(omega), about_hkl=tuple(int(v) for v in za.hkl[ia]),
                       about_hkl_other=tuple(int(v) for v in zb.hkl[ib]), about_azimuth_deg=float(az),
-                      target_zone=tz(o1, 0), other_target_zone=tz(o1, 1), text=text,
-                      sense_ambiguous=bool(ambiguous), turned_target_zone=tz(o2, 0) if ambiguous else None,
-                      turned_other_target_zone=tz(o2, 1) if ambiguous else None, holder_readings_deg=readings,
-                      turned_holder_readings_deg=turned_readings)
+                      target_zone=zone_of(o1, "zone_a"), other_target_zone=zone_of(o1, "zone_b"), text=text,
+                      sense_ambiguous=bool(ambiguous), turned_target_zone=zone_of(o2, "zone_a") if ambiguous else None,
+                      turned_other_target_zone=zone_of(o2, "zone_b") if ambiguous else None,
+                      holder_readings_deg=readings, turned_holder_readings_deg=turned_readings)
 
 
 # ---------------------------------------------------------------------- annotate ranked solutions
@@ -614,7 +741,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
         for k, (s0, f0, _) in enumerate(kept):
             if s0.structure_type == s.structure_type and abs(s0.score - s.score) < 0.02 and not calibrated:
                 rel, text, _ = compare(s0, f0, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-                if rel == "identical geometry":
+                if rel is Relation.IDENTICAL_GEOMETRY:
                     twin_of = k
                     kept[k][2].append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
                                                 scale_inv_nm_per_px=s.scale_inv_nm_per_px))
@@ -636,7 +763,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
                                          calibrated=calibrated, min_score=min_score, length_tol=length_tol,
                                          rel_pos_tol=rel_pos_tol, holder_alpha_axis_deg=holder_alpha_axis_deg)
             for lk in looks:
-                if lk.relation == "ambiguous":
+                if lk.relation == Relation.AMBIGUOUS:
                     notes.append(f"ambiguous with {lk.phase_name} [{_lk_zone(lk)}]: {lk.separating}"
                                  + (f"; {lk.tilt.text}" if lk.tilt else ""))
         out.append(replace(s, lookalikes=tuple(looks), notes=tuple(notes)))
@@ -728,8 +855,8 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
             continue
         seen_phases.add(s.phase_name)
         rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-        if rel == "close" and s.score < best.score - 0.1:
-            rel = "ruled out"
+        if rel is Relation.CLOSE and s.score < best.score - 0.1:
+            rel = Relation.RULED_OUT
         looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))
     # related phases with no candidate at all: the closest pattern that shares a row
@@ -743,8 +870,8 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
             continue
         s, f = nm
         rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-        if rel == "close":
-            rel = "ruled out"
+        if rel is Relation.CLOSE:
+            rel = Relation.RULED_OUT
         looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel,
                                "closest pattern sharing a spot row: " + text, scale_inv_nm_per_px=s.scale_inv_nm_per_px))
     return looks
