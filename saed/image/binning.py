@@ -51,7 +51,12 @@ def bin_factor(shape, *, target_px: int = 512) -> int:
 
 
 def _block_sum(a: np.ndarray, nr: int, nc: int, f: int) -> np.ndarray:
-    """Sums over f x f blocks (float32; at most a few hundred values per block), contiguous axis first."""
+    """Sums over f x f blocks (float32; at most a few hundred values per block), contiguous axis first.
+
+    Equal to ``skimage.measure.block_reduce(a, (f, f), np.sum)`` (tests/test_image_library_twins.py),
+    which was timed as its replacement (issue 16) and kept out: on a 2048 x 2048 float32 frame
+    (f = 4) it took 71 ms against 27 ms here, 29 ms against 0.9 ms at 1024 x 1024 (f = 2).
+    """
     t = a[:, 0::f].astype(np.float32, copy=True)
     for k in range(1, f):
         t += a[:, k::f]
@@ -103,7 +108,8 @@ def radial_quantile_profile(values: np.ndarray, radius: np.ndarray, *, q: float 
     """The `q` quantile of `values` in radius bins of `bin_width`; returns (bin centres, quantiles), NaN-free.
 
     Bins with fewer than `min_count` values are dropped. One sort of (bin, value) keys, so it costs
-    O(n log n) for n values.
+    O(n log n) for n values; ``np.lexsort((value, bin))`` gives the same quantiles to 1e-11 of the
+    value span but took 2.3-2.9x as long (issue 16, 64k-1M values), so the single float key stays.
     """
     v = np.asarray(values, np.float64).ravel()
     r = np.asarray(radius, np.float64).ravel()
@@ -130,6 +136,9 @@ def upsample_bilinear(small: np.ndarray, factor: int, full_shape: tuple[int, int
     """Bilinear interpolation of a binned map back to full resolution (float32), edges held constant.
 
     Separable: interpolate along rows, then along columns, so it costs a few passes over the output.
+    Equal (to float32 rounding) to ``scipy.ndimage.zoom(small, f, order=1, mode="nearest",
+    grid_mode=True)`` (tests/test_image_library_twins.py), which was timed as its replacement
+    (issue 16) and kept out: 403 ms against 117 ms for 512 -> 2048 px, 92 ms against 1 ms for 342 -> 1025.
     """
     rows, cols = full_shape
     f = factor

@@ -213,7 +213,7 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
             return None
         mid = 0.5 * (xy[pr[:, 0]] + xy[pr[:, 1]])
         w = 1.0 / (sig[pr[:, 0]] ** 2 + sig[pr[:, 1]] ** 2)
-        # One robust pass: drop midpoints far from the weighted median.
+        # One robust pass: drop midpoints far from their (unweighted, per-axis) median.
         med = np.median(mid, axis=0)
         dev = np.hypot(*(mid - med).T)
         keep = dev <= max(3.0 * 1.4826 * float(np.median(dev)), 0.5)

@@ -133,7 +133,12 @@ def _check_enough_left(name: str, valid: np.ndarray) -> None:
 
 
 def _direct_beam_region(sat_mask: np.ndarray, near_px, max_dist_px: float):
-    """Centroid (x, y) and area of the largest saturated region within `max_dist_px` of `near_px`, or None."""
+    """Centroid (x, y) and area of the largest saturated region within `max_dist_px` of `near_px`, or None.
+
+    The centroids are bincount sums over the labels: equal to ``scipy.ndimage.center_of_mass`` and
+    ``sum_labels`` (tests/test_image_library_twins.py), which were timed as their replacement
+    (issue 16) and kept out: 102 ms against 10 ms on the 600 px box of a 2048 px frame.
+    """
     rows, cols = sat_mask.shape
     r0, r1 = max(int(near_px[1] - max_dist_px), 0), min(int(near_px[1] + max_dist_px) + 1, rows)
     c0, c1 = max(int(near_px[0] - max_dist_px), 0), min(int(near_px[0] + max_dist_px) + 1, cols)
