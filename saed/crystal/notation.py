@@ -31,7 +31,8 @@ from saed.errors import InputError
 
 __all__ = ["STYLES", "indices_text", "zone_text", "plane_text", "shown_zone", "shown_plane", "projected_plane",
            "fraction_text", "terminal_style", "text_width", "pad", "table_lines", "person_text", "Units", "UNITS",
-           "units_named", "wavelength_text", "degrees_text", "signed_text", "label_text"]
+           "units_named", "wavelength_text", "degrees_text", "signed_text", "label_text", "Reciprocal",
+           "RECIPROCAL_UNIT", "UnitText"]
 
 #: Media an index can be written for.
 STYLES = ("plain", "unicode", "html", "mathtext")
@@ -369,3 +370,64 @@ def wavelength_text(wavelength_nm: float) -> str:
     '2.5079 pm'
     """
     return f"{wavelength_nm * 1e3:.4f} pm"
+
+
+@dataclass(frozen=True)
+class Reciprocal:
+    """A reciprocal length inside stored prose, written in the display units when the prose is shown.
+
+    ``value_inv_nm`` None stands for the unit label itself (``1/nm``, ``1/Å``). Written with
+    ``decimals_inv_nm`` fixed decimals in 1/nm (one more per factor of ten in the other unit:
+    :meth:`Units.reciprocal_text`), or with ``significant`` figures when that is set.
+    """
+
+    value_inv_nm: float | None = None
+    decimals_inv_nm: int = 2
+    significant: int | None = None
+
+    def text(self, units: Units, style: str = "plain") -> str:
+        if self.value_inv_nm is None:
+            return units.inverse_label(style)
+        if self.significant is not None:
+            return f"{units.reciprocal(self.value_inv_nm):.{self.significant}g}"
+        return units.reciprocal_text(self.value_inv_nm, self.decimals_inv_nm)
+
+
+#: The reciprocal-length unit label inside a :class:`UnitText`.
+RECIPROCAL_UNIT = Reciprocal()
+
+
+@dataclass(frozen=True)
+class UnitText:
+    """Prose that quotes reciprocal lengths, kept so that it can be written in any display units.
+
+    ``parts`` are plain strings and :class:`Reciprocal` values. ``str()`` is the text in nm (as
+    stored in JSON); :meth:`text` writes it in the chosen units.
+
+    >>> t = UnitText(("220 at ", Reciprocal(5.6419), " ", RECIPROCAL_UNIT)) + ": not seen"
+    >>> str(t), t.text(UNITS["angstrom"], "unicode")
+    ('220 at 5.64 1/nm: not seen', '220 at 0.564 1/Å: not seen')
+    """
+
+    parts: tuple = ()
+
+    def text(self, units: Units | None = None, style: str = "plain") -> str:
+        u = UNITS["nm"] if units is None else units
+        return "".join(p if isinstance(p, str) else p.text(u, style) for p in self.parts)
+
+    def __str__(self) -> str:
+        return self.text()
+
+    def __add__(self, other) -> "UnitText":
+        return UnitText(self.parts + (other.parts if isinstance(other, UnitText) else (str(other),)))
+
+    def __radd__(self, other) -> "UnitText":
+        return UnitText((str(other),) + self.parts)
+
+    @staticmethod
+    def join(separator: str, items) -> "UnitText":
+        """``separator.join(items)`` for UnitText and str items."""
+        out = UnitText()
+        for k, item in enumerate(items):
+            out = (out + separator if k else out) + item
+        return out

@@ -29,6 +29,7 @@ from functools import lru_cache
 import numpy as np
 
 from saed.crystal.miller import format_indices, plane_to_4, direction_to_4
+from saed.crystal.notation import RECIPROCAL_UNIT, Reciprocal, UnitText
 from saed.index.mistilt import with_mistilt
 from saed.index.values import Lookalike, Solution, TiltAdvice
 from saed.simulate.geometry import rotation_about_axis
@@ -233,8 +234,13 @@ def _ratio_difference_pct(p: _Pattern, q: _Pattern, *, floor: float) -> float:
     return float(100.0 * np.max(np.abs((a / a[k]) / (b / b[k]) - 1.0)))
 
 
-def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g_max: float, calibrated: bool):
-    """Relation, separating text and whether a tilt is needed, for two solutions of one pattern."""
+def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g_max: float,
+            calibrated: bool) -> tuple[Relation, UnitText, bool]:
+    """Relation, separating text and whether a tilt is needed, for two solutions of one pattern.
+
+    The text keeps its reciprocal lengths as numbers (:class:`~saed.crystal.notation.UnitText`):
+    ``str()`` of it is the stored (JSON) text in 1/nm, and a report writes it in the chosen units.
+    """
     scale = best.scale_inv_nm_per_px
     pb, po = _pattern_of(fit_b, g_max, scale), _pattern_of(fit_o, g_max, scale)
     meas_xy = spots.v_px * scale
@@ -253,10 +259,10 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     strong_evidence = weak_evidence = False
     caution = ""
 
-    def listing(ex, hx):
-        items = [f"{_hkl_text(e.hkl, hx)} at {e.g_inv_nm:.2f}" + (" (weak)" if e.intensity < WEAK_I else "")
-                 for e in ex[:3]]
-        return ", ".join(items) + " 1/nm" + (" and more" if len(ex) > 3 else "")
+    def listing(ex, hx) -> UnitText:
+        items = [UnitText((f"{_hkl_text(e.hkl, hx)} at ", Reciprocal(e.g_inv_nm, decimals_inv_nm=2)))
+                 + (" (weak)" if e.intensity < WEAK_I else "") for e in ex[:3]]
+        return UnitText.join(", ", items) + UnitText((" ", RECIPROCAL_UNIT)) + (" and more" if len(ex) > 3 else "")
 
     for ex, who, whom, hx, mine in ((ex_o, name_o, name_b, hexo, False), (ex_b, name_b, name_o, hexb, True)):
         plain = []
@@ -278,15 +284,15 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
         seen = [e for e in plain if e.observed]
         if mine:
             if seen:
-                parts.append(f"{listing(seen, hx)} seen here have no place in {whom}")
+                parts.append(listing(seen, hx) + f" seen here have no place in {whom}")
             if unseen:
-                parts.append(f"{who} also predicts {listing(unseen, hx)}: not seen")
+                parts.append(f"{who} also predicts " + listing(unseen, hx) + ": not seen")
         else:
             if unseen:
-                parts.append(f"{who} would add {listing(unseen, hx)}: not seen")
+                parts.append(f"{who} would add " + listing(unseen, hx) + ": not seen")
             if seen:
                 strong = [e for e in seen if e.observed_strength >= 0.1]
-                parts.append(f"{who} explains {listing(seen, hx)} seen here ({'strong' if strong else 'weak'}), "
+                parts.append(f"{who} explains " + listing(seen, hx) + f" seen here ({'strong' if strong else 'weak'}), "
                              f"which {whom} lacks")
     relation = Relation.CLOSE
     need_tilt = False
@@ -298,8 +304,9 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
                 parts.append(f"same structure and spot pattern; the cells differ by {d_pct:.2f} % in scale"
                              + (" (below the calibration accuracy: an internal standard or another technique "
                                 "such as EDS decides)" if calibrated else
-                                f" (uncalibrated: the implied scale is {other.scale_inv_nm_per_px:.5g} 1/nm per px for "
-                                f"{other.phase_name})"))
+                                UnitText((" (uncalibrated: the implied scale is ",
+                                          Reciprocal(other.scale_inv_nm_per_px, significant=5), " ", RECIPROCAL_UNIT,
+                                          f" per px for {other.phase_name})"))))
             else:
                 parts.append("the same spots at the same positions in this zone")
                 need_tilt = True
@@ -315,7 +322,7 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     elif not strong_evidence and weak_evidence:
         parts.append(f"only weak spots decide: {best.phase_name} is favoured (a longer exposure, or a dark-field "
                      "image from one of those positions, makes sure)")
-    return relation, "; ".join(parts), need_tilt
+    return relation, UnitText.join("; ", parts), need_tilt
 
 
 # ---------------------------------------------------------------------- tilt search
@@ -743,8 +750,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
                 rel, text, _ = compare(s0, f0, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
                 if rel is Relation.IDENTICAL_GEOMETRY:
                     twin_of = k
-                    kept[k][2].append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
-                                                scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+                    kept[k][2].append(_lookalike(s, rel, text))
                     break
         if twin_of is None:
             kept.append((s, f, []))
@@ -768,6 +774,12 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
                                  + (f"; {lk.tilt.text}" if lk.tilt else ""))
         out.append(replace(s, lookalikes=tuple(looks), notes=tuple(notes)))
     return out
+
+
+def _lookalike(s: Solution, relation: Relation, text: UnitText, tilt: TiltAdvice | None = None) -> Lookalike:
+    """The look-alike entry for solution `s`: the separating text stored in 1/nm and kept for other units."""
+    return Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, relation, str(text), tilt,
+                     scale_inv_nm_per_px=s.scale_inv_nm_per_px, separating_text=text)
 
 
 def _observed_g_max(best: Solution, spots) -> float:
@@ -845,8 +857,7 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots),
                                 holder_alpha_axis_deg=holder_alpha_axis_deg)
                 if need_tilt else None)
-        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text, tilt,
-                               scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+        looks.append(_lookalike(s, rel, text, tilt))
         seen_phases.add(s.phase_name)
     # related phases further down (polymorphs, ordered variants): say why they lost
     pa = fit_b.table.phase
@@ -857,8 +868,7 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
         if rel is Relation.CLOSE and s.score < best.score - 0.1:
             rel = Relation.RULED_OUT
-        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel, text,
-                               scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+        looks.append(_lookalike(s, rel, text))
     # related phases with no candidate at all: the closest pattern that shares a row
     for pi, pt in enumerate(tables.phases):
         if pt.name in seen_phases or not _related(pa, pt.phase) or len(looks) >= 5:
@@ -872,6 +882,5 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
         if rel is Relation.CLOSE:
             rel = Relation.RULED_OUT
-        looks.append(Lookalike(s.phase_name, s.zone_axis, s.zone_axis_4, s.score, rel,
-                               "closest pattern sharing a spot row: " + text, scale_inv_nm_per_px=s.scale_inv_nm_per_px))
+        looks.append(_lookalike(s, rel, "closest pattern sharing a spot row: " + text))
     return looks

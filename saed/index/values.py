@@ -160,6 +160,13 @@ class Lookalike:
     separating: str
     tilt: TiltAdvice | None = None
     scale_inv_nm_per_px: float | None = None
+    #: the separating text with its reciprocal lengths kept as numbers (saed.crystal.notation.UnitText),
+    #: for outputs in other units; ``separating`` is its text in 1/nm
+    separating_text: object | None = field(default=None, compare=False, repr=False)
+
+    def separating_in(self, units=None, style: str = "plain") -> str:
+        """``separating`` with its reciprocal lengths in `units` (a saed.crystal.notation.Units; default nm)."""
+        return self.separating if self.separating_text is None else self.separating_text.text(units, style)
 
 
 @dataclass(frozen=True)

@@ -126,8 +126,8 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
         notes = []
         if best.mistilt is not None:
             notes.append(f"<li><b>Mistilt.</b> {person_text(best.mistilt.advice, 'html')}</li>")
-        notes += [f"<li>{person_text(n, 'html')}</li>" for n in plain_notes(best)]
-        for head, sep, tilt in other_lookalikes(best, "html"):
+        notes += [f"<li>{person_text(n, 'html')}</li>" for n in plain_notes(best, units, 'html')]
+        for head, sep, tilt in other_lookalikes(best, "html", units):
             notes.append(f"<li><b>{head[0].upper() + head[1:]}.</b> {person_text(sep, 'html')}"
                          + (f" <i>{person_text(tilt, 'html')}</i>" if tilt else "") + "</li>")
         if r.message:

@@ -75,20 +75,29 @@ def kind_text(spot, style: str = "plain") -> str:
     return {"double-diffraction": "double diffraction"}.get(spot.kind, spot.kind)
 
 
-def plain_notes(best: Solution) -> list[str]:
-    """The best solution's notes without the mistilt advice (which is shown on its own line)."""
-    return [n for n in best.notes if best.mistilt is None or n != best.mistilt.advice]
+def plain_notes(best: Solution, units: Units = UNITS["nm"], style: str = "plain") -> list[str]:
+    """The best solution's notes without the mistilt advice (which is shown on its own line).
+
+    A look-alike note quotes its separating text (stored in 1/nm): it is written in `units` (unit
+    labels for `style`).
+    """
+    notes = [n for n in best.notes if best.mistilt is None or n != best.mistilt.advice]
+    for lk in best.lookalikes:
+        shown = lk.separating_in(units, style)
+        if shown != lk.separating:
+            notes = [n.replace(f": {lk.separating}", f": {shown}") for n in notes]
+    return notes
 
 
-def other_lookalikes(best: Solution, style: str = "plain") -> list[tuple[str, str, str]]:
-    """(heading, what separates them, tilt text) for the look-alikes not already in the notes."""
+def other_lookalikes(best: Solution, style: str = "plain", units: Units = UNITS["nm"]) -> list[tuple[str, str, str]]:
+    """(heading, what separates them (in `units`), tilt text) for the look-alikes not already in the notes."""
     out = []
     for lk in best.lookalikes:
         if lk.relation == "ambiguous":
             continue  # already in the notes
         z = indices_text(lk.zone_axis_4 if lk.zone_axis_4 is not None else lk.zone_axis, style)
         name = html.escape(lk.phase_name) if style == "html" else lk.phase_name
-        out.append((f"{lk.relation}: {name} [{z}] (score {lk.score:.2f})", lk.separating,
+        out.append((f"{lk.relation}: {name} [{z}] (score {lk.score:.2f})", lk.separating_in(units, style),
                     lk.tilt.text if lk.tilt else ""))
     return out
 
@@ -170,8 +179,8 @@ def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -
         out.append(txt)
     if best.mistilt is not None:
         out.append(f"  mistilt: {person_text(best.mistilt.advice, style)}")
-    out += [f"  note: {person_text(n, style)}" for n in plain_notes(best)]
-    for head, sep, tilt in other_lookalikes(best, style):
+    out += [f"  note: {person_text(n, style)}" for n in plain_notes(best, units, style)]
+    for head, sep, tilt in other_lookalikes(best, style, units):
         out.append(f"  {head}: {person_text(sep, style)}" + (f"; {person_text(tilt, style)}" if tilt else ""))
     shown = sorted((s for s in best.indexed), key=lambda s: (s.hkl is None, s.d_nm_measured * -1))
     out.append("")
