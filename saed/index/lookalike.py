@@ -111,6 +111,36 @@ ZONE_INDEX_COST = 0.1
 #: A zone on the tilt arc this close (deg) to the tilt itself or to no tilt is not a different one.
 ARC_MIN_DISTINCT_DEG = 1.0
 
+#: Two solutions' spots coincide on the detector within this many pixels at least (a spot's own
+#: position error on a typical frame is a few tenths of a pixel; two is safely above it).
+MATCH_FLOOR_PX = 2.0
+#: Separating spots are looked for between this fraction of the shortest measured |g| (inside it
+#: the direct beam's tail hides spots) and this fraction of the longest (just past the last spot seen).
+REGION_INNER_FRACTION, REGION_OUTER_FRACTION = 0.35, 1.02
+#: Measured spots are "strong" against this percentile of the pattern's spot intensities (the strong
+#: spots, not the median: most spots of a pattern are weak).
+STRONG_REFERENCE_PERCENTILE = 90
+#: A seen separating spot under this fraction of the strong reference is weak (thin-foil HOLZ
+#: projections and faults make such spots; they do not decide).
+WEAK_OBSERVED_STRENGTH = 0.1
+#: Spacing ratios that differ by less than this (percent) are the same pattern (a third of the SAED
+#: ratio accuracy: no measurement can tell them apart).
+SAME_RATIOS_PCT = 0.3
+#: Relative distance within which two patterns' spots are the same reflection when their spacing
+#: ratios are compared (looser than SAME_SPOT_REL: the ratios are what is measured here).
+SHARED_SPOT_REL = 0.03
+
+#: Which solutions are compared as look-alikes of the best: the next COMPETITORS_CONSIDERED, those
+#: within LOOKALIKE_SCORE_GAP of its score, at most MAX_COMPETING_LOOKALIKES of them and
+#: MAX_LOOKALIKES with the related phases (a reader takes in three or so; more hides the one that matters).
+COMPETITORS_CONSIDERED, LOOKALIKE_SCORE_GAP, MAX_COMPETING_LOOKALIKES, MAX_LOOKALIKES = 6, 0.15, 3, 5
+#: A "close" look-alike this far below the best is "ruled out" (what it would show is missing).
+RULED_OUT_SCORE_GAP = 0.1
+#: Uncalibrated isostructural solutions within this score of each other are twins of one geometry.
+TWIN_SCORE_DIFF = 0.02
+#: Related phases (worth a "ruled out" note): a shared element and atomic volumes within this fraction.
+RELATED_ATOMIC_VOLUME_REL = 0.15
+
 #: Dissimilarity credited to a tilt where one phase reaches a zone pattern and the other none.
 NO_ZONE_DISSIMILARITY = 0.45
 
@@ -225,7 +255,7 @@ def _ratio_difference_pct(p: _Pattern, q: _Pattern, *, floor: float) -> float:
     sel = np.flatnonzero(p.allowed & (p.inten >= WEAK_I))
     if len(sel) == 0:
         return 0.0
-    j, hit = _near(p.xy[sel], q.xy, rel=0.03, floor=floor)
+    j, hit = _near(p.xy[sel], q.xy, rel=SHARED_SPOT_REL, floor=floor)
     if not np.any(hit):
         return 0.0
     a = p.g[sel][hit]
@@ -244,11 +274,12 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     scale = best.scale_inv_nm_per_px
     pb, po = _pattern_of(fit_b, g_max, scale), _pattern_of(fit_o, g_max, scale)
     meas_xy = spots.v_px * scale
-    floor = 2.0 * scale
+    floor = MATCH_FLOOR_PX * scale
     r_meas = np.linalg.norm(meas_xy, axis=1)
-    region = (0.35 * float(r_meas.min()), 1.02 * float(r_meas.max())) if len(r_meas) else (0.0, 0.0)
+    region = ((REGION_INNER_FRACTION * float(r_meas.min()), REGION_OUTER_FRACTION * float(r_meas.max()))
+              if len(r_meas) else (0.0, 0.0))
     # "strong" is judged against the strong spots of the pattern (90th percentile), not the median
-    ref_i = float(np.percentile(spots.intensity, 90)) if len(spots.intensity) else 1.0
+    ref_i = float(np.percentile(spots.intensity, STRONG_REFERENCE_PERCENTILE)) if len(spots.intensity) else 1.0
     ex_o = _extras(po, pb, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=SAME_SPOT_REL, floor=floor)
     ex_b = _extras(pb, po, meas_xy, spots.intensity, ref_i, region_r=region, tol_rel=SAME_SPOT_REL, floor=floor)
     ratio_pct = _ratio_difference_pct(pb, po, floor=floor)
@@ -267,7 +298,7 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
     for ex, who, whom, hx, mine in ((ex_o, name_o, name_b, hexo, False), (ex_b, name_b, name_o, hexb, True)):
         plain = []
         for e in ex:
-            holz_weak = e.other_kind is _Counterpart.HOLZ_PROJECTION and e.observed and e.observed_strength < 0.1
+            holz_weak = e.other_kind is _Counterpart.HOLZ_PROJECTION and e.observed and e.observed_strength < WEAK_OBSERVED_STRENGTH
             if holz_weak:
                 caution = caution or (f"the {_hkl_text(e.hkl, hx)} spots of {who} are weak here, and weak spots at those "
                            f"positions also arise in thin or faulted foils of {whom.split(' [')[0]} (projected "
@@ -291,13 +322,13 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
             if unseen:
                 parts.append(f"{who} would add " + listing(unseen, hx) + ": not seen")
             if seen:
-                strong = [e for e in seen if e.observed_strength >= 0.1]
+                strong = [e for e in seen if e.observed_strength >= WEAK_OBSERVED_STRENGTH]
                 parts.append(f"{who} explains " + listing(seen, hx) + f" seen here ({'strong' if strong else 'weak'}), "
                              f"which {whom} lacks")
     relation = Relation.CLOSE
     need_tilt = False
     if not ex_o and not ex_b:
-        if ratio_pct < 0.3:
+        if ratio_pct < SAME_RATIOS_PCT:
             relation = Relation.IDENTICAL_GEOMETRY if not calibrated else Relation.AMBIGUOUS
             if best.structure_type == other.structure_type and best.phase_name != other.phase_name:
                 d_pct = 100.0 * abs(best.scale_inv_nm_per_px / other.scale_inv_nm_per_px - 1.0)
@@ -726,7 +757,7 @@ def _related(pa, pb) -> bool:
     if not ea & eb:
         return False
     va, vb = _atomic_volume_nm3(pa), _atomic_volume_nm3(pb)
-    return abs(va / vb - 1.0) <= 0.15
+    return abs(va / vb - 1.0) <= RELATED_ATOMIC_VOLUME_REL
 
 
 def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, holder_alpha_axis_deg=None,
@@ -746,7 +777,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
     for s, f in good:
         twin_of = None
         for k, (s0, f0, _) in enumerate(kept):
-            if s0.structure_type == s.structure_type and abs(s0.score - s.score) < 0.02 and not calibrated:
+            if s0.structure_type == s.structure_type and abs(s0.score - s.score) < TWIN_SCORE_DIFF and not calibrated:
                 rel, text, _ = compare(s0, f0, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
                 if rel is Relation.IDENTICAL_GEOMETRY:
                     twin_of = k
@@ -850,8 +881,8 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
                         length_tol, rel_pos_tol, holder_alpha_axis_deg=None):
     looks = []
     seen_phases = {best.phase_name}
-    for s, f, _ in others[:6]:
-        if s.score < best.score - 0.15 or len(looks) >= 3:
+    for s, f, _ in others[:COMPETITORS_CONSIDERED]:
+        if s.score < best.score - LOOKALIKE_SCORE_GAP or len(looks) >= MAX_COMPETING_LOOKALIKES:
             continue
         rel, text, need_tilt = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
         tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots),
@@ -862,16 +893,16 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
     # related phases further down (polymorphs, ordered variants): say why they lost
     pa = fit_b.table.phase
     for s, f in scored:
-        if s.phase_name in seen_phases or not _related(pa, f.table.phase) or len(looks) >= 5:
+        if s.phase_name in seen_phases or not _related(pa, f.table.phase) or len(looks) >= MAX_LOOKALIKES:
             continue
         seen_phases.add(s.phase_name)
         rel, text, _ = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
-        if rel is Relation.CLOSE and s.score < best.score - 0.1:
+        if rel is Relation.CLOSE and s.score < best.score - RULED_OUT_SCORE_GAP:
             rel = Relation.RULED_OUT
         looks.append(_lookalike(s, rel, text))
     # related phases with no candidate at all: the closest pattern that shares a row
     for pi, pt in enumerate(tables.phases):
-        if pt.name in seen_phases or not _related(pa, pt.phase) or len(looks) >= 5:
+        if pt.name in seen_phases or not _related(pa, pt.phase) or len(looks) >= MAX_LOOKALIKES:
             continue
         seen_phases.add(pt.name)
         nm = row_near_miss(pi, best, measured, tables, spots, calibrated=calibrated,
