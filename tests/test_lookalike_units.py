@@ -21,7 +21,7 @@ from saed.crystal import builtin_phase
 from saed.crystal.notation import UNITS
 from saed.index import index_pattern, prepare_phases
 from saed.index.lookalike import Relation
-from saed.index.synthetic import synthetic_measured
+from saed.synth.kinematic import synthetic_measured
 from saed.report.index_json import result_json
 from saed.report.index_summary import format_summary, other_lookalikes, plain_notes
 

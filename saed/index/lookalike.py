@@ -32,6 +32,7 @@ from saed.crystal.miller import format_indices, plane_to_4, direction_to_4
 from saed.crystal.notation import RECIPROCAL_UNIT, Reciprocal, UnitText
 from saed.index.mistilt import with_mistilt
 from saed.index.values import Lookalike, Solution, TiltAdvice
+from saed.readonly import frozen_array
 from saed.simulate.geometry import rotation_about_axis
 from saed.simulate.zone import zone_pattern
 
@@ -366,9 +367,7 @@ def _index_directions(n: int) -> np.ndarray:
     uvw = uvw[g == 1]
     # one of +-uvw
     key = np.sign(uvw[:, 0]) * 9 + np.sign(uvw[:, 1]) * 3 + np.sign(uvw[:, 2])
-    uvw = uvw[key > 0]
-    uvw.flags.writeable = False
-    return uvw
+    return frozen_array(uvw[key > 0])
 
 
 @lru_cache(maxsize=16)
@@ -380,9 +379,7 @@ def _readable_directions(n: int, hexagonal: bool) -> np.ndarray:
     """
     cand = _index_directions(2 * n if hexagonal else n)
     keep = np.array([_zone_index(u, hexagonal) <= n for u in cand], dtype=bool)
-    out = cand[keep]
-    out.flags.writeable = False
-    return out
+    return frozen_array(cand[keep])
 
 
 def _nearest_zone(phase, beam_crystal: np.ndarray, *, max_index: int, tol_deg: float):
