@@ -52,9 +52,9 @@ DEFAULT_DETECT_SNR = 5.0
 #: haze to model and no spot profile to fit.
 MAX_SATURATED_FRACTION = 0.5
 
-#: Fewest pixels left after masking for a measurement: the larger of this count (a 16 x 16 patch,
-#: enough for a noise estimate) and this fraction of the frame (below it the background model has
-#: too few blocks).
+#: Fewest pixels left after masking for a measurement: the larger of this count (a 16 x 16 patch)
+#: and this fraction of the frame; below that, the haze and noise model rests on too few blocks
+#: (set by hand).
 MIN_VALID_PX = 256
 MIN_VALID_FRACTION = 0.05
 
@@ -67,10 +67,10 @@ HINT_REACH_FRACTION = 0.08
 #: whose short side is at least this long is coarsened 2 x 2 more (the block image is ~512 px).
 COARSEN_ABOVE_PX = 400
 #: A saturated region counts as the direct beam when within this fraction of the frame's short
-#: side of the centre of symmetry (the beam is never at the very edge of a usable pattern).
+#: side of the centre of symmetry; farther out it is taken for a saturated spot (set by hand).
 DIRECT_BEAM_REACH_FRACTION = 0.15
-#: A rough centre more than this fraction of the frame outside the image is refused: the pattern
-#: would show less than a quarter of its spots on one side.
+#: A rough centre more than this fraction of the frame outside the image is refused: so far out
+#: the frame holds no Friedel pairs and no radial haze to model (set by hand).
 CENTRE_OUTSIDE_FRACTION = 0.25
 
 #: Spot width (Gaussian sigma, px) used when none can be measured: a focused spot on a 1-4k
@@ -84,7 +84,7 @@ SPOT_SIGMA_MIN_PX, SPOT_SIGMA_MAX_PX = 0.7, 12.0
 RMS_RADIUS_PER_SIGMA = math.sqrt(2.0)
 
 #: Half-size (px) of the window in which the direct beam's width is measured: room for a beam
-#: several times wider than a spot (the direct beam carries the halo of the condenser aperture).
+#: several times wider than a spot (set by hand).
 DIRECT_BEAM_WINDOW_HALF_PX = 24
 #: The direct beam's width is held between one spot width and the larger of this many spot widths
 #: and this many pixels; when it cannot be measured it is taken as DIRECT_BEAM_FALLBACK_SIGMAS spot
@@ -100,12 +100,13 @@ DIRECT_BEAM_MIN_RELATIVE_INTENSITY = 0.5
 #: Spots within the larger of this many pixels, this many direct-beam widths and the saturated
 #: core's side are parts of the direct beam (its tail and ring), not reflections.
 DIRECT_BEAM_EXCLUSION_PX, DIRECT_BEAM_EXCLUSION_WIDTHS = 3.0, 2.0
-#: Floor (px) of the direct beam's position uncertainty: the fit's formal error is smaller than the
-#: pixel-response systematics at high signal.
+#: Floor (px) of the direct beam's position uncertainty: at high signal the fit's formal error
+#: becomes smaller than anything the pixel grid can support (set by hand).
 CENTRE_SIGMA_FLOOR_PX = 0.02
 
 #: Spots used for the Friedel-pair centre: peak SNR at least this (and at least snr_min), where the
-#: positions are good to a tenth of a pixel; at least FRIEDEL_MIN_SPOTS of them (two pairs).
+#: positions are good to about 0.2 px (saed bench --only image: RMS 0.18 px at SNR 5-20); at least
+#: FRIEDEL_MIN_SPOTS of them (two pairs).
 FRIEDEL_MIN_SNR = 5.0
 FRIEDEL_MIN_SPOTS = 4
 #: Without a direct beam the rough centre may be off by up to this fraction of the smallest spot
@@ -119,7 +120,7 @@ FRIEDEL_TOL_WITH_BEAM_PX, FRIEDEL_TOL_PX = 4.0, 8.0
 FRIEDEL_MIN_RADIUS_SIGMAS, FRIEDEL_MIN_RADIUS_PX = 2.0, 2.0
 
 #: Lattice tolerance (px): the largest of this floor, this many median position uncertainties and
-#: this fraction of the spot width (a spot on the lattice lies within its own size of the node).
+#: this fraction of the spot width (set by hand on the bench patterns).
 LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS, LATTICE_TOL_SPOT_WIDTHS = 1.5, 3.0, 0.6
 #: Extra centre tolerance (px) when the centre is still the rough one (no direct beam, no pairs).
 ROUGH_CENTRE_EXTRA_TOL_PX = 2.0

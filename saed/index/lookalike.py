@@ -64,13 +64,14 @@ class _Counterpart(enum.StrEnum):
 #: common practice: 1-2 %). Differences below this cannot separate two solutions.
 SAED_RATIO_ACCURACY_PCT = 1.0
 
-#: Kinematic |F|^2 (strongest = 1) below which a predicted spot is "weak": 2 % of the strongest is about
-#: where a spot stops standing out of the haze on a normal exposure (common practice).
+#: Kinematic |F|^2 (strongest = 1) below which a predicted spot is "weak" (set by hand; kinematic
+#: intensities ignore dynamical scattering, so they only sort spots coarsely).
 WEAK_I = 0.02
-#: Kinematic |F|^2 above which a predicted spot counts in the tilt comparison (faint superlattice
-#: spots of ordered alloys, |F|^2 ~ 1e-3 of the fundamentals, must count) ...
+#: Kinematic |F|^2 above which a predicted spot counts in the tilt comparison: low, so that weak
+#: superlattice spots of ordered alloys count (set by hand) ...
 COUNTED_I = 2e-4
-#: ... and above which it makes a row visible when deciding whether a tilt reaches a zone pattern.
+#: ... and above which it makes a row visible when deciding whether a tilt reaches a zone pattern
+#: (set by hand).
 VISIBLE_I = 1e-3
 #: Two spot directions are independent rows when the sine of their angle exceeds this (about 11.5 deg).
 TWO_ROWS_MIN_SINE = 0.2
@@ -115,8 +116,9 @@ ARC_MIN_DISTINCT_DEG = 1.0
 #: Two solutions' spots coincide on the detector within this many pixels at least (a spot's own
 #: position error on a typical frame is a few tenths of a pixel; two is safely above it).
 MATCH_FLOOR_PX = 2.0
-#: Separating spots are looked for between this fraction of the shortest measured |g| (inside it
-#: the direct beam's tail hides spots) and this fraction of the longest (just past the last spot seen).
+#: Separating spots are looked for between this fraction of the shortest measured |g| (below one
+#: half, so superlattice spots at half a fundamental spacing count) and this fraction of the
+#: longest (just past the last spot seen); set by hand.
 REGION_INNER_FRACTION, REGION_OUTER_FRACTION = 0.35, 1.02
 #: Measured spots are "strong" against this percentile of the pattern's spot intensities (the strong
 #: spots, not the median: most spots of a pattern are weak).
