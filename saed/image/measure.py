@@ -367,6 +367,17 @@ def _centre_before_lattice(spots: Spots, beam: DirectBeam | None, rough: _RoughC
     return centre
 
 
+@dataclass(frozen=True, eq=False)
+class _LatticeStep:
+    """Step 7: the lattice (None when not found), the final centre (x, y) px with its sigma and how it was found."""
+
+    basis: LatticeBasis | None
+    centre_px: np.ndarray
+    centre_sigma_px: float
+    how: str
+    notes: tuple[str, ...]
+
+
 def _lattice_notes(fit) -> list[str]:
     """Notes on a lattice fit: spots off it, and a basis vector with no spot of its own."""
     notes = []
@@ -381,11 +392,8 @@ def _lattice_notes(fit) -> list[str]:
     return notes
 
 
-def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: float):
-    """Step 7: the 2-D lattice refined together with the centre over all spots.
-
-    Returns (basis or None, centre (x, y) px, its sigma, how the centre was found, notes).
-    """
+def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: float) -> _LatticeStep:
+    """Step 7: the 2-D lattice refined together with the centre over all spots."""
     order = np.argsort(-spots.snr)
     tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * np.median(spots.sigma_xy_px),
                     LATTICE_TOL_SPOT_WIDTHS * sigma))
@@ -393,14 +401,14 @@ def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: f
                            center_tol_px=tol + (0.0 if centre.how != rough.how else ROUGH_CENTRE_EXTRA_TOL_PX),
                            center_obs=centre.observed_px, center_sigma_px=centre.observed_sigma_px)
     if fit is None:
-        return None, centre.xy_px, centre.sigma_px, centre.how, ["no 2-D lattice found (needs three or more spots "
-                                                                 "not all on one line)"]
+        return _LatticeStep(None, centre.xy_px, centre.sigma_px, centre.how,
+                            ("no 2-D lattice found (needs three or more spots not all on one line)",))
     sc, s1, s2, sa = fit.sigmas()
     basis = LatticeBasis(g1_px=fit.g1_px, g2_px=fit.g2_px, indices=fit.indices, on_lattice=fit.on_lattice,
                          sigma_g1_px=s1, sigma_g2_px=s2, sigma_angle_deg=sa, rms_residual_px=fit.rms_residual_px)
     how = f"the lattice fit over {int(fit.on_lattice.sum())} spots" + (
         " and the direct beam" if centre.observed_px is not None else "")
-    return basis, fit.center_px, sc, how, _lattice_notes(fit)
+    return _LatticeStep(basis, fit.center_px, sc, how, tuple(_lattice_notes(fit)))
 
 
 def measure_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, source: str = "",
@@ -500,14 +508,13 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
         return Inspection(mp, ignored, m.saturated, stop, bg, sigma, None, False, m.image)
 
     centre = _centre_before_lattice(spots, db, rough, sigma=sigma, snr_min=snr_min)
-    basis, center, center_sigma, center_how, lattice_notes = _fit_lattice(spots, centre, rough, sigma=sigma)
-    notes += lattice_notes
-    notes.insert(0, f"centre from {center_how}")
+    lat = _fit_lattice(spots, centre, rough, sigma=sigma)
+    notes = [f"centre from {lat.how}", *notes, *lat.notes]
     if db is None and stop is None and not m.saturated.any():
         notes.append("no direct beam seen at the centre")
-    mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(center[0]), float(center[1])), spots=spots,
-                         basis=basis, calibration=calibration, center_sigma_px=float(center_sigma), source=source,
-                         notes=tuple(notes))
+    mp = MeasuredPattern(image_shape=(rows, cols), center_px=(float(lat.centre_px[0]), float(lat.centre_px[1])),
+                         spots=spots, basis=lat.basis, calibration=calibration,
+                         center_sigma_px=float(lat.centre_sigma_px), source=source, notes=tuple(notes))
     db_px = None if db is None else (float(db.xy_px[0]), float(db.xy_px[1]))
     return Inspection(mp, ignored, m.saturated, stop, bg, sigma, db_px, bool(db is not None and db.saturated), m.image)
 
