@@ -20,12 +20,15 @@ How saed decides (docs/indexing.md, "Two crystals in one pattern"):
 * Spots at g1 + g2 (a reflection of one crystal plus one of the other) are double diffraction
   across the crystals: they are recorded as such and never seed a further crystal.
 * Ordered and disordered forms of one cell in one orientation (L1_2 Ni3Al on fcc Ni, B2 on bcc):
-  the pattern is one ordered crystal unless the fundamental spots are much stronger than a fully
-  ordered crystal makes them (:func:`ordered_fraction` below :data:`ORDERED_FRACTION_MIN`); then the
-  disordered matrix is reported as a second crystal sharing the fundamental spots, with the
-  ordered precipitate in its orientation owning the superlattice spots, and a caution (partial
-  long-range order and dynamical scattering weaken superlattice spots too; a dark-field image in a
-  superlattice reflection decides).
+  the pattern is one ordered crystal unless the fundamental spots are decisively stronger than one
+  fully ordered crystal makes them (:func:`saed.index.ordering.order_evidence`: the measured
+  superlattice/fundamental ratio against the kinematic one, with the measured scatter as its
+  uncertainty); then the disordered matrix is reported as a second crystal sharing the fundamental
+  spots, with the ordered precipitate in its orientation owning the superlattice spots. Where the
+  intensities do not decide, one ordered crystal is listed and a note names both readings. Either
+  way a caution: partial long-range order weakens superlattice spots in the same way, dynamical
+  scattering makes intensity ratios unreliable in thick areas, and a dark-field image in a
+  superlattice spot decides.
 """
 
 from __future__ import annotations
@@ -39,11 +42,12 @@ import numpy as np
 from saed.index.candidates import Candidate, SpotSet, find_candidates
 from saed.index.orientation_relationships import (OrientationRelationship, describe_relationship, ordered_pair,
                                                   proper_rotations_cart, misorientation)
+from saed.index.ordering import DECISIVE_Z, OrderEvidence, order_evidence
 from saed.index.score import score_candidate
 from saed.index.values import Solution
 
-__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "find_crystals", "ordered_fraction",
-           "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT", "ORDERED_FRACTION_MIN"]
+__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "find_crystals", "MIN_OWN_SPOTS",
+           "MIN_RESIDUAL_SHARE", "MAX_ABSENT"]
 
 logger = logging.getLogger(__name__)
 
@@ -61,9 +65,6 @@ MAX_ABSENT_MANY = 0.7
 SCALE_TOL = 0.015
 #: Zone axes of further crystals are searched up to this index.
 MAX_SECOND_ZONE_INDEX = 5
-#: Superlattice/fundamental intensity, relative to a fully ordered crystal, below which a
-#: disordered matrix is reported beside the ordered precipitate.
-ORDERED_FRACTION_MIN = 0.45
 #: ... and its own spots must carry at least this share of the measured spot intensity (weaker:
 #: a note, never a crystal).
 MIN_INTENSITY_SHARE = 0.03
@@ -281,48 +282,17 @@ def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.nd
     return out
 
 
-def ordered_fraction(ordered: Solution, disordered_table) -> tuple[float | None, int, int]:
-    """Measured superlattice/fundamental intensity relative to a fully ordered crystal (1 = fully ordered).
-
-    The ratio measured / kinematic intensity of the fundamental spots (allowed in the disordered
-    cell too) is fitted as log ratio = a + b g^2 (the fall-off with |g| that excitation errors,
-    absorption and the Debye-Waller factor give), and the superlattice spots are compared with that
-    fit at their own |g|: the median factor. Returns (factor or None when fewer than two
-    superlattice or three fundamental spots, n superlattice, n fundamental).
-    """
-    sup, fun = [], []
-    for s in ordered.indexed:
-        if s.kind != "allowed" or not s.intensity_calc or s.intensity_calc <= 0 or s.hkl is None or not s.d_nm_calc:
-            continue
-        row = disordered_table.rows_of(np.array([s.hkl]))[0]
-        is_fund = row >= 0 and bool(disordered_table.allowed[row])
-        rec = (1.0 / s.d_nm_calc, math.log(max(s.intensity, 1e-12) / s.intensity_calc))
-        (fun if is_fund else sup).append(rec)
-    if len(sup) < 2 or len(fun) < 3:
-        return None, len(sup), len(fun)
-    g_f = np.array([f[0] for f in fun])
-    r_f = np.array([f[1] for f in fun])
-    if np.ptp(g_f) > 0.5:
-        b, a = np.polyfit(g_f ** 2, r_f, 1)
-        b = min(b, 0.0)  # intensities never grow with |g|; a positive slope is noise
-        a = float(np.median(r_f - b * g_f ** 2))
-    else:
-        a, b = float(np.median(r_f)), 0.0
-    g_s = np.array([x[0] for x in sup])
-    r_s = np.array([x[1] for x in sup])
-    return float(math.exp(np.median(r_s - (a + b * g_s ** 2)))), len(sup), len(fun)
-
-
 def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
-    """Disordered partners of an ordered crystal: (fraction, matrix Solution, name) for the best partner, or None."""
+    """Disordered partners of an ordered crystal: (OrderEvidence, matrix Solution, name) for the best partner,
+    or None."""
     pt_o = tables.table(ordered.phase_name)
     best = None
     for pi, pt in enumerate(tables.phases):
         pair = ordered_pair(pt_o.phase, pt.phase)
         if pair is None or pair[0] != ordered.phase_name:
             continue
-        frac, n_s, n_f = ordered_fraction(ordered, pt)
-        if frac is None:
+        ev = _evidence(measured, tables, ordered, pt)
+        if ev is None:
             continue
         uvw = tuple(int(v) for v in ordered.zone_axis)
         cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(ordered.orientation_matrix),
@@ -330,8 +300,13 @@ def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol)
         sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=float(ordered.scale_inv_nm_per_px),
                                  length_tol=SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
         if best is None or sol.score > best[1].score:
-            best = (frac, sol, pt.phase.name, n_s, n_f)
+            best = (ev, sol, pt.phase.name)
     return best
+
+
+def _evidence(measured, tables, ordered: Solution, disordered_table):
+    voltage = measured.calibration.voltage_kv if measured.calibration is not None else 200.0
+    return order_evidence(ordered, tables.table(ordered.phase_name).phase, disordered_table, voltage_kv=voltage)
 
 
 def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_crystals: int = 2, angle_tol: float = 2.0,
@@ -402,26 +377,16 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     if len(sols) == 1:
         m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol)
         if m is not None:
-            frac, msol, mname, n_s, n_f = m
-            if frac < ORDERED_FRACTION_MIN and max_crystals >= 2:
+            ev, msol, mname = m
+            if ev.decisively_weak and max_crystals >= 2:
                 sols.append(msol)
                 roles[0] = "ordered precipitate"
                 roles.append("matrix")
-                pair_note = (f"the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, relative to the "
-                             f"fundamental spots, as a fully ordered crystal gives ({n_s} superlattice, {n_f} fundamental "
-                             f"spots): reported as {best.phase_name} precipitates in a {mname} matrix of the same "
-                             "orientation. Caution: partial long-range order and dynamical scattering also weaken "
-                             "superlattice spots; a dark-field image in a superlattice spot decides (particles, or "
-                             "the whole area lit)")
+                pair_note = _two_crystals_note(ev, best.phase_name, mname)
             else:
-                pair_note = (f"one ordered crystal: the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, "
-                             "relative to the fundamental spots, as a fully ordered crystal gives, so no separate "
-                             "disordered matrix is needed. " + _order_ambiguity(frac, best.phase_name,
-                                                                  " or ".join(_partners(tables, best.phase_name))))
+                pair_note = _one_crystal_note(ev, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
         elif _partners(tables, best.phase_name):
-            pair_note = ("one ordered crystal: too few superlattice and fundamental spots to compare their intensities "
-                         "with full order. " + _order_ambiguity(None, best.phase_name,
-                                                                  " or ".join(_partners(tables, best.phase_name))))
+            pair_note = _one_crystal_note(None, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
     if pair_note:
         notes.append(pair_note)
     if len(sols) >= 2:
@@ -445,16 +410,15 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
         same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0
         if same_orientation and pair[0] == sols[1].phase_name:
-            frac, n_s, n_f = ordered_fraction(sols[1], tables.table(pair[1]))
-            if frac is not None and frac >= ORDERED_FRACTION_MIN:
-                # one ordered crystal: it explains every spot the disordered one does, and its superlattice
-                # spots are as strong as full order gives
-                notes.append(f"one ordered crystal: {pair[0]} explains the fundamental spots that {pair[1]} explains "
-                             f"and the superlattice spots, which are {frac:.2f} x as strong as a fully ordered crystal "
-                             f"gives ({n_s} superlattice, {n_f} fundamental spots); not reported as {pair[0]} in a "
-                             f"{pair[1]} matrix. " + _order_ambiguity(frac, pair[0], " or ".join(_partners(tables, pair[0]))))
+            ev = _evidence(measured, tables, sols[1], tables.table(pair[1]))
+            if ev is None or not ev.decisively_weak:
+                # one ordered crystal explains every spot the disordered one does: the superlattice spots
+                # are not decisively weaker than one ordered crystal gives
+                notes.append(_one_crystal_note(ev, pair[0], pair[1]))
                 sols, roles = [sols[1]], ["best"]
                 cross = []
+            else:
+                notes.append(_two_crystals_note(ev, pair[0], pair[1]))
     rels = []
     for k in range(1, len(sols)):
         p0 = tables.table(sols[0].phase_name).phase
@@ -517,22 +481,49 @@ def _partners(tables, ordered: str) -> list[str]:
     return out
 
 
-def _order_ambiguity(frac: float | None, ordered: str, disordered: str) -> str:
-    """The two readings of an ordered pattern whose superlattice spots are weaker than full order gives.
+_DYNAMICAL = ("Intensity ratios are kinematic estimates: dynamical scattering makes them unreliable in thick "
+              "areas (a thin area, or several zones, are safer).")
+
+
+def _measured_ratio(ev: OrderEvidence) -> str:
+    return (f"the superlattice spots are {ev.ratio:.2f} x as strong, relative to the fundamental spots, as one fully "
+            f"ordered crystal gives ({ev.lower_ratio:.2f}-{ev.upper_ratio:.2f} x within {DECISIVE_Z:g} standard "
+            f"uncertainties from the scatter of {ev.n_superlattice} superlattice and {ev.n_fundamental} fundamental "
+            "spots)")
+
+
+def _two_crystals_note(ev: OrderEvidence, ordered: str, disordered: str) -> str:
+    """The note of a matrix with ordered precipitates (fundamental spots decisively too strong)."""
+    share = 100 * min(ev.ratio, 1.0)
+    return (f"{ordered} precipitates in a {disordered} matrix of the same orientation (cube-on-cube): "
+            f"{_measured_ratio(ev)}, so the fundamental spots are too strong for one ordered crystal; the "
+            f"superlattice spots belong to the precipitates (about {share:.0f} % of the area). Caution: a partly "
+            f"ordered {ordered} crystal (order parameter about {math.sqrt(min(ev.ratio, 1.0)):.2f}) gives the same "
+            "intensities; a dark-field image in a superlattice spot decides (particles lit, or the whole area). "
+            + _DYNAMICAL)
+
+
+def _one_crystal_note(ev: OrderEvidence | None, ordered: str, disordered: str) -> str:
+    """Both readings of an ordered pattern whose intensities do not decide (or cannot be compared).
 
     Kinematically the superlattice/fundamental intensity ratio is S^2 x that of full order for one
-    crystal with long-range order parameter S, and f x that of full order for fully ordered
+    crystal with long-range order parameter S, and about f x that of full order for fully ordered
     precipitates filling an area share f of a matrix of the same orientation (they share every
-    fundamental spot). One pattern cannot tell the two apart.
+    fundamental spot).
     """
-    if frac is not None and frac >= 0.95:
-        return ("A dark-field image in a superlattice spot would show precipitates if there were any.")
-    amounts = ("" if frac is None else f" (order parameter about {math.sqrt(max(frac, 0.0)):.2f})",
-               "" if frac is None else f" filling about {100 * min(frac, 1.0):.0f} % of the area")
-    return (f"Caution: the same pattern fits a partly ordered {ordered} crystal{amounts[0]} and fully ordered "
-            f"{ordered} precipitates{amounts[1]} in a {disordered} matrix of the same orientation; they share "
-            "every fundamental spot, so this pattern cannot decide: a dark-field image in a superlattice spot "
-            "decides (particles lit, or the whole area)")
+    if ev is None:
+        head = (f"one ordered {ordered} crystal, or {ordered} precipitates in a {disordered} matrix of the same "
+                "orientation: too few superlattice and fundamental spots to compare their intensities with one "
+                "ordered crystal's")
+    else:
+        low = min(ev.lower_ratio, 1.0)
+        head = (f"one ordered {ordered} crystal, or {ordered} precipitates in a {disordered} matrix of the same "
+                f"orientation: {_measured_ratio(ev)}; this fits one fully ordered crystal as well as a partly ordered "
+                f"one (order parameter down to about {math.sqrt(low):.2f}) or precipitates filling down to about "
+                f"{100 * low:.0f} % of the area")
+    return (head + "; they share every fundamental spot, so this pattern cannot decide: a dark-field image in a "
+            "superlattice spot decides (particles lit, or the whole area). Listed as one ordered crystal. "
+            + _DYNAMICAL)
 
 
 def _misorientation_deg(a: Solution, b: Solution, tables) -> float:
