@@ -46,8 +46,8 @@ from saed.index.ordering import DECISIVE_Z, OrderEvidence, order_evidence
 from saed.index.score import score_candidate
 from saed.index.values import Solution
 
-__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "find_crystals", "MIN_OWN_SPOTS",
-           "MIN_RESIDUAL_SHARE", "MAX_ABSENT"]
+__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "SharedScale", "find_crystals",
+           "settle_shared_scale", "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT"]
 
 logger = logging.getLogger(__name__)
 
@@ -284,9 +284,9 @@ def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.nd
 
 def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
     """Disordered partners of an ordered crystal: (OrderEvidence, matrix Solution, name) for the best partner,
-    or None."""
+    or None; plus the names of partners that fit nearly as well (within 10 % of its score)."""
     pt_o = tables.table(ordered.phase_name)
-    best = None
+    found = []
     for pi, pt in enumerate(tables.phases):
         pair = ordered_pair(pt_o.phase, pt.phase)
         if pair is None or pair[0] != ordered.phase_name:
@@ -297,11 +297,18 @@ def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol)
         uvw = tuple(int(v) for v in ordered.zone_axis)
         cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(ordered.orientation_matrix),
                          float(ordered.scale_inv_nm_per_px), 1.0)
-        sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=float(ordered.scale_inv_nm_per_px),
+        # the matrix's cell size against the stated calibration (the ordered phase's refined scale would favour
+        # the partner nearest in size to the ordered cell, not the one the fundamental spots show)
+        stated = measured.calibration.scale_inv_nm_per_px if measured.calibration is not None else None
+        sol, _ = score_candidate(cand, tables, spots, measured,
+                                 calibrated_scale=float(stated or ordered.scale_inv_nm_per_px),
                                  length_tol=SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
-        if best is None or sol.score > best[1].score:
-            best = (ev, sol, pt.phase.name)
-    return best
+        found.append((ev, sol, pt.phase.name))
+    if not found:
+        return None
+    found.sort(key=lambda t: -t[1].score)
+    rivals = tuple(t[2] for t in found[1:] if t[1].score >= 0.9 * found[0][1].score)
+    return found[0] + (rivals,)
 
 
 def _evidence(measured, tables, ordered: Solution, disordered_table):
@@ -377,12 +384,15 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     if len(sols) == 1:
         m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol)
         if m is not None:
-            ev, msol, mname = m
+            ev, msol, mname, rivals = m
             if ev.decisively_weak and max_crystals >= 2:
                 sols.append(msol)
                 roles[0] = "ordered precipitate"
                 roles.append("matrix")
                 pair_note = _two_crystals_note(ev, best.phase_name, mname)
+                if rivals:
+                    pair_note += (f" The matrix could also be {' or '.join(rivals)}: the fundamental spots fit "
+                                  "these cells nearly as well at the stated calibration.")
             else:
                 pair_note = _one_crystal_note(ev, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
         elif _partners(tables, best.phase_name):
@@ -553,3 +563,147 @@ def _zone(sol: Solution) -> str:
     from saed.crystal.miller import format_indices
 
     return format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)
+
+
+#: Crystal 1's refined scale this far (percent) from the stated calibration, or a further crystal's
+#: this far from crystal 1's, and the other readings of crystal 1 are tried with their further crystals.
+JOINT_TRIGGER_PCT = 0.5
+#: A reading of crystal 1 replaces the first-ranked one when its crystals agree on one scale this much
+#: (percentage points) better, or find more crystals whose scales agree within :data:`SCALE_AGREE_PCT`
+#: (each crystal's scale from its own spots, those no other crystal explains).
+JOINT_GAIN_PCT = 0.4
+SCALE_AGREE_PCT = 0.5
+#: ... and its own score without the calibration term is at least this share of the first-ranked reading's.
+JOINT_MIN_SCORE_SHARE = 0.75
+#: ... and the scale all crystals then share lies within this multiple of the calibration tolerance of
+#: the stated calibration (the one scale is then reported with its offset).
+JOINT_MAX_OFF = 1.25
+
+
+@dataclass(frozen=True)
+class SharedScale:
+    """Crystal 1 read again so that all crystals share one calibration (see :func:`settle_shared_scale`)."""
+
+    first: Solution
+    multi: MultiCrystalResult
+    scale_inv_nm_per_px: float
+    note: str
+
+
+def _own_scale(c: Crystal, spots: SpotSet) -> float | None:
+    """The scale (1/nm per px) a crystal's own spots (those no other crystal explains) imply: median of
+    (1/d_calc) / r over them; None with fewer than three."""
+    own = set(c.own_spots)
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in c.solution.indexed
+         if s.spot_index in own and s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
+    return float(np.median(r)) if len(r) >= 3 else None
+
+
+def _scale_spread_pct(multi: MultiCrystalResult, spots: SpotSet) -> float:
+    """Largest disagreement (percent) between the scales crystal 1's own spots and a further crystal's own
+    spots imply (each crystal's refined scale where it owns fewer than three spots)."""
+    def scale(c):
+        return _own_scale(c, spots) or float(c.solution.scale_inv_nm_per_px)
+
+    s1 = scale(multi.crystals[0])
+    return max((100.0 * abs(scale(c) / s1 - 1.0) for c in multi.crystals[1:]), default=0.0)
+
+
+def _joint_scale(multi: MultiCrystalResult, spots: SpotSet) -> float:
+    """One scale for all crystals: the median of (1/d_calc) / r over every spot a crystal explains as allowed."""
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for c in multi.crystals for s in c.solution.indexed
+         if s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
+    return float(np.median(r)) if r else float(multi.crystals[0].solution.scale_inv_nm_per_px)
+
+
+def _no_scale_score(sol: Solution) -> float:
+    """The score without its calibration term (the term the shared scale is to settle)."""
+    return float(sol.score) / max(float(sol.term("scale") or 1.0), 1e-9)
+
+
+def _other_readings(measured, tables, spots, first: Solution, *, stated_scale: float, length_tol: float,
+                    rel_pos_tol: float, pitch) -> list[Solution]:
+    """Crystal 1 in the same orientation as another candidate phase of the same crystal system whose cell
+    lies within the calibration's tolerance (the look-alikes a calibration a few per cent off confuses)."""
+    p1 = tables.table(first.phase_name).phase
+    out = []
+    for pi, pt in enumerate(tables.phases):
+        ph = pt.phase
+        if ph.name == first.phase_name or ph.lattice.crystal_system != p1.lattice.crystal_system:
+            continue
+        if ph.lattice.crystal_system != "cubic":
+            continue  # one orientation matrix carries over only between cubic cells
+        f = ph.lattice.a_nm / p1.lattice.a_nm
+        if abs(f - 1.0) > length_tol:
+            continue
+        uvw = tuple(int(v) for v in first.zone_axis)
+        cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(first.orientation_matrix),
+                         float(first.scale_inv_nm_per_px) / f, 1.0)
+        # its scale free: the calibration is what the further crystals are to settle (checked by the caller)
+        sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=None, length_tol=length_tol,
+                                 rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        if _no_scale_score(sol) >= JOINT_MIN_SCORE_SHARE * _no_scale_score(first):
+            out.append(sol)
+    return out
+
+
+def settle_shared_scale(measured, tables, spots: SpotSet, first: Solution, multi: MultiCrystalResult, *,
+                        stated_scale: float | None, length_tol: float, max_crystals: int, **options) -> SharedScale | None:
+    """Both crystals share one calibration: let the further crystals settle crystal 1's cell-size look-alikes.
+
+    With a stated calibration a few per cent off, crystal 1 can be read as a phase of the same structure
+    and a cell 1-2 % different (Ni for Fe-fcc, Ni3Al for Co-fcc). Each further crystal is indexed at
+    crystal 1's refined scale and refines its own; the two must agree, since one camera constant made
+    the whole pattern. When crystal 1's scale is :data:`JOINT_TRIGGER_PCT` or more from the stated
+    calibration, or a further crystal's from crystal 1's, the other cubic readings of crystal 1 in the
+    same orientation (cell within the calibration tolerance) are tried with their own further crystals.
+    One replaces the first-ranked reading when it finds at least as many crystals whose scales agree
+    :data:`JOINT_GAIN_PCT` better (or more crystals, agreeing within :data:`SCALE_AGREE_PCT`), and its own
+    score without the calibration term is at least :data:`JOINT_MIN_SCORE_SHARE` of the first's. Returns
+    None when nothing changes.
+    """
+    if stated_scale is None or max_crystals < 2:
+        return None
+    own_err = abs(first.scale_error_pct) if first.scale_error_pct is not None else 0.0
+    spread = _scale_spread_pct(multi, spots)
+    residual = np.count_nonzero(~_explained_mask(first, spots))
+    if own_err < JOINT_TRIGGER_PCT and spread < JOINT_TRIGGER_PCT:
+        return None
+    if len(multi.crystals) < 2 and residual < MIN_OWN_SPOTS:
+        return None
+    rel_pos_tol = options.get("rel_pos_tol", 0.008)
+    best = None
+    for alt in _other_readings(measured, tables, spots, first, stated_scale=stated_scale, length_tol=length_tol,
+                               rel_pos_tol=rel_pos_tol, pitch=options.get("pitch")):
+        off = abs(alt.scale_inv_nm_per_px / stated_scale - 1.0)
+        if off > JOINT_MAX_OFF * length_tol:
+            continue
+        m = find_crystals(measured, tables, spots, alt, max_crystals=max_crystals, **options)
+        n, s = len(m.crystals), _scale_spread_pct(m, spots)
+        if n < 2 or s > SCALE_AGREE_PCT:
+            continue
+        better = n > len(multi.crystals) or (n == len(multi.crystals) and s <= spread - JOINT_GAIN_PCT)
+        # among readings that pass: more crystals, then one in a standard relationship (two crystals on zone
+        # axes at once are rarely unrelated), then the closer agreement of the scales
+        key = (n, any(r.name != "none" for r in m.relationships), -s)
+        if better and (best is None or key > best[0]):
+            best = (key, alt, m)
+    if best is None:
+        return None
+    _, alt, m = best
+    joint = _joint_scale(m, spots)
+    off = 100.0 * (joint / stated_scale - 1.0)
+    was = (f"{len(multi.crystals)} crystals whose scales differ by {spread:.1f} %" if len(multi.crystals) > 1
+           else "no further crystal at its scale")
+    note = (f"crystal 1 read as {alt.phase_name} [{_zone(alt)}], not {first.phase_name} [{_zone(first)}]: all crystals "
+            f"share one calibration, and with {alt.phase_name} the {len(m.crystals)} crystals fit one scale within "
+            f"{_scale_spread_pct(m, spots):.1f} % ({joint:.5g} 1/nm per px, {off:+.1f} % off the stated calibration), while "
+            f"{first.phase_name} leaves {was}; the two cells differ by "
+            f"{100 * abs(tables.table(alt.phase_name).phase.lattice.a_nm / tables.table(first.phase_name).phase.lattice.a_nm - 1):.1f} %, "
+            "so check the camera length (a calibration standard decides)")
+    from dataclasses import replace
+
+    first_c = replace(m.crystals[0], solution=replace(m.crystals[0].solution,
+                                                       scale_error_pct=100.0 * (alt.scale_inv_nm_per_px / stated_scale - 1.0)))
+    return SharedScale(first_c.solution, MultiCrystalResult((first_c,) + m.crystals[1:], m.relationships, m.cross_double_diffraction,
+                                                                  (note,) + m.notes), joint, note)
