@@ -163,10 +163,28 @@ def _same_crystal(sol: Solution, others: list[Solution], tables) -> bool:
 
 def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution], *, scale: float,
             angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
-    """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share) or None."""
+    """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share of the residual
+    weight, merit, absent share, tied rivals, chosen by relationship) or None."""
     # seeds from residual spots beyond 2 1/nm: nearer ones are mostly double diffraction across the
     # crystals (g1 + g2 of nearly opposite reflections) or debris, and would pair into wrong seeds
     seedable = residual[spots.r_px[residual] * scale >= MIN_SEED_G_INV_NM]
+    args = (measured, tables, spots, residual, crystals)
+    opts = dict(scale=scale, angle_tol=angle_tol, ratio_tol=ratio_tol, rel_pos_tol=rel_pos_tol, pitch=pitch,
+                max_zone_index=max_zone_index)
+    found = _search_from(seedable, *args, **opts)
+    if found is None or found[2] < MIN_RESIDUAL_SHARE or len(found[1]) < MIN_OWN_SPOTS:
+        # nothing convincing: seed again without the spots that look like double diffraction across the crystals
+        fewer = _without_likely_cross_dd(spots, seedable, crystals, rel_pos_tol)
+        if len(fewer) < len(seedable):
+            again = _search_from(fewer, *args, **opts)
+            if again is not None and (found is None or again[3] > found[3]):
+                found = again
+    return found
+
+
+def _search_from(seedable: np.ndarray, measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution],
+                 *, scale: float, angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
+    """:func:`_search` with the residual spots `seedable` as seeds."""
     if len(seedable) < 2:
         return None
     opts = dict(scale_inv_nm_per_px=scale, length_tol=SCALE_TOL, ratio_tol=ratio_tol, angle_tol_deg=angle_tol,
@@ -217,6 +235,28 @@ def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: li
         by_relationship = best is not tied[0]
     rivals = [(t[0].phase_name, f"[{_zone(t[0])}]", t[0].scale_error_pct) for t in tied if t is not best]
     return best + (tuple(rivals), by_relationship)
+
+
+def _without_likely_cross_dd(spots: SpotSet, seedable: np.ndarray, crystals: list[Solution],
+                             rel_pos_tol: float) -> np.ndarray:
+    """`seedable` without the spots that lie at g_a + g_j, g_a a spot an earlier crystal explains as allowed
+    and g_j a brighter residual spot: double diffraction across the crystals, which seeds wrong pairs
+    (a weak fcc [111] beside bcc [011]: the cross spots lie nearer the centre than the fcc {220} and are
+    taken first). Kept whole when fewer than three spots would remain."""
+    first = np.array([s.spot_index for c in crystals for s in c.indexed if s.kind == "allowed"], int)
+    if len(first) == 0 or len(seedable) < 4:
+        return seedable
+    va = spots.v_px[first]
+    keep = []
+    for i in seedable:
+        tol = 3.0 * math.sqrt(float(spots.sigma_px[i]) ** 2 + (rel_pos_tol * float(spots.r_px[i])) ** 2 + 0.25)
+        brighter = [j for j in seedable if j != i and spots.intensity[j] > spots.intensity[i]]
+        if brighter:
+            d = np.linalg.norm(va[:, None, :] + spots.v_px[brighter][None, :, :] - spots.v_px[i][None, None, :], axis=2)
+            if float(d.min()) <= tol:
+                continue
+        keep.append(int(i))
+    return np.array(keep, int) if len(keep) >= 3 else seedable
 
 
 def _tie(alt, best) -> bool:
