@@ -278,6 +278,15 @@ def test_summary_report_and_overlay_name_the_relationship(co_tables, tmp_path):
     text = format_summary(r, image="twin.tif")
     assert "crystals in the pattern: 2" in text and "relationship 1-2: Sigma-3 twin on (" in text
     assert "Relationship 1&ndash;2: Sigma-3 twin" in crystals_html(r)
+    # the answer names both crystals and rates crystal 1 on the spots the twin leaves to it (not 'weak')
+    (answer,) = [ln for ln in text.splitlines() if ln.startswith("answer: ")]
+    assert "+ Co-fcc [" in answer and "(2 crystals, Sigma-3 twin)" in answer and "weak" not in answer
+    # the twin plane and the parallel planes of the crystals block with overbars where the medium draws them
+    # ({111} planes holding the [1-10] beam have a negative index)
+    uni = format_summary(r, image="twin.tif", style="unicode")
+    (rel_line,) = [ln for ln in uni.splitlines() if ln.startswith("  relationship 1-2")]
+    assert "\u0305" in rel_line and not any(f"({a}-" in rel_line for a in "01")
+    assert '<span class="ob">1</span>' in crystals_html(r)
     doc = json.loads(json.dumps(result_json(r, image="twin.tif")))
     assert [c["phase"] for c in doc["crystals"]] == ["Co-fcc", "Co-fcc"]
     (rel,) = doc["orientation_relationships"]
