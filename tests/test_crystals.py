@@ -363,3 +363,23 @@ def test_a_tie_between_phases_of_the_second_crystal_is_reported_as_a_tie():
     (tie,) = [n for n in r.notes if n.startswith("crystal 2 could also be")]
     assert "Co-hcp" in tie and "not decided" in tie
     assert {"Fe-fcc", "Ni"} - {r.crystals[1].phase_name} <= set(tie.split(":")[0].replace(",", " ").split())
+
+
+def test_a_third_crystal_with_max_crystals_3(fe_tables):
+    """bcc [001], fcc [001] turned 45 deg about the common [001] (Bain: Bain, Trans. AIME 70, 1924, 25) and
+    an unrelated fcc [011], all built here: --max-crystals 3 finds all three; with 2 the third crystal's
+    spots are said to be left over, never passed off as explained."""
+    u1 = beam_along([0, 0, 1], [1, 0, 0], 10.0)
+    u2 = beam_along([0, 0, 1], [1, 0, 0], 55.0)
+    u3 = beam_along([0, 1, 1], [1, 0, 0], 77.0)
+    m = measured(spots_of(0.28665, "bcc", u1, share=0.5), spots_of(0.359, "fcc", u2, share=0.3),
+                 spots_of(0.359, "fcc", u3, share=0.3))
+    r3 = index_pattern(m, fe_tables, max_crystals=3)
+    got = sorted((c.phase_name, tuple(sorted(map(abs, c.solution.zone_axis)))) for c in r3.crystals)
+    assert got == [("Fe-bcc", (0, 0, 1)), ("Fe-fcc", (0, 0, 1)), ("Fe-fcc", (0, 1, 1))]
+    assert [c.role for c in r3.crystals] == ["best", "second", "third"]
+    bain = [r for r in r3.orientation_relationships if r.name == "Bain"]
+    assert len(bain) == 1 and r3.crystals[bain[0].crystals[1]].solution.zone_axis in ((0, 0, 1), (0, 0, -1))
+    r2 = index_pattern(m, fe_tables, max_crystals=2)
+    assert len(r2.crystals) == 2
+    assert any("explained by none of the 2 crystals" in n and "--max-crystals 3" in n for n in r2.notes)

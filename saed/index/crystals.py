@@ -419,6 +419,11 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         for d in dd:
             explained[d.spot_index] = True
         cross.extend(dd)
+    left = np.flatnonzero(~explained)
+    left_share = float(spots.weight[left].sum())
+    if 1 < len(sols) == max_crystals and len(left) >= MIN_OWN_SPOTS and left_share >= 0.1:
+        notes.append(f"{len(left)} spots ({100 * left_share:.0f} % of the spot intensity) are explained by none of the "
+                     f"{len(sols)} crystals" + (": --max-crystals 3 looks for a third crystal" if max_crystals < 3 else ""))
     # ordered precipitate / disordered matrix in one orientation
     pair_note = ""
     if len(sols) == 1:
