@@ -324,7 +324,14 @@ def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.nd
 
 def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
     """Disordered partners of an ordered crystal: (OrderEvidence, matrix Solution, name) for the best partner,
-    or None; plus the names of partners that fit nearly as well (within 10 % of its score)."""
+    or None; plus the names of partners that fit nearly as well.
+
+    Both crystals share one calibration: the ordered crystal's superlattice spots (its own) fix the scale,
+    and the matrix is the partner whose cell puts the fundamental spots at that scale (a matrix and its
+    precipitates differ in cell size by a fraction of a per cent to a few per cent, and the fundamental
+    spots are their blend). Without two superlattice spots, the partner that fits best at the stated
+    calibration.
+    """
     pt_o = tables.table(ordered.phase_name)
     found = []
     for pi, pt in enumerate(tables.phases):
@@ -335,20 +342,49 @@ def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol)
         if ev is None:
             continue
         uvw = tuple(int(v) for v in ordered.zone_axis)
+        f = pt.phase.lattice.a_nm / pt_o.phase.lattice.a_nm
         cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(ordered.orientation_matrix),
-                         float(ordered.scale_inv_nm_per_px), 1.0)
-        # the matrix's cell size against the stated calibration (the ordered phase's refined scale would favour
-        # the partner nearest in size to the ordered cell, not the one the fundamental spots show)
+                         float(ordered.scale_inv_nm_per_px) / f, 1.0)
         stated = measured.calibration.scale_inv_nm_per_px if measured.calibration is not None else None
         sol, _ = score_candidate(cand, tables, spots, measured,
                                  calibrated_scale=float(stated or ordered.scale_inv_nm_per_px),
-                                 length_tol=SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
-        found.append((ev, sol, pt.phase.name))
+                                 length_tol=MATRIX_SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        found.append((ev, sol, pt.phase.name, _scale_gap(ordered, sol, pt, spots)))
     if not found:
         return None
-    found.sort(key=lambda t: -t[1].score)
-    rivals = tuple(t[2] for t in found[1:] if t[1].score >= 0.9 * found[0][1].score)
-    return found[0] + (rivals,)
+    if all(t[3] is not None for t in found):
+        found.sort(key=lambda t: t[3])
+        rivals = tuple(t[2] for t in found[1:] if t[3] <= found[0][3] + MATRIX_SCALE_MARGIN)
+    else:
+        found.sort(key=lambda t: -t[1].score)
+        rivals = tuple(t[2] for t in found[1:] if t[1].score >= 0.9 * found[0][1].score)
+    return found[0][:3] + (rivals,)
+
+
+#: Scale tolerance when a disordered matrix is scored beside its ordered precipitate (the calibration a
+#: few per cent off, as for crystal 1).
+MATRIX_SCALE_TOL = 0.03
+#: Matrix readings whose fundamental-spot scale lies within this (fraction) of the best one's are named
+#: as possible matrices too.
+MATRIX_SCALE_MARGIN = 0.004
+
+
+def _implied_scale(sol: Solution, spots: SpotSet, keep) -> float | None:
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in sol.indexed
+         if s.kind == "allowed" and s.d_nm_calc and s.hkl is not None and spots.r_px[s.spot_index] > 0 and keep(s)]
+    return float(np.median(r)) if len(r) >= 2 else None
+
+
+def _scale_gap(ordered: Solution, matrix: Solution, matrix_table, spots: SpotSet) -> float | None:
+    """|s_matrix / s_ordered - 1|: the scale the matrix's (fundamental) spots imply against the one the ordered
+    crystal's superlattice spots imply; None with fewer than two of either."""
+    def superlattice(s):
+        row = matrix_table.rows_of(np.array([s.hkl]))[0]
+        return not (row >= 0 and bool(matrix_table.allowed[row]))
+
+    s_o = _implied_scale(ordered, spots, superlattice)
+    s_m = _implied_scale(matrix, spots, lambda s: True)
+    return None if s_o is None or s_m is None else abs(s_m / s_o - 1.0)
 
 
 def _evidence(measured, tables, ordered: Solution, disordered_table):
@@ -437,7 +473,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                 pair_note = _two_crystals_note(ev, best.phase_name, mname)
                 if rivals:
                     pair_note += (f" The matrix could also be {' or '.join(rivals)}: the fundamental spots fit "
-                                  "these cells nearly as well at the stated calibration.")
+                                  "these cells nearly as well.")
             else:
                 pair_note = _one_crystal_note(ev, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
         elif _partners(tables, best.phase_name):
@@ -637,16 +673,19 @@ class SharedScale:
 
 def _own_scale(c: Crystal, spots: SpotSet) -> float | None:
     """The scale (1/nm per px) a crystal's own spots (those no other crystal explains) imply: median of
-    (1/d_calc) / r over them; None with fewer than three."""
+    (1/d_calc) / r over them; over all the spots it explains as allowed where it owns fewer than two (a
+    disordered matrix under its ordered precipitate); None with fewer than two."""
     own = set(c.own_spots)
-    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in c.solution.indexed
-         if s.spot_index in own and s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
-    return float(np.median(r)) if len(r) >= 3 else None
+    allowed = [s for s in c.solution.indexed if s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
+    mine = [s for s in allowed if s.spot_index in own]
+    use = mine if len(mine) >= 2 else allowed
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in use]
+    return float(np.median(r)) if len(r) >= 2 else None
 
 
 def _scale_spread_pct(multi: MultiCrystalResult, spots: SpotSet) -> float:
     """Largest disagreement (percent) between the scales crystal 1's own spots and a further crystal's own
-    spots imply (each crystal's refined scale where it owns fewer than three spots)."""
+    spots imply (:func:`_own_scale`; the refined scale where that has too few spots)."""
     def scale(c):
         return _own_scale(c, spots) or float(c.solution.scale_inv_nm_per_px)
 
