@@ -383,3 +383,35 @@ def test_a_third_crystal_with_max_crystals_3(fe_tables):
     r2 = index_pattern(m, fe_tables, max_crystals=2)
     assert len(r2.crystals) == 2
     assert any("explained by none of the 2 crystals" in n and "--max-crystals 3" in n for n in r2.notes)
+
+
+def test_the_second_crystal_settles_the_shared_calibration():
+    """Fe-fcc [1-1-2] (a 0.359 nm) with Fe-bcc in Nishiyama-Wassermann orientation, (111) || (011),
+    [-1-12] || [0-11] (Nishiyama, Sci. Rep. Tohoku Univ. 23, 1934, 637; from memory), the rotation built here,
+    and a stated calibration 2 % off: alone, the fcc net fits Ni (a 0.35238 nm, 1.9 % smaller) nearer the
+    stated scale; the bcc crystal's own spots fix the one scale of the pattern, at which the fcc crystal is
+    Fe-fcc. Without the bcc crystal nothing is re-read."""
+    from saed.image.values import MeasuredPattern
+
+    def triad(n, d):
+        n = np.asarray(n, float) / np.linalg.norm(n)
+        d = np.asarray(d, float) / np.linalg.norm(d)
+        return np.stack([n, d, np.cross(n, d)], axis=1)
+
+    nw = triad([0, 1, 1], [0, -1, 1]) @ triad([1, 1, 1], [-1, -1, 2]).T
+    tables = prepare_phases([builtin_phase(n) for n in ("Fe-fcc", "Fe-bcc", "Ni")], max_g_inv_nm=12.0)
+    u1 = beam_along([1, 1, -2], [1, 1, 1], 20.0)
+
+    def off_by(m, f):
+        return MeasuredPattern(image_shape=m.image_shape, center_px=m.center_px, spots=m.spots, basis=None,
+                               calibration=Calibration(SCALE * f, 200.0))
+
+    two = off_by(measured(spots_of(0.359, "fcc", u1, share=0.6), spots_of(0.28665, "bcc", u1 @ nw.T, share=0.4)), 1.02)
+    r = index_pattern(two, tables)
+    assert [(c.phase_name, sorted(map(abs, c.solution.zone_axis))) for c in r.crystals] == [
+        ("Fe-fcc", [1, 1, 2]), ("Fe-bcc", [0, 1, 1])]
+    assert r.orientation_relationships[0].name == "Nishiyama-Wassermann"
+    (note,) = [n for n in r.notes if n.startswith("crystal 1 read as Fe-fcc")]
+    assert "not Ni [" in note and "check the camera length" in note
+    one = index_pattern(off_by(measured(spots_of(0.359, "fcc", u1)), 1.02), tables)
+    assert len(one.crystals) == 1 and not any(n.startswith("crystal 1 read as") for n in one.notes)
