@@ -157,3 +157,58 @@ def test_standard_rotation_maps_planes_onto_planes():
     rot = standard_rotation(std, fcc, bcc)
     assert np.allclose(rot, cubic_or([1, 1, 1], [0, 1, 1], [-1, 0, 1], [-1, -1, 1]), atol=1e-9)
     assert np.allclose(rot @ rot.T, np.eye(3), atol=1e-12)
+
+
+def _cubic_rotations():
+    """The 24 proper rotations of the cube: signed permutation matrices of determinant +1 (built here)."""
+    import itertools
+
+    out = []
+    for perm in itertools.permutations(range(3)):
+        for signs in itertools.product((1, -1), repeat=3):
+            m = np.zeros((3, 3))
+            for row, (col, sg) in enumerate(zip(perm, signs)):
+                m[row, col] = sg
+            if np.linalg.det(m) > 0:
+                out.append(m)
+    return out
+
+
+def _hexagonal_rotations():
+    """The 12 proper rotations of 622 in the hexagonal Cartesian frame (x || a1, z || c): six turns about z
+    and six two-fold axes in the basal plane, 30 deg apart (built here)."""
+    out = [rodrigues([0, 0, 1], 60.0 * k) for k in range(6)]
+    out += [rodrigues([math.cos(math.radians(30.0 * k)), math.sin(math.radians(30.0 * k)), 0], 180.0) for k in range(6)]
+    return out
+
+
+def _variants(rot, sym1, sym2):
+    """Distinct orientations R S (S a symmetry of crystal 1) of crystal 2, up to crystal 2's symmetry."""
+    found = []
+    for s in sym1:
+        v = rot @ s
+        if not any(np.allclose(t @ v, w, atol=1e-6) for w in found for t in sym2):
+            found.append(v)
+    return found
+
+
+def test_variant_counts_enumerated_from_rotations_written_here():
+    """Variant counts from the literature, enumerated here from the hand-built relationships and the point
+    groups above, not from the code's own count: KS 24 (Kitahara, Ueji, Tsuji & Minamino, Acta Mater. 54, 2006,
+    1279), NW 12 (Nolze, Cryst. Res. Technol. 41, 2006, 72), Burgers 12 (Gey & Humbert, Acta Mater. 50, 2002,
+    277), Bain 3 (common practice), Sigma-3 twins 4, one per {111} (common practice); sources from memory.
+    Each KS variant is also named Kurdjumov-Sachs by saed with no deviation."""
+    cub, hexa = _cubic_rotations(), _hexagonal_rotations()
+    assert len(cub) == 24 and len(hexa) == 12
+    ks = cubic_or([1, 1, 1], [0, 1, 1], [-1, 0, 1], [-1, -1, 1])
+    nw = cubic_or([1, 1, 1], [0, 1, 1], [-1, -1, 2], [0, -1, 1])
+    burgers = cubic_or([1, 1, 0], [0, 0, 1], [1, -1, 1], [1, 0, 0])
+    assert len(_variants(ks, cub, cub)) == 24
+    assert len(_variants(nw, cub, cub)) == 12
+    assert len(_variants(burgers, cub, hexa)) == 12
+    assert len(_variants(rodrigues([0, 0, 1], 45.0), cub, cub)) == 3
+    assert len(_variants(rodrigues([1, 1, 1], 60.0), cub, cub)) == 4
+    fcc, bcc = builtin_phase("Fe-fcc"), builtin_phase("Fe-bcc")
+    for v in _variants(ks, cub, cub):
+        r = describe_relationship(fcc, bcc, U1, U1 @ v.T)
+        assert r.name == "Kurdjumov-Sachs" and r.deviation_deg == pytest.approx(0.0, abs=0.01)

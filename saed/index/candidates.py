@@ -132,7 +132,40 @@ def seed_pairs(spots: SpotSet, *, max_seeds: int = 5, max_pairs: int = 8) -> lis
             n_weak = int(not spots.strong[seeds[ai]]) + int(not spots.strong[seeds[bi]])
             pairs.append((n_weak, np.linalg.norm(a) + np.linalg.norm(b), ai, bi, a.copy(), b.copy()))
     pairs.sort(key=lambda t: (t[0], t[1], t[2], t[3]))  # strong pairs first, then the shortest
-    return [(a, b) for _, _, _, _, a, b in pairs[:max_pairs]]
+    out = pairs[:max_pairs]
+    chosen = {(seeds[ai], seeds[bi]) for _, _, ai, bi, _, _ in out}
+    # the brightest rows always seed too: bright double-diffraction spots of a second crystal, nearer the
+    # centre than the first crystal's own rows, would otherwise take every seed (bcc [011] beside fcc [111])
+    bright = _distinct_rows(spots, [i for i in np.argsort(-spots.intensity, kind="stable") if spots.r_px[i] > 3.0],
+                            BRIGHT_SEEDS)
+    extra = []
+    for ai in range(len(bright)):
+        for bi in range(ai + 1, len(bright)):
+            i, j = sorted((bright[ai], bright[bi]), key=lambda k: spots.r_px[k])
+            if (i, j) in chosen or (j, i) in chosen:
+                continue
+            a, b = spots.v_seed_px[i], spots.v_seed_px[j]
+            if abs(a[0] * b[1] - a[1] * b[0]) / (np.linalg.norm(a) * np.linalg.norm(b)) >= math.sin(math.radians(12.0)):
+                extra.append((0, 0.0, 0, 0, a.copy(), b.copy()))
+    return [(a, b) for _, _, _, _, a, b in out + extra]
+
+
+#: The brightest spots of this many distinct rows always form seed pairs among themselves.
+BRIGHT_SEEDS = 3
+
+
+def _distinct_rows(spots: SpotSet, order, n: int) -> list[int]:
+    """The first `n` spots of `order` in distinct rows (Friedel mates and repeats of one direction dropped)."""
+    out: list[int] = []
+    for i in order:
+        vi = spots.v_seed_px[i]
+        if any(abs(float(vi @ spots.v_seed_px[j])) / (np.linalg.norm(vi) * np.linalg.norm(spots.v_seed_px[j]))
+               > math.cos(math.radians(4.0)) for j in out):
+            continue
+        out.append(int(i))
+        if len(out) >= n:
+            break
+    return out
 
 
 def _range(sorted_vals: np.ndarray, lo: float, hi: float) -> tuple[int, int]:

@@ -20,12 +20,15 @@ How saed decides (docs/indexing.md, "Two crystals in one pattern"):
 * Spots at g1 + g2 (a reflection of one crystal plus one of the other) are double diffraction
   across the crystals: they are recorded as such and never seed a further crystal.
 * Ordered and disordered forms of one cell in one orientation (L1_2 Ni3Al on fcc Ni, B2 on bcc):
-  the pattern is one ordered crystal unless the fundamental spots are much stronger than a fully
-  ordered crystal makes them (:func:`ordered_fraction` below :data:`ORDERED_FRACTION_MIN`); then the
-  disordered matrix is reported as a second crystal sharing the fundamental spots, with the
-  ordered precipitate in its orientation owning the superlattice spots, and a caution (partial
-  long-range order and dynamical scattering weaken superlattice spots too; a dark-field image in a
-  superlattice reflection decides).
+  the pattern is one ordered crystal unless the fundamental spots are decisively stronger than one
+  fully ordered crystal makes them (:func:`saed.index.ordering.order_evidence`: the measured
+  superlattice/fundamental ratio against the kinematic one, with the measured scatter as its
+  uncertainty); then the disordered matrix is reported as a second crystal sharing the fundamental
+  spots, with the ordered precipitate in its orientation owning the superlattice spots. Where the
+  intensities do not decide, one ordered crystal is listed and a note names both readings. Either
+  way a caution: partial long-range order weakens superlattice spots in the same way, dynamical
+  scattering makes intensity ratios unreliable in thick areas, and a dark-field image in a
+  superlattice spot decides.
 """
 
 from __future__ import annotations
@@ -39,11 +42,12 @@ import numpy as np
 from saed.index.candidates import Candidate, SpotSet, find_candidates
 from saed.index.orientation_relationships import (OrientationRelationship, describe_relationship, ordered_pair,
                                                   proper_rotations_cart, misorientation)
+from saed.index.ordering import DECISIVE_Z, OrderEvidence, order_evidence
 from saed.index.score import score_candidate
 from saed.index.values import Solution
 
-__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "find_crystals", "ordered_fraction",
-           "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT", "ORDERED_FRACTION_MIN"]
+__all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "SharedScale", "find_crystals",
+           "settle_shared_scale", "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT"]
 
 logger = logging.getLogger(__name__)
 
@@ -61,9 +65,6 @@ MAX_ABSENT_MANY = 0.7
 SCALE_TOL = 0.015
 #: Zone axes of further crystals are searched up to this index.
 MAX_SECOND_ZONE_INDEX = 5
-#: Superlattice/fundamental intensity, relative to a fully ordered crystal, below which a
-#: disordered matrix is reported beside the ordered precipitate.
-ORDERED_FRACTION_MIN = 0.45
 #: ... and its own spots must carry at least this share of the measured spot intensity (weaker:
 #: a note, never a crystal).
 MIN_INTENSITY_SHARE = 0.03
@@ -162,10 +163,28 @@ def _same_crystal(sol: Solution, others: list[Solution], tables) -> bool:
 
 def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution], *, scale: float,
             angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
-    """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share) or None."""
+    """The best further-crystal candidate for the residual spots: (Solution, own spot indices, share of the residual
+    weight, merit, absent share, tied rivals, chosen by relationship) or None."""
     # seeds from residual spots beyond 2 1/nm: nearer ones are mostly double diffraction across the
     # crystals (g1 + g2 of nearly opposite reflections) or debris, and would pair into wrong seeds
     seedable = residual[spots.r_px[residual] * scale >= MIN_SEED_G_INV_NM]
+    args = (measured, tables, spots, residual, crystals)
+    opts = dict(scale=scale, angle_tol=angle_tol, ratio_tol=ratio_tol, rel_pos_tol=rel_pos_tol, pitch=pitch,
+                max_zone_index=max_zone_index)
+    found = _search_from(seedable, *args, **opts)
+    if found is None or found[2] < MIN_RESIDUAL_SHARE or len(found[1]) < MIN_OWN_SPOTS:
+        # nothing convincing: seed again without the spots that look like double diffraction across the crystals
+        fewer = _without_likely_cross_dd(spots, seedable, crystals, rel_pos_tol)
+        if len(fewer) < len(seedable):
+            again = _search_from(fewer, *args, **opts)
+            if again is not None and (found is None or again[3] > found[3]):
+                found = again
+    return found
+
+
+def _search_from(seedable: np.ndarray, measured, tables, spots: SpotSet, residual: np.ndarray, crystals: list[Solution],
+                 *, scale: float, angle_tol: float, ratio_tol: float, rel_pos_tol: float, pitch, max_zone_index: int):
+    """:func:`_search` with the residual spots `seedable` as seeds."""
     if len(seedable) < 2:
         return None
     opts = dict(scale_inv_nm_per_px=scale, length_tol=SCALE_TOL, ratio_tol=ratio_tol, angle_tol_deg=angle_tol,
@@ -216,6 +235,28 @@ def _search(measured, tables, spots: SpotSet, residual: np.ndarray, crystals: li
         by_relationship = best is not tied[0]
     rivals = [(t[0].phase_name, f"[{_zone(t[0])}]", t[0].scale_error_pct) for t in tied if t is not best]
     return best + (tuple(rivals), by_relationship)
+
+
+def _without_likely_cross_dd(spots: SpotSet, seedable: np.ndarray, crystals: list[Solution],
+                             rel_pos_tol: float) -> np.ndarray:
+    """`seedable` without the spots that lie at g_a + g_j, g_a a spot an earlier crystal explains as allowed
+    and g_j a brighter residual spot: double diffraction across the crystals, which seeds wrong pairs
+    (a weak fcc [111] beside bcc [011]: the cross spots lie nearer the centre than the fcc {220} and are
+    taken first). Kept whole when fewer than three spots would remain."""
+    first = np.array([s.spot_index for c in crystals for s in c.indexed if s.kind == "allowed"], int)
+    if len(first) == 0 or len(seedable) < 4:
+        return seedable
+    va = spots.v_px[first]
+    keep = []
+    for i in seedable:
+        tol = 3.0 * math.sqrt(float(spots.sigma_px[i]) ** 2 + (rel_pos_tol * float(spots.r_px[i])) ** 2 + 0.25)
+        brighter = [j for j in seedable if j != i and spots.intensity[j] > spots.intensity[i]]
+        if brighter:
+            d = np.linalg.norm(va[:, None, :] + spots.v_px[brighter][None, :, :] - spots.v_px[i][None, None, :], axis=2)
+            if float(d.min()) <= tol:
+                continue
+        keep.append(int(i))
+    return np.array(keep, int) if len(keep) >= 3 else seedable
 
 
 def _tie(alt, best) -> bool:
@@ -281,57 +322,74 @@ def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.nd
     return out
 
 
-def ordered_fraction(ordered: Solution, disordered_table) -> tuple[float | None, int, int]:
-    """Measured superlattice/fundamental intensity relative to a fully ordered crystal (1 = fully ordered).
-
-    The ratio measured / kinematic intensity of the fundamental spots (allowed in the disordered
-    cell too) is fitted as log ratio = a + b g^2 (the fall-off with |g| that excitation errors,
-    absorption and the Debye-Waller factor give), and the superlattice spots are compared with that
-    fit at their own |g|: the median factor. Returns (factor or None when fewer than two
-    superlattice or three fundamental spots, n superlattice, n fundamental).
-    """
-    sup, fun = [], []
-    for s in ordered.indexed:
-        if s.kind != "allowed" or not s.intensity_calc or s.intensity_calc <= 0 or s.hkl is None or not s.d_nm_calc:
-            continue
-        row = disordered_table.rows_of(np.array([s.hkl]))[0]
-        is_fund = row >= 0 and bool(disordered_table.allowed[row])
-        rec = (1.0 / s.d_nm_calc, math.log(max(s.intensity, 1e-12) / s.intensity_calc))
-        (fun if is_fund else sup).append(rec)
-    if len(sup) < 2 or len(fun) < 3:
-        return None, len(sup), len(fun)
-    g_f = np.array([f[0] for f in fun])
-    r_f = np.array([f[1] for f in fun])
-    if np.ptp(g_f) > 0.5:
-        b, a = np.polyfit(g_f ** 2, r_f, 1)
-        b = min(b, 0.0)  # intensities never grow with |g|; a positive slope is noise
-        a = float(np.median(r_f - b * g_f ** 2))
-    else:
-        a, b = float(np.median(r_f)), 0.0
-    g_s = np.array([x[0] for x in sup])
-    r_s = np.array([x[1] for x in sup])
-    return float(math.exp(np.median(r_s - (a + b * g_s ** 2)))), len(sup), len(fun)
-
-
 def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
-    """Disordered partners of an ordered crystal: (fraction, matrix Solution, name) for the best partner, or None."""
+    """Disordered partners of an ordered crystal: (OrderEvidence, matrix Solution, name) for the best partner,
+    or None; plus the names of partners that fit nearly as well.
+
+    Both crystals share one calibration: the ordered crystal's superlattice spots (its own) fix the scale,
+    and the matrix is the partner whose cell puts the fundamental spots at that scale (a matrix and its
+    precipitates differ in cell size by a fraction of a per cent to a few per cent, and the fundamental
+    spots are their blend). Without two superlattice spots, the partner that fits best at the stated
+    calibration.
+    """
     pt_o = tables.table(ordered.phase_name)
-    best = None
+    found = []
     for pi, pt in enumerate(tables.phases):
         pair = ordered_pair(pt_o.phase, pt.phase)
         if pair is None or pair[0] != ordered.phase_name:
             continue
-        frac, n_s, n_f = ordered_fraction(ordered, pt)
-        if frac is None:
+        ev = _evidence(measured, tables, ordered, pt)
+        if ev is None:
             continue
         uvw = tuple(int(v) for v in ordered.zone_axis)
+        f = pt.phase.lattice.a_nm / pt_o.phase.lattice.a_nm
         cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(ordered.orientation_matrix),
-                         float(ordered.scale_inv_nm_per_px), 1.0)
-        sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=float(ordered.scale_inv_nm_per_px),
-                                 length_tol=SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
-        if best is None or sol.score > best[1].score:
-            best = (frac, sol, pt.phase.name, n_s, n_f)
-    return best
+                         float(ordered.scale_inv_nm_per_px) / f, 1.0)
+        stated = measured.calibration.scale_inv_nm_per_px if measured.calibration is not None else None
+        sol, _ = score_candidate(cand, tables, spots, measured,
+                                 calibrated_scale=float(stated or ordered.scale_inv_nm_per_px),
+                                 length_tol=MATRIX_SCALE_TOL, rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        found.append((ev, sol, pt.phase.name, _scale_gap(ordered, sol, pt, spots)))
+    if not found:
+        return None
+    if all(t[3] is not None for t in found):
+        found.sort(key=lambda t: t[3])
+        rivals = tuple(t[2] for t in found[1:] if t[3] <= found[0][3] + MATRIX_SCALE_MARGIN)
+    else:
+        found.sort(key=lambda t: -t[1].score)
+        rivals = tuple(t[2] for t in found[1:] if t[1].score >= 0.9 * found[0][1].score)
+    return found[0][:3] + (rivals,)
+
+
+#: Scale tolerance when a disordered matrix is scored beside its ordered precipitate (the calibration a
+#: few per cent off, as for crystal 1).
+MATRIX_SCALE_TOL = 0.03
+#: Matrix readings whose fundamental-spot scale lies within this (fraction) of the best one's are named
+#: as possible matrices too.
+MATRIX_SCALE_MARGIN = 0.004
+
+
+def _implied_scale(sol: Solution, spots: SpotSet, keep) -> float | None:
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in sol.indexed
+         if s.kind == "allowed" and s.d_nm_calc and s.hkl is not None and spots.r_px[s.spot_index] > 0 and keep(s)]
+    return float(np.median(r)) if len(r) >= 2 else None
+
+
+def _scale_gap(ordered: Solution, matrix: Solution, matrix_table, spots: SpotSet) -> float | None:
+    """|s_matrix / s_ordered - 1|: the scale the matrix's (fundamental) spots imply against the one the ordered
+    crystal's superlattice spots imply; None with fewer than two of either."""
+    def superlattice(s):
+        row = matrix_table.rows_of(np.array([s.hkl]))[0]
+        return not (row >= 0 and bool(matrix_table.allowed[row]))
+
+    s_o = _implied_scale(ordered, spots, superlattice)
+    s_m = _implied_scale(matrix, spots, lambda s: True)
+    return None if s_o is None or s_m is None else abs(s_m / s_o - 1.0)
+
+
+def _evidence(measured, tables, ordered: Solution, disordered_table):
+    voltage = measured.calibration.voltage_kv if measured.calibration is not None else 200.0
+    return order_evidence(ordered, tables.table(ordered.phase_name).phase, disordered_table, voltage_kv=voltage)
 
 
 def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_crystals: int = 2, angle_tol: float = 2.0,
@@ -397,31 +455,29 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         for d in dd:
             explained[d.spot_index] = True
         cross.extend(dd)
+    left = np.flatnonzero(~explained)
+    left_share = float(spots.weight[left].sum())
+    if 1 < len(sols) == max_crystals and len(left) >= MIN_OWN_SPOTS and left_share >= 0.1:
+        notes.append(f"{len(left)} spots ({100 * left_share:.0f} % of the spot intensity) are explained by none of the "
+                     f"{len(sols)} crystals" + (": --max-crystals 3 looks for a third crystal" if max_crystals < 3 else ""))
     # ordered precipitate / disordered matrix in one orientation
     pair_note = ""
     if len(sols) == 1:
         m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol)
         if m is not None:
-            frac, msol, mname, n_s, n_f = m
-            if frac < ORDERED_FRACTION_MIN and max_crystals >= 2:
+            ev, msol, mname, rivals = m
+            if ev.decisively_weak and max_crystals >= 2:
                 sols.append(msol)
                 roles[0] = "ordered precipitate"
                 roles.append("matrix")
-                pair_note = (f"the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, relative to the "
-                             f"fundamental spots, as a fully ordered crystal gives ({n_s} superlattice, {n_f} fundamental "
-                             f"spots): reported as {best.phase_name} precipitates in a {mname} matrix of the same "
-                             "orientation. Caution: partial long-range order and dynamical scattering also weaken "
-                             "superlattice spots; a dark-field image in a superlattice spot decides (particles, or "
-                             "the whole area lit)")
+                pair_note = _two_crystals_note(ev, best.phase_name, mname)
+                if rivals:
+                    pair_note += (f" The matrix could also be {' or '.join(rivals)}: the fundamental spots fit "
+                                  "these cells nearly as well.")
             else:
-                pair_note = (f"one ordered crystal: the superlattice spots of {best.phase_name} are {frac:.2f} x as strong, "
-                             "relative to the fundamental spots, as a fully ordered crystal gives, so no separate "
-                             "disordered matrix is needed. " + _order_ambiguity(frac, best.phase_name,
-                                                                  " or ".join(_partners(tables, best.phase_name))))
+                pair_note = _one_crystal_note(ev, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
         elif _partners(tables, best.phase_name):
-            pair_note = ("one ordered crystal: too few superlattice and fundamental spots to compare their intensities "
-                         "with full order. " + _order_ambiguity(None, best.phase_name,
-                                                                  " or ".join(_partners(tables, best.phase_name))))
+            pair_note = _one_crystal_note(None, best.phase_name, " or ".join(_partners(tables, best.phase_name)))
     if pair_note:
         notes.append(pair_note)
     if len(sols) >= 2:
@@ -445,16 +501,15 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
         same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0
         if same_orientation and pair[0] == sols[1].phase_name:
-            frac, n_s, n_f = ordered_fraction(sols[1], tables.table(pair[1]))
-            if frac is not None and frac >= ORDERED_FRACTION_MIN:
-                # one ordered crystal: it explains every spot the disordered one does, and its superlattice
-                # spots are as strong as full order gives
-                notes.append(f"one ordered crystal: {pair[0]} explains the fundamental spots that {pair[1]} explains "
-                             f"and the superlattice spots, which are {frac:.2f} x as strong as a fully ordered crystal "
-                             f"gives ({n_s} superlattice, {n_f} fundamental spots); not reported as {pair[0]} in a "
-                             f"{pair[1]} matrix. " + _order_ambiguity(frac, pair[0], " or ".join(_partners(tables, pair[0]))))
+            ev = _evidence(measured, tables, sols[1], tables.table(pair[1]))
+            if ev is None or not ev.decisively_weak:
+                # one ordered crystal explains every spot the disordered one does: the superlattice spots
+                # are not decisively weaker than one ordered crystal gives
+                notes.append(_one_crystal_note(ev, pair[0], pair[1]))
                 sols, roles = [sols[1]], ["best"]
                 cross = []
+            else:
+                notes.append(_two_crystals_note(ev, pair[0], pair[1]))
     rels = []
     for k in range(1, len(sols)):
         p0 = tables.table(sols[0].phase_name).phase
@@ -517,22 +572,49 @@ def _partners(tables, ordered: str) -> list[str]:
     return out
 
 
-def _order_ambiguity(frac: float | None, ordered: str, disordered: str) -> str:
-    """The two readings of an ordered pattern whose superlattice spots are weaker than full order gives.
+_DYNAMICAL = ("Intensity ratios are kinematic estimates: dynamical scattering makes them unreliable in thick "
+              "areas (a thin area, or several zones, are safer).")
+
+
+def _measured_ratio(ev: OrderEvidence) -> str:
+    return (f"the superlattice spots are {ev.ratio:.2f} x as strong, relative to the fundamental spots, as one fully "
+            f"ordered crystal gives ({ev.lower_ratio:.2f}-{ev.upper_ratio:.2f} x within {DECISIVE_Z:g} standard "
+            f"uncertainties from the scatter of {ev.n_superlattice} superlattice and {ev.n_fundamental} fundamental "
+            "spots)")
+
+
+def _two_crystals_note(ev: OrderEvidence, ordered: str, disordered: str) -> str:
+    """The note of a matrix with ordered precipitates (fundamental spots decisively too strong)."""
+    share = 100 * min(ev.ratio, 1.0)
+    return (f"{ordered} precipitates in a {disordered} matrix of the same orientation (cube-on-cube): "
+            f"{_measured_ratio(ev)}, so the fundamental spots are too strong for one ordered crystal; the "
+            f"superlattice spots belong to the precipitates (about {share:.0f} % of the area). Caution: a partly "
+            f"ordered {ordered} crystal (order parameter about {math.sqrt(min(ev.ratio, 1.0)):.2f}) gives the same "
+            "intensities; a dark-field image in a superlattice spot decides (particles lit, or the whole area). "
+            + _DYNAMICAL)
+
+
+def _one_crystal_note(ev: OrderEvidence | None, ordered: str, disordered: str) -> str:
+    """Both readings of an ordered pattern whose intensities do not decide (or cannot be compared).
 
     Kinematically the superlattice/fundamental intensity ratio is S^2 x that of full order for one
-    crystal with long-range order parameter S, and f x that of full order for fully ordered
+    crystal with long-range order parameter S, and about f x that of full order for fully ordered
     precipitates filling an area share f of a matrix of the same orientation (they share every
-    fundamental spot). One pattern cannot tell the two apart.
+    fundamental spot).
     """
-    if frac is not None and frac >= 0.95:
-        return ("A dark-field image in a superlattice spot would show precipitates if there were any.")
-    amounts = ("" if frac is None else f" (order parameter about {math.sqrt(max(frac, 0.0)):.2f})",
-               "" if frac is None else f" filling about {100 * min(frac, 1.0):.0f} % of the area")
-    return (f"Caution: the same pattern fits a partly ordered {ordered} crystal{amounts[0]} and fully ordered "
-            f"{ordered} precipitates{amounts[1]} in a {disordered} matrix of the same orientation; they share "
-            "every fundamental spot, so this pattern cannot decide: a dark-field image in a superlattice spot "
-            "decides (particles lit, or the whole area)")
+    if ev is None:
+        head = (f"one ordered {ordered} crystal, or {ordered} precipitates in a {disordered} matrix of the same "
+                "orientation: too few superlattice and fundamental spots to compare their intensities with one "
+                "ordered crystal's")
+    else:
+        low = min(ev.lower_ratio, 1.0)
+        head = (f"one ordered {ordered} crystal, or {ordered} precipitates in a {disordered} matrix of the same "
+                f"orientation: {_measured_ratio(ev)}; this fits one fully ordered crystal as well as a partly ordered "
+                f"one (order parameter down to about {math.sqrt(low):.2f}) or precipitates filling down to about "
+                f"{100 * low:.0f} % of the area")
+    return (head + "; they share every fundamental spot, so this pattern cannot decide: a dark-field image in a "
+            "superlattice spot decides (particles lit, or the whole area). Listed as one ordered crystal. "
+            + _DYNAMICAL)
 
 
 def _misorientation_deg(a: Solution, b: Solution, tables) -> float:
@@ -562,3 +644,150 @@ def _zone(sol: Solution) -> str:
     from saed.crystal.miller import format_indices
 
     return format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)
+
+
+#: Crystal 1's refined scale this far (percent) from the stated calibration, or a further crystal's
+#: this far from crystal 1's, and the other readings of crystal 1 are tried with their further crystals.
+JOINT_TRIGGER_PCT = 0.5
+#: A reading of crystal 1 replaces the first-ranked one when its crystals agree on one scale this much
+#: (percentage points) better, or find more crystals whose scales agree within :data:`SCALE_AGREE_PCT`
+#: (each crystal's scale from its own spots, those no other crystal explains).
+JOINT_GAIN_PCT = 0.4
+SCALE_AGREE_PCT = 0.5
+#: ... and its own score without the calibration term is at least this share of the first-ranked reading's.
+JOINT_MIN_SCORE_SHARE = 0.75
+#: ... and the scale all crystals then share lies within this multiple of the calibration tolerance of
+#: the stated calibration (the one scale is then reported with its offset).
+JOINT_MAX_OFF = 1.25
+
+
+@dataclass(frozen=True)
+class SharedScale:
+    """Crystal 1 read again so that all crystals share one calibration (see :func:`settle_shared_scale`)."""
+
+    first: Solution
+    multi: MultiCrystalResult
+    scale_inv_nm_per_px: float
+    note: str
+
+
+def _own_scale(c: Crystal, spots: SpotSet) -> float | None:
+    """The scale (1/nm per px) a crystal's own spots (those no other crystal explains) imply: median of
+    (1/d_calc) / r over them; over all the spots it explains as allowed where it owns fewer than two (a
+    disordered matrix under its ordered precipitate); None with fewer than two."""
+    own = set(c.own_spots)
+    allowed = [s for s in c.solution.indexed if s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
+    mine = [s for s in allowed if s.spot_index in own]
+    use = mine if len(mine) >= 2 else allowed
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for s in use]
+    return float(np.median(r)) if len(r) >= 2 else None
+
+
+def _scale_spread_pct(multi: MultiCrystalResult, spots: SpotSet) -> float:
+    """Largest disagreement (percent) between the scales crystal 1's own spots and a further crystal's own
+    spots imply (:func:`_own_scale`; the refined scale where that has too few spots)."""
+    def scale(c):
+        return _own_scale(c, spots) or float(c.solution.scale_inv_nm_per_px)
+
+    s1 = scale(multi.crystals[0])
+    return max((100.0 * abs(scale(c) / s1 - 1.0) for c in multi.crystals[1:]), default=0.0)
+
+
+def _joint_scale(multi: MultiCrystalResult, spots: SpotSet) -> float:
+    """One scale for all crystals: the median of (1/d_calc) / r over every spot a crystal explains as allowed."""
+    r = [(1.0 / s.d_nm_calc) / float(spots.r_px[s.spot_index]) for c in multi.crystals for s in c.solution.indexed
+         if s.kind == "allowed" and s.d_nm_calc and spots.r_px[s.spot_index] > 0]
+    return float(np.median(r)) if r else float(multi.crystals[0].solution.scale_inv_nm_per_px)
+
+
+def _no_scale_score(sol: Solution) -> float:
+    """The score without its calibration term (the term the shared scale is to settle)."""
+    return float(sol.score) / max(float(sol.term("scale") or 1.0), 1e-9)
+
+
+def _other_readings(measured, tables, spots, first: Solution, *, stated_scale: float, length_tol: float,
+                    rel_pos_tol: float, pitch) -> list[Solution]:
+    """Crystal 1 in the same orientation as another candidate phase of the same crystal system whose cell
+    lies within the calibration's tolerance (the look-alikes a calibration a few per cent off confuses)."""
+    p1 = tables.table(first.phase_name).phase
+    out = []
+    for pi, pt in enumerate(tables.phases):
+        ph = pt.phase
+        if ph.name == first.phase_name or ph.lattice.crystal_system != p1.lattice.crystal_system:
+            continue
+        if ph.lattice.crystal_system != "cubic":
+            continue  # one orientation matrix carries over only between cubic cells
+        f = ph.lattice.a_nm / p1.lattice.a_nm
+        if abs(f - 1.0) > length_tol:
+            continue
+        uvw = tuple(int(v) for v in first.zone_axis)
+        cand = Candidate(pi, 0, 1, uvw, pt.canonical_zone(uvw), np.asarray(first.orientation_matrix),
+                         float(first.scale_inv_nm_per_px) / f, 1.0)
+        # its scale free: the calibration is what the further crystals are to settle (checked by the caller)
+        sol, _ = score_candidate(cand, tables, spots, measured, calibrated_scale=None, length_tol=length_tol,
+                                 rel_pos_tol=rel_pos_tol, pixel_pitch_um=pitch)
+        if _no_scale_score(sol) >= JOINT_MIN_SCORE_SHARE * _no_scale_score(first):
+            out.append(sol)
+    return out
+
+
+def settle_shared_scale(measured, tables, spots: SpotSet, first: Solution, multi: MultiCrystalResult, *,
+                        stated_scale: float | None, length_tol: float, max_crystals: int, **options) -> SharedScale | None:
+    """Both crystals share one calibration: let the further crystals settle crystal 1's cell-size look-alikes.
+
+    With a stated calibration a few per cent off, crystal 1 can be read as a phase of the same structure
+    and a cell 1-2 % different (Ni for Fe-fcc, Ni3Al for Co-fcc). Each further crystal is indexed at
+    crystal 1's refined scale and refines its own; the two must agree, since one camera constant made
+    the whole pattern. When crystal 1's scale is :data:`JOINT_TRIGGER_PCT` or more from the stated
+    calibration, or a further crystal's from crystal 1's, the other cubic readings of crystal 1 in the
+    same orientation (cell within the calibration tolerance) are tried with their own further crystals.
+    One replaces the first-ranked reading when it finds at least as many crystals whose scales agree
+    :data:`JOINT_GAIN_PCT` better (or more crystals, agreeing within :data:`SCALE_AGREE_PCT`), and its own
+    score without the calibration term is at least :data:`JOINT_MIN_SCORE_SHARE` of the first's. Returns
+    None when nothing changes.
+    """
+    if stated_scale is None or max_crystals < 2:
+        return None
+    own_err = abs(first.scale_error_pct) if first.scale_error_pct is not None else 0.0
+    spread = _scale_spread_pct(multi, spots)
+    residual = np.count_nonzero(~_explained_mask(first, spots))
+    if own_err < JOINT_TRIGGER_PCT and spread < JOINT_TRIGGER_PCT:
+        return None
+    if len(multi.crystals) < 2 and residual < MIN_OWN_SPOTS:
+        return None
+    rel_pos_tol = options.get("rel_pos_tol", 0.008)
+    best = None
+    for alt in _other_readings(measured, tables, spots, first, stated_scale=stated_scale, length_tol=length_tol,
+                               rel_pos_tol=rel_pos_tol, pitch=options.get("pitch")):
+        off = abs(alt.scale_inv_nm_per_px / stated_scale - 1.0)
+        if off > JOINT_MAX_OFF * length_tol:
+            continue
+        m = find_crystals(measured, tables, spots, alt, max_crystals=max_crystals, **options)
+        n, s = len(m.crystals), _scale_spread_pct(m, spots)
+        if n < 2 or s > SCALE_AGREE_PCT:
+            continue
+        better = n > len(multi.crystals) or (n == len(multi.crystals) and s <= spread - JOINT_GAIN_PCT)
+        # among readings that pass: more crystals, then one in a standard relationship (two crystals on zone
+        # axes at once are rarely unrelated), then the closer agreement of the scales
+        key = (n, any(r.name != "none" for r in m.relationships), -s)
+        if better and (best is None or key > best[0]):
+            best = (key, alt, m)
+    if best is None:
+        return None
+    _, alt, m = best
+    joint = _joint_scale(m, spots)
+    off = 100.0 * (joint / stated_scale - 1.0)
+    was = (f"{len(multi.crystals)} crystals whose scales differ by {spread:.1f} %" if len(multi.crystals) > 1
+           else "no further crystal at its scale")
+    note = (f"crystal 1 read as {alt.phase_name} [{_zone(alt)}], not {first.phase_name} [{_zone(first)}]: all crystals "
+            f"share one calibration, and with {alt.phase_name} the {len(m.crystals)} crystals fit one scale within "
+            f"{_scale_spread_pct(m, spots):.1f} % ({joint:.5g} 1/nm per px, {off:+.1f} % off the stated calibration), while "
+            f"{first.phase_name} leaves {was}; the two cells differ by "
+            f"{100 * abs(tables.table(alt.phase_name).phase.lattice.a_nm / tables.table(first.phase_name).phase.lattice.a_nm - 1):.1f} %, "
+            "so check the camera length (a calibration standard decides)")
+    from dataclasses import replace
+
+    first_c = replace(m.crystals[0], solution=replace(m.crystals[0].solution,
+                                                       scale_error_pct=100.0 * (alt.scale_inv_nm_per_px / stated_scale - 1.0)))
+    return SharedScale(first_c.solution, MultiCrystalResult((first_c,) + m.crystals[1:], m.relationships, m.cross_double_diffraction,
+                                                                  (note,) + m.notes), joint, note)

@@ -186,10 +186,19 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         ranked = [with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg) if k < 3 else s
                   for k, s in enumerate(good[:top])]
     ranked = [_with_sense_flag(s, tables) for s in ranked[:top]]
-    from saed.index.crystals import find_crystals
+    from saed.index.crystals import find_crystals, settle_shared_scale
 
-    multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), angle_tol=angle_tol,
-                          ratio_tol=RATIO_TOL, rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
+    crystal_opts = dict(angle_tol=angle_tol, ratio_tol=RATIO_TOL, rel_pos_tol=REL_POS_TOL, pitch=pitch,
+                        max_zone_index=max_zone_index)
+    multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), **crystal_opts)
+    shared = settle_shared_scale(measured, tables, spots, ranked[0], multi, stated_scale=scale if calibrated else None,
+                                 length_tol=length_tol, max_crystals=int(max_crystals), **crystal_opts)
+    if shared is not None:
+        # the further crystals fixed the one calibration of the pattern: crystal 1 is the reading they agree with
+        first = _with_sense_flag(shared.first, tables)
+        ranked = [first] + [s for s in ranked if not (s.phase_name == first.phase_name
+                                                      and tuple(s.zone_axis) == tuple(first.zone_axis))]
+        multi = shared.multi
     return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes) + multi.notes, n_candidates=n_cand,
                        phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
                        cross_double_diffraction=multi.cross_double_diffraction)

@@ -33,6 +33,7 @@ import numpy as np
 from saed.crystal.miller import direction_to_4, plane_to_4
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
+from saed.readonly import frozen_array
 
 __all__ = ["StandardRelationship", "OrientationRelationship", "standard_relationships", "structure_class",
            "proper_rotations_cart", "relationship_rotation", "misorientation", "parallel_pairs",
@@ -125,9 +126,7 @@ def _rotations_cached(space_group: str, a_bytes: bytes) -> np.ndarray:
     a = np.frombuffer(a_bytes).reshape(3, 3)
     laue = laue_rotations(space_group).astype(float)
     proper = laue[np.rint(np.linalg.det(laue)).astype(int) == 1]
-    out = np.einsum("ij,njk,kl->nil", a, proper, np.linalg.inv(a))
-    out.flags.writeable = False
-    return out
+    return frozen_array(np.einsum("ij,njk,kl->nil", a, proper, np.linalg.inv(a)))
 
 
 def proper_rotations_cart(phase) -> np.ndarray:
@@ -204,9 +203,7 @@ def _index_triples(n: int) -> np.ndarray:
     t = np.stack(np.meshgrid(r, r, r, indexing="ij"), axis=-1).reshape(-1, 3)
     t = t[np.any(t != 0, axis=1)]
     t = t[np.gcd.reduce(np.abs(t), axis=1) == 1]
-    out = np.ascontiguousarray(t)
-    out.flags.writeable = False
-    return out
+    return frozen_array(t)
 
 
 def _complexity(idx: np.ndarray, hexagonal: bool, plane: bool) -> np.ndarray:

@@ -14,24 +14,44 @@ import math
 
 import numpy as np
 
-from saed.crystal.miller import format_indices
+from saed.crystal.notation import pad, person_text, zone_text
 
 __all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "draw_further_crystals",
-           "spots_of_further_crystals"]
+           "spots_of_further_crystals", "further_crystals_text", "first_crystal_score"]
 
 #: Colours of crystals 2 and 3 (crystal 1 keeps the overlay's own colours).
 CRYSTAL_COLOURS = ("#ff9f0a", "#ff6ad5")
 CROSS_DD_COLOUR = "#ffd60a"
 
 
-def _zone(sol) -> str:
-    return f"[{format_indices(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis)}]"
+def _zone(sol, style: str = "plain") -> str:
+    """The zone of a solution through the one formatter (4-index on hexagonal axes, overbars per medium)."""
+    return zone_text(sol.zone_axis_4 if sol.zone_axis_4 is not None else sol.zone_axis, False, style)
 
 
-def crystal_label(result, k: int) -> str:
+def crystal_label(result, k: int, style: str = "plain") -> str:
     c = result.crystals[k]
     role = "" if c.role in ("best", "second", "third") else f", {c.role}"
-    return f"crystal {k + 1}: {c.phase_name} {_zone(c.solution)}{role}"
+    return f"crystal {k + 1}: {c.phase_name} {_zone(c.solution, style)}{role}"
+
+
+def first_crystal_score(result) -> float | None:
+    """Crystal 1's score over the spots the further crystals leave to it (None with one crystal: then the
+    best solution's score is the answer's)."""
+    return result.crystals[0].solution.score if len(result.crystals) > 1 else None
+
+
+def further_crystals_text(result, style: str = "plain") -> str:
+    """What the answer line adds for a pattern of several crystals: ' + Co-hcp [2-1-10] (2 crystals,
+    Shoji-Nishiyama)'; '' for one crystal."""
+    if len(result.crystals) < 2:
+        return ""
+    rels = [r.name for r in result.orientation_relationships if r.name != "none"]
+    def name(c):
+        return html.escape(c.phase_name) if style == "html" else c.phase_name
+
+    more = "".join(f" + {name(c)} {_zone(c.solution, style)}" for c in result.crystals[1:])
+    return more + f" ({len(result.crystals)} crystals" + (f", {', '.join(rels)}" if rels else "") + ")"
 
 
 def _lookalike_notes(result) -> list[str]:
@@ -48,26 +68,27 @@ def _lookalike_notes(result) -> list[str]:
     return out
 
 
-def crystals_lines(result) -> list[str]:
-    """Lines for the terminal summary: the crystals, the relationships, the notes of the multi-crystal search."""
+def crystals_lines(result, style: str = "plain") -> list[str]:
+    """Lines for the terminal summary: the crystals, the relationships, the notes of the multi-crystal search
+    (`style` 'unicode' draws overbars, as the rest of the summary)."""
     out: list[str] = []
     if len(result.crystals) > 1:
         out.append("")
         out.append(f"crystals in the pattern: {len(result.crystals)} (each score counts the spots the others leave to it)")
         for k, c in enumerate(result.crystals):
-            out.append(f"  {k + 1}  {c.phase_name:<10} {_zone(c.solution):<12} score {c.solution.score:.2f}  "
+            out.append(f"  {k + 1}  {c.phase_name:<10} {pad(_zone(c.solution, style), 12)} score {c.solution.score:.2f}  "
                        f"{len(c.own_spots)} own spots, {len(c.shared_spots)} shared"
                        + ("" if c.role in ("best", "second", "third") else f"  ({c.role})"))
         for r in result.orientation_relationships:
             a, b = r.crystals
-            out.append(f"  relationship {a + 1}-{b + 1}: {r.text}")
+            out.append(f"  relationship {a + 1}-{b + 1}: {person_text(r.text, style)}")
         if result.cross_double_diffraction:
             out.append(f"  {len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                        "(g1 + g2), not a further crystal")
     notes = list(result.notes) + _lookalike_notes(result)
     if notes:
         out.append("")
-        out += [f"note: {n}" for n in notes]
+        out += [f"note: {person_text(n, style)}" for n in notes]
     return out
 
 
@@ -80,7 +101,7 @@ def crystals_html(result) -> str:
                 "<th>shared</th><th class='l'>role</th></tr>"]
         for k, c in enumerate(result.crystals):
             col = "" if k == 0 else f" style='color:{CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)]}'"
-            rows.append(f"<tr><td{col}>{k + 1}</td><td class='l'>{e(c.phase_name)}</td><td class='l'>{e(_zone(c.solution))}"
+            rows.append(f"<tr><td{col}>{k + 1}</td><td class='l'>{e(c.phase_name)}</td><td class='l'>{_zone(c.solution, 'html')}"
                         f"</td><td>{c.solution.score:.2f}</td><td>{len(c.own_spots)}</td><td>{len(c.shared_spots)}</td>"
                         f"<td class='l'>{e(c.role)}</td></tr>")
         parts.append("<h3 style='font-size:14px;margin:14px 0 2px'>Crystals in the pattern</h3><table>"
@@ -88,13 +109,14 @@ def crystals_html(result) -> str:
         for r in result.orientation_relationships:
             a, b = r.crystals
             parts.append(f"<p style='font-size:13px'><b>Relationship {a + 1}&ndash;{b + 1}: {e(r.name if r.name != 'none' else 'none of the standard ones')}"
-                         f".</b> {e(r.text)}" + (f" <i>Source: {e(r.source)}</i>" if r.source else "") + "</p>")
+                         f".</b> {person_text(r.text, 'html')}" + (f" <i>Source: {e(r.source)}</i>" if r.source else "")
+                         + "</p>")
         if result.cross_double_diffraction:
             parts.append(f"<p style='font-size:13px'>{len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                          "(g<sub>1</sub> + g<sub>2</sub>), not a further crystal.</p>")
     notes = list(result.notes) + _lookalike_notes(result)
     if notes:
-        parts.append("<ul>" + "".join(f"<li>{e(n)}</li>" for n in notes) + "</ul>")
+        parts.append("<ul>" + "".join(f"<li>{person_text(n, 'html')}</li>" for n in notes) + "</ul>")
     return "".join(parts)
 
 
@@ -120,7 +142,7 @@ def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> lis
     legend: list[tuple[str, str]] = []
     if len(result.crystals) < 2:
         return legend
-    legend.append((crystal_label(result, 0) + " (spot colours by kind, cyan squares)", "#64d2ff"))
+    legend.append((crystal_label(result, 0, "mathtext") + " (spot colours by kind, cyan squares)", "#64d2ff"))
     for k, c in enumerate(result.crystals[1:], start=1):
         col = CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)]
         sol = c.solution
@@ -143,7 +165,7 @@ def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> lis
                 ax.annotate(label_text(s), (s.x_px, s.y_px),
                             xytext=(-ux * 15, uy * 15), textcoords="offset points", ha="center", va="center",
                             fontsize=7.5, color=col, bbox=dict(boxstyle="round,pad=0.1", fc=(0, 0, 0, 0.55), ec="none"))
-        legend.append((crystal_label(result, k) + " (squares, rings, labels)", col))
+        legend.append((crystal_label(result, k, "mathtext") + " (squares, rings, labels)", col))
     xs, ys = np.asarray(m.spots.x_px), np.asarray(m.spots.y_px)
     for d in result.cross_double_diffraction:
         ax.plot([xs[d.spot_index]], [ys[d.spot_index]], marker="+", ms=9, mew=1.6, color=CROSS_DD_COLOUR)

@@ -110,10 +110,14 @@ def confidence_word(result: IndexResult) -> str:
         return "none"
     if any(lk.relation == "ambiguous" for lk in best.lookalikes):
         return "ambiguous"
+    from saed.report.crystals_report import first_crystal_score
+
+    # several crystals: crystal 1's score over the spots the others leave to it (the others' spots are not misfits)
+    score = first_crystal_score(result) or best.score
     second = result.solutions[1].score if len(result.solutions) > 1 else 0.0
-    if best.score >= CLEAR_MIN_SCORE and best.score - second >= CLEAR_MIN_LEAD:
+    if score >= CLEAR_MIN_SCORE and score - second >= CLEAR_MIN_LEAD:
         return "clear"
-    if best.score >= LIKELY_MIN_SCORE:
+    if score >= LIKELY_MIN_SCORE:
         return "likely"
     return "weak"
 
@@ -144,7 +148,10 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
     best = result.best
     word = confidence_word(result)
     lines.append("")
-    lines.append(f"answer: {best.phase_name} {zone_text(best, style)}  ({word}, score {best.score:.2f})")
+    from saed.report.crystals_report import first_crystal_score, further_crystals_text
+
+    lines.append(f"answer: {best.phase_name} {zone_text(best, style)}{further_crystals_text(result, style)}  ({word}, "
+                 f"score {first_crystal_score(result) or best.score:.2f})")
     lines.append("")
     header = [("rank", ">"), ("phase", "<"), ("zone", "<"), ("score", ">"), ("spots", ">"), ("d err %", ">"),
               ("angle err deg", ">"), (f"scale {inv}/px", ">")]
@@ -161,7 +168,7 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
     lines += _best_block(best, calibrated=cal is not None and cal.is_calibrated, style=style, units=units)
     from saed.report.crystals_report import crystals_lines
 
-    lines += crystals_lines(result)  # further crystals, their relationship, the result's notes
+    lines += crystals_lines(result, style)  # further crystals, their relationship, the result's notes
     if result.message:
         lines.append(f"note: {person_text(result.message, style)}")
     lines.append("")
