@@ -19,6 +19,7 @@ import httpx
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
+from hypothesis import example as found_example
 from hypothesis import strategies as st
 
 from saed.cli import main
@@ -428,6 +429,7 @@ def test_grain_index_refuses_unknown_and_single_pattern_grains(served):
 
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(name=st.text(min_size=1, max_size=80))
+@found_example(name="0/")  # found by hypothesis: a decoded %2F at the end was redirected (307)
 def test_hostile_grain_names_never_500(served, name):
     _, _, client, _, _ = served
     r = client.post("/api/grain-index/" + urllib.parse.quote(name, safe=""))

@@ -235,6 +235,10 @@ def create_app(service: Service, *, hosts, token: str | None, max_upload_mb: flo
         Route("/files/{kind:str}/{rel:path}", files),
         Mount("/static", StaticFiles(packages=[("saed.serve", "static")]), name="static"),
     ]
-    return Starlette(routes=routes, lifespan=lifespan, exception_handlers={HTTPException: http_error},
-                     middleware=[Middleware(GuardMiddleware, hosts=hosts, token=token,
-                                            max_body_bytes=int(max_upload_mb * 1e6))])
+    app = Starlette(routes=routes, lifespan=lifespan, exception_handlers={HTTPException: http_error},
+                    middleware=[Middleware(GuardMiddleware, hosts=hosts, token=token,
+                                           max_body_bytes=int(max_upload_mb * 1e6))])
+    # A name ending in '/' (a decoded %2F) is not a route: answer 404 in one line rather than a 307
+    # redirect that a script posting to the API would follow blindly.
+    app.router.redirect_slashes = False
+    return app
