@@ -124,6 +124,39 @@ def test_interrupted_run_resumes_to_the_same_rows(client, tmp_path):
     assert {k: r.cells() for k, r in done.items()} == {k: r.cells() for k, r in ref.items()}
 
 
+def _write_hspy(path, data):
+    """A 4-D scan (scan_y, scan_x, rows, cols) in rosettasciio's .hspy format, written with rosettasciio itself."""
+    from rsciio.hspy import file_writer
+
+    names = ("scan_y", "scan_x", "ky", "kx")
+    axes = [dict(name=n, units="nm" if k < 2 else "1/nm", index_in_array=k, size=data.shape[k], offset=0.0,
+                 scale=5.0 if k < 2 else 0.08, navigate=k < 2) for k, n in enumerate(names)]
+    signal = {"data": data, "axes": axes, "metadata": {"General": {"title": "scan"}}, "original_metadata": {},
+              "attributes": {"_lazy": False}, "tmp_parameters": {}, "package_info": {"name": "test", "version": "0"},
+              "learning_results": {}, "models": {}}
+    file_writer(str(path), signal, chunks=(1, 2) + data.shape[2:], show_progressbar=False)
+
+
+def test_a_scan_in_a_microscope_format_is_read_lazily_with_its_scan_shape(client, tmp_path):
+    from saed.batch.stacks import read_frames
+
+    data = _stack(12, seed=7, shape=(32, 40)).astype(np.uint16).reshape(3, 4, 32, 40)
+    _write_hspy(tmp_path / "scan.hspy", data)
+    inputs = discover_inputs([str(tmp_path / "scan.hspy")])
+    (src,) = inputs.sources
+    assert (src.n_frames, src.scan_shape, src.frame_shape, src.stack) == (12, (3, 4), (32, 40), True)
+    got = read_frames(src.path, [5, 6, 7, 11])                 # frames 5-7 are one run along a scan row
+    for k, img in got.items():
+        assert np.array_equal(img, data.reshape(12, 32, 40)[k])
+    with ResultsFile(tmp_path / "out.csv") as res:
+        run_batch(inputs, res, frame_stats, Divisor(1.0), client=client, chunk_frames=5)
+    rows = _rows_by_key(tmp_path / "out.csv")
+    assert sorted(k for _, k in rows) == list(range(12))
+    for (_, k), r in rows.items():
+        iy, ix = divmod(k, 4)                                  # frame = iy * nx + ix (docs/batch.md)
+        assert r.score == pytest.approx(data[iy, ix].mean(dtype=np.float64), abs=1e-4)
+
+
 @pytest.fixture()
 def own_client():
     """A cluster of its own for the tests that kill or remove workers (the shared one stays healthy).
