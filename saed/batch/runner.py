@@ -21,6 +21,7 @@ A watchdog ends a run whose cluster has lost every worker (:class:`NoWorkersErro
 
 from __future__ import annotations
 
+import asyncio
 import logging
 import os
 import time
@@ -49,6 +50,9 @@ _SINGLE_FRAME_ATTEMPTS = 1
 NO_WORKERS_TIMEOUT_S = 60.0
 #: How long the client waits for a task to end before it looks whether any worker is left (seconds).
 _POLL_S = 1.0
+#: How long fetching a finished task's rows may take before the task is taken as lost with its worker
+#: (seconds; milliseconds normally, more than a second on a machine loaded 8 times over).
+_FETCH_S = 30.0
 
 
 class NoWorkersError(SaedError):
@@ -305,10 +309,11 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
         """Hand a finished task's rows on (or plan its retries); False when its rows cannot be fetched now."""
         _, chunk, attempt = pending[fut.key]
         try:
-            rows = fut.result(timeout=_POLL_S)
-        except TimeoutError:
+            rows = fut.result(timeout=_FETCH_S)
+        except (TimeoutError, asyncio.CancelledError, UnboundLocalError):
             # finished, but its worker left before the rows were fetched: Dask runs it again (or the
-            # watchdog ends the run when no worker is left)
+            # watchdog ends the run when no worker is left). (distributed 2026.8's sync() can end a
+            # timed-out wait with UnboundLocalError instead of TimeoutError: the same case.)
             return False
         except KilledWorker:
             rows = []

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import math
 import os
+import sys
 import tempfile
 from pathlib import Path
 
@@ -98,6 +99,9 @@ def _run(path: Path, tmp: Path) -> dict:
             for at in (1024, 10240, 30720):
                 if done >= at and at < total and at not in marks:
                     marks[at] = max(marks["peak"].values())
+            if done and done % 8192 < 256:          # a line now and then on stderr: a long run shows where it is
+                print(f"scan memory: {done} of {total} frames, worker peak so far "
+                      f"{', '.join(f'{v:.0f}' for v in marks['peak'].values())} MiB", file=sys.stderr, flush=True)
 
         out = tmp / f"{path.stem}.csv"
         t0 = time.perf_counter()
