@@ -59,6 +59,36 @@ def scan_floor_s(path, n: int = 256) -> float:
     return best
 
 
+def cpu_by_kind(path, n: int = 1024) -> dict[str, tuple[int, float]]:
+    """CPU ms per frame by how it was solved (``search`` column), in this process over the first `n` frames.
+
+    The same per-frame function as the workers run, in tasks of 256 frames, timed frame by frame
+    with the process's CPU clock: where a worker's time goes (warm start, empty frames, full searches).
+    """
+    import time
+
+    from saed.batch.indexing import make_index_job
+    from saed.batch.scanindex import index_scan_frame
+    from saed.calibration import Calibration
+    from saed.crystal import builtin_phase
+
+    job = make_index_job([builtin_phase(p) for p in PHASES], Calibration(SCALE_INV_NM_PER_PX, 200.0),
+                         frame_shape=(SIZE, SIZE))
+    flat = np.load(path, mmap_mode="r")
+    flat = flat.reshape((-1,) + flat.shape[-2:])
+    spent: dict = {}
+    for k in range(min(n, len(flat))):
+        if k % 256 == 0:
+            index_scan_frame.new_task(job)
+        image = np.asarray(flat[k])
+        t = time.process_time()
+        row = index_scan_frame(image, job, name="scan", frame=k)
+        d = time.process_time() - t
+        c, total = spent.get(row.search, (0, 0.0))
+        spent[row.search] = (c + 1, total + d)
+    return {kind: (c, round(1e3 * total / c, 2)) for kind, (c, total) in sorted(spent.items())}
+
+
 def _rss_mib() -> float:
     """Resident memory of this process now, MiB (run on each worker by client.run).
 
@@ -149,6 +179,7 @@ def _case_fn(state):
 
     floor_tiff_s = measure(floor_case("image256")).median_s
     floor_s = scan_floor_s(state["stack"])
+    by_kind = cpu_by_kind(state["stack"])
     rate1, mem1 = _run(state, 1, None)
     rate2, mem = _run(state, 2, 1024 if n > 1024 else None)
     truth = state["truth"]
@@ -178,6 +209,7 @@ def _case_fn(state):
         "scaling_2_vs_1 (goal >= 1.7)": round(rate2 / rate1, 2),
         "per_pattern_ms_1_worker": round(1e3 / rate1, 1),
         "floor_ms (read a frame of this scan + one Gaussian pass)": round(floor_s * 1e3, 3),
+        "cpu_ms_per_frame_by_search (in this process, first 1024 frames: count, ms)": by_kind,
         "floor_image256_ms (256x256 TIFF + Gaussian)": round(floor_tiff_s * 1e3, 2),
         "per_pattern_x_floor (1 worker wall)": round(1.0 / rate1 / floor_s, 1),
         "worker_cpu_per_pattern_x_floor (1 worker)": round(mem1["cpu_ms_per_pattern"] / 1e3 / floor_s, 1),
