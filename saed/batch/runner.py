@@ -308,6 +308,8 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     def take(fut) -> bool:
         """Hand a finished task's rows on (or plan its retries); False when its rows cannot be fetched now."""
         _, chunk, attempt = pending[fut.key]
+        if fut.status == "finished" and not _held(client, fut):
+            return False                      # its rows left with its worker: Dask runs it again
         try:
             rows = fut.result(timeout=_FETCH_S)
         except (TimeoutError, asyncio.CancelledError, UnboundLocalError):
@@ -358,6 +360,14 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
             for fut, _, _ in pending.values():
                 fut.cancel()
             raise
+
+
+def _held(client, fut) -> bool:
+    """True when a worker still holds the result of the finished task `fut` (so fetching it cannot hang)."""
+    try:
+        return bool(client.who_has(fut).get(fut.key))
+    except Exception:  # noqa: BLE001 - a scheduler that does not answer: let the fetch (with its timeout) try
+        return True
 
 
 class _Watchdog:
