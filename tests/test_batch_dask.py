@@ -124,16 +124,91 @@ def test_interrupted_run_resumes_to_the_same_rows(client, tmp_path):
     assert {k: r.cells() for k, r in done.items()} == {k: r.cells() for k, r in ref.items()}
 
 
-def test_a_frame_that_kills_its_worker_gets_an_error_row(client, tmp_path):
+def _write_hspy(path, data):
+    """A 4-D scan (scan_y, scan_x, rows, cols) in rosettasciio's .hspy format, written with rosettasciio itself."""
+    from rsciio.hspy import file_writer
+
+    names = ("scan_y", "scan_x", "ky", "kx")
+    axes = [dict(name=n, units="nm" if k < 2 else "1/nm", index_in_array=k, size=data.shape[k], offset=0.0,
+                 scale=5.0 if k < 2 else 0.08, navigate=k < 2) for k, n in enumerate(names)]
+    signal = {"data": data, "axes": axes, "metadata": {"General": {"title": "scan"}}, "original_metadata": {},
+              "attributes": {"_lazy": False}, "tmp_parameters": {}, "package_info": {"name": "test", "version": "0"},
+              "learning_results": {}, "models": {}}
+    file_writer(str(path), signal, chunks=(1, 2) + data.shape[2:], show_progressbar=False)
+
+
+def test_a_scan_in_a_microscope_format_is_read_lazily_with_its_scan_shape(client, tmp_path):
+    from saed.batch.stacks import read_frames
+
+    data = _stack(12, seed=7, shape=(32, 40)).astype(np.uint16).reshape(3, 4, 32, 40)
+    _write_hspy(tmp_path / "scan.hspy", data)
+    inputs = discover_inputs([str(tmp_path / "scan.hspy")])
+    (src,) = inputs.sources
+    assert (src.n_frames, src.scan_shape, src.frame_shape, src.stack) == (12, (3, 4), (32, 40), True)
+    got = read_frames(src.path, [5, 6, 7, 11])                 # frames 5-7 are one run along a scan row
+    for k, img in got.items():
+        assert np.array_equal(img, data.reshape(12, 32, 40)[k])
+    with ResultsFile(tmp_path / "out.csv") as res:
+        run_batch(inputs, res, frame_stats, Divisor(1.0), client=client, chunk_frames=5)
+    rows = _rows_by_key(tmp_path / "out.csv")
+    assert sorted(k for _, k in rows) == list(range(12))
+    for (_, k), r in rows.items():
+        iy, ix = divmod(k, 4)                                  # frame = iy * nx + ix (docs/batch.md)
+        assert r.score == pytest.approx(data[iy, ix].mean(dtype=np.float64), abs=1e-4)
+
+
+@pytest.fixture()
+def own_client():
+    """A cluster of its own for the tests that kill or remove workers (the shared one stays healthy).
+
+    ``allowed-failures`` 0: a task whose worker dies is given up at once (saed then runs its frames
+    one by one), so a frame that kills its worker costs three restarts, not six: fewer chances for a
+    loaded machine to be slow to restart one.
+    """
+    import dask
+    import distributed  # noqa: F401
+
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        with dask_client(workers=2) as c:
+            yield c
+
+
+def test_a_frame_that_kills_its_worker_gets_an_error_row(own_client, tmp_path):
     np.save(tmp_path / "die.npy", _stack(16, seed=5))
     with ResultsFile(tmp_path / "out.csv") as res:
-        run_batch(discover_inputs([str(tmp_path / "die.npy")]), res, frame_stats, Divisor(1.0), client=client,
-                  chunk_frames=4)
+        # the watchdog bounds the test: it can fail, never hang (the workers restart within seconds;
+        # 120 s leaves room for a loaded machine)
+        run_batch(discover_inputs([str(tmp_path / "die.npy")]), res, frame_stats, Divisor(1.0), client=own_client,
+                  chunk_frames=4, no_workers_timeout_s=120.0)
     rows = _rows_by_key(tmp_path / "out.csv")
     assert len(rows) == 16
     bad = [r for r in rows.values() if r.status != "ok"]
     assert [r.frame for r in bad] == [13]
     assert "worker process died" in bad[0].status
+
+
+def test_a_run_whose_workers_are_all_gone_ends_with_an_error_and_keeps_its_rows(own_client, tmp_path):
+    import time
+
+    from saed.batch.runner import NoWorkersError
+
+    np.save(tmp_path / "s.npy", _stack(64, seed=6))
+    out = tmp_path / "out.csv"
+
+    def remove_workers(done, total, text):
+        if done:                                            # after the first task: the cluster loses every worker
+            own_client.cluster.scale(0)
+
+    t0 = time.monotonic()
+    with pytest.raises(NoWorkersError, match="no Dask worker for 2 s") as info:
+        with ResultsFile(out) as res:
+            run_batch(discover_inputs([str(tmp_path / "s.npy")]), res, frame_stats, Divisor(1.0), client=own_client,
+                      chunk_frames=4, progress=remove_workers, no_workers_timeout_s=2.0)
+    assert time.monotonic() - t0 < 60
+    assert "\n" not in str(info.value)
+    rows = _rows_by_key(out)                                 # what was written before is all there, once
+    assert 4 <= len(rows) < 64 and all(r.status == "ok" for r in rows.values())
+    assert all(len({k for k in rows if k[1] // 4 == t}) in (0, 4) for t in range(16))   # whole tasks only
 
 
 def _closed_port() -> int:

@@ -145,3 +145,22 @@ def test_any_existing_file_is_refused_cleanly_or_taken(tmp_path_factory, content
         assert p.read_bytes() == content
     else:
         assert _row(0).key in {r.key for r in read_rows(p)}
+
+
+def test_batch_never_imports_the_report_layer():
+    """Issue 16 item 5: report/scan_map.py draws batch's scan values, so batch must not import report (a cycle).
+
+    Checked on the source (every import statement, also those inside functions), not by importing.
+    """
+    import ast
+    from pathlib import Path
+
+    import saed.batch
+
+    upward = []
+    for path in sorted(Path(saed.batch.__file__).parent.glob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            upward += [f"{path.name}: {n}" for n in names if n == "saed.report" or n.startswith("saed.report.")]
+    assert upward == []

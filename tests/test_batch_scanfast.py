@@ -138,6 +138,35 @@ def test_ipf_colours_and_misorientation_against_rotations_written_here():
     assert misorientation_deg(fcc, u[:1], u[1:], friedel=True)[0] == pytest.approx(0.0, abs=1e-5)
 
 
+def test_ipf_colour_key_is_filled_without_gaps():
+    """The colour key had white speckles on the hcp triangle (dots at even steps of the corners' weights
+    spread apart where the stereographic projection stretches the triangle): every pixel inside the
+    triangle of the projected corners must now be coloured.
+
+    Geometry written here: stereographic projection x, y / (1 + z) of the unit corner directions; the key's
+    edges are great-circle arcs that bulge outward from the straight triangle of the projected corners
+    (or are straight, through [001]), so that straight triangle lies inside the key.
+    """
+    from saed.batch.orientmap import triangle_key
+
+    for name, corners in (("Co-hcp", ((0, 0, 1), (1, 0, 0), (3 ** 0.5 / 2, 0.5, 0))),
+                          ("Co-fcc", ((0, 0, 1), (1, 0, 1), (1, 1, 1)))):
+        rgba, (x0, x1, y0, y1), _, _ = triangle_key(builtin_phase(name))
+        c = np.array(corners, float)
+        c /= np.linalg.norm(c, axis=1, keepdims=True)
+        p = c[:, :2] / (1 + c[:, 2:3])
+        n_rows, n_cols = rgba.shape[:2]
+        xs = x0 + (np.arange(n_cols) + 0.5) * (x1 - x0) / n_cols
+        ys = y0 + (np.arange(n_rows) + 0.5) * (y1 - y0) / n_rows
+        px, py = np.meshgrid(xs, ys)
+        t = np.linalg.solve(np.array([[p[1, 0] - p[0, 0], p[2, 0] - p[0, 0]], [p[1, 1] - p[0, 1], p[2, 1] - p[0, 1]]]),
+                            np.stack([px.ravel() - p[0, 0], py.ravel() - p[0, 1]]))
+        inside = (t.min(axis=0) > 0.02) & (t.sum(axis=0) < 0.98)
+        assert inside.sum() > 1000
+        assert np.all(rgba.reshape(-1, 4)[inside, 3] == 1.0), name
+        assert np.all(rgba.reshape(-1, 4)[inside, :3].max(axis=1) > 0.99)   # one channel at full strength
+
+
 def test_hdf5_and_zarr_scans_are_read_lazily_with_their_scan_shape(tmp_path):
     import h5py
     import zarr

@@ -43,7 +43,8 @@ class BatchOutcome:
 
 
 def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client, progress=None,
-              context_of=None, chunk_frames: int | None = None) -> BatchOutcome:
+              context_of=None, chunk_frames: int | None = None,
+              no_workers_timeout_s: float | None = None) -> BatchOutcome:
     """Run `frame_fn` over every frame of `inputs` not yet in `results`, appending rows as tasks end.
 
     Parameters
@@ -64,6 +65,9 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
         ``context_of(source) -> value`` passed as ``context`` for that source's frames.
     chunk_frames : int, optional
         Frames per task (default: :func:`saed.batch.runner.chunk_size_for`).
+    no_workers_timeout_s : float, optional
+        End the run with :class:`saed.batch.runner.NoWorkersError` when the cluster has had no
+        worker this long (default :data:`saed.batch.runner.NO_WORKERS_TIMEOUT_S`); rows written stay.
     """
     t0 = time.monotonic()
     # planning reads `results.done` lazily while rows arrive; only frames already planned are added
@@ -93,7 +97,7 @@ def run_batch(inputs: Inputs, results: ResultsFile, frame_fn, shared, *, client,
 
         try:
             run_frames(client, plan_chunks(inputs.sources, done_before, chunk_frames=size, context_of=context_of),
-                       frame_fn, shared_ref, on_rows=on_rows)
+                       frame_fn, shared_ref, on_rows=on_rows, no_workers_timeout_s=no_workers_timeout_s)
         finally:
             unshare(client, shared_ref)
     return BatchOutcome(inputs.n_frames, n_before, written, time.monotonic() - t0)

@@ -14,6 +14,7 @@ import numpy as np
 
 from saed.batch.results import Row
 from saed.calibration import Calibration
+from saed.readonly import frozen_array
 
 __all__ = ["IndexJob", "make_index_job", "index_frame", "max_g_for", "row_from_result",
            "row_from_solutions", "lookalike_note"]
@@ -40,9 +41,7 @@ class IndexJob:
 
     def __post_init__(self):
         if self.mask is not None:
-            m = np.array(self.mask, dtype=bool)
-            m.flags.writeable = False
-            object.__setattr__(self, "mask", m)
+            object.__setattr__(self, "mask", frozen_array(self.mask, bool))
         object.__setattr__(self, "options", tuple((k, v) for k, v in dict(self.options).items() if v is not None))
 
 

@@ -150,7 +150,8 @@ def inspect_source(name: str) -> FrameSource:
                              f"{MIN_SIDE_PX} pixels in a direction")
         if n != meta.n_frames or len(meta.scan_shape) > 2:  # several images, or more than two scan axes
             return FrameSource(name, path, n, (n,) if n > 1 else (), None, fid)
-        return FrameSource(name, path, n, meta.scan_shape, meta.frame_shape, fid)
+        # one stack or scan: its frames are read in slices of the lazy array (saed.batch.stacks.read_frames)
+        return FrameSource(name, path, n, meta.scan_shape, meta.frame_shape, fid, stack=n > 1)
     with warnings.catch_warnings():
         # Pillow warns (then raises) on corrupt metadata; the file is reported as skipped, the warning adds nothing
         warnings.simplefilter("ignore", UserWarning)

@@ -183,19 +183,34 @@ def _stereo(v: np.ndarray) -> np.ndarray:
     return v[..., :2] / (1.0 + v[..., 2:3])
 
 
-def triangle_key(phase, n: int = 60):
-    """Points (m, 2) of the standard triangle in stereographic projection with their RGB (m, 3), and the
-    projected corners (3, 2) with labels; None for a Laue class without a triangle."""
+def triangle_key(phase, n: int = 160):
+    """The standard triangle in stereographic projection as a picture, for the orientation map's colour key.
+
+    Returns (rgba (n, n, 4), extent (x0, x1, y0, y1), projected corners (3, 2), corner labels), or None
+    for a Laue class without a triangle. Each pixel of an n x n grid over the projected triangle is
+    projected back onto the sphere and coloured by :func:`ipf_colours`; pixels outside the triangle
+    are transparent. (Filling pixels, rather than placing dots at even steps of the corners' weights,
+    leaves no gaps where the projection stretches the triangle toward the equator.)
+    """
     system, corners, labels = ipf_triangle(phase)
     if not system:
         return None
-    a, b = np.meshgrid(np.linspace(0, 1, n), np.linspace(0, 1, n))
-    keep = a + b <= 1.0
-    a, b = a[keep], b[keep]
-    w = np.stack([1 - a - b, a, b], axis=1)
-    d = w @ corners
-    d /= np.linalg.norm(d, axis=1, keepdims=True)
-    return _stereo(d), ipf_colours(phase, d), _stereo(corners), labels
+    # the triangle's outline in projection (its edges are great-circle arcs), for the grid's extent
+    t = np.linspace(0.0, 1.0, 64)[:, None]
+    edges = np.concatenate([(1 - t) * corners[i] + t * corners[(i + 1) % 3] for i in range(3)])
+    edges = _stereo(edges / np.linalg.norm(edges, axis=1, keepdims=True))
+    (x0, y0), (x1, y1) = edges.min(axis=0), edges.max(axis=0)
+    xs = x0 + (np.arange(n) + 0.5) * (x1 - x0) / n            # pixel centres
+    ys = y0 + (np.arange(n) + 0.5) * (y1 - y0) / n
+    px, py = np.meshgrid(xs, ys)                              # row k of the picture: y = ys[k] (origin lower)
+    r2 = px * px + py * py
+    d = np.stack([2 * px, 2 * py, 1.0 - r2], axis=-1).reshape(-1, 3) / (1.0 + r2.reshape(-1, 1))
+    w = d @ np.linalg.inv(corners)                           # weights on the corners: d = w @ corners
+    inside = w.min(axis=1) >= -1e-9
+    rgba = np.zeros((n * n, 4))
+    rgba[inside, :3] = ipf_colours(phase, d[inside])
+    rgba[inside, 3] = 1.0
+    return rgba.reshape(n, n, 4), (float(x0), float(x1), float(y0), float(y1)), _stereo(corners), labels
 
 
 def angle_text(deg: float) -> str:

@@ -46,7 +46,7 @@ def check_run_record(out, phases, *, has_rows: bool) -> None:
         `out` has rows and its record lists other phases (names, or the same names with another
         cell or space group), or the record cannot be read or written.
     """
-    from saed.report.files import atomic_write_text
+    from saed.files import atomic_write_text
 
     path = record_path(out)
     now = [phase_fingerprint(p) for p in phases]

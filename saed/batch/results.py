@@ -268,7 +268,7 @@ class ResultsFile:
     """
 
     def __init__(self, path, *, retry_errors: bool = False):
-        from saed.report.files import check_writable
+        from saed.files import check_writable
 
         self.path = check_writable(path)
         self._fh = None
@@ -320,20 +320,12 @@ class ResultsFile:
             self._sync(self._fh)
 
     def _drop_error_rows(self, n_err: int) -> None:
-        import tempfile
+        from saed.files import atomic_write_bytes
 
-        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp", dir=self.path.parent)
-        try:
-            with os.fdopen(fd, "wb") as out:
-                out.write(_HEADER_LINE.encode("utf-8"))
-                for r in iter_rows(self.path):
-                    if not r.is_error:
-                        out.write(_csv_line(r.cells()).encode("utf-8"))
-                self._sync(out)
-            os.replace(tmp, self.path)
-        finally:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
+        # the kept rows are rewritten through saed.files (temporary file, fsync, rename): a crash
+        # half-way leaves the old file as it was
+        kept = "".join(_csv_line(r.cells()) for r in iter_rows(self.path) if not r.is_error)
+        atomic_write_bytes(self.path, (_HEADER_LINE + kept).encode("utf-8"))
         self._fh.close()
         self._open_locked()
         self._scan()

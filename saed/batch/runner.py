@@ -1,7 +1,7 @@
 """Running a per-frame function over many frames on a Dask cluster, rows back as they finish.
 
 The client side (:func:`run_frames`) keeps a bounded window of tasks in flight
-(``distributed.as_completed``), so a stack of a million frames costs the client no more
+(``distributed.wait``, first completed), so a stack of a million frames costs the client no more
 memory than one of a thousand, and hands each finished task's rows to a callback (the
 CSV writer) at once. The worker side (:func:`process_chunk`) reads each frame of its
 chunk from disk itself (``saed.image.io.read_image``: a ``.npy`` stack through a memory
@@ -14,12 +14,17 @@ passed to tasks by reference.
 
 On a cluster, workers open the files by absolute path: the inputs must be on a
 filesystem the workers see (as on any shared-filesystem cluster).
+
+A watchdog ends a run whose cluster has lost every worker (:class:`NoWorkersError` after
+:data:`NO_WORKERS_TIMEOUT_S`), instead of waiting for a worker that never comes back.
 """
 
 from __future__ import annotations
 
+import asyncio
 import logging
 import os
+import time
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator
 
@@ -27,7 +32,8 @@ from saed.batch.inputs import FrameSource
 from saed.batch.results import Row, error_status
 from saed.errors import SaedError
 
-__all__ = ["Chunk", "plan_chunks", "count_todo", "chunk_size_for", "process_chunk", "run_frames", "share", "unshare", "SharedRef"]
+__all__ = ["Chunk", "plan_chunks", "count_todo", "chunk_size_for", "process_chunk", "run_frames", "share", "unshare",
+           "SharedRef", "NoWorkersError", "NO_WORKERS_TIMEOUT_S"]
 
 logger = logging.getLogger(__name__)
 
@@ -38,6 +44,19 @@ MAX_CHUNK_FRAMES = 256
 MAX_CHUNK_PIXELS = 256 * 256 * 256
 #: How often a single frame whose worker died is run alone before it gets an error row.
 _SINGLE_FRAME_ATTEMPTS = 1
+#: A run with tasks left but no worker on the cluster for this long ends with :class:`NoWorkersError`
+#: (seconds): a local cluster restarts a killed worker within seconds, a cluster whose workers are all
+#: gone (killed with their nannies, stopped by a batch system) would otherwise be waited for forever.
+NO_WORKERS_TIMEOUT_S = 60.0
+#: How long the client waits for a task to end before it looks whether any worker is left (seconds).
+_POLL_S = 1.0
+#: How long fetching a finished task's rows may take before the task is taken as lost with its worker
+#: (seconds; milliseconds normally, more than a second on a machine loaded 8 times over).
+_FETCH_S = 30.0
+
+
+class NoWorkersError(SaedError):
+    """The cluster has had no worker for the watchdog's time while tasks were left (rows written stay)."""
 
 
 @dataclass(frozen=True)
@@ -236,7 +255,7 @@ def _window(client) -> int:
 
 
 def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Callable[[list[Row]], None],
-               window: int | None = None) -> None:
+               window: int | None = None, no_workers_timeout_s: float | None = None) -> None:
     """Run `frame_fn` over every frame of `chunks` on `client`'s cluster; `on_rows(rows)` as each task ends.
 
     Parameters
@@ -252,6 +271,10 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
         Passed to every call of `frame_fn`; install large values once with :func:`share`.
     on_rows : callable
         Called in the client with each finished task's rows (in completion order).
+    no_workers_timeout_s : float, optional
+        End the run with :class:`NoWorkersError` when the cluster has had no worker this long while
+        tasks were left (default :data:`NO_WORKERS_TIMEOUT_S`). The tasks in flight are cancelled;
+        rows already handed to `on_rows` stay.
 
     Notes
     -----
@@ -259,15 +282,13 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
     ``KilledWorker``) is split into single frames, each tried alone twice, so only the frame
     that kills workers gets an error row.
     """
-    from distributed import as_completed
+    from distributed import wait
     from distributed.scheduler import KilledWorker
 
     it = iter(chunks)
     n = window or _window(client)
-    pending: dict = {}                      # future key -> (chunk, attempt)
+    pending: dict = {}                      # future key -> (future, chunk, attempt)
     retry: list[tuple[Chunk, int]] = []
-    ac = as_completed()
-
     retries_out = [0]                       # single-frame retries in flight (at most one at a time)
 
     def top_up() -> None:
@@ -282,16 +303,20 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
             if item is None:
                 return                        # (a waiting retry goes out when the one in flight ends)
             fut = client.submit(process_chunk, item[0], frame_fn, shared, pure=False)
-            pending[fut.key] = item
-            ac.add(fut)
+            pending[fut.key] = (fut, *item)
 
-    top_up()
-    for fut in ac:
-        chunk, attempt = pending.pop(fut.key)
-        if chunk.retried:
-            retries_out[0] -= 1
+    def take(fut) -> bool:
+        """Hand a finished task's rows on (or plan its retries); False when its rows cannot be fetched now."""
+        _, chunk, attempt = pending[fut.key]
+        if fut.status == "finished" and not _held(client, fut):
+            return False                      # its rows left with its worker: Dask runs it again
         try:
-            rows = fut.result()
+            rows = fut.result(timeout=_FETCH_S)
+        except (TimeoutError, asyncio.CancelledError, UnboundLocalError):
+            # finished, but its worker left before the rows were fetched: Dask runs it again (or the
+            # watchdog ends the run when no worker is left). (distributed 2026.8's sync() can end a
+            # timed-out wait with UnboundLocalError instead of TimeoutError: the same case.)
+            return False
         except KilledWorker:
             rows = []
             if len(chunk.frames) > 1 or attempt < _SINGLE_FRAME_ATTEMPTS:
@@ -305,7 +330,71 @@ def run_frames(client, chunks: Iterable[Chunk], frame_fn, shared, *, on_rows: Ca
                 rows = [Row(chunk.name, chunk.frames[0],
                             status=error_status("the worker process died on this frame (out of memory?)"),
                             file=chunk.path, file_id=chunk.file_id)]
+        del pending[fut.key]
+        if chunk.retried:
+            retries_out[0] -= 1
         fut.release()
         if rows:
             on_rows(rows)
-        top_up()
+        return True
+
+    watchdog = _Watchdog(client, NO_WORKERS_TIMEOUT_S if no_workers_timeout_s is None else no_workers_timeout_s)
+    top_up()
+    while pending:
+        try:
+            done = wait([f for f, _, _ in pending.values()], timeout=_POLL_S, return_when="FIRST_COMPLETED").done
+        except TimeoutError:
+            done = ()
+        # 'lost' (its worker left before the result was fetched) counts as done for wait() but waits for a
+        # recomputation in result(): only finished and failed tasks are taken
+        taken = [take(f) for f in sorted(done, key=lambda f: str(f.key)) if f.status in ("finished", "error")]
+        if any(taken):
+            watchdog.seen_work()
+            top_up()
+            continue
+        if taken:
+            time.sleep(_POLL_S)               # finished tasks whose rows are out of reach: not a busy loop
+        try:
+            watchdog.check()
+        except NoWorkersError:
+            for fut, _, _ in pending.values():
+                fut.cancel()
+            raise
+
+
+def _held(client, fut) -> bool:
+    """True when a worker still holds the result of the finished task `fut` (so fetching it cannot hang)."""
+    try:
+        return bool(client.who_has(fut).get(fut.key))
+    except Exception:  # noqa: BLE001 - a scheduler that does not answer: let the fetch (with its timeout) try
+        return True
+
+
+class _Watchdog:
+    """Ends a run whose cluster has had no worker for `timeout_s` seconds while tasks wait."""
+
+    def __init__(self, client, timeout_s: float):
+        self.client = client
+        self.timeout_s = float(timeout_s)
+        self.gone_since = None
+
+    def seen_work(self) -> None:
+        self.gone_since = None
+
+    def _n_workers(self) -> int:
+        try:
+            return len(self.client.nthreads())
+        except Exception:  # noqa: BLE001 - a scheduler that does not answer has no workers for us either
+            return 0
+
+    def check(self) -> None:
+        if self._n_workers() > 0:
+            self.gone_since = None
+            return
+        now = time.monotonic()
+        if self.gone_since is None:
+            self.gone_since = now
+            logger.warning("no Dask worker is left; waiting up to %g s for one", self.timeout_s)
+        elif now - self.gone_since >= self.timeout_s:
+            raise NoWorkersError(f"no Dask worker for {self.timeout_s:g} s while frames were left (every worker "
+                                 "was killed, ran out of memory, or the cluster was stopped)")

@@ -18,6 +18,7 @@ import numpy as np
 from saed.batch.inputs import FrameSource
 from saed.batch.results import Row
 from saed.errors import InputError
+from saed.readonly import frozen_array
 
 __all__ = ["zone_family", "family_label", "FamilyCount", "Summary", "summarize", "ScanMap", "build_scan_map",
            "check_scan_shape", "rows_for_sources", "NOT_DONE", "NO_SOLUTION", "ERROR"]
@@ -166,18 +167,14 @@ class ScanMap:
 
     def __post_init__(self):
         for name in ("phase_index", "family_index"):
-            a = np.array(getattr(self, name), dtype=np.int32)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(getattr(self, name), np.int32))
         ny, nx = self.shape
         defaults = {"score": np.full((ny, nx), np.nan), "ipf_rgb": np.full((ny, nx, 3), np.nan),
                     "boundary_right": np.zeros((ny, max(nx - 1, 0)), bool),
                     "boundary_down": np.zeros((max(ny - 1, 0), nx), bool)}
         for name, default in defaults.items():
             v = getattr(self, name)
-            a = np.array(default if v is None else v, dtype=default.dtype)
-            a.flags.writeable = False
-            object.__setattr__(self, name, a)
+            object.__setattr__(self, name, frozen_array(default if v is None else v, default.dtype))
 
 
 def check_scan_shape(scan_shape, sources) -> tuple[int, int]:

@@ -56,7 +56,7 @@ __all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SA
            "LEAN_SEARCH"]
 
 #: How many distinct earlier solutions (grains) a worker thread keeps for the warm start.
-WARM_ENTRIES = 4
+WARM_ENTRIES = 8
 #: A warm solution may score this much below the full search it came from (frame-to-frame noise).
 WARM_SCORE_TOLERANCE = 0.05
 #: A warm solution may leave this much more of the spot weight unexplained than its full search did.

@@ -1,10 +1,14 @@
-"""Scans stored as one array: ``.npy``, HDF5 and Zarr stacks, opened lazily as Dask arrays.
+"""Scans stored as one array: ``.npy``, HDF5 and Zarr stacks, and microscope files, opened lazily.
 
 A stack is ``(frame, row, col)`` or ``(scan_y, scan_x, row, col)``; the last two axes are the
 detector and the scan shape comes from the file. Nothing is read when a stack is opened: the
 Dask array wraps the file's own chunks (an HDF5 dataset's chunks, a Zarr array's chunks, a
 ``.npy`` memory map cut into blocks of frames), and :func:`read_frames` computes only the slice a
 task needs, so a scan larger than memory streams through a worker in pieces of a few frames.
+
+A stack or 4-D scan in a microscope format (``.hspy``, EMD, DM, MRC, ...: whatever
+:mod:`saed.image.microscope` reads through rosettasciio) is opened by rosettasciio as a lazy Dask
+array (or a memory map) with the scan shape the file records, and sliced the same way.
 
 Which array of an HDF5 file or a Zarr group: name it after the file with ``::``
 (``scan.h5::/entry/data``); otherwise the file must hold exactly one numeric array of 3 or 4
@@ -232,16 +236,40 @@ def _runs(lead_shape: tuple[int, ...], frames) -> list[tuple[tuple[int, ...], in
     return [tuple(r) for r in runs]
 
 
+def _is_microscope(path: str) -> bool:
+    from saed.image.microscope import MICROSCOPE_SUFFIXES
+
+    return Path(path).suffix.lower() in MICROSCOPE_SUFFIXES
+
+
+class _NothingToClose:
+    def close(self):
+        pass
+
+
+def _microscope_stack(path: str):
+    """A microscope file's stack or scan as rosettasciio opens it (a lazy Dask array or a memory map,
+    shape ``scan_shape + (rows, cols)``), and the object to close (rosettasciio keeps the file itself)."""
+    from saed.image.microscope import read_frames as open_microscope_file
+
+    data, _meta = open_microscope_file(path)
+    return data, _NothingToClose()
+
+
 def read_frames(name: str, frames) -> dict[int, np.ndarray | ImageError]:
     """The frames `frames` (flat indices) of the stack `name`, each as a 2-D array, or the ImageError reading it.
 
     Consecutive frames along the last scan axis are read as one slice: of the lazy Dask array for an
-    HDF5 or Zarr stack (computed in this process, synchronously), of the memory map for a ``.npy``
+    HDF5 or Zarr stack and for a stack or scan in a microscope format (rosettasciio opens it lazily,
+    :func:`saed.image.microscope.read_frames`; computed in this process, synchronously), of the memory map for a ``.npy``
     (which has no chunks for Dask to follow; this also spares a worker that restarts the Dask-array
     import). A task of 64 frames costs one or two reads.
     """
     path, dataset = split_dataset(name)
-    if _kind(path) == "npy":
+    if _is_microscope(path):
+        arr, op = _microscope_stack(path)
+        compute = hasattr(arr, "compute")
+    elif _kind(path) == "npy":
         op = _Opened(name, path, dataset)
         arr, compute = _Slicer(op.array), False
     else:
@@ -260,7 +288,7 @@ def read_frames(name: str, frames) -> dict[int, np.ndarray | ImageError]:
                 block = arr[outer + (slice(j0, j1),)]
                 if compute:
                     block = block.compute(scheduler="synchronous")
-            except (OSError, ValueError, RuntimeError) as exc:
+            except Exception as exc:  # noqa: BLE001 - any decoder failure of a block: error rows for its frames
                 err = ImageError(f"the stack cannot be read here ({exc.__class__.__name__}: "
                                  f"{' '.join(str(exc).split())[:80]})")
                 for k in ks:

@@ -41,22 +41,57 @@ def write_stack(path, n_frames: int):
     return write_scan_npy(path, (side, side), size=SIZE, scale_inv_nm_per_px=SCALE_INV_NM_PER_PX)
 
 
-def scan_floor_s(path, n: int = 256) -> float:
-    """Seconds per frame to read frames of the scan (memory map) and run one Gaussian pass over each."""
+def scan_floor_s(path, n: int = 256, *, clock=None) -> float:
+    """Seconds per frame to read frames of the scan (memory map) and run one Gaussian pass over each.
+
+    `clock` is ``time.perf_counter`` (wall, the default) or ``time.process_time`` (this process's CPU:
+    the measure to set against the workers' CPU per pattern on a machine other work shares).
+    """
     import time
 
     from scipy import ndimage as ndi
 
+    clock = clock or time.perf_counter
     arr = np.load(path, mmap_mode="r")
     flat = arr.reshape((-1,) + arr.shape[-2:])
     n = min(n, len(flat))
     best = float("inf")
     for _ in range(3):
-        t = time.perf_counter()
+        t = clock()
         for k in range(n):
             ndi.gaussian_filter(np.asarray(flat[k], dtype=np.float32), 1.0)
-        best = min(best, (time.perf_counter() - t) / n)
+        best = min(best, (clock() - t) / n)
     return best
+
+
+def cpu_by_kind(path, n: int = 1024) -> dict[str, tuple[int, float]]:
+    """CPU ms per frame by how it was solved (``search`` column), in this process over the first `n` frames.
+
+    The same per-frame function as the workers run, in tasks of 256 frames, timed frame by frame
+    with the process's CPU clock: where a worker's time goes (warm start, empty frames, full searches).
+    """
+    import time
+
+    from saed.batch.indexing import make_index_job
+    from saed.batch.scanindex import index_scan_frame
+    from saed.calibration import Calibration
+    from saed.crystal import builtin_phase
+
+    job = make_index_job([builtin_phase(p) for p in PHASES], Calibration(SCALE_INV_NM_PER_PX, 200.0),
+                         frame_shape=(SIZE, SIZE))
+    flat = np.load(path, mmap_mode="r")
+    flat = flat.reshape((-1,) + flat.shape[-2:])
+    spent: dict = {}
+    for k in range(min(n, len(flat))):
+        if k % 256 == 0:
+            index_scan_frame.new_task(job)
+        image = np.asarray(flat[k])
+        t = time.process_time()
+        row = index_scan_frame(image, job, name="scan", frame=k)
+        d = time.process_time() - t
+        c, total = spent.get(row.search, (0, 0.0))
+        spent[row.search] = (c + 1, total + d)
+    return {kind: (c, round(1e3 * total / c, 2)) for kind, (c, total) in sorted(spent.items())}
 
 
 def _rss_mib() -> float:
@@ -148,7 +183,11 @@ def _case_fn(state):
     from saed.batch.scanindex import CHECK_DIFFER, CHECK_SAME
 
     floor_tiff_s = measure(floor_case("image256")).median_s
+    import time
+
     floor_s = scan_floor_s(state["stack"])
+    floor_cpu_s = scan_floor_s(state["stack"], clock=time.process_time)
+    by_kind = cpu_by_kind(state["stack"])
     rate1, mem1 = _run(state, 1, None)
     rate2, mem = _run(state, 2, 1024 if n > 1024 else None)
     truth = state["truth"]
@@ -178,9 +217,12 @@ def _case_fn(state):
         "scaling_2_vs_1 (goal >= 1.7)": round(rate2 / rate1, 2),
         "per_pattern_ms_1_worker": round(1e3 / rate1, 1),
         "floor_ms (read a frame of this scan + one Gaussian pass)": round(floor_s * 1e3, 3),
+        "cpu_ms_per_frame_by_search (in this process, first 1024 frames: count, ms)": by_kind,
         "floor_image256_ms (256x256 TIFF + Gaussian)": round(floor_tiff_s * 1e3, 2),
         "per_pattern_x_floor (1 worker wall)": round(1.0 / rate1 / floor_s, 1),
-        "worker_cpu_per_pattern_x_floor (1 worker)": round(mem1["cpu_ms_per_pattern"] / 1e3 / floor_s, 1),
+        "floor_cpu_ms (the same, CPU time of this process)": round(floor_cpu_s * 1e3, 3),
+        "worker_cpu_per_pattern_x_floor_cpu (1 worker, 2 workers)": (round(mem1["cpu_ms_per_pattern"] / 1e3 / floor_cpu_s, 1),
+                                                                    round(mem["cpu_ms_per_pattern"] / 1e3 / floor_cpu_s, 1)),
     }
     if "at_1k" in mem:
         extra["peak_rss_MiB_at_1024 (worker max, client)"] = tuple(round(v) for v in mem["at_1k"])

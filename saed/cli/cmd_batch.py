@@ -56,6 +56,9 @@ def add_arguments(p):
                         "filesystem the workers see)")
     r.add_argument("--connect-timeout", type=positive_float, default=5.0, metavar="S",
                    help="give up on --scheduler after S seconds (default 5)")
+    r.add_argument("--worker-timeout", type=positive_float, default=60.0, metavar="S",
+                   help="end the run (rows written stay) when the cluster has had no worker for S seconds "
+                        "(default 60)")
     i = p.add_argument_group("inputs and outputs")
     i.add_argument("--recursive", action="store_true", help="also search subfolders of input folders")
     i.add_argument("--retry-errors", action="store_true", help="redo the frames whose row in --out is an error")
@@ -187,7 +190,7 @@ def run(args) -> int:
     from saed.batch.record import check_run_record
     from saed.batch.results import ResultsFile
     from saed.batch.scanindex import index_scan_frame
-    from saed.batch.runner import count_todo
+    from saed.batch.runner import NoWorkersError, count_todo
     from saed.batch.scan import check_scan_shape
 
     # Dask's own messages (worker start-up, restarts) only with -v / -vv; saed says what matters.
@@ -251,7 +254,10 @@ def run(args) -> int:
                     frame_fn = index_frame if args.full_search else index_scan_frame
                     with Progress(n_todo, "batch") as bar:
                         outcome = run_batch(inputs, results, frame_fn, job, client=client, progress=bar,
-                                            context_of=context_of)
+                                            context_of=context_of, no_workers_timeout_s=args.worker_timeout)
+            except NoWorkersError as exc:
+                raise NoWorkersError(f"{exc}; {results.n_rows} rows are safe in {out}: start workers (or check the "
+                                     "cluster) and run the same command again to go on") from None
             except KeyboardInterrupt:
                 _say(f"interrupted; {results.n_rows} rows are safe in {out}: run the same command again to go on")
                 return 130

@@ -45,6 +45,14 @@ _WIN = 2  # half-width of the spot window (5 x 5)
 MIN_SUM_SNR = 4.0
 
 
+_D = np.arange(-_WIN, _WIN + 1)
+_OY, _OX = (a.ravel() for a in np.meshgrid(_D, _D, indexing="ij"))   # the 5 x 5 window's offsets, raster order
+_BEFORE = (_OY < 0) | ((_OY == 0) & (_OX < 0))                      # offsets before the centre in raster order
+_NEAR = (np.abs(_OY) <= 1) & (np.abs(_OX) <= 1) & ~((_OY == 0) & (_OX == 0))
+_OY3, _OX3 = _OY[_NEAR], _OX[_NEAR]                                 # the 8 neighbours
+_NO_SPOTS = Spots(np.zeros(0), np.zeros(0), np.zeros(0))
+
+
 class _Geometry:
     """Integer radius of every pixel about a centre rounded to a pixel (kept while the centre stays)."""
 
@@ -53,7 +61,7 @@ class _Geometry:
         self.key = (shape, int(round(centre_px[0])), int(round(centre_px[1])))
         y, x = np.ogrid[:rows, :cols]
         r = np.hypot(x - self.key[1], y - self.key[2])
-        self.r_bin = r.astype(np.int32).ravel()
+        self.r_bin = r.astype(np.intp).ravel()   # intp: np.take without a conversion
         self.n_bins = int(self.r_bin.max()) + 1
         # the background statistics use every second pixel in each direction (a quarter of the work)
         self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32).ravel()
@@ -61,6 +69,13 @@ class _Geometry:
 
 
 _GEOMETRY_CACHE: dict = {}
+
+
+def _median(v: np.ndarray) -> float:
+    """The median of a short 1-D array (numpy's, by a sort: without its overhead, which dominates here)."""
+    v = np.sort(v)
+    m = len(v) // 2
+    return float(v[m]) if len(v) % 2 else 0.5 * float(v[m - 1] + v[m])
 
 
 def _geometry(shape, centre_px) -> _Geometry:
@@ -73,11 +88,11 @@ def _geometry(shape, centre_px) -> _Geometry:
     return g
 
 
-def _direct_beam(img: np.ndarray, hint_px, half: int = 8):
+def _direct_beam(img: np.ndarray, hint_px, top_of_frame: float, half: int = 8):
     """Centroid (x, y) of the bright core near `hint_px` (pixels above half of the local maximum), or None.
 
-    The core must be the direct beam: at least half as bright as the brightest pixel of the frame,
-    and far above the counting noise of its surroundings.
+    The core must be the direct beam: at least half as bright as the brightest pixel of the frame
+    (`top_of_frame`), and far above the counting noise of its surroundings.
     """
     rows, cols = img.shape
     x0, y0 = int(round(hint_px[0])), int(round(hint_px[1]))
@@ -85,16 +100,16 @@ def _direct_beam(img: np.ndarray, hint_px, half: int = 8):
     if r1 - r0 < 3 or c1 - c0 < 3:
         return None
     box = img[r0:r1, c0:c1].astype(np.float64)
-    edge = float(np.median(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]])))
+    edge = _median(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]]))
     top = float(box.max())
-    if top < 0.5 * float(img.max()) or top - edge < 10.0 * math.sqrt(max(edge, 1.0)):
+    if top < 0.5 * top_of_frame or top - edge < 10.0 * math.sqrt(max(edge, 1.0)):
         return None
     w = np.clip(box - (edge + 0.5 * (top - edge)), 0.0, None)
     s = float(w.sum())
     if s <= 0:
         return None
-    yy, xx = np.mgrid[r0:r1, c0:c1]
-    return float((w * xx).sum() / s), float((w * yy).sum() / s)
+    # the centroid from the row and column sums (one pass over the box each)
+    return (float(w.sum(axis=0) @ np.arange(c0, c1)) / s, float(w.sum(axis=1) @ np.arange(r0, r1)) / s)
 
 
 def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_hint_px, mask=None, source: str = "",
@@ -135,7 +150,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
         raise ImageError(f"{name}: some pixels are NaN or infinite; replace them (e.g. by 0) or mask them")
     img = img.astype(np.float32, copy=False)
     rows, cols = img.shape
-    db = _direct_beam(img, centre_hint_px)
+    db = _direct_beam(img, centre_hint_px, float(img.max()))
     if db is None or math.hypot(db[0] - centre_hint_px[0], db[1] - centre_hint_px[1]) > MAX_CENTRE_SHIFT_PX:
         return None
     geo = _geometry(img.shape, db)
@@ -168,7 +183,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
         pos = np.clip(np.searchsorted(idx, np.arange(geo.n_bins)), 0, len(idx) - 1)
         mean_k = np.where(hole, mean_k[idx[pos]], mean_k)
         var_k = np.where(hole, var_k[idx[pos]], var_k)
-    resid = img - mean_k.astype(np.float32)[geo.r_bin].reshape(rows, cols)
+    resid = img - np.take(mean_k.astype(np.float32), geo.r_bin).reshape(rows, cols)
     if mask is not None:
         resid[np.asarray(mask, bool)] = 0.0
     sm = ndi.gaussian_filter(resid, smooth_sigma_px, mode="constant", truncate=3.0)
@@ -176,14 +191,17 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     # and never below the median over radii: white noise of sigma s smoothed by a Gaussian of width w
     # has sigma s / (2 sqrt(pi) w)
     sd_r = np.sqrt(np.maximum(ndi.uniform_filter1d(var_k, 3, mode="nearest"), 0.0))
-    sd_r = np.maximum(sd_r, 0.5 * float(np.median(sd_r[n_k > 0])) if np.any(n_k > 0) else 0.0)
+    sd_r = np.maximum(sd_r, 0.5 * _median(sd_r[n_k > 0]) if np.any(n_k > 0) else 0.0)
     sd_r = np.where(sd_r > 0, sd_r, 1.0)
     smooth_gain = 1.0 / (2.0 * math.sqrt(math.pi) * smooth_sigma_px)
     noise_sm_r = sd_r * smooth_gain
-    thr_map = (detect_snr * noise_sm_r)[geo.r_bin]
-    cand = np.flatnonzero(sm.ravel() > thr_map)
+    thr_r = detect_snr * noise_sm_r
+    sm_flat = sm.ravel()
+    # pixels above the lowest threshold of any radius first (a comparison with one number), then each
+    # of those against the threshold of its own radius: no full-frame map of thresholds
+    cand = np.flatnonzero(sm_flat > thr_r.min())
+    cand = cand[sm_flat[cand] > thr_r[geo.r_bin[cand]]]
     cx, cy = db
-    empty = Spots(np.zeros(0), np.zeros(0), np.zeros(0))
     centre = (float(cx), float(cy))
     if len(cand):
         cy_i, cx_i = np.divmod(cand, cols)
@@ -193,16 +211,18 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     else:
         cy_i = cx_i = np.zeros(0, np.intp)
     if len(cy_i) == 0:
-        return MeasuredPattern((rows, cols), centre, empty, None, calibration, center_sigma_px=0.3, source=source,
+        return MeasuredPattern((rows, cols), centre, _NO_SPOTS, None, calibration, center_sigma_px=0.3, source=source,
                                notes=("centre from the direct beam near the previous frame's", "no spots above the noise"))
-    d = np.arange(-_WIN, _WIN + 1)
-    oy, ox = np.meshgrid(d, d, indexing="ij")
-    oy, ox = oy.ravel(), ox.ravel()
-    nb = sm[cy_i[:, None] + oy[None, :], cx_i[:, None] + ox[None, :]]
+    oy, ox = _OY, _OX
     peak = sm[cy_i, cx_i]
-    # the maximum of its window; ties (flat tops) go to the first pixel in raster order
-    is_max = (peak >= nb.max(axis=1)) & ~np.any((nb == peak[:, None]) & ((oy < 0) | ((oy == 0) & (ox < 0)))[None, :],
-                                                 axis=1)
+    # the maximum of its 5 x 5 window: its 3 x 3 neighbours first (most candidates are the flanks of a
+    # spot, which fail there), then the whole window for the rest
+    near = sm[cy_i[:, None] + _OY3[None, :], cx_i[:, None] + _OX3[None, :]]
+    first = peak >= near.max(axis=1)
+    cy_i, cx_i, peak = cy_i[first], cx_i[first], peak[first]
+    nb = sm[cy_i[:, None] + oy[None, :], cx_i[:, None] + ox[None, :]]
+    # ties (flat tops) go to the first pixel in raster order
+    is_max = (peak >= nb.max(axis=1)) & ~np.any((nb == peak[:, None]) & _BEFORE[None, :], axis=1)
     cy_i, cx_i, peak = cy_i[is_max], cx_i[is_max], peak[is_max]
     win = resid[cy_i[:, None] + oy[None, :], cx_i[:, None] + ox[None, :]].astype(np.float64)
     w = np.clip(win, 0.0, None)

@@ -172,17 +172,17 @@ def _ipf_key(fig, spec, phase, name: str):
     if key is None:
         ax.text(0, 0.5, f"{_tex_escape(name)}: no colour key for this Laue class (grey)", fontsize=8)
         return
-    xy, rgb, corners, labels = key
-    ax.scatter(xy[:, 0], xy[:, 1], c=rgb, s=9, marker="s", linewidths=0)
+    rgba, (x0, x1, y0, y1), corners, labels = key
+    ax.imshow(rgba, origin="lower", extent=(x0, x1, y0, y1), interpolation="nearest")
     ax.set_aspect("equal")
     for (x, y), lab in zip(corners, labels):
         ax.annotate(zone_text(_parse_label(lab), style="mathtext"),
                     (x, y), fontsize=8, ha="center", va="top" if y <= corners[:, 1].mean() else "bottom",
                     xytext=(0, -3 if y <= corners[:, 1].mean() else 3), textcoords="offset points")
     ax.set_title(f"{_tex_escape(name)}: beam direction", fontsize=8)
-    pad = 0.12 * float(np.ptp(xy[:, 0]) or 1.0)
-    ax.set_xlim(xy[:, 0].min() - pad, xy[:, 0].max() + pad)
-    ax.set_ylim(xy[:, 1].min() - 2 * pad, xy[:, 1].max() + 2 * pad)
+    pad = 0.12 * float((x1 - x0) or 1.0)
+    ax.set_xlim(x0 - pad, x1 + pad)
+    ax.set_ylim(y0 - 2 * pad, y1 + 2 * pad)
 
 
 def _parse_label(lab: str) -> tuple[int, ...]:
