@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["frozen_array"]
+__all__ = ["frozen_array", "freeze_in_place"]
 
 
 def frozen_array(a, dtype=None) -> np.ndarray:
@@ -29,3 +29,18 @@ def frozen_array(a, dtype=None) -> np.ndarray:
     out = np.array(a, dtype=dtype, order="C")
     out.flags.writeable = False
     return out
+
+
+def freeze_in_place(*arrays: np.ndarray) -> None:
+    """Make arrays the caller has just built read-only, without a copy (for hot paths such as the
+    zone patterns scored for every candidate, where :func:`frozen_array`'s copy would cost).
+
+    Only for arrays nobody else holds a writable reference to.
+
+    >>> a, b = np.zeros(2), np.ones(3)
+    >>> freeze_in_place(a, b)
+    >>> a.flags.writeable, b.flags.writeable
+    (False, False)
+    """
+    for a in arrays:
+        a.flags.writeable = False

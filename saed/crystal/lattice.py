@@ -17,6 +17,7 @@ from functools import cached_property
 import numpy as np
 
 from saed.errors import PhaseError
+from saed.readonly import freeze_in_place
 
 __all__ = ["Lattice", "reduce_indices"]
 
@@ -93,14 +94,14 @@ class Lattice:
         cy = (ca - cb * cg) / sg
         cz = math.sqrt(max(1.0 - cb * cb - cy * cy, 0.0))
         m = np.array([[a, b * cg, c * cb], [0.0, b * sg, c * cy], [0.0, 0.0, c * cz]])
-        m.flags.writeable = False
+        freeze_in_place(m)
         return m
 
     @cached_property
     def reciprocal_matrix_inv_nm(self) -> np.ndarray:
         """3x3 matrix whose *columns* are a*, b*, c* in the Cartesian frame (1/nm, no 2 pi)."""
         m = np.linalg.inv(self.direct_matrix_nm).T
-        m.flags.writeable = False
+        freeze_in_place(m)
         return m
 
     @cached_property
@@ -108,14 +109,14 @@ class Lattice:
         """Direct metric tensor G_ij = a_i . a_j (nm^2)."""
         a = self.direct_matrix_nm
         g = a.T @ a
-        g.flags.writeable = False
+        freeze_in_place(g)
         return g
 
     @cached_property
     def reciprocal_metric_tensor_inv_nm2(self) -> np.ndarray:
         """Reciprocal metric tensor G* = G^-1 (1/nm^2)."""
         g = np.linalg.inv(self.metric_tensor_nm2)
-        g.flags.writeable = False
+        freeze_in_place(g)
         return g
 
     @cached_property

@@ -23,6 +23,7 @@ from saed.crystal.lattice import Lattice
 from saed.crystal.scattering import element_symbol
 from saed.crystal.symmetry import space_group
 from saed.errors import PhaseError
+from saed.readonly import freeze_in_place
 
 logger = logging.getLogger(__name__)
 
@@ -157,8 +158,7 @@ def cell_atoms(phase: Phase) -> CellAtoms:
             occ.append(site.occupancy)
             bs.append(site.b_iso_nm2)
     out = CellAtoms(np.array(frac), tuple(els), np.array(occ), np.array(bs))
-    for a in (out.frac, out.occupancy, out.b_iso_nm2):
-        a.flags.writeable = False
+    freeze_in_place(out.frac, out.occupancy, out.b_iso_nm2)
     return out
 
 
@@ -208,8 +208,7 @@ def _operations(space_group_name: str) -> tuple[np.ndarray, np.ndarray]:
     ops = list(space_group(space_group_name).operations())
     rot = np.array([op.rot for op in ops], dtype=float) / ops[0].DEN
     tran = np.array([op.tran for op in ops], dtype=float) / ops[0].DEN
-    rot.flags.writeable = False
-    tran.flags.writeable = False
+    freeze_in_place(rot, tran)
     return rot, tran
 
 

@@ -15,6 +15,7 @@ import numpy as np
 from saed.crystal.phase import Phase, cell_atoms
 from saed.crystal.structure_factor import ZERO_F_RELATIVE, scattering_sum_nm, structure_factors_nm
 from saed.errors import InputError, PhaseError
+from saed.readonly import freeze_in_place
 
 __all__ = ["ReflectionTable", "reflection_table"]
 
@@ -102,6 +103,5 @@ def reflection_table(phase: Phase, max_g_inv_nm: float) -> ReflectionTable:
     allowed = np.abs(f) > ZERO_F_RELATIVE * fsum
     arrays = dict(hkl=hkl, g_cart_inv_nm=lat.g_cartesian_inv_nm(hkl), g_inv_nm=g, f_nm=f,
                   intensity=np.abs(f) ** 2, allowed=allowed)
-    for a in arrays.values():
-        a.flags.writeable = False
+    freeze_in_place(*arrays.values())
     return ReflectionTable(phase=phase, max_g_inv_nm=g_max, **arrays)

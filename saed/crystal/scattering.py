@@ -20,6 +20,7 @@ from functools import lru_cache
 import numpy as np
 
 from saed.errors import PhaseError
+from saed.readonly import freeze_in_place
 
 __all__ = ["electron_form_factor_nm", "debye_waller", "element_symbol"]
 
@@ -55,8 +56,7 @@ def _coefficients(symbol: str) -> tuple[np.ndarray, np.ndarray]:
     # f(s) = sum a_i exp(-b_i s^2); s in 1/A = s_nm / 10; f in A = 10 * f_nm.
     a_nm = a_ang / 10.0
     b_nm2 = b_ang2 / 100.0
-    a_nm.flags.writeable = False
-    b_nm2.flags.writeable = False
+    freeze_in_place(a_nm, b_nm2)
     return a_nm, b_nm2
 
 

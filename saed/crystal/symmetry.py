@@ -12,6 +12,7 @@ from functools import lru_cache
 import numpy as np
 
 from saed.errors import PhaseError
+from saed.readonly import freeze_in_place
 
 __all__ = ["point_group_rotations", "laue_rotations", "plane_family", "direction_family", "space_group",
            "has_twofold_axis"]
@@ -49,7 +50,7 @@ def point_group_rotations(space_group_name: str) -> np.ndarray:
             seen.add(key)
             rots.append(r)
     out = np.array(rots)
-    out.flags.writeable = False
+    freeze_in_place(out)
     return out
 
 
@@ -59,7 +60,7 @@ def laue_rotations(space_group_name: str) -> np.ndarray:
     r = point_group_rotations(space_group_name)
     both = np.concatenate([r, -r])
     uniq = np.unique(both.reshape(len(both), 9), axis=0).reshape(-1, 3, 3)
-    uniq.flags.writeable = False
+    freeze_in_place(uniq)
     return uniq
 
 

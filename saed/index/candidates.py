@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from saed.index.tables import IndexTables, PhaseIndexTable
+from saed.readonly import freeze_in_place
 from saed.vectors2d import spans_plane
 
 __all__ = ["SpotSet", "Candidate", "spot_set", "seed_pairs", "find_candidates"]
@@ -92,8 +93,7 @@ def spot_set(measured) -> SpotSet:
         strong = inten >= 0.12 * ref
     arrays = dict(v_px=v, r_px=np.linalg.norm(v, axis=1), intensity=inten, weight=w, sigma_px=sig, strong=strong,
                   v_seed_px=v_seed, on_lattice=on_lat)
-    for a in arrays.values():
-        a.flags.writeable = False
+    freeze_in_place(*arrays.values())
     return SpotSet(**arrays)
 
 

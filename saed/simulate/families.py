@@ -28,7 +28,7 @@ from saed.crystal.miller import direction_to_4, format_indices, plane_to_4
 from saed.crystal.phase import Phase
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
-from saed.readonly import frozen_array
+from saed.readonly import freeze_in_place, frozen_array
 from saed.simulate.zone import ZonePattern, zone_axis_3, zone_pattern
 
 __all__ = ["ZoneFamily", "zone_families", "all_zone_axes", "interzone_angle_deg", "family_angles_deg",
@@ -96,7 +96,7 @@ def _all_axes(max_index: int) -> np.ndarray:
     g = np.mgrid[-n:n + 1, -n:n + 1, -n:n + 1].reshape(3, -1).T
     g = g[np.any(g != 0, axis=1)]
     g = g[np.gcd.reduce(np.abs(g), axis=1) == 1]
-    g.flags.writeable = False
+    freeze_in_place(g)
     return g
 
 

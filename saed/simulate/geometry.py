@@ -23,6 +23,7 @@ import numpy as np
 
 from saed.crystal.lattice import Lattice
 from saed.errors import InputError
+from saed.readonly import freeze_in_place
 
 __all__ = ["unit", "zone_reference_frame", "in_plane_rotation", "orientation_matrix", "check_zone_axis",
            "project_to_detector_inv_nm", "rotation_about_axis"]
@@ -71,7 +72,7 @@ def _reference_frame(lattice: Lattice, uvw: tuple[int, int, int]) -> np.ndarray:
     x = unit(ref - (ref @ z) * z)
     y = np.cross(z, x)
     out = np.array([x, y, z])
-    out.flags.writeable = False
+    freeze_in_place(out)
     return out
 
 

@@ -56,7 +56,7 @@ from saed.crystal.reflections import ReflectionTable, reflection_table
 from saed.crystal.symmetry import space_group
 from saed.errors import InputError
 from saed.physics import check_voltage_kv, electron_wavelength_nm
-from saed.readonly import frozen_array
+from saed.readonly import freeze_in_place, frozen_array
 from saed.simulate.geometry import check_zone_axis, orientation_matrix, unit
 
 __all__ = ["ZonePattern", "zone_pattern", "zone_axis_3", "plane_3", "centring_translations",
@@ -137,7 +137,7 @@ def centring_translations(space_group_name: str) -> np.ndarray:
     ops = space_group(space_group_name).operations()
     den = 24  # gemmi.Op.DEN
     t = np.array(ops.cen_ops, dtype=float) / den
-    t.flags.writeable = False
+    freeze_in_place(t)
     return t
 
 
@@ -189,8 +189,7 @@ def _table_extras(phase: Phase, max_g_inv_nm: float):
     base = 2 * span + 3
     keys = _keys(hkl, span, base)
     order = np.argsort(keys, kind="stable")
-    for a in (centring_absent, keys, order):
-        a.flags.writeable = False
+    freeze_in_place(centring_absent, keys, order)
     return centring_absent, keys, order, span, base
 
 
