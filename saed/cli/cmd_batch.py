@@ -159,7 +159,7 @@ def _per_file_calibrations(args, sources, base):
 
 
 def _check_outputs(args, inputs_raw) -> tuple[Path, Path | None, Path | None]:
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     out = check_writable(args.out)
     map_path = Path(args.map) if args.map else None
@@ -329,7 +329,7 @@ def _report(out, inputs, outcome, phases) -> None:
 def _scan_outputs(out, inputs, scan_shape, map_path, summary_path, phases, args) -> None:
     from saed.batch.results import iter_rows
     from saed.batch.scan import build_scan_map, rows_for_sources, summarize
-    from saed.report.files import atomic_write_text
+    from saed.files import atomic_write_text
     from saed.report.scan_map import render_scan_map, summary_csv
 
     lookup = {p.name: p for p in phases}

@@ -61,7 +61,7 @@ def add_arguments(p):
 
 
 def _check_args(args):
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     if args.list is not None:
         if args.image or args.standard:

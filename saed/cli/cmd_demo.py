@@ -48,7 +48,7 @@ def make_examples(folder) -> list[Path]:
     import tifffile
 
     from saed.synth.demo_set import DEMO_PATTERNS, make_demo_pattern
-    from saed.report.files import atomic_write_bytes, atomic_write_text
+    from saed.files import atomic_write_bytes, atomic_write_text
 
     d = Path(folder)
     if not d.is_dir():
@@ -79,7 +79,7 @@ def run(args) -> int:
     from saed.image.measure import inspect_file
     from saed.index import index_pattern, prepare_phases
     from saed.synth.demo_set import DEMO_PATTERNS, DEMO_PHASES, DEMO_VOLTAGE_KV
-    from saed.report.files import atomic_write_bytes, atomic_write_text
+    from saed.files import atomic_write_bytes, atomic_write_text
     from saed.report.index_html import ReportEntry, write_report
     from saed.report.index_json import result_json
     from saed.report.index_overlay import overlay_figure_bytes

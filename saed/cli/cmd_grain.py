@@ -93,7 +93,7 @@ def _range(v, what):
 
 
 def _check(args):
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     n = len(args.images)
     if n < 2:

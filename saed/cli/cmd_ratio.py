@@ -93,7 +93,7 @@ def run(args) -> int:
     from saed.index.ratio_method import solve_ratio
 
     if args.json and args.json != "-":
-        from saed.report.files import check_writable
+        from saed.files import check_writable
 
         check_writable(args.json)
     if args.top < 1:

@@ -44,7 +44,7 @@ def add_arguments(p):
 
 
 def _check_args(args):
-    from saed.report.files import check_writable
+    from saed.files import check_writable
 
     for path in (args.json if args.json not in (None, "-") else None, args.plot):
         if path:

@@ -10,5 +10,5 @@
   (``render_*.py``), ring plots, scan maps;
 * HTML reports: ``*_html.py``.
 
-Files are written through :mod:`saed.files` (``report/files.py`` is an old re-export of it).
+Files are written through :mod:`saed.files`.
 """

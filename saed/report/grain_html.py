@@ -7,7 +7,7 @@ from pathlib import Path
 
 from saed.crystal.notation import UNITS, Units, person_text, zone_text
 from saed.index.grain_values import GrainResult
-from saed.report.files import atomic_write_text
+from saed.files import atomic_write_text
 from saed.report.grain_summary import lookalike_word
 from saed.report.index_html import ReportEntry, report_html
 

@@ -24,7 +24,7 @@ import numpy as np
 
 from saed.report.spots_overlay import display_stretch
 from saed.index.values import IndexResult
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_SHORT, confidence_word, spot_label, zone_text
 from saed.report.render_pattern import nice_scale_bar_inv_nm
 

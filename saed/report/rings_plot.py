@@ -23,7 +23,7 @@ import math
 import numpy as np
 
 from saed.crystal.notation import UNITS, degrees_text, indices_text, plane_text
-from saed.report.files import atomic_write_bytes, check_writable
+from saed.files import atomic_write_bytes, check_writable
 from saed.report.text_boxes import TextBoxes
 from saed.simulate.rings import ring_outline_px
 

@@ -204,7 +204,7 @@ def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120, ste
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch
 
-    from saed.report.files import atomic_write_bytes
+    from saed.files import atomic_write_bytes
 
     ny, nx = scan.shape
     side = 4.2
