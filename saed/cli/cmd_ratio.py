@@ -65,32 +65,9 @@ def measurement_from_args(args):
     return measurement_from_d(*vals)
 
 
-def solution_json(s) -> dict:
-    from saed.crystal.miller import direction_to_4, plane_to_4
-
-    hexa = s.phase.is_hexagonal
-
-    def r(v, n):
-        return None if v is None else round(float(v), n)
-
-    return {
-        "rank": s.rank, "phase": s.phase.name, "zone_axis": list(s.zone_axis),
-        "zone_axis_4": direction_to_4(s.zone_axis).tolist() if hexa else None,
-        "hkl1": list(s.hkl1), "hkl2": list(s.hkl2),
-        "hkl1_4": plane_to_4(s.hkl1).tolist() if hexa else None,
-        "hkl2_4": plane_to_4(s.hkl2).tolist() if hexa else None,
-        "d1_nm_calc": r(s.d1_nm_calc, 6), "d2_nm_calc": r(s.d2_nm_calc, 6), "angle_deg_calc": r(s.angle_deg_calc, 3),
-        "ratio_calc": r(s.ratio_calc, 5), "d1_diff_pct": r(s.d1_diff_pct, 3), "d2_diff_pct": r(s.d2_diff_pct, 3),
-        "ratio_diff_pct": r(s.ratio_diff_pct, 3), "angle_diff_deg": r(s.angle_diff_deg, 3), "misfit": r(s.misfit, 4),
-        "g_sum": {"hkl": list(s.hkl_sum), "hkl_4": plane_to_4(s.hkl_sum).tolist() if hexa else None,
-                  "d_nm": r(s.d_sum_nm, 6), "allowed": s.sum_allowed},
-        "same_geometry": list(s.same_geometry), "lookalikes": list(s.lookalikes),
-        "other_pairs": [[list(a), list(b)] for a, b in s.other_pairs],
-    }
-
-
 def run(args) -> int:
     from saed.index.ratio_method import solve_ratio
+    from saed.report.ratio_json import ratio_json
 
     if args.json and args.json != "-":
         from saed.files import check_writable
@@ -102,13 +79,8 @@ def run(args) -> int:
     phases = phases_from_args(args)
     sols = solve_ratio(meas, phases, length_tol_pct=args.length_tol, angle_tol_deg=args.angle_tol, top=args.top,
                        max_zone_index=args.max_zone_index)
-    doc = {"measured": {"d1_nm": meas.d1_nm, "d2_nm": meas.d2_nm, "angle_deg": meas.angle_deg,
-                        "ratio": round(meas.ratio, 6),
-                        "radii_mm": list(meas.radii_mm) if meas.radii_mm else None,
-                        "camera_constant_nm_mm": args.camera_constant,
-                        "length_tol_pct": args.length_tol, "angle_tol_deg": args.angle_tol},
-           "phases": [p.name for p in phases],
-           "solutions": [solution_json(s) for s in sols]}
+    doc = ratio_json(meas, phases, sols, camera_constant_nm_mm=args.camera_constant, length_tol_pct=args.length_tol,
+                     angle_tol_deg=args.angle_tol)
     if args.json:
         write_json(args.json, doc)
         if args.json == "-":
