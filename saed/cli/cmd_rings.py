@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import math
-
 from saed.cli.common import add_image_arguments, add_calibration_options, add_phase_option, phases_from_args, \
     positive_float, print_calibration, read_and_calibrate, write_json
 from saed.cli.display import add_units_argument, units_from_args
@@ -57,52 +55,6 @@ def _check_args(args):
         raise InputError(f"--frame {args.frame}: frames are numbered from 0")
 
 
-def _hkl_json(phase, hkl):
-    from saed.crystal.miller import plane_to_4
-
-    h = [int(v) for v in hkl]
-    return h, ([int(v) for v in plane_to_4(h)] if phase.is_hexagonal else None)
-
-
-def solution_json(rank: int, m, obs, scale) -> dict:
-    """One ranked solution: phase(s), score, every matched ring with its hkl, rings unexplained, lines missing."""
-    s = m.scale_inv_nm_per_px
-    matched, unexplained = [], []
-    for i, a in enumerate(m.ring_lines):
-        r = float(obs.radius_px[i])
-        if not a:
-            unexplained.append({"ring": i + 1, "radius_px": round(r, 3), "d_nm": round(1 / (r * s), 6)})
-            continue
-        p_idx, j = max(a, key=lambda t: m.lines[t[0]].intensity[t[1]] * m.amounts[t[0]])
-        ln = m.lines[p_idx]
-        hkl, hkil = _hkl_json(ln.phase, ln.hkl[j])
-        matched.append({"ring": i + 1, "d_nm": round(1 / (r * s), 6), "d_nm_calc": round(float(ln.d_nm[j]), 6),
-                        "hkl": hkl, "hkil": hkil, "families": [ln.hkl_label(jj) for pp, jj in a if pp == p_idx],
-                        "phase": ln.phase.name, "error_pct": round(100 * float(m.ring_delta_rel[i]), 4),
-                        "also": [f"{m.lines[pp].phase.name} {m.lines[pp].hkl_label(jj)}" for pp, jj in a if pp != p_idx]})
-    missing = []
-    for p_idx, j, v in m.missing:
-        ln = m.lines[p_idx]
-        hkl, hkil = _hkl_json(ln.phase, ln.hkl[j])
-        missing.append({"phase": ln.phase.name, "hkl": hkl, "hkil": hkil, "d_nm": round(float(ln.d_nm[j]), 6),
-                        "radius_px": round(float(ln.g_inv_nm[j] / s), 2), "expected_intensity": round(v, 4)})
-    total = sum(m.amounts) or 1.0
-    return {
-        "rank": rank,
-        "phase": m.name,
-        "phases": [p.name for p in m.phases],
-        "fractions": [round(a / total, 4) for a in m.amounts],
-        "score": round(m.score, 4),
-        "scale_inv_nm_per_px": s,
-        "scale_change_pct": None if scale is None else round(100 * (s / scale - 1), 4),
-        "r_factor": round(m.r_factor, 4),
-        "position_agreement": round(m.position_quality, 4),
-        "rings_matched": matched,
-        "rings_unexplained": unexplained,
-        "lines_missing": missing,
-    }
-
-
 def run(args) -> int:
     _check_args(args)
     from saed.cli.progress import Progress
@@ -110,6 +62,7 @@ def run(args) -> int:
     from saed.rings.identify import identify_phases
     from saed.rings.match import ObservedRings
     from saed.rings.measure import measure_rings
+    from saed.report.rings_json import rings_json
 
     image, resolved = read_and_calibrate(args)
     cal = resolved.calibration
@@ -132,31 +85,7 @@ def run(args) -> int:
                                 scale_sigma_rel=tolerance_pct / 100, tol_rel=args.tolerance / 100, top=args.top,
                                 mixtures=not args.no_mixtures, progress=bar)
     s = cal.scale_inv_nm_per_px
-    doc = {
-        "image": args.image,
-        "center_px": [round(v, 3) for v in measured.center_px],
-        "ellipse": {"axis_ratio": round(measured.ellipse.axis_ratio, 6),
-                    "major_axis_angle_deg": round(measured.ellipse.major_axis_angle_deg, 2),
-                    "source": "calibration" if cal.ellipse is not None else "fitted"},
-        "scale_inv_nm_per_px": s,
-        "scale_tolerance_pct": tolerance_pct if s is not None else None,
-        "voltage_kv": cal.voltage_kv,
-        "rings": [],
-        "solutions": [solution_json(k + 1, m, obs, s) for k, m in enumerate(ident.solutions)],
-        "notes": list(measured.notes) + list(ident.notes),
-        **resolved.to_json(),
-    }
-    for i in range(len(rings)):
-        r = float(rings.radius_px[i])
-        g = None if s is None else r * s
-        cov = measured.coverage[i]
-        doc["rings"].append({
-            "radius_px": round(r, 3), "radius_sigma_px": round(float(rings.radius_sigma_px[i]), 4),
-            "g_inv_nm": None if g is None else round(g, 5), "d_nm": None if g is None else round(1 / g, 6),
-            "d_sigma_nm": None if g is None else round(float(rings.radius_sigma_px[i]) / r / g, 7),
-            "intensity": round(float(obs.intensity[i]), 5), "width_px": round(float(rings.width_px[i]), 3),
-            "snr": round(float(rings.snr[i]), 1), "coverage": None if not math.isfinite(cov) else round(float(cov), 3),
-        })
+    doc = rings_json(args.image, measured, obs, ident, resolved, scale_tolerance_pct=tolerance_pct)
     if args.plot:
         from saed.report.rings_plot import plot_rings
 
