@@ -98,9 +98,9 @@ def run_list(args) -> int:
     folder = history_folder(args.list or args.history)
     entries, problems = list_calibrations(folder)
     if args.json:
-        write_json(args.json, {"folder": str(folder), "calibrations": [
-            {"file": str(e.path), "camera_length_label_mm": e.label_mm, **e.calibration.to_json(),
-             "residual_pct": e.residual_pct} for e in entries], "skipped": problems})
+        from saed.report.calibrate_json import history_list_json
+
+        write_json(args.json, history_list_json(folder, entries, problems))
         if args.json == "-":
             return 0
     if not entries:
@@ -132,34 +132,6 @@ def run_list(args) -> int:
     return 0
 
 
-def result_json(res, *, image: str, zone=None) -> dict:
-    """The contract's calibrate JSON (plus rings, voltage, date, ...)."""
-    cal = res.calibration
-    doc = {
-        "standard": cal.standard,
-        "scale_inv_nm_per_px": cal.scale_inv_nm_per_px,
-        "center_px": [round(v, 3) for v in cal.center_px] if cal.center_px else None,
-        "ellipse": ({"axis_ratio": round(cal.ellipse.axis_ratio, 6),
-                     "major_axis_angle_deg": round(cal.ellipse.major_axis_angle_deg, 2)} if cal.ellipse else None),
-        "camera_constant_nm_mm": cal.camera_constant_nm_mm,
-        "camera_length_mm": cal.implied_camera_length_mm,
-        "residual_pct": round(res.residual_pct, 5),
-        "image": image,
-        "kind": "zone" if zone is not None else "rings",
-        "zone_axis": list(zone) if zone is not None else None,
-        "voltage_kv": cal.voltage_kv,
-        "wavelength_nm": cal.wavelength_nm,
-        "pixel_pitch_um": cal.pixel_pitch_um,
-        "scale_sigma_pct": round(100 * res.scale_sigma_rel, 5),
-        "date": cal.date,
-        "alpha_axis_deg": cal.alpha_axis_deg,
-        "notes": list(res.notes),
-    }
-    doc["rings"] = [{"radius_px": round(r[0], 3), "hkl": r[1], "d_nm_standard": r[2], "d_nm_measured": round(r[3], 6),
-                     "misfit_pct": None if r[4] is None else round(r[4], 4)} for r in res.ring_rows]
-    return doc
-
-
 def run(args) -> int:
     _check_args(args)
     if args.list is not None:
@@ -167,6 +139,7 @@ def run(args) -> int:
     from saed.calibrate.history import history_folder, store_calibration
     from saed.crystal.phase import load_phase
     from saed.calibrate.resolve import resolve_calibration
+    from saed.report.calibrate_json import calibrate_json, calibration_file_extras
     from saed.image.io import read_mask_image, read_pattern
 
     standard = load_phase(args.standard)
@@ -202,20 +175,10 @@ def run(args) -> int:
         from dataclasses import replace as _replace
 
         res = _replace(res, calibration=_replace(res.calibration, alpha_axis_deg=args.alpha_axis))
-    doc = result_json(res, image=args.image, zone=zone)
-    doc.update(prior.to_json())
     cal = res.calibration
-    doc["warnings"] = _warnings(cal, args)
-    before = prior.calibration.scale_inv_nm_per_px
-    if before is not None:
-        diff = 100 * abs(cal.scale_inv_nm_per_px / before - 1)
-        doc["scale_change_from_source_pct"] = round(100 * (cal.scale_inv_nm_per_px / before - 1), 4)
-        if diff > 1.0:
-            doc["notes"].append(f"the measured scale differs by {diff:.1f} % from the {prior.source} "
-                                f"({before:.6g} 1/nm per px, {prior.detail})")
-    extra = {"residual_pct": doc["residual_pct"], "scale_sigma_pct": doc["scale_sigma_pct"], "image": args.image,
-             "kind": doc["kind"], "zone_axis": doc["zone_axis"], "n_rings_used": sum(r[1] is not None for r in res.ring_rows)}
-    written = []
+    warnings = _warnings(cal, args)
+    extra = calibration_file_extras(res, image=args.image, zone=zone)
+    written, history_file = [], None
     if args.plot:
         from saed.report.rings_plot import plot_calibration
 
@@ -228,9 +191,10 @@ def run(args) -> int:
         write_calibration_file(cal, args.out, nominal_camera_length_mm=args.camera_length, **extra)
         written.append(("calibration file", args.out))
     if not args.no_history:
-        path = store_calibration(cal, history_folder(args.history), nominal_camera_length_mm=args.camera_length, **extra)
-        doc["history_file"] = str(path)
-        written.append(("history", str(path)))
+        history_file = store_calibration(cal, history_folder(args.history), nominal_camera_length_mm=args.camera_length,
+                                         **extra)
+        written.append(("history", str(history_file)))
+    doc = calibrate_json(res, image=args.image, zone=zone, prior=prior, warnings=warnings, history_file=history_file)
     if args.json:
         write_json(args.json, doc)
         if args.json == "-":
