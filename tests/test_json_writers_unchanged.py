@@ -133,3 +133,24 @@ def test_json_document_keeps_every_field_and_value(case, tmp_path, capsys):
     if os.environ.get("SAED_RECORD_JSON"):
         ref.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
     _same(json.loads(ref.read_text()), now, case)
+
+
+def test_bench_json_keeps_every_field_and_value(tmp_path, monkeypatch, capsys):
+    """``saed bench --json`` on fixed timings (the run itself is replaced: its medians differ every time);
+    the extras cover every kind the writer treats differently (numbers and text kept, the rest as text)."""
+    from saed import bench
+
+    floor = bench.Result("floor: sum of a 2048 x 2048 image", median_s=0.0125, min_s=0.0121, n=7, target_s=None)
+    results = [bench.Result("index one pattern", median_s=0.84, min_s=0.8, n=5, target_s=2.0, ratio_to_floor=67.2,
+                            note="loaded machine", extra={"rank1_pct": 96.5, "cases": 40, "phase": "Co-fcc",
+                                                          "zone": (0, 1, 1), "missing": None}),
+               bench.Result("scan frames", median_s=3.5, min_s=3.4, n=3, target_s=None, ratio_to_floor=280.0, per=100)]
+    monkeypatch.setattr(bench, "run", lambda **kw: ({"image2048": floor}, results))
+    out = tmp_path / "bench.json"
+    assert main(["bench", "--json", str(out)]) == 0
+    capsys.readouterr()
+    now = json.loads(out.read_text())
+    ref = BEFORE / "bench_fixed.json"
+    if os.environ.get("SAED_RECORD_JSON"):
+        ref.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
+    _same(json.loads(ref.read_text()), now, "bench")
