@@ -37,11 +37,7 @@ def run(args) -> int:
         for k, v in r.extra.items():
             print(f"    {k}: {v}")
     if args.json:
-        write_json(args.json, {
-            "floors": {k: {"name": f.name, "median_s": f.median_s} for k, f in floors.items()},
-            "results": [{"name": r.name, "median_s": r.median_s, "min_s": r.min_s, "n": r.n,
-                         "ratio_to_floor": r.ratio_to_floor, "target_s": r.target_s, "per": r.per,
-                         "extra": {k: (v if isinstance(v, (int, float, str)) else str(v)) for k, v in r.extra.items()}}
-                        for r in results],
-        })
+        from saed.report.bench_json import bench_json
+
+        write_json(args.json, bench_json(floors, results))
     return 0
