@@ -154,3 +154,20 @@ def test_bench_json_keeps_every_field_and_value(tmp_path, monkeypatch, capsys):
     if os.environ.get("SAED_RECORD_JSON"):
         ref.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
     _same(json.loads(ref.read_text()), now, "bench")
+
+
+def test_grain_json_keeps_every_field_and_value(tmp_path, capsys):
+    """``saed grain --json`` on the fcc [112] + [111] series of tests/test_grain.py (drawn by the synthetic
+    detector at holder readings worked out there, not by the grain solver)."""
+    from test_grain import SCALE, _series, _tilt_args
+
+    paths, tilts, _ = _series(tmp_path, [(1, 1, 2), (1, 1, 1)])
+    out = tmp_path / "grain.json"
+    assert main(["grain", *paths, *_tilt_args(tilts), "--phase", "Co-fcc", "--phase", "Co-hcp", "--scale",
+                 f"{SCALE}", "--alpha-axis", "25", "--json", str(out)]) == 0
+    capsys.readouterr()
+    now = json.loads(out.read_text().replace(str(tmp_path), "TMP"))
+    ref = BEFORE / "grain_fcc_112_111.json"
+    if os.environ.get("SAED_RECORD_JSON"):
+        ref.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
+    _same(json.loads(ref.read_text()), now, "grain")
