@@ -188,11 +188,8 @@ def run(args) -> int:
         print_calibration(r, file=out, units=units_from_args(args))
     print(format_grain_summary(result, alpha_axis_note=note, style=terminal_style(out)), file=out)
     if args.json:
-        doc = grain_json(result)
-        doc["calibrations"] = [{"image": str(path), **r.to_json()} for path, (_, r) in zip(args.images, read)]
-        if note:
-            doc["notes"] = [note]
-        write_json(args.json, doc)
+        write_json(args.json, grain_json(result, calibrations=[(path, r) for path, (_, r) in zip(args.images, read)],
+                                         note=note))
     if args.report:
         from saed.report.grain_html import write_grain_report
 

@@ -6,20 +6,17 @@ import numpy as np
 
 from saed.index.grain_values import GrainResult
 from saed.report.index_json import result_json
+from saed.report.json_numbers import json_float as _num, json_ints as _ints
 
 __all__ = ["grain_json"]
 
 
-def _num(v, nd):
-    return None if v is None or not np.isfinite(v) else round(float(v), nd)
+def grain_json(res: GrainResult, *, per_pattern: bool = True, calibrations=None, note: str | None = None) -> dict:
+    """Solutions (best first), look-alikes, the third pattern to record, and each pattern's own result.
 
-
-def _ints(v):
-    return None if v is None else [int(x) for x in v]
-
-
-def grain_json(res: GrainResult, *, per_pattern: bool = True) -> dict:
-    """Solutions (best first), look-alikes, the third pattern to record, and each pattern's own result."""
+    `calibrations` (``saed grain``): (image path, resolved calibration) of each pattern, written with
+    where its calibration came from; `note`: the note on the alpha axis of the series, when there is one.
+    """
     sols = []
     for rank, s in enumerate(res.solutions, 1):
         sols.append({
@@ -51,4 +48,8 @@ def grain_json(res: GrainResult, *, per_pattern: bool = True) -> dict:
     }
     if per_pattern:
         doc["per_pattern"] = [result_json(gp.result, image=gp.image) for gp in res.patterns]
+    if calibrations is not None:
+        doc["calibrations"] = [{"image": str(path), **r.to_json()} for path, r in calibrations]
+    if note:
+        doc["notes"] = [note]
     return doc
