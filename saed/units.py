@@ -22,7 +22,8 @@ import re
 from saed.errors import InputError
 
 __all__ = ["reciprocal_factor_inv_nm", "real_length_factor_nm", "camera_constant_factor_nm_mm", "unit_kind",
-           "normalise_unit", "scale_from_camera_constant_inv_nm_per_px", "parse_scale_text", "RECIPROCAL_UNITS_INV_NM"]
+           "normalise_unit", "scale_from_camera_constant_inv_nm_per_px", "parse_scale_text", "RECIPROCAL_UNITS_INV_NM",
+           "percent", "fraction", "percent_off"]
 
 #: Lengths in nm of the length units accepted (after :func:`normalise_unit`).
 _LENGTH_NM = {"nm": 1.0, "a": 0.1, "å": 0.1, "um": 1e3, "µm": 1e3, "pm": 1e-3, "m": 1e9, "mm": 1e6, "cm": 1e7}
@@ -159,3 +160,35 @@ def parse_scale_text(text: str) -> tuple[float, str]:
         raise InputError(f"scale {text!r} is a camera constant (lambda L), not a per-pixel scale: give "
                          "--camera-length with --pixel-pitch, or the scale in 1/nm per pixel")
     raise InputError(f"scale {text!r}: unknown unit {unit!r} (use 1/nm, nm^-1, 1/Å or 1/m per pixel)")
+
+
+# ---------------------------------------------------------------- percent and fraction
+# saed computes with fractions (names ending ``_frac`` or ``_rel``) and shows and stores percent
+# (names ending ``_pct``); these three are the only places where one becomes the other.
+
+
+def percent(fraction_value):
+    """A fraction as percent.
+
+    >>> percent(0.0125)
+    1.25
+    """
+    return 100.0 * fraction_value
+
+
+def fraction(percent_value):
+    """A percent value as a fraction.
+
+    >>> fraction(2.5)
+    0.025
+    """
+    return percent_value / 100.0
+
+
+def percent_off(value, reference):
+    """How far `value` lies from `reference`, in percent of `reference` (signed).
+
+    >>> round(percent_off(101.5, 100.0), 9), round(percent_off(0.98, 1.0), 9)
+    (1.5, -2.0)
+    """
+    return 100.0 * (value / reference - 1.0)

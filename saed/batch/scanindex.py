@@ -51,6 +51,7 @@ from saed.batch.indexing import IndexJob, lookalike_note, row_from_result, row_f
 from saed.batch.results import Row
 from saed.calibration import Calibration
 from saed.errors import ImageError
+from saed.units import fraction
 
 __all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY", "FULL",
            "LEAN_SEARCH"]
@@ -146,7 +147,7 @@ def _options(job: IndexJob, measured):
     cal = measured.calibration
     scale = cal.scale_inv_nm_per_px if cal is not None else None
     lt = opts.get("length_tol_pct")
-    return scale, (DEFAULT_LENGTH_TOL_PCT if lt is None else float(lt)) / 100.0, cal.pixel_pitch_um if cal else None
+    return scale, fraction(DEFAULT_LENGTH_TOL_PCT if lt is None else float(lt)), cal.pixel_pitch_um if cal else None
 
 
 def _warm(measured, job: IndexJob, st: _State):

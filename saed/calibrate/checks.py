@@ -11,6 +11,7 @@ from __future__ import annotations
 import statistics
 
 from saed.calibration import Calibration
+from saed.units import percent_off
 
 __all__ = ["NOMINAL_LIMIT_PCT", "HISTORY_LIMIT_PCT", "nominal_warning", "history_warning"]
 
@@ -34,7 +35,7 @@ def nominal_warning(cal: Calibration, nominal_camera_length_mm: float | None) ->
     measured = cal.implied_camera_length_mm
     if nominal_camera_length_mm is None or measured is None:
         return None
-    off = 100.0 * (measured / nominal_camera_length_mm - 1.0)
+    off = percent_off(measured, nominal_camera_length_mm)
     if abs(off) <= NOMINAL_LIMIT_PCT:
         return None
     return (f"measured camera length {measured:.1f} mm is {off:+.1f} % from the nominal {nominal_camera_length_mm:g} mm "
@@ -65,7 +66,7 @@ def history_warning(cal: Calibration, entries, *, nominal_camera_length_mm: floa
     pairs = []
     for e in entries:
         if label is not None:
-            if e.label_mm is None or abs(e.label_mm / label - 1.0) * 100.0 > NOMINAL_LIMIT_PCT:
+            if e.label_mm is None or abs(percent_off(e.label_mm, label)) > NOMINAL_LIMIT_PCT:
                 continue
             if nominal_camera_length_mm is not None and e.nominal_camera_length_mm is not None \
                     and round(e.nominal_camera_length_mm) != round(nominal_camera_length_mm):
@@ -79,7 +80,7 @@ def history_warning(cal: Calibration, entries, *, nominal_camera_length_mm: floa
     olds = [c[1] for c, _ in pairs if c[2] == what]
     ref = statistics.median(olds)
     new = pairs[0][0][0]
-    off = 100.0 * (new / ref - 1.0)
+    off = percent_off(new, ref)
     if abs(off) <= HISTORY_LIMIT_PCT:
         return None
     where = f"camera length {label:g} mm" if label is not None else "this voltage and detector"

@@ -30,6 +30,7 @@ from saed.calibration import (CALIBRATION_FORMAT, PLAUSIBLE_SCALE_INV_NM_PER_PX,
                               read_calibration_file)
 from saed.errors import InputError
 from saed.image.metadata import FileMetadata
+from saed.units import percent_off
 
 __all__ = ["ResolvedCalibration", "resolve_calibration", "sidecar_path", "SOURCES", "WARN_DIFFERENCE_PCT"]
 
@@ -87,7 +88,7 @@ def sidecar_path(image_path) -> Path:
 
 
 def _pct(a: float, b: float) -> float:
-    return 100.0 * abs(a - b) / b
+    return abs(percent_off(a, b))
 
 
 def _metadata_scale(meta: FileMetadata | None, notes: list[str]) -> tuple[float | None, str]:

@@ -22,6 +22,7 @@ from saed.crystal.phase import Phase
 from saed.errors import InputError
 from saed.rings.match import ObservedRings, RingMatch, match_scale
 from saed.rings.measure import RingMeasurement, measure_rings
+from saed.units import percent
 
 __all__ = ["RingCalibration", "calibrate_from_rings", "fit_standard", "MIN_EXPLAINED"]
 
@@ -145,13 +146,13 @@ def calibrate_from_rings(image, standard: Phase, *, voltage_kv: float = 200.0, p
         if a:
             j = max(a, key=lambda m: lines.intensity[m[1]])[1]
             d_std = float(lines.d_nm[j])
-            dpct = 100.0 * float(best.ring_delta_rel[i])
+            dpct = percent(float(best.ring_delta_rel[i]))
             rows.append((r, "/".join(lines.hkl_label(m[1]) for m in a), d_std, d_meas, dpct))
             deltas.append(best.ring_delta_rel[i])
         else:
             rows.append((r, None, None, d_meas, None))
             unfit.append(i)
-    residual_pct = 100.0 * float(np.sqrt(np.mean(np.square(deltas)))) if deltas else float("nan")
+    residual_pct = percent(float(np.sqrt(np.mean(np.square(deltas))))) if deltas else float("nan")
     notes = list(measured.notes)
     if unfit:
         notes.append(f"rings at r = {_fmt_rings(measured, unfit)} px do not fit {standard.name} and were left out "

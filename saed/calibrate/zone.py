@@ -29,6 +29,7 @@ from saed import physics
 from saed.calibration import Calibration, Ellipse
 from saed.crystal.phase import Phase
 from saed.errors import InputError
+from saed.units import percent, percent_off
 
 __all__ = ["ZoneCalibration", "calibrate_from_zone", "zone_lattice_basis"]
 
@@ -192,13 +193,13 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
     angle = math.degrees(math.atan2(major[1], major[0])) % 180.0
     notes = []
     if q > MAX_AXIS_RATIO:
-        raise InputError(f"the pattern is distorted by {100 * (q - 1):.0f} % against {standard.name} [{zone_str}]: "
+        raise InputError(f"the pattern is distorted by {percent(q - 1):.0f} % against {standard.name} [{zone_str}]: "
                          "wrong standard or zone?")
     ellipse = Ellipse(q, angle)
     residual_frac = float(np.sqrt(np.mean(resid**2)))
-    residual_pct = 100.0 * residual_frac
+    residual_pct = percent(residual_frac)
     if residual_frac > tol_rel:
-        notes.append(f"spot misfit {residual_pct:.2f} % exceeds the tolerance {100 * tol_rel:.2f} %: a tilted or bent "
+        notes.append(f"spot misfit {residual_pct:.2f} % exceeds the tolerance {percent(tol_rel):.2f} %: a tilted or bent "
                      "crystal, or a poor centre")
     n = len(p)
     scale_sigma_frac = residual_frac / math.sqrt(n - 4) if n > 4 else residual_frac
@@ -212,7 +213,7 @@ def calibrate_from_zone(image, standard: Phase, zone_axis, *, voltage_kv: float 
         hk = "".join(str(int(v)) if v >= 0 else f"-{-int(v)}" for v in lab)
         d_std = 1.0 / float(np.hypot(*h[k]))
         d_meas = 1.0 / (r_corr[k] * scale)
-        rows.append((float(r_corr[k]), hk, float(d_std), float(d_meas), float(100.0 * (d_std / d_meas - 1))))
+        rows.append((float(r_corr[k]), hk, float(d_std), float(d_meas), float(percent_off(d_std, d_meas))))
     if date is None:
         date = _dt.datetime.now().astimezone().isoformat(timespec="seconds")
     cal = Calibration(scale_inv_nm_per_px=scale, voltage_kv=v, center_px=mp.center_px, ellipse=ellipse,

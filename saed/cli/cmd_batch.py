@@ -15,6 +15,7 @@ from saed.cli.common import (add_calibration_options, add_matching_options, add_
                              matching_options_from_args, phases_from_args, positive_float)
 from saed.cli.progress import Progress, _fmt_s
 from saed.errors import InputError
+from saed.units import percent
 
 NAME = "batch"
 HELP = "index many patterns (files, folders, stacks) on this machine or a Dask cluster; resumable CSV"
@@ -317,7 +318,7 @@ def _report(out, inputs, outcome, phases) -> None:
     if searches["warm"] or checked:
         print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; "
               + (f"of {checked} checked against the full search, {searches[CHECK_SAME]} agree "
-                 f"({100 * searches[CHECK_SAME] / checked:.1f} %)" if checked
+                 f"({percent(searches[CHECK_SAME] / checked):.1f} %)" if checked
                  else "none checked against the full search (see --check-every)")
               + (f"; {searches[CHECK_DIFFER]} differ (search column '{CHECK_DIFFER}')" if searches[CHECK_DIFFER] else ""))
     for status, n in errors.most_common(3):

@@ -9,6 +9,7 @@ from saed.cli.common import add_image_arguments, finite_float, positive_float, w
 from saed.cli.display import add_units_argument, units_from_args
 from saed.crystal.notation import terminal_style
 from saed.errors import InputError
+from saed.units import fraction, percent_off
 
 NAME = "calibrate"
 HELP = "calibrate the detector from a standard (Au/Al ring pattern, or a single crystal with --zone); --list the history"
@@ -164,13 +165,13 @@ def run(args) -> int:
 
         zone = parse_indices(args.zone, "--zone")
         res = calibrate_from_zone(image, standard, zone, voltage_kv=voltage, pixel_pitch_um=args.pixel_pitch,
-                                  mask=mask, center_px=args.center, tol_rel=args.tolerance / 100)
+                                  mask=mask, center_px=args.center, tol_rel=fraction(args.tolerance))
     else:
         from saed.calibrate.rings import calibrate_from_rings
 
         res = calibrate_from_rings(image, standard, voltage_kv=voltage, pixel_pitch_um=args.pixel_pitch, mask=mask,
                                    center_px=args.center, fit_ellipse=not args.no_ellipse,
-                                   tol_rel=args.tolerance / 100, allow_spots=args.spotty)
+                                   tol_rel=fraction(args.tolerance), allow_spots=args.spotty)
     if args.alpha_axis is not None:
         from dataclasses import replace as _replace
 
@@ -244,7 +245,7 @@ def _print(res, doc, args):
         print(f"  ellipse        axis ratio {cal.ellipse.axis_ratio:.4f}, long axis at {cal.ellipse.major_axis_angle_deg:.1f} deg")
     length = cal.implied_camera_length_mm
     if length is not None:
-        nominal = f" (nominal {args.camera_length:g} mm: {100 * (length / args.camera_length - 1):+.2f} %)" if args.camera_length else ""
+        nominal = f" (nominal {args.camera_length:g} mm: {percent_off(length, args.camera_length):+.2f} %)" if args.camera_length else ""
         print(f"  camera length  {length:.2f} mm{nominal}, camera constant lambda L = {cal.camera_constant_nm_mm:.5f} nm mm")
     else:
         print("  camera length  - (give --pixel-pitch UM for camera length and camera constant)")

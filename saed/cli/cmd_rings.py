@@ -6,6 +6,7 @@ from saed.cli.common import add_image_arguments, add_calibration_options, add_ph
     positive_float, print_calibration, read_and_calibrate, write_json
 from saed.cli.display import add_units_argument, units_from_args
 from saed.errors import InputError
+from saed.units import fraction, percent, percent_off
 
 NAME = "rings"
 HELP = "ring pattern: centre, ellipse, ring radii and d-spacings, phase identification (mixtures of two included)"
@@ -82,7 +83,7 @@ def run(args) -> int:
         tolerance_pct = DEFAULT_SCALE_TOLERANCE_PCT["file" if measured_cal else "options"]
     with Progress(len(phases), "rings") as bar:
         ident = identify_phases(obs, phases, scale_inv_nm_per_px=cal.scale_inv_nm_per_px,
-                                scale_sigma_rel=tolerance_pct / 100, tol_rel=args.tolerance / 100, top=args.top,
+                                scale_sigma_rel=fraction(tolerance_pct), tol_rel=fraction(args.tolerance), top=args.top,
                                 mixtures=not args.no_mixtures, progress=bar)
     s = cal.scale_inv_nm_per_px
     doc = rings_json(args.image, measured, obs, ident, resolved, scale_tolerance_pct=tolerance_pct)
@@ -117,7 +118,7 @@ def _print_ring_table(sol, units, un) -> None:
     style = terminal_style()
     rows = []
     for m in sol["rings_matched"]:
-        err = 100.0 * (m["d_nm"] / m["d_nm_calc"] - 1.0)
+        err = percent_off(m["d_nm"], m["d_nm_calc"])
         # each family on its own: the shared formatter leaves an index group after a "/" as it is
         hkl = "/".join(person_text(f, style) for f in m["families"])
         rows.append((m["ring"], units.length_text(m["d_nm"], 5), units.length_text(m["d_nm_calc"], 5), f"{err:+.2f}",
@@ -156,7 +157,7 @@ def _print(doc, ident, units=None):
         print("saed rings: no candidate phase explains these rings", file=sys.stderr)
     for sol in doc["solutions"]:
         frac = "" if len(sol["phases"]) == 1 else " (" + ", ".join(
-            f"{p} {100 * f:.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
+            f"{p} {percent(f):.0f} %" for p, f in zip(sol["phases"], sol["fractions"])) + ")"
         extra = "" if s else f", implied scale {units.reciprocal(sol['scale_inv_nm_per_px']):.5g} {inv} per px"
         unexpl = sol["rings_unexplained"]
         print(f"#{sol['rank']} {sol['phase']}{frac}: score {sol['score']:.3f}, {len(sol['rings_matched'])} of "

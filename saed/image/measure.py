@@ -36,6 +36,7 @@ from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
 from saed.image.spots import SpotSearch, _adaptive_width, estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
+from saed.units import percent
 
 __all__ = ["measure_pattern", "measure_file", "inspect_pattern", "inspect_file", "Inspection", "DEFAULT_SNR_MIN",
            "DEFAULT_DETECT_SNR"]
@@ -247,7 +248,7 @@ def _mask_image(image, mask, *, name: str, saturation_level: float | None) -> _M
     sat_mask, sat_level = saturation_mask(img, level=saturation_level)
     sat_frac = float(sat_mask.mean())
     if sat_frac > MAX_SATURATED_FRACTION:
-        raise ImageError(f"{name}: {100 * sat_frac:.0f}% of the pixels are saturated at {sat_level:g}; "
+        raise ImageError(f"{name}: {percent(sat_frac):.0f}% of the pixels are saturated at {sat_level:g}; "
                          "record a shorter exposure")
     if masked.all():
         raise ImageError(f"{name}: every pixel is masked")

@@ -45,6 +45,7 @@ from saed.index.orientation_relationships import (OrientationRelationship, descr
 from saed.index.ordering import DECISIVE_Z, OrderEvidence, order_evidence
 from saed.index.score import score_candidate
 from saed.index.values import Solution
+from saed.units import percent, percent_off
 
 __all__ = ["Crystal", "CrossDoubleDiffraction", "MultiCrystalResult", "SharedScale", "find_crystals",
            "settle_shared_scale", "MIN_OWN_SPOTS", "MIN_RESIDUAL_SHARE", "MAX_ABSENT"]
@@ -272,7 +273,7 @@ def _tie(alt, best) -> bool:
 
     err = alt[0].scale_error_pct
     return (no_scale(alt) >= 0.8 * no_scale(best) and alt[3] >= 0.3 * best[3]
-            and (err is None or abs(err) <= 100.0 * SCALE_TOL))
+            and (err is None or abs(err) <= percent(SCALE_TOL)))
 
 
 def _prefer_relationship(tied, first: Solution, tables):
@@ -411,7 +412,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         res_share = float(spots.weight[residual].sum())
         if found is None:
             if len(residual) >= MIN_OWN_SPOTS and res_share >= 0.1:
-                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                notes.append(f"{len(residual)} spots ({percent(res_share):.0f} % of the spot intensity) are not explained by "
                              f"{'the crystal' if len(sols) == 1 else 'the crystals'} found, and no further crystal among "
                              "the candidate phases fits them (another phase, or a high-index zone?)")
             break
@@ -427,15 +428,15 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
               and (own_int >= MIN_INTENSITY_SHARE or superlattice) and _n_rows(spots.v_px[list(own)]) >= 2)
         if not ok:
             if len(own) >= 3:
-                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                notes.append(f"{len(residual)} spots ({percent(res_share):.0f} % of the spot intensity) are not explained by "
                              f"crystal {len(sols)}; the best further crystal, {sol.phase_name} [{_zone(sol)}], explains "
                              f"{'only ' if share < MIN_RESIDUAL_SHARE or len(own) < MIN_OWN_SPOTS else ''}{len(own)} of "
-                             f"them ({100 * share:.0f} % of their weight, {100 * own_int:.1f} % of all spot intensity"
-                             f"{f', {100 * absent:.0f} % of its own pattern missing' if absent > max_absent else ''}): too "
+                             f"them ({percent(share):.0f} % of their weight, {percent(own_int):.1f} % of all spot intensity"
+                             f"{f', {percent(absent):.0f} % of its own pattern missing' if absent > max_absent else ''}): too "
                              "weak to decide, not reported as a crystal (a longer exposure, or the aperture on the "
                              "second crystal alone, would decide)")
             elif len(residual) >= MIN_OWN_SPOTS and res_share >= 0.1:
-                notes.append(f"{len(residual)} spots ({100 * res_share:.0f} % of the spot intensity) are not explained by "
+                notes.append(f"{len(residual)} spots ({percent(res_share):.0f} % of the spot intensity) are not explained by "
                              f"{'the crystal' if len(sols) == 1 else 'the crystals'} found, and no further crystal among "
                              "the candidate phases fits them (another phase, a high-index zone, or stray spots)")
             break
@@ -458,7 +459,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     left = np.flatnonzero(~explained)
     left_share = float(spots.weight[left].sum())
     if 1 < len(sols) == max_crystals and len(left) >= MIN_OWN_SPOTS and left_share >= 0.1:
-        notes.append(f"{len(left)} spots ({100 * left_share:.0f} % of the spot intensity) are explained by none of the "
+        notes.append(f"{len(left)} spots ({percent(left_share):.0f} % of the spot intensity) are explained by none of the "
                      f"{len(sols)} crystals" + (": --max-crystals 3 looks for a third crystal" if max_crystals < 3 else ""))
     # ordered precipitate / disordered matrix in one orientation
     pair_note = ""
@@ -585,7 +586,7 @@ def _measured_ratio(ev: OrderEvidence) -> str:
 
 def _two_crystals_note(ev: OrderEvidence, ordered: str, disordered: str) -> str:
     """The note of a matrix with ordered precipitates (fundamental spots decisively too strong)."""
-    share = 100 * min(ev.ratio, 1.0)
+    share = percent(min(ev.ratio, 1.0))
     return (f"{ordered} precipitates in a {disordered} matrix of the same orientation (cube-on-cube): "
             f"{_measured_ratio(ev)}, so the fundamental spots are too strong for one ordered crystal; the "
             f"superlattice spots belong to the precipitates (about {share:.0f} % of the area). Caution: a partly "
@@ -611,7 +612,7 @@ def _one_crystal_note(ev: OrderEvidence | None, ordered: str, disordered: str) -
         head = (f"one ordered {ordered} crystal, or {ordered} precipitates in a {disordered} matrix of the same "
                 f"orientation: {_measured_ratio(ev)}; this fits one fully ordered crystal as well as a partly ordered "
                 f"one (order parameter down to about {math.sqrt(low):.2f}) or precipitates filling down to about "
-                f"{100 * low:.0f} % of the area")
+                f"{percent(low):.0f} % of the area")
     return (head + "; they share every fundamental spot, so this pattern cannot decide: a dark-field image in a "
             "superlattice spot decides (particles lit, or the whole area). Listed as one ordered crystal. "
             + _DYNAMICAL)
@@ -690,7 +691,7 @@ def _scale_spread_pct(multi: MultiCrystalResult, spots: SpotSet) -> float:
         return _own_scale(c, spots) or float(c.solution.scale_inv_nm_per_px)
 
     s1 = scale(multi.crystals[0])
-    return max((100.0 * abs(scale(c) / s1 - 1.0) for c in multi.crystals[1:]), default=0.0)
+    return max((abs(percent_off(scale(c), s1)) for c in multi.crystals[1:]), default=0.0)
 
 
 def _joint_scale(multi: MultiCrystalResult, spots: SpotSet) -> float:
@@ -776,18 +777,18 @@ def settle_shared_scale(measured, tables, spots: SpotSet, first: Solution, multi
         return None
     _, alt, m = best
     joint = _joint_scale(m, spots)
-    off = 100.0 * (joint / stated_scale - 1.0)
+    off = percent_off(joint, stated_scale)
     was = (f"{len(multi.crystals)} crystals whose scales differ by {spread:.1f} %" if len(multi.crystals) > 1
            else "no further crystal at its scale")
     note = (f"crystal 1 read as {alt.phase_name} [{_zone(alt)}], not {first.phase_name} [{_zone(first)}]: all crystals "
             f"share one calibration, and with {alt.phase_name} the {len(m.crystals)} crystals fit one scale within "
             f"{_scale_spread_pct(m, spots):.1f} % ({joint:.5g} 1/nm per px, {off:+.1f} % off the stated calibration), while "
             f"{first.phase_name} leaves {was}; the two cells differ by "
-            f"{100 * abs(tables.table(alt.phase_name).phase.lattice.a_nm / tables.table(first.phase_name).phase.lattice.a_nm - 1):.1f} %, "
+            f"{abs(percent_off(tables.table(alt.phase_name).phase.lattice.a_nm, tables.table(first.phase_name).phase.lattice.a_nm)):.1f} %, "
             "so check the camera length (a calibration standard decides)")
     from dataclasses import replace
 
     first_c = replace(m.crystals[0], solution=replace(m.crystals[0].solution,
-                                                       scale_error_pct=100.0 * (alt.scale_inv_nm_per_px / stated_scale - 1.0)))
+                                                       scale_error_pct=percent_off(alt.scale_inv_nm_per_px, stated_scale)))
     return SharedScale(first_c.solution, MultiCrystalResult((first_c,) + m.crystals[1:], m.relationships, m.cross_double_diffraction,
                                                                   (note,) + m.notes), joint, note)

@@ -18,6 +18,7 @@ from saed.crystal.miller import direction_to_4, format_indices
 from saed.index.grain_values import GrainLookalike, GrainSolution, ThirdPattern
 from saed.simulate.geometry import in_plane_rotation
 from saed.simulate.tilt import Holder, holder_rotation
+from saed.units import percent
 
 __all__ = ["lookalikes_of_series", "difference_at", "third_pattern", "UNDECIDED_SCORE"]
 
@@ -59,7 +60,7 @@ def lookalikes_of_series(patterns, sols, near, tol, diffs) -> list[GrainLookalik
         elif (id(other) in diffs and diffs[id(other)][0][0] >= 0.2 and other.score < best.score - 0.05):
             (dis, zone, txt), img = diffs[id(other)]
             out.append(GrainLookalike(name, "decided", tuple(imgs),
-                                      f"in {img} the two differ ({txt}; {dis * 100:.0f} % of the spots), and {name} "
+                                      f"in {img} the two differ ({txt}; {percent(dis):.0f} % of the spots), and {name} "
                                       f"fits it worse: joint score {other.score:.2f} vs {best.score:.2f}"))
         else:
             same = _structure(patterns, name) == _structure(patterns, best.phase_name) != ""
@@ -196,5 +197,5 @@ def third_pattern(a: GrainSolution, b: GrainSolution, phases, holder: Holder, ra
     other = (f"{b.phase_name} shows [{zt(uvw_b, pb)}] there" if uvw_b is not None
              else f"{b.phase_name} reaches no low-index zone there")
     text = (f"record a third pattern at alpha {st.alpha_deg:+.1f}, beta {st.beta_deg:+.1f} deg: {a.phase_name} "
-            f"[{zt(za, pa)}] as solution 1, {other} ({dis * 100:.0f} % of the spots differ)")
+            f"[{zt(za, pa)}] as solution 1, {other} ({percent(dis):.0f} % of the spots differ)")
     return ThirdPattern(tuple(int(v) for v in za), za4, float(st.alpha_deg), float(st.beta_deg), text)

@@ -35,6 +35,7 @@ from saed.index.values import Lookalike, Solution, TiltAdvice
 from saed.readonly import frozen_array
 from saed.simulate.geometry import rotation_about_axis
 from saed.simulate.zone import zone_pattern
+from saed.units import percent, percent_off
 
 logger = logging.getLogger(__name__)
 
@@ -264,7 +265,7 @@ def _ratio_difference_pct(p: _Pattern, q: _Pattern, *, floor: float) -> float:
     a = p.g[sel][hit]
     b = q.g[j[hit]]
     k = int(np.argmin(a))
-    return float(100.0 * np.max(np.abs((a / a[k]) / (b / b[k]) - 1.0)))
+    return float(percent(np.max(np.abs((a / a[k]) / (b / b[k]) - 1.0))))
 
 
 def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g_max: float,
@@ -334,7 +335,7 @@ def compare(best: Solution, fit_b, other: Solution, fit_o, measured, spots, *, g
         if ratio_pct < SAME_RATIOS_PCT:
             relation = Relation.IDENTICAL_GEOMETRY if not calibrated else Relation.AMBIGUOUS
             if best.structure_type == other.structure_type and best.phase_name != other.phase_name:
-                d_pct = 100.0 * abs(best.scale_inv_nm_per_px / other.scale_inv_nm_per_px - 1.0)
+                d_pct = abs(percent_off(best.scale_inv_nm_per_px, other.scale_inv_nm_per_px))
                 parts.append(f"same structure and spot pattern; the cells differ by {d_pct:.2f} % in scale"
                              + (" (below the calibration accuracy: an internal standard or another technique "
                                 "such as EDS decides)" if calibrated else

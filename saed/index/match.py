@@ -16,6 +16,7 @@ from saed.index.candidates import find_candidates, seed_pairs, spot_set
 from saed.index.score import score_candidate
 from saed.index.tables import IndexTables
 from saed.index.values import IndexResult, Solution
+from saed.units import fraction, percent
 from saed.vectors2d import MIN_SPAN_ANGLE_DEG
 
 __all__ = ["index_pattern", "index_image", "MIN_SCORE", "DEFAULT_LENGTH_TOL_PCT", "DEFAULT_ANGLE_TOL_DEG"]
@@ -105,9 +106,9 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     spots = spot_set(measured)
     cal = measured.calibration
     scale = cal.scale_inv_nm_per_px if cal is not None else None
-    length_tol = (DEFAULT_LENGTH_TOL_PCT if length_tol_pct is None else float(length_tol_pct)) / 100.0
+    length_tol = fraction(DEFAULT_LENGTH_TOL_PCT if length_tol_pct is None else float(length_tol_pct))
     if not 0 < length_tol < 0.5:
-        raise InputError(f"length tolerance {length_tol * 100:g} % must lie between 0 and 50 %")
+        raise InputError(f"length tolerance {percent(length_tol):g} % must lie between 0 and 50 %")
     angle_tol = DEFAULT_ANGLE_TOL_DEG if angle_tol_deg is None else float(angle_tol_deg)
     if measured.basis is not None and angle_tol_deg is None:
         angle_tol = max(angle_tol, 3.0 * float(measured.basis.sigma_angle_deg))
@@ -148,8 +149,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         # within 6 % of it (isostructural phases of another cell size do not), and say so
         f = near_scale[0][0].scale_inv_nm_per_px / scale
         solutions, good, near, calibrated = near_scale, [s for s, _ in near_scale if s.score >= MIN_SCORE], None, False
-        notes.append(f"the spots fit only at a scale {100 * (f - 1):+.1f} % off the stated calibration (tolerance "
-                     f"{100 * length_tol:g} %): indexed by spacing ratios and angles; check the camera length")
+        notes.append(f"the spots fit only at a scale {percent(f - 1):+.1f} % off the stated calibration (tolerance "
+                     f"{percent(length_tol):g} %): indexed by spacing ratios and angles; check the camera length")
     if not good and max_crystals > 1 and (solutions or free):
         from saed.index.crystals import rescue_with_more_crystals
 

@@ -25,6 +25,7 @@ from saed.crystal.phase import Phase
 from saed.crystal.reflections import reflection_table
 from saed.crystal.symmetry import laue_rotations
 from saed.errors import InputError
+from saed.units import fraction, percent, percent_off
 
 __all__ = ["RatioMeasurement", "RatioSolution", "measurement_from_d", "measurement_from_radii", "solve_ratio",
            "solution_label", "lookalike_text", "RATIO_LOOKALIKE_PCT", "RATIO_LOOKALIKE_DEG"]
@@ -222,15 +223,15 @@ def _phase_solutions(phase: Phase, meas: RatioMeasurement, *, length_tol: float,
         if not meas.calibrated and n > 1 and _allowed(phase, h1 // n) and _allowed(phase, h2 // n):
             continue  # a multiple of a shorter pair with the same ratio and angle: those spots lie nearer the centre
         d1c, d2c = 1.0 / float(lat.g_inv_nm(h1)), 1.0 / float(lat.g_inv_nm(h2))
-        r_diff = 100.0 * (r_calc / meas.ratio - 1.0)
+        r_diff = percent_off(r_calc, meas.ratio)
         a_diff = a_calc - meas.angle_deg
         if meas.calibrated:
-            dd1 = 100.0 * (d1c / meas.d1_nm - 1.0)
-            dd2 = 100.0 * (d2c / meas.d2_nm - 1.0)
-            terms = [dd1 / (100 * length_tol), dd2 / (100 * length_tol), a_diff / angle_tol_deg]
+            dd1 = percent_off(d1c, meas.d1_nm)
+            dd2 = percent_off(d2c, meas.d2_nm)
+            terms = [dd1 / percent(length_tol), dd2 / percent(length_tol), a_diff / angle_tol_deg]
         else:
             dd1 = dd2 = None
-            terms = [r_diff / (100 * length_tol), a_diff / angle_tol_deg]
+            terms = [r_diff / percent(length_tol), a_diff / angle_tol_deg]
         hs = h1 + h2
         row = tab.index_of(hs)[0]
         allowed = bool(tab.allowed[row]) if row >= 0 else bool(_allowed(phase, hs))
@@ -278,9 +279,9 @@ def _separable(s: RatioSolution, o: RatioSolution, calibrated: bool) -> tuple[fl
     measurement, else None. Without d-spacings, solutions of the same geometry were merged already
     (``same_geometry``)."""
     if calibrated:
-        dd = max(abs(o.d1_nm_calc / s.d1_nm_calc - 1.0), abs(o.d2_nm_calc / s.d2_nm_calc - 1.0)) * 100.0
+        dd = percent(max(abs(o.d1_nm_calc / s.d1_nm_calc - 1.0), abs(o.d2_nm_calc / s.d2_nm_calc - 1.0)))
     else:
-        dd = abs(o.ratio_calc / s.ratio_calc - 1.0) * 100.0
+        dd = abs(percent_off(o.ratio_calc, s.ratio_calc))
     da = abs(o.angle_deg_calc - s.angle_deg_calc)
     if dd >= RATIO_LOOKALIKE_PCT or da >= RATIO_LOOKALIKE_DEG:
         return None
@@ -332,7 +333,7 @@ def solve_ratio(meas: RatioMeasurement, phases: list[Phase], *, length_tol_pct: 
         raise InputError(f"--max-zone-index {max_zone_index}: give 1 to 20")
     if not (0 < angle_tol_deg <= 20):
         raise InputError(f"--angle-tol {angle_tol_deg:g}: give degrees above 0 and at most 20")
-    tol = length_tol_pct / 100.0
+    tol = fraction(length_tol_pct)
     found: list[tuple[int, RatioSolution]] = []
     for k, ph in enumerate(phases):
         found += [(k, s) for s in _phase_solutions(ph, meas, length_tol=tol, angle_tol_deg=angle_tol_deg,

@@ -49,6 +49,7 @@ from saed.index.tables import IndexTables, PhaseIndexTable, hkl_keys
 from saed.index.values import IndexedSpot, Solution, SpotKind
 from saed.simulate.geometry import in_plane_rotation, orientation_matrix
 from saed.simulate.zone import zone_pattern
+from saed.units import percent, percent_off
 
 __all__ = ["Fit", "score_candidate", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_NM"]
 
@@ -278,7 +279,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         mean_d_error_pct=float(np.mean(d_err)) if len(d_err) else float("nan"),
         mean_angle_error_deg=float(np.mean(a_err)) if len(a_err) else float("nan"),
         structure_type=phase.structure_type, implied_camera_length_mm=cam, notes=notes,
-        scale_error_pct=None if scale_err is None else 100.0 * scale_err,
+        scale_error_pct=None if scale_err is None else percent(scale_err),
         terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
                ("scale", scale_term), ("zone_prior", zone_term), ("distortion_pct", fmap.aniso_pct),
                ("distortion_axis_deg", fmap.aniso_deg), ("center_shift_x_px", float(shift[0])),
@@ -497,7 +498,7 @@ def _spot_records(zf: _ZoneFacts, spots: SpotSet, measured, fmap: _Map, asg: _As
     has_hkl = zolz | holz
     hkil = plane_to_4(hkl).tolist() if phase.is_hexagonal else None
     allowed = code == _ALLOWED
-    d_err = np.abs(d_meas[allowed] - d_calc[allowed]) / d_calc[allowed] * 100.0
+    d_err = percent(np.abs(d_meas[allowed] - d_calc[allowed]) / d_calc[allowed])
     pv = fmap.pred_px[jj[allowed]] - fmap.shift
     cosang = np.sum(vc[allowed] * pv, axis=1) / (r[allowed] * np.sqrt(pv[:, 0] ** 2 + pv[:, 1] ** 2))
     a_err = np.degrees(np.arccos(np.clip(cosang, -1.0, 1.0)))
@@ -623,7 +624,7 @@ def _anisotropy(lin: np.ndarray) -> tuple[float, float]:
     """Axis ratio - 1 (percent) of the fitted map and the azimuth of its long axis (deg)."""
     uu, sv, vt = np.linalg.svd(lin)
     major = uu[:, 0]
-    return float(100.0 * (sv[0] / sv[1] - 1.0)), float(math.degrees(math.atan2(major[1], major[0])) % 180.0)
+    return float(percent_off(sv[0], sv[1])), float(math.degrees(math.atan2(major[1], major[0])) % 180.0)
 
 
 def _holz_projections(pt: PhaseIndexTable, zp, uvw, u0: np.ndarray):

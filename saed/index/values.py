@@ -14,6 +14,7 @@ import numpy as np
 
 from saed.image.values import MeasuredPattern
 from saed.readonly import frozen_array
+from saed.units import percent
 
 __all__ = ["IndexedSpot", "Mistilt", "TiltAdvice", "Lookalike", "Solution", "IndexResult", "SpotKind", "SPOT_KINDS",
            "INDEXED_KINDS", "EXPLAINED_KINDS"]
@@ -82,7 +83,7 @@ class IndexedSpot:
     def d_error_pct(self) -> float | None:
         if self.d_nm_calc is None:
             return None
-        return 100.0 * (self.d_nm_measured - self.d_nm_calc) / self.d_nm_calc
+        return percent((self.d_nm_measured - self.d_nm_calc) / self.d_nm_calc)
 
 
 @dataclass(frozen=True)

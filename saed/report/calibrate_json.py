@@ -9,6 +9,7 @@ once filed, the history file); :func:`history_list_json` is ``saed calibrate --l
 from __future__ import annotations
 
 from saed.report.json_numbers import json_float
+from saed.units import percent, percent_off
 
 __all__ = ["calibrate_json", "calibration_file_extras", "history_list_json"]
 
@@ -44,7 +45,7 @@ def _result_json(res, *, image: str, zone=None) -> dict:
 def calibration_file_extras(res, *, image: str, zone=None) -> dict:
     """The fields a calibration file and a history entry carry beside the calibration (the same values as
     the document's)."""
-    return {"residual_pct": json_float(res.residual_pct, 5), "scale_sigma_pct": json_float(100 * res.scale_sigma_rel, 5),
+    return {"residual_pct": json_float(res.residual_pct, 5), "scale_sigma_pct": json_float(percent(res.scale_sigma_rel), 5),
             "image": image, "kind": "zone" if zone is not None else "rings",
             "zone_axis": list(zone) if zone is not None else None,
             "n_rings_used": sum(r[1] is not None for r in res.ring_rows)}
@@ -63,8 +64,8 @@ def calibrate_json(res, *, image: str, zone=None, prior, warnings: list[str], hi
     cal = res.calibration
     before = prior.calibration.scale_inv_nm_per_px
     if before is not None:
-        diff = 100 * abs(cal.scale_inv_nm_per_px / before - 1)
-        doc["scale_change_from_source_pct"] = json_float(100 * (cal.scale_inv_nm_per_px / before - 1), 4)
+        diff = abs(percent_off(cal.scale_inv_nm_per_px, before))
+        doc["scale_change_from_source_pct"] = json_float(percent_off(cal.scale_inv_nm_per_px, before), 4)
         if diff > 1.0:
             doc["notes"].append(f"the measured scale differs by {diff:.1f} % from the {prior.source} "
                                 f"({before:.6g} 1/nm per px, {prior.detail})")

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from saed.crystal.miller import plane_to_4
 from saed.report.json_numbers import json_float, json_ints
+from saed.units import percent, percent_off
 
 __all__ = ["rings_json", "solution_json"]
 
@@ -32,7 +33,7 @@ def solution_json(rank: int, m, obs, scale) -> dict:
         hkl, hkil = _hkl_json(ln.phase, ln.hkl[j])
         matched.append({"ring": i + 1, "d_nm": json_float(1 / (r * s)), "d_nm_calc": json_float(ln.d_nm[j]),
                         "hkl": hkl, "hkil": hkil, "families": [ln.hkl_label(jj) for pp, jj in a if pp == p_idx],
-                        "phase": ln.phase.name, "error_pct": json_float(100 * float(m.ring_delta_rel[i]), 4),
+                        "phase": ln.phase.name, "error_pct": json_float(percent(float(m.ring_delta_rel[i])), 4),
                         "also": [f"{m.lines[pp].phase.name} {m.lines[pp].hkl_label(jj)}" for pp, jj in a if pp != p_idx]})
     missing = []
     for p_idx, j, v in m.missing:
@@ -48,7 +49,7 @@ def solution_json(rank: int, m, obs, scale) -> dict:
         "fractions": [json_float(a / total, 4) for a in m.amounts],
         "score": json_float(m.score, 4),
         "scale_inv_nm_per_px": s,
-        "scale_change_pct": None if scale is None else json_float(100 * (s / scale - 1), 4),
+        "scale_change_pct": None if scale is None else json_float(percent_off(s, scale), 4),
         "r_factor": json_float(m.r_factor, 4),
         "position_agreement": json_float(m.position_quality, 4),
         "rings_matched": matched,

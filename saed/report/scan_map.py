@@ -20,6 +20,7 @@ import numpy as np
 
 from saed.batch.scan import ERROR, NO_SOLUTION, NOT_DONE, ScanMap, Summary
 from saed.crystal.notation import zone_text
+from saed.units import percent
 
 __all__ = ["render_scan_map", "format_summary", "summary_csv", "PHASE_COLOURS", "PHASE_HATCHES",
            "MAX_FAMILIES_SHOWN"]
@@ -228,7 +229,7 @@ def render_scan_map(scan: ScanMap, path, *, title: str = "", dpi: int = 120, ste
         _fill(ax_p, m, face=face, hatch=hatch, hatch_colour=hc)
         n = int(np.count_nonzero(m))
         phase_handles.append(Patch(facecolor=face, hatch=hatch, edgecolor=hc,
-                                   label=f"{_tex_escape(name)}  {n} ({100 * n / total:.0f} %)"))
+                                   label=f"{_tex_escape(name)}  {n} ({percent(n / total):.0f} %)"))
     phase_handles += _status_patches(ax_p, scan, counts)
     n_seg = _draw_boundaries(ax_p, scan)
 
@@ -315,10 +316,10 @@ def format_summary(summary: Summary) -> str:
         more = len(fams.get(name, [])) - 6
         if more > 0:
             top += f", {more} more"
-        lines.append(f"{name:<{width}}  {count:>7}  {100 * count / n:>5.1f}%  {top}")
+        lines.append(f"{name:<{width}}  {count:>7}  {percent(count / n):>5.1f}%  {top}")
     for label, count in (("no solution", summary.n_no_solution), ("error", summary.n_error)):
         if count:
-            lines.append(f"{label:<{width}}  {count:>7}  {100 * count / n:>5.1f}%")
+            lines.append(f"{label:<{width}}  {count:>7}  {percent(count / n):>5.1f}%")
     return "\n".join(lines)
 
 

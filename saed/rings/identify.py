@@ -21,6 +21,7 @@ import numpy as np
 from saed.crystal.phase import Phase
 from saed.errors import InputError
 from saed.rings.match import ObservedRings, RingMatch, match_scale
+from saed.units import percent
 
 __all__ = ["RingIdentification", "identify_phases", "MIXTURE_GAIN"]
 
@@ -107,6 +108,6 @@ def identify_phases(obs: ObservedRings, phases: Sequence[Phase], *, scale_inv_nm
         notes.append("no calibration: phases were matched by ring-radius ratios alone, so phases of one structure "
                      "type (e.g. Au, Al, Cu) cannot be told apart; give --calibration or --scale")
     if solutions and solutions[0].explained < 0.8:
-        notes.append(f"the best solution leaves {100 * (1 - solutions[0].explained):.0f} % of the ring signal "
+        notes.append(f"the best solution leaves {percent(1 - solutions[0].explained):.0f} % of the ring signal "
                      "unexplained (sqrt-intensity weighted): a phase may be missing from the candidates")
     return RingIdentification(tuple(solutions[:top]), scale_inv_nm_per_px is not None, tuple(notes))

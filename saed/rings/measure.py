@@ -30,6 +30,7 @@ from saed.rings.profile import RadialProfile, radial_profile
 from saed.rings.peaks import ProfileRings, find_profile_rings
 from saed.rings.geometry import MAX_AXIS_RATIO, RingGeometry, fit_ring_geometry, inversion_centre, trace_rings
 from saed.simulate.rings import polar_coordinates
+from saed.units import percent
 
 __all__ = ["RingMeasurement", "ring_mask", "measure_rings", "SINGLE_CRYSTAL_COVERAGE"]
 
@@ -111,7 +112,7 @@ def ring_mask(image, *, mask=None) -> np.ndarray:
 
 
 def _spots_message(coverage: float, advice: str) -> str:
-    return (f"the rings are made of isolated spots (the strongest cover {100 * coverage:.0f} % of the circle): "
+    return (f"the rings are made of isolated spots (the strongest cover {percent(coverage):.0f} % of the circle): "
             f"this looks like a single-crystal pattern; {advice}")
 
 
@@ -232,7 +233,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
         cen, ell = geom.center_px, geom.ellipse
         if ell.axis_ratio > MAX_AXIS_RATIO - 1e-3:
             raise ImageError(f"the rings could not be traced reliably (the fitted distortion ran to the "
-                             f"{100 * (MAX_AXIS_RATIO - 1):.0f} % limit); give --centre X Y, or --no-ellipse")
+                             f"{percent(MAX_AXIS_RATIO - 1):.0f} % limit); give --centre X Y, or --no-ellipse")
         width = float(np.median(rings.width_px[k]))
         prof, rings = profile_and_rings(cen, ell, width)
         if len(rings) == 0:
@@ -251,7 +252,7 @@ def measure_rings(image, *, mask=None, center_px=None, ellipse: Ellipse | None =
             raise ImageError(msg + " (or --spotty for a coarse-grained film)")
         notes.append(msg)
     elif traced.any() and med_cov < 0.7:
-        notes.append(f"spotty rings (the strongest cover {100 * med_cov:.0f} % of the circle): coarse grains or texture; "
+        notes.append(f"spotty rings (the strongest cover {percent(med_cov):.0f} % of the circle): coarse grains or texture; "
                      "intensities are less reliable")
     if math.hypot(cen[0] - (img.shape[1] - 1) / 2, cen[1] - (img.shape[0] - 1) / 2) > 0.3 * min(img.shape):
         notes.append(f"the pattern centre ({cen[0]:.1f}, {cen[1]:.1f}) px is far from the image centre")
