@@ -112,7 +112,7 @@ def test_warm_start_gives_the_full_search_answers(small_scan):
 
 
 def test_ipf_colours_and_misorientation_against_rotations_written_here():
-    from saed.batch.orientmap import ipf_colours, misorientation_deg, orientations
+    from saed.index.orientmap import ipf_colours, misorientation_deg, orientations
     from saed.simulate.geometry import rotation_about_axis
 
     fcc, hcp = builtin_phase("Co-fcc"), builtin_phase("Co-hcp")
@@ -147,7 +147,7 @@ def test_ipf_colour_key_is_filled_without_gaps():
     edges are great-circle arcs that bulge outward from the straight triangle of the projected corners
     (or are straight, through [001]), so that straight triangle lies inside the key.
     """
-    from saed.batch.orientmap import triangle_key
+    from saed.index.orientmap import triangle_key
 
     for name, corners in (("Co-hcp", ((0, 0, 1), (1, 0, 0), (3 ** 0.5 / 2, 0.5, 0))),
                           ("Co-fcc", ((0, 0, 1), (1, 0, 1), (1, 1, 1)))):

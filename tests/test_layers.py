@@ -36,12 +36,7 @@ TIERS = (
 )
 
 #: Imports against the order, each (importer module, imported module): why it is allowed for now.
-UPWARD_EXCEPTIONS = {
-    # report/scan_map.py <-> batch/ (batch writes its map through report): the `scans` helper of
-    # issue 16.5 removes it; allowed until that lands (the only module-level exception).
-    ("saed.report.scan_map", "saed.batch.scan"): "scan map reads the batch's ScanMap and status codes",
-    ("saed.report.scan_map", "saed.batch.orientmap"): "scan map colours by the batch's orientation key",
-}
+UPWARD_EXCEPTIONS: dict = {}
 
 #: Module pairs that import each other, allowed because one side imports lazily (inside a function).
 CYCLE_EXCEPTIONS = {

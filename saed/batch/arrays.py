@@ -82,7 +82,7 @@ def write_array_set(rows, sources, path, *, phases: dict, phase_order=(), scan_s
     Frames without a row are written as not done (phase -3). `phases` maps names to Phase
     objects (for the orientation matrices); `phase_order` fixes the phase numbering.
     """
-    from saed.batch.orientmap import orientations
+    from saed.index.orientmap import orientations
     from saed.batch.scan import sequenced
 
     path = Path(path)

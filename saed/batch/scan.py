@@ -10,7 +10,6 @@ the member in the standard triangle), in 4-index Miller-Bravais form for hexagon
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
@@ -18,13 +17,11 @@ import numpy as np
 from saed.batch.inputs import FrameSource
 from saed.batch.results import Row
 from saed.errors import InputError
-from saed.readonly import frozen_array
+from saed.report.scan_values import ERROR, NO_SOLUTION, NOT_DONE, FamilyCount, ScanMap, Summary, family_label
 
 __all__ = ["zone_family", "family_label", "FamilyCount", "Summary", "summarize", "ScanMap", "build_scan_map",
            "check_scan_shape", "rows_for_sources", "NOT_DONE", "NO_SOLUTION", "ERROR"]
 
-#: Codes in ScanMap.phase_index for frames without a phase.
-NOT_DONE, NO_SOLUTION, ERROR = -1, -2, -3
 
 
 @lru_cache(maxsize=4096)
@@ -53,42 +50,6 @@ def zone_family(uvw, phase) -> tuple[int, ...]:
     if not any(u):
         raise InputError(f"zone axis {list(u)} is all zeros")
     return _family(u, phase)
-
-
-def family_label(family) -> str:
-    """``<11-20>``-style text (ASCII, minus signs before negative indices).
-
-    >>> family_label((1, 1, -2, 0)), family_label((0, 1, 1)), family_label((10, 0, 1))
-    ('<11-20>', '<011>', '<10 0 1>')
-    """
-    from saed.crystal.miller import format_indices
-
-    return f"<{format_indices(family)}>"
-
-
-@dataclass(frozen=True)
-class FamilyCount:
-    """How many frames were indexed as `phase` on a zone of `family` (None: phase unknown here)."""
-
-    phase: str
-    family: tuple[int, ...] | None
-    count: int
-
-    @property
-    def label(self) -> str:
-        return family_label(self.family) if self.family is not None else "?"
-
-
-@dataclass(frozen=True)
-class Summary:
-    """What a batch found: frame counts by status, by phase, and by (phase, zone family)."""
-
-    n_frames: int
-    n_ok: int
-    n_no_solution: int
-    n_error: int
-    phases: tuple[tuple[str, int], ...]
-    families: tuple[FamilyCount, ...]
 
 
 def _phase_family(row: Row, phases: dict) -> tuple[str, tuple[int, ...] | None]:
@@ -136,45 +97,6 @@ def summarize(rows, *, phases: dict) -> Summary:
     for r in rows:
         tally.add(r)
     return tally.summary()
-
-
-@dataclass(frozen=True)
-class ScanMap:
-    """A scan as a grid: which phase and zone family each position was indexed as.
-
-    ``phase_index[iy, ix]`` indexes ``phases`` or is NOT_DONE / NO_SOLUTION / ERROR;
-    ``family_index[iy, ix]`` indexes ``families`` (a FamilyCount each) or is -1.
-    Position (iy, ix) holds the frame with sequence number ``iy * nx + ix`` over the inputs
-    in order. ``score`` is the figure of merit (NaN where not indexed); ``ipf_rgb`` the
-    inverse-pole-figure colour of the beam direction (NaN where not indexed; see
-    :mod:`saed.batch.orientmap`); ``boundary_right[iy, ix]`` is True where (iy, ix) and
-    (iy, ix + 1) are separated by a grain or phase boundary, ``boundary_down`` likewise for
-    (iy + 1, ix), at misorientations above ``boundary_deg``.
-    """
-
-    shape: tuple[int, int]
-    phase_index: np.ndarray
-    family_index: np.ndarray
-    phases: tuple[str, ...]
-    families: tuple[FamilyCount, ...]
-    summary: Summary
-    score: np.ndarray | None = None
-    ipf_rgb: np.ndarray | None = None
-    boundary_right: np.ndarray | None = None
-    boundary_down: np.ndarray | None = None
-    boundary_deg: float = 5.0
-    phase_objects: tuple = ()
-
-    def __post_init__(self):
-        for name in ("phase_index", "family_index"):
-            object.__setattr__(self, name, frozen_array(getattr(self, name), np.int32))
-        ny, nx = self.shape
-        defaults = {"score": np.full((ny, nx), np.nan), "ipf_rgb": np.full((ny, nx, 3), np.nan),
-                    "boundary_right": np.zeros((ny, max(nx - 1, 0)), bool),
-                    "boundary_down": np.zeros((max(ny - 1, 0), nx), bool)}
-        for name, default in defaults.items():
-            v = getattr(self, name)
-            object.__setattr__(self, name, frozen_array(default if v is None else v, default.dtype))
 
 
 def check_scan_shape(scan_shape, sources) -> tuple[int, int]:
@@ -259,7 +181,7 @@ def build_scan_map(rows, sources: tuple[FrameSource, ...], scan_shape, *, phases
 
 def _orientation_layers(phase_grid, zones, phi, names, phases: dict, shape, boundary_deg: float):
     """IPF colours (ny, nx, 3) and boundaries from the rows' zones and in-plane rotations."""
-    from saed.batch.orientmap import boundaries, ipf_colours, orientations
+    from saed.index.orientmap import boundaries, ipf_colours, orientations
 
     ny, nx = shape
     rgb = np.full((ny * nx, 3), np.nan)

@@ -4,7 +4,7 @@ Phase map: one fill colour *and* one hatch pattern per phase, so phases stay apa
 greyscale print and for colour-blind readers. Zone-family map: each phase keeps its colour,
 its zone families are lighter and darker shades of it, still hatched by phase; the legend names
 each family with its frame count. Orientation map: inverse-pole-figure colours of the beam
-direction (:mod:`saed.batch.orientmap`) with one colour key per phase. Figure of merit: the
+direction (:mod:`saed.index.orientmap`) with one colour key per phase. Figure of merit: the
 score on a colour bar. Grain boundaries (misorientation above a threshold) and phase
 boundaries are drawn as black lines on the phase and orientation maps; every map has a scale
 bar. Frames with no solution are plain light grey, errors near-black, frames not yet indexed
@@ -18,7 +18,7 @@ import math
 
 import numpy as np
 
-from saed.batch.scan import ERROR, NO_SOLUTION, NOT_DONE, ScanMap, Summary
+from saed.report.scan_values import ERROR, NO_SOLUTION, NOT_DONE, ScanMap, Summary
 from saed.crystal.notation import zone_text
 from saed.units import percent
 
@@ -165,7 +165,7 @@ def _scale_bar(ax, shape, step_nm: float | None):
 
 def _ipf_key(fig, spec, phase, name: str):
     """The colour key of the orientation map for one phase: its standard triangle, filled, corners named."""
-    from saed.batch.orientmap import triangle_key
+    from saed.index.orientmap import triangle_key
 
     key = triangle_key(phase) if phase is not None else None
     ax = fig.add_subplot(spec)
