@@ -415,3 +415,20 @@ def test_the_second_crystal_settles_the_shared_calibration():
     assert "not Ni [" in note and "check the camera length" in note
     one = index_pattern(off_by(measured(spots_of(0.359, "fcc", u1)), 1.02), tables)
     assert len(one.crystals) == 1 and not any(n.startswith("crystal 1 read as") for n in one.notes)
+
+
+def test_header_counts_the_spots_of_every_crystal_not_crystal_1_alone(co_tables):
+    # A twin pattern built in the test (Sigma 3 = 180 deg about <111>, Randle 1996, ch. 2): the header
+    # said '16/43 spots explained' (crystal 1 only), which reads as a weak answer. Every measured spot
+    # belongs to one of the two crystals here, so the count over both must be all of them.
+    from saed.report.crystals_report import explained_text
+
+    u1 = beam_along([1, -1, 0], [0, 0, 1], 17.0)
+    u2 = u1 @ rodrigues([1, 1, 1], 180.0).T
+    r = index_pattern(measured(spots_of(0.35447, "fcc", u1, share=0.6), spots_of(0.35447, "fcc", u2, share=0.4)),
+                      co_tables)
+    n = len(r.measured.spots.x_px)
+    assert r.best.n_explained < n  # crystal 1 alone leaves the twin's spots
+    assert explained_text(r, r.best) == f"{n}/{n} spots explained by 2 crystals"
+    single = index_pattern(measured(spots_of(0.35447, "fcc", u1)), co_tables)
+    assert explained_text(single, single.best) == f"{single.best.n_explained}/{len(single.best.indexed)} spots explained"

@@ -15,6 +15,7 @@ import math
 import numpy as np
 
 from saed.crystal.notation import pad, person_text, zone_text
+from saed.index.values import EXPLAINED_KINDS
 
 __all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "draw_further_crystals",
            "spots_of_further_crystals", "further_crystals_text", "first_crystal_score"]
@@ -127,6 +128,21 @@ def spots_of_further_crystals(result) -> set[int]:
         out.update(c.own_spots)
     out.update(d.spot_index for d in result.cross_double_diffraction)
     return out
+
+
+def explained_text(result, best) -> str:
+    """'16/43 spots explained' for one crystal; with further crystals the count over all of them, so a
+    two-crystal answer does not read as a weak one: '38/43 spots explained by 2 crystals' (each crystal's
+    own count is in the crystals block).
+    """
+    n = len(best.indexed)
+    if len(result.crystals) < 2:
+        return f"{best.n_explained}/{n} spots explained"
+    first = {s.spot_index for s in best.indexed if s.kind in EXPLAINED_KINDS}
+    every = first | spots_of_further_crystals(result)
+    for c in result.crystals[1:]:
+        every.update(c.shared_spots)
+    return f"{len(every)}/{n} spots explained by {len(result.crystals)} crystals"
 
 
 def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> list[tuple[str, str]]:

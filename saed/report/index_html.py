@@ -106,11 +106,11 @@ def _entry_html(entry: ReportEntry, k: int, units: Units = UNITS["nm"]) -> str:
         right.append(f'<div class="answer">No solution {_tag("none")}</div>'
                      f'<p>{person_text(r.message, "html")}</p>')
     else:
-        from saed.report.crystals_report import further_crystals_text
+        from saed.report.crystals_report import explained_text, further_crystals_text
 
         right.append(f'<div class="answer">{_e(best.phase_name)} {zone_text(best, "html")}'
                      f'{further_crystals_text(r, "html")}{_tag(word)}</div>')
-        right.append(f'<div class="sub">{_SCORE_HEAD} {best.score:.2f}; {best.n_explained}/{len(best.indexed)} spots explained; '
+        right.append(f'<div class="sub">{_SCORE_HEAD} {best.score:.2f}; {explained_text(r, best)}; '
                      f'd error {_f(best.mean_d_error_pct, ".2f")} %; angle error {_f(best.mean_angle_error_deg, ".2f")}&deg;; '
                      f'in-plane rotation {best.in_plane_rotation_deg:.1f}&deg;</div>')
         rows = ['<tr><th>rank</th><th class="l">phase</th><th class="l">zone</th>'
