@@ -228,11 +228,16 @@ _INDEX_GROUP = re.compile(r"(?:-?\d){3,4}")
 _DEG = re.compile(r"(\d) deg\b")
 
 
+def _group_text(group: str, style: str) -> str:
+    """A run of single-digit indices written as stored ('1-11', '-400') in the medium's form, no delimiters."""
+    return indices_text([int(v) for v in re.findall(r"-?\d", group)], style).strip("$")
+
+
 def _bare(token: str, style: str) -> str:
     """A bare index group with a minus inside ('20-2', '1-100'); anything else (-100, dates) unchanged."""
     if not _INDEX_GROUP.fullmatch(token) or "-" not in token[1:]:
         return token
-    return indices_text([int(v) for v in re.findall(r"-?\d", token)], style).strip("$")
+    return _group_text(token, style)
 
 
 def person_text(text: str, style: str = "plain") -> str:
@@ -253,8 +258,7 @@ def person_text(text: str, style: str = "plain") -> str:
         text = _html.escape(text, quote=True)
 
     def one(m):
-        vals = [int(v) for v in re.findall(r"-?\d", m.group(2))]
-        return m.group(1) + indices_text(vals, style).strip("$") + m.group(3)
+        return m.group(1) + _group_text(m.group(2), style) + m.group(3)
 
     text = _BRACKETED.sub(one, text)
     text = _TOKEN.sub(lambda m: _bare(m.group(0), style), text)
@@ -277,7 +281,7 @@ def label_text(label: str, style: str = "plain") -> str:
     parts = []
     for g in label.split("/"):
         if _INDEX_GROUP.fullmatch(g):
-            g = indices_text([int(v) for v in re.findall(r"-?\d", g)], style).strip("$")
+            g = _group_text(g, style)
         parts.append(g)
     return "/".join(parts)
 

@@ -26,7 +26,7 @@ from saed.report.spots_overlay import display_stretch
 from saed.index.values import IndexResult
 from saed.files import atomic_write_bytes, check_writable
 from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_SHORT, confidence_word, spot_label, zone_text
-from saed.report.crystals_report import explained_text
+from saed.report.crystals_report import draw_further_crystals, explained_text, spots_of_further_crystals
 from saed.report.render_pattern import nice_scale_bar_inv_nm
 
 __all__ = ["overlay_figure_bytes", "write_index_overlay", "runner_up_to_show", "KIND_STYLE", "DEFAULT_DPI"]
@@ -135,8 +135,6 @@ def _panel(ax, img, m, best, *, box, ignored, cal, legend: bool, units, result: 
     With `result`, the further crystals it found (crystals 2 and 3) are drawn too, each in its own colour.
     """
     from matplotlib.patches import Circle, Rectangle
-
-    from saed.report.crystals_report import draw_further_crystals, spots_of_further_crystals
 
     x0, x1, y0, y1 = box
     rows, cols = img.shape[:2]
