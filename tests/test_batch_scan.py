@@ -74,6 +74,8 @@ def test_summary_tables():
     assert s.phases == (("Co-fcc", 4), ("Co-hcp", 2))
     text = format_summary(s)
     assert "<011> 4" in text and "<11-20> 2" in text and "no solution" in text
+    # a terminal that can show overbars gets them, as in every other terminal table (common practice)
+    assert "<112\u03050> 2" in format_summary(s, "unicode")
     assert "Co-hcp,1 1 -2 0,2," in summary_csv(s)
 
 

@@ -291,6 +291,7 @@ def _has_rows(path) -> bool:
 def _report(out, inputs, outcome, phases) -> None:
     from saed.batch.results import iter_rows
     from saed.batch.scan import rows_for_sources, summarize
+    from saed.crystal.notation import terminal_style
     from saed.report.scan_map import format_summary
 
     from saed.batch.scanindex import CHECK_DIFFER, CHECK_SAME
@@ -313,7 +314,7 @@ def _report(out, inputs, outcome, phases) -> None:
         line += f"; {outcome.n_written} new in {_fmt_s(outcome.elapsed_s)} ({rate:.1f} frames/s)"
     print(line)
     if summary.n_ok or summary.n_no_solution:
-        print(format_summary(summary))
+        print(format_summary(summary, terminal_style()))
     checked = searches[CHECK_SAME] + searches[CHECK_DIFFER]
     if searches["warm"] or checked:
         print(f"warm start: {searches['warm']} frames solved from earlier frames' solutions; "

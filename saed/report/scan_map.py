@@ -19,7 +19,7 @@ import math
 import numpy as np
 
 from saed.report.scan_values import ERROR, NO_SOLUTION, NOT_DONE, ScanMap, Summary
-from saed.crystal.notation import zone_text
+from saed.crystal.notation import person_text, zone_text
 from saed.units import percent
 
 __all__ = ["render_scan_map", "format_summary", "summary_csv", "PHASE_COLOURS", "PHASE_HATCHES",
@@ -303,8 +303,9 @@ def to_rgb_tuple(colour: str) -> tuple:
     return to_rgb(colour)
 
 
-def format_summary(summary: Summary) -> str:
-    """The summary as an aligned text table for the terminal."""
+def format_summary(summary: Summary, style: str = "plain") -> str:
+    """The summary as an aligned text table for the terminal; ``style="unicode"`` writes the zone
+    families with overbars (``crystal.notation.terminal_style`` says what the terminal can show)."""
     n = max(summary.n_frames, 1)
     width = max([len(p) for p, _ in summary.phases] + [len("no solution")])
     lines = [f"{'phase':<{width}}  {'frames':>7}  {'share':>6}  zone families (frames)"]
@@ -312,7 +313,7 @@ def format_summary(summary: Summary) -> str:
     for f in summary.families:
         fams.setdefault(f.phase, []).append(f)
     for name, count in summary.phases:
-        top = ", ".join(f"{f.label} {f.count}" for f in fams.get(name, [])[:6])
+        top = ", ".join(f"{person_text(f.label, style)} {f.count}" for f in fams.get(name, [])[:6])
         more = len(fams.get(name, [])) - 6
         if more > 0:
             top += f", {more} more"
