@@ -432,3 +432,19 @@ def test_header_counts_the_spots_of_every_crystal_not_crystal_1_alone(co_tables)
     assert explained_text(r, r.best) == f"{n}/{n} spots explained by 2 crystals"
     single = index_pattern(measured(spots_of(0.35447, "fcc", u1)), co_tables)
     assert explained_text(single, single.best) == f"{single.best.n_explained}/{len(single.best.indexed)} spots explained"
+
+
+def test_the_page_names_every_crystal_and_the_relationship(co_tables):
+    # The page showed only crystal 1 and offered the twin as a competing 'close' look-alike: its view
+    # must carry the answer line's further crystals and the crystals block with the relationship.
+    from saed.serve.engine import view_of
+
+    u1 = beam_along([1, -1, 0], [0, 0, 1], 17.0)
+    u2 = u1 @ rodrigues([1, 1, 1], 180.0).T  # Sigma 3 (Randle 1996, ch. 2)
+    r = index_pattern(measured(spots_of(0.35447, "fcc", u1, share=0.6), spots_of(0.35447, "fcc", u2, share=0.4)),
+                      co_tables)
+    v = view_of(r, factor=1)
+    assert "+ Co-fcc" in v["crystals_more_html"] and "(2 crystals, Sigma-3 twin)" in v["crystals_more_html"]
+    assert "Crystals in the pattern" in v["crystals_html"] and "Relationship 1&ndash;2: Sigma-3 twin" in v["crystals_html"]
+    one = view_of(index_pattern(measured(spots_of(0.35447, "fcc", u1)), co_tables), factor=1)
+    assert one["crystals_more_html"] == "" and "Crystals in the pattern" not in one["crystals_html"]

@@ -93,8 +93,9 @@ def crystals_lines(result, style: str = "plain") -> list[str]:
     return out
 
 
-def crystals_html(result) -> str:
-    """A block for the HTML report ('' for a single crystal without notes)."""
+def crystals_html(result, *, with_result_notes: bool = True) -> str:
+    """A block for the HTML report ('' for a single crystal without notes); ``with_result_notes=False`` leaves out
+    the result's own notes (for a page that lists them elsewhere) but keeps the look-alike notes."""
     e = html.escape
     parts = []
     if len(result.crystals) > 1:
@@ -115,7 +116,7 @@ def crystals_html(result) -> str:
         if result.cross_double_diffraction:
             parts.append(f"<p style='font-size:13px'>{len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                          "(g<sub>1</sub> + g<sub>2</sub>), not a further crystal.</p>")
-    notes = list(result.notes) + _lookalike_notes(result)
+    notes = (list(result.notes) if with_result_notes else []) + _lookalike_notes(result)
     if notes:
         parts.append("<ul>" + "".join(f"<li>{person_text(n, 'html')}</li>" for n in notes) + "</ul>")
     return "".join(parts)

@@ -177,6 +177,7 @@ def view_of(result, *, factor: int) -> dict:
     """What the page draws for a result: per solution (and the near miss) spots, labels, predictions, notes."""
     from saed.crystal.notation import person_text
     from saed.report.index_overlay import KIND_STYLE, PRED_COLOUR
+    from saed.report.crystals_report import crystals_html, further_crystals_text
     from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_MEANING, confidence_word
 
     m = result.measured
@@ -196,6 +197,10 @@ def view_of(result, *, factor: int) -> dict:
         "notes_html": [person_text(n, "html") for n in list(m.notes) + list(result.notes)],
         "message_html": person_text(result.message, "html") if result.message else "",
         "score_meaning": SCORE_MEANING, "confidence_meaning": CONFIDENCE_MEANING,
+        # several crystals in one pattern: what the answer line adds, and the crystals and their
+        # relationship as the HTML report shows them ('' for one crystal)
+        "crystals_more_html": further_crystals_text(result, "html"),
+        "crystals_html": crystals_html(result, with_result_notes=False),
     }
 
 

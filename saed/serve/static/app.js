@@ -200,7 +200,7 @@ function showResult(d) {
   $("answer").dataset.phase = best ? best.phase : "";
   if (best) {
     const word = v.solutions[0].confidence;
-    $("answer").innerHTML = `${esc(best.phase)} ${v.solutions[0].zone_html}<span class="tag ${esc(word)}" title="${esc(v.confidence_meaning[word] || "")}">${esc(word)}</span>`;
+    $("answer").innerHTML = `${esc(best.phase)} ${v.solutions[0].zone_html}${v.crystals_more_html || ""}<span class="tag ${esc(word)}" title="${esc(v.confidence_meaning[word] || "")}">${esc(word)}</span>`;
   } else if (d.status === "error") {
     $("answer").innerHTML = `${esc(d.image)} <span class="tag bad none">error</span>`;
   } else if (doc) {
@@ -238,6 +238,9 @@ function showNotes() {
   const items = [];
   // notes come as HTML made by saed.crystal.notation.person_text: escaped, negative indices overbarred
   if (sv) for (const n of sv.notes_html) items.push(`<li>${n}</li>`);
+  // several crystals: which spots belong to which, and their relationship (HTML from saed.report);
+  // after the look-alike notes, which its own note refers to as 'listed above'
+  if (d && d.view && d.view.crystals_html) items.push(`<li>${d.view.crystals_html}</li>`);
   if (d && d.view) for (const n of d.view.notes_html) items.push(`<li class="sub">${n}</li>`);
   $("notes").innerHTML = items.join("") || '<li class="sub">none</li>';
   const doc = d && d.doc;
