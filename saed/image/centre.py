@@ -27,10 +27,10 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from saed.image.background import Background
 from saed.image.binning import Binned
+from saed.image.nearby import close_pairs, nearest_within
 from saed.image.spotfit import fit_spots
 
 __all__ = ["near_symmetry_peak", "symmetric_center", "FriedelCentre", "friedel_center", "DirectBeam", "find_direct_beam"]
@@ -123,11 +123,10 @@ class FriedelCentre:
 
 def _pairs(xy: np.ndarray, c: np.ndarray, tol: float, intensity: np.ndarray | None, max_ratio: float,
            min_radius: float) -> np.ndarray:
-    tree = cKDTree(xy)
     mirror = 2.0 * c[None, :] - xy
-    d, j = tree.query(mirror, k=1, distance_upper_bound=tol)
+    j, _ = nearest_within(mirror, xy, tol)
     i = np.arange(len(xy))
-    hit = np.isfinite(d) & (j < len(xy)) & (j != i)
+    hit = (j >= 0) & (j != i)
     jj = np.where(hit, j, -1)
     mutual = hit & (jj[np.clip(jj, 0, None)] == i) & (i < jj)
     r = np.hypot(*(xy - c[None, :]).T)
@@ -151,28 +150,27 @@ def _vote_center(xy: np.ndarray, start: np.ndarray, search_px: float, intensity:
     if len(use) < 2:
         return None
     p = xy[use]
-    tree = cKDTree(p)
-    mids, wts = [], []
-    for i, nbrs in enumerate(tree.query_ball_point(2.0 * start[None, :] - p, r=2.0 * search_px)):
-        for j in nbrs:
-            if j <= i:
-                continue
-            m = 0.5 * (p[i] + p[j])
-            if np.hypot(*(m - start)) > search_px:
-                continue
-            w = 1.0
-            if intensity is not None:
-                a, b = intensity[use[i]], intensity[use[j]]
-                w = math.exp(-abs(math.log(max(a, 1e-12) / max(b, 1e-12)))) if a > 0 and b > 0 else 0.1
-            mids.append(m)
-            wts.append(w)
+    # pairs (i, j), i < j, whose midpoint may lie within search_px of the start: p_j near 2 start - p_i
+    qi, pj, _ = close_pairs(2.0 * start[None, :] - p, p, 2.0 * search_px)
+    keep = pj > qi
+    qi, pj = qi[keep], pj[keep]
+    mids = 0.5 * (p[qi] + p[pj])
+    near_start = np.hypot(mids[:, 0] - start[0], mids[:, 1] - start[1]) <= search_px
+    qi, pj, mids = qi[near_start], pj[near_start], mids[near_start]
     if len(mids) < 2:
         return None
-    mids, wts = np.array(mids), np.array(wts)
-    mt = cKDTree(mids)
-    score = np.array([wts[n].sum() for n in mt.query_ball_point(mids, r=1.5)])
+    if intensity is None:
+        wts = np.ones(len(mids))
+    else:
+        a, b = intensity[use[qi]], intensity[use[pj]]
+        both = (a > 0) & (b > 0)
+        ratio = np.log(np.maximum(a, 1e-12) / np.maximum(b, 1e-12))
+        wts = np.where(both, np.exp(-np.abs(ratio)), 0.1)
+    # each midpoint's votes: the weights of the midpoints within 1.5 px of it (itself included)
+    ci, cj, _ = close_pairs(mids, mids, 1.5)
+    score = np.bincount(ci, weights=wts[cj], minlength=len(mids))
     k = int(np.argmax(score))
-    near = mt.query_ball_point(mids[k], r=1.5)
+    near = cj[ci == k]
     return np.average(mids[near], axis=0, weights=wts[near])
 
 

@@ -35,7 +35,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import cKDTree
+
+from saed.image.nearby import close_pairs, k_nearest
 
 __all__ = ["gauss_reduce", "candidate_vectors", "find_basis", "index_spots", "LatticeFit", "refine_lattice",
            "fit_spot_lattice"]
@@ -85,14 +86,13 @@ def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int 
     if n < 2:
         return np.zeros((0, 2))
     k = min(neighbours, n - 1)
-    _, nb = cKDTree(p).query(p, k=k + 1)
+    _, nb = k_nearest(p, k)
     i = np.repeat(np.arange(n), k)
-    j = nb[:, 1:].ravel()
+    j = nb.ravel()
     diff = p[j] - p[i]
     vec = np.vstack([p, diff])
     allv = np.vstack([vec, -vec])
-    tree = cKDTree(allv)
-    counts = tree.query_ball_point(vec, r=tol_px, return_length=True)
+    counts = np.bincount(close_pairs(vec, allv, tol_px)[0], minlength=len(vec))
     length = np.hypot(vec[:, 0], vec[:, 1])
     ok = length > 3.0 * tol_px
     vec, counts, length = vec[ok], counts[ok], length[ok]
@@ -106,8 +106,8 @@ def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int 
         if any(min(np.hypot(*(v - c)), np.hypot(*(v + c))) < 2.0 * tol_px for c in chosen):
             continue
         # Average the cluster for a better estimate.
-        near = tree.query_ball_point(v, r=tol_px)
-        chosen.append(allv[near].mean(axis=0) if near else v)
+        near = np.hypot(allv[:, 0] - v[0], allv[:, 1] - v[1]) <= tol_px
+        chosen.append(allv[near].mean(axis=0) if near.any() else v)
         if len(chosen) >= max_candidates:
             break
     # Also the shortest spot vectors themselves (first-order reflections), if not in yet.

@@ -24,7 +24,6 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage as ndi
-from scipy.spatial import cKDTree
 
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
@@ -34,6 +33,7 @@ from saed.image.centre import DirectBeam, find_direct_beam, friedel_center, near
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
+from saed.image.nearby import nearest_other_distance
 from saed.image.spots import SpotSearch, _adaptive_width, estimate_spot_sigma, find_spots
 from saed.image.values import LatticeBasis, MeasuredPattern, Spots
 from saed.units import percent
@@ -356,7 +356,7 @@ def _centre_before_lattice(spots: Spots, beam: DirectBeam | None, rough: _RoughC
     search_px = None
     if db_xy is None and strong.sum() >= FRIEDEL_MIN_SPOTS:
         # how far off the rough centre may be: under half the smallest spot spacing, within a range
-        nn = cKDTree(sxy[strong]).query(sxy[strong], k=2)[0][:, 1]
+        nn = nearest_other_distance(sxy[strong])
         search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * np.median(nn), FRIEDEL_SEARCH_MIN_PX,
                                   FRIEDEL_SEARCH_MAX_PX))
     fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],

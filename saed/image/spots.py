@@ -36,10 +36,10 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import ndimage as ndi
-from scipy.spatial import cKDTree
 
 from saed.image.background import Background, robust_sigma
 from saed.image.binning import Binned, _block_sum, upsample_bilinear
+from saed.image.nearby import close_pairs, self_pairs
 from saed.image.spotfit import SpotFits, fit_spots, window_stack
 
 __all__ = ["SpotSearch", "estimate_spot_sigma", "detect_candidates", "find_spots"]
@@ -221,14 +221,12 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
     # Non-maximum suppression within 1.5 spot widths (greedy, strongest first).
     r_nms = max(2.0, 1.5 * float(sigma_px))
     pts = np.stack([x, y], axis=1)
-    tree = cKDTree(pts)
     keep = np.ones(len(x), bool)
-    for i, nbrs in enumerate(tree.query_ball_point(pts, r=r_nms)):
-        if not keep[i]:
-            continue
-        for j in nbrs:
-            if j > i:
-                keep[j] = False
+    pi, pj, _ = self_pairs(pts, r_nms)  # i < j: j is the weaker of the two
+    starts = np.searchsorted(pi, np.arange(len(x) + 1))
+    for i in np.unique(pi):
+        if keep[i]:
+            keep[pj[starts[i]:starts[i + 1]]] = False
     return x[keep].astype(float), y[keep].astype(float), zz[keep], rho
 
 
@@ -284,16 +282,16 @@ def find_spots(image, valid, background: Background, *, sigma_px: float, snr_min
         pts = np.stack([fits.x_px[idx], fits.y_px[idx]], axis=1)
         order = idx[np.argsort(-snr[idx])]
         pos = {int(k): i for i, k in enumerate(idx)}
-        tree = cKDTree(pts)
         alive = np.ones(len(idx), bool)
         r_merge = max(1.0, float(sigma_px))
+        ci, cj, _ = close_pairs(pts, pts, r_merge)
+        starts = np.searchsorted(ci, np.arange(len(idx) + 1))
         for k in order:
             i = pos[int(k)]
             if not alive[i]:
                 continue
-            for j in tree.query_ball_point(pts[i], r=r_merge):
-                if j != i:
-                    alive[j] = False
+            nbrs = cj[starts[i]:starts[i + 1]]
+            alive[nbrs[nbrs != i]] = False
         keep[idx[~alive]] = False
     sat = np.zeros(n_cand, bool)
     if saturated_mask is not None and n_cand and saturated_mask.any():
