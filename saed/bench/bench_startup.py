@@ -4,7 +4,7 @@ The cold case runs ``saed index`` on a 2048 x 2048 16-bit TIFF against 10 phases
 interpreter, so imports, the phase tables, the image and the match are all in the time (issue 15.13:
 target 1.0 s wall). The floor is a fresh interpreter that does nothing, measured in the same run; the
 difference is what saed costs. A third case imports only the libraries that call needs (numpy,
-scipy.ndimage / spatial / optimize, tifffile, gemmi): the part of the start-up saed's own code cannot cut.
+scipy.ndimage, tifffile, gemmi): the part of the start-up saed's own code cannot cut.
 
 As at the microscope PC: the operating system's file cache is warm after the first (warm-up) run, and
 Python's bytecode cache exists (an installed saed has it; the child may write it for a checkout even
@@ -27,8 +27,10 @@ from pathlib import Path
 from saed.bench import Case
 from saed.bench.bench_index import TEN_PHASES  # the same 10 phases as the in-process index benchmark
 
-#: What a cold 'saed index' imports besides saed (checked by tests/test_startup.py).
-INDEX_LIBRARIES = ("numpy", "scipy.ndimage", "scipy.spatial", "scipy.optimize", "tifffile", "gemmi")
+#: What a cold 'saed index' imports besides saed (checked by tests/test_startup.py). Not scipy.spatial
+#: (0.17 s of CPU: the image stage's neighbour queries are saed.image.nearby) nor scipy.optimize
+#: (0.24 s: the mistilt fit's least squares is saed.index.robust_lsq).
+INDEX_LIBRARIES = ("numpy", "scipy.ndimage", "tifffile", "gemmi")
 
 
 def _env() -> dict:
@@ -85,6 +87,6 @@ def cases():
         Case("start-up: cold 'saed index' 2048x2048, 10 phases", _index_setup, _run, target_s=1.0, repeat=7,
              floor="python", note="a new process per run"),
         Case("start-up: cold imports of the libraries 'saed index' needs", _libraries_setup, _run, repeat=7,
-             floor="python", note="numpy, scipy.ndimage/spatial/optimize, tifffile, gemmi"),
+             floor="python", note="numpy, scipy.ndimage, tifffile, gemmi"),
         Case("start-up: cold 'saed index --help' (imports + parser)", _parser_setup, _run, repeat=7, floor="python"),
     ]

@@ -15,7 +15,8 @@ sinc^2(pi t s) averaged over a thickness range t (1 +/- 0.5) (:func:`saed.simula
 
 with A, c and the thickness t free, and minimises the absolute log residuals (robust: dynamical
 intensities differ from the kinematic ones), first on a grid of (tilt, azimuth, t) (0.1 deg, 10 deg,
-seven thicknesses 12-300 nm), then locally.
+seven thicknesses 12-300 nm), then locally (Levenberg-Marquardt on the soft-L1 loss,
+:mod:`saed.index.robust_lsq`).
 An earlier version used a Gaussian rocking curve, which is much narrower in its tails than the
 thickness-averaged sinc^2 (a power law, ~1 / (pi s t)^2): it came back up to 50 % off.
 
@@ -43,6 +44,7 @@ from dataclasses import replace
 
 import numpy as np
 
+from saed.index.robust_lsq import robust_least_squares
 from saed.index.values import Mistilt, Solution
 from saed.physics import electron_wavelength_nm
 from saed.simulate.zone import shape_factor
@@ -125,14 +127,8 @@ def fit_laue_circle(g_xy_inv_nm: np.ndarray, intensity: np.ndarray, kinematic: n
 
     p0 = np.array([cx[best[1]], cy[best[1]], math.log(best[2]), 0.0])
     p0[3] = float(np.median(resid(p0)))
-    try:
-        from scipy import optimize  # here, not at import: scipy.optimize costs a quarter second of start-up
-
-        sol = optimize.least_squares(resid, p0, loss="soft_l1", f_scale=0.5, max_nfev=60,
-                                     x_scale=np.array([0.5, 0.5, 0.3, 0.5]))
-        p = sol.x if np.all(np.isfinite(sol.x)) and robust_cost(centred(sol.x)) <= best[0] + 1e-9 else p0
-    except (ValueError, np.linalg.LinAlgError):
-        p = p0
+    x = robust_least_squares(resid, p0, f_scale=0.5, x_scale=np.array([0.5, 0.5, 0.3, 0.5]), max_iter=60)
+    p = x if np.all(np.isfinite(x)) and robust_cost(centred(x)) <= best[0] + 1e-9 else p0
     c_vec = p[:2]
     tilt = math.degrees(math.asin(min(1.0, float(np.linalg.norm(c_vec)) / k)))
     if tilt > MAX_FIT_TILT_DEG * 1.2:
