@@ -98,8 +98,9 @@ def bin_image(image: np.ndarray, valid: np.ndarray | None = None, *, factor: int
     w = np.ones((rows, cols), np.float32) if valid is None else valid.astype(np.float32)
     img = image * w if valid is not None else image
     mean, n = _weighted_block_mean(img, w, nr, nc, f)
-    # Each block's valid fraction relative to the pixels that exist in it (ragged edge blocks).
-    e = _block_sum(_pad_to_blocks(np.ones((rows, cols), np.float32), nr, nc, f), nr, nc, f)
+    # Each block's valid fraction relative to the pixels that exist in it (ragged edge blocks): a block
+    # holds min(f, rows - i f) x min(f, cols - j f) pixels.
+    e = np.outer(np.minimum(f, rows - f * np.arange(nr)), np.minimum(f, cols - f * np.arange(nc))).astype(np.float32)
     return Binned(mean, (n / e).astype(np.float32), f, (rows, cols))
 
 
