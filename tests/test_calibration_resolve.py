@@ -212,3 +212,48 @@ def test_calibrate_takes_voltage_pitch_and_camera_length_from_the_file(tmp_path,
     assert doc["calibration_source"] == "file metadata"                       # the nominal L, pitch and voltage
     assert abs(doc["scale_change_from_source_pct"]) < 0.2
     assert "nominal 100 mm" in capsys.readouterr().out
+
+
+def test_the_alpha_axis_of_the_camera_length_comes_with_the_history(tmp_path):
+    """The holder's alpha-axis azimuth is measured per camera length and stored with its calibration
+    (issue 15 item 11): a pattern calibrated from the history, or from its own metadata at a camera
+    length the history knows, keeps it; the ellipse of the entry too."""
+    from saed.calibration import Ellipse
+
+    hist = tmp_path / "hist"
+    ell = Ellipse(1.012, 30.0)
+    store_calibration(Calibration(0.0498, 200.0, pixel_pitch_um=15.0, date="2026-11-01T10:00:00", standard="Au",
+                                  ellipse=ell, alpha_axis_deg=302.0), hist, nominal_camera_length_mm=120)
+    meta = FileMetadata("EMD", (512, 512), voltage_kv=200, camera_length_mm=120)
+    r = resolve_calibration("x.emd", meta, history_folder=hist)
+    assert r.source == "calibration history"
+    assert r.calibration.alpha_axis_deg == 302.0 and r.calibration.ellipse == ell
+    meta2 = FileMetadata("EMD", (512, 512), voltage_kv=200, camera_length_mm=120, scale_inv_nm_per_px=0.0500,
+                         pixel_pitch_um=15)
+    r2 = resolve_calibration("x.emd", meta2, history_folder=hist)
+    assert r2.source == "file metadata" and r2.calibration.scale_inv_nm_per_px == 0.0500
+    assert r2.calibration.alpha_axis_deg == 302.0
+    assert any("alpha tilt axis at 302 deg" in n for n in r2.notes)
+    # another camera length: the image turns with it, so no axis is carried over
+    meta3 = FileMetadata("EMD", (512, 512), voltage_kv=200, camera_length_mm=80, scale_inv_nm_per_px=0.07,
+                         pixel_pitch_um=15)
+    assert resolve_calibration("x.emd", meta3, history_folder=hist).calibration.alpha_axis_deg is None
+
+
+def test_tiff_resolution_tags_keep_the_rest_of_the_calibration(tmp_path):
+    """A scale read from the TIFF's tags fills in the scale only: the alpha axis given stays."""
+    from saed.image.measure import inspect_file
+
+    ex = __import__("importlib.resources").resources.files("saed").joinpath("data/examples")
+    img = tmp_path / "b.tif"
+    img.write_bytes(ex.joinpath("grain_B_hcp.tif").read_bytes())
+    scale = 0.02
+    data = tifffile.imread(img)
+    # ImageJ's convention (tifffile documentation): unit '1/nm' in the description, X/YResolution in pixels per unit
+    tifffile.imwrite(img, data, imagej=True, resolution=(1.0 / scale, 1.0 / scale), metadata={"unit": "1/nm"})
+    from saed.image.io import read_image_calibration
+
+    assert read_image_calibration(img) == pytest.approx(scale)
+    ins = inspect_file(img, Calibration(None, 200.0, alpha_axis_deg=12.5))
+    assert ins.measured.calibration.alpha_axis_deg == 12.5
+    assert ins.measured.calibration.scale_inv_nm_per_px == pytest.approx(scale)

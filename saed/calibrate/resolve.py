@@ -282,15 +282,20 @@ def resolve_calibration(image, metadata: FileMetadata | None, *, scale_inv_nm_pe
                              f"file's metadata used here; give --calibration {entry.path} to use the measured one")
             else:
                 notes.append(f"the calibration history's {h_text} agrees within {diff:.2f} %")
+            if entry.calibration.alpha_axis_deg is not None:  # the holder axis belongs to the camera length
+                cal = replace(cal, alpha_axis_deg=entry.calibration.alpha_axis_deg)
+                notes.append(f"alpha tilt axis at {entry.calibration.alpha_axis_deg:g} deg on the detector, "
+                             f"from the calibration history's {h_text}")
         return ResolvedCalibration(cal, "file metadata", meta_how, tuple(notes), tuple(warns), meta)
 
     # 5. calibration history
     if entry is not None:
         h_scale, h_text = _history_scale(entry, meta)
         base = entry.calibration
-        cal = Calibration(h_scale, base.voltage_kv if voltage_kv is None else v_used,
-                          center_px=center if center is not None else base.center_px, ellipse=base.ellipse,
-                          pixel_pitch_um=pitch, standard=base.standard, date=base.date, source=str(entry.path))
+        # everything the entry measured at this camera length (ellipse, alpha axis, camera length) stays
+        cal = replace(base, scale_inv_nm_per_px=h_scale, voltage_kv=base.voltage_kv if voltage_kv is None else v_used,
+                      center_px=center if center is not None else base.center_px, pixel_pitch_um=pitch,
+                      source=str(entry.path))
         return ResolvedCalibration(cal, "calibration history", h_text, tuple(notes), tuple(warns), meta)
 
     # 6. none

@@ -533,8 +533,7 @@ def inspect_file(path, calibration: Calibration | None = None, *, frame: int | N
     if not cal.is_calibrated:
         scale = read_image_calibration(path)
         if scale is not None:
-            cal = Calibration(scale, cal.voltage_kv, cal.center_px, cal.ellipse, cal.camera_length_mm,
-                              cal.pixel_pitch_um, cal.standard, cal.date, source=f"{path} (TIFF resolution tags)")
+            cal = replace(cal, scale_inv_nm_per_px=scale, source=f"{path} (TIFF resolution tags)")
     mask = read_mask_image(mask_path, shape=img.shape) if mask_path is not None else None
     return inspect_pattern(img, cal, mask=mask, source=str(path), **options)
 
