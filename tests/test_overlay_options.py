@@ -71,3 +71,34 @@ def test_spots_overlay_takes_dpi_too(tmp_path, capsys):
     assert main(["spots", str(tif), "--calibration", str(EXAMPLES / "grain_A_fcc.json"), "--overlay", str(png),
                  "--dpi", "40"]) == 0
     assert _width(png) == 9 * 40  # the spots overlay is 9 inches wide
+
+
+def test_the_legend_sits_under_the_pattern_not_on_its_spots():
+    """Every legend line is drawn in the strip below the pattern panels (on grain B the spots fill the
+    frame, and a legend in the corner covered four of them)."""
+    from saed.calibrate.resolve import resolve_calibration
+    from saed.crystal import builtin_phase
+    from saed.image.io import read_pattern
+    from saed.image.measure import inspect_file
+    from saed.index import index_pattern, prepare_phases
+    from saed.report.index_overlay import overlay_figure
+
+    tif = EXAMPLES / "grain_B_hcp.tif"
+    img, meta = read_pattern(tif)
+    cal = resolve_calibration(tif, meta).calibration
+    ins = inspect_file(tif, cal, image=img)
+    res = index_pattern(ins.measured, prepare_phases([builtin_phase("Co-hcp"), builtin_phase("Co-fcc")],
+                                                     max_g_inv_nm=12.0))
+    fig = overlay_figure(img, res, ignored=ins.ignored)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    panel_bottom = min(ax.get_window_extent(renderer).y0 for ax in fig.axes)
+    legend = [t for t in fig.texts if t.get_text().startswith(("circle:", "square:", "diamond:", "violet shade:"))]
+    assert len(legend) >= 3
+    for t in legend:
+        assert t.get_window_extent(renderer).y1 <= panel_bottom + 0.5, t.get_text()
+    for ax in fig.axes:  # and nothing of the legend is left inside a panel
+        assert not [t for t in ax.texts if t.get_text().startswith(("circle:", "square:"))]

@@ -41,6 +41,10 @@ KIND_STYLE = {
 }
 PRED_COLOUR = "#64d2ff"
 MAX_LABELS = 36
+#: Height of one legend line in the strip under the pattern (inches), and the strip's colour.
+LEGEND_LINE_IN = 0.19
+LEGEND_STRIP = "#16161a"
+
 #: The shade over masked pixels (beam stop, saturation, --mask), and its legend text colour.
 MASK_RGB = (0.55, 0.35, 0.95)
 MASK_LEGEND_COLOUR = "#c4a7ff"
@@ -64,7 +68,16 @@ def runner_up_to_show(result: IndexResult):
 def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str | None = None, fmt: str = "png",
                          dpi: int = DEFAULT_DPI, size_in: float = 8.0, ignored: np.ndarray | None = None,
                          units=None) -> bytes:
-    """Render the overlay and return the file bytes (PNG, PDF or SVG); `units` (nm default) for the scale.
+    """Render the overlay and return the file bytes (PNG, PDF or SVG); `units` (nm default) for the scale."""
+    fig = overlay_figure(image, result, title=title, dpi=dpi, size_in=size_in, ignored=ignored, units=units)
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=dpi)
+    return buf.getvalue()
+
+
+def overlay_figure(image: np.ndarray, result: IndexResult, *, title: str | None = None, dpi: int = DEFAULT_DPI,
+                   size_in: float = 8.0, ignored: np.ndarray | None = None, units=None):
+    """The overlay as a matplotlib Figure (see :func:`overlay_figure_bytes`).
 
     When the answer is ambiguous, the solution it cannot be told from is drawn in a second panel beside the
     best one, on the same pattern, so the two predictions can be compared spot by spot.
@@ -94,15 +107,34 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
     head_in = 0.85 + (0.3 if n > 1 else 0.0)
     panel_h_in = size_in * (y1 - y0) / (x1 - x0)
     fig = Figure(figsize=(size_in * n, panel_h_in + head_in), dpi=dpi)
-    fh = fig.get_figheight()
     cal = m.calibration
+    axes, legends = [], []
     for k, sol in enumerate(panels):
-        ax = fig.add_axes([k / n, 0.0, 1.0 / n, panel_h_in / fh])
-        _panel(ax, img, m, sol, box=box, ignored=ignored, cal=cal, legend=(k == n - 1) or n == 1 or (k == 0 and len(result.crystals) > 1), units=units,
-               result=result if k == 0 else None)
+        ax = fig.add_axes([k / n, 0.0, 1.0 / n, 1.0])  # placed below, once the legend's height is known
+        legends.append(_panel(ax, img, m, sol, box=box, ignored=ignored, cal=cal, units=units,
+                              legend=(k == n - 1) or n == 1 or (k == 0 and len(result.crystals) > 1),
+                              result=result if k == 0 else None))
+        axes.append(ax)
         if n > 1:
             role = "best" if k == 0 else "runner-up: one pattern cannot decide between them"
             ax.set_title(f"{sol.phase_name} {zone_text(sol, 'mathtext')} ({role})", fontsize=10, color="black", pad=4)
+    # The legend goes in a dark strip under the pattern, never over spots (it covered the outer spots
+    # of a pattern that fills the frame); the strip is dark so the colours read as on the pattern.
+    lines = max((len(leg) for leg in legends), default=0)
+    foot_in = 0.1 + LEGEND_LINE_IN * lines if lines else 0.0
+    fig.set_size_inches(size_in * n, panel_h_in + head_in + foot_in)
+    fh = fig.get_figheight()
+    for k, ax in enumerate(axes):
+        ax.set_position([k / n, foot_in / fh, 1.0 / n, panel_h_in / fh])
+    if lines:
+        from matplotlib.patches import Rectangle
+
+        fig.add_artist(Rectangle((0.0, 0.0), 1.0, foot_in / fh, transform=fig.transFigure, fc=LEGEND_STRIP,
+                                 ec="none", zorder=0))
+        for k, leg in enumerate(legends):
+            for i, (text, col) in enumerate(leg):
+                fig.text(k / n + 0.012, (foot_in - 0.05 - LEGEND_LINE_IN * (i + 0.5)) / fh, text, color=col,
+                         fontsize=8.5, va="center", ha="left")
     src = title or m.source or "pattern"
     if best is None:
         line1 = f"{src}: no solution"
@@ -124,15 +156,15 @@ def overlay_figure_bytes(image: np.ndarray, result: IndexResult, *, title: str |
         legend = SCORE_SHORT + (f"   {word}: {CONFIDENCE_MEANING[word]}" if word in CONFIDENCE_MEANING else "")
         fig.text(0.01, 1.0 - 0.66 / fh, legend if len(legend) <= 140 * n else SCORE_SHORT, fontsize=7.5, va="top",
                  color="#444444")
-    buf = io.BytesIO()
-    fig.savefig(buf, format=fmt, dpi=dpi)
-    return buf.getvalue()
+    return fig
 
 
-def _panel(ax, img, m, best, *, box, ignored, cal, legend: bool, units, result: IndexResult | None = None) -> None:
+def _panel(ax, img, m, best, *, box, ignored, cal, legend: bool, units,
+           result: IndexResult | None = None) -> list[tuple[str, str]]:
     """One solution's prediction and the measured spots on the pattern (the whole overlay when unambiguous).
 
     With `result`, the further crystals it found (crystals 2 and 3) are drawn too, each in its own colour.
+    Returns the legend lines (text, colour) of what was drawn when `legend` is set, else [].
     """
     from matplotlib.patches import Circle, Rectangle
 
@@ -221,12 +253,10 @@ def _panel(ax, img, m, best, *, box, ignored, cal, legend: bool, units, result: 
         leg += further
         if masked:
             leg.append(("violet shade: masked (beam stop, saturation, --mask), not searched", MASK_LEGEND_COLOUR))
-        for i, (text, col) in enumerate(leg):
-            ax.text(0.985, 0.015 + 0.032 * i, text, transform=ax.transAxes, ha="right", va="bottom", color=col,
-                    fontsize=8.5, bbox=dict(boxstyle="round,pad=0.2", fc=(0, 0, 0, 0.6), ec="none"))
     ax.set_xlim(x0, x1)
     ax.set_ylim(y1, y0)
     ax.set_axis_off()
+    return leg if legend else []
 
 
 def write_index_overlay(image: np.ndarray, result: IndexResult, path, *, title: str | None = None,
