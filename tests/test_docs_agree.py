@@ -8,6 +8,7 @@ from pathlib import Path
 import pytest
 
 from saed.cli import main
+from saed.report.index_summary import unwrapped
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = resources.files("saed").joinpath("data/examples")
@@ -41,7 +42,7 @@ def test_indexing_doc_grain_d_row_matches_the_printed_tilt(grain_d, capsys):
     doc = (ROOT / "docs" / "indexing.md").read_text(encoding="utf-8")
     row = next(line for line in doc.splitlines() if line.startswith("| Co-fcc [112] (demo grain D)"))
     out = _printed(grain_d, capsys)
-    note = next(line for line in out.splitlines() if "ambiguous with Co-hcp" in line)
+    note = next(line for line in unwrapped(out) if "ambiguous with Co-hcp" in line)
     # the same look-alike zone, tilt angle, row, target zones and the angle to the nearest hcp zone
     doc_zone = re.search(r"ambiguous with Co-hcp (\[[-\d]+\])", row).group(1)
     assert f"ambiguous with Co-hcp {doc_zone}" in note

@@ -23,7 +23,7 @@ from saed.index import index_pattern, prepare_phases
 from saed.index.lookalike import Relation
 from saed.synth.kinematic import synthetic_measured
 from saed.report.index_json import result_json
-from saed.report.index_summary import format_summary, other_lookalikes, plain_notes
+from saed.report.index_summary import format_summary, other_lookalikes, plain_notes, unwrapped
 
 G_HCP_1010_INV_NM = 1.0 / (0.25071 * math.sqrt(3.0) / 2.0)
 G_FCC_200_INV_NM = 2.0 / 0.35447
@@ -55,7 +55,7 @@ def test_lookalike_spacings_follow_angstrom(fcc_011):
 
 def test_summary_prints_lookalike_spacings_in_the_chosen_units(fcc_011):
     text = format_summary(fcc_011, image="p.tif", units=UNITS["angstrom"])
-    line = next(ln for ln in text.splitlines() if "ruled out: Co-hcp" in ln)
+    line = next(ln for ln in unwrapped(text) if "ruled out: Co-hcp" in ln)
     assert "1/A" in line and "1/nm" not in line and f"{G_HCP_1010_INV_NM / 10:.3f}" in line
 
 
