@@ -172,7 +172,7 @@ def test_upload_size_cap_without_a_declared_length(served):
 
 @settings(max_examples=60, deadline=None)
 @given(fields=st.dictionaries(st.sampled_from(["phase", "scale", "camera_length", "pixel_pitch", "voltage",
-                                               "alpha_axis", "other"]),
+                                               "alpha_axis", "units", "other"]),
                               st.text(max_size=10), max_size=5))
 def test_settings_fields_give_settings_or_one_line_reason(fields):
     from saed.errors import InputError
@@ -186,6 +186,45 @@ def test_settings_fields_give_settings_or_one_line_reason(fields):
         assert "\n" not in str(exc) and str(exc)
     else:
         s.calibration()  # what was accepted is usable
+
+
+def test_units_setting_is_checked_and_remembered(tmp_path):
+    from saed.errors import InputError
+    from saed.serve.settings import Settings, save_settings, settings_from_fields
+
+    book = PhaseBook()
+    assert settings_from_fields({"units": "angstrom"}, Settings(), book).units == "angstrom"
+    assert settings_from_fields({"units": "\u00c5"}, Settings(), book).units == "angstrom"
+    assert settings_from_fields({"units": ""}, Settings(units="angstrom"), book).units == "angstrom"  # empty: unchanged
+    with pytest.raises(InputError, match="units 'furlong': use nm or angstrom"):
+        settings_from_fields({"units": "furlong"}, Settings(), book)
+    with settings_dir(tmp_path):
+        save_settings(Settings(units="angstrom"))
+        assert load_settings(book).units == "angstrom"
+
+
+def test_page_notes_come_in_both_units():
+    """The look-alike note's separating reciprocal lengths: 1/nm in one list, the same values / 10 in 1/angstrom
+    in the other (1 nm = 10 angstrom, common practice); the page picks the list its units ask for."""
+    import re
+
+    from saed.crystal import builtin_phase
+    from saed.index import index_pattern, prepare_phases
+    from saed.serve.engine import view_of
+    from saed.synth.kinematic import synthetic_measured
+
+    m, _ = synthetic_measured(builtin_phase("Co-fcc"), (0, 1, 1), rng=3)
+    res = index_pattern(m, prepare_phases([builtin_phase("Co-fcc"), builtin_phase("Co-hcp")], max_g_inv_nm=12.0))
+    sol = view_of(res, factor=1)["solutions"][0]
+    nm, ang = sol["notes_html_by_units"]["nm"], sol["notes_html_by_units"]["angstrom"]
+    assert sol["notes_html"] == nm and len(nm) == len(ang)
+    pairs = [(a, b) for a, b in zip(nm, ang) if "1/nm" in a]
+    assert pairs, "a look-alike note quotes a reciprocal length"
+    for a, b in pairs:
+        assert "1/nm" not in b and "1/\u00c5" in b
+        va = [float(x) for x in re.findall(r"([\d.]+) 1/nm", a)]
+        vb = [float(x) for x in re.findall(r"([\d.]+) 1/\u00c5", b)]
+        assert va and len(va) == len(vb) and all(y == pytest.approx(x / 10, abs=6e-4) for x, y in zip(va, vb))
 
 
 # ---------------------------------------------------------------- guards

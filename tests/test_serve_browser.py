@@ -111,6 +111,37 @@ def test_choosing_a_file_shows_the_answer_and_second_solution_redraws(page):
     assert _canvas(driver) == fitted
 
 
+def test_units_set_on_the_page_rewrite_lengths_and_notes(page):
+    """Issue 15 item 5 on the page: lengths in nm or angstrom (1 nm = 10 angstrom, common practice), set in the
+    remembered settings; the calibration line, the spot tooltip's d and the look-alike notes follow at once."""
+    driver, _, _, shots = page
+    wait_for(lambda: "1/nm per px" in _text(driver, "calib"), what="a result in nm")  # grain A, shown above
+    nm_calib = _text(driver, "calib")
+    scale_nm = float(re.search(r"([\d.]+) 1/nm per px", nm_calib).group(1))
+
+    def choose(units: str):
+        driver.execute_script("document.getElementById('settingsbox').open = true;"
+                              f"document.getElementById('units').value = '{units}';"
+                              "document.getElementById('settings').requestSubmit();")
+
+    choose("angstrom")
+    wait_for(lambda: "1/\u00c5 per px" in _text(driver, "calib"), what="the calibration line in 1/angstrom")
+    scale_a = float(re.search(r"([\d.]+) 1/\u00c5 per px", _text(driver, "calib")).group(1))
+    assert scale_a == pytest.approx(scale_nm / 10.0, rel=1e-3)
+    assert "1/nm" not in _text(driver, "notes")
+    # the tooltip of a spot: hover where the page drew the first indexed spot
+    d = driver.execute_script("""
+        const sv = state.data.view.solutions[0]; const p = sv.spots.find((q) => q.hkl);
+        const [x, y] = toScreen(p.x, p.y); const r = cv.getBoundingClientRect(), dpr = window.devicePixelRatio || 1;
+        cv.dispatchEvent(new MouseEvent("mousemove", {clientX: r.left + x / dpr, clientY: r.top + y / dpr, bubbles: true}));
+        return p.d_nm;""")
+    tip = wait_for(lambda: _text(driver, "tip"), what="the tooltip")
+    assert f"d {d * 10:.3f} \u00c5 measured" in tip
+    driver.save_screenshot(str(shots / "serve_3b_angstrom.png"))
+    choose("nm")
+    wait_for(lambda: "1/nm per px" in _text(driver, "calib"), what="back to nm")
+
+
 def test_dropping_a_file_on_the_page_indexes_it(page):
     driver, _, _, _ = page
     import base64

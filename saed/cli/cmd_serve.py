@@ -37,6 +37,9 @@ def add_arguments(p):
     g.add_argument("--max-upload-mb", type=positive_float, default=256.0, metavar="MB",
                    help="largest pattern accepted from the page, MB (default 256)")
     g.add_argument("--forget", action="store_true", help="do not read or write the remembered page settings")
+    g.add_argument("--units", choices=("nm", "angstrom"), default=None,
+                   help="length unit of every spacing and scale the page shows (default: as last set on the "
+                        "page, else nm; the page can switch it)")
     add_phase_option(p)
     add_calibration_options(p, center=False)
     add_matching_options(p)
@@ -71,6 +74,8 @@ def _initial_settings(args, book):
         fields["phase"] = [p.name for p in book_phases(args)]
     if args.alpha_axis is not None:
         fields["alpha_axis"] = str(args.alpha_axis)
+    if args.units is not None:
+        fields["units"] = args.units
     if args.scale is not None or args.camera_length is not None:
         fields.update(scale=str(args.scale or ""), camera_length=str(args.camera_length or ""),
                       pixel_pitch=str(args.pixel_pitch or ""))

@@ -145,7 +145,7 @@ def _spot_view(s, x: float, y: float) -> dict:
 
 def _solution_view(sol, measured, word: str) -> dict:
     """Per solution: spots with labels, the simulated pattern, and the notes as HTML (escaped, overbars)."""
-    from saed.crystal.notation import person_text
+    from saed.crystal.notation import UNITS, person_text
     from saed.report.index_summary import other_lookalikes, plain_notes, zone_text
 
     by_spot = {s.spot_index: s for s in sol.indexed}
@@ -158,15 +158,21 @@ def _solution_view(sol, measured, word: str) -> dict:
     pred = [[_num(x, 1), _num(y, 1), _num(i, 3), 1 if k == "double-diffraction" else 0]
             for (x, y), i, k in zip(np.asarray(sol.predicted_xy_px), np.asarray(sol.predicted_intensity),
                                      sol.predicted_kind)]
-    notes = []
-    if sol.mistilt is not None:
-        notes.append(f"<b>Mistilt.</b> {person_text(sol.mistilt.advice, 'html')}")
-    notes += [person_text(n, "html") for n in plain_notes(sol)]
-    for head, sep, tilt in other_lookalikes(sol, "html"):
-        notes.append(f"<b>{head[0].upper() + head[1:]}.</b> {person_text(sep, 'html')}"
-                     + (f" <i>{person_text(tilt, 'html')}</i>" if tilt else ""))
+    def notes_in(units) -> list[str]:
+        notes = []
+        if sol.mistilt is not None:
+            notes.append(f"<b>Mistilt.</b> {person_text(sol.mistilt.advice, 'html')}")
+        notes += [person_text(n, "html") for n in plain_notes(sol, units, "unicode")]
+        for head, sep, tilt in other_lookalikes(sol, "html", units):
+            notes.append(f"<b>{head[0].upper() + head[1:]}.</b> {person_text(sep, 'html')}"
+                         + (f" <i>{person_text(tilt, 'html')}</i>" if tilt else ""))
+        return notes
+
     m = sol.mistilt
-    return {"spots": spots, "predicted": pred, "notes_html": notes, "confidence": word,
+    # the notes quote reciprocal lengths: written once per unit the page offers, so switching is instant
+    by_units = {name: notes_in(u) for name, u in UNITS.items()}
+    return {"spots": spots, "predicted": pred, "notes_html": by_units["nm"], "notes_html_by_units": by_units,
+            "confidence": word,
             "zone_html": zone_text(sol, "html"), "zone_plain": zone_text(sol, "plain"),
             "laue_center_px": ([_num(m.laue_center_px[0], 1), _num(m.laue_center_px[1], 1)]
                                if m is not None and m.reliable and m.tilt_deg >= 0.15 else None),

@@ -1,4 +1,4 @@
-"""What the operator sets on the page: candidate phases, calibration, voltage, holder axis; remembered.
+"""What the operator sets on the page: candidate phases, calibration, voltage, holder axis, units; remembered.
 
 The settings live in one small JSON file (``serve-settings.json``) in the first folder that applies:
 
@@ -23,6 +23,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from saed.calibration import Calibration, calibration_from_options
+from saed.crystal.notation import units_named
 from saed.crystal.phase import Phase, builtin_names, builtin_phase
 from saed.errors import InputError, PhaseError
 from saed.files import atomic_write_text
@@ -65,6 +66,7 @@ class Settings:
     alpha_axis_deg: float | None = None
     calibration_file: str | None = None
     origin: str = "defaults"
+    units: str = "nm"  # how the page writes lengths: "nm" or "angstrom" (saed.crystal.notation.UNITS)
 
     def calibration(self) -> Calibration:
         """The Calibration these settings give (uncalibrated when no scale is set); InputError on contradictions."""
@@ -150,7 +152,7 @@ def settings_from_fields(fields: dict, base: Settings, book: PhaseBook, *, origi
     ...
     saed.errors.InputError: voltage -3 must be positive
     """
-    known = {"phase", "scale", "camera_length", "pixel_pitch", "voltage", "alpha_axis"}
+    known = {"phase", "scale", "camera_length", "pixel_pitch", "voltage", "alpha_axis", "units"}
     unknown = sorted(set(fields) - known)
     if unknown:
         raise InputError(f"unknown field {unknown[0]!r} (known: {', '.join(sorted(known))})")
@@ -172,6 +174,8 @@ def settings_from_fields(fields: dict, base: Settings, book: PhaseBook, *, origi
             ch["origin"] = origin
     if "alpha_axis" in fields:
         ch["alpha_axis_deg"] = _opt_float("alpha axis", fields["alpha_axis"], positive=False)
+    if "units" in fields and str(fields["units"]).strip():
+        ch["units"] = units_named(str(fields["units"])[:40]).name
     new = dataclasses.replace(base, **ch)
     new.calibration()  # contradictions and implausible values fail here, before anything is kept
     return new
@@ -188,7 +192,8 @@ def load_settings(book: PhaseBook, folder: Path | None = None) -> Settings:
         return Settings()
     fields = {"phase": d.get("phases") or list(DEFAULT_PHASES)}
     for key, attr in (("scale", "scale_inv_nm_per_px"), ("camera_length", "camera_length_mm"),
-                      ("pixel_pitch", "pixel_pitch_um"), ("voltage", "voltage_kv"), ("alpha_axis", "alpha_axis_deg")):
+                      ("pixel_pitch", "pixel_pitch_um"), ("voltage", "voltage_kv"), ("alpha_axis", "alpha_axis_deg"),
+                      ("units", "units")):
         if d.get(attr) is not None:
             fields[key] = str(d[attr])
     try:

@@ -5,7 +5,7 @@
 
 const $ = (id) => document.getElementById(id);
 const state = { version: -1, rows: [], current: null, data: null, sol: 0, img: null,
-                view: { s: 1, tx: 0, ty: 0 }, followId: null, tablesReady: false, uploading: 0 };
+                view: { s: 1, tx: 0, ty: 0 }, followId: null, tablesReady: false, uploading: 0, units: "nm" };
 const MAX_LABELS = 36;
 
 // ------------------------------------------------------------------ text helpers
@@ -13,6 +13,12 @@ function esc(t) { return String(t == null ? "" : t).replace(/[&<>"']/g, (c) => (
 // indices with overbars (combining overline) for negative values, as written on paper
 function barIdx(v) { if (!v) return ""; return v.map((x) => x < 0 ? `<span class="bar">${-x}</span>` : String(x)).join(Math.max(...v.map(Math.abs)) >= 10 ? " " : ""); }
 function fmt(v, nd) { return v == null || !isFinite(v) ? "\u2013" : Number(v).toFixed(nd); }
+// lengths as the settings' units say (saed.crystal.notation.UNITS): nm, or angstrom = 10 per nm, with the
+// same significant figures; the data themselves stay in nm and 1/nm
+const UNITS = { nm: { perNm: 1, sym: "nm", shift: 0 }, angstrom: { perNm: 10, sym: "\u00c5", shift: 1 } };
+function unit() { return UNITS[state.units] || UNITS.nm; }
+function lenText(dNm, ndNm) { const u = unit(); return `${fmt(dNm == null ? null : dNm * u.perNm, Math.max(0, ndNm - u.shift))} ${u.sym}`; }
+function recipText(vInvNm, ndInvNm) { const u = unit(); return `${fmt(vInvNm == null ? null : vInvNm / u.perNm, ndInvNm + u.shift)} 1/${u.sym}`; }
 
 async function api(path, opts) {
   const r = await fetch(path, Object.assign({ credentials: "same-origin", cache: "no-store" }, opts || {}));
@@ -44,6 +50,8 @@ function showStatus(st) {
   } else { el.className = "tables"; el.textContent = "tables: waiting"; }
   $("watch").textContent = st.watch ? "watching " + st.watch + (st.watch_error ? " \u2014 " + st.watch_error : "") : "no watched folder (saed serve --watch DIR)";
   if (!state.settingsShown) { fillSettings(st); state.settingsShown = true; }
+  const units = st.settings.units || "nm";
+  if (units !== state.units) { state.units = units; if (state.data) { showNotes(); showCalib(state.data); draw(); } }
 }
 
 function fillSettings(st) {
@@ -54,6 +62,7 @@ function fillSettings(st) {
   $("pixel_pitch").value = s.pixel_pitch_um == null ? "" : s.pixel_pitch_um;
   $("voltage").value = s.effective_voltage_kv;
   $("alpha_axis").value = s.alpha_axis_deg == null ? "" : s.alpha_axis_deg;
+  $("units").value = s.units || "nm";
   $("phaselist").innerHTML = st.phases_available.map((n) => `<option value="${esc(n)}">`).join("");
   $("settingsmsg").textContent = "calibration: " + s.calibration_text + (s.calibration_file ? " (" + s.calibration_file + ")" : "");
 }
@@ -62,7 +71,7 @@ $("settings").addEventListener("submit", async (ev) => {
   ev.preventDefault();
   const fd = new FormData();
   $("phases").value.split(/[,\s]+/).filter(Boolean).forEach((p) => fd.append("phase", p));
-  for (const k of ["scale", "camera_length", "pixel_pitch", "voltage", "alpha_axis"]) fd.append(k, $(k).value.trim());
+  for (const k of ["scale", "camera_length", "pixel_pitch", "voltage", "alpha_axis", "units"]) fd.append(k, $(k).value.trim());
   const r = await api("/api/settings", { method: "POST", body: fd });
   if (!r.ok) { $("settingsmsg").innerHTML = `<span class="st-error">${esc(r.body.error)}</span>`; return; }
   state.tablesReady = false; fillSettings(r.body); showStatus(r.body);
@@ -237,7 +246,7 @@ function showNotes() {
   const d = state.data, sv = curSolView();
   const items = [];
   // notes come as HTML made by saed.crystal.notation.person_text: escaped, negative indices overbarred
-  if (sv) for (const n of sv.notes_html) items.push(`<li>${n}</li>`);
+  if (sv) for (const n of (sv.notes_html_by_units && sv.notes_html_by_units[state.units]) || sv.notes_html) items.push(`<li>${n}</li>`);
   // several crystals: which spots belong to which, and their relationship (HTML from saed.report);
   // after the look-alike notes, which its own note refers to as 'listed above'
   if (d && d.view && d.view.crystals_html) items.push(`<li>${d.view.crystals_html}</li>`);
@@ -253,8 +262,8 @@ function showCalib(d) {
   const doc = d.doc;
   if (!doc) { $("calib").textContent = ""; return; }
   const best = doc.solutions[0] || doc.near_miss;
-  let t = doc.calibrated ? `${fmt(doc.scale_inv_nm_per_px, 5)} 1/nm per px at ${doc.voltage_kv} kV` : `uncalibrated, ${doc.voltage_kv} kV`;
-  if (!doc.calibrated && best) t += `; implied scale ${fmt(best.scale_inv_nm_per_px, 5)} 1/nm per px` + (best.implied_camera_length_mm ? `, camera length ${fmt(best.implied_camera_length_mm, 0)} mm` : "");
+  let t = doc.calibrated ? `${recipText(doc.scale_inv_nm_per_px, 5)} per px at ${doc.voltage_kv} kV` : `uncalibrated, ${doc.voltage_kv} kV`;
+  if (!doc.calibrated && best) t += `; implied scale ${recipText(best.scale_inv_nm_per_px, 5)} per px` + (best.implied_camera_length_mm ? `, camera length ${fmt(best.implied_camera_length_mm, 0)} mm` : "");
   if (doc.calibrated && best && best.scale_error_pct != null) {
     const e = Math.abs(best.scale_error_pct) < 0.05 ? 0 : best.scale_error_pct;
     t += `; the best solution's refined scale is ${e > 0 ? "+" : ""}${fmt(e, 1)} % from it`;
@@ -431,13 +440,13 @@ function drawScaleBar(v, sv, dpr) {
   const doc = state.data.doc;
   const scale = doc && doc.calibrated ? doc.scale_inv_nm_per_px : sv ? sv.scale_inv_nm_per_px : null;
   if (!scale) return;
-  const pxPerInvNm = state.view.s / scale;
-  const bar = niceBar(cv.width / pxPerInvNm), w = bar * pxPerInvNm;
+  const u = unit(), pxPerInvUnit = state.view.s * u.perNm / scale;  // screen px per 1/nm or per 1/angstrom
+  const bar = niceBar(cv.width / pxPerInvUnit), w = bar * pxPerInvUnit;
   const x = 18 * dpr, y = cv.height - 22 * dpr;
   ctx.fillStyle = "rgba(0,0,0,0.6)"; ctx.fillRect(x - 6 * dpr, y - 24 * dpr, w + 12 * dpr, 34 * dpr);
   ctx.fillStyle = "#fff"; ctx.fillRect(x, y, w, 5 * dpr);
   ctx.font = `600 ${13 * dpr}px system-ui, sans-serif`; ctx.textAlign = "center";
-  ctx.fillText(`${bar} 1/nm` + (doc.calibrated ? "" : " (implied)"), x + w / 2, y - 7 * dpr); ctx.textAlign = "start";
+  ctx.fillText(`${+bar.toPrecision(6)} 1/${u.sym}` + (doc.calibrated ? "" : " (implied)"), x + w / 2, y - 7 * dpr); ctx.textAlign = "start";
 }
 
 function drawLegend(v, sv) {
@@ -484,7 +493,7 @@ function hover(ev) {
   if (!bestP) { tip.hidden = true; return; }
   const st = v.kind_style[bestP.kind] || v.kind_style.unindexed;
   tip.innerHTML = (bestP.hkl ? `<b>${bestP.label_html || barIdx(bestP.hkl)}</b> ` : "<b>not explained</b> ") + `<span style="color:${st.colour}">${esc(st.label)}</span><br>` +
-    (bestP.d_nm != null ? `d ${fmt(bestP.d_nm, 4)} nm measured` + (bestP.d_calc_nm != null ? `, ${fmt(bestP.d_calc_nm, 4)} nm calculated` : "") + "<br>" : "") +
+    (bestP.d_nm != null ? `d ${lenText(bestP.d_nm, 4)} measured` + (bestP.d_calc_nm != null ? `, ${lenText(bestP.d_calc_nm, 4)} calculated` : "") + "<br>" : "") +
     (bestP.d_error_pct != null ? `error ${bestP.d_error_pct >= 0 ? "+" : ""}${fmt(bestP.d_error_pct, 2)} % in d` + (bestP.residual_px != null ? `, ${fmt(bestP.residual_px, 1)} px off the prediction` : "") + "<br>" : "") +
     `x ${fmt(bestP.x, 1)}, y ${fmt(bestP.y, 1)} px`;
   tip.hidden = false;
