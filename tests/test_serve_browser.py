@@ -228,5 +228,7 @@ def test_marking_two_patterns_and_indexing_the_grain_jointly(page, tmp_path):
     summary = _text(driver, "grainresult")
     assert "grain_1.tif" in summary and "grain_2.tif" in summary and "[011]" in summary
     assert "alpha axis: not known" in summary  # the page's settings give none: +x is taken, and said
+    # indices as everywhere on the page: overbars (a combining overline), no minus sign inside a zone
+    assert "\u0305" in summary and not re.search(r"\[[-\d\u0305 ]*-\d[-\d\u0305 ]*\]", summary)
     driver.execute_script("document.getElementById('grainsbox').scrollIntoView();")
     driver.save_screenshot(str(shots / "serve_6_grain_joint.png"))

@@ -5,7 +5,8 @@ indexes them (more candidates per pattern, no single-pattern look-alike search),
 calibration resolved per file and the holder's alpha-axis direction of the settings (else the file's
 calibration, else +x with a note), on the server's warm tables; then
 :func:`saed.index.grain.solve_grain` finds the phase and the one orientation. The answer is the
-``saed grain`` JSON (docs/contract.md) with the terminal summary as ``summary`` text.
+``saed grain`` JSON (docs/contract.md) with the terminal summary as ``summary`` text (plain minus signs)
+and as ``summary_display`` (overbarred indices, what the page shows).
 """
 
 from __future__ import annotations
@@ -70,4 +71,6 @@ def grain_index(service, grain: str) -> dict:
         doc["notes"] = [note]
     doc["grain"] = grain
     doc["summary"] = format_grain_summary(result, alpha_axis_note=note)
+    # what the page shows: the same text with overbarred indices, as every other index on the page
+    doc["summary_display"] = format_grain_summary(result, alpha_axis_note=note, style="unicode")
     return doc

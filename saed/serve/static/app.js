@@ -159,7 +159,7 @@ $("grains").addEventListener("click", async (ev) => {
   $("grainanswer").textContent = best
     ? `grain ${name}: ${best.phase}, Euler (Bunge) ${best.euler_bunge_deg.map((v) => fmt(v, 1)).join(", ")}\u00b0${doubt}` + (open.length ? " (see below)" : "")
     : `grain ${name}: no joint solution \u2013 ${d.message}`;
-  $("grainresult").textContent = d.summary; $("grainresult").hidden = false;
+  $("grainresult").textContent = d.summary_display || d.summary; $("grainresult").hidden = false;
 });
 
 $("history").addEventListener("click", (ev) => {
