@@ -192,7 +192,8 @@ def _warm(measured, job: IndexJob, st: _State):
 def _full(measured, job: IndexJob):
     from saed.index import index_pattern
 
-    return index_pattern(measured, job.tables, top=job.top, **dict(job.options))
+    # no mistilt fit: the CSV never shows it, and it is about two thirds of a search on a scan frame
+    return index_pattern(measured, job.tables, top=job.top, mistilt=False, **dict(job.options))
 
 
 def _same(row: Row, best, tables) -> bool:
