@@ -218,13 +218,21 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         raise ImageError(f"{source}: the frame is {image.shape[0]}x{image.shape[1]} pixels, the run's frames are "
                          f"{job.frame_shape[0]}x{job.frame_shape[1]}")
     st = _state_for(job)
+    floats = None                                 # the frame as float32, made only for the full stage
+
+    def as_float32():
+        nonlocal floats
+        if floats is None:
+            floats = np.ascontiguousarray(image, dtype=np.float32)      # as saed.image.io.check_image makes it
+        return floats
+
     hint = st.centre if st.centre is not None else cal.center_px
     measured = None
     if hint is not None and image.size <= SMALL_FRAME_MAX_PIXELS:
         measured = measure_small_frame(image, cal, centre_hint_px=hint, mask=job.mask, source=source)
     full_stage = measured is None
     if full_stage:
-        measured = measure_pattern(image, cal, mask=job.mask, source=source)
+        measured = measure_pattern(as_float32(), cal, mask=job.mask, source=source)
     st.centre = measured.center_px
     # checked frames sit mid-way between multiples of N, away from the task starts (tasks start at
     # multiples of their size, where the full stage runs anyway)
@@ -237,7 +245,7 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         return row_from_solutions(best, second, name=name, frame=frame, n_spots=len(measured.spots),
                                   note=entry.note, search="warm")
     if check and not full_stage:
-        measured = measure_pattern(image, cal, mask=job.mask, source=source)
+        measured = measure_pattern(as_float32(), cal, mask=job.mask, source=source)
     result = _full(measured, job)
     _remember(st, job.tables, result)
     search = FULL if (full_stage or check) else LEAN_SEARCH
@@ -248,3 +256,5 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
 
 
 index_scan_frame.new_task = _new_task
+#: the runner may hand this function an 8- or 16-bit frame as recorded (no float32 copy; see runner._checked)
+index_scan_frame.takes_counts = True
