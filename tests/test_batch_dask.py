@@ -102,6 +102,22 @@ def test_shared_value_is_sent_once_not_per_frame(client, tmp_path):
     assert 1 <= Divisor.pickled <= 2                        # scattered to the 2 workers, never per task
 
 
+def _worker_environment():
+    return {k: os.environ.get(k) for k in ("MALLOC_TRIM_THRESHOLD_", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
+                                           "MKL_NUM_THREADS")}
+
+
+def test_local_workers_keep_one_native_thread_and_glibc_malloc_defaults(client):
+    # glibc mallopt(3): setting M_TRIM_THRESHOLD (the MALLOC_TRIM_THRESHOLD_ variable) turns off the
+    # dynamic mmap threshold, so every large numpy temporary becomes a fresh mmap + page faults; the
+    # native pools stay at one thread per single-threaded worker (no spinning BLAS threads on shared cores)
+    if "MALLOC_TRIM_THRESHOLD_" in os.environ:
+        pytest.skip("this process's own environment sets MALLOC_TRIM_THRESHOLD_, which the workers inherit")
+    for env in client.run(_worker_environment).values():
+        assert env["MALLOC_TRIM_THRESHOLD_"] is None
+        assert env["OMP_NUM_THREADS"] == env["OPENBLAS_NUM_THREADS"] == env["MKL_NUM_THREADS"] == "1"
+
+
 def test_interrupted_run_resumes_to_the_same_rows(client, tmp_path):
     np.save(tmp_path / "s.npy", _stack(40, seed=4))
     inputs = discover_inputs([str(tmp_path / "s.npy")])

@@ -118,3 +118,36 @@ def test_scan_map_png_shows_each_phase_colour(tmp_path):
     phase_hues = [rgb_to_hsv(np.array(to_rgb(PHASE_COLOURS[i])))[0] for i in (0, 1)]
     off = np.min([np.abs((coloured[:, 0] - ph + 0.5) % 1.0 - 0.5) for ph in phase_hues], axis=0)
     assert len(coloured) > 1000 and np.mean(off < 0.03) > 0.98
+
+
+def test_a_scan_function_gets_16_bit_frames_as_recorded_and_the_checks_still_hold(tmp_path):
+    # frames written here: 16-bit counts, a constant frame and an all-zero one (check_image's refusals,
+    # saed.image.io); a frame function that takes counts gets the uint16 array itself, one that does not
+    # gets check_image's float32 copy, and both see the same error rows
+    from saed.batch.runner import Chunk, process_chunk
+
+    stack = np.random.default_rng(4).poisson(40, (4, 48, 48)).astype(np.uint16)
+    stack[1] = 7
+    stack[2] = 0
+    np.save(tmp_path / "s.npy", stack)
+    seen = []
+
+    def counts(image, shared, *, name, frame, context=None):
+        seen.append((frame, image.dtype, int(image.sum(dtype=np.int64))))
+        return Row(name, frame, status="ok")
+
+    def floats(image, shared, *, name, frame, context=None):
+        seen.append((frame, image.dtype, int(image.sum(dtype=np.float64))))
+        return Row(name, frame, status="ok")
+
+    counts.takes_counts = True
+    chunk = Chunk("s.npy", str(tmp_path / "s.npy"), (0, 1, 2, 3), stack=True)
+    rows_c = process_chunk(chunk, counts, None)
+    got_c, seen[:] = list(seen), []
+    rows_f = process_chunk(chunk, floats, None)
+    assert [(f, d) for f, d, _ in got_c] == [(0, np.uint16), (3, np.uint16)]
+    assert [(f, d) for f, d, _ in seen] == [(0, np.float32), (3, np.float32)]
+    assert [t for _, _, t in got_c] == [t for _, _, t in seen] == [int(stack[0].sum()), int(stack[3].sum())]
+    for rc, rf in zip(rows_c, rows_f):
+        assert rc.status == rf.status
+    assert "same value 7" in rows_c[1].status and "every pixel is zero" in rows_c[2].status

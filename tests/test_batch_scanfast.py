@@ -279,3 +279,28 @@ def test_small_frame_stage_on_arbitrary_frames_never_fails_badly():
         assert np.all(np.isfinite(xy)) and np.all((xy >= 0) & (xy <= [cols - 1, rows - 1]))
 
     check()
+
+
+def test_index_without_the_mistilt_fit_gives_the_same_ranking_and_no_mistilt():
+    # batch rows skip the mistilt fit (index_pattern(mistilt=False)); the phase and zone are the renderer's
+    # (Co-hcp [1 0 0] is [2 -1 -1 0] in 4 indices: 'a' axis), and nothing but the mistilt may differ
+    from saed.image.measure import measure_pattern
+    from saed.index import index_pattern, prepare_phases
+
+    tables = prepare_phases([builtin_phase(p) for p in ("Co-fcc", "Co-hcp", "Cr")], voltage_kv=200.0)
+    for seed, (ph, zone) in enumerate([("Co-fcc", (0, 1, 1)), ("Co-hcp", (1, 0, 0)), ("Cr", (0, 0, 1))]):
+        m = measure_pattern(_render(ph, zone, 23.0 * seed, seed).image, Calibration(SCALE, 200.0))
+        full, lean = index_pattern(m, tables), index_pattern(m, tables, mistilt=False)
+        assert full.best.phase_name == ph and builtin_phase(ph) is not None
+        assert full.best.mistilt is not None                      # the default fits it ...
+        assert all(s.mistilt is None for s in lean.solutions)     # ... the option does not
+        assert len(full.solutions) == len(lean.solutions)
+        for a, b in zip(full.solutions, lean.solutions):
+            advice = a.mistilt.advice if a.mistilt is not None else None
+            assert (a.phase_name, a.zone_axis, a.zone_axis_4, a.score, a.in_plane_rotation_deg,
+                    a.scale_inv_nm_per_px) == (b.phase_name, b.zone_axis, b.zone_axis_4, b.score,
+                                               b.in_plane_rotation_deg, b.scale_inv_nm_per_px)
+            assert np.array_equal(a.orientation_matrix, b.orientation_matrix)
+            assert [lk.relation for lk in a.lookalikes] == [lk.relation for lk in b.lookalikes]
+            assert tuple(n for n in a.notes if n != advice) == b.notes
+        assert full.message == lean.message and len(full.crystals) == len(lean.crystals)

@@ -120,6 +120,7 @@ def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, cont
     from saed.index import index_image
 
     cal = context if isinstance(context, Calibration) else job.calibration
+    # no mistilt fit (index_pattern's mistilt=False): the CSV has no column for it, and the answer is the same
     result = index_image(image, job.tables, cal, top=job.top, mask=job.mask, source=f"{name} frame {frame}",
-                         **dict(job.options))
+                         mistilt=False, **dict(job.options))
     return row_from_result(result, name=name, frame=frame, search="full")

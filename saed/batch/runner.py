@@ -28,6 +28,8 @@ import time
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator
 
+import numpy as np
+
 from saed.batch.inputs import FrameSource
 from saed.batch.results import Row, error_status
 from saed.errors import SaedError
@@ -190,7 +192,7 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
                 got = images.pop(k)
                 if isinstance(got, BaseException):
                     raise got
-                image = check_image(got, name=f"{chunk.name} frame {k}")
+                image = _checked(got, frame_fn, name=f"{chunk.name} frame {k}")
             row = frame_fn(image, shared, name=chunk.name, frame=k, context=chunk.context)
         except SaedError as exc:
             row = Row(chunk.name, k, status=error_status(_frame_error(chunk.name, chunk.path, k, exc)))
@@ -200,6 +202,25 @@ def process_chunk(chunk: Chunk, frame_fn, shared) -> list[Row]:
                                                          f"{_frame_error(chunk.name, chunk.path, k, exc)})"))
         rows.append(replace(row, file=chunk.path, file_id=chunk.file_id))
     return rows
+
+
+def _checked(data, frame_fn, *, name: str):
+    """A frame of a stack, checked as :func:`saed.image.io.check_image` checks it.
+
+    A frame function with ``takes_counts = True`` (the scan path, whose lean image stage works on the
+    counts as recorded) gets an 8- or 16-bit integer frame as it is, without a float32 copy: its
+    counts are the same numbers in float32, and the checks that apply to it (2-D, size, not constant)
+    are made here. Everything else, and any frame that fails a check, goes through ``check_image``
+    (the same float32 array and the same messages as before).
+    """
+    from saed.image.io import MIN_SIDE_PX, check_image
+
+    if getattr(frame_fn, "takes_counts", False):
+        a = np.asarray(data)
+        if a.ndim == 2 and a.dtype.kind in "ui" and a.dtype.itemsize <= 2 and min(a.shape) >= MIN_SIDE_PX \
+                and a.min() < a.max():
+            return a
+    return check_image(data, name=name)
 
 
 @dataclass(frozen=True)

@@ -67,12 +67,13 @@ def scan_floor_s(path, n: int = 256, *, clock=None) -> float:
 def cpu_by_kind(path, n: int = 1024) -> dict[str, tuple[int, float]]:
     """CPU ms per frame by how it was solved (``search`` column), in this process over the first `n` frames.
 
-    The same per-frame function as the workers run, in tasks of 256 frames, timed frame by frame
-    with the process's CPU clock: where a worker's time goes (warm start, empty frames, full searches).
+    The same per-frame function as the workers run, on frames checked as the workers check them, in
+    tasks of 256 frames, timed frame by frame (the check included) with the process's CPU clock: where a worker's time goes (warm start, empty frames, full searches).
     """
     import time
 
     from saed.batch.indexing import make_index_job
+    from saed.batch.runner import _checked
     from saed.batch.scanindex import index_scan_frame
     from saed.calibration import Calibration
     from saed.crystal import builtin_phase
@@ -85,8 +86,9 @@ def cpu_by_kind(path, n: int = 1024) -> dict[str, tuple[int, float]]:
     for k in range(min(n, len(flat))):
         if k % 256 == 0:
             index_scan_frame.new_task(job)
-        image = np.asarray(flat[k])
         t = time.process_time()
+        # as a worker gets it (saed.batch.runner.process_chunk): checked, 16-bit counts as recorded
+        image = _checked(np.asarray(flat[k]), index_scan_frame, name=f"scan frame {k}")
         row = index_scan_frame(image, job, name="scan", frame=k)
         d = time.process_time() - t
         c, total = spent.get(row.search, (0, 0.0))

@@ -148,13 +148,16 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     name = source or "frame"
     if img.dtype.kind == "f" and not np.isfinite(img.sum(dtype=np.float64)):
         raise ImageError(f"{name}: some pixels are NaN or infinite; replace them (e.g. by 0) or mask them")
-    img = img.astype(np.float32, copy=False)
+    # small integer counts (8 and 16 bit) and float32 hold the same numbers as their float32 copy: they are
+    # used as recorded, without a float32 copy of the frame (other types are converted once)
+    if not (img.dtype == np.float32 or (img.dtype.kind in "ui" and img.dtype.itemsize <= 2)):
+        img = img.astype(np.float32)
     rows, cols = img.shape
     db = _direct_beam(img, centre_hint_px, float(img.max()))
     if db is None or math.hypot(db[0] - centre_hint_px[0], db[1] - centre_hint_px[1]) > MAX_CENTRE_SHIFT_PX:
         return None
     geo = _geometry(img.shape, db)
-    sub = img[::2, ::2].ravel().astype(np.float64)
+    sub = img[::2, ::2].astype(np.float64).ravel()
     rb = geo.r_sub
     valid = None if mask is None else ~np.asarray(mask, bool)[::2, ::2].ravel()
     if valid is None:
@@ -183,7 +186,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
         pos = np.clip(np.searchsorted(idx, np.arange(geo.n_bins)), 0, len(idx) - 1)
         mean_k = np.where(hole, mean_k[idx[pos]], mean_k)
         var_k = np.where(hole, var_k[idx[pos]], var_k)
-    resid = img - np.take(mean_k.astype(np.float32), geo.r_bin).reshape(rows, cols)
+    resid = np.subtract(img, np.take(mean_k.astype(np.float32), geo.r_bin).reshape(rows, cols), dtype=np.float32)
     if mask is not None:
         resid[np.asarray(mask, bool)] = 0.0
     sm = ndi.gaussian_filter(resid, smooth_sigma_px, mode="constant", truncate=3.0)

@@ -761,12 +761,14 @@ def _related(pa, pb) -> bool:
 
 
 def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, holder_alpha_axis_deg=None,
-             calibrated: bool, min_score: float, top: int, length_tol: float, rel_pos_tol: float) -> list[Solution]:
+             calibrated: bool, min_score: float, top: int, length_tol: float, rel_pos_tol: float,
+             mistilt: bool = True) -> list[Solution]:
     """Mistilt, merged identical-geometry twins and look-alike notes for ranked solutions.
 
     `scored` holds (Solution, Fit) for every scored candidate, best first (including those below
     `min_score`, which only serve as 'ruled out' look-alikes). `length_tol` (fraction) and
     `rel_pos_tol` are the matcher's own tolerances, passed on to the near-miss search.
+    `mistilt` False skips the mistilt fit (``Solution.mistilt`` stays None; nothing else changes).
     """
     good = [(s, f) for s, f in scored if s.score >= min_score]
     if not good:
@@ -787,7 +789,7 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
             kept.append((s, f, []))
     out: list[Solution] = []
     for rank, (s, f, twins) in enumerate(kept[: top + 2]):
-        if rank < 3:
+        if rank < 3 and mistilt:
             s = with_mistilt(s, measured, tables, holder_alpha_axis_deg=holder_alpha_axis_deg)
         looks = list(twins)
         notes = list(s.notes)
