@@ -50,7 +50,8 @@ def _check_measured(measured) -> None:
 
 def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
                   length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
-                  lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX, max_crystals: int = 2) -> IndexResult:
+                  lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX, max_crystals: int = 2,
+                  image=None) -> IndexResult:
     """Rank (phase, zone axis, orientation) solutions for a measured pattern.
 
     Parameters
@@ -76,6 +77,10 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     max_crystals : int
         Crystals looked for in the pattern, 1 to 3 (default 2): further crystals are indexed from
         the spots the best solution leaves unexplained (:mod:`saed.index.crystals`).
+    image : 2-D array, optional
+        The detector image the spots were measured on (same pixel frame). With it, the superlattice
+        positions of an ordered reading in crystal 1's orientation are probed in the image, fainter than
+        the spot search sees (:mod:`saed.index.order_probe`); without it, only the detected spots count.
 
     Returns
     -------
@@ -157,7 +162,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         pool = [sol for sol, _ in solutions[:3]] + [sol for sol, _ in near_scale[:3]]
         rescued = rescue_with_more_crystals(measured, tables, spots, pool, min_score=MIN_SCORE,
                                             max_crystals=int(max_crystals), angle_tol=angle_tol, ratio_tol=RATIO_TOL,
-                                            rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
+                                            rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index,
+                                            image=image)
         if rescued is not None:
             sol1, multi = rescued
             return IndexResult(measured, (sol1,), "", notes=tuple(notes) + multi.notes, n_candidates=n_cand,
@@ -190,7 +196,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     from saed.index.crystals import find_crystals, settle_shared_scale
 
     crystal_opts = dict(angle_tol=angle_tol, ratio_tol=RATIO_TOL, rel_pos_tol=REL_POS_TOL, pitch=pitch,
-                        max_zone_index=max_zone_index)
+                        max_zone_index=max_zone_index, image=image)
     multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), **crystal_opts)
     shared = settle_shared_scale(measured, tables, spots, ranked[0], multi, stated_scale=scale if calibrated else None,
                                  length_tol=length_tol, max_crystals=int(max_crystals), **crystal_opts)
