@@ -206,6 +206,13 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         ranked = [first] + [s for s in ranked if not (s.phase_name == first.phase_name
                                                       and tuple(s.zone_axis) == tuple(first.zone_axis))]
         multi = shared.multi
+    elif multi.crystals and (multi.crystals[0].phase_name != ranked[0].phase_name
+                             or tuple(multi.crystals[0].solution.zone_axis) != tuple(ranked[0].zone_axis)):
+        # crystal 1 read otherwise by the crystal search (the superlattice probe found a Ni crystal ordered: one
+        # Ni3Al crystal): the answer is the reading crystals[0] holds, the first-ranked one follows it
+        first = _with_sense_flag(multi.crystals[0].solution, tables)
+        ranked = [first] + [s for s in ranked if not (s.phase_name == first.phase_name
+                                                      and tuple(s.zone_axis) == tuple(first.zone_axis))]
     return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes) + multi.notes, n_candidates=n_cand,
                        phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
                        cross_double_diffraction=multi.cross_double_diffraction)

@@ -83,8 +83,6 @@ def amplitude_map(image: np.ndarray, sigma_px: float) -> np.ndarray:
     bright neighbour inside the annulus raises b and lowers A (never a false spot); null positions keep
     clear of every spot (:func:`exclusion_radius_px`). Pixels whose window leaves the image are NaN.
     """
-    from scipy.signal import fftconvolve
-
     s = float(sigma_px)
     half = int(math.ceil(ANNULUS_SIGMAS[1] * s)) + 1
     off = np.arange(-half, half + 1, dtype=np.float64)
@@ -95,7 +93,13 @@ def amplitude_map(image: np.ndarray, sigma_px: float) -> np.ndarray:
     sw2 = float(np.sum(w * w))
     k = w / sw2 - (float(np.sum(w)) / sw2) * ring / float(ring.sum())
     img = np.asarray(image, np.float64)
-    out = fftconvolve(img, k[::-1, ::-1], mode="same")
+    # the kernel is symmetric, so correlation is convolution: one real FFT product, zero-padded (numpy's FFT;
+    # scipy.signal would cost a second of import time on a command's first probe)
+    h, w = img.shape
+    n = k.shape[0]
+    shape = (h + n - 1, w + n - 1)
+    full = np.fft.irfft2(np.fft.rfft2(img, shape) * np.fft.rfft2(k, shape), shape)
+    out = full[half:half + h, half:half + w]
     out[:half, :] = np.nan
     out[-half:, :] = np.nan
     out[:, :half] = np.nan
