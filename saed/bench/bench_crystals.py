@@ -77,8 +77,9 @@ def _measure(img, stated_scale):
     return measure_pattern(img, Calibration(stated_scale, 200.0))
 
 
-def two_crystal_frames(*, seed: int = 13):
-    """[(MeasuredPattern, OverlapTruth, confounded)] for every zone pair and share."""
+def two_crystal_frames(*, seed: int = 13, with_images: bool = False):
+    """[(MeasuredPattern, OverlapTruth, confounded)] for every zone pair and share; with `with_images`, the detector
+    image is appended to each tuple (the same frames: the image is kept, nothing else changes)."""
     from saed.crystal import builtin_phase
     from saed.index.orientation_relationships import standard_relationships, standard_rotation
     from saed.synth.overlap import overlap_image
@@ -97,12 +98,12 @@ def two_crystal_frames(*, seed: int = 13):
                                        scale_inv_nm_per_px=SCALE, image_shape=(SIZE, SIZE),
                                        confounders=_confounders(rng) if conf else None, rng=rng, relationship=name)
             off = float(rng.uniform(0.015, 0.03) * rng.choice([-1, 1])) if conf else 0.0
-            out.append((_measure(img, SCALE * (1 + off)), truth, conf))
+            out.append((_measure(img, SCALE * (1 + off)), truth, conf) + ((img,) if with_images else ()))
     return out
 
 
-def single_crystal_frames(*, seed: int = 31, n: int = 48):
-    """[(MeasuredPattern, (phase, zone), confounded)] of single crystals."""
+def single_crystal_frames(*, seed: int = 31, n: int = 48, with_images: bool = False):
+    """[(MeasuredPattern, (phase, zone), confounded)] of single crystals (the image appended with `with_images`)."""
     from saed.crystal import builtin_phase
     from saed.synth.kinematic import synthetic_image
     from saed.synth.confounders import add_confounders
@@ -129,7 +130,7 @@ def single_crystal_frames(*, seed: int = 31, n: int = 48):
         if conf:
             img = add_confounders(img, ((SIZE - 1) / 2.0 + 0.37, (SIZE - 1) / 2.0 - 0.41), _confounders(rng), rng=rng)
             off = float(rng.uniform(0.015, 0.03) * rng.choice([-1, 1]))
-        out.append((_measure(img, SCALE * (1 + off)), (name, truth.zone_axis), conf))
+        out.append((_measure(img, SCALE * (1 + off)), (name, truth.zone_axis), conf) + ((img,) if with_images else ()))
     return out
 
 
@@ -207,29 +208,30 @@ def _in_tie(result, truth, tables) -> bool:
     return any(n.startswith("crystal 2 could also be") and f"{other[0]} [" in n for n in result.notes)
 
 
-def _timed(measured, tables):
-    """(result with max_crystals 2, its time, the time with max_crystals 1), seconds."""
+def _timed(measured, tables, image=None):
+    """(result with max_crystals 2 and the image to probe, its time, the time with max_crystals 1 from the spots
+    alone: the single-crystal index time), seconds."""
     from saed.index import index_pattern
 
     t0 = time.perf_counter()
-    r = index_pattern(measured, tables, max_crystals=2)
+    r = index_pattern(measured, tables, max_crystals=2, image=image)
     t1 = time.perf_counter()
     index_pattern(measured, tables, max_crystals=1)
     return r, t1 - t0, time.perf_counter() - t1
 
 
 def accuracy_report(*, progress=None) -> dict:
-    two = two_crystal_frames()
-    one = single_crystal_frames()
+    two = two_crystal_frames(with_images=True)
+    one = single_crystal_frames(with_images=True)
     rows = []
     found = named = ambiguous = tied = 0
     t2 = t1 = 0.0
     by_rel: dict[str, list[int]] = {}  # [frames, second crystal found, relationship named]
     by_share: dict[str, list[int]] = {}
     by_conf: dict[str, list[int]] = {}
-    for i, (m, truth, conf) in enumerate(two):
+    for i, (m, truth, conf, img) in enumerate(two):
         tables = _tables(truth.phases)
-        r, d2, d1 = _timed(m, tables)
+        r, d2, d1 = _timed(m, tables, img)
         t2, t1 = t2 + d2, t1 + d1
         ok = _found(r, truth, tables)
         rel = r.orientation_relationships[0].name if r.orientation_relationships else "-"
@@ -254,9 +256,9 @@ def accuracy_report(*, progress=None) -> dict:
             progress(i, len(two) + len(one))
     false2 = 0
     s2 = s1 = 0.0
-    for j, (m, (name, zone), conf) in enumerate(one):
+    for j, (m, (name, zone), conf, img) in enumerate(one):
         tables = _tables((name,))
-        r, d2, d1 = _timed(m, tables)
+        r, d2, d1 = _timed(m, tables, img)
         s2, s1 = s2 + d2, s1 + d1
         if len(r.crystals) > 1:
             false2 += 1
@@ -279,16 +281,18 @@ def _setup():
     from saed.index import prepare_phases
 
     tables = prepare_phases([builtin_phase(n) for n in PHASES], max_g_inv_nm=14.0)
-    frames = [m for m, _, _ in two_crystal_frames()[::4]] + [m for m, _, _ in single_crystal_frames(n=12)]
+    frames = ([(m, img) for m, _, _, img in two_crystal_frames(with_images=True)[::4]]
+              + [(m, img) for m, _, _, img in single_crystal_frames(n=12, with_images=True)])
     return tables, frames
 
 
 def _index_all(state, n: int):
+    """Every frame with `n` crystals looked for; with more than one, the image is given to probe (see _timed)."""
     from saed.index import index_pattern
 
     tables, frames = state
-    for m in frames:
-        index_pattern(m, tables, max_crystals=n)
+    for m, img in frames:
+        index_pattern(m, tables, max_crystals=n, image=img if n > 1 else None)
 
 
 def _accuracy_fn(_state):

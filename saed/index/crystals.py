@@ -42,7 +42,9 @@ import numpy as np
 from saed.index.candidates import Candidate, SpotSet, find_candidates
 from saed.index.orientation_relationships import (OrientationRelationship, describe_relationship, ordered_pair,
                                                   proper_rotations_cart, misorientation)
+from saed.index.order_probe import HINT_Z, context_for, probe_order
 from saed.index.ordering import DECISIVE_Z, OrderEvidence, order_evidence
+from saed.index.superlattice_probe import PRESENT_Z
 from saed.index.score import score_candidate
 from saed.index.values import Solution
 from saed.units import percent, percent_off
@@ -323,7 +325,7 @@ def _cross_dd(spots: SpotSet, measured, sols: list[Solution], unexplained: np.nd
     return out
 
 
-def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol):
+def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol, ctx=None):
     """Disordered partners of an ordered crystal: (OrderEvidence, matrix Solution, name) for the best partner,
     or None; plus the names of partners that fit nearly as well.
 
@@ -339,7 +341,7 @@ def _with_matrix(measured, tables, spots, ordered: Solution, pitch, rel_pos_tol)
         pair = ordered_pair(pt_o.phase, pt.phase)
         if pair is None or pair[0] != ordered.phase_name:
             continue
-        ev = _evidence(measured, tables, ordered, pt)
+        ev = _evidence(measured, tables, ordered, pt, ctx, spots)
         if ev is None:
             continue
         uvw = tuple(int(v) for v in ordered.zone_axis)
@@ -388,15 +390,26 @@ def _scale_gap(ordered: Solution, matrix: Solution, matrix_table, spots: SpotSet
     return None if s_o is None or s_m is None else abs(s_m / s_o - 1.0)
 
 
-def _evidence(measured, tables, ordered: Solution, disordered_table):
+def _evidence(measured, tables, ordered: Solution, disordered_table, ctx=None, spots=None):
+    """rho of an ordered solution: from every predicted position in the image when the image is at hand and its
+    superlattice family is present there (:mod:`saed.index.order_probe`), else from the detected spots."""
+    if ctx is not None and spots is not None:
+        p = probe_order(ctx, tables, spots, ordered)
+        if p is not None and p.present and p.evidence is not None:
+            return p.evidence
     voltage = measured.calibration.voltage_kv if measured.calibration is not None else 200.0
     return order_evidence(ordered, tables.table(ordered.phase_name).phase, disordered_table, voltage_kv=voltage)
 
 
 def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_crystals: int = 2, angle_tol: float = 2.0,
                   ratio_tol: float = 0.025, rel_pos_tol: float = 0.008, pitch=None,
-                  max_zone_index: int = 7) -> MultiCrystalResult:
-    """Crystals beyond `best` among the spots it leaves unexplained (see the module docstring)."""
+                  max_zone_index: int = 7, image=None) -> MultiCrystalResult:
+    """Crystals beyond `best` among the spots it leaves unexplained (see the module docstring).
+
+    `image`: the detector image the spots were measured on (optional). With it, the superlattice positions of
+    an ordered reading in crystal 1's orientation are probed in the image (:mod:`saed.index.order_probe`).
+    """
+    ctx = context_for(image, measured) if image is not None else None
     sols: list[Solution] = [best]
     roles = ["best"]
     notes: list[str] = []
@@ -463,8 +476,12 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
                      f"{len(sols)} crystals" + (": --max-crystals 3 looks for a third crystal" if max_crystals < 3 else ""))
     # ordered precipitate / disordered matrix in one orientation
     pair_note = ""
-    if len(sols) == 1:
-        m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol)
+    probed = False
+    if len(sols) == 1 and ctx is not None:
+        probed, pair_note, sols, roles = _probe_disordered(ctx, tables, spots, best, notes, max_crystals=max_crystals,
+                                                           rel_pos_tol=rel_pos_tol, pitch=pitch)
+    if len(sols) == 1 and not probed:
+        m = _with_matrix(measured, tables, spots, best, pitch, rel_pos_tol, ctx)
         if m is not None:
             ev, msol, mname, rivals = m
             if ev.decisively_weak and max_crystals >= 2:
@@ -487,9 +504,12 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         for o in sols[1:]:
             rest |= _explained_mask(o, spots)
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
-        if (np.count_nonzero(first & ~rest) < 2 and pair is not None and pair[0] == sols[1].phase_name
+        if (np.count_nonzero(first & ~rest) < 2 and pair is not None
                 and _misorientation_deg(sols[0], sols[1], tables) < 3.0):
-            pass  # an ordered crystal on its disordered form in one orientation: the order check below decides
+            # an ordered crystal on its disordered form in one orientation: the order check decides (below, or
+            # already, when the matrix was added beside an ordered crystal 1 whose superlattice spots the
+            # image probe measured though the spot search kept fewer than two)
+            pass
         elif np.count_nonzero(first & ~rest) < 2:
             # the best solution owns no spots of its own: a further crystal explains all it does (e.g. an
             # ordered crystal and its disordered form turned by a symmetry of the projected pattern)
@@ -502,7 +522,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         pair = ordered_pair(tables.table(sols[0].phase_name).phase, tables.table(sols[1].phase_name).phase)
         same_orientation = pair is not None and _misorientation_deg(sols[0], sols[1], tables) < 3.0
         if same_orientation and pair[0] == sols[1].phase_name:
-            ev = _evidence(measured, tables, sols[1], tables.table(pair[1]))
+            ev = _evidence(measured, tables, sols[1], tables.table(pair[1]), ctx, spots)
             if ev is None or not ev.decisively_weak:
                 # one ordered crystal explains every spot the disordered one does: the superlattice spots
                 # are not decisively weaker than one ordered crystal gives
@@ -528,6 +548,34 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         rels.append(r)
     crystals = _crystal_records(sols, roles, spots)
     return MultiCrystalResult(tuple(crystals), tuple(rels), tuple(cross), tuple(notes))
+
+
+def _probe_disordered(ctx, tables, spots, best: Solution, notes: list, *, max_crystals: int, rel_pos_tol: float, pitch):
+    """A disordered crystal 1 alone (fcc Ni): are the superlattice reflections of its ordered partner there, faint,
+    where they must be? Returns (decided, note, crystals, roles).
+
+    Present (:func:`saed.index.order_probe.probe_order`) and the fundamentals decisively too strong for one
+    ordered crystal: the matrix (crystal 1) and the ordered precipitate in its orientation. Present otherwise:
+    one ordered crystal, with both readings named. Absent: crystal 1 stays; a combined significance from
+    :data:`~saed.index.order_probe.HINT_Z` up to the threshold is reported as not significant.
+    """
+    p = probe_order(ctx, tables, spots, best, rel_pos_tol=rel_pos_tol, pitch=pitch)
+    if p is None or p.ordered is best:
+        return False, "", [best], ["best"]
+    o = p.ordered.phase_name
+    if not p.present:
+        if p.family_z >= HINT_Z:
+            need = PRESENT_Z * max(1.0, p.decoy_sd) if math.isfinite(p.decoy_sd) else PRESENT_Z
+            notes.append(p.text() + f": below the threshold (at least {PRESENT_Z:g}, above every turned copy and "
+                         f"{PRESENT_Z:g} x their scatter, here {max(need, PRESENT_Z):.2f}), so "
+                         f"the superlattice reflections of {o} are not counted as seen; a longer exposure, or a dark-field "
+                         "image in a superlattice position, decides")
+        return False, "", [best], ["best"]
+    ev = p.evidence
+    if ev is not None and ev.decisively_weak and max_crystals >= 2:
+        return True, _two_crystals_note(ev, o, best.phase_name) + " " + p.text() + ".", [best, p.ordered], \
+            ["matrix", "ordered precipitate"]
+    return True, _one_crystal_note(ev, o, best.phase_name) + " " + p.text() + ".", [p.ordered], ["best"]
 
 
 def rescue_with_more_crystals(measured, tables, spots: SpotSet, pool: list[Solution], *, min_score: float,
@@ -578,10 +626,11 @@ _DYNAMICAL = ("Intensity ratios are kinematic estimates: dynamical scattering ma
 
 
 def _measured_ratio(ev: OrderEvidence) -> str:
+    what = ("positions measured in the image, faint ones included" if ev.photometric else "spots")
     return (f"the superlattice spots are {ev.ratio:.2f} x as strong, relative to the fundamental spots, as one fully "
             f"ordered crystal gives ({ev.lower_ratio:.2f}-{ev.upper_ratio:.2f} x within {DECISIVE_Z:g} standard "
             f"uncertainties from the scatter of {ev.n_superlattice} superlattice and {ev.n_fundamental} fundamental "
-            "spots)")
+            f"{what})")
 
 
 def _two_crystals_note(ev: OrderEvidence, ordered: str, disordered: str) -> str:

@@ -51,7 +51,7 @@ def _check_measured(measured) -> None:
 def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
                   length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
                   lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX, max_crystals: int = 2,
-                  mistilt: bool = True) -> IndexResult:
+                  mistilt: bool = True, image=None) -> IndexResult:
     """Rank (phase, zone axis, orientation) solutions for a measured pattern.
 
     Parameters
@@ -82,6 +82,10 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         solutions (default). False leaves ``Solution.mistilt`` None and adds no mistilt advice, and
         changes nothing else (ranking, scores, look-alikes): for callers that never show it, such as
         the rows of ``saed batch`` (the fit is about two thirds of a search's time on a scan frame).
+    image : 2-D array, optional
+        The detector image the spots were measured on (same pixel frame). With it, the superlattice
+        positions of an ordered reading in crystal 1's orientation are probed in the image, fainter than
+        the spot search sees (:mod:`saed.index.order_probe`); without it, only the detected spots count.
 
     Returns
     -------
@@ -163,7 +167,8 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         pool = [sol for sol, _ in solutions[:3]] + [sol for sol, _ in near_scale[:3]]
         rescued = rescue_with_more_crystals(measured, tables, spots, pool, min_score=MIN_SCORE,
                                             max_crystals=int(max_crystals), angle_tol=angle_tol, ratio_tol=RATIO_TOL,
-                                            rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index)
+                                            rel_pos_tol=REL_POS_TOL, pitch=pitch, max_zone_index=max_zone_index,
+                                            image=image)
         if rescued is not None:
             sol1, multi = rescued
             return IndexResult(measured, (sol1,), "", notes=tuple(notes) + multi.notes, n_candidates=n_cand,
@@ -198,7 +203,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
     from saed.index.crystals import find_crystals, settle_shared_scale
 
     crystal_opts = dict(angle_tol=angle_tol, ratio_tol=RATIO_TOL, rel_pos_tol=REL_POS_TOL, pitch=pitch,
-                        max_zone_index=max_zone_index)
+                        max_zone_index=max_zone_index, image=image)
     multi = find_crystals(measured, tables, spots, ranked[0], max_crystals=int(max_crystals), **crystal_opts)
     shared = settle_shared_scale(measured, tables, spots, ranked[0], multi, stated_scale=scale if calibrated else None,
                                  length_tol=length_tol, max_crystals=int(max_crystals), **crystal_opts)
@@ -208,6 +213,13 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         ranked = [first] + [s for s in ranked if not (s.phase_name == first.phase_name
                                                       and tuple(s.zone_axis) == tuple(first.zone_axis))]
         multi = shared.multi
+    elif multi.crystals and (multi.crystals[0].phase_name != ranked[0].phase_name
+                             or tuple(multi.crystals[0].solution.zone_axis) != tuple(ranked[0].zone_axis)):
+        # crystal 1 read otherwise by the crystal search (the superlattice probe found a Ni crystal ordered: one
+        # Ni3Al crystal): the answer is the reading crystals[0] holds, the first-ranked one follows it
+        first = _with_sense_flag(multi.crystals[0].solution, tables)
+        ranked = [first] + [s for s in ranked if not (s.phase_name == first.phase_name
+                                                      and tuple(s.zone_axis) == tuple(first.zone_axis))]
     return IndexResult(measured, tuple(ranked[:top]), message, notes=tuple(notes) + multi.notes, n_candidates=n_cand,
                        phases=names, crystals=multi.crystals, orientation_relationships=multi.relationships,
                        cross_double_diffraction=multi.cross_double_diffraction)

@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["OrderEvidence", "order_evidence", "DECISIVE_Z", "RELROD_WIDTH_INV_NM"]
+__all__ = ["OrderEvidence", "order_evidence", "order_evidence_photometric", "DECISIVE_Z", "RELROD_WIDTH_INV_NM"]
 
 #: rho is decisively below 1 when ln rho + DECISIVE_Z * sigma < 0 (one-sided, about 97.7 % for a
 #: normal error; common practice).
@@ -64,6 +64,7 @@ class OrderEvidence:
     n_superlattice: int
     n_fundamental: int
     scatter_log: float
+    photometric: bool = False  # measured at every predicted position in the image (the superlattice probe)
 
     @property
     def decisively_weak(self) -> bool:
@@ -73,11 +74,11 @@ class OrderEvidence:
     @property
     def upper_ratio(self) -> float:
         """rho at ln rho + DECISIVE_Z sigma: the largest ratio the measurement allows."""
-        return math.exp(math.log(self.ratio) + DECISIVE_Z * self.sigma_log)
+        return math.exp(min(math.log(self.ratio) + DECISIVE_Z * self.sigma_log, 700.0))
 
     @property
     def lower_ratio(self) -> float:
-        return math.exp(math.log(self.ratio) - DECISIVE_Z * self.sigma_log)
+        return math.exp(max(math.log(self.ratio) - DECISIVE_Z * self.sigma_log, -700.0))
 
 
 def _model_intensity(ordered_phase, zone_axis, hkl: np.ndarray, voltage_kv: float) -> np.ndarray:
@@ -135,3 +136,78 @@ def order_evidence(ordered_solution, ordered_phase, disordered_table, *, voltage
     line_var = float(c @ np.linalg.pinv(x_f.T @ x_f) @ c)  # variance of the fitted line there, per scatter^2
     sigma = scatter * math.sqrt(1.0 / n_s + line_var)
     return OrderEvidence(float(math.exp(d_s.mean())), sigma, n_s, n_f, scatter)
+
+
+def _design(g2: np.ndarray, k: int) -> np.ndarray:
+    """Columns 1, g^2, g^4 (the first `k`)."""
+    return np.stack([np.ones(len(g2)), g2, g2 ** 2], axis=1)[:, :k]
+
+
+def _falloff_fit(g2: np.ndarray, resid: np.ndarray, g2_all: np.ndarray) -> tuple[np.ndarray, int]:
+    """ln(I / model) = a + b g^2 + c g^4 over the fundamental positions, fewer terms where the data do not carry
+    them: the g^4 term needs 7 positions, the g^2 term a span of :data:`MIN_G2_SPAN_INV_NM2`. The three-term fit
+    may rise with |g| (a reference relrod narrower than the foil's makes measured / model grow as g^4); the
+    two-term one may not over `g2_all` (a rising line from few spots is noise) and falls back to the mean. On a zone axis the excitation error of a
+    zero-layer reflection is about lambda g^2 / 2, so the relrod factor exp(-(s/w)^2) of any width w is a g^4 term:
+    with it the reference's relrod width cancels (docs/indexing.md section 8, robustness)."""
+    span = float(np.ptp(g2)) if len(g2) else 0.0
+    lo, hi = float(np.min(g2_all)), float(np.max(g2_all))
+    for k in (3, 2):
+        if len(g2) < (7 if k == 3 else 4) or span < MIN_G2_SPAN_INV_NM2:
+            continue
+        coef, *_ = np.linalg.lstsq(_design(g2, k), resid, rcond=None)
+        slope = [coef[1] + (2.0 * coef[2] * x if k == 3 else 0.0) for x in (lo, hi)]  # d/d(g^2), linear in g^2
+        if k == 3 or max(slope) <= 0:
+            return coef, k
+    return np.array([float(np.mean(resid))]), 1
+
+
+def order_evidence_photometric(ordered_phase, zone_axis, hkl, intensity, intensity_sigma, fundamental, *,
+                               voltage_kv: float, usable=None) -> OrderEvidence | None:
+    """rho from intensities measured at *every* predicted position of the ordered reading (the superlattice probe,
+    :mod:`saed.index.superlattice_probe`), not only at the spots a threshold kept.
+
+    Fundamental positions (`fundamental` True, measured above 3 sigma, `usable`: not saturated) fix
+    ln(I / model) = a + b g^2 + c g^4 (:func:`_falloff_fit`; never growing with |g|) and its scatter s. The superlattice
+    intensities, faint or even negative, enter linearly: I_i = rho E_i + noise, E_i = model_i exp(a + b g_i^2),
+    var_i = (rho E_i)^2 (exp(s^2) - 1) + sigma_i^2 (the spot-to-spot disorder plus the measured photometric
+    noise); rho is the weighted least-squares value (two passes), its variance 1 / sum(E^2 / var) plus
+    rho^2 times the variance of the fitted line at the superlattice positions; the sigma of ln rho is that of
+    the log-normal with this mean and variance, sqrt(ln(1 + var / rho^2)). Averaging all positions
+    removes the bias towards bright spots that a detection threshold brings. None with fewer than three
+    superlattice or four fundamental positions, or rho <= 0 (no superlattice signal).
+    """
+    hkl = np.asarray(hkl, np.int64).reshape(-1, 3)
+    inten = np.asarray(intensity, float)
+    sig = np.asarray(intensity_sigma, float)
+    fund = np.asarray(fundamental, bool)
+    use = np.ones(len(hkl), bool) if usable is None else np.asarray(usable, bool)
+    model = _model_intensity(ordered_phase, zone_axis, hkl, voltage_kv)
+    g2 = ordered_phase.lattice.g_inv_nm(hkl) ** 2
+    fin = np.isfinite(inten) & np.isfinite(sig) & (model > 0)
+    f = fin & fund & use & (inten > 3.0 * sig)
+    s_ = fin & ~fund
+    n_f, n_s = int(f.sum()), int(s_.sum())
+    if n_f < 4 or n_s < 3:
+        return None
+    resid = np.log(inten[f] / model[f])
+    coef, k = _falloff_fit(g2[f], resid, np.concatenate([g2[f], g2[s_]]))
+    x_f = _design(g2[f], k)
+    d_f = resid - x_f @ coef
+    scatter = math.sqrt(float(np.sum(d_f ** 2)) / max(n_f - k, 1))
+    x_s = _design(g2[s_], k)
+    e = model[s_] * np.exp(x_s @ coef)
+    i_s, v_noise = inten[s_], sig[s_] ** 2
+    rho = float(np.sum(e * i_s) / np.sum(e * e))
+    for _ in range(2):
+        var = (max(rho, 0.0) * e) ** 2 * (math.exp(scatter ** 2) - 1.0) + v_noise
+        rho = float(np.sum(e * i_s / var) / np.sum(e * e / var))
+    if rho <= 0:
+        return None
+    var = (rho * e) ** 2 * (math.exp(scatter ** 2) - 1.0) + v_noise
+    w = e * e / var
+    c = (w[:, None] * x_s).sum(axis=0) / w.sum()
+    line_var = scatter ** 2 * float(c @ np.linalg.pinv(x_f.T @ x_f) @ c)
+    rel_var = 1.0 / float(np.sum(w)) / rho ** 2 + line_var
+    # the log-normal with rho's mean and variance: its sigma of ln rho (= the relative error while small)
+    return OrderEvidence(rho, math.sqrt(math.log1p(rel_var)), n_s, n_f, scatter, photometric=True)

@@ -17,7 +17,7 @@ import numpy as np
 from saed.crystal.notation import pad, person_text, zone_text
 from saed.index.values import EXPLAINED_KINDS
 
-__all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "draw_further_crystals",
+__all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "crystals_view", "draw_further_crystals",
            "spots_of_further_crystals", "further_crystals_text", "first_crystal_score"]
 
 #: Colours of crystals 2 and 3 (crystal 1 keeps the overlay's own colours).
@@ -194,3 +194,49 @@ def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> lis
         dev = f", {r.deviation_deg:.1f} deg off" if r.deviation_deg is not None else ""
         legend.append((f"{a + 1}-{b + 1}: {name}{dev}", "white"))
     return legend
+
+
+def _label_html(result, k: int) -> str:
+    c = result.crystals[k]
+    role = "" if c.role in ("best", "second", "third") else f", {html.escape(c.role)}"
+    return f"crystal {k + 1}: {html.escape(c.phase_name)} {_zone(c.solution, 'html')}{role}"
+
+
+def crystals_view(result) -> dict | None:
+    """What the ``saed serve`` page needs to draw crystals 2 and 3 over crystal 1 as the overlay does (None for one
+    crystal): per further crystal its colour, legend text, simulated allowed reflections and its own and shared
+    spots with labels; the spots that are double diffraction across crystals; crystal 1's legend text.
+
+    Crystal 1 is the first solution; the page uses this only while that solution is shown.
+    """
+    if len(result.crystals) < 2:
+        return None
+
+    def r(v, nd):
+        return round(float(v), nd)
+
+    further = []
+    for k, c in enumerate(result.crystals[1:], start=1):
+        sol = c.solution
+        rec = {s.spot_index: s for s in sol.indexed}
+        pred = [[r(x, 1), r(y, 1), r(i, 3)] for (x, y), i, kind in
+                zip(sol.predicted_xy_px, sol.predicted_intensity, sol.predicted_kind) if kind == "allowed"]
+        spots = []
+        for i in list(c.own_spots) + list(c.shared_spots):
+            s = rec.get(int(i))
+            if s is None:
+                continue
+            shown = s.hkil if s.hkil is not None else s.hkl
+            spots.append({"index": int(i), "shared": int(i) in c.shared_spots,
+                          "hkl": None if shown is None else [int(v) for v in shown]})
+        further.append({"colour": CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)],
+                        "label_html": _label_html(result, k), "predicted": pred, "spots": spots})
+    rels = []
+    for rel in result.orientation_relationships:
+        a, b = rel.crystals
+        name = rel.name if rel.name != "none" else f"no standard relationship ({rel.misorientation_deg:.1f} deg)"
+        dev = f", {rel.deviation_deg:.1f} deg off" if rel.deviation_deg is not None else ""
+        rels.append(html.escape(f"{a + 1}-{b + 1}: {name}{dev}"))
+    return {"first_label_html": _label_html(result, 0), "further": further,
+            "cross_double_diffraction": sorted(int(d.spot_index) for d in result.cross_double_diffraction),
+            "cross_dd_colour": CROSS_DD_COLOUR, "relationships_html": rels}

@@ -183,7 +183,7 @@ def view_of(result, *, factor: int) -> dict:
     """What the page draws for a result: per solution (and the near miss) spots, labels, predictions, notes."""
     from saed.crystal.notation import person_text
     from saed.report.index_overlay import KIND_STYLE, PRED_COLOUR
-    from saed.report.crystals_report import crystals_html, further_crystals_text
+    from saed.report.crystals_report import crystals_html, crystals_view, further_crystals_text
     from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_MEANING, confidence_word
 
     m = result.measured
@@ -207,6 +207,8 @@ def view_of(result, *, factor: int) -> dict:
         # relationship as the HTML report shows them ('' for one crystal)
         "crystals_more_html": further_crystals_text(result, "html"),
         "crystals_html": crystals_html(result, with_result_notes=False),
+        # crystals 2 and 3 drawn over solution 1 in their own colours, as the overlay draws them (None for one)
+        "crystals_view": crystals_view(result),
     }
 
 

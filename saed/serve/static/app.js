@@ -377,9 +377,49 @@ function draw() {
     }
     ctx.globalAlpha = 1;
   }
+  // several crystals, solution 1 shown: crystals 2 and 3 in their own colours, as the overlay draws them
+  const cw = furtherCrystals(v, sv);
+  const elsewhere = new Map();
+  if (cw) {
+    for (const c of cw.further) for (const s of c.spots) {
+      if (!elsewhere.has(s.index)) elsewhere.set(s.index, []);
+      elsewhere.get(s.index).push({ colour: c.colour, shared: s.shared, hkl: s.hkl });
+    }
+    for (const i of cw.cross_double_diffraction) if (!elsewhere.has(i)) elsewhere.set(i, []);
+    if ($("showsim").checked) {
+      const [rows, cols] = v.image_shape;
+      ctx.globalAlpha = 0.8; ctx.lineWidth = 1.2 * dpr;
+      for (const c of cw.further) {
+        ctx.strokeStyle = c.colour;
+        for (const [x, y, inten] of c.predicted) {
+          if (x < 0 || y < 0 || x > cols - 1 || y > rows - 1) continue;
+          const [sx, sy] = toScreen(x, y), side = unit * (0.5 + 1.4 * Math.sqrt(Math.max(inten, 0)));
+          ctx.strokeRect(sx - side / 2, sy - side / 2, side, side);
+        }
+      }
+      ctx.globalAlpha = 1;
+    }
+  }
   const spots = sv ? sv.spots : v.spots;
   const rc = 0.8 * unit;
-  for (const p of spots) {
+  spots.forEach((p, i) => {
+    const other = elsewhere.get(i) || [];
+    for (const o of other) {
+      const [sx, sy] = toScreen(p.x, p.y);
+      ctx.strokeStyle = o.colour; ctx.lineWidth = 2 * dpr;
+      ctx.setLineDash(o.shared ? [5 * dpr, 3 * dpr] : []);
+      ctx.beginPath(); ctx.arc(sx, sy, (o.shared ? 1.45 : 1) * rc, 0, 2 * Math.PI); ctx.stroke();
+      ctx.setLineDash([]);
+    }
+    if (cw && cw.cross_double_diffraction.includes(i)) {
+      const [sx, sy] = toScreen(p.x, p.y), q = 0.7 * rc;
+      ctx.strokeStyle = cw.cross_dd_colour; ctx.lineWidth = 1.8 * dpr;
+      ctx.beginPath(); ctx.moveTo(sx - q, sy); ctx.lineTo(sx + q, sy); ctx.moveTo(sx, sy - q); ctx.lineTo(sx, sy + q); ctx.stroke();
+    }
+  });
+  for (const [i, p] of spots.entries()) {
+    // a spot another crystal explains is no "not explained" spot of crystal 1: no red cross for it
+    if (elsewhere.has(i) && (p.kind === "forbidden" || p.kind === "unindexed")) continue;
     const st = style[p.kind] || style.unindexed;
     const [sx, sy] = toScreen(p.x, p.y);
     ctx.strokeStyle = st.colour; ctx.lineWidth = 2 * dpr;
@@ -410,6 +450,16 @@ function draw() {
       if (p.projected) drawIdx(p.projected[1], tx, ty, dpr, `1/${p.projected[0]}(`, ")");
       else drawIdx(p.hkl, tx, ty, dpr);
     }
+    // further crystals' own spots: their labels in their colour, on the inward side
+    if (cw) {
+      const own = spots.map((p, i) => [p, (elsewhere.get(i) || []).find((o) => !o.shared && o.hkl)]).filter(([p, o]) => o && !p.hkl)
+        .map(([p, o]) => [Math.hypot(p.x - cx, p.y - cy), p, o]).sort((a, b) => a[0] - b[0]).slice(0, MAX_LABELS);
+      for (const [r, p, o] of own) {
+        const [sx, sy] = toScreen(p.x, p.y);
+        const ux = r > 0 ? (p.x - cx) / r : 0, uy = r > 0 ? (p.y - cy) / r : -1;
+        drawIdx(o.hkl, sx - ux * (rc + 13 * dpr), sy - uy * (rc + 11 * dpr), dpr, "", "", o.colour);
+      }
+    }
     ctx.textBaseline = "alphabetic";
   }
   drawScaleBar(v, sv, dpr);
@@ -417,13 +467,13 @@ function draw() {
 }
 
 // one index label centred at (x, y): digits side by side, a bar drawn over each negative index
-function drawIdx(idx, x, y, dpr, prefix = "", suffix = "") {
+function drawIdx(idx, x, y, dpr, prefix = "", suffix = "", colour = "#fff") {
   const parts = idx.map((v) => String(Math.abs(v))), gap = idx.some((v) => Math.abs(v) >= 10) ? 4 * dpr : 1 * dpr;
   const widths = parts.map((t) => ctx.measureText(t).width);
   const pw = ctx.measureText(prefix).width, sw = ctx.measureText(suffix).width;
   const w = pw + widths.reduce((a, b) => a + b, 0) + gap * (parts.length - 1) + sw;
   ctx.fillStyle = "rgba(0,0,0,0.62)"; ctx.fillRect(x - w / 2 - 3 * dpr, y - 10 * dpr, w + 6 * dpr, 20 * dpr);
-  ctx.fillStyle = "#fff"; ctx.strokeStyle = "#fff"; ctx.lineWidth = 1.3 * dpr; ctx.textAlign = "left";
+  ctx.fillStyle = colour; ctx.strokeStyle = colour; ctx.lineWidth = 1.3 * dpr; ctx.textAlign = "left";
   let cx = x - w / 2;
   if (prefix) { ctx.fillText(prefix, cx, y + 1 * dpr); cx += pw; }
   parts.forEach((t, i) => {
@@ -449,11 +499,26 @@ function drawScaleBar(v, sv, dpr) {
   ctx.fillText(`${+bar.toPrecision(6)} 1/${u.sym}` + (doc.calibrated ? "" : " (implied)"), x + w / 2, y - 7 * dpr); ctx.textAlign = "start";
 }
 
+// crystals 2 and 3 of a several-crystal answer, while solution 1 (crystal 1) is drawn; else null
+function furtherCrystals(v, sv) {
+  return v && sv && v.solutions.length && state.sol === 0 && v.crystals_view ? v.crystals_view : null;
+}
+
 function drawLegend(v, sv) {
   if (!v) { $("legend").innerHTML = ""; return; }
-  const kinds = new Set((sv ? sv.spots : v.spots).map((p) => p.kind));
+  const cw = furtherCrystals(v, sv);
+  const away = new Set();
+  if (cw) { for (const c of cw.further) for (const s of c.spots) away.add(s.index); for (const i of cw.cross_double_diffraction) away.add(i); }
+  const kinds = new Set((sv ? sv.spots : v.spots).filter((p, i) => !(away.has(i) && (p.kind === "forbidden" || p.kind === "unindexed"))).map((p) => p.kind));
   const items = Object.entries(v.kind_style).filter(([k]) => kinds.has(k)).map(([k, st]) => `<span><i style="border-color:${st.colour}"></i>${esc(st.label)}</span>`);
   if (sv) items.push(`<span><i style="border-color:${v.predicted_colour};border-radius:0"></i>square: where this solution puts a spot (bigger = stronger)</span>`);
+  if (cw) {
+    // each crystal named in its colour (HTML from saed.report.crystals_report: escaped, overbars)
+    items.push(`<span class="crystal" data-crystal="1"><i style="border-color:${v.predicted_colour}"></i>${cw.first_label_html} (spot colours by kind, squares)</span>`);
+    cw.further.forEach((c, k) => items.push(`<span class="crystal" data-crystal="${k + 2}" style="color:${c.colour}"><i style="border-color:${c.colour}"></i>${c.label_html} (squares, rings, labels; dashed ring: shared spot)</span>`));
+    if (cw.cross_double_diffraction.length) items.push(`<span style="color:${cw.cross_dd_colour}"><i style="border-color:${cw.cross_dd_colour};border-radius:0;border-width:0 0 2px 0"></i>+ double diffraction across crystals</span>`);
+    for (const r of cw.relationships_html) items.push(`<span class="crystal-rel">${r}</span>`);
+  }
   items.push('<span><i style="border-color:#ff375f;border-radius:0;border-width:0 0 2px 0"></i>centre</span>');
   $("legend").innerHTML = items.join("");
 }
