@@ -146,3 +146,23 @@ def test_disordered_crystal_alone_gets_no_ordered_partner(ni_tables):
     r = index_pattern(_measured(pat.image, 0.05), ni_tables, max_crystals=2, image=pat.image)
     assert [c.phase_name for c in r.crystals] == ["Ni"]
     assert not any("superlattice" in n for n in r.notes)
+
+
+def test_saed_index_looks_in_the_image_too(tmp_path, capsys):
+    """The command passes its image to the indexer: the same 15 % Ni3Al frame as above, written as a TIFF and
+    indexed by 'saed index', gives both crystals (the spots alone give Ni only)."""
+    import json
+
+    import tifffile
+
+    from saed.cli import main
+    from saed.crystal import builtin_phase
+    from saed.synth.overlap import overlap_image
+
+    img, _ = overlap_image(builtin_phase("Ni"), (0, 0, 1), [(builtin_phase("Ni3Al"), np.eye(3), 0.15)],
+                           in_plane_rotation_deg=31.0, scale_inv_nm_per_px=0.05, rng=40)
+    tif, out = tmp_path / "ni_ni3al.tif", tmp_path / "r.json"
+    tifffile.imwrite(tif, np.clip(np.rint(img), 0, 65535).astype(np.uint16), photometric="minisblack")
+    assert main(["index", str(tif), "--scale", "0.05", "--phase", "Ni", "--phase", "Ni3Al", "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert sorted(c["phase"] for c in doc["crystals"]) == ["Ni", "Ni3Al"]

@@ -104,7 +104,7 @@ def run(args) -> int:
             side_path.write_bytes(side_res.read_bytes())
             cal = read_calibration_file(side_path)
             insp = inspect_file(img_path, cal)
-            result = index_pattern(insp.measured, tables)
+            result = index_pattern(insp.measured, tables, image=insp.image)
             label = f"{name}.tif"
             print(format_summary(result, image=label, top=3, **shown))
             print()

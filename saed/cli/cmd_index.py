@@ -95,7 +95,7 @@ def run(args) -> int:
     insp = inspect_file(args.image, resolved.calibration, frame=args.frame, mask_path=args.mask, image=image)
     measured = insp.measured
     tables = prepare_phases(phases, voltage_kv=measured.calibration.voltage_kv, max_g_inv_nm=_max_g(args, measured))
-    result = index_pattern(measured, tables, top=args.top, max_crystals=_max_crystals(args),
+    result = index_pattern(measured, tables, top=args.top, max_crystals=_max_crystals(args), image=insp.image,
                            **matching_options_from_args(args))
     out = sys.stderr if args.json == "-" else sys.stdout
     print_calibration(resolved, file=out, units=units_from_args(args))

@@ -282,4 +282,4 @@ def index_image(image: np.ndarray, tables: IndexTables, calibration, *, top: int
     from saed.image.measure import measure_pattern
 
     measured = measure_pattern(image, calibration, mask=mask, source=source)
-    return index_pattern(measured, tables, top=top, **options)
+    return index_pattern(measured, tables, top=top, image=image, **options)

@@ -260,7 +260,8 @@ def index_file(path, settings: Settings, cache: TableCache, *, top: int = 5, nam
     reach = float(max_g_inv_nm) if max_g_inv_nm is not None else max_g_for_pattern(measured)
     tables = cache.get(settings.phases, measured.calibration.voltage_kv, reach)
     opts = {k: v for k, v in (options or {}).items() if v is not None}
-    result = index_pattern(measured, tables, top=top, holder_alpha_axis_deg=settings.alpha_axis_deg, **opts)
+    result = index_pattern(measured, tables, top=top, holder_alpha_axis_deg=settings.alpha_axis_deg, image=insp.image,
+                           **opts)
     doc = result_json(result, image=name or str(path))
     doc.update(resolved.to_json())  # calibration_source: one of the contract's values
     if resolved.source == "option":
