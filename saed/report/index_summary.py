@@ -191,7 +191,7 @@ def _wrapped(prefix: str, text: str, indent: str) -> str:
 def unwrapped(text: str) -> list[str]:
     """The summary's lines with each wrapped note joined back into one line (for scripts that grep it).
 
-    >>> unwrapped("best: x\n  note: a b\n        c d\n  hkl")
+    >>> unwrapped("best: x\\n  note: a b\\n        c d\\n  hkl")
     ['best: x', '  note: a b c d', '  hkl']
     """
     out: list[str] = []
