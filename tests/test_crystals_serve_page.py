@@ -133,12 +133,13 @@ def test_another_solution_drawn_alone_keeps_its_own_unexplained_spots(page):
     as before (its unexplained spots crossed in red, no crystal-2 rings)."""
     driver, _, shots = page
     rows = driver.find_elements("css selector", "#solutions tbody tr.sol")
-    if len(rows) < 2:
-        pytest.skip("one solution only for this pattern")
+    assert len(rows) >= 2, "the twin pattern of this module lists a single-crystal reading second"
     rows[1].click()
     wait_for(lambda: driver.execute_script("return document.getElementById('canvas').dataset.solution") == "2",
              what="solution 2 drawn")
     legend = driver.find_element("id", "legend").text
     assert "crystal 2:" not in legend
+    # and the page says why the other crystal's spots now look unexplained
+    assert "solution 1 draws every crystal" in driver.find_element("id", "viewing").text
     assert driver.execute_script("return furtherCrystals(state.data.view, curSolView())") is None
     driver.save_screenshot(str(shots / "serve_crystals_solution2.png"))
