@@ -113,14 +113,14 @@ def _print_ring_table(sol, units, un) -> None:
     """The best solution ring by ring: measured and calculated d, their difference, phase, and the hkl of
     the lines on that ring (4-index on hexagonal axes); unexplained rings marked."""
     from saed.cli.display import say
-    from saed.crystal.notation import person_text, terminal_style
+    from saed.crystal.notation import label_text, terminal_style
 
     style = terminal_style()
     rows = []
     for m in sol["rings_matched"]:
         err = percent_off(m["d_nm"], m["d_nm_calc"])
-        # each family on its own: the shared formatter leaves an index group after a "/" as it is
-        hkl = "/".join(person_text(f, style) for f in m["families"])
+        # each family is indices (label_text: a leading minus is an overbar, not a signed number)
+        hkl = label_text("/".join(m["families"]), style)
         rows.append((m["ring"], units.length_text(m["d_nm"], 5), units.length_text(m["d_nm_calc"], 5), f"{err:+.2f}",
                      m["phase"], hkl))
     rows += [(u["ring"], units.length_text(u["d_nm"], 5), "-", "-", "-", "not explained") for u in sol["rings_unexplained"]]
