@@ -68,6 +68,33 @@ def settings_dir(folder: Path):
             os.environ["SAED_SERVE_DIR"] = old
 
 
+@contextlib.contextmanager
+def browser_page(tmp_path_factory):
+    """A started server watching a new folder, with headless Chromium on its page: (driver, server, watch
+    folder, screenshot folder). Screenshots go to $SAED_SCREENSHOTS when set, else a temporary folder."""
+    import shutil
+    import tempfile
+
+    from saed.serve.browser import headless_chromium
+
+    with settings_dir(tmp_path_factory.mktemp("serve-state")):
+        watch = tmp_path_factory.mktemp("acquisition")
+        shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
+        shots.mkdir(parents=True, exist_ok=True)
+        srv, _service = start_server(watch)
+        profile = tempfile.mkdtemp(prefix="saed-chromium-")
+        driver = None
+        try:
+            driver = headless_chromium(profile)
+            driver.get(srv.url)
+            yield driver, srv, watch, shots
+        finally:
+            if driver is not None:
+                driver.quit()
+            srv.stop()
+            shutil.rmtree(profile, ignore_errors=True)
+
+
 # ---------------------------------------------------------------- a grain at two holder readings
 # Check values are worked out here, apart from the code under test: the double-tilt holder as
 # H = R(e_alpha, alpha) R(e_beta, beta) (e_alpha on the detector at the alpha-axis azimuth, e_beta =

@@ -11,17 +11,14 @@ saed.report.crystals_report CRYSTAL_COLOURS[0] #ff9f0a for crystal 2).
 
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from serve_helpers import example, settings_dir, start_server, wait_for
+from serve_helpers import browser_page, example, wait_for
 
-from saed.serve.browser import find_browser, headless_chromium
+from saed.serve.browser import find_browser
 
 CHROMIUM, DRIVER = find_browser()
 
@@ -54,22 +51,8 @@ def _two_crystal_tiff(folder: Path) -> Path:
 
 @pytest.fixture(scope="module")
 def page(tmp_path_factory):
-    with settings_dir(tmp_path_factory.mktemp("serve-state")):
-        watch = tmp_path_factory.mktemp("acquisition")
-        shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
-        shots.mkdir(parents=True, exist_ok=True)
-        srv, _service = start_server(watch)
-        profile = tempfile.mkdtemp(prefix="saed-chromium-")
-        driver = None
-        try:
-            driver = headless_chromium(profile)
-            driver.get(srv.url)
-            yield driver, tmp_path_factory.mktemp("patterns"), shots
-        finally:
-            if driver is not None:
-                driver.quit()
-            srv.stop()
-            shutil.rmtree(profile, ignore_errors=True)
+    with browser_page(tmp_path_factory) as (driver, _srv, _watch, shots):
+        yield driver, tmp_path_factory.mktemp("patterns"), shots
 
 
 def _pixels(driver) -> np.ndarray:

@@ -10,14 +10,12 @@ from __future__ import annotations
 import os
 import re
 import shutil
-import tempfile
-from pathlib import Path
 
 import pytest
 
-from serve_helpers import example, grain_pair, settings_dir, start_server, wait_for
+from serve_helpers import browser_page, example, grain_pair, wait_for
 
-from saed.serve.browser import find_browser, headless_chromium
+from saed.serve.browser import find_browser
 
 CHROMIUM, DRIVER = find_browser()
 
@@ -29,22 +27,8 @@ pytestmark = pytest.mark.skipif(
 
 @pytest.fixture(scope="module")
 def page(tmp_path_factory):
-    with settings_dir(tmp_path_factory.mktemp("serve-state")):
-        watch = tmp_path_factory.mktemp("acquisition")
-        shots = Path(os.environ.get("SAED_SCREENSHOTS") or tmp_path_factory.mktemp("screenshots"))
-        shots.mkdir(parents=True, exist_ok=True)
-        srv, service = start_server(watch)
-        profile = tempfile.mkdtemp(prefix="saed-chromium-")
-        driver = None
-        try:
-            driver = headless_chromium(profile)
-            driver.get(srv.url)
-            yield driver, srv, watch, shots
-        finally:
-            if driver is not None:
-                driver.quit()
-            srv.stop()
-            shutil.rmtree(profile, ignore_errors=True)
+    with browser_page(tmp_path_factory) as p:
+        yield p
 
 
 def _text(driver, element_id: str) -> str:
