@@ -197,6 +197,7 @@ class _ZoneFacts:
     xy_inv_nm: np.ndarray  # (m, 2) zone-frame positions
     allowed: np.ndarray  # (m,) bool, kinematically allowed
     double: np.ndarray  # (m,) bool, forbidden but reachable by double diffraction
+    explains: np.ndarray  # (m,) bool, allowed | double: rows the refinement fits to
     f_rel: np.ndarray  # (m,) |F| / strongest allowed |F|
     strength: np.ndarray  # (m,) kinematic intensity f_rel**2, 0 where forbidden
     d_nm: np.ndarray  # (m,) 1/|g|
@@ -206,6 +207,7 @@ class _ZoneFacts:
     holz_d_nm: np.ndarray  # (k,) 1/|projected g|, nan for a zero projection
     holz_proj_hkl: np.ndarray  # (k, 3) integers of the projected position
     holz_proj_den: np.ndarray  # (k,) their denominator
+    zone_axis_4: tuple | None  # [UVTW] of the zone for a hexagonal phase, else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -235,18 +237,21 @@ class _Assignment:
     kind_w: np.ndarray  # (n,) kind factor times the position likelihood
 
 
-def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
-                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
-                    allow_distortion: bool = True) -> tuple[Solution, Fit]:
-    """Refine and score one candidate against all spots; returns the Solution and its Fit."""
+def _figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+            length_tol: float, rel_pos_tol: float, allow_distortion: bool):
+    """The steps every scoring shares: zone facts, refined map, spot kinds and the figure of merit.
+
+    Returns (pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score) with terms =
+    (agreement, absent, rank, misfit, scale_term, scale_err, zone_term).
+    """
     pt = tables.phases[cand.phase_index]
-    phase = pt.phase
     uvw = cand.zone_axis
     zf = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
     fit_distortion = allow_distortion and measured.calibration.ellipse is None
+    spot_sigma = _sigma_px(spots, rel_pos_tol)  # refinement and classification use the same sigmas
     fmap = _refine(cand, zf, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
-                   rel_pos_tol=rel_pos_tol, fit_distortion=fit_distortion)
-    asg = _classify(zf, spots, fmap, rel_pos_tol)
+                   spot_sigma=spot_sigma, fit_distortion=fit_distortion)
+    asg = _classify(zf, spots, fmap, spot_sigma)
 
     agreement = float(np.sum(spots.weight * asg.kind_w))
     region = _observed_region(measured, spots, fmap.pred_px)
@@ -256,6 +261,56 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     zone_term = _zone_prior(uvw)
     score = (agreement * (1.0 - ABSENT_PENALTY * absent) * (INTENSITY_RANK_FLOOR + INTENSITY_RANK_SPAN * rank)
              * (1.0 - MISFIT_PENALTY * misfit) * scale_term * zone_term)
+    return (pt, zf, fit_distortion, fmap, asg, region, seen_pair,
+            (agreement, absent, rank, misfit, scale_term, scale_err, zone_term), score)
+
+
+@dataclass(frozen=True, eq=False)
+class Figure:
+    """What a scan row shows of a scored candidate, without the per-spot records (:func:`score_figure`).
+
+    The same numbers as the :class:`~saed.index.values.Solution` of :func:`score_candidate` for the
+    same input (the same steps compute them); ``unexplained_weight`` is the share of the spot weight
+    left unindexed or explained only as a forbidden reflection (the weights of `spots`).
+    """
+
+    phase_name: str
+    zone_axis: tuple[int, int, int]
+    zone_axis_4: tuple[int, int, int, int] | None
+    score: float
+    in_plane_rotation_deg: float
+    scale_inv_nm_per_px: float
+    unexplained_weight: float
+
+
+def score_figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+                 length_tol: float, rel_pos_tol: float, allow_distortion: bool = True) -> Figure:
+    """Refine and score one candidate like :func:`score_candidate`, keeping only what a scan row shows.
+
+    The scan's warm start (:mod:`saed.batch.scanindex`) scores a grain's earlier solution once per
+    frame and writes score, rotation and scale; the per-spot records, notes and overlay arrays of a
+    full Solution were a third of that cost.
+    """
+    pt, zf, _, fmap, asg, _, _, _, score = _figure(cand, tables, spots, measured, calibrated_scale=calibrated_scale,
+                                                   length_tol=length_tol, rel_pos_tol=rel_pos_tol,
+                                                   allow_distortion=allow_distortion)
+    phi_deg = math.degrees(fmap.phi_rad)
+    bad = (asg.code == _UNINDEXED) | (asg.code == _FORBIDDEN)
+    return Figure(phase_name=pt.phase.name, zone_axis=cand.zone_axis, zone_axis_4=zf.zone_axis_4, score=float(score),
+                  in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
+                  unexplained_weight=float(np.sum(spots.weight[bad])))
+
+
+def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
+                    allow_distortion: bool = True) -> tuple[Solution, Fit]:
+    """Refine and score one candidate against all spots; returns the Solution and its Fit."""
+    pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score = _figure(
+        cand, tables, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
+        rel_pos_tol=rel_pos_tol, allow_distortion=allow_distortion)
+    agreement, absent, rank, misfit, scale_term, scale_err, zone_term = terms
+    phase = pt.phase
+    uvw = cand.zone_axis
 
     use_scale = calibrated_scale if calibrated_scale is not None else fmap.scale
     recs, d_err, a_err = _spot_records(zf, spots, measured, fmap, asg, use_scale=use_scale, phase=phase)
@@ -273,7 +328,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     shift = fmap.shift
     sol = Solution(
         phase_name=phase.name, zone_axis=uvw,
-        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if phase.is_hexagonal else None,
+        zone_axis_4=zf.zone_axis_4,
         orientation_matrix=u, in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
         score=float(score), indexed=recs,
         mean_d_error_pct=float(np.mean(d_err)) if len(d_err) else float("nan"),
@@ -333,8 +388,8 @@ def _assign(spots: SpotSet, pred_px: np.ndarray, sigma: np.ndarray):
     return j, dmin, sigma
 
 
-def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol, rel_pos_tol,
-            fit_distortion: bool) -> _Map:
+def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol,
+            spot_sigma: np.ndarray, fit_distortion: bool) -> _Map:
     """Refine v = lin p + shift from the candidate's start: assign, fit, repeat (at most REFINE_ROUNDS)."""
     m = cand.u_matrix @ zf.u0.T
     scale = cand.scale_inv_nm_per_px
@@ -342,8 +397,7 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
     lin = _rot2(math.atan2(m[1, 0], m[0, 0])) / scale  # detector px per 1/nm
     shift = np.zeros(2)
     t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
-    explains = zf.allowed | zf.double
-    spot_sigma = _sigma_px(spots, rel_pos_tol)
+    explains = zf.explains
     for _ in range(REFINE_ROUNDS):
         j, dmin, sigma = _assign(spots, xy @ lin.T + shift, spot_sigma)
         ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
@@ -370,10 +424,13 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
 
 # --- step 2: what every spot is --------------------------------------------------------------------
 
-def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, rel_pos_tol: float) -> _Assignment:
-    """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none."""
+def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, spot_sigma: np.ndarray) -> _Assignment:
+    """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none.
+
+    `spot_sigma`: the spots' position sigmas (:func:`_sigma_px`).
+    """
     n = len(spots.r_px)
-    j, dmin, sigma = _assign(spots, fmap.pred_px, _sigma_px(spots, rel_pos_tol))
+    j, dmin, sigma = _assign(spots, fmap.pred_px, spot_sigma)
     ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
     holz_j = np.full(n, _NO_ROW)
@@ -544,12 +601,13 @@ def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: floa
     proj = [projected_plane(metric, h, uvw) for h in holz_hkl.tolist()]  # once per zone, a few rows
     return _ZoneFacts(
         zp=zp, u0=u0, xy_inv_nm=np.asarray(zp.xy_inv_nm, float), allowed=allowed,
-        double=np.asarray(zp.double_diffraction),
+        double=np.asarray(zp.double_diffraction), explains=allowed | np.asarray(zp.double_diffraction),
         f_rel=f_rel, strength=np.where(allowed, f_rel ** 2, 0.0), d_nm=_inverse(np.asarray(zp.g_inv_nm, float)),
         mate=_friedel_rows(zp.hkl), holz_xy_inv_nm=holz_xy, holz_hkl=holz_hkl,
         holz_d_nm=_inverse(holz_g),
         holz_proj_hkl=np.array([p for _, p in proj], np.int64).reshape(-1, 3),
-        holz_proj_den=np.array([d for d, _ in proj], np.int64))
+        holz_proj_den=np.array([d for d, _ in proj], np.int64),
+        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if pt.phase.is_hexagonal else None)
 
 
 def _inverse(g: np.ndarray) -> np.ndarray:
