@@ -398,14 +398,22 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
     shift = np.zeros(2)
     t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
     explains = zf.explains
+    last = None  # the previous round's assignment (spots used, their rows)
     for _ in range(REFINE_ROUNDS):
         j, dmin, sigma = _assign(spots, xy @ lin.T + shift, spot_sigma)
         ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
         use = ok & explains[np.maximum(j, 0)] if len(xy) else ok
         if np.count_nonzero(use) < 2:
             break
+        rows_used = j[use]
+        # the same assignment as the round before: the fit (a function of the assignment, the spots and
+        # their fixed sigmas alone) would return the very map it returned then, and the loop would stop
+        # on it as converged; stop now with that map (the usual second round of a good start)
+        if last is not None and np.array_equal(use, last[0]) and np.array_equal(rows_used, last[1]):
+            break
+        last = (use, rows_used)
         wt = spots.weight[use] / sigma[use] ** 2
-        new_lin, shift = _fit_linear(xy[j[use]], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
+        new_lin, shift = _fit_linear(xy[rows_used], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
         new_scale = 1.0 / math.sqrt(abs(np.linalg.det(new_lin)))
         if calibrated_scale is not None:
             lo, hi = calibrated_scale * (1 - length_tol), calibrated_scale * (1 + length_tol)
