@@ -509,7 +509,9 @@ def _intensity_terms(zf: _ZoneFacts, spots: SpotSet, asg: _Assignment) -> tuple[
     meas = spots.intensity[idx]
     rank = RANK_NEUTRAL
     kin_log = np.round(np.log10(kin), LOG_INTENSITY_DECIMALS)
-    if len(np.unique(kin_log)) >= 2 and np.ptp(meas) > 0:
+    # at least two distinct values on the kinematic side and a spread on the measured one (no np.unique, np.ptp:
+    # their overhead is most of this term on a pattern's few spots)
+    if kin_log.max() > kin_log.min() and meas.max() - meas.min() > 0:
         rho = spearman_rho(meas, kin_log)
         rank = float(max(0.0, rho)) if np.isfinite(rho) else RANK_UNDEFINED
     w = spots.weight[idx]
@@ -640,20 +642,26 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
     """
     sw = np.sqrt(w)
     n = len(p)
-    # similarity with shift: [a -b tx ; b a ty]
-    rows = np.zeros((2 * n, 4))
-    rows[:n, 0], rows[:n, 1], rows[:n, 2] = p[:, 0], -p[:, 1], 1.0
-    rows[n:, 0], rows[n:, 1], rows[n:, 3] = p[:, 1], p[:, 0], 1.0
+    # similarity with shift: rows [a -b tx ; b a ty], each weighted by sqrt(w) (built weighted: the
+    # same products as weighting an unweighted design, one array fewer)
+    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
+    rows = np.zeros((2 * n, 4 if use_shift else 2))
+    np.multiply(p[:, 0], sw, out=rows[:n, 0])
+    np.multiply(-p[:, 1], sw, out=rows[:n, 1])
+    np.multiply(p[:, 1], sw, out=rows[n:, 0])
+    np.multiply(p[:, 0], sw, out=rows[n:, 1])
+    if use_shift:
+        rows[:n, 2] = sw
+        rows[n:, 3] = sw
     rhs = np.concatenate([v[:, 0], v[:, 1]])
     ww = np.concatenate([sw, sw])
-    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
-    cols = [0, 1, 2, 3] if use_shift else [0, 1]
-    sol, *_ = np.linalg.lstsq(rows[:, cols] * ww[:, None], rhs * ww, rcond=None)
+    sol, *_ = np.linalg.lstsq(rows, rhs * ww, rcond=None)
     a, b = sol[0], sol[1]
     t = np.array([sol[2], sol[3]]) if use_shift else np.zeros(2)
-    if np.linalg.norm(t) > t_max_px:
-        t = t * (t_max_px / np.linalg.norm(t))
-        sol, *_ = np.linalg.lstsq(rows[:, :2] * ww[:, None], (rhs - np.repeat(t, n)) * ww, rcond=None)
+    t_norm = np.linalg.norm(t)
+    if t_norm > t_max_px:
+        t = t * (t_max_px / t_norm)
+        sol, *_ = np.linalg.lstsq(rows[:, :2], (rhs - np.repeat(t, n)) * ww, rcond=None)
         a, b = sol
     sim = np.array([[a, -b], [b, a]])
     if not distortion or n < DISTORTION_MIN_SPOTS:
