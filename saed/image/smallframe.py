@@ -193,13 +193,26 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     mean = s1 / n_r
     sd = np.sqrt(np.maximum(s2 / n_r - mean * mean, 0.0))
     keep = sub <= (mean + 3.0 * sd)[rb]
-    if valid is not None:
-        keep &= valid
-    kw = keep.astype(np.float64)
-    n_k = np.bincount(rb, weights=kw, minlength=geo.n_bins)
-    fk = sub * kw
-    mean_k = np.where(n_k > 0, np.bincount(rb, weights=fk, minlength=geo.n_bins) / np.maximum(n_k, 1), mean)
-    var_k = np.bincount(rb, weights=fk * sub, minlength=geo.n_bins) / np.maximum(n_k, 1) - mean_k ** 2
+    if valid is None and img.dtype.kind in "ui":
+        # 8/16-bit counts: every sum here is of integers below 2**53 (at most 512**2 / 4 pixels of at most
+        # 65535**2), so float64 holds it exactly in any order, and the sums over the kept pixels are the
+        # sums over all of them less those over the few left out (the spots): 3 bincounts over a few
+        # hundred pixels instead of over the whole subsample, the same numbers to the last bit
+        out = ~keep
+        rb_o, f_o = rb[out], sub[out]
+        n_k = geo.count_sub - np.bincount(rb_o, minlength=geo.n_bins)
+        s1_k = s1 - np.bincount(rb_o, weights=f_o, minlength=geo.n_bins)
+        s2_k = s2 - np.bincount(rb_o, weights=f_o * f_o, minlength=geo.n_bins)
+    else:
+        if valid is not None:
+            keep &= valid
+        kw = keep.astype(np.float64)
+        n_k = np.bincount(rb, weights=kw, minlength=geo.n_bins)
+        fk = sub * kw
+        s1_k = np.bincount(rb, weights=fk, minlength=geo.n_bins)
+        s2_k = np.bincount(rb, weights=fk * sub, minlength=geo.n_bins)
+    mean_k = np.where(n_k > 0, s1_k / np.maximum(n_k, 1), mean)
+    var_k = s2_k / np.maximum(n_k, 1) - mean_k ** 2
     # radii the subsample misses (a few at the very centre) take their neighbours' values
     hole = n_k <= 0
     if hole.any() and not hole.all():
