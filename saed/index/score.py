@@ -224,6 +224,7 @@ class _Map:
     aniso_pct: float
     aniso_deg: float
     pred_px: np.ndarray  # (m, 2)
+    assignment: tuple | None = None  # _assign's (j, dmin, sigma) under exactly this map, when the refinement made it
 
 
 @dataclass(frozen=True, eq=False)
@@ -402,8 +403,11 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
     t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
     explains = zf.explains
     last = None  # the previous round's assignment (spots used, their rows)
+    current = None  # (pred_px, assignment) when the map has not changed since they were computed
     for _ in range(REFINE_ROUNDS):
-        j, dmin, sigma = _assign(spots, xy @ lin.T + shift, spot_sigma)
+        pred = xy @ lin.T + shift
+        j, dmin, sigma = _assign(spots, pred, spot_sigma)
+        current = (pred, (j, dmin, sigma))
         ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
         use = ok & explains[np.maximum(j, 0)] if len(xy) else ok
         if np.count_nonzero(use) < 2:
@@ -414,6 +418,7 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
         # on it as converged; stop now with that map (the usual second round of a good start)
         if last is not None and np.array_equal(use, last[0]) and np.array_equal(rows_used, last[1]):
             break
+        current = None
         last = (use, rows_used)
         wt = spots.weight[use] / sigma[use] ** 2
         new_lin, shift = _fit_linear(xy[rows_used], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
@@ -429,8 +434,10 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
             break
     phi = math.atan2(lin[1, 0] - lin[0, 1], lin[0, 0] + lin[1, 1])  # rotation part of the polar decomposition
     aniso_pct, aniso_deg = _anisotropy(lin)
+    # stopped on an unchanged map: its predicted positions and the spots' assignment are the last round's
+    pred_px, assignment = current if current is not None else (xy @ lin.T + shift, None)
     return _Map(lin=lin, shift=shift, scale=scale, phi_rad=phi, aniso_pct=aniso_pct, aniso_deg=aniso_deg,
-                pred_px=xy @ lin.T + shift)
+                pred_px=pred_px, assignment=assignment)
 
 
 # --- step 2: what every spot is --------------------------------------------------------------------
@@ -441,7 +448,7 @@ def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, spot_sigma: np.ndarray
     `spot_sigma`: the spots' position sigmas (:func:`_sigma_px`).
     """
     n = len(spots.r_px)
-    j, dmin, sigma = _assign(spots, fmap.pred_px, spot_sigma)
+    j, dmin, sigma = fmap.assignment if fmap.assignment is not None else _assign(spots, fmap.pred_px, spot_sigma)
     ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
     holz_j = np.full(n, _NO_ROW)
