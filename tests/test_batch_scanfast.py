@@ -304,3 +304,20 @@ def test_index_without_the_mistilt_fit_gives_the_same_ranking_and_no_mistilt():
             assert [lk.relation for lk in a.lookalikes] == [lk.relation for lk in b.lookalikes]
             assert tuple(n for n in a.notes if n != advice) == b.notes
         assert full.message == lean.message and len(full.crystals) == len(lean.crystals)
+
+
+def test_small_frame_stage_reads_16_bit_counts_and_their_float32_copy_alike():
+    """The same counts as uint16 (background sums over the kept pixels taken as all pixels less the
+    left-out ones, exact for integers) and as float32 (summed over the kept pixels) give the same spots
+    to the last bit, and the renderer's spots are found either way."""
+    from saed.image.smallframe import measure_small_frame
+
+    pat = _render("Co-fcc", (0, 1, 1), 23.0, 5)
+    counts = np.clip(np.rint(pat.image), 0, 65535).astype(np.uint16)
+    a = measure_small_frame(counts, Calibration(SCALE, 200.0), centre_hint_px=(129.0, 127.0))
+    b = measure_small_frame(counts.astype(np.float32), Calibration(SCALE, 200.0), centre_hint_px=(129.0, 127.0))
+    assert a.center_px == b.center_px and len(a.spots) >= 8
+    for f in ("x_px", "y_px", "intensity", "intensity_sigma", "sigma_xy_px", "snr", "size_px"):
+        assert np.array_equal(getattr(a.spots, f), getattr(b.spots, f)), f
+    truth = pat.spot_xy_px[pat.visible & (pat.peak_snr > 8)]
+    assert all(np.hypot(*(a.spots.xy_px - t).T).min() < 0.6 for t in truth)

@@ -8,11 +8,12 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
    :func:`saed.image.smallframe.measure_small_frame`, starting from the previous frame's centre
    (frames above :data:`~saed.image.smallframe.SMALL_FRAME_MAX_PIXELS`, and frames where the
    direct beam is not found near that centre, go through the full stage). A frame with no spots
-   (vacuum, amorphous film) is decided there, in about 1.5 ms of CPU (one Gaussian pass is half of it).
+   (vacuum, amorphous film) is decided there, in 1.1 to 1.5 ms of CPU (one Gaussian pass is a third to half of it).
 2. **Warm start.** The solutions of the last :data:`WARM_ENTRIES` distinct grains solved by full
    search in this task (a task is up to 256 consecutive frames; each starts afresh, so the rows do not
    depend on which worker ran which task) (the best and the runner-up of each) are refined against the frame's
-   spots with the full search's own scoring (:func:`saed.index.score.score_candidate`). The grains are
+   spots with the full search's own scoring (:func:`saed.index.score.score_figure`, the steps of
+   :func:`~saed.index.score.score_candidate` without the per-spot records). The grains are
    tried most recent first, and a grain's solution is accepted only when it scores as well as a full
    search would:
 
@@ -155,16 +156,17 @@ def _warm(measured, job: IndexJob, st: _State):
     """(best, second or None, entry) when a warm solution is accepted, else None."""
     from saed.index.candidates import quick_scores, spot_set
     from saed.index.match import MIN_SCORE, REL_POS_TOL
-    from saed.index.score import score_candidate
+    from saed.index.score import score_figure
 
     if not st.entries or len(measured.spots) < 2:
         return None
     spots = spot_set(measured)
-    scale, length_tol, pitch = _options(job, measured)
+    scale, length_tol, _ = _options(job, measured)
 
     def score(c):
-        return score_candidate(c, job.tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
-                               rel_pos_tol=REL_POS_TOL, pixel_pitch_um=pitch)[0]
+        # the full search's scoring, keeping what the row shows (no per-spot records: same numbers)
+        return score_figure(c, job.tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
+                            rel_pos_tol=REL_POS_TOL)
 
     # the most recent grain first; the first whose best explains the frame is the answer, unless its own
     # runner-up (a look-alike) now scores higher: that is left to a full search
@@ -177,7 +179,7 @@ def _warm(measured, job: IndexJob, st: _State):
         if quick < 1.0 - e.unexplained - QUICK_MARGIN:
             continue
         best = score(c)
-        if _unexplained(best, spots.weight) > e.unexplained + UNEXPLAINED_MARGIN:
+        if best.unexplained_weight > e.unexplained + UNEXPLAINED_MARGIN:
             continue
         if best.score < max(MIN_SCORE, e.ref_score - WARM_SCORE_TOLERANCE):
             continue

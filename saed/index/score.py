@@ -25,7 +25,10 @@ ties between patterns of identical geometry in favour of the zone a microscopist
 (:func:`_zone_facts`), the refinement of the detector map (:func:`_refine`), the spot kinds
 (:func:`_classify`), the terms of the figure of merit (:func:`_absent_share`,
 :func:`_intensity_terms`, :func:`_scale_term`, :func:`_zone_prior`) and the per-spot records
-(:func:`_spot_records`). Every step works on whole arrays: the scan path calls the scorer about
+(:func:`_spot_records`); :func:`score_figure` runs the same steps (one function, :func:`_figure`)
+without the per-spot records, for the scan's warm start, which writes only score, rotation and
+scale. The refinement stops as soon as a round assigns the spots as the round before did (the fit
+would return the same map). Every step works on whole arrays: the scan path calls the scorer about
 once per frame, so there is no Python loop over spots or reflections in it. Nearest predicted
 reflections come from one broadcast distance matrix: for 10-60 spots and 50-300 reflections that
 measured 10-180 us against 130-400 us for building and querying a ``scipy.spatial.cKDTree``
@@ -51,7 +54,7 @@ from saed.simulate.geometry import in_plane_rotation, orientation_matrix
 from saed.simulate.zone import zone_pattern
 from saed.units import percent, percent_off
 
-__all__ = ["Fit", "score_candidate", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_NM"]
+__all__ = ["Fit", "Figure", "score_candidate", "score_figure", "KIND_WEIGHT", "HOLZ_LAYER_SPACING_MAX_INV_NM"]
 
 logger = logging.getLogger(__name__)
 
@@ -197,6 +200,7 @@ class _ZoneFacts:
     xy_inv_nm: np.ndarray  # (m, 2) zone-frame positions
     allowed: np.ndarray  # (m,) bool, kinematically allowed
     double: np.ndarray  # (m,) bool, forbidden but reachable by double diffraction
+    explains: np.ndarray  # (m,) bool, allowed | double: rows the refinement fits to
     f_rel: np.ndarray  # (m,) |F| / strongest allowed |F|
     strength: np.ndarray  # (m,) kinematic intensity f_rel**2, 0 where forbidden
     d_nm: np.ndarray  # (m,) 1/|g|
@@ -206,6 +210,7 @@ class _ZoneFacts:
     holz_d_nm: np.ndarray  # (k,) 1/|projected g|, nan for a zero projection
     holz_proj_hkl: np.ndarray  # (k, 3) integers of the projected position
     holz_proj_den: np.ndarray  # (k,) their denominator
+    zone_axis_4: tuple | None  # [UVTW] of the zone for a hexagonal phase, else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -219,6 +224,7 @@ class _Map:
     aniso_pct: float
     aniso_deg: float
     pred_px: np.ndarray  # (m, 2)
+    assignment: tuple | None = None  # _assign's (j, dmin, sigma) under exactly this map, when the refinement made it
 
 
 @dataclass(frozen=True, eq=False)
@@ -235,18 +241,21 @@ class _Assignment:
     kind_w: np.ndarray  # (n,) kind factor times the position likelihood
 
 
-def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
-                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
-                    allow_distortion: bool = True) -> tuple[Solution, Fit]:
-    """Refine and score one candidate against all spots; returns the Solution and its Fit."""
+def _figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+            length_tol: float, rel_pos_tol: float, allow_distortion: bool):
+    """The steps every scoring shares: zone facts, refined map, spot kinds and the figure of merit.
+
+    Returns (pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score) with terms =
+    (agreement, absent, rank, misfit, scale_term, scale_err, zone_term).
+    """
     pt = tables.phases[cand.phase_index]
-    phase = pt.phase
     uvw = cand.zone_axis
     zf = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
     fit_distortion = allow_distortion and measured.calibration.ellipse is None
+    spot_sigma = _sigma_px(spots, rel_pos_tol)  # refinement and classification use the same sigmas
     fmap = _refine(cand, zf, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
-                   rel_pos_tol=rel_pos_tol, fit_distortion=fit_distortion)
-    asg = _classify(zf, spots, fmap, rel_pos_tol)
+                   spot_sigma=spot_sigma, fit_distortion=fit_distortion)
+    asg = _classify(zf, spots, fmap, spot_sigma)
 
     agreement = float(np.sum(spots.weight * asg.kind_w))
     region = _observed_region(measured, spots, fmap.pred_px)
@@ -256,6 +265,56 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     zone_term = _zone_prior(uvw)
     score = (agreement * (1.0 - ABSENT_PENALTY * absent) * (INTENSITY_RANK_FLOOR + INTENSITY_RANK_SPAN * rank)
              * (1.0 - MISFIT_PENALTY * misfit) * scale_term * zone_term)
+    return (pt, zf, fit_distortion, fmap, asg, region, seen_pair,
+            (agreement, absent, rank, misfit, scale_term, scale_err, zone_term), score)
+
+
+@dataclass(frozen=True, eq=False)
+class Figure:
+    """What a scan row shows of a scored candidate, without the per-spot records (:func:`score_figure`).
+
+    The same numbers as the :class:`~saed.index.values.Solution` of :func:`score_candidate` for the
+    same input (the same steps compute them); ``unexplained_weight`` is the share of the spot weight
+    left unindexed or explained only as a forbidden reflection (the weights of `spots`).
+    """
+
+    phase_name: str
+    zone_axis: tuple[int, int, int]
+    zone_axis_4: tuple[int, int, int, int] | None
+    score: float
+    in_plane_rotation_deg: float
+    scale_inv_nm_per_px: float
+    unexplained_weight: float
+
+
+def score_figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+                 length_tol: float, rel_pos_tol: float, allow_distortion: bool = True) -> Figure:
+    """Refine and score one candidate like :func:`score_candidate`, keeping only what a scan row shows.
+
+    The scan's warm start (:mod:`saed.batch.scanindex`) scores a grain's earlier solution once per
+    frame and writes score, rotation and scale; the per-spot records, notes and overlay arrays of a
+    full Solution were a third of that cost.
+    """
+    pt, zf, _, fmap, asg, _, _, _, score = _figure(cand, tables, spots, measured, calibrated_scale=calibrated_scale,
+                                                   length_tol=length_tol, rel_pos_tol=rel_pos_tol,
+                                                   allow_distortion=allow_distortion)
+    phi_deg = math.degrees(fmap.phi_rad)
+    bad = (asg.code == _UNINDEXED) | (asg.code == _FORBIDDEN)
+    return Figure(phase_name=pt.phase.name, zone_axis=cand.zone_axis, zone_axis_4=zf.zone_axis_4, score=float(score),
+                  in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
+                  unexplained_weight=float(np.sum(spots.weight[bad])))
+
+
+def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+                    length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
+                    allow_distortion: bool = True) -> tuple[Solution, Fit]:
+    """Refine and score one candidate against all spots; returns the Solution and its Fit."""
+    pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score = _figure(
+        cand, tables, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
+        rel_pos_tol=rel_pos_tol, allow_distortion=allow_distortion)
+    agreement, absent, rank, misfit, scale_term, scale_err, zone_term = terms
+    phase = pt.phase
+    uvw = cand.zone_axis
 
     use_scale = calibrated_scale if calibrated_scale is not None else fmap.scale
     recs, d_err, a_err = _spot_records(zf, spots, measured, fmap, asg, use_scale=use_scale, phase=phase)
@@ -273,7 +332,7 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     shift = fmap.shift
     sol = Solution(
         phase_name=phase.name, zone_axis=uvw,
-        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if phase.is_hexagonal else None,
+        zone_axis_4=zf.zone_axis_4,
         orientation_matrix=u, in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
         score=float(score), indexed=recs,
         mean_d_error_pct=float(np.mean(d_err)) if len(d_err) else float("nan"),
@@ -333,8 +392,8 @@ def _assign(spots: SpotSet, pred_px: np.ndarray, sigma: np.ndarray):
     return j, dmin, sigma
 
 
-def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol, rel_pos_tol,
-            fit_distortion: bool) -> _Map:
+def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibrated_scale, length_tol,
+            spot_sigma: np.ndarray, fit_distortion: bool) -> _Map:
     """Refine v = lin p + shift from the candidate's start: assign, fit, repeat (at most REFINE_ROUNDS)."""
     m = cand.u_matrix @ zf.u0.T
     scale = cand.scale_inv_nm_per_px
@@ -342,16 +401,27 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
     lin = _rot2(math.atan2(m[1, 0], m[0, 0])) / scale  # detector px per 1/nm
     shift = np.zeros(2)
     t_max = max(CENTRE_SHIFT_MIN_PX, CENTRE_SHIFT_SIGMAS * float(measured.center_sigma_px or 0.0))
-    explains = zf.allowed | zf.double
-    spot_sigma = _sigma_px(spots, rel_pos_tol)
+    explains = zf.explains
+    last = None  # the previous round's assignment (spots used, their rows)
+    current = None  # (pred_px, assignment) when the map has not changed since they were computed
     for _ in range(REFINE_ROUNDS):
-        j, dmin, sigma = _assign(spots, xy @ lin.T + shift, spot_sigma)
+        pred = xy @ lin.T + shift
+        j, dmin, sigma = _assign(spots, pred, spot_sigma)
+        current = (pred, (j, dmin, sigma))
         ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
         use = ok & explains[np.maximum(j, 0)] if len(xy) else ok
         if np.count_nonzero(use) < 2:
             break
+        rows_used = j[use]
+        # the same assignment as the round before: the fit (a function of the assignment, the spots and
+        # their fixed sigmas alone) would return the very map it returned then, and the loop would stop
+        # on it as converged; stop now with that map (the usual second round of a good start)
+        if last is not None and np.array_equal(use, last[0]) and np.array_equal(rows_used, last[1]):
+            break
+        current = None
+        last = (use, rows_used)
         wt = spots.weight[use] / sigma[use] ** 2
-        new_lin, shift = _fit_linear(xy[j[use]], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
+        new_lin, shift = _fit_linear(xy[rows_used], spots.v_px[use], wt, distortion=fit_distortion, t_max_px=t_max)
         new_scale = 1.0 / math.sqrt(abs(np.linalg.det(new_lin)))
         if calibrated_scale is not None:
             lo, hi = calibrated_scale * (1 - length_tol), calibrated_scale * (1 + length_tol)
@@ -364,16 +434,21 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
             break
     phi = math.atan2(lin[1, 0] - lin[0, 1], lin[0, 0] + lin[1, 1])  # rotation part of the polar decomposition
     aniso_pct, aniso_deg = _anisotropy(lin)
+    # stopped on an unchanged map: its predicted positions and the spots' assignment are the last round's
+    pred_px, assignment = current if current is not None else (xy @ lin.T + shift, None)
     return _Map(lin=lin, shift=shift, scale=scale, phi_rad=phi, aniso_pct=aniso_pct, aniso_deg=aniso_deg,
-                pred_px=xy @ lin.T + shift)
+                pred_px=pred_px, assignment=assignment)
 
 
 # --- step 2: what every spot is --------------------------------------------------------------------
 
-def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, rel_pos_tol: float) -> _Assignment:
-    """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none."""
+def _classify(zf: _ZoneFacts, spots: SpotSet, fmap: _Map, spot_sigma: np.ndarray) -> _Assignment:
+    """Assign every spot under the refined map: zero-order row and its kind, else a HOLZ projection, else none.
+
+    `spot_sigma`: the spots' position sigmas (:func:`_sigma_px`).
+    """
     n = len(spots.r_px)
-    j, dmin, sigma = _assign(spots, fmap.pred_px, _sigma_px(spots, rel_pos_tol))
+    j, dmin, sigma = fmap.assignment if fmap.assignment is not None else _assign(spots, fmap.pred_px, spot_sigma)
     ok = (j >= 0) & (dmin <= MATCH_SIGMAS * sigma)
     like = np.exp(-0.5 * (dmin / sigma) ** 2)
     holz_j = np.full(n, _NO_ROW)
@@ -444,7 +519,9 @@ def _intensity_terms(zf: _ZoneFacts, spots: SpotSet, asg: _Assignment) -> tuple[
     meas = spots.intensity[idx]
     rank = RANK_NEUTRAL
     kin_log = np.round(np.log10(kin), LOG_INTENSITY_DECIMALS)
-    if len(np.unique(kin_log)) >= 2 and np.ptp(meas) > 0:
+    # at least two distinct values on the kinematic side and a spread on the measured one (no np.unique, np.ptp:
+    # their overhead is most of this term on a pattern's few spots)
+    if kin_log.max() > kin_log.min() and meas.max() - meas.min() > 0:
         rho = spearman_rho(meas, kin_log)
         rank = float(max(0.0, rho)) if np.isfinite(rho) else RANK_UNDEFINED
     w = spots.weight[idx]
@@ -544,12 +621,13 @@ def _zone_facts_cached(pt_ref, uvw: tuple, voltage_kv: float, max_g_inv_nm: floa
     proj = [projected_plane(metric, h, uvw) for h in holz_hkl.tolist()]  # once per zone, a few rows
     return _ZoneFacts(
         zp=zp, u0=u0, xy_inv_nm=np.asarray(zp.xy_inv_nm, float), allowed=allowed,
-        double=np.asarray(zp.double_diffraction),
+        double=np.asarray(zp.double_diffraction), explains=allowed | np.asarray(zp.double_diffraction),
         f_rel=f_rel, strength=np.where(allowed, f_rel ** 2, 0.0), d_nm=_inverse(np.asarray(zp.g_inv_nm, float)),
         mate=_friedel_rows(zp.hkl), holz_xy_inv_nm=holz_xy, holz_hkl=holz_hkl,
         holz_d_nm=_inverse(holz_g),
         holz_proj_hkl=np.array([p for _, p in proj], np.int64).reshape(-1, 3),
-        holz_proj_den=np.array([d for d, _ in proj], np.int64))
+        holz_proj_den=np.array([d for d, _ in proj], np.int64),
+        zone_axis_4=tuple(int(v) for v in direction_to_4(np.array(uvw))) if pt.phase.is_hexagonal else None)
 
 
 def _inverse(g: np.ndarray) -> np.ndarray:
@@ -574,20 +652,26 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
     """
     sw = np.sqrt(w)
     n = len(p)
-    # similarity with shift: [a -b tx ; b a ty]
-    rows = np.zeros((2 * n, 4))
-    rows[:n, 0], rows[:n, 1], rows[:n, 2] = p[:, 0], -p[:, 1], 1.0
-    rows[n:, 0], rows[n:, 1], rows[n:, 3] = p[:, 1], p[:, 0], 1.0
+    # similarity with shift: rows [a -b tx ; b a ty], each weighted by sqrt(w) (built weighted: the
+    # same products as weighting an unweighted design, one array fewer)
+    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
+    rows = np.zeros((2 * n, 4 if use_shift else 2))
+    np.multiply(p[:, 0], sw, out=rows[:n, 0])
+    np.multiply(-p[:, 1], sw, out=rows[:n, 1])
+    np.multiply(p[:, 1], sw, out=rows[n:, 0])
+    np.multiply(p[:, 0], sw, out=rows[n:, 1])
+    if use_shift:
+        rows[:n, 2] = sw
+        rows[n:, 3] = sw
     rhs = np.concatenate([v[:, 0], v[:, 1]])
     ww = np.concatenate([sw, sw])
-    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
-    cols = [0, 1, 2, 3] if use_shift else [0, 1]
-    sol, *_ = np.linalg.lstsq(rows[:, cols] * ww[:, None], rhs * ww, rcond=None)
+    sol, *_ = np.linalg.lstsq(rows, rhs * ww, rcond=None)
     a, b = sol[0], sol[1]
     t = np.array([sol[2], sol[3]]) if use_shift else np.zeros(2)
-    if np.linalg.norm(t) > t_max_px:
-        t = t * (t_max_px / np.linalg.norm(t))
-        sol, *_ = np.linalg.lstsq(rows[:, :2] * ww[:, None], (rhs - np.repeat(t, n)) * ww, rcond=None)
+    t_norm = np.linalg.norm(t)
+    if t_norm > t_max_px:
+        t = t * (t_max_px / t_norm)
+        sol, *_ = np.linalg.lstsq(rows[:, :2], (rhs - np.repeat(t, n)) * ww, rcond=None)
         a, b = sol
     sim = np.array([[a, -b], [b, a]])
     if not distortion or n < DISTORTION_MIN_SPOTS:
