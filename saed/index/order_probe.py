@@ -58,7 +58,7 @@ class OrderProbe:
     evidence: OrderEvidence | None
 
     def text(self) -> str:
-        return (f"superlattice positions of {self.ordered.phase_name} probed in the image ({self.n_superlattice} positions): "
+        return (f"Superlattice positions of {self.ordered.phase_name} probed in the image ({self.n_superlattice} positions): "
                 f"combined significance {self.family_z:.2f} against at most {self.decoy_max:.2f} for the same set turned "
                 f"about the centre ({N_DECOYS} turns, scatter {self.decoy_sd:.2f})")
 

@@ -16,6 +16,7 @@ import numpy as np
 
 from saed.crystal.notation import pad, person_text, zone_text
 from saed.index.values import EXPLAINED_KINDS
+from saed.report.terminal_text import wrapped
 
 __all__ = ["CRYSTAL_COLOURS", "crystal_label", "crystals_lines", "crystals_html", "crystals_view", "draw_further_crystals",
            "spots_of_further_crystals", "further_crystals_text", "first_crystal_score"]
@@ -82,14 +83,14 @@ def crystals_lines(result, style: str = "plain") -> list[str]:
                        + ("" if c.role in ("best", "second", "third") else f"  ({c.role})"))
         for r in result.orientation_relationships:
             a, b = r.crystals
-            out.append(f"  relationship {a + 1}-{b + 1}: {person_text(r.text, style)}")
+            out.append(wrapped(f"  relationship {a + 1}-{b + 1}: ", person_text(r.text, style)))
         if result.cross_double_diffraction:
             out.append(f"  {len(result.cross_double_diffraction)} spots are double diffraction across the crystals "
                        "(g1 + g2), not a further crystal")
     notes = list(result.notes) + _lookalike_notes(result)
     if notes:
         out.append("")
-        out += [f"note: {person_text(n, style)}" for n in notes]
+        out += [wrapped("note: ", person_text(n, style)) for n in notes]
     return out
 
 

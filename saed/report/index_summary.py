@@ -13,6 +13,7 @@ from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, in
                                    shown_plane, signed_text, table_lines)
 from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
+from saed.report.terminal_text import unwrapped, wrapped  # noqa: F401  (unwrapped: for scripts, as before)
 
 __all__ = ["format_summary", "unwrapped", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "spot_label",
            "kind_text", "SHOWN_SPOTS", "SCORE_MEANING", "SCORE_SHORT", "CONFIDENCE_MEANING", "legend_lines"]
@@ -170,37 +171,10 @@ def format_summary(result: IndexResult, *, image: str, frame: int | None = None,
 
     lines += crystals_lines(result, style)  # further crystals, their relationship, the result's notes
     if result.message:
-        lines.append(_wrapped("note: ", person_text(result.message, style), "  "))
+        lines.append(wrapped("note: ", person_text(result.message, style)))
     lines.append("")
     lines += [textwrap.fill(t, 100, subsequent_indent="  ") for t in legend_lines(word)]
     return "\n".join(lines)
-
-
-#: Width of the terminal summary's wrapped notes, and the hanging indent of their continuation lines.
-NOTE_WIDTH = 100
-NOTE_INDENT = "        "
-
-
-def _wrapped(prefix: str, text: str, indent: str) -> str:
-    """`prefix` + `text` wrapped at NOTE_WIDTH columns with a hanging indent (a look-alike note runs to
-    several hundred characters; a terminal's own wrap puts its continuation at the left margin)."""
-    return textwrap.fill(text, NOTE_WIDTH, initial_indent=prefix, subsequent_indent=indent,
-                         break_on_hyphens=False, break_long_words=False)
-
-
-def unwrapped(text: str) -> list[str]:
-    """The summary's lines with each wrapped note joined back into one line (for scripts that grep it).
-
-    >>> unwrapped("best: x\\n  note: a b\\n        c d\\n  hkl")
-    ['best: x', '  note: a b c d', '  hkl']
-    """
-    out: list[str] = []
-    for line in text.splitlines():
-        if out and line.startswith(NOTE_INDENT) and line.strip():
-            out[-1] += " " + line.strip()
-        else:
-            out.append(line)
-    return out
 
 
 def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -> list[str]:
@@ -212,11 +186,10 @@ def _best_block(best: Solution, *, calibrated: bool, style: str, units: Units) -
             txt += f", camera length {best.implied_camera_length_mm:.0f} mm"
         out.append(txt)
     if best.mistilt is not None:
-        out.append(_wrapped("  mistilt: ", person_text(best.mistilt.advice, style), NOTE_INDENT))
-    out += [_wrapped("  note: ", person_text(n, style), NOTE_INDENT) for n in plain_notes(best, units, style)]
+        out.append(wrapped("  mistilt: ", person_text(best.mistilt.advice, style)))
+    out += [wrapped("  note: ", person_text(n, style)) for n in plain_notes(best, units, style)]
     for head, sep, tilt in other_lookalikes(best, style, units):
-        out.append(_wrapped(f"  {head}: ", person_text(sep, style) + (f"; {person_text(tilt, style)}" if tilt else ""),
-                            NOTE_INDENT))
+        out.append(wrapped(f"  {head}: ", person_text(sep, style) + (f"; {person_text(tilt, style)}" if tilt else "")))
     shown = sorted((s for s in best.indexed), key=lambda s: (s.hkl is None, s.d_nm_measured * -1))
     out.append("")
     u = units.label(style)
