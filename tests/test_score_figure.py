@@ -11,28 +11,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from saed.index.candidates import Candidate, SpotSet
 from saed.index.score import score_figure
-from test_score_regression import DATA, ROWS, _close, _rescore, _tuple, tables  # noqa: F401 (fixture)
+from test_score_regression import ROWS, _close, _rescore, _tuple, recorded_inputs, tables  # noqa: F401 (fixture)
 
 
 def _figure(case, row, tables):
-    from saed.calibration import Calibration
-    from saed.image.values import MeasuredPattern, Spots
-
-    sp = case["spots"]
-    spots = Spots(np.array(sp["x_px"]), np.array(sp["y_px"]), np.array(sp["intensity"]),
-                  sigma_xy_px=np.array(sp["sigma_xy_px"]))
-    measured = MeasuredPattern(tuple(DATA["shape"]), tuple(case["center_px"]), spots, None,
-                               Calibration(case["calibrated_scale"], DATA["voltage_kv"]),
-                               center_sigma_px=case["center_sigma_px"])
-    ss = case["spot_set"]
-    spot_set = SpotSet(**{k: np.array(v, dtype=bool if k in ("strong", "on_lattice") else float).reshape(
-        (-1, 2) if k in ("v_px", "v_seed_px") else (-1,)) for k, v in ss.items()})
-    c = row["candidate"]
-    cand = Candidate(c["phase_index"], c["i1"], c["i2"], tuple(c["zone_axis"]), tuple(c["canonical_zone"]),
-                     np.array(c["u_matrix"]), c["scale"], c["quick"])
-    o = row["options"]
+    cand, spot_set, measured, o = recorded_inputs(case, row)
     fig = score_figure(cand, tables, spot_set, measured, calibrated_scale=case["calibrated_scale"],
                        length_tol=o["length_tol"], rel_pos_tol=0.008, allow_distortion=o["allow_distortion"])
     return fig, spot_set

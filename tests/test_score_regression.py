@@ -53,7 +53,8 @@ def _tuple(x):
     return None if x is None else tuple(x)
 
 
-def _rescore(case, row, tables):
+def recorded_inputs(case, row):
+    """(candidate, spot set, measured pattern, options) of one recorded scoring, rebuilt from the record."""
     sp = case["spots"]
     spots = Spots(np.array(sp["x_px"]), np.array(sp["y_px"]), np.array(sp["intensity"]),
                   sigma_xy_px=np.array(sp["sigma_xy_px"]))
@@ -66,7 +67,11 @@ def _rescore(case, row, tables):
     c = row["candidate"]
     cand = Candidate(c["phase_index"], c["i1"], c["i2"], tuple(c["zone_axis"]), tuple(c["canonical_zone"]),
                      np.array(c["u_matrix"]), c["scale"], c["quick"])
-    o = row["options"]
+    return cand, spot_set, measured, row["options"]
+
+
+def _rescore(case, row, tables):
+    cand, spot_set, measured, o = recorded_inputs(case, row)
     return score_candidate(cand, tables, spot_set, measured, calibrated_scale=case["calibrated_scale"],
                            length_tol=o["length_tol"], rel_pos_tol=0.008, pixel_pitch_um=o["pixel_pitch_um"],
                            allow_distortion=o["allow_distortion"])
