@@ -101,6 +101,26 @@ def test_a_real_index_run_imports_only_what_indexing_needs(tmp_path):
     assert not {n for n in names if n.startswith("saed.cli.cmd_") and n != "saed.cli.cmd_index"}
 
 
+def test_the_superlattice_probe_adds_no_heavy_import(tmp_path):
+    """A Ni pattern with faint Ni3Al spots makes 'saed index' probe the image (saed.index.superlattice_probe):
+    that path, too, does without scipy.spatial and scipy.optimize."""
+    import numpy as np
+    import tifffile
+
+    from saed.crystal import builtin_phase
+    from saed.synth.overlap import overlap_image
+
+    img, _ = overlap_image(builtin_phase("Ni"), (0, 0, 1), [(builtin_phase("Ni3Al"), np.eye(3), 0.15)],
+                           in_plane_rotation_deg=31.0, scale_inv_nm_per_px=0.05, rng=40)
+    tif = tmp_path / "ni.tif"
+    tifffile.imwrite(tif, np.clip(np.rint(img), 0, 65535).astype(np.uint16), photometric="minisblack")
+    names = _imported(["index", str(tif), "--scale", "0.05", "--phase", "Ni", "--phase", "Ni3Al",
+                       "--json", str(tmp_path / "r.json")], tmp_path)
+    # two crystals: only the probe sees Ni3Al here (tests/test_ordering_probe.py: Ni alone without the image)
+    assert len(json.loads((tmp_path / "r.json").read_text())["crystals"]) == 2
+    assert not {n for n in names if n.split(".")[:2] in (["scipy", "spatial"], ["scipy", "optimize"])}
+
+
 def test_phases_and_version_need_no_scipy():
     mods = _modules_after("from saed.cli import build_parser; build_parser('phases')\nimport saed.physics, saed.calibration")
     assert "saed.physics" in mods and not {m for m in mods if m.startswith("scipy")}

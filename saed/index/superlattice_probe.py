@@ -36,6 +36,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from saed.image.nearby import nearest_within
+
 __all__ = ["ProbeResult", "amplitude_map", "family_z", "probe_reflections", "decoy_family_z", "exclusion_radius_px", "PRESENT_Z", "N_NULL"]
 
 #: A reflection family is present when sum z / sqrt(n) over its predicted positions reaches this
@@ -125,11 +127,14 @@ def _null_points(center, radii: np.ndarray, phase0: np.ndarray, exclude_xy: np.n
     pts = np.stack([center[0] + radii[:, None] * np.cos(ang), center[1] + radii[:, None] * np.sin(ang)], axis=2)
     ok = np.ones(ang.shape, bool)
     if len(exclude_xy):
-        from scipy.spatial import cKDTree
-
-        d, _ = cKDTree(exclude_xy).query(pts.reshape(-1, 2))
-        ok = d.reshape(ang.shape) > excl_px
+        ok = (_near_excluded(pts.reshape(-1, 2), exclude_xy, excl_px) < 0).reshape(ang.shape)
     return pts, ok
+
+
+def _near_excluded(points: np.ndarray, exclude_xy: np.ndarray, excl_px: float) -> np.ndarray:
+    """Index of an excluded point within `excl_px` of each point, -1 where none is (the image stage's cell-grid
+    neighbour search; scipy.spatial would add its import to the first probe of a command)."""
+    return nearest_within(points, exclude_xy, excl_px)[0]
 
 
 def family_z(z: np.ndarray, noise: np.ndarray, expected=None) -> float:
@@ -202,17 +207,12 @@ def decoy_family_z(amap: np.ndarray, xy_px, *, center_px, sigma_px: float, exclu
     xy = np.asarray(xy_px, float).reshape(-1, 2) - c
     ex = np.asarray(exclude_xy_px, float).reshape(-1, 2)
     excl = exclusion_radius_px(sigma_px)
-    tree = None
-    if len(ex):
-        from scipy.spatial import cKDTree
-
-        tree = cKDTree(ex)
     out = []
     for t in range(1, 360):
         a = math.radians(float(t))
         rot = np.array([[math.cos(a), -math.sin(a)], [math.sin(a), math.cos(a)]])
         p = xy @ rot.T + c
-        keep = np.ones(len(p), bool) if tree is None else tree.query(p)[0] > excl
+        keep = np.ones(len(p), bool) if not len(ex) else _near_excluded(p, ex, excl) < 0
         if keep.sum() < max(2, len(xy) // 2):
             continue
         e = None if expected is None else np.asarray(expected, float)[keep]
