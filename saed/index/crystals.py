@@ -565,9 +565,8 @@ def _probe_disordered(ctx, tables, spots, best: Solution, notes: list, *, max_cr
     o = p.ordered.phase_name
     if not p.present:
         if p.family_z >= HINT_Z:
-            need = PRESENT_Z * max(1.0, p.decoy_sd) if math.isfinite(p.decoy_sd) else PRESENT_Z
             notes.append(p.text() + f": below the threshold (at least {PRESENT_Z:g}, above every turned copy and "
-                         f"{PRESENT_Z:g} x their scatter, here {max(need, PRESENT_Z):.2f}), so "
+                         f"{PRESENT_Z:g} x their scatter, here {p.required_z:.2f}), so "
                          f"the superlattice reflections of {o} are not counted as seen; a longer exposure, or a dark-field "
                          "image in a superlattice position, decides")
         return False, "", [best], ["best"]

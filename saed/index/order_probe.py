@@ -17,7 +17,7 @@ in the image (:mod:`saed.index.superlattice_probe`) and
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -57,10 +57,21 @@ class OrderProbe:
     present: bool
     evidence: OrderEvidence | None
 
+    @property
+    def required_z(self) -> float:
+        """The combined significance the family had to reach (:func:`required_z`)."""
+        return required_z(self.decoy_sd)
+
     def text(self) -> str:
         return (f"Superlattice positions of {self.ordered.phase_name} probed in the image ({self.n_superlattice} positions): "
                 f"combined significance {self.family_z:.2f} against at most {self.decoy_max:.2f} for the same set turned "
                 f"about the centre ({N_DECOYS} turns, scatter {self.decoy_sd:.2f})")
+
+
+def required_z(decoy_sd: float) -> float:
+    """PRESENT_Z, raised to PRESENT_Z times the turned sets' scatter where that exceeds 1 (a structured background
+    spreads chance values wider than a unit normal). A family also has to beat every turned set."""
+    return PRESENT_Z * max(1.0, decoy_sd) if math.isfinite(decoy_sd) else PRESENT_Z
 
 
 class ProbeContext:
@@ -140,8 +151,6 @@ def probe_order(ctx: ProbeContext, tables, spots: SpotSet, sol: Solution, *, rel
             ctx._cache[okey] = _probe(ctx, tables, ordered, dis)
         out = ctx._cache[okey]
         if out is not None and pi is not None and out.ordered is not ordered:
-            from dataclasses import replace
-
             out = replace(out, ordered=ordered)
     ctx._cache[key] = out
     return out
@@ -187,8 +196,7 @@ def _probe(ctx: ProbeContext, tables, ordered: Solution, dis) -> OrderProbe | No
         decoys = decoys[np.isfinite(decoys)]
     d_max = float(decoys.max()) if len(decoys) else float("nan")
     d_sd = float(np.std(decoys)) if len(decoys) >= 3 else float("nan")
-    present = (len(decoys) >= N_DECOYS // 2 and fz >= PRESENT_Z and fz > d_max
-               and fz >= PRESENT_Z * max(1.0, d_sd))
+    present = len(decoys) >= N_DECOYS // 2 and fz > d_max and fz >= required_z(d_sd)
     ev = None
     if present:
         ev = order_evidence_photometric(phase, ordered.zone_axis, hkl, allp.intensity, allp.intensity_sigma, fund,
