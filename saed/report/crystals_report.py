@@ -32,9 +32,19 @@ def _zone(sol, style: str = "plain") -> str:
 
 
 def crystal_label(result, k: int, style: str = "plain") -> str:
+    """'crystal 2: Ni3Al [001], ordered precipitate' in `style` (names escaped for 'html')."""
     c = result.crystals[k]
-    role = "" if c.role in ("best", "second", "third") else f", {c.role}"
-    return f"crystal {k + 1}: {c.phase_name} {_zone(c.solution, style)}{role}"
+    esc = html.escape if style == "html" else str
+    role = "" if c.role in ("best", "second", "third") else f", {esc(c.role)}"
+    return f"crystal {k + 1}: {esc(c.phase_name)} {_zone(c.solution, style)}{role}"
+
+
+def _relationship_legend(rel) -> str:
+    """'1-2: Sigma-3 twin, 0.4 deg off' (or the misorientation when no standard relationship fits)."""
+    a, b = rel.crystals
+    name = rel.name if rel.name != "none" else f"no standard relationship ({rel.misorientation_deg:.1f} deg)"
+    dev = f", {rel.deviation_deg:.1f} deg off" if rel.deviation_deg is not None else ""
+    return f"{a + 1}-{b + 1}: {name}{dev}"
 
 
 def first_crystal_score(result) -> float | None:
@@ -189,18 +199,8 @@ def draw_further_crystals(ax, result, *, bounds, unit: float, label_text) -> lis
         ax.plot([xs[d.spot_index]], [ys[d.spot_index]], marker="+", ms=9, mew=1.6, color=CROSS_DD_COLOUR)
     if result.cross_double_diffraction:
         legend.append(("+ double diffraction across crystals", CROSS_DD_COLOUR))
-    for r in result.orientation_relationships:
-        a, b = r.crystals
-        name = r.name if r.name != "none" else f"no standard relationship ({r.misorientation_deg:.1f} deg)"
-        dev = f", {r.deviation_deg:.1f} deg off" if r.deviation_deg is not None else ""
-        legend.append((f"{a + 1}-{b + 1}: {name}{dev}", "white"))
+    legend += [(_relationship_legend(r), "white") for r in result.orientation_relationships]
     return legend
-
-
-def _label_html(result, k: int) -> str:
-    c = result.crystals[k]
-    role = "" if c.role in ("best", "second", "third") else f", {html.escape(c.role)}"
-    return f"crystal {k + 1}: {html.escape(c.phase_name)} {_zone(c.solution, 'html')}{role}"
 
 
 def crystals_view(result) -> dict | None:
@@ -231,13 +231,8 @@ def crystals_view(result) -> dict | None:
             spots.append({"index": int(i), "shared": int(i) in c.shared_spots,
                           "hkl": None if shown is None else [int(v) for v in shown]})
         further.append({"colour": CRYSTAL_COLOURS[(k - 1) % len(CRYSTAL_COLOURS)],
-                        "label_html": _label_html(result, k), "predicted": pred, "spots": spots})
-    rels = []
-    for rel in result.orientation_relationships:
-        a, b = rel.crystals
-        name = rel.name if rel.name != "none" else f"no standard relationship ({rel.misorientation_deg:.1f} deg)"
-        dev = f", {rel.deviation_deg:.1f} deg off" if rel.deviation_deg is not None else ""
-        rels.append(html.escape(f"{a + 1}-{b + 1}: {name}{dev}"))
-    return {"first_label_html": _label_html(result, 0), "further": further,
+                        "label_html": crystal_label(result, k, "html"), "predicted": pred, "spots": spots})
+    rels = [html.escape(_relationship_legend(rel)) for rel in result.orientation_relationships]
+    return {"first_label_html": crystal_label(result, 0, "html"), "further": further,
             "cross_double_diffraction": sorted(int(d.spot_index) for d in result.cross_double_diffraction),
             "cross_dd_colour": CROSS_DD_COLOUR, "relationships_html": rels}
