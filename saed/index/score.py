@@ -241,13 +241,31 @@ class _Assignment:
     kind_w: np.ndarray  # (n,) kind factor times the position likelihood
 
 
-def _figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
-            length_tol: float, rel_pos_tol: float, allow_distortion: bool):
-    """The steps every scoring shares: zone facts, refined map, spot kinds and the figure of merit.
+@dataclass(frozen=True, eq=False)
+class _Scored:
+    """What :func:`_figure` computes for one candidate: the zone facts, refined map and spot kinds it scored
+    with, the observed region and seen Friedel pairs, each term of the figure of merit and the score."""
 
-    Returns (pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score) with terms =
-    (agreement, absent, rank, misfit, scale_term, scale_err, zone_term).
-    """
+    pt: PhaseIndexTable
+    zf: _ZoneFacts
+    fit_distortion: bool
+    fmap: _Map
+    asg: _Assignment
+    region: np.ndarray
+    seen_pair: np.ndarray
+    agreement: float
+    absent: float
+    rank: float
+    misfit: float
+    scale_term: float
+    scale_err: float | None
+    zone_term: float
+    score: float
+
+
+def _figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
+            length_tol: float, rel_pos_tol: float, allow_distortion: bool) -> _Scored:
+    """The steps every scoring shares: zone facts, refined map, spot kinds and the figure of merit."""
     pt = tables.phases[cand.phase_index]
     uvw = cand.zone_axis
     zf = _zone_facts(pt, tuple(int(v) for v in uvw), tables.voltage_kv, tables.max_g_inv_nm)
@@ -265,8 +283,8 @@ def _figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, c
     zone_term = _zone_prior(uvw)
     score = (agreement * (1.0 - ABSENT_PENALTY * absent) * (INTENSITY_RANK_FLOOR + INTENSITY_RANK_SPAN * rank)
              * (1.0 - MISFIT_PENALTY * misfit) * scale_term * zone_term)
-    return (pt, zf, fit_distortion, fmap, asg, region, seen_pair,
-            (agreement, absent, rank, misfit, scale_term, scale_err, zone_term), score)
+    return _Scored(pt, zf, fit_distortion, fmap, asg, region, seen_pair, agreement, absent, rank, misfit,
+                   scale_term, scale_err, zone_term, score)
 
 
 @dataclass(frozen=True, eq=False)
@@ -295,31 +313,29 @@ def score_figure(cand: Candidate, tables: IndexTables, spots: SpotSet, measured,
     frame and writes score, rotation and scale; the per-spot records, notes and overlay arrays of a
     full Solution were a third of that cost.
     """
-    pt, zf, _, fmap, asg, _, _, _, score = _figure(cand, tables, spots, measured, calibrated_scale=calibrated_scale,
-                                                   length_tol=length_tol, rel_pos_tol=rel_pos_tol,
-                                                   allow_distortion=allow_distortion)
-    phi_deg = math.degrees(fmap.phi_rad)
-    bad = (asg.code == _UNINDEXED) | (asg.code == _FORBIDDEN)
-    return Figure(phase_name=pt.phase.name, zone_axis=cand.zone_axis, zone_axis_4=zf.zone_axis_4, score=float(score),
-                  in_plane_rotation_deg=float(phi_deg % 360.0), scale_inv_nm_per_px=float(fmap.scale),
-                  unexplained_weight=float(np.sum(spots.weight[bad])))
+    f = _figure(cand, tables, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
+                rel_pos_tol=rel_pos_tol, allow_distortion=allow_distortion)
+    phi_deg = math.degrees(f.fmap.phi_rad)
+    bad = (f.asg.code == _UNINDEXED) | (f.asg.code == _FORBIDDEN)
+    return Figure(phase_name=f.pt.phase.name, zone_axis=cand.zone_axis, zone_axis_4=f.zf.zone_axis_4,
+                  score=float(f.score), in_plane_rotation_deg=float(phi_deg % 360.0),
+                  scale_inv_nm_per_px=float(f.fmap.scale), unexplained_weight=float(np.sum(spots.weight[bad])))
 
 
 def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measured, *, calibrated_scale: float | None,
                     length_tol: float, rel_pos_tol: float, pixel_pitch_um: float | None = None,
                     allow_distortion: bool = True) -> tuple[Solution, Fit]:
     """Refine and score one candidate against all spots; returns the Solution and its Fit."""
-    pt, zf, fit_distortion, fmap, asg, region, seen_pair, terms, score = _figure(
-        cand, tables, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
-        rel_pos_tol=rel_pos_tol, allow_distortion=allow_distortion)
-    agreement, absent, rank, misfit, scale_term, scale_err, zone_term = terms
+    f = _figure(cand, tables, spots, measured, calibrated_scale=calibrated_scale, length_tol=length_tol,
+                rel_pos_tol=rel_pos_tol, allow_distortion=allow_distortion)
+    pt, zf, fmap, asg, score = f.pt, f.zf, f.fmap, f.asg, f.score
     phase = pt.phase
     uvw = cand.zone_axis
 
     use_scale = calibrated_scale if calibrated_scale is not None else fmap.scale
     recs, d_err, a_err = _spot_records(zf, spots, measured, fmap, asg, use_scale=use_scale, phase=phase)
     kinds = tuple(_KIND_BY_CODE[asg.code])
-    notes = _notes(measured, fmap, fit_distortion, int(np.count_nonzero(asg.ok)))
+    notes = _notes(measured, fmap, f.fit_distortion, int(np.count_nonzero(asg.ok)))
     phi_deg = math.degrees(fmap.phi_rad)
     u = in_plane_rotation(phi_deg) @ zf.u0  # orientation_matrix(lattice, uvw, phi_deg), with the cached frame
     cam = None
@@ -338,9 +354,10 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
         mean_d_error_pct=float(np.mean(d_err)) if len(d_err) else float("nan"),
         mean_angle_error_deg=float(np.mean(a_err)) if len(a_err) else float("nan"),
         structure_type=phase.structure_type, implied_camera_length_mm=cam, notes=notes,
-        scale_error_pct=None if scale_err is None else percent(scale_err),
-        terms=(("agreement", agreement), ("absent", absent), ("intensity_rank", rank), ("intensity_misfit", misfit),
-               ("scale", scale_term), ("zone_prior", zone_term), ("distortion_pct", fmap.aniso_pct),
+        scale_error_pct=None if f.scale_err is None else percent(f.scale_err),
+        terms=(("agreement", f.agreement), ("absent", f.absent), ("intensity_rank", f.rank),
+               ("intensity_misfit", f.misfit), ("scale", f.scale_term), ("zone_prior", f.zone_term),
+               ("distortion_pct", fmap.aniso_pct),
                ("distortion_axis_deg", fmap.aniso_deg), ("center_shift_x_px", float(shift[0])),
                ("center_shift_y_px", float(shift[1]))),
         predicted_xy_px=fmap.pred_px[show] + np.array([cx, cy])[None, :], predicted_hkl=zf.zp.hkl[show],
@@ -350,8 +367,8 @@ def score_candidate(cand: Candidate, tables: IndexTables, spots: SpotSet, measur
     holz_rows = np.where(asg.holz_j[:, None] >= 0, zf.holz_hkl[np.maximum(asg.holz_j, 0)], 0) if len(zf.holz_hkl) \
         else np.zeros((len(asg.j), 3))
     fit = Fit(table=pt, zone=zf.zp, uvw=uvw, phi_deg=phi_deg, scale=float(fmap.scale),
-              assigned=np.where(asg.ok, asg.j, _NO_ROW), kinds=kinds, predicted_px=fmap.pred_px, seen=seen_pair,
-              in_region=region, holz_hkl=np.asarray(holz_rows, np.int64).reshape(-1, 3),
+              assigned=np.where(asg.ok, asg.j, _NO_ROW), kinds=kinds, predicted_px=fmap.pred_px, seen=f.seen_pair,
+              in_region=f.region, holz_hkl=np.asarray(holz_rows, np.int64).reshape(-1, 3),
               holz_xy_inv_nm=(zf.holz_xy_inv_nm @ fmap.lin.T) * fmap.scale)
     return sol, fit
 
