@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from saed.cli import main
-from saed.report.index_summary import unwrapped
+from saed.report.terminal_text import unwrapped
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = resources.files("saed").joinpath("data/examples")

@@ -23,7 +23,8 @@ from saed.index import index_pattern, prepare_phases
 from saed.index.lookalike import Relation
 from saed.synth.kinematic import synthetic_measured
 from saed.report.index_json import result_json
-from saed.report.index_summary import format_summary, other_lookalikes, plain_notes, unwrapped
+from saed.report.index_summary import format_summary, other_lookalikes, plain_notes
+from saed.report.terminal_text import unwrapped
 
 G_HCP_1010_INV_NM = 1.0 / (0.25071 * math.sqrt(3.0) / 2.0)
 G_FCC_200_INV_NM = 2.0 / 0.35447

@@ -13,9 +13,9 @@ from saed.crystal.notation import (UNITS, Units, degrees_text, fraction_text, in
                                    shown_plane, signed_text, table_lines)
 from saed.crystal.notation import zone_text as _zone
 from saed.index.values import IndexResult, Solution
-from saed.report.terminal_text import unwrapped, wrapped  # noqa: F401  (unwrapped: for scripts, as before)
+from saed.report.terminal_text import wrapped
 
-__all__ = ["format_summary", "unwrapped", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "spot_label",
+__all__ = ["format_summary", "zone_text", "confidence_word", "plain_notes", "other_lookalikes", "spot_label",
            "kind_text", "SHOWN_SPOTS", "SCORE_MEANING", "SCORE_SHORT", "CONFIDENCE_MEANING", "legend_lines"]
 
 #: Spots of the best solution listed in the summary (all of them are in the JSON).
