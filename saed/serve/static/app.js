@@ -257,7 +257,7 @@ function showNotes() {
   if (doc && !doc.solutions.length && doc.near_miss) $("viewing").innerHTML = `drawing the closest fit, REJECTED (score ${fmt(doc.near_miss.score, 2)}): ${esc(doc.near_miss.phase)} ${d.view.near_miss.zone_html}`;
   else $("viewing").innerHTML = s && state.sol > 0 ? `drawing solution ${state.sol + 1}: ${esc(s.phase)} ${d.view.solutions[state.sol].zone_html}`
     // several crystals: this solution alone leaves the other crystals' spots 'not explained'; say so
-    + (d.view.crystals_view ? ' <span class="sub">(alone: the other crystals\u2019 spots show as not explained; solution 1 draws every crystal)</span>' : "") : "";
+    + (d.view.crystals_view ? ' <span class="sub">(alone; solution 1 draws every crystal)</span>' : "") : "";
 }
 
 function showCalib(d) {
