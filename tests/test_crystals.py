@@ -363,6 +363,15 @@ def test_a_tie_between_phases_of_the_second_crystal_is_reported_as_a_tie():
     (tie,) = [n for n in r.notes if n.startswith("crystal 2 could also be")]
     assert "Co-hcp" in tie and "not decided" in tie
     assert {"Fe-fcc", "Ni"} - {r.crystals[1].phase_name} <= set(tie.split(":")[0].replace(",", " ").split())
+    # and the answer line, the terminal table and the JSON say it too, not only the note
+    from saed.report.crystals_json import crystals_json
+    from saed.report.crystals_report import further_crystals_text
+
+    rivals = set(r.crystals[1].undecided_with)
+    assert {"Fe-fcc", "Ni", "Co-hcp"} - {r.crystals[1].phase_name} <= rivals
+    line = further_crystals_text(r)
+    assert all(f" or {n}" in line for n in rivals)
+    assert set(crystals_json(r)[1]["undecided_with"]) == rivals and crystals_json(r)[0]["undecided_with"] == []
 
 
 def test_a_third_crystal_with_max_crystals_3(fe_tables):

@@ -96,7 +96,9 @@ class Crystal:
 
     ``role``: 'best' (crystals[0]), 'second', 'third', 'matrix' or 'ordered precipitate';
     ``own_spots``: spots only this crystal explains; ``shared_spots``: spots it shares with an
-    earlier crystal; ``intensity_share``: share of the measured spot weight it explains.
+    earlier crystal; ``intensity_share``: share of the measured spot weight it explains;
+    ``undecided_with``: other phases whose reading fits this crystal's own spots as well (the pattern
+    does not decide its phase; a note says what would).
     """
 
     solution: Solution
@@ -105,6 +107,7 @@ class Crystal:
     shared_spots: tuple[int, ...] = ()
     intensity_share: float = 0.0
     note: str = ""
+    undecided_with: tuple[str, ...] = ()
 
     @property
     def phase_name(self) -> str:
@@ -411,6 +414,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
     """
     ctx = context_for(image, measured) if image is not None else None
     sols: list[Solution] = [best]
+    undecided: dict[int, tuple[str, ...]] = {}  # id(solution) -> phases that fit its own spots as well
     roles = ["best"]
     notes: list[str] = []
     scale = float(best.scale_inv_nm_per_px)
@@ -456,6 +460,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
         sols.append(sol)
         roles.append("second" if len(sols) == 2 else "third")
         if rivals:
+            undecided[id(sol)] = tuple(n for n, _, _ in rivals)
             notes.append(f"crystal {len(sols)} could also be " + ", ".join(
                 f"{n} {z}" + (f" (scale {e:+.1f} % from crystal 1's)" if e is not None else "") for n, z, e in rivals)
                 + f": its {len(own)} own spots fit these as well as {sol.phase_name} [{_zone(sol)}]"
@@ -546,7 +551,7 @@ def find_crystals(measured, tables, spots: SpotSet, best: Solution, *, max_cryst
             roles[0 if sols[0].phase_name == o else k] = "ordered precipitate"
             roles[k if sols[0].phase_name == o else 0] = "matrix"
         rels.append(r)
-    crystals = _crystal_records(sols, roles, spots)
+    crystals = _crystal_records(sols, roles, spots, undecided)
     return MultiCrystalResult(tuple(crystals), tuple(rels), tuple(cross), tuple(notes))
 
 
@@ -673,7 +678,9 @@ def _misorientation_deg(a: Solution, b: Solution, tables) -> float:
     return ang
 
 
-def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet) -> list[Crystal]:
+def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet,
+                     undecided: dict | None = None) -> list[Crystal]:
+    """The Crystal of each solution; `undecided`: tied phases by id of the solution."""
     out = []
     masks = [np.array([s.kind in _EXPLAINED for s in sol.indexed], bool) for sol in sols]
     for k, sol in enumerate(sols):
@@ -685,7 +692,7 @@ def _crystal_records(sols: list[Solution], roles: list[str], spots: SpotSet) -> 
         shared = tuple(int(i) for i in np.flatnonzero(masks[k] & others))
         others_own = np.flatnonzero(others & ~masks[k])
         out.append(Crystal(_rescored(sol, others_own, spots), roles[k], own, shared,
-                           float(spots.weight[masks[k]].sum())))
+                           float(spots.weight[masks[k]].sum()), undecided_with=(undecided or {}).get(id(sol), ())))
     return out
 
 

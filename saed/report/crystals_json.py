@@ -39,7 +39,9 @@ def crystals_json(result) -> list[dict]:
             "score": _num(sol.score, 4), "indexed_spots": spots, "role": c.role,
             "in_plane_rotation_deg": _num(sol.in_plane_rotation_deg, 3),
             "intensity_share": _num(c.intensity_share, 3), "n_own_spots": len(c.own_spots),
-            "n_shared_spots": len(c.shared_spots)})
+            "n_shared_spots": len(c.shared_spots),
+            # phases that fit this crystal's own spots as well: the pattern does not decide between them
+            "undecided_with": list(c.undecided_with)})
     return out
 
 

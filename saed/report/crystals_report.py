@@ -55,14 +55,14 @@ def first_crystal_score(result) -> float | None:
 
 def further_crystals_text(result, style: str = "plain") -> str:
     """What the answer line adds for a pattern of several crystals: ' + Co-hcp [2-1-10] (2 crystals,
-    Shoji-Nishiyama)'; '' for one crystal."""
+    Shoji-Nishiyama)'; '' for one crystal. A crystal whose phase the pattern does not decide carries its
+    rivals: ' + Co-fcc [011] or Ni'."""
     if len(result.crystals) < 2:
         return ""
     rels = [r.name for r in result.orientation_relationships if r.name != "none"]
-    def name(c):
-        return html.escape(c.phase_name) if style == "html" else c.phase_name
-
-    more = "".join(f" + {name(c)} {_zone(c.solution, style)}" for c in result.crystals[1:])
+    esc = html.escape if style == "html" else str
+    more = "".join(f" + {esc(c.phase_name)} {_zone(c.solution, style)}"
+                   + "".join(f" or {esc(n)}" for n in c.undecided_with) for c in result.crystals[1:])
     return more + f" ({len(result.crystals)} crystals" + (f", {', '.join(rels)}" if rels else "") + ")"
 
 
@@ -90,7 +90,8 @@ def crystals_lines(result, style: str = "plain") -> list[str]:
         for k, c in enumerate(result.crystals):
             out.append(f"  {k + 1}  {c.phase_name:<10} {pad(_zone(c.solution, style), 12)} score {c.solution.score:.2f}  "
                        f"{len(c.own_spots)} own spots, {len(c.shared_spots)} shared"
-                       + ("" if c.role in ("best", "second", "third") else f"  ({c.role})"))
+                       + ("" if c.role in ("best", "second", "third") else f"  ({c.role})")
+                       + (f"  (or {', '.join(c.undecided_with)}: not decided, see the note)" if c.undecided_with else ""))
         for r in result.orientation_relationships:
             a, b = r.crystals
             out.append(wrapped(f"  relationship {a + 1}-{b + 1}: ", person_text(r.text, style)))

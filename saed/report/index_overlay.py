@@ -26,7 +26,8 @@ from saed.report.spots_overlay import display_stretch
 from saed.index.values import IndexResult
 from saed.files import atomic_write_bytes, check_writable
 from saed.report.index_summary import CONFIDENCE_MEANING, SCORE_SHORT, confidence_word, spot_label, zone_text
-from saed.report.crystals_report import draw_further_crystals, explained_text, spots_of_further_crystals
+from saed.report.crystals_report import (draw_further_crystals, explained_text, further_crystals_text,
+                                         spots_of_further_crystals)
 from saed.report.render_pattern import nice_scale_bar_inv_nm
 
 __all__ = ["overlay_figure_bytes", "write_index_overlay", "runner_up_to_show", "KIND_STYLE", "DEFAULT_DPI"]
@@ -142,11 +143,9 @@ def overlay_figure(image: np.ndarray, result: IndexResult, *, title: str | None 
     else:
         word = confidence_word(result) if result.best is not None else "near miss"
         line1 = f"{best.phase_name} {zone_text(best, 'mathtext')}   score {best.score:.2f} ({word})   -   {src}"
-        if len(result.crystals) > 1:  # further crystals and their relationship (saed.report.crystals_report)
-            rel = result.orientation_relationships[0].name if result.orientation_relationships else ""
-            more = " + ".join(f"{c.phase_name} {zone_text(c.solution, 'mathtext')}" for c in result.crystals[1:])
-            line1 = f"{best.phase_name} {zone_text(best, 'mathtext')} + {more}" \
-                + (f" ({rel})" if rel and rel != "none" else "") + f"   -   {src}"
+        if len(result.crystals) > 1:  # further crystals and their relationship, as the answer line says them
+            line1 = (f"{best.phase_name} {zone_text(best, 'mathtext')}{further_crystals_text(result, 'mathtext')}"
+                     f"   -   {src}")
         line2 = (f"{explained_text(result, best)}, d error {best.mean_d_error_pct:.2f} %, "
                  f"angle error {best.mean_angle_error_deg:.2f}\N{DEGREE SIGN}, in-plane rotation {best.in_plane_rotation_deg:.1f}\N{DEGREE SIGN}, "
                  f"{units.reciprocal(best.scale_inv_nm_per_px):.5g} {units.inverse_label('mathtext')} per px" + ("" if cal is not None and cal.is_calibrated else " (implied)"))
