@@ -111,6 +111,41 @@ def test_warm_start_gives_the_full_search_answers(small_scan):
             assert a.score == pytest.approx(b.score, abs=1e-9)
 
 
+def test_run_centre_hint_starts_each_task_on_the_lean_stage(small_scan):
+    from dataclasses import replace
+
+    from saed.batch.indexing import make_index_job
+    from saed.batch.inputs import discover_inputs
+    from saed.batch.runner import plan_chunks, process_chunk
+    from saed.batch.scanindex import EMPTY, FULL, LEAN_SEARCH, index_scan_frame, scan_centre_hint
+    from saed.index.orientmap import misorientation_deg, orientations
+
+    path, truth = small_scan
+    source = discover_inputs([str(path)]).sources[0]
+    hint = scan_centre_hint(source, Calibration(SCALE, 200.0))
+    # saed.synth.scan renders every frame's direct beam at (size/2 - 0.2, size/2 - 0.7)
+    assert np.hypot(hint[0] - 127.8, hint[1] - 127.3) < 0.1
+    plain = make_index_job([builtin_phase(p) for p in ("Co-fcc", "Co-hcp", "Cr")], Calibration(SCALE, 200.0),
+                           frame_shape=(256, 256), check_every=0)
+    chunks = list(plan_chunks([source], set(), chunk_frames=12))
+    runs = {}
+    for label, job in (("none", plain), ("hint", replace(plain, centre_hint_px=hint)),
+                       ("far", replace(plain, centre_hint_px=(40.0, 200.0)))):
+        runs[label] = [r for c in chunks for r in process_chunk(c, index_scan_frame, job)]
+    starts = [c.frames[0] for c in chunks]
+    assert all(runs["none"][k].search == FULL for k in starts)
+    assert all(runs["far"][k].search == FULL for k in starts)        # no beam near a wrong hint: the full stage
+    assert all(runs["hint"][k].search in (LEAN_SEARCH, EMPTY) for k in starts)
+    for a, b in zip(runs["none"], runs["hint"]):                      # the same answers either way
+        assert (a.status, a.phase, a.zone_axis) == (b.status, b.phase, b.zone_axis)
+        if a.status == "ok":
+            assert a.score == pytest.approx(b.score, abs=0.05)
+            # the same orientation up to the Laue group and the 180 deg turn one pattern cannot tell apart
+            ph = builtin_phase(a.phase)
+            ua, ub = (orientations(ph, np.array([r.zone_axis]), np.array([r.in_plane_rotation_deg])) for r in (a, b))
+            assert misorientation_deg(ph, ua, ub, friedel=True)[0] < 0.5
+
+
 def test_ipf_colours_and_misorientation_against_rotations_written_here():
     from saed.index.orientmap import ipf_colours, misorientation_deg, orientations
     from saed.simulate.geometry import rotation_about_axis

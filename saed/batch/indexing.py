@@ -28,7 +28,11 @@ class IndexJob:
     None; ``options``: keyword options of :func:`saed.index.index_pattern` as (name, value) pairs;
     ``frame_shape``: (rows, cols) every frame must have (None: not checked); ``check_every``: on a
     scan (:func:`saed.batch.scanindex.index_scan_frame`), every N-th frame is also solved by the
-    full image stage and full search, to measure how often the warm start agrees (0: never).
+    full image stage and full search, to measure how often the warm start agrees (0: never);
+    ``centre_hint_px``: (x, y) where the direct beam of the run's frames is expected (the full image
+    stage's centre on the run's first frame, :func:`saed.batch.scanindex.scan_centre_hint`), from which
+    a scan task's first frame starts the lean image stage; None: the first frame of every task goes
+    through the full image stage.
     """
 
     tables: object
@@ -38,10 +42,13 @@ class IndexJob:
     options: tuple[tuple[str, object], ...] = ()
     frame_shape: tuple[int, int] | None = None
     check_every: int = 128
+    centre_hint_px: tuple[float, float] | None = None
 
     def __post_init__(self):
         if self.mask is not None:
             object.__setattr__(self, "mask", frozen_array(self.mask, bool))
+        if self.centre_hint_px is not None:
+            object.__setattr__(self, "centre_hint_px", (float(self.centre_hint_px[0]), float(self.centre_hint_px[1])))
         object.__setattr__(self, "options", tuple((k, v) for k, v in dict(self.options).items() if v is not None))
 
 
@@ -60,13 +67,13 @@ def max_g_for(frame_shape, scale_inv_nm_per_px: float | None) -> float | None:
 
 
 def make_index_job(phases, calibration: Calibration, *, top: int = 5, max_g_inv_nm: float | None = None,
-                   mask=None, frame_shape=None, check_every: int = 128, **options) -> IndexJob:
+                   mask=None, frame_shape=None, check_every: int = 128, centre_hint_px=None, **options) -> IndexJob:
     """Prepare `phases` once (at the calibration's voltage) for a batch; `options` go to index_pattern."""
     from saed.index import prepare_phases
 
     tables = prepare_phases(phases, voltage_kv=calibration.voltage_kv, max_g_inv_nm=max_g_inv_nm)
     shape = None if frame_shape is None else (int(frame_shape[0]), int(frame_shape[1]))
-    return IndexJob(tables, calibration, int(top), mask, tuple(options.items()), shape, int(check_every))
+    return IndexJob(tables, calibration, int(top), mask, tuple(options.items()), shape, int(check_every), centre_hint_px)
 
 
 

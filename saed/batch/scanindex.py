@@ -3,9 +3,11 @@
 Neighbouring probe positions of a scan usually see the same grain, and the direct beam stays
 put. :func:`index_scan_frame` uses both, without changing what a frame is indexed as:
 
-1. **Image stage.** The first frame of a task is measured by the full stage
-   (:func:`saed.image.measure.measure_pattern`); each later frame by
-   :func:`saed.image.smallframe.measure_small_frame`, starting from the previous frame's centre
+1. **Image stage.** Each frame is measured by
+   :func:`saed.image.smallframe.measure_small_frame`, starting from the previous frame's centre; the
+   first frame of a task starts from the run's centre hint (``job.centre_hint_px``: the full image
+   stage's centre on the run's first frame, :func:`scan_centre_hint`), or, without one, is measured by
+   the full stage (:func:`saed.image.measure.measure_pattern`)
    (frames above :data:`~saed.image.smallframe.SMALL_FRAME_MAX_PIXELS`, and frames where the
    direct beam is not found near that centre, go through the full stage). A frame with no spots
    (vacuum, amorphous film) is decided there, in 1.1 to 1.5 ms of CPU (one Gaussian pass is a third to half of it).
@@ -55,7 +57,7 @@ from saed.calibration import Calibration
 from saed.errors import ImageError
 from saed.units import fraction
 
-__all__ = ["index_scan_frame", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY", "FULL",
+__all__ = ["index_scan_frame", "scan_centre_hint", "WARM_ENTRIES", "WARM_SCORE_TOLERANCE", "CHECK_SAME", "CHECK_DIFFER", "EMPTY", "FULL",
            "LEAN_SEARCH"]
 
 #: How many distinct earlier solutions (grains) a worker thread keeps for the warm start.
@@ -229,7 +231,7 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
             floats = np.ascontiguousarray(image, dtype=np.float32)      # as saed.image.io.check_image makes it
         return floats
 
-    hint = st.centre if st.centre is not None else cal.center_px
+    hint = st.centre if st.centre is not None else (cal.center_px or job.centre_hint_px)
     measured = None
     if hint is not None and image.size <= SMALL_FRAME_MAX_PIXELS:
         measured = measure_small_frame(image, cal, centre_hint_px=hint, mask=job.mask, source=source)
@@ -256,6 +258,39 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
         row = row_from_result(result, name=name, frame=frame)
         search = CHECK_SAME if _same(row, warm[0], job.tables) else CHECK_DIFFER
     return row_from_result(result, name=name, frame=frame, search=search)
+
+
+def scan_centre_hint(source, calibration: Calibration, *, mask=None) -> tuple[float, float] | None:
+    """Where the direct beam is on the first frame of `source` (a :class:`~saed.batch.inputs.FrameSource`),
+    by the full image stage; None when the frame cannot be read or measured, or is too large for the lean stage.
+
+    Measured once per run in the client and handed to every task (``IndexJob.centre_hint_px``), so a
+    task's first frame starts the lean image stage from it instead of running the full stage: the
+    rows do not depend on which worker runs which task, and a resumed run uses the same hint. A task
+    whose first frame shows no direct beam near the hint falls back to the full stage, as before.
+    """
+    from saed.errors import SaedError
+    from saed.image.io import check_image, read_image
+    from saed.image.measure import measure_pattern
+    from saed.image.smallframe import SMALL_FRAME_MAX_PIXELS
+
+    try:
+        if source.stack:
+            from saed.batch.stacks import read_frames
+
+            got = read_frames(source.path, (0,))[0]
+            if isinstance(got, BaseException):
+                return None
+        else:
+            got = read_image(source.path, frame=0)
+        image = check_image(got, name=source.name)
+        if image.size > SMALL_FRAME_MAX_PIXELS:
+            return None
+        measured = measure_pattern(image, calibration, mask=mask, source=f"{source.name} frame 0")
+    except SaedError:
+        return None
+    cx, cy = measured.center_px
+    return (float(cx), float(cy))
 
 
 index_scan_frame.new_task = _new_task

@@ -29,6 +29,20 @@ from saed.bench import Case
 PHASES = ("Co-fcc", "Co-hcp", "Cr")
 SIZE = 256
 SCALE_INV_NM_PER_PX = 0.08
+def scan_job(path, *, phases=PHASES, scale_inv_nm_per_px: float = SCALE_INV_NM_PER_PX, size: int = SIZE):
+    """The IndexJob ``saed batch`` makes for the scan at `path`: 200 kV, its phases, and the centre hint
+    measured on the scan's first frame (:func:`saed.batch.scanindex.scan_centre_hint`)."""
+    from saed.batch import discover_inputs
+    from saed.batch.indexing import make_index_job
+    from saed.batch.scanindex import scan_centre_hint
+    from saed.calibration import Calibration
+    from saed.crystal import builtin_phase
+
+    cal = Calibration(scale_inv_nm_per_px, 200.0)
+    hint = scan_centre_hint(discover_inputs([str(path)]).sources[0], cal)
+    return make_index_job([builtin_phase(p) for p in phases], cal, frame_shape=(size, size), centre_hint_px=hint)
+
+
 def n_frames_default() -> int:
     return int(os.environ.get("SAED_BENCH_BATCH_FRAMES", "4096"))
 
@@ -72,14 +86,10 @@ def cpu_by_kind(path, n: int = 1024) -> dict[str, tuple[int, float]]:
     """
     import time
 
-    from saed.batch.indexing import make_index_job
     from saed.batch.runner import _checked
     from saed.batch.scanindex import index_scan_frame
-    from saed.calibration import Calibration
-    from saed.crystal import builtin_phase
 
-    job = make_index_job([builtin_phase(p) for p in PHASES], Calibration(SCALE_INV_NM_PER_PX, 200.0),
-                         frame_shape=(SIZE, SIZE))
+    job = scan_job(path)
     flat = np.load(path, mmap_mode="r")
     flat = flat.reshape((-1,) + flat.shape[-2:])
     spent: dict = {}
@@ -133,16 +143,12 @@ def _run(state, workers: int, memory_at: int | None):
 
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client
-    from saed.batch.indexing import make_index_job
     from saed.batch.scanindex import index_scan_frame as index_frame
     from saed.batch.results import ResultsFile, iter_rows
-    from saed.calibration import Calibration
-    from saed.crystal import builtin_phase
 
     logging.getLogger("distributed").setLevel(logging.CRITICAL)   # after its import, which sets the level
     tmp = Path(state["tmp"].name)
-    job = make_index_job([builtin_phase(p) for p in PHASES], Calibration(SCALE_INV_NM_PER_PX, 200.0),
-                         frame_shape=(SIZE, SIZE))
+    job = scan_job(state["stack"])
     memory = {}
     with dask_client(workers=workers) as client:
         warm_csv = tmp / f"warm{workers}.csv"

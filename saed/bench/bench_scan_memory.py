@@ -77,15 +77,12 @@ def _run(path: Path, tmp: Path) -> dict:
 
     from saed.batch import discover_inputs, run_batch
     from saed.batch.cluster import dask_client
-    from saed.batch.indexing import make_index_job
     from saed.batch.results import ResultsFile, iter_rows
     from saed.batch.scanindex import index_scan_frame
-    from saed.calibration import Calibration
-    from saed.crystal import builtin_phase
+    from saed.bench.bench_batch import scan_job
 
     logging.getLogger("distributed").setLevel(logging.CRITICAL)
-    job = make_index_job([builtin_phase(p) for p in PHASES], Calibration(SCALE_INV_NM_PER_PX, 200.0),
-                         frame_shape=(SIZE, SIZE))
+    job = scan_job(path, phases=PHASES, scale_inv_nm_per_px=SCALE_INV_NM_PER_PX, size=SIZE)
     inputs = discover_inputs([str(path)])
     marks = {}
     with dask_client(workers=2) as client:

@@ -245,13 +245,19 @@ def run(args) -> int:
              f"{inputs.n_frames - n_todo} already in {out}; {n_todo} to index"
              + (f" on {where}" if n_todo else ""))
         outcome = None
+        hint = None
+        if n_todo and not args.full_search:
+            from saed.batch.scanindex import scan_centre_hint
+
+            hint = scan_centre_hint(inputs.sources[0], calibration, mask=mask)
         if n_todo:
             try:
                 with _terminate_as_interrupt(), \
                         dask_client(workers=args.workers, scheduler=args.scheduler,
                                     connect_timeout_s=args.connect_timeout) as client:
                     job = make_index_job(phases, calibration, top=args.top, max_g_inv_nm=max_g, mask=mask,
-                                         frame_shape=frame_shape, check_every=args.check_every, **matching)
+                                         frame_shape=frame_shape, check_every=args.check_every,
+                                         centre_hint_px=hint, **matching)
                     frame_fn = index_frame if args.full_search else index_scan_frame
                     with Progress(n_todo, "batch") as bar:
                         outcome = run_batch(inputs, results, frame_fn, job, client=client, progress=bar,
