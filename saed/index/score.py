@@ -41,7 +41,7 @@ import logging
 import math
 import weakref
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cached_property, lru_cache
 
 import numpy as np
 
@@ -221,10 +221,23 @@ class _Map:
     shift: np.ndarray
     scale: float
     phi_rad: float
-    aniso_pct: float
-    aniso_deg: float
     pred_px: np.ndarray  # (m, 2)
     assignment: tuple | None = None  # _assign's (j, dmin, sigma) under exactly this map, when the refinement made it
+
+    @cached_property
+    def _aniso(self) -> tuple[float, float]:
+        # worked out when first asked (a scan row never shows it: one SVD per scoring saved)
+        return _anisotropy(self.lin)
+
+    @property
+    def aniso_pct(self) -> float:
+        """Axis ratio - 1 of the map, percent."""
+        return self._aniso[0]
+
+    @property
+    def aniso_deg(self) -> float:
+        """Azimuth of the map's long axis, deg."""
+        return self._aniso[1]
 
 
 @dataclass(frozen=True, eq=False)
@@ -450,10 +463,9 @@ def _refine(cand: Candidate, zf: _ZoneFacts, spots: SpotSet, measured, *, calibr
         if done:
             break
     phi = math.atan2(lin[1, 0] - lin[0, 1], lin[0, 0] + lin[1, 1])  # rotation part of the polar decomposition
-    aniso_pct, aniso_deg = _anisotropy(lin)
     # stopped on an unchanged map: its predicted positions and the spots' assignment are the last round's
     pred_px, assignment = current if current is not None else (xy @ lin.T + shift, None)
-    return _Map(lin=lin, shift=shift, scale=scale, phi_rad=phi, aniso_pct=aniso_pct, aniso_deg=aniso_deg,
+    return _Map(lin=lin, shift=shift, scale=scale, phi_rad=phi,
                 pred_px=pred_px, assignment=assignment)
 
 
