@@ -42,6 +42,10 @@ MAX_PAIRS = 1_500_000
 SEED_MIN_RELATIVE_F = 0.02
 
 
+#: The dense row lookup of a phase (:meth:`PhaseIndexTable.rows_of`) is kept up to this many entries (8 MiB).
+DENSE_LOOKUP_MAX = 2 ** 20
+
+
 def hkl_keys(hkl: np.ndarray, span: int) -> np.ndarray:
     """One int64 per hkl row for sorted lookups (indices must lie in -span..span)."""
     base = 2 * span + 1
@@ -89,9 +93,25 @@ class PhaseIndexTable:
     def n_pairs(self) -> int:
         return len(self.pair_i1)
 
+    @cached_property
+    def _row_lookup(self) -> np.ndarray | None:
+        """Row number by hkl key over the whole -span..span cube (-1: not a row), or None when the cube is large."""
+        size = (2 * self.span + 1) ** 3
+        if size > DENSE_LOOKUP_MAX or len(self.keys_sorted) == 0:
+            return None
+        table = np.full(size, -1, dtype=np.int64)
+        table[self.keys_sorted] = self.key_order
+        return table
+
     def rows_of(self, hkl) -> np.ndarray:
         """Row numbers of integer `hkl` rows (shape (..., 3)); -1 where not in the table."""
         h = np.asarray(hkl, dtype=np.int64)
+        dense = self._row_lookup
+        if dense is not None:
+            # one read of a table over the index cube instead of a sorted search (the scan's warm start
+            # asks for one candidate's 10-60 spots per frame, where the search's set-up was most of it)
+            inside = np.all(np.abs(h) <= self.span, axis=-1)
+            return np.where(inside, dense[hkl_keys(np.clip(h, -self.span, self.span), self.span)], -1)
         out = np.full(h.shape[:-1], -1, dtype=np.int64)
         inside = np.all(np.abs(h) <= self.span, axis=-1)
         if not np.any(inside) or len(self.keys_sorted) == 0:
