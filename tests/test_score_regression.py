@@ -101,7 +101,12 @@ def test_score_candidate_unchanged_by_vectorising(k, tables):
     _close(sol.scale_inv_nm_per_px, want["scale"], "scale")
     _close(sol.orientation_matrix, want["u"], "U")
     assert [k for k, _ in sol.terms] == [k for k, _ in want["terms"]]
-    _close([v for _, v in sol.terms], [v for _, v in want["terms"]], "terms")
+    got_terms, want_terms = dict(sol.terms), {k: v for k, v in want["terms"]}
+    if _num(want_terms["distortion_pct"]) < 1e-9:
+        # a similarity map has no long axis: the recorded azimuth was whichever direction rounding picked
+        assert got_terms["distortion_axis_deg"] == 0.0
+        want_terms["distortion_axis_deg"] = 0.0
+    _close(list(got_terms.values()), list(want_terms.values()), "terms")
     for name in ("mean_d_error_pct", "mean_angle_error_deg"):
         _close(getattr(sol, name), want[name], name)
     _close(sol.implied_camera_length_mm, want["camera_length_mm"], "camera length")

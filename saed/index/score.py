@@ -146,6 +146,8 @@ DISTORTION_MIN_SPOTS = 4
 SHIFT_MIN_SPOTS = 3
 #: Normal matrices worse conditioned than this (spots nearly on one row) keep the similarity.
 DISTORTION_MAX_CONDITION = 1e6
+#: A fitted map whose axis ratio is within this of 1 is a similarity (rounding only): no distortion axis.
+ISOTROPIC_RTOL = 1e-9
 
 # --- observed region (term A) ----------------------------------------------------------------------
 #: Predicted reflections count as observable between these fractions of the shortest and longest
@@ -678,11 +680,91 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
     map whose polar decomposition L = R S has the axis ratio of S clipped to
     1 + MAX_FITTED_DISTORTION: a projector ellipse of a few per cent, not the freedom to turn any
     lattice into any other.
+
+    Everything here is 2 x 2, so it is written in closed form (weighted centroids for the
+    similarity, the 2 x 2 inverse, the polar decomposition by the rotation angle and the
+    eigen-decomposition of a symmetric 2 x 2): numpy's least squares and SVD cost ten times as much on
+    a pattern's 5-60 spots, twice per scoring. tests/test_fit_linear.py holds it to numpy's
+    ``lstsq`` and ``svd`` on random inputs.
     """
+    n = len(p)
+    use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
+    # every sum the fit needs, from two products: the weighted first and second moments of (px, py, vx, vy)
+    z = np.empty((n, 5))
+    z[:, :2], z[:, 2:4], z[:, 4] = p, v, 1.0
+    (xx, xy_, xvx, xvy, spx), (_, yy, yvx, yvy, spy), (_, _, _, _, svx), (_, _, _, _, svy), (_, _, _, _, w_sum) = \
+        ((z * w[:, None]).T @ z).tolist()
+    sim = _similarity(xx, xy_, yy, xvx, xvy, yvx, yvy, spx, spy, svx, svy, w_sum, shift=use_shift)
+    if sim is None:
+        return _fit_linear_lstsq(p, v, w, distortion=distortion, t_max_px=t_max_px)
+    a, b, tx, ty = sim
+    t_norm = math.hypot(tx, ty)
+    if t_norm > t_max_px:
+        tx, ty = tx * (t_max_px / t_norm), ty * (t_max_px / t_norm)
+        # the similarity again without a shift, on v - t: sum w p.(v - t) = sum w p.v - t . sum w p
+        a, b, _, _ = _similarity(xx, xy_, yy, xvx - tx * spx, xvy - ty * spx, yvx - tx * spy, yvy - ty * spy,
+                                 spx, spy, svx, svy, w_sum, shift=False)
+    t = np.array([tx, ty])
+    sim_m = np.array([[a, -b], [b, a]])
+    if not distortion or n < DISTORTION_MIN_SPOTS:
+        return sim_m, t
+    m00, m01, m11 = xx, xy_, yy
+    if _condition_2x2(np.array([[m00, m01], [m01, m11]])) > DISTORTION_MAX_CONDITION:
+        return sim_m, t
+    # lin = (Q^T W P) (P^T W P)^-1 with q = v - t, the 2 x 2 inverse written out
+    c00, c01, c10, c11 = xvx - tx * spx, yvx - tx * spy, xvy - ty * spx, yvy - ty * spy
+    det_m = m00 * m11 - m01 * m01
+    i00, i01, i11 = m11 / det_m, -m01 / det_m, m00 / det_m
+    l00, l01 = c00 * i00 + c01 * i01, c00 * i01 + c01 * i11
+    l10, l11 = c10 * i00 + c11 * i01, c10 * i01 + c11 * i11
+    if l00 * l11 - l01 * l10 <= 0:
+        return sim_m, t
+    # polar decomposition L = R S (det L > 0): R turns by the angle of (l00 + l11, l10 - l01), S = R^T L
+    th = math.atan2(l10 - l01, l00 + l11)
+    c, s_ = math.cos(th), math.sin(th)
+    s00, s01, s11 = c * l00 + s_ * l10, c * l01 + s_ * l11, -s_ * l01 + c * l11
+    # eigenvalues of the symmetric S, clipped to the allowed axis ratio about their geometric mean
+    half_tr, root = 0.5 * (s00 + s11), math.hypot(0.5 * (s00 - s11), s01)
+    e_hi, e_lo = half_tr + root, half_tr - root
+    lim = math.sqrt(1.0 + MAX_FITTED_DISTORTION)
+    if e_lo > 0 and e_hi <= lim * lim * e_lo:
+        return np.array([[l00, l01], [l10, l11]]), t           # within the bound: the fitted map itself
+    mean = math.sqrt(e_hi * e_lo) if e_lo > 0 else 0.0
+    hi, lo = min(max(e_hi, mean / lim), mean * lim), min(max(e_lo, mean / lim), mean * lim)
+    ang = 0.5 * math.atan2(2.0 * s01, s00 - s11)                # the eigenvector of e_hi
+    ca, sa = math.cos(ang), math.sin(ang)
+    t00, t01, t11 = lo + (hi - lo) * ca * ca, (hi - lo) * ca * sa, lo + (hi - lo) * sa * sa
+    return np.array([[c * t00 - s_ * t01, c * t01 - s_ * t11], [s_ * t00 + c * t01, s_ * t01 + c * t11]]), t
+
+
+def _similarity(xx, xy, yy, xvx, xvy, yvx, yvy, spx, spy, svx, svy, w_sum: float, *, shift: bool):
+    """(a, b, tx, ty) of the weighted least-squares similarity v ~ [[a, -b], [b, a]] p + t from the weighted
+    sums (xx = sum w px px, xvy = sum w px vy, spx = sum w px, ...); t is zero without `shift`. None when the
+    points lie too close together for it to be determined (numpy's lstsq decides then)."""
+    if shift:
+        if not w_sum > 0:
+            return None
+        mpx, mpy, mvx, mvy = spx / w_sum, spy / w_sum, svx / w_sum, svy / w_sum
+        # moments about the weighted centroids
+        pp = (xx - spx * mpx) + (yy - spy * mpy)
+        dot = (xvx - spx * mvx) + (yvy - spy * mvy)
+        crs = (xvy - spx * mvy) - (yvx - spy * mvx)
+    else:
+        pp, dot, crs = xx + yy, xvx + yvy, xvy - yvx
+    if not pp > 1e-9 * (xx + yy):
+        return None
+    a, b = dot / pp, crs / pp
+    if not shift:
+        return a, b, 0.0, 0.0
+    return a, b, mvx - (a * mpx - b * mpy), mvy - (b * mpx + a * mpy)
+
+
+def _fit_linear_lstsq(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool,
+                      t_max_px: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_fit_linear` by numpy's least squares, for spots too close together for the closed form
+    (lstsq's minimum-norm answer where the similarity is not determined)."""
     sw = np.sqrt(w)
     n = len(p)
-    # similarity with shift: rows [a -b tx ; b a ty], each weighted by sqrt(w) (built weighted: the
-    # same products as weighting an unweighted design, one array fewer)
     use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0
     rows = np.zeros((2 * n, 4 if use_shift else 2))
     np.multiply(p[:, 0], sw, out=rows[:n, 0])
@@ -702,24 +784,7 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
         t = t * (t_max_px / t_norm)
         sol, *_ = np.linalg.lstsq(rows[:, :2], (rhs - np.repeat(t, n)) * ww, rcond=None)
         a, b = sol
-    sim = np.array([[a, -b], [b, a]])
-    if not distortion or n < DISTORTION_MIN_SPOTS:
-        return sim, t
-    q = v - t
-    m = (p * w[:, None]).T @ p
-    if _condition_2x2(m) > DISTORTION_MAX_CONDITION:
-        return sim, t
-    lin = ((q * w[:, None]).T @ p) @ np.linalg.inv(m)
-    if np.linalg.det(lin) <= 0:
-        return sim, t
-    uu, sv, vt = np.linalg.svd(lin)
-    rot = uu @ vt
-    s_mat = vt.T @ np.diag(sv) @ vt
-    ev, qv = np.linalg.eigh(s_mat)
-    mean = math.sqrt(ev[0] * ev[1])
-    lim = math.sqrt(1.0 + MAX_FITTED_DISTORTION)
-    ev = np.clip(ev / mean, 1.0 / lim, lim) * mean
-    return rot @ (qv @ np.diag(ev) @ qv.T), t
+    return np.array([[a, -b], [b, a]]), t
 
 
 def _condition_2x2(m: np.ndarray) -> float:
@@ -734,8 +799,14 @@ def _condition_2x2(m: np.ndarray) -> float:
 
 
 def _anisotropy(lin: np.ndarray) -> tuple[float, float]:
-    """Axis ratio - 1 (percent) of the fitted map and the azimuth of its long axis (deg)."""
+    """Axis ratio - 1 (percent) of the fitted map and the azimuth of its long axis (deg).
+
+    A map with no anisotropy beyond rounding (axis ratio within 1e-9 of 1: a similarity) has no long
+    axis: (0, 0), not the direction rounding happens to pick.
+    """
     uu, sv, vt = np.linalg.svd(lin)
+    if not sv[0] - sv[1] > ISOTROPIC_RTOL * sv[0]:
+        return 0.0, 0.0
     major = uu[:, 0]
     return float(percent_off(sv[0], sv[1])), float(math.degrees(math.atan2(major[1], major[0])) % 180.0)
 
