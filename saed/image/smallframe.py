@@ -24,6 +24,7 @@ that it cannot see the direct beam near the hint.
 from __future__ import annotations
 
 import math
+import threading
 from functools import lru_cache
 
 import numpy as np
@@ -57,7 +58,7 @@ class _Geometry:
         self.key = (shape, int(round(centre_px[0])), int(round(centre_px[1])))
         y, x = np.ogrid[:rows, :cols]
         r = np.hypot(x - self.key[1], y - self.key[2])
-        self.r_bin = r.astype(np.intp)   # (rows, cols)
+        self.r_bin = r.astype(np.int32)   # (rows, cols)
         self.n_bins = int(self.r_bin.max()) + 1
         # the background statistics use every second pixel in each direction (a quarter of the work)
         self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32)
@@ -65,6 +66,7 @@ class _Geometry:
 
 _GEOMETRY_CACHE: dict = {}
 _NO_MASK = np.zeros((0, 0), bool)
+_SCRATCH = threading.local()
 
 
 def _kernels():
@@ -73,6 +75,19 @@ def _kernels():
     from saed.image import smallframe_kernels
 
     return smallframe_kernels
+
+
+def _scratch(shape, radius_px: int):
+    """This thread's frame-sized work arrays, kept from frame to frame (a scan's frames all have one shape):
+    the residual (float32) inside `radius_px` rows of zeros above and below (the smoothing's input), and
+    the smoothed frame (float32). Returns ``(resid, padded, smoothed)``; `resid` is a view into `padded`."""
+    key = (tuple(shape), radius_px)
+    if getattr(_SCRATCH, "key", None) != key:
+        rows, cols = shape
+        padded = np.zeros((rows + 2 * radius_px, cols), np.float32)
+        _SCRATCH.key = key
+        _SCRATCH.arrays = (padded[radius_px:radius_px + rows], padded, np.empty((rows, cols), np.float32))
+    return _SCRATCH.arrays
 
 
 def _median(v: np.ndarray) -> float:
@@ -85,11 +100,17 @@ def _median(v: np.ndarray) -> float:
 @lru_cache(maxsize=8)
 def _gaussian_weights(sigma_px: float, truncate: float) -> np.ndarray:
     """The weights ``scipy.ndimage.gaussian_filter`` correlates each axis with (taken from it: its response to
-    a unit impulse, exact), so that the two passes can be run by ``correlate1d`` without rebuilding them."""
+    a unit impulse, exact), for :func:`~saed.image.smallframe_kernels.gaussian_smooth_padded`.
+
+    That kernel, like scipy's ``correlate1d`` for a kernel symmetric to within float64 epsilon, uses the
+    left half of the weights for both sides (a Gaussian's weights are symmetric; checked here)."""
     radius = int(truncate * float(sigma_px) + 0.5)          # gaussian_filter1d's radius
     impulse = np.zeros(2 * radius + 1)
     impulse[radius] = 1.0
-    return np.ascontiguousarray(ndi.gaussian_filter1d(impulse, sigma_px, mode="constant", truncate=truncate)[::-1])
+    w = np.ascontiguousarray(ndi.gaussian_filter1d(impulse, sigma_px, mode="constant", truncate=truncate)[::-1])
+    if np.any(np.abs(w - w[::-1]) > np.finfo(np.float64).eps):
+        raise ValueError(f"Gaussian weights of sigma {sigma_px} px are not symmetric")
+    return w
 
 
 def _geometry(shape, centre_px) -> _Geometry:
@@ -176,8 +197,10 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     mask_b = np.asarray(mask, bool) if use_mask else _NO_MASK
     valid_sub = ~mask_b[::2, ::2] if use_mask else _NO_MASK
     mean_k, var_k, n_k = k.background_by_radius(img, geo.r_sub, geo.n_bins, valid_sub, use_mask)
-    resid = k.residual(img, mean_k, geo.r_bin, mask_b, use_mask)
-    sm = k.gaussian_smooth(resid, _gaussian_weights(float(smooth_sigma_px), 3.0))
+    w = _gaussian_weights(float(smooth_sigma_px), 3.0)
+    resid, padded, sm = _scratch(img.shape, len(w) // 2)
+    k.residual(img, mean_k, geo.r_bin, mask_b, use_mask, resid)
+    k.gaussian_smooth_padded(padded, w, sm)
     # noise per radius (shot noise grows toward the centre); over 3 neighbouring radii for a steadier estimate,
     # and never below half the median over radii: white noise of sigma s smoothed by a Gaussian of width w
     # has sigma s / (2 sqrt(pi) w)
@@ -185,8 +208,8 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     sd_r, noise_sm_r, thr_r = k.noise_by_radius(var_k, n_k, smooth_gain, float(detect_snr))
     cx, cy = db
     centre = (float(cx), float(cy))
-    n_cand, flat, logs_in = k.local_maxima(sm, thr_r, geo.r_bin, float(cx), float(cy), float(direct_beam_radius_px))
-    if n_cand == 0:
+    any_cand, flat, logs_in = k.local_maxima(sm, thr_r, geo.r_bin, float(cx), float(cy), float(direct_beam_radius_px))
+    if not any_cand:
         return MeasuredPattern((rows, cols), centre, _NO_SPOTS, None, calibration, center_sigma_px=0.3, source=source,
                                notes=("centre from the direct beam near the previous frame's", "no spots above the noise"))
     if len(flat):

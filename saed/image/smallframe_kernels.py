@@ -37,45 +37,53 @@ _F32_TINY = np.float32(1e-6)   # the floor of the smoothed frame before its loga
 
 
 @numba.njit(cache=True)
-def background_by_radius(img, r_sub, n_bins, valid_sub, use_mask):
-    """Mean and variance of the frame at each integer radius, after one pass leaving out pixels 3 sigma above it.
+def _sums_by_radius(img, r_sub, valid_sub, use_mask, limit):
+    """Number, sum and sum of squares by radius of the subsampled pixels at most `limit` of their radius.
 
-    Parameters: `img` (rows, cols) frame; `r_sub` (ceil(rows/2), ceil(cols/2)) int32, the integer radius of
-    every second pixel in each direction (the pixels used); `n_bins` the number of radii of the whole frame
-    (more than `r_sub` reaches); `valid_sub` bool like `r_sub` (False: masked), read only when `use_mask`. Returns ``(mean_k, var_k, n_k)`` float64 arrays by radius: mean and variance of
-    the kept pixels and their number; radii with no kept pixel take those of the next radius that has some.
+    Each radius's sums are added in pixel order, as ``numpy.bincount`` adds them (kept in registers while
+    the radius stays the same along a row, the same additions in the same order).
     """
-    n = np.zeros(n_bins)
-    s1 = np.zeros(n_bins)
-    s2 = np.zeros(n_bins)
+    n_bins = len(limit)
+    n, s1, s2 = np.zeros(n_bins), np.zeros(n_bins), np.zeros(n_bins)
     for i in range(r_sub.shape[0]):
+        b_now, a0, a1, a2 = -1, 0.0, 0.0, 0.0
         for j in range(r_sub.shape[1]):
             if use_mask and not valid_sub[i, j]:
                 continue
             v = np.float64(img[2 * i, 2 * j])
             b = r_sub[i, j]
-            n[b] += 1.0
-            s1[b] += v
-            s2[b] += v * v
+            if not v <= limit[b]:
+                continue
+            if b != b_now:
+                if b_now >= 0:
+                    n[b_now], s1[b_now], s2[b_now] = a0, a1, a2
+                b_now, a0, a1, a2 = b, n[b], s1[b], s2[b]
+            a0 += 1.0
+            a1 += v
+            a2 += v * v
+        if b_now >= 0:
+            n[b_now], s1[b_now], s2[b_now] = a0, a1, a2
+    return n, s1, s2
+
+
+@numba.njit(cache=True)
+def background_by_radius(img, r_sub, n_bins, valid_sub, use_mask):
+    """Mean and variance of the frame at each integer radius, after one pass leaving out pixels 3 sigma above it.
+
+    Parameters: `img` (rows, cols) frame; `r_sub` (ceil(rows/2), ceil(cols/2)) int32, the integer radius of
+    every second pixel in each direction (the pixels used); `n_bins` the number of radii of the whole frame
+    (more than `r_sub` reaches); `valid_sub` bool like `r_sub` (False: masked), read only when `use_mask`.
+    Returns ``(mean_k, var_k, n_k)`` float64 arrays by radius: mean and variance of
+    the kept pixels and their number; radii with no kept pixel take those of the next radius that has some.
+    """
+    n, s1, s2 = _sums_by_radius(img, r_sub, valid_sub, use_mask, np.full(n_bins, np.inf))
     limit = np.empty(n_bins)
     mean = np.empty(n_bins)
     for b in range(n_bins):
         nb = max(n[b], 1.0)
         mean[b] = s1[b] / nb
         limit[b] = mean[b] + 3.0 * math.sqrt(max(s2[b] / nb - mean[b] * mean[b], 0.0))
-    n_k = np.zeros(n_bins)
-    s1_k = np.zeros(n_bins)
-    s2_k = np.zeros(n_bins)
-    for i in range(r_sub.shape[0]):
-        for j in range(r_sub.shape[1]):
-            if use_mask and not valid_sub[i, j]:
-                continue
-            v = np.float64(img[2 * i, 2 * j])
-            b = r_sub[i, j]
-            if v <= limit[b]:
-                n_k[b] += 1.0
-                s1_k[b] += v
-                s2_k[b] += v * v
+    n_k, s1_k, s2_k = _sums_by_radius(img, r_sub, valid_sub, use_mask, limit)
     mean_k = np.empty(n_bins)
     var_k = np.empty(n_bins)
     n_holes = 0
@@ -102,52 +110,68 @@ def background_by_radius(img, r_sub, n_bins, valid_sub, use_mask):
 
 
 @numba.njit(cache=True)
-def residual(img, mean_k, r_bin, mask, use_mask):
-    """float32 frame less the float32 background of each pixel's radius `r_bin`; 0 where `mask` (if `use_mask`)."""
+def residual(img, mean_k, r_bin, mask, use_mask, resid):
+    """Into `resid` (rows, cols) float32: the frame as float32 less the float32 background of each pixel's
+    radius `r_bin`; 0 where `mask` (if `use_mask`)."""
     rows, cols = img.shape
     bg = mean_k.astype(np.float32)
-    out = np.empty((rows, cols), np.float32)
-    for i in range(rows):
+    for i in range(rows):              # whole rows as 1-D arrays: numba vectorises these loops, not 2-D indexing
+        src, rb, out = img[i], r_bin[i], resid[i]
         for j in range(cols):
-            out[i, j] = np.float32(img[i, j]) - bg[r_bin[i, j]]
-            if use_mask and mask[i, j]:
-                out[i, j] = np.float32(0.0)
-    return out
+            out[j] = np.float32(src[j]) - bg[rb[j]]
+        if use_mask:
+            m = mask[i]
+            for j in range(cols):
+                if m[j]:
+                    out[j] = np.float32(0.0)
+
+
+@numba.njit(cache=True)
+def gaussian_smooth_padded(padded, w, out):
+    """Correlate a float32 frame with the symmetric odd kernel `w` (radius r) along axis 0, then axis 1.
+
+    `padded` (rows + 2 r, cols) float32: the frame with r rows of zeros above and below; `out` (rows, cols)
+    float32, the result. Bit for bit ``scipy.ndimage.gaussian_filter(frame, sigma, mode="constant",
+    truncate=...)`` when `w` is that filter's kernel: each output a float64 sum in scipy's order (the centre
+    first, then the pairs from the outermost in), stored as float32 after each pass. Row by row: a row of
+    the first pass is made (in float64, stored as float32 between r zeros each side) and at once smoothed
+    along itself; the loops run along rows, which numba vectorises.
+    """
+    rows, cols = out.shape
+    r = len(w) // 2
+    acc = np.empty(cols)
+    line = np.zeros(cols + 2 * r, np.float32)
+    mid = line[r:r + cols]
+    for i in range(rows):
+        centre = padded[r + i]                             # axis 0: row i of the frame is padded row r + i
+        for k in range(cols):
+            acc[k] = np.float64(centre[k]) * w[r]
+        for j in range(r, 0, -1):
+            up, down, wj = padded[r + i - j], padded[r + i + j], w[r - j]
+            for k in range(cols):
+                acc[k] += (np.float64(up[k]) + np.float64(down[k])) * wj
+        for k in range(cols):
+            mid[k] = np.float32(acc[k])
+        for k in range(cols):                              # axis 1, along the row just made
+            acc[k] = np.float64(mid[k]) * w[r]
+        for j in range(r, 0, -1):
+            left, right, wj = line[r - j:r - j + cols], line[r + j:r + j + cols], w[r - j]
+            for k in range(cols):
+                acc[k] += (np.float64(left[k]) + np.float64(right[k])) * wj
+        row_out = out[i]
+        for k in range(cols):
+            row_out[k] = np.float32(acc[k])
 
 
 @numba.njit(cache=True)
 def gaussian_smooth(x, w):
-    """Correlate float32 `x` with the symmetric odd kernel `w` along axis 0, then axis 1 (zeros outside).
-
-    Bit for bit ``scipy.ndimage.gaussian_filter(x, sigma, mode="constant", truncate=...)`` when `w` is that
-    filter's kernel: float64 sums in scipy's order, stored as float32 after each pass.
-    """
+    """:func:`gaussian_smooth_padded` of a float32 frame `x`, allocating its buffers (for tests and one-offs)."""
     rows, cols = x.shape
     r = len(w) // 2
-    tmp = np.empty((rows, cols), np.float32)
-    acc = np.empty(cols)
-    for i in range(rows):                               # axis 0, a row of outputs at a time
-        for k in range(cols):
-            acc[k] = np.float64(x[i, k]) * w[r]
-        for j in range(r, 0, -1):
-            up, down = i - j, i + j
-            for k in range(cols):
-                a = np.float64(x[up, k]) if up >= 0 else 0.0
-                b = np.float64(x[down, k]) if down < rows else 0.0
-                acc[k] += (a + b) * w[r - j]
-        for k in range(cols):
-            tmp[i, k] = np.float32(acc[k])
+    padded = np.zeros((rows + 2 * r, cols), np.float32)
+    padded[r:r + rows] = x
     out = np.empty((rows, cols), np.float32)
-    line = np.zeros(cols + 2 * r)                      # one row in float64 with r zeros each side
-    for i in range(rows):                               # axis 1
-        for k in range(cols):
-            line[r + k] = tmp[i, k]
-        for k in range(cols):
-            c = r + k
-            s = line[c] * w[r]
-            for j in range(r, 0, -1):
-                s += (line[c - j] + line[c + j]) * w[r - j]
-            out[i, k] = np.float32(s)
+    gaussian_smooth_padded(padded, w, out)
     return out
 
 
@@ -209,43 +233,62 @@ def noise_by_radius(var_k, n_k, smooth_gain, detect_snr):
 
 
 @numba.njit(cache=True)
+def _is_peak(sm, i, j):
+    """Whether no pixel of the 5 x 5 window about (i, j) is above it, nor equal to it and before it in raster
+    order (a flat top goes to its first pixel). The 3 x 3 neighbours first: most candidates are the flanks of
+    a spot and fail there."""
+    v = sm[i, j]
+    for half in (1, _WIN):
+        for di in range(-half, half + 1):
+            for dj in range(-half, half + 1):
+                if half > 1 and abs(di) < half and abs(dj) < half:
+                    continue                                   # seen in the 3 x 3 pass
+                u = sm[i + di, j + dj]
+                if u > v or (u == v and (di < 0 or (di == 0 and dj < 0))):
+                    return False
+    return True
+
+
+@numba.njit(cache=True)
 def local_maxima(sm, thr_r, r_bin, cx_px, cy_px, direct_beam_radius_px):
     """Pixels of the smoothed frame `sm` above the threshold of their radius that are spot peaks.
 
-    A candidate lies at least 2 px inside the frame and farther than `direct_beam_radius_px` from the centre
-    (`cx_px`, `cy_px`); a peak is a candidate not below any pixel of its 5 x 5 window and not equal to one
-    before it in raster order (a flat top goes to its first pixel). Returns ``(n_candidates, flat, logs_in)``:
-    flat indices of the peaks in raster order, and the (5, n) float32 values whose logarithms the sub-pixel
-    parabola needs: the peak, left, right, upper and lower neighbours, each at least 1e-6.
+    A candidate lies at least 2 px inside the frame, above ``thr_r`` of its radius `r_bin` and farther than
+    `direct_beam_radius_px` from the centre (`cx_px`, `cy_px`); a peak is a candidate that passes
+    :func:`_is_peak`. Returns ``(any_candidate, flat, logs_in)``: flat indices of the peaks in raster order,
+    and the (5, n) float32 values whose logarithms the sub-pixel parabola needs: the peak, its left, right,
+    upper and lower neighbours, each at least 1e-6.
     """
     rows, cols = sm.shape
-    n_cand = 0
+    thr_min = thr_r.min()
+    # each row is first compared with the lowest threshold (a vectorised loop writing one byte per pixel),
+    # then looked at 8 pixels at a time as 64-bit words: a word of zeros has no candidate
+    above = np.zeros(8 * ((cols + 7) // 8), np.uint8)
+    words = above.view(np.uint64)
+    any_cand = False
     found = np.empty(64, np.int64)
     n_found = 0
     for i in range(_WIN, rows - _WIN):
-        for j in range(_WIN, cols - _WIN):
-            v = sm[i, j]
-            if not v > thr_r[r_bin[i, j]]:
+        row, rb = sm[i], r_bin[i]
+        for j in range(cols):
+            above[j] = row[j] > thr_min
+        for q in range(len(words)):
+            if words[q] == 0:
                 continue
-            if not math.hypot(j - cx_px, i - cy_px) > direct_beam_radius_px:
-                continue
-            n_cand += 1
-            peak = True
-            for di in range(-_WIN, _WIN + 1):
-                for dj in range(-_WIN, _WIN + 1):
-                    u = sm[i + di, j + dj]
-                    if u > v or (u == v and (di < 0 or (di == 0 and dj < 0))):
-                        peak = False
-                        break
-                if not peak:
-                    break
-            if peak:
-                if n_found == len(found):
-                    grown = np.empty(2 * len(found), np.int64)
-                    grown[:n_found] = found
-                    found = grown
-                found[n_found] = i * cols + j
-                n_found += 1
+            for j in range(max(8 * q, _WIN), min(8 * q + 8, cols - _WIN)):
+                if not (above[j] and row[j] > thr_r[rb[j]]):
+                    continue
+                peak = _is_peak(sm, i, j)
+                # the distance to the centre only for peaks, and for the others until one candidate is known
+                if (peak or not any_cand) and math.hypot(j - cx_px, i - cy_px) > direct_beam_radius_px:
+                    any_cand = True
+                    if peak:
+                        if n_found == len(found):
+                            grown = np.empty(2 * len(found), np.int64)
+                            grown[:n_found] = found
+                            found = grown
+                        found[n_found] = i * cols + j
+                        n_found += 1
     flat = found[:n_found].copy()
     logs_in = np.empty((5, n_found), np.float32)
     for m in range(n_found):
@@ -255,7 +298,7 @@ def local_maxima(sm, thr_r, r_bin, cx_px, cy_px, direct_beam_radius_px):
         logs_in[2, m] = max(sm[i, j + 1], _F32_TINY)
         logs_in[3, m] = max(sm[i - 1, j], _F32_TINY)
         logs_in[4, m] = max(sm[i + 1, j], _F32_TINY)
-    return n_cand, flat, logs_in
+    return any_cand, flat, logs_in
 
 
 @numba.njit(cache=True)
