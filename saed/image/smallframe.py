@@ -62,6 +62,7 @@ class _Geometry:
         self.n_bins = int(self.r_bin.max()) + 1
         # the background statistics use every second pixel in each direction (a quarter of the work)
         self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32)
+        self.all_sub = np.ones(self.r_sub.shape, bool)   # every subsampled pixel used (no mask)
 
 
 _GEOMETRY_CACHE: dict = {}
@@ -195,8 +196,8 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     geo = _geometry(img.shape, db)
     use_mask = mask is not None
     mask_b = np.asarray(mask, bool) if use_mask else _NO_MASK
-    valid_sub = ~mask_b[::2, ::2] if use_mask else _NO_MASK
-    mean_k, var_k, n_k = k.background_by_radius(img, geo.r_sub, geo.n_bins, valid_sub, use_mask)
+    valid_sub = ~mask_b[::2, ::2] if use_mask else geo.all_sub
+    mean_k, var_k, n_k = k.background_by_radius(img, geo.r_sub, geo.n_bins, valid_sub)
     w = _gaussian_weights(float(smooth_sigma_px), 3.0)
     resid, padded, sm = _scratch(img.shape, len(w) // 2)
     k.residual(img, mean_k, geo.r_bin, mask_b, use_mask, resid)

@@ -37,7 +37,7 @@ _F32_TINY = np.float32(1e-6)   # the floor of the smoothed frame before its loga
 
 
 @numba.njit(cache=True)
-def _sums_by_radius(img, r_sub, valid_sub, use_mask, limit):
+def _sums_by_radius(img, r_sub, valid_sub, limit):
     """Number, sum and sum of squares by radius of the subsampled pixels at most `limit` of their radius.
 
     Each radius's sums are added in pixel order, as ``numpy.bincount`` adds them (kept in registers while
@@ -46,12 +46,13 @@ def _sums_by_radius(img, r_sub, valid_sub, use_mask, limit):
     n_bins = len(limit)
     n, s1, s2 = np.zeros(n_bins), np.zeros(n_bins), np.zeros(n_bins)
     for i in range(r_sub.shape[0]):
+        row, rb, ok = img[2 * i], r_sub[i], valid_sub[i]
         b_now, a0, a1, a2 = -1, 0.0, 0.0, 0.0
-        for j in range(r_sub.shape[1]):
-            if use_mask and not valid_sub[i, j]:
+        for j in range(len(rb)):
+            if not ok[j]:
                 continue
-            v = np.float64(img[2 * i, 2 * j])
-            b = r_sub[i, j]
+            v = np.float64(row[2 * j])
+            b = rb[j]
             if not v <= limit[b]:
                 continue
             if b != b_now:
@@ -67,23 +68,23 @@ def _sums_by_radius(img, r_sub, valid_sub, use_mask, limit):
 
 
 @numba.njit(cache=True)
-def background_by_radius(img, r_sub, n_bins, valid_sub, use_mask):
+def background_by_radius(img, r_sub, n_bins, valid_sub):
     """Mean and variance of the frame at each integer radius, after one pass leaving out pixels 3 sigma above it.
 
     Parameters: `img` (rows, cols) frame; `r_sub` (ceil(rows/2), ceil(cols/2)) int32, the integer radius of
     every second pixel in each direction (the pixels used); `n_bins` the number of radii of the whole frame
-    (more than `r_sub` reaches); `valid_sub` bool like `r_sub` (False: masked), read only when `use_mask`.
+    (more than `r_sub` reaches); `valid_sub` bool like `r_sub` (False: masked).
     Returns ``(mean_k, var_k, n_k)`` float64 arrays by radius: mean and variance of
     the kept pixels and their number; radii with no kept pixel take those of the next radius that has some.
     """
-    n, s1, s2 = _sums_by_radius(img, r_sub, valid_sub, use_mask, np.full(n_bins, np.inf))
+    n, s1, s2 = _sums_by_radius(img, r_sub, valid_sub, np.full(n_bins, np.inf))
     limit = np.empty(n_bins)
     mean = np.empty(n_bins)
     for b in range(n_bins):
         nb = max(n[b], 1.0)
         mean[b] = s1[b] / nb
         limit[b] = mean[b] + 3.0 * math.sqrt(max(s2[b] / nb - mean[b] * mean[b], 0.0))
-    n_k, s1_k, s2_k = _sums_by_radius(img, r_sub, valid_sub, use_mask, limit)
+    n_k, s1_k, s2_k = _sums_by_radius(img, r_sub, valid_sub, limit)
     mean_k = np.empty(n_bins)
     var_k = np.empty(n_bins)
     n_holes = 0
@@ -115,10 +116,13 @@ def residual(img, mean_k, r_bin, mask, use_mask, resid):
     radius `r_bin`; 0 where `mask` (if `use_mask`)."""
     rows, cols = img.shape
     bg = mean_k.astype(np.float32)
+    bg_row = np.empty(cols, np.float32)
     for i in range(rows):              # whole rows as 1-D arrays: numba vectorises these loops, not 2-D indexing
         src, rb, out = img[i], r_bin[i], resid[i]
         for j in range(cols):
-            out[j] = np.float32(src[j]) - bg[rb[j]]
+            bg_row[j] = bg[rb[j]]      # the look-up apart: the subtraction below is then vectorised
+        for j in range(cols):
+            out[j] = np.float32(src[j]) - bg_row[j]
         if use_mask:
             m = mask[i]
             for j in range(cols):
