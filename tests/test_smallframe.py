@@ -53,6 +53,14 @@ def test_running_mean_of_three_is_scipys_uniform_filter1d(v):
     assert np.array_equal(kern.running_mean3_nearest(v), ndi.uniform_filter1d(v, 3, mode="nearest"))
 
 
+@settings(max_examples=100, deadline=None)
+@given(hnp.arrays(np.float64, st.integers(0, 400), elements=st.floats(-1e9, 1e9)))
+def test_shell_sort_sorts_as_numpy_does(v):
+    got = v.copy()
+    kern.shell_sort(got)
+    assert np.array_equal(got, np.sort(v))
+
+
 def _background_reference(img, centre_xy, mask=None):
     """Mean and variance by integer radius of every second pixel, after leaving out those 3 sigma above
     the mean of their radius (and masked ones); radii with no pixel left take the next radius that has one."""
