@@ -18,6 +18,7 @@ import pytest
 from scipy import ndimage as ndi
 
 from saed.calibration import Calibration
+from saed.errors import ImageError
 from saed.image.smallframe import measure_small_frame
 from saed.image.values import MeasuredPattern, Spots
 

@@ -6,7 +6,7 @@ same to the last bit (the stage's spots and centre, and so the scan's rows, do n
 
 * :func:`background_by_radius` -- the sums of ``numpy.bincount`` are sequential in pixel order: so are these;
 * :func:`residual` -- float32 frame less the float32 background of each pixel's radius;
-* :func:`gaussian_smooth` -- ``scipy.ndimage.gaussian_filter(x, s, mode="constant", truncate=3.0)``
+* :func:`gaussian_smooth_padded` -- ``scipy.ndimage.gaussian_filter(x, s, mode="constant", truncate=3.0)``
   on float32: scipy's ``correlate1d`` with a symmetric kernel computes, per output pixel in float64,
   ``in[0] * w[0]``, then adds ``(in[-j] + in[+j]) * w[j]`` from the outermost ``j`` in; it stores the
   result as float32 between the two passes (axis 0, then axis 1);
@@ -21,8 +21,9 @@ The logarithms of the parabola stay in numpy (its float32 ``log`` is its own vec
 library's, and differs from it in the last bit now and then). Every kernel is ``numba.njit(cache=True)``
 without ``fastmath`` (so no re-association and no fused multiply-add) and without ``parallel``.
 The module is imported by :mod:`saed.image.smallframe` on its first frame only: ``import numba`` costs
-about 0.3 s, and compiling the kernels for one frame type about 5 s the first time on a machine; later
-processes load them from numba's cache (``__pycache__`` beside this file) in a fraction of a second.
+about 0.2 s, and compiling the kernels for 16-bit frames about 7 s of CPU the first time (each further
+frame type, about 1 to 1.5 s more); later processes load them from numba's cache (``__pycache__`` beside
+this file) in about 0.3 s. Measured numbers: docs/batch.md, "Lean stage compiled with numba".
 """
 
 from __future__ import annotations
