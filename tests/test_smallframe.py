@@ -150,6 +150,12 @@ def test_nan_or_inf_frame_is_one_line_image_error(bad):
     assert str(e.value) == "scan frame 3: some pixels are NaN or infinite; replace them (e.g. by 0) or mask them"
 
 
+def test_mask_of_another_shape_is_one_line_image_error():
+    with pytest.raises(ImageError) as e:
+        measure_small_frame(_frame([]), CAL, centre_hint_px=(64.0, 65.0), mask=np.zeros((100, 128), bool), source="f")
+    assert str(e.value) == "f: the mask is 100x128 pixels, the frame 128x128"
+
+
 def test_importing_the_stage_does_not_import_numba():
     root = str(Path(saed.__file__).resolve().parent.parent)
     code = "import json, sys, saed.image.smallframe; print(json.dumps('numba' in sys.modules))"

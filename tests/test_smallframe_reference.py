@@ -331,4 +331,10 @@ def test_written_frames_same_as_numpy_stage():
     _both(np.minimum(spotty, 255).astype(np.uint8), (cx, cy))            # 8-bit, the beam clipped
     _both((spotty - 20).astype(np.int16), (cx, cy))                      # signed, some negative
     _both((spotty * 0.37).astype(np.float32), (cx, cy))
+    _both(spotty.astype(">u2"), (cx, cy))                                # big-endian 16-bit, as some files are
+    _both((spotty * 0.37).astype(">f4"), (cx, cy))
+    ro = spotty.astype(np.uint16)
+    ro.flags.writeable = False                                           # a read-only frame (a memory map)
+    _both(ro, (cx, cy))
+    _both(np.asfortranarray(spotty.astype(np.uint16)), (cx, cy))         # column-major
     assert _both(spotty.astype(np.uint16), (cx + 20, cy)) is None        # hint too far from the beam

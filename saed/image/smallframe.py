@@ -165,7 +165,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     centre_hint_px : (x, y)
         Where the direct beam was (the previous frame's centre).
     mask : (rows, cols) bool, optional
-        True where pixels are ignored (a beam stop that stays put).
+        True where pixels are ignored (a beam stop that stays put); the frame's shape.
     detect_snr, snr_min : float
         Detection threshold of the smoothed frame and the smallest peak signal-to-noise ratio kept
         (in noise sigmas; the full stage's defaults).
@@ -181,7 +181,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     Raises
     ------
     ImageError
-        NaN or infinite pixels.
+        NaN or infinite pixels; a mask of another shape than the frame.
     """
     img = np.asarray(image)
     name = source or "frame"
@@ -191,6 +191,11 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     # used as recorded, without a float32 copy of the frame (other types are converted once)
     if not (img.dtype == np.float32 or (img.dtype.kind in "ui" and img.dtype.itemsize <= 2)):
         img = img.astype(np.float32)
+    elif not img.dtype.isnative:                      # the compiled loops read native byte order only
+        img = img.astype(img.dtype.newbyteorder("="))
+    if mask is not None and np.shape(mask) != img.shape:
+        raise ImageError(f"{name}: the mask is {'x'.join(map(str, np.shape(mask)))} pixels, the frame "
+                         f"{img.shape[0]}x{img.shape[1]}")
     rows, cols = img.shape
     db = _direct_beam(img, centre_hint_px, float(img.max()))
     if db is None or math.hypot(db[0] - centre_hint_px[0], db[1] - centre_hint_px[1]) > MAX_CENTRE_SHIFT_PX:
