@@ -2,19 +2,23 @@
 
 In a scan the direct beam stays where it was on the previous frame (or moves by a pixel), the
 spots are sharp and few, and there are tens of thousands of frames. :func:`measure_small_frame`
-measures such a frame in a few milliseconds from a centre hint (the previous frame's centre,
+measures such a frame in about 0.3 ms of CPU (256 x 256) from a centre hint (the previous frame's centre,
 measured by the full stage :func:`saed.image.measure.inspect_pattern`):
 
 1. the centre: the intensity-weighted centroid of the direct beam near the hint;
 2. the background: the mean at each integer radius about the centre, after one pass that leaves
-   out pixels 3 sigma above it (spots), computed with ``numpy.bincount`` over the whole frame;
+   out pixels 3 sigma above it (spots), from every second pixel in each direction;
 3. spots: pixels of the background-subtracted, lightly smoothed frame above `detect_snr` noise
-   sigmas (the noise from the median absolute deviation) that are the maximum of their 5 x 5
+   sigmas (the noise at each radius from the background's variance there) that are the maximum of their 5 x 5
    neighbourhood, checked for the few pixels above the threshold only (no full-frame maximum filter);
 4. each spot's position from a parabola through the logarithm of the smoothed frame at its peak
    (exact for a Gaussian spot), and its intensity from its 5 x 5 window (sum above background), all
    spots at once;
 5. a frame with no pixel above the threshold (vacuum, amorphous film) stops after step 3.
+
+Steps 2 to 4 run as loops compiled by numba (:mod:`saed.image.smallframe_kernels`, imported on the first
+frame), the same float operations in the same order as the numpy and scipy calls they replaced: the same
+spots to the last bit. The direct beam's centroid and the parabola's logarithms stay in numpy.
 
 No beam-stop search, no saturated-beam analysis and no 2-D lattice fit: the frame's MeasuredPattern
 has ``basis`` None. Use the full stage for the first frame of a scan and whenever this one reports
@@ -24,6 +28,7 @@ that it cannot see the direct beam near the hint.
 from __future__ import annotations
 
 import math
+import threading
 from functools import lru_cache
 
 import numpy as np
@@ -41,16 +46,10 @@ SMALL_FRAME_MAX_PIXELS = 512 * 512
 #: How far the direct beam may move from the hint between frames before the full stage is needed, px.
 MAX_CENTRE_SHIFT_PX = 6.0
 
-_WIN = 2  # half-width of the spot window (5 x 5)
 #: A spot's 5 x 5 sum above background must reach this many of its noise sigmas.
 MIN_SUM_SNR = 4.0
 
 
-_D = np.arange(-_WIN, _WIN + 1)
-_OY, _OX = (a.ravel() for a in np.meshgrid(_D, _D, indexing="ij"))   # the 5 x 5 window's offsets, raster order
-_BEFORE = (_OY < 0) | ((_OY == 0) & (_OX < 0))                      # offsets before the centre in raster order
-_NEAR = (np.abs(_OY) <= 1) & (np.abs(_OX) <= 1) & ~((_OY == 0) & (_OX == 0))
-_OY3, _OX3 = _OY[_NEAR], _OX[_NEAR]                                 # the 8 neighbours
 _NO_SPOTS = Spots(np.zeros(0), np.zeros(0), np.zeros(0))
 
 
@@ -62,14 +61,37 @@ class _Geometry:
         self.key = (shape, int(round(centre_px[0])), int(round(centre_px[1])))
         y, x = np.ogrid[:rows, :cols]
         r = np.hypot(x - self.key[1], y - self.key[2])
-        self.r_bin = r.astype(np.intp).ravel()   # intp: np.take without a conversion
+        self.r_bin = r.astype(np.int32)   # (rows, cols)
         self.n_bins = int(self.r_bin.max()) + 1
         # the background statistics use every second pixel in each direction (a quarter of the work)
-        self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32).ravel()
-        self.count_sub = np.bincount(self.r_sub, minlength=self.n_bins).astype(np.float64)
+        self.r_sub = np.ascontiguousarray(r[::2, ::2]).astype(np.int32)
+        self.all_sub = np.ones(self.r_sub.shape, bool)   # every subsampled pixel used (no mask)
 
 
 _GEOMETRY_CACHE: dict = {}
+_NO_MASK = np.zeros((0, 0), bool)
+_SCRATCH = threading.local()
+
+
+def _kernels():
+    """The compiled loops (:mod:`saed.image.smallframe_kernels`), imported on the first frame: numba is only
+    loaded by a process that measures scan frames."""
+    from saed.image import smallframe_kernels
+
+    return smallframe_kernels
+
+
+def _scratch(shape, radius_px: int):
+    """This thread's frame-sized work arrays, kept from frame to frame (a scan's frames all have one shape):
+    the residual (float32) inside `radius_px` rows of zeros above and below (the smoothing's input), and
+    the smoothed frame (float32). Returns ``(resid, padded, smoothed)``; `resid` is a view into `padded`."""
+    key = (tuple(shape), radius_px)
+    if getattr(_SCRATCH, "key", None) != key:
+        rows, cols = shape
+        padded = np.zeros((rows + 2 * radius_px, cols), np.float32)
+        _SCRATCH.key = key
+        _SCRATCH.arrays = (padded[radius_px:radius_px + rows], padded, np.empty((rows, cols), np.float32))
+    return _SCRATCH.arrays
 
 
 def _median(v: np.ndarray) -> float:
@@ -82,21 +104,17 @@ def _median(v: np.ndarray) -> float:
 @lru_cache(maxsize=8)
 def _gaussian_weights(sigma_px: float, truncate: float) -> np.ndarray:
     """The weights ``scipy.ndimage.gaussian_filter`` correlates each axis with (taken from it: its response to
-    a unit impulse, exact), so that the two passes can be run by ``correlate1d`` without rebuilding them."""
+    a unit impulse, exact), for :func:`~saed.image.smallframe_kernels.gaussian_smooth_padded`.
+
+    That kernel, like scipy's ``correlate1d`` for a kernel symmetric to within float64 epsilon, uses the
+    left half of the weights for both sides (a Gaussian's weights are symmetric; checked here)."""
     radius = int(truncate * float(sigma_px) + 0.5)          # gaussian_filter1d's radius
     impulse = np.zeros(2 * radius + 1)
     impulse[radius] = 1.0
-    return np.ascontiguousarray(ndi.gaussian_filter1d(impulse, sigma_px, mode="constant", truncate=truncate)[::-1])
-
-
-def _smooth(resid: np.ndarray, sigma_px: float) -> np.ndarray:
-    """``ndi.gaussian_filter(resid, sigma_px, mode="constant", truncate=3.0)``, the same two passes
-    (axis 0, then axis 1 in place), without its per-call set-up (a tenth of it on a 256 x 256 frame)."""
-    w = _gaussian_weights(float(sigma_px), 3.0)
-    out = np.zeros(resid.shape, resid.dtype)
-    ndi.correlate1d(resid, w, 0, out, mode="constant", cval=0.0)
-    ndi.correlate1d(out, w, 1, out, mode="constant", cval=0.0)
-    return out
+    w = np.ascontiguousarray(ndi.gaussian_filter1d(impulse, sigma_px, mode="constant", truncate=truncate)[::-1])
+    if np.any(np.abs(w - w[::-1]) > np.finfo(np.float64).eps):
+        raise ValueError(f"Gaussian weights of sigma {sigma_px} px are not symmetric")
+    return w
 
 
 def _geometry(shape, centre_px) -> _Geometry:
@@ -147,7 +165,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     centre_hint_px : (x, y)
         Where the direct beam was (the previous frame's centre).
     mask : (rows, cols) bool, optional
-        True where pixels are ignored (a beam stop that stays put).
+        True where pixels are ignored (a beam stop that stays put); the frame's shape.
     detect_snr, snr_min : float
         Detection threshold of the smoothed frame and the smallest peak signal-to-noise ratio kept
         (in noise sigmas; the full stage's defaults).
@@ -163,7 +181,7 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     Raises
     ------
     ImageError
-        NaN or infinite pixels.
+        NaN or infinite pixels; a mask of another shape than the frame.
     """
     img = np.asarray(image)
     name = source or "frame"
@@ -173,130 +191,42 @@ def measure_small_frame(image: np.ndarray, calibration: Calibration, *, centre_h
     # used as recorded, without a float32 copy of the frame (other types are converted once)
     if not (img.dtype == np.float32 or (img.dtype.kind in "ui" and img.dtype.itemsize <= 2)):
         img = img.astype(np.float32)
+    elif not img.dtype.isnative:                      # the compiled loops read native byte order only
+        img = img.astype(img.dtype.newbyteorder("="))
+    if mask is not None and np.shape(mask) != img.shape:
+        raise ImageError(f"{name}: the mask is {'x'.join(map(str, np.shape(mask)))} pixels, the frame "
+                         f"{img.shape[0]}x{img.shape[1]}")
     rows, cols = img.shape
     db = _direct_beam(img, centre_hint_px, float(img.max()))
     if db is None or math.hypot(db[0] - centre_hint_px[0], db[1] - centre_hint_px[1]) > MAX_CENTRE_SHIFT_PX:
         return None
+    k = _kernels()
     geo = _geometry(img.shape, db)
-    sub = img[::2, ::2].astype(np.float64).ravel()
-    rb = geo.r_sub
-    valid = None if mask is None else ~np.asarray(mask, bool)[::2, ::2].ravel()
-    if valid is None:
-        n_r = np.maximum(geo.count_sub, 1.0)
-        s1 = np.bincount(rb, weights=sub, minlength=geo.n_bins)
-        s2 = np.bincount(rb, weights=sub * sub, minlength=geo.n_bins)
-    else:
-        wv = valid.astype(np.float64)
-        n_r = np.maximum(np.bincount(rb, weights=wv, minlength=geo.n_bins), 1.0)
-        s1 = np.bincount(rb, weights=sub * wv, minlength=geo.n_bins)
-        s2 = np.bincount(rb, weights=sub * sub * wv, minlength=geo.n_bins)
-    mean = s1 / n_r
-    sd = np.sqrt(np.maximum(s2 / n_r - mean * mean, 0.0))
-    keep = sub <= (mean + 3.0 * sd)[rb]
-    if valid is None and img.dtype.kind in "ui":
-        # 8/16-bit counts: every sum here is of integers below 2**53 (at most 512**2 / 4 pixels of at most
-        # 65535**2), so float64 holds it exactly in any order, and the sums over the kept pixels are the
-        # sums over all of them less those over the few left out (the spots): 3 bincounts over a few
-        # hundred pixels instead of over the whole subsample, the same numbers to the last bit
-        out = ~keep
-        rb_o, f_o = rb[out], sub[out]
-        n_k = geo.count_sub - np.bincount(rb_o, minlength=geo.n_bins)
-        s1_k = s1 - np.bincount(rb_o, weights=f_o, minlength=geo.n_bins)
-        s2_k = s2 - np.bincount(rb_o, weights=f_o * f_o, minlength=geo.n_bins)
-    else:
-        if valid is not None:
-            keep &= valid
-        kw = keep.astype(np.float64)
-        n_k = np.bincount(rb, weights=kw, minlength=geo.n_bins)
-        fk = sub * kw
-        s1_k = np.bincount(rb, weights=fk, minlength=geo.n_bins)
-        s2_k = np.bincount(rb, weights=fk * sub, minlength=geo.n_bins)
-    mean_k = np.where(n_k > 0, s1_k / np.maximum(n_k, 1), mean)
-    var_k = s2_k / np.maximum(n_k, 1) - mean_k ** 2
-    # radii the subsample misses (a few at the very centre) take their neighbours' values
-    hole = n_k <= 0
-    if hole.any() and not hole.all():
-        idx = np.flatnonzero(~hole)
-        pos = np.clip(np.searchsorted(idx, np.arange(geo.n_bins)), 0, len(idx) - 1)
-        mean_k = np.where(hole, mean_k[idx[pos]], mean_k)
-        var_k = np.where(hole, var_k[idx[pos]], var_k)
-    resid = np.subtract(img, np.take(mean_k.astype(np.float32), geo.r_bin).reshape(rows, cols), dtype=np.float32)
-    if mask is not None:
-        resid[np.asarray(mask, bool)] = 0.0
-    sm = _smooth(resid, smooth_sigma_px)
+    use_mask = mask is not None
+    mask_b = np.asarray(mask, bool) if use_mask else _NO_MASK
+    valid_sub = ~mask_b[::2, ::2] if use_mask else geo.all_sub
+    mean_k, var_k, n_k = k.background_by_radius(img, geo.r_sub, geo.n_bins, valid_sub)
+    w = _gaussian_weights(float(smooth_sigma_px), 3.0)
+    resid, padded, sm = _scratch(img.shape, len(w) // 2)
+    k.residual(img, mean_k, geo.r_bin, mask_b, use_mask, resid)
+    k.gaussian_smooth_padded(padded, w, sm)
     # noise per radius (shot noise grows toward the centre); over 3 neighbouring radii for a steadier estimate,
-    # and never below the median over radii: white noise of sigma s smoothed by a Gaussian of width w
+    # and never below half the median over radii: white noise of sigma s smoothed by a Gaussian of width w
     # has sigma s / (2 sqrt(pi) w)
-    sd_r = np.sqrt(np.maximum(ndi.uniform_filter1d(var_k, 3, mode="nearest"), 0.0))
-    sd_r = np.maximum(sd_r, 0.5 * _median(sd_r[n_k > 0]) if np.any(n_k > 0) else 0.0)
-    sd_r = np.where(sd_r > 0, sd_r, 1.0)
     smooth_gain = 1.0 / (2.0 * math.sqrt(math.pi) * smooth_sigma_px)
-    noise_sm_r = sd_r * smooth_gain
-    thr_r = detect_snr * noise_sm_r
-    sm_flat = sm.ravel()
-    # pixels above the lowest threshold of any radius first (a comparison with one number), then each
-    # of those against the threshold of its own radius: no full-frame map of thresholds
-    cand = np.flatnonzero(sm_flat > thr_r.min())
-    cand = cand[sm_flat[cand] > thr_r[geo.r_bin[cand]]]
+    sd_r, noise_sm_r, thr_r = k.noise_by_radius(var_k, n_k, smooth_gain, float(detect_snr))
     cx, cy = db
     centre = (float(cx), float(cy))
-    if len(cand):
-        cy_i, cx_i = np.divmod(cand, cols)
-        inner = (cy_i >= _WIN) & (cy_i < rows - _WIN) & (cx_i >= _WIN) & (cx_i < cols - _WIN)
-        far = np.hypot(cx_i - cx, cy_i - cy) > direct_beam_radius_px
-        use = inner & far
-        cy_i, cx_i, flat = cy_i[use], cx_i[use], cand[use]
-    else:
-        cy_i = cx_i = flat = np.zeros(0, np.intp)
-    if len(cy_i) == 0:
+    any_cand, flat, logs_in = k.local_maxima(sm, thr_r, geo.r_bin, float(cx), float(cy), float(direct_beam_radius_px))
+    if not any_cand:
         return MeasuredPattern((rows, cols), centre, _NO_SPOTS, None, calibration, center_sigma_px=0.3, source=source,
                                notes=("centre from the direct beam near the previous frame's", "no spots above the noise"))
-    oy, ox = _OY, _OX
-    # windows by flat index into the raveled frames (one index array, not a row and a column array)
-    off5 = oy * cols + ox
-    peak = sm_flat[flat]
-    # the maximum of its 5 x 5 window: its 3 x 3 neighbours first (most candidates are the flanks of a
-    # spot, which fail there), then the whole window for the rest
-    near = sm_flat[flat[:, None] + (_OY3 * cols + _OX3)[None, :]]
-    first = peak >= near.max(axis=1)
-    cy_i, cx_i, flat, peak = cy_i[first], cx_i[first], flat[first], peak[first]
-    nb = sm_flat[flat[:, None] + off5[None, :]]
-    # ties (flat tops) go to the first pixel in raster order
-    is_max = (peak >= nb.max(axis=1)) & ~np.any((nb == peak[:, None]) & _BEFORE[None, :], axis=1)
-    cy_i, cx_i, flat, peak = cy_i[is_max], cx_i[is_max], flat[is_max], peak[is_max]
-    win = resid.ravel()[flat[:, None] + off5[None, :]].astype(np.float64)
-    w = np.clip(win, 0.0, None)
-    tot = w.sum(axis=1)
-    ok = tot > 0
-    cy_i, cx_i, flat, peak, win, w, tot = cy_i[ok], cx_i[ok], flat[ok], peak[ok], win[ok], w[ok], tot[ok]
-    x = cx_i + (w * ox).sum(axis=1) / tot
-    y = cy_i + (w * oy).sum(axis=1) / tot
-    # sub-pixel peak: a parabola through the logarithm of the smoothed frame at the peak and its two
-    # neighbours, exact for a Gaussian spot (the window centroid is the fallback where it is not defined)
-    centre_v = np.log(np.maximum(peak, 1e-6))
-    for axis, (dy, dx) in enumerate(((0, 1), (1, 0))):
-        step = dy * cols + dx
-        lo = np.log(np.maximum(sm_flat[flat - step], 1e-6))
-        hi = np.log(np.maximum(sm_flat[flat + step], 1e-6))
-        den = lo - 2.0 * centre_v + hi
-        with np.errstate(divide="ignore", invalid="ignore"):
-            off = 0.5 * (lo - hi) / den
-        fine = (den < 0) & (np.abs(off) <= 0.75)
-        if axis == 0:
-            x = np.where(fine, cx_i + off, x)
-        else:
-            y = np.where(fine, cy_i + off, y)
-    inten = win.sum(axis=1)
-    r_at = geo.r_bin[flat]
-    noise_at = noise_sm_r[r_at]
-    snr = peak / noise_at
-    size = np.sqrt(np.maximum((w * ((ox - (x - cx_i)[:, None]) ** 2 + (oy - (y - cy_i)[:, None]) ** 2)).sum(axis=1)
-                              / tot, 0.25))
-    inten_sigma = sd_r[r_at] * (2 * _WIN + 1) + np.sqrt(np.maximum(inten, 0.0))
-    # a spot is bright at its peak (smoothed) and in its window sum (a second, independent-ish look that
-    # turns away the odd noise peak of an empty frame)
-    good = (snr >= snr_min) & (inten >= MIN_SUM_SNR * inten_sigma)
-    sig_xy = np.clip(size / np.maximum(snr, 1.0), 0.03, 2.0)
-    spots = Spots(x[good], y[good], inten[good], inten_sigma[good], sig_xy[good], snr[good], size[good])
+    if len(flat):
+        # sub-pixel peak: a parabola through the logarithm of the smoothed frame at the peak and its two
+        # neighbours along each axis, exact for a Gaussian spot (numpy's float32 log, see smallframe_kernels)
+        t = k.spot_table(resid, sm, flat, np.log(logs_in), geo.r_bin, sd_r, noise_sm_r, float(snr_min), MIN_SUM_SNR)
+        spots = Spots(t[0], t[1], t[2], t[3], t[4], t[5], t[6])
+    else:
+        spots = _NO_SPOTS
     return MeasuredPattern((rows, cols), centre, spots, None, calibration, center_sigma_px=0.3, source=source,
                            notes=("centre from the direct beam near the previous frame's",))
