@@ -255,10 +255,23 @@ def _solve(measured, tables, spots, *, scale, length_tol, angle_tol, pitch, max_
         sol, fit = score_candidate(c, tables, spots, measured, calibrated_scale=scale, length_tol=length_tol,
                                    rel_pos_tol=REL_POS_TOL, pixel_pitch_um=pitch)
         key = (c.phase_index, c.canonical_zone)
-        if key not in best or sol.score > best[key][0].score:
+        if key not in best or _better(sol, best[key][0]):
             best[key] = (sol, fit)
     ranked = sorted(best.values(), key=lambda t: (-t[0].score, t[0].phase_name, t[0].zone_axis))
     return ranked, n_hits
+
+
+#: Scores of one zone's candidates closer than this are a tie (equivalent descriptions, e.g. an orientation and its
+#: 180 deg turn about the beam, score the same up to rounding).
+SCORE_TIE = 1e-9
+
+
+def _better(sol: Solution, current: Solution) -> bool:
+    """True when `sol` should replace `current` as its zone's solution: a higher score, or on a tie the smaller
+    in-plane rotation, so that which of two equivalent descriptions is reported does not depend on rounding."""
+    if abs(sol.score - current.score) > SCORE_TIE:
+        return sol.score > current.score
+    return sol.in_plane_rotation_deg < current.in_plane_rotation_deg
 
 
 def _zone_text(sol: Solution) -> str:
