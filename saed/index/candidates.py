@@ -21,6 +21,7 @@ import numpy as np
 
 from saed.index.tables import IndexTables, PhaseIndexTable
 from saed.readonly import freeze_in_place
+from saed.units import fraction
 from saed.vectors2d import spans_plane
 
 __all__ = ["SpotSet", "Candidate", "spot_set", "seed_pairs", "find_candidates"]
@@ -108,7 +109,7 @@ def percentile_linear(values: np.ndarray, q_pct: float) -> float:
     """
     s = np.sort(values)
     n = len(s)
-    at = (n - 1) * (q_pct / 100)          # the 'linear' method's virtual index, as numpy computes it
+    at = (n - 1) * fraction(q_pct)        # the 'linear' method's virtual index, as numpy computes it (q / 100)
     if at >= n - 1:
         return float(s[-1])
     lo = math.floor(at)
