@@ -37,7 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage as ndi
 
-from saed.image.binning import Binned, _block_sum, radial_quantile_profile, upsample_bilinear
+from saed.image.binning import Binned, _block_sum, median_of, radial_quantile_profile, upsample_bilinear
 
 __all__ = ["Background", "estimate_background", "robust_sigma", "MAD_TO_SIGMA"]
 
@@ -49,11 +49,18 @@ MAD_TO_SIGMA = 1.4826
 
 def robust_sigma(values) -> float:
     """1.4826 x median absolute deviation of the finite `values` (0 for none)."""
-    v = np.asarray(values, np.float64)
-    v = v[np.isfinite(v)]
+    v = np.asarray(values, np.float64).ravel()
+    fin = np.isfinite(v)
+    if not fin.all():
+        v = v[fin]
     if v.size == 0:
         return 0.0
-    return MAD_TO_SIGMA * float(np.median(np.abs(v - np.median(v))))
+    return _mad_sigma(v)
+
+
+def _mad_sigma(v: np.ndarray) -> float:
+    """robust_sigma of a non-empty 1-D float64 array known to be finite."""
+    return MAD_TO_SIGMA * float(median_of(np.abs(v - median_of(v))))
 
 
 @dataclass(frozen=True, eq=False)
@@ -187,17 +194,20 @@ def _noise_model(image, level_b, calm_b, f: int, valid) -> tuple[float, float, f
     """
     nr, nc = level_b.shape
     rows, cols = image.shape
-    # Two pixels per calm block (diagonal neighbours inside the block, or a stride grid when f = 1).
     # One pixel per calm block (block centre), at most about 60000 of them.
-    ii, jj = np.nonzero(calm_b)
-    if len(ii) > 60000:
-        pick = np.linspace(0, len(ii) - 1, 60000).astype(np.int64)
-        ii, jj = ii[pick], jj[pick]
-    r1, c1 = np.minimum(ii * f + f // 2, rows - 1), np.minimum(jj * f + f // 2, cols - 1)
-    lv = level_b[ii, jj]
-    px = image[r1, c1]
-    if valid is not None:
-        good = valid[r1, c1]
+    flat = np.flatnonzero(calm_b)
+    if len(flat) > 60000:
+        flat = flat[np.linspace(0, len(flat) - 1, 60000).astype(np.int64)]
+    lv = level_b.ravel()[flat]
+    if f == 1:  # the block is the pixel
+        px = image.ravel()[flat] if image.flags.c_contiguous else image[flat // nc, flat % nc]
+        good = None if valid is None else valid.ravel()[flat]
+    else:
+        ii, jj = np.divmod(flat, nc)
+        r1, c1 = np.minimum(ii * f + f // 2, rows - 1), np.minimum(jj * f + f // 2, cols - 1)
+        px = image[r1, c1]
+        good = None if valid is None else valid[r1, c1]
+    if good is not None and not good.all():
         px, lv = px[good], lv[good]
     res = px.astype(np.float64) - lv
     if res.size < 50:
@@ -208,16 +218,27 @@ def _noise_model(image, level_b, calm_b, f: int, valid) -> tuple[float, float, f
     if len(edges) < 3:
         s = robust_sigma(res)
         return 0.0, max(s * s, 1e-6), max(s * s, 1e-6)
-    which = np.clip(np.searchsorted(edges, lv, side="right") - 1, 0, len(edges) - 2)
+    which = np.searchsorted(edges, lv, side="right")
+    which -= 1
+    np.clip(which, 0, len(edges) - 2, out=which)
+    # Each level bin's pixels, in their original order (a stable counting sort of the bin numbers):
+    # the same arrays as res[which == b], lv[which == b], without a pass over all pixels per bin.
+    which = which.astype(np.int16)
+    order = np.argsort(which, kind="stable")
+    counts = np.bincount(which, minlength=len(edges) - 1)
+    all_finite = bool(np.isfinite(res).all())
+    ends = np.cumsum(counts)
+    res_g, lv_g = res[order], lv[order]
     xs, vs, ns = [], [], []
     for b in range(len(edges) - 1):
-        sel = which == b
-        if sel.sum() < 20:
+        n_b = int(counts[b])
+        if n_b < 20:
             continue
-        s = robust_sigma(res[sel])
-        xs.append(float(np.median(lv[sel])))
+        r_b = res_g[ends[b] - n_b:ends[b]]
+        s = _mad_sigma(r_b) if all_finite else robust_sigma(r_b)
+        xs.append(float(median_of(lv_g[ends[b] - n_b:ends[b]])))
         vs.append(s * s)
-        ns.append(int(sel.sum()))
+        ns.append(n_b)
     xs, vs, ns = np.array(xs), np.array(vs), np.array(ns, float)
     if len(xs) < 2 or np.ptp(xs) <= 1e-6 * max(abs(xs).max(), 1.0):
         v = float(max(np.median(vs), 1e-6)) if len(vs) else 1.0
