@@ -37,7 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage as ndi
 
-from saed.image.binning import Binned, _block_sum, median_of, radial_quantile_profile, upsample_bilinear
+from saed.image.binning import Binned, _block_sum, median_of, radial_quantile_profile, radius_map, upsample_bilinear
 
 __all__ = ["Background", "estimate_background", "robust_sigma", "MAD_TO_SIGMA"]
 
@@ -111,7 +111,7 @@ def _fill_nan(a: np.ndarray) -> np.ndarray:
 
 
 def estimate_background(image: np.ndarray, binned: Binned, center_px, *, valid: np.ndarray | None = None,
-                        smooth_blocks: float = 6.0) -> Background:
+                        smooth_blocks: float = 6.0, radius: np.ndarray | None = None) -> Background:
     """Background of `image` about `center_px` from its block means `binned` (see the module notes).
 
     Parameters
@@ -121,13 +121,12 @@ def estimate_background(image: np.ndarray, binned: Binned, center_px, *, valid: 
     center_px : (2,) rough centre, pixels
     valid : (rows, cols) bool, pixels to use (None: all)
     smooth_blocks : float, Gaussian width of the residual smoothing, in blocks
+    radius : (nr, nc) array, optional: ``radius_map(binned, center_px)`` when the caller has it already
     """
     img_b = binned.image
     f = binned.factor
     nr, nc = img_b.shape
-    cxb, cyb = binned.to_binned_px(center_px[0], center_px[1])
-    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
-    rb = np.hypot(xx - cxb, yy - cyb)
+    rb = radius_map(binned, center_px) if radius is None else radius
     ok = np.isfinite(img_b) & (binned.valid_fraction >= 0.5)
     # Every block near the centre, where the haze is steep; every other one (each way) further out,
     # where a ring holds thousands of blocks anyway.

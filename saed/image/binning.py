@@ -121,7 +121,7 @@ def median_of(values):
 
     np.median partitions at the middle element(s) (and at the end, to see a NaN) and takes the mean
     of the middle one or two values; this does exactly that, so the result (value and numpy scalar
-    type) is the library's (held to it by tests/test_image_order_stats.py). On the image stage's
+    type) is the library's (held to it by tests/test_image_same_bits.py). On the image stage's
     many small arrays (ring medians, per-bin noise) np.median's dispatch costs as much as the work.
     Anything that is not a non-empty 1-D float array goes to np.median itself.
     """
@@ -140,7 +140,7 @@ def percentile_of(values, p: float):
     The two order statistics around the virtual index (n - 1) p / 100 are found by one partition;
     the interpolation between them is left to np.quantile on those two values at the same weight
     (a two-value quantile at q interpolates with weight q exactly), so numpy's own rounding of the
-    interpolation is kept. Held to np.percentile by tests/test_image_order_stats.py.
+    interpolation is kept. Held to np.percentile by tests/test_image_same_bits.py.
     """
     a = np.asarray(values)
     n = a.size
@@ -197,7 +197,7 @@ def radial_quantile_profile(values: np.ndarray, radius: np.ndarray, *, q: float 
     Now the values are grouped by bin (a stable counting sort of the small bin numbers) and each
     bin's one needed rank is found by a partition of that bin alone: the key is monotone in the
     value within a bin and the bins' keys do not overlap, so the key of that rank is the key the
-    global sort put at the same place, bit for bit (tests/test_image_order_stats.py holds it to
+    global sort put at the same place, bit for bit (tests/test_image_same_bits.py holds it to
     the sort). 2-3x less CPU than the sort on the 65k-260k block values of a frame. (Issue 16:
     ``np.lexsort((value, bin))`` took 2.3-2.9x as long as the sort.)
     """

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage as ndi
 
-from saed.image.binning import Binned, radial_quantile_profile
+from saed.image.binning import Binned, median_of, percentile_of, radial_quantile_profile, radius_map
 
 __all__ = ["BeamStopShadow", "saturation_mask", "border_mask", "find_beam_stop", "NOMINAL_FULL_SCALES"]
 
@@ -117,7 +117,8 @@ def _nan_smooth(img: np.ndarray, sigma: float) -> np.ndarray:
     return out
 
 
-def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, margin_px: float = 3.0) -> BeamStopShadow | None:
+def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, margin_px: float = 3.0,
+                   radius: np.ndarray | None = None) -> BeamStopShadow | None:
     """Find a beam-stop shadow on the block-averaged image; None when there is none.
 
     Parameters
@@ -131,6 +132,9 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         of the haze level above the darkest level at the same radius.
     margin_px : float
         Extra width added on each side of the band (penumbra), full-resolution pixels.
+    radius : (nr, nc) array, optional
+        ``radius_map(binned, center_px)`` when the caller has it already (it is the same for the
+        background's block image when the two share their blocks).
 
     Notes
     -----
@@ -153,8 +157,7 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
     finite = np.isfinite(sm)
     if finite.sum() < 100:
         return None
-    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
-    r = np.hypot(xx - cxb, yy - cyb)
+    r = radius_map(binned, center_px) if radius is None else radius
     # Haze reference per radius: the upper quartile of each ring (the shadow may cover half of a small
     # ring), made non-increasing outward from the inside (rings wholly inside the rod's tip take the
     # level just outside it).
@@ -163,9 +166,11 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         return None
     prof = np.maximum.accumulate(prof[::-1])[::-1]
     haze = np.interp(r, rc, prof)
-    dark = float(np.nanpercentile(sm, 0.5))
+    # np.nanpercentile(sm, 0.5) and the nanmedians: the same order statistics of the non-NaN values
+    dark = float(percentile_of(sm[~np.isnan(sm)], 0.5))
     resid = img - sm
-    noise = 1.4826 * float(np.nanmedian(np.abs(resid - np.nanmedian(resid)))) + 1e-12
+    resid = resid[~np.isnan(resid)]
+    noise = 1.4826 * float(median_of(np.abs(resid - median_of(resid)))) + 1e-12
     contrast = haze - dark
     cand = finite & (contrast > 5.0 * noise) & ((sm - dark) < max_contrast * contrast)
     if not cand.any():
@@ -220,6 +225,7 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         pl = np.array([0.0, float(np.min(w))])
         ph = np.array([0.0, float(np.max(w))])
     m = margin_px / f + 0.5
+    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
     tt = (xx - cxb) * u[0] + (yy - cyb) * u[1]
     ww = (xx - cxb) * v[0] + (yy - cyb) * v[1]
     band = (tt >= float(t.min())) & (ww >= np.polyval(pl, tt) - m) & (ww <= np.polyval(ph, tt) + m)

@@ -145,3 +145,41 @@ def test_radius_map_is_the_grid_formula(nr, nc, f, cx, cy):
     cxb, cyb = b.to_binned_px(cx, cy)
     yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
     assert _same_bits(radius_map(b, (cx, cy)), np.hypot(xx - cxb, yy - cyb))
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.sampled_from([np.float32, np.float64]).flatmap(lambda dt: _arrays(dt, max_size=400, allow_nan=True)),
+       st.sampled_from([0.5, 1.0, 50.0]))
+def test_nan_order_stats_are_numpys_on_the_non_nan_values(a, p):
+    """find_beam_stop's np.nanpercentile / np.nanmedian became percentile_of / median_of of a[~isnan(a)]."""
+    kept = a[~np.isnan(a)]
+    if kept.size == 0:
+        return
+    assert _same_bits(percentile_of(kept, p), np.nanpercentile(a, p))
+    assert _same_bits(median_of(kept), np.nanmedian(a))
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(2, 70), st.integers(2, 70), st.integers(0, 2**31 - 1), st.booleans())
+def test_self_convolution_is_numpys_2d_transforms(nr, nc, seed, gaps):
+    """The axis-by-axis transforms into reused work arrays against np.fft.irfft2(np.fft.rfft2(a, s) ** 2, s)."""
+    from saed.image.binning import Binned
+    from saed.image.centre import _self_convolution
+
+    rng = np.random.default_rng(seed)
+    img = rng.gamma(2.0, 50.0, (nr, nc)).astype(np.float32)
+    if gaps:
+        img[rng.random((nr, nc)) < 0.2] = np.nan
+    if not np.isfinite(img).any():
+        return
+    b = Binned(img, np.ones_like(img), 1, img.shape)
+    ok = np.isfinite(img)
+    med = float(np.median(img[ok]))
+    lo = float(np.percentile(img[ok], 1.0))
+    a = np.where(ok, np.log1p(np.clip(img - med, 0.0, None) / max(med - lo, 1e-6)), 0.0).astype(np.float64)
+    s = (2 * nr, 2 * nc)
+    fa = np.fft.rfft2(a, s=s)
+    want = np.fft.irfft2(fa * fa, s=s)
+    got = _self_convolution(b)
+    assert _same_bits(got, want)
+    assert _same_bits(_self_convolution(b), want)  # again, in the kept work arrays
