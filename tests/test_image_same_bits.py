@@ -183,3 +183,25 @@ def test_self_convolution_is_numpys_2d_transforms(nr, nc, seed, gaps):
     got = _self_convolution(b)
     assert _same_bits(got, want)
     assert _same_bits(_self_convolution(b), want)  # again, in the kept work arrays
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.integers(1, 30), st.sampled_from([3, 8, 24, 40, 96, 200, 625, 700]), st.integers(0, 2**31 - 1),
+       st.floats(0.0, 1.0), st.booleans())
+def test_row_nanmedian_is_numpys_nanmedian(n, m, seed, p_keep, ties):
+    """spotfit's start plane: np.nanmedian along rows (short rows go through masked arrays, long ones
+    through np.median per row; both regimes are met: rows of 8-200 border pixels, 625+ window pixels)."""
+    import warnings
+
+    from saed.image.spotfit import _row_nanmedian
+
+    rng = np.random.default_rng(seed)
+    vals = rng.normal(100.0, 30.0, (n, m))
+    if ties:
+        vals = np.round(vals / 10.0) * 10.0
+        vals[rng.random((n, m)) < 0.05] = -0.0
+    keep = rng.random((n, m)) < p_keep
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        want = np.nanmedian(np.where(keep, vals, np.nan), axis=1)
+    assert _same_bits(_row_nanmedian(vals, keep), want)

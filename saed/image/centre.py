@@ -30,7 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from saed.image.background import Background
-from saed.image.binning import Binned, median_and_percentile
+from saed.image.binning import Binned, median_and_percentile, median_of
 from saed.image.nearby import close_pairs, nearest_within
 from saed.image.spotfit import fit_spots
 
@@ -262,7 +262,7 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
         # One robust pass: drop midpoints far from their (unweighted, per-axis) median.
         med = np.median(mid, axis=0)
         dev = np.hypot(*(mid - med).T)
-        keep = dev <= max(3.0 * 1.4826 * float(np.median(dev)), 0.5)
+        keep = dev <= max(3.0 * 1.4826 * float(median_of(dev)), 0.5)
         if keep.sum() >= 2:
             pr, mid, w = pr[keep], mid[keep], w[keep]
         c = (w[:, None] * mid).sum(axis=0) / w.sum()

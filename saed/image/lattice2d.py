@@ -36,6 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from saed.image.binning import median_of
 from saed.image.nearby import close_pairs, k_nearest
 
 __all__ = ["gauss_reduce", "candidate_vectors", "find_basis", "index_spots", "LatticeFit", "refine_lattice",
@@ -256,7 +257,7 @@ def refine_lattice(xy_px, sigma_px, center_px, g1_px, g2_px, *, tol_px: float, c
         c, g1, g2 = theta[0:2], theta[2:4], theta[4:6]
         rr = np.hypot(*(xy[on] - c - idx[on] @ np.stack([g1, g2])).T)
         rms = float(np.sqrt(np.mean(rr**2)))
-        tol = max(min(tol_px, 4.0 * rms + 3.0 * float(np.median(sig[on]))), 0.5 * tol_px, 1.0)
+        tol = max(min(tol_px, 4.0 * rms + 3.0 * float(median_of(sig[on]))), 0.5 * tol_px, 1.0)
     # Keep the basis reduced (the refinement can move a near-tie such as a hexagonal net across the
     # boundary); the covariance follows the integer change of basis.
     g1, g2, t = gauss_reduce(g1, g2)

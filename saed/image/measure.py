@@ -28,7 +28,7 @@ from scipy import ndimage as ndi
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
-from saed.image.binning import Binned, bin_image, radius_map
+from saed.image.binning import Binned, bin_image, median_of, radius_map
 from saed.image.centre import (DirectBeam, _near_symmetry_peak_of, _self_convolution, _symmetric_center_of,
                                find_direct_beam, friedel_center)
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
@@ -359,7 +359,7 @@ def _centre_before_lattice(spots: Spots, beam: DirectBeam | None, rough: _RoughC
     if db_xy is None and strong.sum() >= FRIEDEL_MIN_SPOTS:
         # how far off the rough centre may be: under half the smallest spot spacing, within a range
         nn = nearest_other_distance(sxy[strong])
-        search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * np.median(nn), FRIEDEL_SEARCH_MIN_PX,
+        search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * median_of(nn), FRIEDEL_SEARCH_MIN_PX,
                                   FRIEDEL_SEARCH_MAX_PX))
     fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
                         tol_px=FRIEDEL_TOL_WITH_BEAM_PX if db_xy is not None else FRIEDEL_TOL_PX,
@@ -398,7 +398,7 @@ def _lattice_notes(fit) -> list[str]:
 def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: float) -> _LatticeStep:
     """Step 7: the 2-D lattice refined together with the centre over all spots."""
     order = np.argsort(-spots.snr)
-    tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * np.median(spots.sigma_xy_px),
+    tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * median_of(spots.sigma_xy_px),
                     LATTICE_TOL_SPOT_WIDTHS * sigma))
     fit = fit_spot_lattice(spots.xy_px, spots.sigma_xy_px, centre.xy_px, tol_px=tol, order=order,
                            center_tol_px=tol + (0.0 if centre.how != rough.how else ROUGH_CENTRE_EXTRA_TOL_PX),
