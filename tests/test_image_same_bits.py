@@ -205,3 +205,11 @@ def test_row_nanmedian_is_numpys_nanmedian(n, m, seed, p_keep, ties):
         warnings.simplefilter("ignore", RuntimeWarning)
         want = np.nanmedian(np.where(keep, vals, np.nan), axis=1)
     assert _same_bits(_row_nanmedian(vals, keep), want)
+
+
+@settings(max_examples=200, deadline=None)
+@given(hnp.arrays(np.float64, st.tuples(st.integers(1, 40), st.just(2)), elements=_floats(np.float64)))
+def test_column_medians_are_numpys_axis_0_median(mid):
+    """friedel_center's np.median(mid, axis=0) became one median_of per column."""
+    got = np.array([median_of(mid[:, 0]), median_of(mid[:, 1])])
+    assert _same_bits(got, np.median(mid, axis=0))

@@ -260,7 +260,7 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
         mid = 0.5 * (xy[pr[:, 0]] + xy[pr[:, 1]])
         w = 1.0 / (sig[pr[:, 0]] ** 2 + sig[pr[:, 1]] ** 2)
         # One robust pass: drop midpoints far from their (unweighted, per-axis) median.
-        med = np.median(mid, axis=0)
+        med = np.array([median_of(mid[:, 0]), median_of(mid[:, 1])])  # np.median(mid, axis=0)
         dev = np.hypot(*(mid - med).T)
         keep = dev <= max(3.0 * 1.4826 * float(median_of(dev)), 0.5)
         if keep.sum() >= 2:

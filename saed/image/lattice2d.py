@@ -102,13 +102,18 @@ def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int 
     # Best first: most votes, then shortest; drop near-duplicates (either sign).
     order = np.lexsort((length, -counts))[:300]
     chosen: list[np.ndarray] = []
+    ch = np.empty((max_candidates, 2))  # the chosen vectors as rows, for one vectorised test per candidate
     for k in order:
         v = vec[k]
-        if any(min(np.hypot(*(v - c)), np.hypot(*(v + c))) < 2.0 * tol_px for c in chosen):
+        c = ch[:len(chosen)]
+        # a near-duplicate (either sign) of one already chosen: |v - c| or |v + c| under 2 tol
+        if len(chosen) and ((np.hypot(v[0] - c[:, 0], v[1] - c[:, 1]) < 2.0 * tol_px)
+                            | (np.hypot(v[0] + c[:, 0], v[1] + c[:, 1]) < 2.0 * tol_px)).any():
             continue
         # Average the cluster for a better estimate.
         near = np.hypot(allv[:, 0] - v[0], allv[:, 1] - v[1]) <= tol_px
         chosen.append(allv[near].mean(axis=0) if near.any() else v)
+        ch[len(chosen) - 1] = chosen[-1]
         if len(chosen) >= max_candidates:
             break
     # Also the shortest spot vectors themselves (first-order reflections), if not in yet.
