@@ -22,7 +22,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 
-from saed.image.binning import median_and_percentile, median_of, percentile_of, radial_quantile_profile, radius_map
+from saed.image.binning import (median_and_percentile, median_in_place, median_of, percentile_in_place, percentile_of,
+                                radial_quantile_profile, radius_map, without_nan)
 
 
 def _same_bits(got, want) -> bool:
@@ -33,7 +34,7 @@ def _same_bits(got, want) -> bool:
 def _floats(dtype, *, allow_nan: bool = False):
     width = 32 if dtype == np.float32 else 64
     # a few repeated values (ties) and signed zeros come up often with this mix
-    return st.one_of(st.sampled_from([0.0, -0.0, 1.0, -1.0, 2.5]),
+    return st.one_of(st.sampled_from([0.0, -0.0, -0.0, 1.0, -1.0, 2.5]),
                      st.floats(-1e6, 1e6, width=width, allow_nan=False, allow_infinity=False),
                      *([st.just(float("nan"))] if allow_nan else []))
 
@@ -48,6 +49,7 @@ def test_median_of_is_numpy_median_bit_for_bit(a):
     with np.errstate(invalid="ignore"):
         assert _same_bits(median_of(a), np.median(a))
         assert type(median_of(a)) is type(np.median(a))
+        assert _same_bits(median_in_place(a.copy()), np.median(a))
 
 
 @settings(max_examples=300, deadline=None)
@@ -56,6 +58,7 @@ def test_median_of_is_numpy_median_bit_for_bit(a):
 def test_percentile_of_is_numpy_percentile_bit_for_bit(a, p):
     with np.errstate(invalid="ignore"):
         assert _same_bits(percentile_of(a, p), np.percentile(a, p))
+        assert _same_bits(percentile_in_place(a.copy(), p), np.percentile(a, p))
         m, pc = median_and_percentile(a, p)
         assert _same_bits(m, np.median(a))
         assert _same_bits(pc, np.percentile(a, p))
@@ -151,11 +154,13 @@ def test_radius_map_is_the_grid_formula(nr, nc, f, cx, cy):
 @given(st.sampled_from([np.float32, np.float64]).flatmap(lambda dt: _arrays(dt, max_size=400, allow_nan=True)),
        st.sampled_from([0.5, 1.0, 50.0]))
 def test_nan_order_stats_are_numpys_on_the_non_nan_values(a, p):
-    """find_beam_stop's np.nanpercentile / np.nanmedian became percentile_of / median_of of a[~isnan(a)]."""
-    kept = a[~np.isnan(a)]
+    """find_beam_stop's np.nanpercentile / np.nanmedian became percentile_of / median_of of without_nan(a)."""
+    kept = without_nan(a)
+    assert np.array_equal(np.sort(kept), np.sort(a[~np.isnan(a)]))
     if kept.size == 0:
         return
     assert _same_bits(percentile_of(kept, p), np.nanpercentile(a, p))
+    assert _same_bits(percentile_in_place(without_nan(a), p), np.nanpercentile(a, p))
     assert _same_bits(median_of(kept), np.nanmedian(a))
 
 
@@ -213,3 +218,29 @@ def test_column_medians_are_numpys_axis_0_median(mid):
     """friedel_center's np.median(mid, axis=0) became one median_of per column."""
     got = np.array([median_of(mid[:, 0]), median_of(mid[:, 1])])
     assert _same_bits(got, np.median(mid, axis=0))
+
+
+@settings(max_examples=300, deadline=None)
+@given(hnp.arrays(np.float64, st.tuples(st.integers(1, 12), st.integers(2, 13)),
+                  elements=st.sampled_from([0.0, 1.0, 2.0, -3.0, np.inf, -np.inf, np.nan]) | st.floats(-5, 5)))
+def test_argmax_2d_is_numpys_argmax_of_a_strided_view(full):
+    """symmetric_center's peak: the first maximum in C order (NaN counting as the maximum), as np.argmax."""
+    from saed.image.centre import _argmax_2d
+
+    view = full[:, :-1]  # the search region is a strided view of the self-convolution
+    want = np.unravel_index(int(np.argmax(view)), view.shape)
+    assert _argmax_2d(view) == (int(want[0]), int(want[1]))
+
+
+@settings(max_examples=300, deadline=None)
+@given(hnp.arrays(np.float32, st.integers(1, 300),
+                  elements=st.floats(-1e4, 1e4, width=32) | st.sampled_from([1.0, 2.0, float("nan")])),
+       st.integers(1, 16))
+def test_level_bins_are_searchsorted(lv, nb):
+    """_noise_model's bin of each level against np.searchsorted(side='right') - 1, clipped (NaN included)."""
+    from saed.image.background import _level_bins
+
+    with np.errstate(invalid="ignore"):
+        edges = np.unique(np.quantile(lv, np.linspace(0, 1, nb + 1)))
+    want = np.clip(np.searchsorted(edges, lv, side="right") - 1, 0, max(len(edges) - 2, 0))
+    assert np.array_equal(_level_bins(lv, edges), want)

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Binned", "bin_image", "radial_quantile_profile", "upsample_bilinear", "median_of", "percentile_of",
-           "radius_map"]
+__all__ = ["Binned", "bin_image", "radial_quantile_profile", "upsample_bilinear", "median_of", "median_in_place",
+           "percentile_of", "percentile_in_place", "median_and_percentile", "without_nan", "radius_map"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -116,6 +116,22 @@ def _partitioned_median(part: np.ndarray, n: int):
     return m
 
 
+def without_nan(a: np.ndarray) -> np.ndarray:
+    """A 1-D copy of `a` without its NaNs, in the order np.nanmedian / np.nanpercentile leave them.
+
+    Those fill each NaN's place with a value from the end (numpy's ``_remove_nan_1d``), and a
+    partition's result depends on the order (0.0 and -0.0 tie); so the same order, for the same bits.
+    """
+    a = np.array(a, copy=True).ravel()
+    c = np.isnan(a)
+    s = np.flatnonzero(c)
+    if s.size == 0:
+        return a
+    enonan = a[-s.size:][~c[-s.size:]]
+    a[s[:enonan.size]] = enonan
+    return a[:-s.size]
+
+
 def median_of(values):
     """``np.median(values)`` of a 1-D float array, without the wrapper: the same partition and mean, bit for bit.
 
@@ -134,6 +150,16 @@ def median_of(values):
     return _partitioned_median(part, n)
 
 
+def median_in_place(a: np.ndarray):
+    """:func:`median_of` of a 1-D float array that may be reordered (partitioned in place: no copy)."""
+    n = a.size
+    if a.ndim != 1 or n == 0 or a.dtype.kind != "f":
+        return np.median(a)
+    h = n // 2
+    a.partition([h - 1, h, n - 1] if n % 2 == 0 else [h, n - 1])
+    return _partitioned_median(a, n)
+
+
 def percentile_of(values, p: float):
     """``np.percentile(values, p)`` (method 'linear', `p` a Python float in [0, 100]) of a 1-D float array, bit for bit.
 
@@ -149,10 +175,24 @@ def percentile_of(values, p: float):
     if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
         return np.percentile(a, p)
     lo = math.floor(vi)
-    part = np.partition(a, [lo, lo + 1, n - 1])
+    part = np.partition(a, sorted({0, lo, lo + 1, n - 1}))  # np.quantile's own partition points
     if np.isnan(part[n - 1]):
         return np.percentile(a, p)
     return np.quantile(part[lo:lo + 2], vi - lo)
+
+
+def percentile_in_place(a: np.ndarray, p: float):
+    """:func:`percentile_of` of a 1-D float array that may be reordered (partitioned in place: no copy)."""
+    n = a.size
+    q = p / 100
+    vi = (n - 1) * q
+    if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
+        return np.percentile(a, p)
+    lo = math.floor(vi)
+    a.partition(sorted({0, lo, lo + 1, n - 1}))
+    if np.isnan(a[n - 1]):
+        return np.percentile(a, p)
+    return np.quantile(a[lo:lo + 2], vi - lo)
 
 
 def median_and_percentile(values, p: float):
@@ -163,9 +203,12 @@ def median_and_percentile(values, p: float):
     vi = (n - 1) * q
     if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
         return median_of(a), percentile_of(a, p)
+    if np.any(np.signbit(a) & (a == 0)):
+        # -0.0 and 0.0 tie: only numpy's own partition points put the same one of them in place
+        return median_of(a), percentile_of(a, p)
     lo = math.floor(vi)
     h = n // 2
-    kth = sorted({lo, lo + 1, h - 1 if n % 2 == 0 else h, h, n - 1})
+    kth = sorted({0, lo, lo + 1, h - 1 if n % 2 == 0 else h, h, n - 1})
     part = np.partition(a, kth)
     if np.isnan(part[n - 1]):
         return np.median(a), np.percentile(a, p)
@@ -211,7 +254,9 @@ def radial_quantile_profile(values: np.ndarray, radius: np.ndarray, *, q: float 
         v, r = v[ok], r[ok]
     if v.size == 0:
         return np.zeros(0), np.zeros(0)
-    b = np.floor(r / bin_width).astype(np.int64)
+    fb = np.floor(r / bin_width if bin_width != 1.0 else r)  # r / 1.0 is r
+    # bin numbers as int16 when they fit (the counting sort below needs 16-bit keys)
+    b = fb.astype(np.int16 if 0.0 <= fb.min() and fb.max() <= np.iinfo(np.int16).max else np.int64)
     lo, hi = float(v.min()), float(v.max())
     span = hi - lo if hi > lo else 1.0
     counts = np.bincount(b)
@@ -220,8 +265,7 @@ def radial_quantile_profile(values: np.ndarray, radius: np.ndarray, *, q: float 
     gbin = np.flatnonzero(good)
     rank = np.minimum((q * counts[good]).astype(np.int64), counts[good] - 1)
     # Group by bin, keeping each bin's values (a copy: partitioned in place below).
-    small = np.int16 if len(counts) <= np.iinfo(np.int16).max else np.int32
-    grouped = v[np.argsort(b.astype(small), kind="stable")]
+    grouped = v[np.argsort(b if b.dtype == np.int16 else b.astype(np.int32), kind="stable")]
     at = starts[good] + rank
     for s0, c, k in zip(starts[good].tolist(), counts[good].tolist(), rank.tolist()):
         if c > 1:

@@ -112,6 +112,19 @@ def symmetric_center(binned: Binned) -> tuple[float, float]:
     return _symmetric_center_of(_self_convolution(binned), binned)
 
 
+def _argmax_2d(a: np.ndarray) -> tuple[int, int]:
+    """``np.unravel_index(np.argmax(a), a.shape)`` of a 2-D float array, without np.argmax's contiguous copy.
+
+    The row maxima (a reduction, no copy) give the first row holding the maximum (or a NaN, which
+    np.argmax takes as the maximum); np.argmax of that row gives the column: the first occurrence in
+    C order, as np.argmax. Held to it by tests/test_image_same_bits.py.
+    """
+    rowmax = a.max(axis=1)
+    nan_rows = np.isnan(rowmax)
+    i = int(np.argmax(nan_rows)) if nan_rows.any() else int(np.argmax(rowmax == rowmax.max()))
+    return i, int(np.argmax(a[i]))
+
+
 def _symmetric_center_of(conv, binned: Binned) -> tuple[float, float]:
     """:func:`symmetric_center` from ``_self_convolution(binned)`` already computed."""
     if conv is None:
@@ -120,7 +133,7 @@ def _symmetric_center_of(conv, binned: Binned) -> tuple[float, float]:
     nr, nc = binned.image.shape
     # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
     search = conv[: 2 * nr - 1, : 2 * nc - 1]
-    i, j = np.unravel_index(int(np.argmax(search)), search.shape)
+    i, j = _argmax_2d(search)
     si, sj = _parabolic_peak(conv, i, j)
     x, y = binned.to_full_px(sj / 2.0, si / 2.0)
     return float(x), float(y)

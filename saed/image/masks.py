@@ -17,7 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage as ndi
 
-from saed.image.binning import Binned, median_of, percentile_of, radial_quantile_profile, radius_map
+from saed.image.binning import (Binned, median_in_place, percentile_in_place, radial_quantile_profile, radius_map,
+                                without_nan)
 
 __all__ = ["BeamStopShadow", "saturation_mask", "border_mask", "find_beam_stop", "NOMINAL_FULL_SCALES"]
 
@@ -107,8 +108,9 @@ class BeamStopShadow:
 
 
 def _nan_smooth(img: np.ndarray, sigma: float) -> np.ndarray:
-    w = np.isfinite(img).astype(np.float32)
-    v = np.where(w > 0, img, 0.0).astype(np.float32)
+    fin = np.isfinite(img)
+    w = fin.astype(np.float32)
+    v = np.where(fin, img, 0.0).astype(np.float32, copy=False)
     num = ndi.gaussian_filter(v, sigma, mode="nearest")
     den = ndi.gaussian_filter(w, sigma, mode="nearest")
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -166,12 +168,16 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         return None
     prof = np.maximum.accumulate(prof[::-1])[::-1]
     haze = np.interp(r, rc, prof)
-    # np.nanpercentile(sm, 0.5) and the nanmedians: the same order statistics of the non-NaN values
-    dark = float(percentile_of(sm[~np.isnan(sm)], 0.5))
-    resid = img - sm
-    resid = resid[~np.isnan(resid)]
-    noise = 1.4826 * float(median_of(np.abs(resid - median_of(resid)))) + 1e-12
-    contrast = haze - dark
+    # np.nanpercentile(sm, 0.5) and the nanmedians: the same partitions of the non-NaN values, in the
+    # order numpy leaves them (without_nan: copies of this function's own, partitioned in place)
+    dark = float(percentile_in_place(without_nan(sm), 0.5))
+    resid = without_nan(img - sm)
+    med = median_in_place(resid)
+    np.subtract(resid, med, out=resid)
+    np.abs(resid, out=resid)
+    noise = 1.4826 * float(median_in_place(resid)) + 1e-12
+    contrast = haze
+    contrast -= dark  # haze - dark (haze is not used again)
     cand = finite & (contrast > 5.0 * noise) & ((sm - dark) < max_contrast * contrast)
     if not cand.any():
         return None

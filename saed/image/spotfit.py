@@ -86,7 +86,7 @@ def window_stack(image: np.ndarray, valid: np.ndarray | None, ix, iy, half: int)
 
 
 def _row_nanmedian(values: np.ndarray, keep: np.ndarray) -> np.ndarray:
-    """``np.nanmedian(np.where(keep, values, np.nan), axis=1)`` of finite (n, m) `values`, bit for bit, without warnings.
+    """``np.nanmedian(np.where(keep, values, np.nan), axis=1)`` of finite (n, m) `values`, bit for bit (no warnings).
 
     np.nanmedian sorts each row (masked arrays, or one np.median per row for long rows) and halves
     the sum of the two middle values (the middle one twice for an odd count); this sorts the kept

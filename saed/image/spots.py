@@ -110,7 +110,7 @@ def estimate_spot_sigma(image, valid, background: Background, binned: Binned, ce
     """
     lev = background.level_binned
     f = binned.factor
-    sig = background.sigma(lev) / f
+    sig = background.sigma_binned / f
     z = (binned.image - lev) / sig
     z = np.where(np.isfinite(z) & (binned.valid_fraction >= 0.99), z, -np.inf)
     ii, jj = np.nonzero(z > 8.0)
@@ -197,7 +197,7 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
     rho = robust_sigma(zs) if zs.size > 100 else rho_white
     rho = max(rho, 0.5 * rho_white)
     # Threshold map on the blocks, interpolated: background + detect_snr * rho * pixel noise.
-    thr_b = (lev_b + detect_snr * rho * background.sigma(lev_b)).astype(np.float32)
+    thr_b = (lev_b + detect_snr * rho * background.sigma_binned).astype(np.float32)
     thr = upsample_bilinear(thr_b, fw, (wr, wc))
     cand = (g > thr) & vwork
     cand[0, :] = cand[-1, :] = cand[:, 0] = cand[:, -1] = False
