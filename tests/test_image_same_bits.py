@@ -244,3 +244,51 @@ def test_level_bins_are_searchsorted(lv, nb):
         edges = np.unique(np.quantile(lv, np.linspace(0, 1, nb + 1)))
     want = np.clip(np.searchsorted(edges, lv, side="right") - 1, 0, max(len(edges) - 2, 0))
     assert np.array_equal(_level_bins(lv, edges), want)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(8192, 70000), st.integers(0, 2**31 - 1), st.sampled_from([None, 1.0, 0.25, 7.0]),
+       st.sampled_from([np.float32, np.float32, np.float64]), st.integers(2, 20), st.booleans())
+def test_level_groups_are_quantile_edges_and_searchsorted_bins(n, seed, step, dtype, nb, signed):
+    """_noise_model's one-pass grouping against np.quantile (edges, bit for bit) and np.searchsorted
+    (the values of each bin: the same multiset, compared sorted)."""
+    from saed.image.background import _level_bins, _level_groups
+
+    rng = np.random.default_rng(seed)
+    lv = rng.gamma(2.0, 40.0, n) + 5.0
+    if signed:  # dark-subtracted levels: both signs (bit patterns order negative floats backwards)
+        lv -= 60.0
+    if step:  # ties: levels on a grid, so edges land on repeated values
+        lv = np.round(lv / step) * step
+        lv[lv == 0] = 0.0  # np.round makes -0.0, which _level_groups leaves to the general way
+    lv = lv.astype(dtype)
+    res = rng.normal(0.0, 3.0, n) + 1e-3
+    got = _level_groups(lv, res, nb)
+    edges = np.unique(np.quantile(lv, np.linspace(0, 1, nb + 1)))
+    if dtype == np.float64:  # float32 levels only (the background's); float64 goes the general way
+        assert got is None
+        return
+    assert _same_bits(got[0], edges)
+    if len(edges) < 3:
+        return
+    _, res_g, lv_g, counts = got
+    which = _level_bins(lv, edges)
+    assert np.array_equal(counts, np.bincount(which, minlength=len(edges) - 1))
+    ends = np.cumsum(counts)
+    for b in range(len(edges) - 1):
+        sl = slice(ends[b] - counts[b], ends[b])
+        assert np.array_equal(np.sort(res_g[sl]), np.sort(res[which == b]))
+        assert np.array_equal(np.sort(lv_g[sl]), np.sort(lv[which == b]))
+
+
+def test_level_groups_step_aside_for_signed_zeros_and_nan():
+    from saed.image.background import _level_groups
+
+    lv = np.linspace(0.0, 100.0, 9000).astype(np.float32)
+    res = np.ones(9000)
+    assert _level_groups(lv, res, 16) is not None
+    res[5] = -0.0
+    assert _level_groups(lv, res, 16) is None
+    res[5] = np.nan
+    assert _level_groups(lv, res, 16) is None
+    assert _level_groups(lv[:100], res[:100], 16) is None
