@@ -487,7 +487,7 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     c0 = rough.xy_px
 
     # Block distances from the rough centre: the beam-stop search and the background share them
-    # when they share their blocks (frames under ~800 px: the block image is not coarsened).
+    # when they share their blocks (frames under 400 px a side, whose block image is not coarsened).
     radius_b = radius_map(coarse, c0)
     stop = find_beam_stop(coarse, c0, radius=radius_b) if find_stop else None
     if stop is not None:
