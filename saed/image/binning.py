@@ -14,6 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from saed.units import fraction
+
 __all__ = ["Binned", "bin_image", "radial_quantile_profile", "upsample_bilinear", "median_of", "median_in_place",
            "percentile_of", "percentile_in_place", "median_and_percentile", "without_nan", "radius_map"]
 
@@ -163,14 +165,14 @@ def median_in_place(a: np.ndarray):
 def percentile_of(values, p: float):
     """``np.percentile(values, p)`` (method 'linear', `p` a Python float in [0, 100]) of a 1-D float array, bit for bit.
 
-    The two order statistics around the virtual index (n - 1) p / 100 are found by one partition;
+    The two order statistics around the virtual index (n - 1) q, q = p percent, are found by one partition;
     the interpolation between them is left to np.quantile on those two values at the same weight
     (a two-value quantile at q interpolates with weight q exactly), so numpy's own rounding of the
     interpolation is kept. Held to np.percentile by tests/test_image_same_bits.py.
     """
     a = np.asarray(values)
     n = a.size
-    q = p / 100
+    q = fraction(p)  # np.percentile divides by 100 the same way
     vi = (n - 1) * q
     if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
         return np.percentile(a, p)
@@ -184,7 +186,7 @@ def percentile_of(values, p: float):
 def percentile_in_place(a: np.ndarray, p: float):
     """:func:`percentile_of` of a 1-D float array that may be reordered (partitioned in place: no copy)."""
     n = a.size
-    q = p / 100
+    q = fraction(p)  # np.percentile divides by 100 the same way
     vi = (n - 1) * q
     if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
         return np.percentile(a, p)
@@ -199,7 +201,7 @@ def median_and_percentile(values, p: float):
     """(``np.median(values)``, ``np.percentile(values, p)``) of a 1-D float array from one partition, bit for bit."""
     a = np.asarray(values)
     n = a.size
-    q = p / 100
+    q = fraction(p)  # np.percentile divides by 100 the same way
     vi = (n - 1) * q
     if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
         return median_of(a), percentile_of(a, p)
