@@ -24,12 +24,13 @@ from __future__ import annotations
 
 import logging
 import math
+import threading
 from dataclasses import dataclass
 
 import numpy as np
 
 from saed.image.background import Background
-from saed.image.binning import Binned
+from saed.image.binning import Binned, median_and_percentile, median_of
 from saed.image.nearby import close_pairs, nearest_within
 from saed.image.spotfit import fit_spots
 
@@ -51,32 +52,88 @@ def _parabolic_peak(c: np.ndarray, i: int, j: int) -> tuple[float, float]:
     return i + di, j + dj
 
 
+#: Largest self-convolution (complex values of its half spectrum) whose work arrays are kept for the
+#: next frame of the same thread: 512 x 512 (a block image of 256 x 256) needs 512 x 257; kept up to
+#: four times that (~8 MB with the output).
+_KEEP_WORKSPACE_MAX = 4 * 512 * 257
+_workspace = threading.local()
+
+
+def _conv_workspace(shape: tuple[int, int]):
+    """(spectrum, output) arrays for a self-convolution of `shape`, reused by the next call of this thread.
+
+    A fresh 2 MB array costs its pages again on every frame (the freed memory goes back to the
+    system): on a 256 x 256 frame, more CPU than the transforms.
+    """
+    half = (shape[0], shape[1] // 2 + 1)
+    ws = getattr(_workspace, "arrays", None)
+    if ws is not None and ws[1].shape == shape:
+        return ws
+    ws = (np.empty(half, np.complex128), np.empty(shape, np.float64))
+    if half[0] * half[1] <= _KEEP_WORKSPACE_MAX:
+        _workspace.arrays = ws
+    return ws
+
+
 def _self_convolution(binned: Binned):
-    """Self-convolution of the log block image (peaks at twice a centre of symmetry), or None if all NaN."""
+    """Self-convolution of the log block image (peaks at twice a centre of symmetry), or None if all NaN.
+
+    The result lives in this thread's work array: use it before the next call (a copy if kept).
+    The transforms are numpy's ``irfft2(rfft2(a, s) ** 2, s)`` done axis by axis into the work
+    arrays, in the order rfft2 and irfft2 take (rows, then columns; columns, then rows), so the
+    values are theirs bit for bit.
+    """
     img = binned.image
     ok = np.isfinite(img)
     if not ok.any():
         return None
-    med = float(np.median(img[ok]))
-    lo = float(np.percentile(img[ok], 1.0))
+    med, lo = median_and_percentile(img[ok], 1.0)
+    med, lo = float(med), float(lo)
     span = max(med - lo, 1e-6)
-    a = np.where(ok, np.log1p(np.clip(img - med, 0.0, None) / span), 0.0).astype(np.float64)
-    nr, nc = a.shape
+    # np.where(ok, np.log1p(np.clip(img - med, 0.0, None) / span), 0.0), in place
+    t = img - med
+    np.clip(t, 0.0, None, out=t)
+    t /= span
+    np.log1p(t, out=t)
+    t[~ok] = 0.0
+    nr, nc = t.shape
     shape = (2 * nr, 2 * nc)
-    fa = np.fft.rfft2(a, s=shape)
-    return np.fft.irfft2(fa * fa, s=shape)
+    spec, out = _conv_workspace(shape)
+    np.fft.rfft(t.astype(np.float64), n=shape[1], axis=1, out=spec[:nr])
+    spec[nr:] = 0.0
+    np.fft.fft(spec, axis=0, out=spec)
+    np.multiply(spec, spec, out=spec)
+    np.fft.ifft(spec, axis=0, out=spec)
+    return np.fft.irfft(spec, n=shape[1], axis=1, out=out)
 
 
 def symmetric_center(binned: Binned) -> tuple[float, float]:
     """Rough centre (x, y) in full-resolution pixels from the point symmetry of the block image."""
-    conv = _self_convolution(binned)
+    return _symmetric_center_of(_self_convolution(binned), binned)
+
+
+def _argmax_2d(a: np.ndarray) -> tuple[int, int]:
+    """``np.unravel_index(np.argmax(a), a.shape)`` of a 2-D float array, without np.argmax's contiguous copy.
+
+    The row maxima (a reduction, no copy) give the first row holding the maximum (or a NaN, which
+    np.argmax takes as the maximum); np.argmax of that row gives the column: the first occurrence in
+    C order, as np.argmax. Held to it by tests/test_image_same_bits.py.
+    """
+    rowmax = a.max(axis=1)
+    nan_rows = np.isnan(rowmax)
+    i = int(np.argmax(nan_rows)) if nan_rows.any() else int(np.argmax(rowmax == rowmax.max()))
+    return i, int(np.argmax(a[i]))
+
+
+def _symmetric_center_of(conv, binned: Binned) -> tuple[float, float]:
+    """:func:`symmetric_center` from ``_self_convolution(binned)`` already computed."""
     if conv is None:
         rows, cols = binned.full_shape
         return (cols - 1) / 2.0, (rows - 1) / 2.0
     nr, nc = binned.image.shape
     # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
     search = conv[: 2 * nr - 1, : 2 * nc - 1]
-    i, j = np.unravel_index(int(np.argmax(search)), search.shape)
+    i, j = _argmax_2d(search)
     si, sj = _parabolic_peak(conv, i, j)
     x, y = binned.to_full_px(sj / 2.0, si / 2.0)
     return float(x), float(y)
@@ -90,7 +147,11 @@ def near_symmetry_peak(binned: Binned, center_px, radius_px: float = 3.0) -> boo
     toward some other centre) that stands above the median of the window marks a centre of symmetry
     there, even when it is not the highest one of the image.
     """
-    conv = _self_convolution(binned)
+    return _near_symmetry_peak_of(_self_convolution(binned), binned, center_px, radius_px)
+
+
+def _near_symmetry_peak_of(conv, binned: Binned, center_px, radius_px: float = 3.0) -> bool:
+    """:func:`near_symmetry_peak` from ``_self_convolution(binned)`` already computed."""
     if conv is None:
         return False
     nr, nc = binned.image.shape
@@ -212,9 +273,9 @@ def friedel_center(xy_px, start_px, *, sigma_px=None, intensity=None, tol_px: fl
         mid = 0.5 * (xy[pr[:, 0]] + xy[pr[:, 1]])
         w = 1.0 / (sig[pr[:, 0]] ** 2 + sig[pr[:, 1]] ** 2)
         # One robust pass: drop midpoints far from their (unweighted, per-axis) median.
-        med = np.median(mid, axis=0)
+        med = np.array([median_of(mid[:, 0]), median_of(mid[:, 1])])  # np.median(mid, axis=0)
         dev = np.hypot(*(mid - med).T)
-        keep = dev <= max(3.0 * 1.4826 * float(np.median(dev)), 0.5)
+        keep = dev <= max(3.0 * 1.4826 * float(median_of(dev)), 0.5)
         if keep.sum() >= 2:
             pr, mid, w = pr[keep], mid[keep], w[keep]
         c = (w[:, None] * mid).sum(axis=0) / w.sum()

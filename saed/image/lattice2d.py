@@ -36,6 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from saed.image.binning import median_of
 from saed.image.nearby import close_pairs, k_nearest
 
 __all__ = ["gauss_reduce", "candidate_vectors", "find_basis", "index_spots", "LatticeFit", "refine_lattice",
@@ -101,13 +102,18 @@ def candidate_vectors(xy_rel: np.ndarray, *, tol_px: float, max_candidates: int 
     # Best first: most votes, then shortest; drop near-duplicates (either sign).
     order = np.lexsort((length, -counts))[:300]
     chosen: list[np.ndarray] = []
+    ch = np.empty((max_candidates, 2))  # the chosen vectors as rows, for one vectorised test per candidate
     for k in order:
         v = vec[k]
-        if any(min(np.hypot(*(v - c)), np.hypot(*(v + c))) < 2.0 * tol_px for c in chosen):
+        c = ch[:len(chosen)]
+        # a near-duplicate (either sign) of one already chosen: |v - c| or |v + c| under 2 tol
+        if len(chosen) and ((np.hypot(v[0] - c[:, 0], v[1] - c[:, 1]) < 2.0 * tol_px)
+                            | (np.hypot(v[0] + c[:, 0], v[1] + c[:, 1]) < 2.0 * tol_px)).any():
             continue
         # Average the cluster for a better estimate.
         near = np.hypot(allv[:, 0] - v[0], allv[:, 1] - v[1]) <= tol_px
         chosen.append(allv[near].mean(axis=0) if near.any() else v)
+        ch[len(chosen) - 1] = chosen[-1]
         if len(chosen) >= max_candidates:
             break
     # Also the shortest spot vectors themselves (first-order reflections), if not in yet.
@@ -256,7 +262,7 @@ def refine_lattice(xy_px, sigma_px, center_px, g1_px, g2_px, *, tol_px: float, c
         c, g1, g2 = theta[0:2], theta[2:4], theta[4:6]
         rr = np.hypot(*(xy[on] - c - idx[on] @ np.stack([g1, g2])).T)
         rms = float(np.sqrt(np.mean(rr**2)))
-        tol = max(min(tol_px, 4.0 * rms + 3.0 * float(np.median(sig[on]))), 0.5 * tol_px, 1.0)
+        tol = max(min(tol_px, 4.0 * rms + 3.0 * float(median_of(sig[on]))), 0.5 * tol_px, 1.0)
     # Keep the basis reduced (the refinement can move a near-tie such as a hexagonal net across the
     # boundary); the covariance follows the integer change of basis.
     g1, g2, t = gauss_reduce(g1, g2)

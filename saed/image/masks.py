@@ -17,7 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage as ndi
 
-from saed.image.binning import Binned, radial_quantile_profile
+from saed.image.binning import (Binned, median_in_place, percentile_in_place, radial_quantile_profile, radius_map,
+                                without_nan)
 
 __all__ = ["BeamStopShadow", "saturation_mask", "border_mask", "find_beam_stop", "NOMINAL_FULL_SCALES"]
 
@@ -107,8 +108,9 @@ class BeamStopShadow:
 
 
 def _nan_smooth(img: np.ndarray, sigma: float) -> np.ndarray:
-    w = np.isfinite(img).astype(np.float32)
-    v = np.where(w > 0, img, 0.0).astype(np.float32)
+    fin = np.isfinite(img)
+    w = fin.astype(np.float32)
+    v = np.where(fin, img, 0.0).astype(np.float32, copy=False)
     num = ndi.gaussian_filter(v, sigma, mode="nearest")
     den = ndi.gaussian_filter(w, sigma, mode="nearest")
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -117,7 +119,8 @@ def _nan_smooth(img: np.ndarray, sigma: float) -> np.ndarray:
     return out
 
 
-def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, margin_px: float = 3.0) -> BeamStopShadow | None:
+def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, margin_px: float = 3.0,
+                   radius: np.ndarray | None = None) -> BeamStopShadow | None:
     """Find a beam-stop shadow on the block-averaged image; None when there is none.
 
     Parameters
@@ -131,6 +134,9 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         of the haze level above the darkest level at the same radius.
     margin_px : float
         Extra width added on each side of the band (penumbra), full-resolution pixels.
+    radius : (nr, nc) array, optional
+        ``radius_map(binned, center_px)`` when the caller has it already (it is the same for the
+        background's block image when the two share their blocks).
 
     Notes
     -----
@@ -153,8 +159,7 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
     finite = np.isfinite(sm)
     if finite.sum() < 100:
         return None
-    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
-    r = np.hypot(xx - cxb, yy - cyb)
+    r = radius_map(binned, center_px) if radius is None else radius
     # Haze reference per radius: the upper quartile of each ring (the shadow may cover half of a small
     # ring), made non-increasing outward from the inside (rings wholly inside the rod's tip take the
     # level just outside it).
@@ -163,10 +168,16 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         return None
     prof = np.maximum.accumulate(prof[::-1])[::-1]
     haze = np.interp(r, rc, prof)
-    dark = float(np.nanpercentile(sm, 0.5))
-    resid = img - sm
-    noise = 1.4826 * float(np.nanmedian(np.abs(resid - np.nanmedian(resid)))) + 1e-12
-    contrast = haze - dark
+    # np.nanpercentile(sm, 0.5) and the nanmedians: the same partitions of the non-NaN values, in the
+    # order numpy leaves them (without_nan: copies of this function's own, partitioned in place)
+    dark = float(percentile_in_place(without_nan(sm), 0.5))
+    resid = without_nan(img - sm)
+    med = median_in_place(resid)
+    np.subtract(resid, med, out=resid)
+    np.abs(resid, out=resid)
+    noise = 1.4826 * float(median_in_place(resid)) + 1e-12
+    contrast = haze
+    contrast -= dark  # haze - dark (haze is not used again)
     cand = finite & (contrast > 5.0 * noise) & ((sm - dark) < max_contrast * contrast)
     if not cand.any():
         return None
@@ -220,6 +231,7 @@ def find_beam_stop(binned: Binned, center_px, *, max_contrast: float = 0.4, marg
         pl = np.array([0.0, float(np.min(w))])
         ph = np.array([0.0, float(np.max(w))])
     m = margin_px / f + 0.5
+    yy, xx = np.mgrid[0:nr, 0:nc].astype(np.float32)
     tt = (xx - cxb) * u[0] + (yy - cyb) * u[1]
     ww = (xx - cxb) * v[0] + (yy - cyb) * v[1]
     band = (tt >= float(t.min())) & (ww >= np.polyval(pl, tt) - m) & (ww <= np.polyval(ph, tt) + m)

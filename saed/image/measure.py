@@ -28,8 +28,9 @@ from scipy import ndimage as ndi
 from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
-from saed.image.binning import Binned, bin_image
-from saed.image.centre import DirectBeam, find_direct_beam, friedel_center, near_symmetry_peak, symmetric_center
+from saed.image.binning import Binned, bin_image, median_of, radius_map
+from saed.image.centre import (DirectBeam, _near_symmetry_peak_of, _self_convolution, _symmetric_center_of,
+                               find_direct_beam, friedel_center)
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
@@ -266,7 +267,8 @@ def _rough_centre(m: _Masked, coarse: Binned, calibration: Calibration, *, name:
     """Step 2: the hint, or the saturated direct beam, or point symmetry; refused far outside the image."""
     rows, cols = m.image.shape
     sat_free = m.saturated & ~m.masked
-    c_sym = symmetric_center(coarse)
+    conv = _self_convolution(coarse)  # the point-symmetry map, computed once for both questions below
+    c_sym = _symmetric_center_of(conv, coarse)
     db_region = _direct_beam_region(sat_free, c_sym, DIRECT_BEAM_REACH_FRACTION * min(rows, cols))
     if calibration.center_px is not None:
         # A hint is a rough guess: a saturated direct beam or the centre of symmetry near it is
@@ -278,7 +280,7 @@ def _rough_centre(m: _Masked, coarse: Binned, calibration: Calibration, *, name:
         if db_hint is not None:
             db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
         elif (math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach
-              and not near_symmetry_peak(coarse, hint)):  # a hint on a centre of symmetry of its own stands
+              and not _near_symmetry_peak_of(conv, coarse, hint)):  # a hint on a centre of symmetry of its own stands
             c0, how = tuple(c_sym), "point symmetry near the given centre"
         else:
             c0, how = hint, "the given centre"
@@ -357,7 +359,7 @@ def _centre_before_lattice(spots: Spots, beam: DirectBeam | None, rough: _RoughC
     if db_xy is None and strong.sum() >= FRIEDEL_MIN_SPOTS:
         # how far off the rough centre may be: under half the smallest spot spacing, within a range
         nn = nearest_other_distance(sxy[strong])
-        search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * np.median(nn), FRIEDEL_SEARCH_MIN_PX,
+        search_px = float(np.clip(FRIEDEL_SEARCH_FRACTION_OF_SPACING * median_of(nn), FRIEDEL_SEARCH_MIN_PX,
                                   FRIEDEL_SEARCH_MAX_PX))
     fr = friedel_center(sxy[strong], start, sigma_px=spots.sigma_xy_px[strong], intensity=spots.intensity[strong],
                         tol_px=FRIEDEL_TOL_WITH_BEAM_PX if db_xy is not None else FRIEDEL_TOL_PX,
@@ -396,7 +398,7 @@ def _lattice_notes(fit) -> list[str]:
 def _fit_lattice(spots: Spots, centre: _Centre, rough: _RoughCentre, *, sigma: float) -> _LatticeStep:
     """Step 7: the 2-D lattice refined together with the centre over all spots."""
     order = np.argsort(-spots.snr)
-    tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * np.median(spots.sigma_xy_px),
+    tol = float(max(LATTICE_TOL_MIN_PX, LATTICE_TOL_POSITION_SIGMAS * median_of(spots.sigma_xy_px),
                     LATTICE_TOL_SPOT_WIDTHS * sigma))
     fit = fit_spot_lattice(spots.xy_px, spots.sigma_xy_px, centre.xy_px, tol_px=tol, order=order,
                            center_tol_px=tol + (0.0 if centre.how != rough.how else ROUGH_CENTRE_EXTRA_TOL_PX),
@@ -484,14 +486,18 @@ def inspect_pattern(image: np.ndarray, calibration: Calibration, *, mask=None, s
     rough = _rough_centre(m, coarse, calibration, name=name)
     c0 = rough.xy_px
 
-    stop = find_beam_stop(coarse, c0) if find_stop else None
+    # Block distances from the rough centre: the beam-stop search and the background share them
+    # when they share their blocks (frames under 400 px a side, whose block image is not coarsened).
+    radius_b = radius_map(coarse, c0)
+    stop = find_beam_stop(coarse, c0, radius=radius_b) if find_stop else None
     if stop is not None:
         m = _mask_beam_stop(m, stop, name=name)
         notes.append(f"beam stop masked (towards {stop.angle_deg:.0f} deg, {stop.width_px:.0f} px wide)")
     if m.saturated.any():
         notes.append(f"{int(m.saturated.sum())} saturated pixels (at {m.saturation_level:g}) ignored in the fits")
 
-    bg = estimate_background(m.image, m.binned, c0, valid=m.fit_valid)
+    same_blocks = coarse.factor == m.binned.factor and coarse.image.shape == m.binned.image.shape
+    bg = estimate_background(m.image, m.binned, c0, valid=m.fit_valid, radius=radius_b if same_blocks else None)
     sigma = _spot_width(m, bg, c0, spot_sigma_px)
     search = find_spots(m.image, m.fit_valid, bg, sigma_px=sigma, snr_min=snr_min, detect_snr=detect_snr,
                         saturated_mask=m.saturated & ~m.masked)

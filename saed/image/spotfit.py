@@ -85,6 +85,29 @@ def window_stack(image: np.ndarray, valid: np.ndarray | None, ix, iy, half: int)
     return data, mask
 
 
+def _row_nanmedian(values: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """``np.nanmedian(np.where(keep, values, np.nan), axis=1)`` of finite (n, m) `values`, bit for bit (no warnings).
+
+    np.nanmedian sorts each row (masked arrays, or one np.median per row for long rows) and halves
+    the sum of the two middle values (the middle one twice for an odd count); this sorts the kept
+    values of all rows at once (left-out ones as +inf, last) and does the same sum and halving.
+    All-left-out rows give NaN. Held to np.nanmedian by tests/test_image_same_bits.py.
+    """
+    n = values.shape[0]
+    if n == 0:
+        return np.zeros(0)
+    srt = np.where(keep, values, np.inf)
+    srt.sort(axis=1)
+    cnt = keep.sum(axis=1)
+    hi = cnt // 2
+    lo = np.where(cnt % 2 == 1, hi, hi - 1)
+    rows = np.arange(n)
+    pair = np.stack([srt[rows, np.maximum(lo, 0)], srt[rows, np.minimum(hi, values.shape[1] - 1)]], axis=1)
+    out = pair.sum(axis=1) / 2.0
+    out[cnt == 0] = np.nan
+    return out
+
+
 def _solve_batch(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Solve a[k] x = b[k] for every k; zero where a[k] is singular or not finite."""
     out = np.zeros_like(b)
@@ -153,12 +176,12 @@ def fit_spots(image: np.ndarray, valid: np.ndarray | None, x0, y0, *, sigma0_px:
     # Start: plane = median of the valid border pixels; centroid of what stands above it.
     border = np.zeros((2 * h + 1, 2 * h + 1), bool)
     border[0, :] = border[-1, :] = border[:, 0] = border[:, -1] = True
-    bvals = np.where(mask & border[None], data, np.nan).reshape(n, -1)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows (windows with no valid border)
-        b0 = np.nanmedian(bvals, axis=1)
-        bad = ~np.isfinite(b0)
-        if bad.any():
+    # b0: the nanmedian of the valid border pixels (np.nanmedian over the window with NaN elsewhere)
+    b0 = _row_nanmedian(data[:, border], mask[:, border])
+    bad = ~np.isfinite(b0)
+    if bad.any():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows (windows with no valid pixel)
             b0[bad] = np.nanmedian(np.where(mask[bad], data[bad], np.nan).reshape(int(bad.sum()), -1), axis=1)
     b0 = np.where(np.isfinite(b0), b0, 0.0)
     above = np.clip(data - b0[:, None, None], 0.0, None) * m

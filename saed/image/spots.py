@@ -38,7 +38,7 @@ import numpy as np
 from scipy import ndimage as ndi
 
 from saed.image.background import Background, robust_sigma
-from saed.image.binning import Binned, _block_sum, upsample_bilinear
+from saed.image.binning import Binned, _block_sum, median_of, upsample_bilinear
 from saed.image.nearby import close_pairs, self_pairs
 from saed.image.spotfit import SpotFits, fit_spots, window_stack
 
@@ -73,7 +73,7 @@ def _adaptive_width(image, valid, x, y, *, half: int = 16, iterations: int = 8) 
         m = mask[k]
         if (m & ring).sum() < 8:
             continue
-        b = float(np.median(data[k][m & ring]))
+        b = float(median_of(data[k][m & ring]))
         v = np.where(m, data[k] - b, 0.0)
         cx, cy, w, s = 0.0, 0.0, 2.0, float("nan")
         for _ in range(iterations):
@@ -110,7 +110,7 @@ def estimate_spot_sigma(image, valid, background: Background, binned: Binned, ce
     """
     lev = background.level_binned
     f = binned.factor
-    sig = background.sigma(lev) / f
+    sig = background.sigma_binned / f
     z = (binned.image - lev) / sig
     z = np.where(np.isfinite(z) & (binned.valid_fraction >= 0.99), z, -np.inf)
     ii, jj = np.nonzero(z > 8.0)
@@ -147,7 +147,7 @@ def estimate_spot_sigma(image, valid, background: Background, binned: Binned, ce
     good = np.isfinite(widths) & (widths > 0.3)
     if not good.any():
         return None
-    w0 = float(np.median(widths[good]))
+    w0 = float(median_of(widths[good]))
     half = int(np.clip(math.ceil(3.0 * w0 + 3.0), 5, 24))
     fits = fit_spots(image, valid, sx, sy, sigma0_px=w0, half_px=half, gain=background.gain,
                      offset_var=background.offset_var, var_floor=background.var_floor)
@@ -156,7 +156,7 @@ def estimate_spot_sigma(image, valid, background: Background, binned: Binned, ce
         # Confirmed widths only: with few lattice spots the unconfirmed moments of haze blobs can
         # outnumber them (two 1.5 px spots and four 8 px blobs gave a median of 7.6 px and then no
         # spots at all).
-        return float(np.median(fits.width_px[ok]))
+        return float(median_of(fits.width_px[ok]))
     return w0
 
 
@@ -197,7 +197,7 @@ def detect_candidates(image, valid, background: Background, *, sigma_px: float, 
     rho = robust_sigma(zs) if zs.size > 100 else rho_white
     rho = max(rho, 0.5 * rho_white)
     # Threshold map on the blocks, interpolated: background + detect_snr * rho * pixel noise.
-    thr_b = (lev_b + detect_snr * rho * background.sigma(lev_b)).astype(np.float32)
+    thr_b = (lev_b + detect_snr * rho * background.sigma_binned).astype(np.float32)
     thr = upsample_bilinear(thr_b, fw, (wr, wc))
     cand = (g > thr) & vwork
     cand[0, :] = cand[-1, :] = cand[:, 0] = cand[:, -1] = False
@@ -261,7 +261,7 @@ def find_spots(image, valid, background: Background, *, sigma_px: float, snr_min
     big = np.isfinite(fits.width_px) & (fits.width_px > 0.4 * half) & (fits.amplitude > 0)
     if big.any():
         w_big = np.minimum(fits.width_px[big], 13.0)
-        s_big = float(np.median(w_big))
+        s_big = float(median_of(w_big))
         half2 = int(np.clip(math.ceil(3.0 * float(np.percentile(w_big, 90)) + 1.0), half + 1, 40))
         sx = np.where(fits.ok[big], fits.x_px[big], x[big])
         sy = np.where(fits.ok[big], fits.y_px[big], y[big])
