@@ -853,10 +853,14 @@ def _average_ranks(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     order = np.argsort(x, kind="mergesort")
     xs = x[order]
-    starts = np.flatnonzero(np.concatenate(([True], xs[1:] != xs[:-1])))
+    ranks = np.empty(len(x))
+    new_value = xs[1:] != xs[:-1]
+    if new_value.all():                   # no ties (the usual case for measured intensities): ranks 1..n
+        ranks[order] = np.arange(1.0, len(x) + 1.0)
+        return ranks
+    starts = np.flatnonzero(np.concatenate(([True], new_value)))
     ends = np.append(starts[1:], len(xs))
     mean_rank = (starts + ends + 1) / 2.0  # ranks start+1 .. end, averaged
-    ranks = np.empty(len(x))
     ranks[order] = np.repeat(mean_rank, ends - starts)
     return ranks
 
