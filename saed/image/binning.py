@@ -143,13 +143,7 @@ def median_of(values):
     many small arrays (ring medians, per-bin noise) np.median's dispatch costs as much as the work.
     Anything that is not a non-empty 1-D float array goes to np.median itself.
     """
-    a = np.asarray(values)
-    n = a.size
-    if a.ndim != 1 or n == 0 or a.dtype.kind != "f":
-        return np.median(a)
-    h = n // 2
-    part = np.partition(a, [h - 1, h, n - 1] if n % 2 == 0 else [h, n - 1])
-    return _partitioned_median(part, n)
+    return median_in_place(np.array(values, copy=True))
 
 
 def median_in_place(a: np.ndarray):
@@ -170,17 +164,7 @@ def percentile_of(values, p: float):
     (a two-value quantile at q interpolates with weight q exactly), so numpy's own rounding of the
     interpolation is kept. Held to np.percentile by tests/test_image_same_bits.py.
     """
-    a = np.asarray(values)
-    n = a.size
-    q = fraction(p)  # np.percentile divides by 100 the same way
-    vi = (n - 1) * q
-    if a.ndim != 1 or n < 2 or a.dtype.kind != "f" or type(p) is not float or not (0.0 <= vi < n - 1):
-        return np.percentile(a, p)
-    lo = math.floor(vi)
-    part = np.partition(a, sorted({0, lo, lo + 1, n - 1}))  # np.quantile's own partition points
-    if np.isnan(part[n - 1]):
-        return np.percentile(a, p)
-    return np.quantile(part[lo:lo + 2], vi - lo)
+    return percentile_in_place(np.array(values, copy=True), p)
 
 
 def percentile_in_place(a: np.ndarray, p: float):
