@@ -201,3 +201,16 @@ def test_rock_salt_and_fcc_differ_by_the_weak_111_spots_uncalibrated():
         assert rival.score < best.score
         # the 111 spots (all odd) are there and indexed as allowed reflections of the winner
         assert any(s.kind == "allowed" and s.hkl is not None and all(v % 2 for v in s.hkl) for s in best.indexed)
+
+
+def test_without_tilt_advice_the_lookalikes_and_ranking_are_the_same_and_no_tilt_is_worked_out(cobalt):
+    # what saed batch asks for: its rows name a look-alike but never show the tilt that separates it
+    m, _ = synthetic_measured(builtin_phase("Co-fcc"), [1, 1, 2], rng=21, max_g_inv_nm=13.0, in_plane_rotation_deg=37.0)
+    full, lean = index_pattern(m, cobalt), index_pattern(m, cobalt, tilt_advice=False)
+    assert any(lk.tilt is not None for lk in full.best.lookalikes)
+    assert all(lk.tilt is None for s in lean.solutions for lk in s.lookalikes)
+    assert [(s.phase_name, s.zone_axis, s.score, s.in_plane_rotation_deg) for s in lean.solutions] == \
+        [(s.phase_name, s.zone_axis, s.score, s.in_plane_rotation_deg) for s in full.solutions]
+    for a, b in zip(full.solutions, lean.solutions):
+        assert [(lk.phase_name, lk.zone_axis, lk.relation, lk.separating) for lk in a.lookalikes] == \
+            [(lk.phase_name, lk.zone_axis, lk.relation, lk.separating) for lk in b.lookalikes]

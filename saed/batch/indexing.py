@@ -129,5 +129,5 @@ def index_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int, cont
     cal = context if isinstance(context, Calibration) else job.calibration
     # no mistilt fit (index_pattern's mistilt=False): the CSV has no column for it, and the answer is the same
     result = index_image(image, job.tables, cal, top=job.top, mask=job.mask, source=f"{name} frame {frame}",
-                         mistilt=False, **dict(job.options))
+                         mistilt=False, tilt_advice=False, **dict(job.options))
     return row_from_result(result, name=name, frame=frame, search="full")

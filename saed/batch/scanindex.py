@@ -198,7 +198,8 @@ def _full(measured, job: IndexJob):
     from saed.index import index_pattern
 
     # no mistilt fit: the CSV never shows it, and it is about two thirds of a search on a scan frame
-    return index_pattern(measured, job.tables, top=job.top, mistilt=False, **dict(job.options))
+    # nor the look-alikes' separating tilts: a row names the look-alike, not the tilt that tells it apart
+    return index_pattern(measured, job.tables, top=job.top, mistilt=False, tilt_advice=False, **dict(job.options))
 
 
 def _same(row: Row, best, tables) -> bool:

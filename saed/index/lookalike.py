@@ -762,13 +762,15 @@ def _related(pa, pb) -> bool:
 
 def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, holder_alpha_axis_deg=None,
              calibrated: bool, min_score: float, top: int, length_tol: float, rel_pos_tol: float,
-             mistilt: bool = True) -> list[Solution]:
+             mistilt: bool = True, tilt_advice: bool = True) -> list[Solution]:
     """Mistilt, merged identical-geometry twins and look-alike notes for ranked solutions.
 
     `scored` holds (Solution, Fit) for every scored candidate, best first (including those below
     `min_score`, which only serve as 'ruled out' look-alikes). `length_tol` (fraction) and
     `rel_pos_tol` are the matcher's own tolerances, passed on to the near-miss search.
-    `mistilt` False skips the mistilt fit (``Solution.mistilt`` stays None; nothing else changes).
+    `mistilt` False skips the mistilt fit (``Solution.mistilt`` stays None; nothing else changes);
+    `tilt_advice` False skips the separating tilts of the look-alikes (``Lookalike.tilt`` stays None; the
+    relations, texts and ranking are the same).
     """
     good = [(s, f) for s, f in scored if s.score >= min_score]
     if not good:
@@ -800,7 +802,8 @@ def annotate(scored: list[tuple[Solution, object]], measured, tables, spots, *, 
         if rank == 0:
             looks += _lookalikes_of_best(s, f, kept[1:], scored, measured, tables, spots, g_max=g_max,
                                          calibrated=calibrated, min_score=min_score, length_tol=length_tol,
-                                         rel_pos_tol=rel_pos_tol, holder_alpha_axis_deg=holder_alpha_axis_deg)
+                                         rel_pos_tol=rel_pos_tol, holder_alpha_axis_deg=holder_alpha_axis_deg,
+                                         tilt_advice=tilt_advice)
             for lk in looks:
                 if lk.relation == Relation.AMBIGUOUS:
                     notes.append(f"ambiguous with {lk.phase_name} [{_lk_zone(lk)}]: {lk.separating}"
@@ -880,7 +883,7 @@ def row_near_miss(phase_index: int, best: Solution, measured, tables, spots, *, 
 
 
 def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *, g_max, calibrated, min_score,
-                        length_tol, rel_pos_tol, holder_alpha_axis_deg=None):
+                        length_tol, rel_pos_tol, holder_alpha_axis_deg=None, tilt_advice=True):
     looks = []
     seen_phases = {best.phase_name}
     for s, f, _ in others[:COMPETITORS_CONSIDERED]:
@@ -889,7 +892,7 @@ def _lookalikes_of_best(best, fit_b, others, scored, measured, tables, spots, *,
         rel, text, need_tilt = compare(best, fit_b, s, f, measured, spots, g_max=g_max, calibrated=calibrated)
         tilt = (separating_tilt(best, fit_b, s, f, voltage_kv=tables.voltage_kv, g_max=_observed_g_max(best, spots),
                                 holder_alpha_axis_deg=holder_alpha_axis_deg)
-                if need_tilt else None)
+                if need_tilt and tilt_advice else None)
         looks.append(_lookalike(s, rel, text, tilt))
         seen_phases.add(s.phase_name)
     # related phases further down (polymorphs, ordered variants): say why they lost

@@ -51,7 +51,7 @@ def _check_measured(measured) -> None:
 def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 5, angle_tol_deg: float | None = None,
                   length_tol_pct: float | None = None, holder_alpha_axis_deg: float | None = None,
                   lookalikes: bool = True, max_zone_index: int = MAX_ZONE_INDEX, max_crystals: int = 2,
-                  mistilt: bool = True, image=None) -> IndexResult:
+                  mistilt: bool = True, tilt_advice: bool = True, image=None) -> IndexResult:
     """Rank (phase, zone axis, orientation) solutions for a measured pattern.
 
     Parameters
@@ -82,6 +82,10 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
         solutions (default). False leaves ``Solution.mistilt`` None and adds no mistilt advice, and
         changes nothing else (ranking, scores, look-alikes): for callers that never show it, such as
         the rows of ``saed batch`` (the fit is about two thirds of a search's time on a scan frame).
+    tilt_advice : bool
+        Work out the tilt that would separate each look-alike of the best solution (default). False
+        leaves ``Lookalike.tilt`` None and changes nothing else (look-alike relations and texts,
+        ranking, scores): for the rows of ``saed batch``, which show the relation only.
     image : 2-D array, optional
         The detector image the spots were measured on (same pixel frame). With it, the superlattice
         positions of an ordered reading in crystal 1's orientation are probed in the image, fainter than
@@ -190,7 +194,7 @@ def index_pattern(measured: MeasuredPattern, tables: IndexTables, *, top: int = 
 
         ranked = annotate(solutions, measured, tables, spots, holder_alpha_axis_deg=holder_alpha_axis_deg,
                           calibrated=calibrated, min_score=MIN_SCORE, top=top, length_tol=length_tol,
-                          rel_pos_tol=REL_POS_TOL, mistilt=mistilt)
+                          rel_pos_tol=REL_POS_TOL, mistilt=mistilt, tilt_advice=tilt_advice)
     elif not mistilt:
         ranked = list(good[:top])
     else:
