@@ -343,6 +343,18 @@ def _sum25(a):
 
 
 @numba.njit(cache=True)
+def _window_moment(w, tmp, along_columns):
+    """Sum of the 5 x 5 window's weights `w` times their column offset (`along_columns`) or row offset, added
+    as numpy adds ``(w * offsets).sum()`` (:func:`_sum25`); `tmp` is 25 values of scratch."""
+    k = 0
+    for di in range(-_WIN, _WIN + 1):
+        for dj in range(-_WIN, _WIN + 1):
+            tmp[k] = w[k] * (dj if along_columns else di)
+            k += 1
+    return _sum25(tmp)
+
+
+@numba.njit(cache=True)
 def _parabola_offset(lo, centre, hi):
     """Peak offset of a parabola through float32 logarithms `lo`, `centre`, `hi`; (False, 0) where not a peak."""
     den = (lo - np.float32(2.0) * centre) + hi
@@ -380,18 +392,8 @@ def spot_table(resid, sm, flat, logs, r_bin, sd_r, noise_sm_r, snr_min, min_sum_
         tot = _sum25(w)
         if not tot > 0:
             continue
-        k = 0
-        for di in range(-_WIN, _WIN + 1):
-            for dj in range(-_WIN, _WIN + 1):
-                tmp[k] = w[k] * dj
-                k += 1
-        x = np.float64(cj) + _sum25(tmp) / tot
-        k = 0
-        for di in range(-_WIN, _WIN + 1):
-            for dj in range(-_WIN, _WIN + 1):
-                tmp[k] = w[k] * di
-                k += 1
-        y = np.float64(ci) + _sum25(tmp) / tot
+        x = np.float64(cj) + _window_moment(w, tmp, True) / tot
+        y = np.float64(ci) + _window_moment(w, tmp, False) / tot
         fine, off = _parabola_offset(logs[1, m], logs[0, m], logs[2, m])
         if fine:
             x = np.float64(cj) + np.float64(off)
