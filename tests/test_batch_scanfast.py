@@ -111,7 +111,7 @@ def test_warm_start_gives_the_full_search_answers(small_scan):
             assert a.score == pytest.approx(b.score, abs=1e-9)
 
 
-def test_run_centre_hint_starts_each_task_on_the_lean_stage(small_scan):
+def test_run_centre_hint_starts_tasks_inside_a_scan_on_the_lean_stage(small_scan):
     from dataclasses import replace
 
     from saed.batch.indexing import make_index_job
@@ -135,7 +135,9 @@ def test_run_centre_hint_starts_each_task_on_the_lean_stage(small_scan):
     starts = [c.frames[0] for c in chunks]
     assert all(runs["none"][k].search == FULL for k in starts)
     assert all(runs["far"][k].search == FULL for k in starts)        # no beam near a wrong hint: the full stage
-    assert all(runs["hint"][k].search in (LEAN_SEARCH, EMPTY) for k in starts)
+    # a task starting inside the file starts on the lean stage; the file's frame 0 goes through the full stage
+    assert starts[0] == 0 and runs["hint"][0].search == FULL
+    assert all(runs["hint"][k].search in (LEAN_SEARCH, EMPTY) for k in starts[1:])
     for a, b in zip(runs["none"], runs["hint"]):                      # the same answers either way
         assert (a.status, a.phase, a.zone_axis) == (b.status, b.phase, b.zone_axis)
         if a.status == "ok":
@@ -144,6 +146,20 @@ def test_run_centre_hint_starts_each_task_on_the_lean_stage(small_scan):
             ph = builtin_phase(a.phase)
             ua, ub = (orientations(ph, np.array([r.zone_axis]), np.array([r.in_plane_rotation_deg])) for r in (a, b))
             assert misorientation_deg(ph, ua, ub, friedel=True)[0] < 0.5
+
+
+def test_a_single_pattern_is_measured_by_the_full_stage_whatever_the_run_hint():
+    # a folder of single patterns: each file is frame 0 of its own task, and gets saed index's image stage
+    from saed.batch.indexing import make_index_job
+    from saed.batch.scanindex import FULL, LEAN_SEARCH, index_scan_frame
+
+    job = make_index_job([builtin_phase(p) for p in ("Co-fcc", "Co-hcp")], Calibration(SCALE, 200.0),
+                         frame_shape=(256, 256), check_every=0, centre_hint_px=(127.6, 128.3))
+    image = _render("Co-fcc", (0, 1, 1), 10.0, 2).image
+    index_scan_frame.new_task(job)
+    assert index_scan_frame(image, job, name="one.tif", frame=0).search == FULL
+    index_scan_frame.new_task(job)                       # the same frame as a task start inside a scan
+    assert index_scan_frame(image, job, name="scan", frame=256).search == LEAN_SEARCH
 
 
 def test_ipf_colours_and_misorientation_against_rotations_written_here():

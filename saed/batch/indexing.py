@@ -29,10 +29,10 @@ class IndexJob:
     ``frame_shape``: (rows, cols) every frame must have (None: not checked); ``check_every``: on a
     scan (:func:`saed.batch.scanindex.index_scan_frame`), every N-th frame is also solved by the
     full image stage and full search, to measure how often the warm start agrees (0: never);
-    ``centre_hint_px``: (x, y) where the direct beam of the run's frames is expected (the full image
-    stage's centre on the run's first frame, :func:`saed.batch.scanindex.scan_centre_hint`), from which
-    a scan task's first frame starts the lean image stage; None: the first frame of every task goes
-    through the full image stage.
+    ``centre_hint_px``: (x, y) where the direct beam of a scan's frames is expected (the full image
+    stage's centre on the first frame of the run's first file of many frames,
+    :func:`saed.batch.scanindex.scan_centre_hint`), from which a scan task that starts inside a file starts
+    the lean image stage; None, and always for a file's frame 0: the full image stage.
     """
 
     tables: object

@@ -5,9 +5,11 @@ put. :func:`index_scan_frame` uses both, without changing what a frame is indexe
 
 1. **Image stage.** Each frame is measured by
    :func:`saed.image.smallframe.measure_small_frame`, starting from the previous frame's centre; the
-   first frame of a task starts from the run's centre hint (``job.centre_hint_px``: the full image
-   stage's centre on the run's first frame, :func:`scan_centre_hint`), or, without one, is measured by
-   the full stage (:func:`saed.image.measure.measure_pattern`)
+   first frame of a task that starts inside a file starts from the run's centre hint
+   (``job.centre_hint_px``: the full image stage's centre on the first frame of the run's first file of
+   many frames, :func:`scan_centre_hint`); a file's frame 0 (the only frame of a single pattern), and a
+   task's first frame without a hint, are measured by the full stage
+   (:func:`saed.image.measure.measure_pattern`)
    (frames above :data:`~saed.image.smallframe.SMALL_FRAME_MAX_PIXELS`, and frames where the
    direct beam is not found near that centre, go through the full stage). A frame with no spots
    (vacuum, amorphous film) is decided there, in about 0.45 ms of CPU on a 256 x 256 frame.
@@ -232,7 +234,9 @@ def index_scan_frame(image: np.ndarray, job: IndexJob, *, name: str, frame: int,
             floats = np.ascontiguousarray(image, dtype=np.float32)      # as saed.image.io.check_image makes it
         return floats
 
-    hint = st.centre if st.centre is not None else (cal.center_px or job.centre_hint_px)
+    # the run's hint serves tasks that start inside a file of many frames (a scan): frame 0 of a file -- the
+    # only frame of a single pattern -- is measured by the full stage, as `saed index` measures it
+    hint = st.centre if st.centre is not None else (cal.center_px or (job.centre_hint_px if frame > 0 else None))
     measured = None
     if hint is not None and image.size <= SMALL_FRAME_MAX_PIXELS:
         measured = measure_small_frame(image, cal, centre_hint_px=hint, mask=job.mask, source=source)

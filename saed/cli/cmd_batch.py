@@ -246,10 +246,11 @@ def run(args) -> int:
              + (f" on {where}" if n_todo else ""))
         outcome = None
         hint = None
-        if n_todo and not args.full_search:
+        scan = next((s for s in inputs.sources if s.n_frames > 1), None)   # the hint is for files of many frames
+        if n_todo and not args.full_search and scan is not None:
             from saed.batch.scanindex import scan_centre_hint
 
-            hint = scan_centre_hint(inputs.sources[0], calibration, mask=mask)
+            hint = scan_centre_hint(scan, calibration, mask=mask)
         if n_todo:
             try:
                 with _terminate_as_interrupt(), \
