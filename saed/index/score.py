@@ -696,7 +696,7 @@ def _fit_linear(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool
         ((z * w[:, None]).T @ z).tolist()
     sim = _similarity(xx, xy_, yy, xvx, xvy, yvx, yvy, spx, spy, svx, svy, w_sum, shift=use_shift)
     if sim is None:
-        return _fit_linear_lstsq(p, v, w, distortion=distortion, t_max_px=t_max_px)
+        return _similarity_lstsq(p, v, w, t_max_px=t_max_px)
     a, b, tx, ty = sim
     t_norm = math.hypot(tx, ty)
     if t_norm > t_max_px:
@@ -759,10 +759,10 @@ def _similarity(xx, xy, yy, xvx, xvy, yvx, yvy, spx, spy, svx, svy, w_sum: float
     return a, b, mvx - (a * mpx - b * mpy), mvy - (b * mpx + a * mpy)
 
 
-def _fit_linear_lstsq(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, distortion: bool,
-                      t_max_px: float) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_fit_linear` by numpy's least squares, for spots too close together for the closed form
-    (lstsq's minimum-norm answer where the similarity is not determined)."""
+def _similarity_lstsq(p: np.ndarray, v: np.ndarray, w: np.ndarray, *, t_max_px: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_fit_linear`'s similarity and shift by numpy's least squares, for spots too close together for
+    the closed form (lstsq's minimum-norm answer where the similarity is not determined). No distortion
+    step follows: points that close together make the normal matrix fail the condition test anyway."""
     sw = np.sqrt(w)
     n = len(p)
     use_shift = n >= SHIFT_MIN_SPOTS and t_max_px > 0

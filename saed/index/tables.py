@@ -106,14 +106,13 @@ class PhaseIndexTable:
     def rows_of(self, hkl) -> np.ndarray:
         """Row numbers of integer `hkl` rows (shape (..., 3)); -1 where not in the table."""
         h = np.asarray(hkl, dtype=np.int64)
+        inside = np.all(np.abs(h) <= self.span, axis=-1)
         dense = self._row_lookup
         if dense is not None:
             # one read of a table over the index cube instead of a sorted search (the scan's warm start
             # asks for one candidate's 10-60 spots per frame, where the search's set-up was most of it)
-            inside = np.all(np.abs(h) <= self.span, axis=-1)
             return np.where(inside, dense[hkl_keys(np.clip(h, -self.span, self.span), self.span)], -1)
         out = np.full(h.shape[:-1], -1, dtype=np.int64)
-        inside = np.all(np.abs(h) <= self.span, axis=-1)
         if not np.any(inside) or len(self.keys_sorted) == 0:
             return out
         k = hkl_keys(np.clip(h, -self.span, self.span), self.span)
