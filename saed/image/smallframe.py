@@ -3,7 +3,7 @@
 In a scan the direct beam stays where it was on the previous frame (or moves by a pixel), the
 spots are sharp and few, and there are tens of thousands of frames. :func:`measure_small_frame`
 measures such a frame in about 0.3 ms of CPU (256 x 256) from a centre hint (the previous frame's centre,
-measured by the full stage :func:`saed.image.measure.inspect_pattern`):
+or at the start a centre measured by the full stage :func:`saed.image.measure.inspect_pattern`):
 
 1. the centre: the intensity-weighted centroid of the direct beam near the hint;
 2. the background: the mean at each integer radius about the centre, after one pass that leaves
@@ -21,8 +21,8 @@ frame), the same float operations in the same order as the numpy and scipy calls
 spots to the last bit. The direct beam's centroid and the parabola's logarithms stay in numpy.
 
 No beam-stop search, no saturated-beam analysis and no 2-D lattice fit: the frame's MeasuredPattern
-has ``basis`` None. Use the full stage for the first frame of a scan and whenever this one reports
-that it cannot see the direct beam near the hint.
+has ``basis`` None. Use the full stage where there is no centre to start from, and whenever this one
+reports that it cannot see the direct beam near the hint.
 """
 
 from __future__ import annotations
@@ -36,6 +36,7 @@ from scipy import ndimage as ndi
 
 from saed.calibration import Calibration
 from saed.errors import ImageError
+from saed.image.binning import median_in_place
 from saed.image.values import MeasuredPattern, Spots
 
 __all__ = ["measure_small_frame", "SMALL_FRAME_MAX_PIXELS"]
@@ -94,13 +95,6 @@ def _scratch(shape, radius_px: int):
     return _SCRATCH.arrays
 
 
-def _median(v: np.ndarray) -> float:
-    """The median of a short 1-D array (numpy's, by a sort: without its overhead, which dominates here)."""
-    v = np.sort(v)
-    m = len(v) // 2
-    return float(v[m]) if len(v) % 2 else 0.5 * float(v[m - 1] + v[m])
-
-
 @lru_cache(maxsize=8)
 def _gaussian_weights(sigma_px: float, truncate: float) -> np.ndarray:
     """The weights ``scipy.ndimage.gaussian_filter`` correlates each axis with (taken from it: its response to
@@ -139,7 +133,7 @@ def _direct_beam(img: np.ndarray, hint_px, top_of_frame: float, half: int = 8):
     if r1 - r0 < 3 or c1 - c0 < 3:
         return None
     box = img[r0:r1, c0:c1].astype(np.float64)
-    edge = _median(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]]))
+    edge = float(median_in_place(np.concatenate([box[0], box[-1], box[:, 0], box[:, -1]])))
     top = float(box.max())
     if top < 0.5 * top_of_frame or top - edge < 10.0 * math.sqrt(max(edge, 1.0)):
         return None
