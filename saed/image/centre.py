@@ -34,7 +34,8 @@ from saed.image.binning import Binned, median_and_percentile, median_of
 from saed.image.nearby import close_pairs, nearest_within
 from saed.image.spotfit import fit_spots
 
-__all__ = ["near_symmetry_peak", "symmetric_center", "FriedelCentre", "friedel_center", "DirectBeam", "find_direct_beam"]
+__all__ = ["near_symmetry_peak", "symmetric_center", "point_symmetry", "PointSymmetry", "FriedelCentre", "friedel_center",
+           "DirectBeam", "find_direct_beam"]
 
 logger = logging.getLogger(__name__)
 
@@ -109,7 +110,7 @@ def _self_convolution(binned: Binned):
 
 def symmetric_center(binned: Binned) -> tuple[float, float]:
     """Rough centre (x, y) in full-resolution pixels from the point symmetry of the block image."""
-    return _symmetric_center_of(_self_convolution(binned), binned)
+    return point_symmetry(binned).centre()
 
 
 def _argmax_2d(a: np.ndarray) -> tuple[int, int]:
@@ -125,18 +126,54 @@ def _argmax_2d(a: np.ndarray) -> tuple[int, int]:
     return i, int(np.argmax(a[i]))
 
 
-def _symmetric_center_of(conv, binned: Binned) -> tuple[float, float]:
-    """:func:`symmetric_center` from ``_self_convolution(binned)`` already computed."""
-    if conv is None:
-        rows, cols = binned.full_shape
-        return (cols - 1) / 2.0, (rows - 1) / 2.0
-    nr, nc = binned.image.shape
-    # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
-    search = conv[: 2 * nr - 1, : 2 * nc - 1]
-    i, j = _argmax_2d(search)
-    si, sj = _parabolic_peak(conv, i, j)
-    x, y = binned.to_full_px(sj / 2.0, si / 2.0)
-    return float(x), float(y)
+@dataclass(frozen=True, eq=False)
+class PointSymmetry:
+    """The point-symmetry map of a block image (its self-convolution of the log image: peaks at twice a
+    centre of symmetry; None when the image is all NaN), for the two questions asked of it.
+
+    ``conv`` lives in this thread's work array (:func:`_self_convolution`): ask before the next
+    :func:`point_symmetry` of the same thread.
+    """
+
+    binned: Binned
+    conv: np.ndarray | None
+
+    def centre(self) -> tuple[float, float]:
+        """:func:`symmetric_center`."""
+        if self.conv is None:
+            rows, cols = self.binned.full_shape
+            return (cols - 1) / 2.0, (rows - 1) / 2.0
+        nr, nc = self.binned.image.shape
+        # The self-convolution of the central region: limit the search to shifts that keep the centre inside.
+        search = self.conv[: 2 * nr - 1, : 2 * nc - 1]
+        i, j = _argmax_2d(search)
+        si, sj = _parabolic_peak(self.conv, i, j)
+        x, y = self.binned.to_full_px(sj / 2.0, si / 2.0)
+        return float(x), float(y)
+
+    def has_peak_near(self, center_px, radius_px: float = 3.0) -> bool:
+        """:func:`near_symmetry_peak`."""
+        if self.conv is None:
+            return False
+        nr, nc = self.binned.image.shape
+        xb, yb = self.binned.to_binned_px(float(center_px[0]), float(center_px[1]))
+        ci, cj = 2 * float(yb), 2 * float(xb)
+        r = max(2, int(np.ceil(4.0 * radius_px / self.binned.factor)))  # window half-width: 2 radii, in shift units
+        i0, i1 = int(round(ci)) - r, int(round(ci)) + r + 1
+        j0, j1 = int(round(cj)) - r, int(round(cj)) + r + 1
+        if i0 < 0 or j0 < 0 or i1 > 2 * nr - 1 or j1 > 2 * nc - 1:
+            return False
+        win = self.conv[i0:i1, j0:j1]
+        pi, pj = np.unravel_index(int(np.argmax(win)), win.shape)
+        inside = 0 < pi < win.shape[0] - 1 and 0 < pj < win.shape[1] - 1
+        close = np.hypot(pi + i0 - ci, pj + j0 - cj) * self.binned.factor / 2.0 <= radius_px
+        return bool(inside and close and win[pi, pj] > np.median(win))
+
+
+def point_symmetry(binned: Binned) -> PointSymmetry:
+    """The point-symmetry map of `binned`, computed once for :meth:`~PointSymmetry.centre` and
+    :meth:`~PointSymmetry.has_peak_near` (the image stage asks both of one map)."""
+    return PointSymmetry(binned, _self_convolution(binned))
 
 
 def near_symmetry_peak(binned: Binned, center_px, radius_px: float = 3.0) -> bool:
@@ -147,26 +184,7 @@ def near_symmetry_peak(binned: Binned, center_px, radius_px: float = 3.0) -> boo
     toward some other centre) that stands above the median of the window marks a centre of symmetry
     there, even when it is not the highest one of the image.
     """
-    return _near_symmetry_peak_of(_self_convolution(binned), binned, center_px, radius_px)
-
-
-def _near_symmetry_peak_of(conv, binned: Binned, center_px, radius_px: float = 3.0) -> bool:
-    """:func:`near_symmetry_peak` from ``_self_convolution(binned)`` already computed."""
-    if conv is None:
-        return False
-    nr, nc = binned.image.shape
-    xb, yb = binned.to_binned_px(float(center_px[0]), float(center_px[1]))
-    ci, cj = 2 * float(yb), 2 * float(xb)
-    r = max(2, int(np.ceil(4.0 * radius_px / binned.factor)))  # window half-width: 2 radii, in shift units
-    i0, i1 = int(round(ci)) - r, int(round(ci)) + r + 1
-    j0, j1 = int(round(cj)) - r, int(round(cj)) + r + 1
-    if i0 < 0 or j0 < 0 or i1 > 2 * nr - 1 or j1 > 2 * nc - 1:
-        return False
-    win = conv[i0:i1, j0:j1]
-    pi, pj = np.unravel_index(int(np.argmax(win)), win.shape)
-    inside = 0 < pi < win.shape[0] - 1 and 0 < pj < win.shape[1] - 1
-    close = np.hypot(pi + i0 - ci, pj + j0 - cj) * binned.factor / 2.0 <= radius_px
-    return bool(inside and close and win[pi, pj] > np.median(win))
+    return point_symmetry(binned).has_peak_near(center_px, radius_px)
 
 
 @dataclass(frozen=True)

@@ -29,8 +29,7 @@ from saed.calibration import Calibration
 from saed.errors import ImageError, InputError
 from saed.image.background import Background, estimate_background
 from saed.image.binning import Binned, bin_image, median_of, radius_map
-from saed.image.centre import (DirectBeam, _near_symmetry_peak_of, _self_convolution, _symmetric_center_of,
-                               find_direct_beam, friedel_center)
+from saed.image.centre import DirectBeam, find_direct_beam, friedel_center, point_symmetry
 from saed.image.io import check_image, read_image, read_image_calibration, read_mask_image
 from saed.image.lattice2d import fit_spot_lattice
 from saed.image.masks import BeamStopShadow, border_mask, find_beam_stop, saturation_mask
@@ -267,8 +266,8 @@ def _rough_centre(m: _Masked, coarse: Binned, calibration: Calibration, *, name:
     """Step 2: the hint, or the saturated direct beam, or point symmetry; refused far outside the image."""
     rows, cols = m.image.shape
     sat_free = m.saturated & ~m.masked
-    conv = _self_convolution(coarse)  # the point-symmetry map, computed once for both questions below
-    c_sym = _symmetric_center_of(conv, coarse)
+    sym = point_symmetry(coarse)  # the point-symmetry map, computed once for both questions below
+    c_sym = sym.centre()
     db_region = _direct_beam_region(sat_free, c_sym, DIRECT_BEAM_REACH_FRACTION * min(rows, cols))
     if calibration.center_px is not None:
         # A hint is a rough guess: a saturated direct beam or the centre of symmetry near it is
@@ -280,7 +279,7 @@ def _rough_centre(m: _Masked, coarse: Binned, calibration: Calibration, *, name:
         if db_hint is not None:
             db_region, c0, how = db_hint, db_hint[0], "the saturated direct beam near the given centre"
         elif (math.hypot(c_sym[0] - hint[0], c_sym[1] - hint[1]) <= reach
-              and not _near_symmetry_peak_of(conv, coarse, hint)):  # a hint on a centre of symmetry of its own stands
+              and not sym.has_peak_near(hint)):  # a hint on a centre of symmetry of its own stands
             c0, how = tuple(c_sym), "point symmetry near the given centre"
         else:
             c0, how = hint, "the given centre"
