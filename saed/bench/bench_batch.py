@@ -29,6 +29,8 @@ from saed.bench import Case
 PHASES = ("Co-fcc", "Co-hcp", "Cr")
 SIZE = 256
 SCALE_INV_NM_PER_PX = 0.08
+
+
 def scan_job(path, *, phases=PHASES, scale_inv_nm_per_px: float = SCALE_INV_NM_PER_PX, size: int = SIZE):
     """The IndexJob ``saed batch`` makes for the scan at `path`: 200 kV, its phases, and the centre hint
     measured on the scan's first frame (:func:`saed.batch.scanindex.scan_centre_hint`)."""
